@@ -1,0 +1,330 @@
+"""The ``solderless`` command.
+
+Subcommands: ``render``, ``op``, ``ac``, ``play``, ``devices``, ``source``,
+``demo``, ``gui``, ``designs``. User mistakes (``SolderlessError``) print one
+clear line and exit with status 2; they never print a traceback.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+import time
+from pathlib import Path
+
+from engine.errors import DesignError, SolderlessError
+
+DEFAULT_DESIGN = "flagship"
+
+
+# ------------------------------------------------------------------ helpers
+
+def _load(args):
+    from engine.design import load_design
+    return load_design(args.design, in_source=getattr(args, "in_source", "VIN"),
+                       out_node=getattr(args, "out_node", "out"))
+
+
+def _add_design_arg(p, nargs=None):
+    p.add_argument("design", nargs=nargs, default=DEFAULT_DESIGN if nargs else None,
+                   help="design file (.toml), built-in design name, or SPICE netlist "
+                        f"(default: {DEFAULT_DESIGN})" if nargs else
+                        "design file (.toml), built-in design name, or SPICE netlist")
+    p.add_argument("--in-source", default="VIN", metavar="NAME",
+                   help="netlists only: the voltage source the input drives (default VIN)")
+    p.add_argument("--out-node", default="out", metavar="NAME",
+                   help="netlists only: the output node (default out)")
+
+
+class Progress:
+    """A one-line progress bar on stderr, shown only for long jobs on a terminal."""
+
+    def __init__(self, total: int, label: str, min_seconds: float = 1.0):
+        self.total = max(total, 1)
+        self.label = label
+        self.t0 = time.perf_counter()
+        self.shown = False
+        self.min_seconds = min_seconds
+        self.tty = sys.stderr.isatty()
+
+    def update(self, done: int) -> None:
+        el = time.perf_counter() - self.t0
+        if not self.tty or el < self.min_seconds:
+            return
+        frac = min(done / self.total, 1.0)
+        bar = "#" * int(30 * frac)
+        eta = el / frac - el if frac > 0 else 0.0
+        sys.stderr.write(f"\r{self.label} [{bar:<30}] {100 * frac:5.1f}%  {eta:5.1f}s left ")
+        sys.stderr.flush()
+        self.shown = True
+
+    def close(self) -> None:
+        if self.shown:
+            sys.stderr.write("\n")
+
+
+def _fmt(x: float, unit: str) -> str:
+    from engine.values import format_value
+    try:
+        return format_value(x, unit=unit, style="eng")
+    except Exception:
+        return f"{x:.4g} {unit}"
+
+
+# ------------------------------------------------------------------ render
+
+def cmd_render(args) -> int:
+    import numpy as np
+    import soundfile as sf
+    from engine.solver import Simulator
+    d = _load(args)
+    inp = Path(args.input)
+    try:
+        x, fs_in = sf.read(str(inp), dtype="float64", always_2d=True)
+    except FileNotFoundError:
+        raise DesignError("input file not found", file=str(inp)) from None
+    except Exception as exc:
+        raise DesignError(f"cannot read audio: {exc}", file=str(inp),
+                          hint="use a WAV (or FLAC/OGG) file") from None
+    if args.channel >= x.shape[1]:
+        raise DesignError(f"the file has {x.shape[1]} channel(s); --channel {args.channel} "
+                          "does not exist", file=str(inp))
+    x = x[:, args.channel]
+    fs = float(args.fs or fs_in)
+    if fs <= 0:
+        raise DesignError("--fs must be positive")
+    if int(fs) != int(fs_in):
+        from fractions import Fraction
+        from scipy.signal import resample_poly
+        fr = Fraction(int(fs), int(fs_in)).limit_denominator(1000)
+        x = resample_poly(x, fr.numerator, fr.denominator)
+    if not (args.input_fs_volts > 0 and args.output_fs_volts > 0):
+        raise DesignError("--input-fs-volts and --output-fs-volts must be positive")
+    volts = x * args.input_fs_volts
+    oversample = args.oversample or d.oversample
+    probes = [d.resolve_probe(p) for p in args.probe]
+    circ = d.flatten()
+    sim = Simulator(circ, fs=fs, oversample=oversample, probes=tuple(probes))
+    n = len(volts)
+    y = np.empty(n)
+    pdata = np.empty((len(probes), n)) if probes else None
+    block = 4096
+    prog = Progress(n, f"render {Path(args.output).name}")
+    for s in range(0, n, block):
+        e = min(s + block, n)
+        pb = np.empty((len(probes), e - s)) if probes else None
+        y[s:e] = 0.0
+        out = np.empty(e - s)
+        k = sim.process_into(volts[s:e], out, pb)
+        y[s:e] = out
+        if probes:
+            pdata[:, s:s + k] = pb[:, :k]
+        prog.update(e)
+    prog.close()
+    # fixed oversampling latency: shift so output lines up with the input
+    lat = int(round(sim.latency_samples))
+    if lat > 0 and not args.keep_latency:
+        y = np.concatenate([y[lat:], np.full(lat, y[-1])])
+    yo = y / args.output_fs_volts
+    peak = float(np.max(np.abs(yo))) if n else 0.0
+    if peak > 1.0:
+        print(f"warning: output peaks at {20 * math.log10(peak):+.1f} dBFS and is clipped; "
+              "raise --output-fs-volts", file=sys.stderr)
+    sf.write(args.output, np.clip(yo, -1.0, 1.0).astype(np.float32), int(fs),
+             subtype="FLOAT" if args.output.lower().endswith(".wav") else None)
+    st = sim.stats
+    print(f"wrote {args.output}: {n / fs:.2f} s at {fs:g} Hz, oversample x{oversample}, "
+          f"output peak {20 * math.log10(max(peak, 1e-12)):+.1f} dBFS "
+          f"({peak * args.output_fs_volts:.3g} V)")
+    if st.get("nonconverged", 0):
+        print(f"warning: {st['nonconverged']} samples did not converge (held at the last "
+              "good solution); try --oversample 2 or more", file=sys.stderr)
+    if probes:
+        if not args.probes_csv:
+            print("note: --probe given without --probes-csv; probe data not written",
+                  file=sys.stderr)
+        else:
+            t = np.arange(n) / fs
+            header = "time_s," + ",".join(args.probe)
+            np.savetxt(args.probes_csv, np.column_stack([t, pdata.T]), delimiter=",",
+                       header=header, comments="", fmt="%.9g")
+            print(f"wrote {args.probes_csv}: {len(probes)} probe(s)")
+    return 0
+
+
+# ------------------------------------------------------------------ op / ac
+
+def cmd_op(args) -> int:
+    from engine.solver import Simulator
+    d = _load(args)
+    circ = d.flatten()
+    sim = Simulator(circ, fs=48000.0, oversample=1)
+    op = sim.operating_point()
+    data = op.to_dict()
+    if args.json:
+        print(json.dumps(data, indent=2, default=float))
+        return 0
+    print(f"Operating point of {d.name}")
+    print("\nNets")
+    for net, v in sorted(op.nets.items()):
+        print(f"  {net:<28} {v:>10.4f} V")
+    print("\nDevices")
+    for name, q in op.devices.items():
+        items = []
+        for k, v in q.items():
+            if isinstance(v, (int, float)):
+                unit = "A" if k.startswith("i") else ("V" if k.startswith("v") else
+                                                      ("S" if k == "gm" else ""))
+                items.append(f"{k}={_fmt(v, unit)}")
+            else:
+                items.append(f"{k}={v}")
+        print(f"  {name:<20} " + "  ".join(items))
+    if op.warnings:
+        print("\nWarnings")
+        for w in op.warnings:
+            print(f"  ! {w}")
+    return 0
+
+
+def cmd_ac(args) -> int:
+    import numpy as np
+    from engine.solver import ac_response
+    d = _load(args)
+    circ = d.flatten()
+    if args.fmin <= 0 or args.fmax <= args.fmin:
+        raise DesignError("need 0 < --fmin < --fmax")
+    f = np.geomspace(args.fmin, args.fmax, args.points)
+    f, H, Z = ac_response(circ, f)
+    mag = 20 * np.log10(np.maximum(np.abs(H), 1e-30))
+    ph = np.degrees(np.angle(H))
+    if args.csv:
+        np.savetxt(args.csv, np.column_stack([f, mag, ph, np.abs(Z), np.degrees(np.angle(Z))]),
+                   delimiter=",", header="freq_hz,gain_db,phase_deg,zin_ohm,zin_phase_deg",
+                   comments="", fmt="%.9g")
+        print(f"wrote {args.csv}: {len(f)} points")
+        return 0
+    print(f"Small-signal response of {d.name} (input jack to output)")
+    print(f"{'freq':>10} {'gain dB':>9} {'phase':>8} {'Zin':>12}")
+    step = max(1, len(f) // 25)
+    for i in range(0, len(f), step):
+        print(f"{_fmt(f[i], 'Hz'):>10} {mag[i]:>9.2f} {ph[i]:>8.1f} {_fmt(abs(Z[i]), 'Ω'):>12}")
+    return 0
+
+
+def cmd_designs(args) -> int:
+    from engine.design import builtin_designs, stage_library, load_design
+    print("Built-in designs:")
+    for name in builtin_designs():
+        try:
+            d = load_design(name)
+            first = (d.notes.strip().splitlines() or [""])[0]
+            print(f"  {name:<24} {d.name} — {first[:70]}")
+        except SolderlessError as exc:
+            print(f"  {name:<24} (cannot load: {exc})")
+    print("\nStage library:")
+    for name in stage_library():
+        print(f"  {name}")
+    return 0
+
+
+# ------------------------------------------------------------------ parser
+
+def build_parser() -> argparse.ArgumentParser:
+    ap = argparse.ArgumentParser(
+        prog="solderless",
+        description="Hear an analog circuit before you build it: simulate a chain of "
+                    "stages live or offline.")
+    sub = ap.add_subparsers(dest="command", metavar="COMMAND")
+
+    p = sub.add_parser("render", help="run a WAV file through a design")
+    _add_design_arg(p)
+    p.add_argument("input", help="input audio file (WAV)")
+    p.add_argument("output", help="output WAV file (32-bit float)")
+    p.add_argument("--fs", type=float, default=None, help="simulation sample rate in Hz "
+                   "(default: the input file's; the input is resampled if different)")
+    p.add_argument("--oversample", type=int, choices=(1, 2, 4, 8), default=None,
+                   help="oversampling factor (default: the design's)")
+    p.add_argument("--input-fs-volts", type=float, default=1.0, metavar="V",
+                   help="volts at the input jack that a full-scale sample stands for "
+                        "(default 1.0)")
+    p.add_argument("--output-fs-volts", type=float, default=2.0, metavar="V",
+                   help="volts at the output jack written as full scale (default 2.0)")
+    p.add_argument("--channel", type=int, default=0, help="input channel to use (default 0)")
+    p.add_argument("--probe", action="append", default=[], metavar="NAME",
+                   help="record a probe, e.g. 'iabc(gain.U1)' or 'v(buffer.out)' (repeatable)")
+    p.add_argument("--probes-csv", metavar="FILE", help="write probes as CSV "
+                   "(time in seconds, then each probe in SI units)")
+    p.add_argument("--keep-latency", action="store_true",
+                   help="do not remove the oversampling filters' fixed delay")
+    p.set_defaults(func=cmd_render)
+
+    p = sub.add_parser("op", help="print the DC operating point")
+    _add_design_arg(p, nargs="?")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+    p.set_defaults(func=cmd_op)
+
+    p = sub.add_parser("ac", help="small-signal frequency response and input impedance")
+    _add_design_arg(p, nargs="?")
+    p.add_argument("--fmin", type=float, default=10.0)
+    p.add_argument("--fmax", type=float, default=20000.0)
+    p.add_argument("--points", type=int, default=200)
+    p.add_argument("--csv", metavar="FILE", help="write the response as CSV")
+    p.set_defaults(func=cmd_ac)
+
+    p = sub.add_parser("designs", help="list built-in designs and the stage library")
+    p.set_defaults(func=cmd_designs)
+
+    _optional(sub, "play", "engine.live.cli_play", "add_play_arguments", "run_play",
+              "play an instrument through a design live")
+    _optional(sub, "devices", "engine.live.cli_play", "add_devices_arguments", "run_devices",
+              "list audio devices")
+    _optional(sub, "source", "engine.synth", "add_source_arguments", "cli_source",
+              "write a synthetic guitar phrase as a WAV file")
+    _optional(sub, "demo", "engine.demo", "add_demo_arguments", "cli_demo",
+              "render the built-in compressor and its variants and write a report")
+    _optional(sub, "gui", "gui.app", "add_gui_arguments", "run_gui",
+              "open the desktop workbench")
+    return ap
+
+
+def _optional(sub, name, module, add_fn, run_fn, help_text):
+    """Register a subcommand whose arguments live in another module."""
+    import importlib
+    try:
+        mod = importlib.import_module(module)
+        add, run = getattr(mod, add_fn), getattr(mod, run_fn)
+    except (ImportError, AttributeError) as exc:
+        p = sub.add_parser(name, help=help_text + " (unavailable)")
+        p.set_defaults(func=lambda a, exc=exc: _unavailable(name, exc))
+        return
+    p = sub.add_parser(name, help=help_text)
+    add(p)
+    p.set_defaults(func=run)
+
+
+def _unavailable(name, exc) -> int:
+    print(f"error: '{name}' is not available here: {exc}", file=sys.stderr)
+    return 2
+
+
+def main(argv=None) -> int:
+    ap = build_parser()
+    args = ap.parse_args(argv)
+    if not getattr(args, "func", None):
+        ap.print_help()
+        return 0
+    try:
+        return int(args.func(args) or 0)
+    except SolderlessError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("stopped", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,1102 @@
+"""Designs: an ordered chain of stages, their parts, links and meters.
+
+A :class:`Design` is what the user edits (in a TOML file, on the command line
+or in the workbench). :meth:`Design.flatten` turns it into the flat
+:class:`engine.circuit.Circuit` that the solver runs. Edits of part values and
+pot rotations map to element value changes (:meth:`Design.set_value`,
+:meth:`Design.set_rotation`) that a running simulator takes without a reset;
+structural edits (bypass, switch position, stage order) need a rebuild.
+
+The file format is described in ``docs/design-format.md``. Saving rewrites the
+user's own TOML document in place with ``tomlkit`` (comments and layout kept)
+and replaces the file atomically (write to a temporary file, then rename).
+"""
+from __future__ import annotations
+
+import copy
+import difflib
+import math
+import os
+import re
+import tempfile
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from engine.circuit import GROUND, Circuit, Element, Where, canonical_net
+from engine.errors import DesignError, SolderlessError
+
+PRESETS = Path(__file__).resolve().parent.parent / "presets"
+STAGE_LIBRARY = PRESETS / "stages"
+DESIGN_LIBRARY = PRESETS / "designs"
+
+# design-level part type -> (flat kind, node names, value unit)
+PART_TYPES: dict[str, tuple[str, tuple[str, ...], str]] = {
+    "resistor": ("R", ("a", "b"), "Ω"),
+    "capacitor": ("C", ("a", "b"), "F"),
+    "inductor": ("L", ("a", "b"), "H"),
+    "supply": ("V", ("p", "n"), "V"),
+    "input": ("V", ("p", "n"), "V"),
+    "current": ("I", ("p", "n"), "A"),
+    "vcvs": ("E", ("p", "n", "cp", "cn"), ""),
+    "vccs": ("G", ("p", "n", "cp", "cn"), "A/V"),
+    "pot": ("R", ("a", "wiper", "b"), "Ω"),
+    "switch": ("", (), ""),
+    "diode": ("D", ("anode", "cathode"), ""),
+    "npn": ("Q", ("c", "b", "e"), ""),
+    "pnp": ("Q", ("c", "b", "e"), ""),
+    "njfet": ("J", ("d", "g", "s"), ""),
+    "pjfet": ("J", ("d", "g", "s"), ""),
+    "opamp": ("OPAMP", ("in+", "in-", "out", "v+", "v-"), ""),
+    "ota": ("OTA", ("in+", "in-", "out", "control", "v-"), ""),
+}
+KIND_TO_TYPE = {"R": "resistor", "C": "capacitor", "L": "inductor", "V": "supply",
+                "I": "current", "E": "vcvs", "G": "vccs", "D": "diode",
+                "J": "njfet", "OPAMP": "opamp", "OTA": "ota"}
+DEVICE_TYPES = {"diode", "npn", "pnp", "njfet", "pjfet", "opamp", "ota"}
+VALUE_TYPES = {"resistor", "capacitor", "inductor", "supply", "input", "current",
+               "vcvs", "vccs", "pot"}
+POSITIVE_TYPES = {"resistor", "capacitor", "inductor", "pot"}
+MODEL_KIND = {"diode": "D", "npn": "NPN", "pnp": "PNP", "njfet": "NJF",
+              "pjfet": "PJF", "opamp": "OPAMP", "ota": "OTA"}
+TAPERS = ("linear", "audio", "reverse-audio")
+AUDIO_TAPER_BASE = 81.0  # (B**0.5 - 1)/(B - 1) = 0.1: 10 % at mid rotation
+POT_END_FRACTION = 1e-4  # residual end resistance (fraction of the track)
+POT_END_MIN = 1.0        # ohm
+JACK = "jack"
+
+
+# --------------------------------------------------------------------- values
+
+def _parse_value(text: Any, *, file=None, line=None, part=None) -> float:
+    from engine.values import parse_value
+    return parse_value(text, file=file, line=line, part=part)
+
+
+def _format_value(x: float, unit: str = "") -> str:
+    from engine.values import format_value
+    return format_value(x, unit=unit)
+
+
+def taper_fraction(taper: Any, rotation: float) -> float:
+    """Fraction of a pot's track between end ``a`` and the wiper.
+
+    taper : "linear", "audio" (exponential law, 10 % at half rotation; common
+        practice), "reverse-audio" (mirror image), or a table of
+        ``[rotation, fraction]`` points, interpolated linearly.
+    """
+    r = min(max(float(rotation), 0.0), 1.0)
+    if isinstance(taper, str):
+        if taper == "linear":
+            return r
+        if taper == "audio":
+            return (AUDIO_TAPER_BASE ** r - 1.0) / (AUDIO_TAPER_BASE - 1.0)
+        if taper == "reverse-audio":
+            return 1.0 - (AUDIO_TAPER_BASE ** (1.0 - r) - 1.0) / (AUDIO_TAPER_BASE - 1.0)
+        raise ValueError(taper)
+    pts = np.asarray(taper, dtype=float)
+    return float(np.interp(r, pts[:, 0], pts[:, 1]))
+
+
+def _check_taper(taper: Any, where: Where, part: str) -> Any:
+    if taper is None:
+        return "linear"
+    if isinstance(taper, str):
+        if taper not in TAPERS:
+            raise DesignError(f"unknown taper '{taper}'", file=where.file, line=where.line,
+                              part=part, hint="use linear, audio, reverse-audio, or a table "
+                              "of [rotation, fraction] points")
+        return taper
+    try:
+        pts = [(float(a), float(b)) for a, b in taper]
+    except (TypeError, ValueError):
+        raise DesignError("a custom taper must be a list of [rotation, fraction] pairs",
+                          file=where.file, line=where.line, part=part) from None
+    if len(pts) < 2 or any(b[0] <= a[0] for a, b in zip(pts, pts[1:])):
+        raise DesignError("a custom taper needs two or more points with rising rotation",
+                          file=where.file, line=where.line, part=part)
+    if not all(0.0 <= r <= 1.0 and 0.0 <= f <= 1.0 for r, f in pts):
+        raise DesignError("custom taper points must lie between 0 and 1",
+                          file=where.file, line=where.line, part=part)
+    return [list(p) for p in pts]
+
+
+# ---------------------------------------------------------------- data model
+
+@dataclass
+class Part:
+    """One part of a stage, in the user's terms."""
+    name: str
+    type: str
+    nodes: list[str]
+    value: float | None = None
+    model: str | None = None
+    params: dict[str, Any] = field(default_factory=dict)
+    tolerance: float | None = None
+    taper: Any = "linear"
+    rotation: float = 0.5
+    impedance: float | None = None
+    labels: list[str] = field(default_factory=list)
+    positions: list[list[str]] = field(default_factory=list)
+    position: int = 0
+    note: str = ""
+    where: Where = field(default_factory=Where)
+
+
+@dataclass
+class Stage:
+    name: str
+    ports: list[str]
+    parts: list[Part]
+    kind: str = ""
+    notes: str = ""
+    template: str | None = None
+    bypass: bool = False
+    where: Where = field(default_factory=Where)
+
+    def part(self, name: str) -> Part:
+        for p in self.parts:
+            if p.name == name:
+                return p
+        raise KeyError(name)
+
+
+@dataclass
+class Link:
+    a: tuple[str, str]
+    b: tuple[str, str]
+    where: Where = field(default_factory=Where)
+
+
+@dataclass
+class Probe:
+    name: str
+    expr: str
+    where: Where = field(default_factory=Where)
+
+
+@dataclass
+class PartInfo:
+    """What a user interface needs to show and edit one part."""
+    qualname: str
+    stage: str
+    name: str
+    type: str
+    value: float | None
+    unit: str
+    tolerance: float | None
+    is_pot: bool
+    rotation: float | None
+    taper: Any
+    model: str | None
+    note: str
+    labels: list[str]
+    position: int | None
+
+
+# -------------------------------------------------------------- file reading
+
+def _line_finder(text: str):
+    """Return f(name) -> 1-based line of the first ``name = "<name>"``."""
+    lines = text.splitlines()
+
+    def find(name: str, after: int = 0) -> int | None:
+        pat = re.compile(r'^\s*name\s*=\s*["\']' + re.escape(name) + r'["\']')
+        for i in range(after, len(lines)):
+            if pat.match(lines[i]):
+                return i + 1
+        return None
+    return find
+
+
+def _toml_load(path: Path) -> tuple[dict, str]:
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise DesignError("file not found", file=str(path)) from None
+    except UnicodeDecodeError:
+        raise DesignError("not a text file (expected UTF-8 TOML)", file=str(path)) from None
+    except OSError as exc:
+        raise DesignError(f"cannot read: {exc.strerror}", file=str(path)) from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        m = re.search(r"line (\d+)", str(exc))
+        raise DesignError(f"not valid TOML: {exc}", file=str(path),
+                          line=int(m.group(1)) if m else None,
+                          hint="check quotes, brackets and '=' on that line") from None
+    return data, text
+
+
+def _expect(cond: bool, msg: str, where: Where, part: str | None = None, hint=None):
+    if not cond:
+        raise DesignError(msg, file=where.file, line=where.line, part=part, hint=hint)
+
+
+def _read_part(raw: Any, where: Where, models: dict, stage: str) -> Part:
+    _expect(isinstance(raw, dict), "a part must be a table with name, type and nodes", where)
+    name = raw.get("name")
+    _expect(isinstance(name, str) and name.strip() != "", "a part has no name", where,
+            hint='add name = "R1"')
+    qual = f"{stage}.{name}" if stage else name
+    _expect(re.fullmatch(r"[A-Za-z0-9_+\-]+", name) is not None,
+            "part names may hold letters, digits, '_', '-' and '+' only", where, qual)
+    ptype = raw.get("type")
+    if ptype not in PART_TYPES:
+        close = difflib.get_close_matches(str(ptype), PART_TYPES, n=3)
+        raise DesignError(f"unknown part type '{ptype}'", file=where.file, line=where.line,
+                          part=qual, hint=("did you mean " + ", ".join(close) + "?") if close
+                          else "known types: " + ", ".join(PART_TYPES))
+    p = Part(name=name, type=ptype, nodes=[], where=where, note=str(raw.get("note", "")))
+    if ptype == "switch":
+        labels = raw.get("labels", [])
+        positions = raw.get("positions")
+        _expect(isinstance(positions, list) and len(positions) >= 2
+                and all(isinstance(x, list) for x in positions),
+                "a switch needs positions = [[parts in position 0], [parts in position 1], ...]",
+                where, qual)
+        p.positions = [[str(n) for n in pos] for pos in positions]
+        p.labels = [str(x) for x in labels] or [str(i + 1) for i in range(len(positions))]
+        _expect(len(p.labels) == len(p.positions), "a switch needs one label per position",
+                where, qual)
+        pos = raw.get("position", 0)
+        _expect(isinstance(pos, int) and 0 <= pos < len(p.positions),
+                f"switch position must be a whole number from 0 to {len(p.positions) - 1}",
+                where, qual)
+        p.position = pos
+        return p
+    want = PART_TYPES[ptype][1]
+    nodes = raw.get("nodes")
+    _expect(isinstance(nodes, list) and all(isinstance(n, (str, int)) for n in nodes),
+            f"nodes must be a list of net names ({', '.join(want)})", where, qual)
+    _expect(len(nodes) == len(want),
+            f"a {ptype} has {len(want)} nodes ({', '.join(want)}), not {len(nodes)}", where, qual)
+    p.nodes = [canonical_net(str(n)) for n in nodes]
+    if ptype in VALUE_TYPES:
+        _expect("value" in raw, f"a {ptype} needs a value", where, qual,
+                hint='for example value = "4k7"')
+        p.value = _parse_value(raw["value"], file=where.file, line=where.line, part=qual)
+        if ptype in POSITIVE_TYPES:
+            _expect(p.value > 0 and math.isfinite(p.value),
+                    f"a {ptype} value must be positive, not {raw['value']!r}", where, qual)
+        elif not math.isfinite(p.value):
+            raise DesignError(f"value {raw['value']!r} is not finite", file=where.file,
+                              line=where.line, part=qual)
+    if "tolerance" in raw:
+        from engine.values import parse_tolerance
+        try:
+            p.tolerance = parse_tolerance(raw["tolerance"])
+        except SolderlessError as exc:
+            raise DesignError(exc.message, file=where.file, line=where.line, part=qual) from None
+    if ptype == "input":
+        p.impedance = _parse_value(raw.get("impedance", 0), file=where.file,
+                                   line=where.line, part=qual)
+        _expect(p.impedance >= 0, "input impedance cannot be negative", where, qual)
+    if ptype == "pot":
+        p.taper = _check_taper(raw.get("taper", "linear"), where, qual)
+        rot = raw.get("rotation", 0.5)
+        _expect(isinstance(rot, (int, float)) and 0.0 <= float(rot) <= 1.0,
+                "pot rotation must be a number from 0 to 1", where, qual)
+        p.rotation = float(rot)
+    if ptype in DEVICE_TYPES:
+        model = raw.get("model")
+        _expect(isinstance(model, str), f"a {ptype} needs a model", where, qual,
+                hint='for example model = "npn-general"; see presets/parts.toml')
+        p.model = model
+        params = raw.get("params", {})
+        _expect(isinstance(params, dict), "params must be a table, e.g. { BF = 250 }", where, qual)
+        p.params = {}
+        for k, v in params.items():
+            p.params[k.upper()] = _parse_value(v, file=where.file, line=where.line, part=qual)
+    return p
+
+
+def _read_stage_body(body: dict, name: str, where: Where, finder, models, path) -> Stage:
+    ports = body.get("ports", ["in", "out"])
+    _expect(isinstance(ports, list) and all(isinstance(p, str) for p in ports),
+            "ports must be a list of net names", where, name)
+    parts_raw = body.get("part", [])
+    _expect(isinstance(parts_raw, list), "[[stage.part]] entries must be tables", where, name)
+    parts = []
+    seen = set()
+    line = where.line or 0
+    for raw in parts_raw:
+        pname = raw.get("name") if isinstance(raw, dict) else None
+        pline = finder(pname, line) if isinstance(pname, str) and finder else None
+        pw = Where(where.file, pline or where.line)
+        part = _read_part(raw, pw, models, name)
+        _expect(part.name not in seen, f"two parts are named '{part.name}'", pw,
+                f"{name}.{part.name}", hint="give each part of a stage its own name")
+        seen.add(part.name)
+        parts.append(part)
+    return Stage(name=name, ports=[canonical_net(p) for p in ports], parts=parts,
+                 kind=str(body.get("kind", "")), notes=str(body.get("notes", "")), where=where)
+
+
+def stage_library() -> dict[str, Path]:
+    """Names (``group/name``) and files of the stage templates under presets/stages."""
+    out = {}
+    if STAGE_LIBRARY.is_dir():
+        for f in sorted(STAGE_LIBRARY.rglob("*.toml")):
+            out[f.relative_to(STAGE_LIBRARY).with_suffix("").as_posix()] = f
+    return out
+
+
+def builtin_designs() -> dict[str, Path]:
+    """Names and files of the built-in designs under presets/designs."""
+    if not DESIGN_LIBRARY.is_dir():
+        return {}
+    return {f.stem: f for f in sorted(DESIGN_LIBRARY.glob("*.toml"))}
+
+
+def load_stage_template(name: str, where: Where | None = None, models=None) -> Stage:
+    """Load a stage template from the stage library by ``group/name``."""
+    lib = stage_library()
+    where = where or Where()
+    if name not in lib:
+        close = difflib.get_close_matches(name, lib, n=3)
+        raise DesignError(f"no stage template '{name}' in presets/stages",
+                          file=where.file, line=where.line,
+                          hint=("did you mean " + ", ".join(close) + "?") if close else
+                          "see `solderless stages` for the library")
+    path = lib[name]
+    data, text = _toml_load(path)
+    body = data.get("stage")
+    _expect(isinstance(body, dict), "a stage template needs a [stage] table",
+            Where(str(path), 1))
+    return _read_stage_body(body, name.split("/")[-1], Where(str(path), 1),
+                            _line_finder(text), models or {}, path)
+
+
+# ----------------------------------------------------------------- the design
+
+class Design:
+    """A design: chain of stages, global parts, links, probes and meters.
+
+    Build one with :func:`load_design`. The object keeps the user's own TOML
+    document (``self.doc``) and writes every edit into it, so :meth:`save`
+    keeps comments and layout.
+    """
+
+    def __init__(self):
+        self.name = "untitled"
+        self.notes = ""
+        self.oversample = 1
+        self.source_impedance = 1e3
+        self.load = 1e6
+        self.global_nets: list[str] = []
+        self.parts_global: list[Part] = []
+        self.stages: list[Stage] = []
+        self.links: list[Link] = []
+        self.probes: list[Probe] = []
+        self.meters: dict[str, Any] = {}
+        self.models: dict[str, Any] = {}
+        self.path: Path | None = None
+        self.doc = None          # tomlkit document, or None for netlist designs
+        self.netlist = None      # engine.formats.spice.Netlist for whole-netlist designs
+        self._stage_docs: dict[str, Any] = {}
+        self.dirty = False
+
+    # ------------------------------------------------------------ queries
+    def stage(self, name: str) -> Stage:
+        for s in self.stages:
+            if s.name == name:
+                return s
+        close = difflib.get_close_matches(name, [s.name for s in self.stages], n=3)
+        raise DesignError(f"no stage named '{name}'", file=self._file(),
+                          hint=("did you mean " + ", ".join(close) + "?") if close else
+                          "stages: " + ", ".join(s.name for s in self.stages))
+
+    def _file(self) -> str | None:
+        return str(self.path) if self.path else None
+
+    def part(self, qualname: str) -> Part:
+        """Find a part by ``stage.part`` (or a global part by its name)."""
+        if "." in qualname:
+            sname, pname = qualname.split(".", 1)
+            try:
+                st = self.stage(sname)
+                return st.part(pname)
+            except (KeyError, DesignError):
+                pass
+        else:
+            for p in self.parts_global:
+                if p.name == qualname:
+                    return p
+        names = [i.qualname for i in self.parts()]
+        close = difflib.get_close_matches(qualname, names, n=3)
+        raise DesignError(f"no part named '{qualname}'", file=self._file(),
+                          hint=("did you mean " + ", ".join(close) + "?") if close else
+                          "parts are named stage.part, e.g. " + (names[0] if names else "buffer.R1"))
+
+    def parts(self) -> list[PartInfo]:
+        out = []
+        groups = [("", self.parts_global)] + [(s.name, s.parts) for s in self.stages]
+        for sname, parts in groups:
+            for p in parts:
+                q = f"{sname}.{p.name}" if sname else p.name
+                out.append(PartInfo(
+                    qualname=q, stage=sname, name=p.name, type=p.type, value=p.value,
+                    unit=PART_TYPES[p.type][2], tolerance=p.tolerance,
+                    is_pot=p.type == "pot", rotation=p.rotation if p.type == "pot" else None,
+                    taper=p.taper if p.type == "pot" else None, model=p.model, note=p.note,
+                    labels=list(p.labels), position=p.position if p.type == "switch" else None))
+        return out
+
+    def control_probe(self) -> str | None:
+        return self.meters.get("control")
+
+    def probe_exprs(self) -> list[str]:
+        return [p.expr for p in self.probes]
+
+    def copy(self) -> "Design":
+        return copy.deepcopy(self)
+
+    # ------------------------------------------------------------ edits
+    def _part_doc(self, qualname: str, key: str):
+        """Return the tomlkit table where ``key`` of this part is stored, creating
+        a [stage.values] / [stage.rotations] override for template stages."""
+        if self.doc is None:
+            return None
+        if "." in qualname:
+            sname, pname = qualname.split(".", 1)
+            sdoc = self._stage_docs.get(sname)
+            if sdoc is None:
+                return None
+            if "part" in sdoc:
+                for raw in sdoc["part"]:
+                    if raw.get("name") == pname:
+                        return raw, key
+            table = {"value": "values", "rotation": "rotations", "taper": "tapers",
+                     "position": "positions"}[key]
+            import tomlkit
+            if table not in sdoc:
+                sdoc[table] = tomlkit.table()
+            return sdoc[table], pname
+        for raw in self.doc.get("design", {}).get("part", []):
+            if raw.get("name") == qualname:
+                return raw, key
+        return None
+
+    def _record(self, qualname: str, key: str, value: Any) -> None:
+        self.dirty = True
+        loc = self._part_doc(qualname, key)
+        if loc is not None:
+            table, k = loc
+            table[k] = value
+
+    def pot_resistances(self, part: Part) -> tuple[float, float]:
+        frac = taper_fraction(part.taper, part.rotation)
+        end = max(part.value * POT_END_FRACTION, POT_END_MIN)
+        ra = max(part.value * frac, end)
+        rb = max(part.value * (1.0 - frac), end)
+        return ra, rb
+
+    def _element_values(self, qualname: str, part: Part) -> dict[str, float]:
+        if part.type == "pot":
+            ra, rb = self.pot_resistances(part)
+            return {f"{qualname}.a": ra, f"{qualname}.b": rb}
+        if part.type == "input":
+            return {qualname: part.value}
+        return {qualname: part.value}
+
+    def set_value(self, qualname: str, value: float | str) -> dict[str, float]:
+        """Change a part's value; return the element value changes for the solver."""
+        part = self.part(qualname)
+        if part.type not in VALUE_TYPES:
+            raise DesignError(f"a {part.type} has no value to change", part=qualname,
+                              file=self._file(), hint="change its model in the design file")
+        v = _parse_value(value, part=qualname) if isinstance(value, str) else float(value)
+        if part.type in POSITIVE_TYPES and not (v > 0 and math.isfinite(v)):
+            raise DesignError(f"a {part.type} value must be positive, not {value!r}",
+                              part=qualname, file=self._file())
+        part.value = v
+        self._record(qualname, "value", _format_value(v, ""))
+        return self._element_values(qualname, part)
+
+    def set_rotation(self, qualname: str, rotation: float) -> dict[str, float]:
+        """Turn a pot (0 = fully towards end ``a``, 1 = towards ``b``)."""
+        part = self.part(qualname)
+        if part.type != "pot":
+            raise DesignError("only a pot can be turned", part=qualname, file=self._file())
+        r = float(rotation)
+        if not 0.0 <= r <= 1.0:
+            raise DesignError(f"rotation must be from 0 to 1, not {rotation}", part=qualname)
+        part.rotation = r
+        self._record(qualname, "rotation", round(r, 6))
+        return self._element_values(qualname, part)
+
+    def set_taper(self, qualname: str, taper: Any) -> dict[str, float]:
+        part = self.part(qualname)
+        if part.type != "pot":
+            raise DesignError("only a pot has a taper", part=qualname, file=self._file())
+        part.taper = _check_taper(taper, Where(self._file()), qualname)
+        self._record(qualname, "taper", part.taper)
+        return self._element_values(qualname, part)
+
+    def set_position(self, qualname: str, position: int) -> None:
+        """Move a selector switch (a topology change: rebuild the simulator)."""
+        part = self.part(qualname)
+        if part.type != "switch":
+            raise DesignError("only a switch has positions", part=qualname, file=self._file())
+        if not 0 <= int(position) < len(part.positions):
+            raise DesignError(f"position must be 0..{len(part.positions) - 1}", part=qualname)
+        part.position = int(position)
+        self._record(qualname, "position", int(position))
+
+    def set_bypass(self, stage: str, on: bool) -> None:
+        """Bypass a stage: its ``in`` and ``out`` are joined and its parts removed
+        (a topology change: rebuild the simulator)."""
+        st = self.stage(stage)
+        st.bypass = bool(on)
+        self.dirty = True
+        if self.doc is not None and stage in self._stage_docs:
+            self._stage_docs[stage]["bypass"] = bool(on)
+
+    # ------------------------------------------------------------ save
+    def to_toml(self) -> str:
+        if self.doc is None:
+            raise DesignError("a design imported from a netlist is saved by writing a "
+                              "design file that uses it", file=self._file(),
+                              hint="save as a .toml file")
+        import tomlkit
+        return tomlkit.dumps(self.doc)
+
+    def save(self, path: str | os.PathLike | None = None) -> Path:
+        """Write the design atomically (temporary file in the same folder, then
+        rename), so a crash never leaves a half-written file."""
+        target = Path(path) if path else self.path
+        if target is None:
+            raise DesignError("no file name to save to", hint="give a path")
+        text = self.to_toml()
+        atomic_write_text(target, text)
+        self.path = target
+        self.dirty = False
+        return target
+
+    # ------------------------------------------------------------ flatten
+    def flatten(self) -> Circuit:
+        """Flatten to one circuit: stage-local nets get ``stage.`` prefixes, the
+        chain joins each ``out`` to the next ``in``, links join ports, a
+        bypassed stage joins its ``in`` to its ``out``. The instrument is an
+        input source ``jack`` with the source impedance in series, and the
+        output jack is loaded by ``load``."""
+        if self.netlist is not None:
+            return self._flatten_netlist()
+        return _Flattener(self).run()
+
+    def _flatten_netlist(self) -> Circuit:
+        circ = self.netlist.circuit.copy()
+        vals = {}
+        for st in self.stages:
+            for p in st.parts:
+                vals.update(self._element_values(p.name, p))
+        for e in circ.elements:
+            if e.name in vals and vals[e.name] is not None:
+                e.value = vals[e.name]
+        return circ
+
+    def resolve_net(self, name: str) -> str:
+        """Map a user net name (``stage.net``) to its flat net name."""
+        if self.netlist is not None:
+            return canonical_net(name.lower())
+        return _Flattener(self).run(resolve=name)
+
+    def resolve_probe(self, expr: str) -> str:
+        """Rewrite a probe expression's net names to flat names."""
+        m = re.fullmatch(r"\s*([A-Za-z]+)\s*\((.*)\)\s*", expr)
+        if not m:
+            raise DesignError(f"probe '{expr}' is not of the form quantity(name)",
+                              file=self._file(), hint="e.g. v(gain.out) or iabc(gain.U1)")
+        q, args = m.group(1).lower(), [a.strip() for a in m.group(2).split(",")]
+        if q == "v":
+            flat = _Flattener(self)
+            args = [flat.run(resolve=a) for a in args]
+        elif self.netlist is not None:
+            args = [a.upper() for a in args]
+        return f"{q}({','.join(args)})"
+
+
+def atomic_write_text(target: str | os.PathLike, text: str) -> None:
+    """Write ``text`` to ``target`` atomically: a temporary file in the same
+    folder, flushed and synced, then renamed over the target."""
+    target = Path(target)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as f:
+            f.write(text)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, target)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+
+
+class _UnionFind:
+    def __init__(self):
+        self.parent: dict[str, str] = {}
+
+    def add(self, a: str) -> None:
+        self.parent.setdefault(a, a)
+
+    def find(self, a: str) -> str:
+        self.add(a)
+        while self.parent[a] != a:
+            self.parent[a] = self.parent[self.parent[a]]
+            a = self.parent[a]
+        return a
+
+    def union(self, a: str, b: str) -> bool:
+        ra, rb = self.find(a), self.find(b)
+        if ra == rb:
+            return False
+        # ground wins, then the name seen first
+        if rb == GROUND:
+            ra, rb = rb, ra
+        self.parent[rb] = ra
+        return True
+
+
+class _Flattener:
+    def __init__(self, d: Design):
+        self.d = d
+        self.file = d._file()
+        self.glob = set(d.global_nets) | {GROUND}
+
+    def local(self, stage: str, net: str) -> str:
+        return net if net in self.glob else f"{stage}.{net}"
+
+    def run(self, resolve: str | None = None):
+        d = self.d
+        uf = _UnionFind()
+        active = [s for s in d.stages if not s.bypass]
+        # chain: out of each stage joins in of the next; a bypassed stage joins in and out
+        prev_out = None
+        for st in d.stages:
+            in_net, out_net = self.local(st.name, "in"), self.local(st.name, "out")
+            uf.add(in_net)
+            if prev_out is not None and "in" in st.ports:
+                uf.union(prev_out, in_net)
+            if st.bypass:
+                uf.union(in_net, out_net)
+            if "out" in st.ports:
+                prev_out = out_net
+        for ln in d.links:
+            for s, port in (ln.a, ln.b):
+                st = d.stage(s)
+                if port not in st.ports:
+                    raise DesignError(f"stage '{s}' has no port '{port}'", file=self.file,
+                                      line=ln.where.line,
+                                      hint="its ports are " + ", ".join(st.ports))
+            uf.union(self.local(ln.a[0], ln.a[1]), self.local(ln.b[0], ln.b[1]))
+        if resolve is not None:
+            name = canonical_net(resolve)
+            if name in self.glob:
+                return uf.find(name)
+            if "." not in name:
+                raise DesignError(f"net '{resolve}' must be written stage.net or be a "
+                                  "global net", file=self.file)
+            s, n = name.split(".", 1)
+            d.stage(s)
+            return uf.find(self.local(s, canonical_net(n)))
+
+        if not d.stages:
+            raise DesignError("the design has no stages", file=self.file,
+                              hint="add a [[stage]] table")
+        first_in = uf.find(self.local(d.stages[0].name, "in"))
+        last_out = uf.find(self.local(d.stages[-1].name, "out"))
+        elements: list[Element] = []
+        names: set[str] = set()
+
+        def add(e: Element):
+            if e.name in names:
+                raise DesignError(f"two parts flatten to the name '{e.name}'", file=self.file,
+                                  line=e.where.line if e.where else None, part=e.name)
+            names.add(e.name)
+            elements.append(e)
+
+        lib = None
+        for p in d.parts_global:
+            lib = self.emit(p, "", uf, add, lib)
+        for st in active:
+            switched: set[str] = set()
+            chosen: set[str] = set()
+            for p in st.parts:
+                if p.type == "switch":
+                    for pos in p.positions:
+                        for n in pos:
+                            try:
+                                st.part(n)
+                            except KeyError:
+                                raise DesignError(f"switch position names part '{n}', which "
+                                                  f"stage '{st.name}' does not have",
+                                                  file=p.where.file, line=p.where.line,
+                                                  part=f"{st.name}.{p.name}") from None
+                        switched.update(pos)
+                    chosen.update(p.positions[p.position])
+            for p in st.parts:
+                if p.type == "switch" or (p.name in switched and p.name not in chosen):
+                    continue
+                lib = self.emit(p, st.name, uf, add, lib)
+        has_input = any(e.params.get("_input") for e in elements)
+        input_name = None
+        if not has_input:
+            src = f"{JACK}.src"
+            add(Element(JACK, "V", (src, GROUND), 0.0, {"_input": True}, Where(self.file)))
+            add(Element(f"{JACK}.rs", "R", (src, first_in),
+                        max(d.source_impedance, 1e-3), {}, Where(self.file)))
+            input_name = JACK
+        else:
+            input_name = next(e.name for e in elements if e.params.get("_input"))
+        if d.load and d.load > 0:
+            add(Element("load", "R", (last_out, GROUND), d.load, {}, Where(self.file)))
+        circ = Circuit(elements=elements, input_source=input_name, output=(last_out, GROUND),
+                       title=d.name, where=Where(self.file))
+        validate_circuit(circ, self.file)
+        return circ
+
+    def emit(self, p: Part, stage: str, uf: _UnionFind, add, lib):
+        q = f"{stage}.{p.name}" if stage else p.name
+        kind, _, _ = PART_TYPES[p.type]
+        nodes = tuple(uf.find(self.local(stage, n)) if stage else uf.find(n) for n in p.nodes)
+        w = p.where
+        if p.type == "pot":
+            ra, rb = self.d.pot_resistances(p)
+            add(Element(f"{q}.a", "R", (nodes[0], nodes[1]), ra, {}, w))
+            add(Element(f"{q}.b", "R", (nodes[1], nodes[2]), rb, {}, w))
+            return lib
+        if p.type == "input":
+            if p.impedance and p.impedance > 0:
+                mid = f"{q}.src"
+                add(Element(q, "V", (mid, nodes[1]), p.value, {"_input": True}, w))
+                add(Element(f"{q}.rs", "R", (mid, nodes[0]), p.impedance, {}, w))
+            else:
+                add(Element(q, "V", nodes, p.value, {"_input": True}, w))
+            return lib
+        params: dict[str, Any] = {}
+        if p.type in DEVICE_TYPES and p.model == "_inline":
+            params = dict(p.params)  # from an imported netlist's .model card
+        elif p.type in DEVICE_TYPES:
+            lib = lib or _parts_library(self.d)
+            try:
+                model = lib.get(p.model)
+            except SolderlessError as exc:
+                raise DesignError(exc.message, file=w.file, line=w.line, part=q,
+                                  hint=exc.hint) from None
+            want = MODEL_KIND[p.type]
+            mkind = str(model.kind).upper()
+            if mkind != want:
+                raise DesignError(f"model '{p.model}' is a {mkind} model, but this part is "
+                                  f"a {p.type}", file=w.file, line=w.line, part=q,
+                                  hint=f"choose a {want} model")
+            params = dict(model.params)
+            params.update(p.params)
+            if kind in ("Q", "J"):
+                params["TYPE"] = want
+        add(Element(q, kind, nodes, p.value if p.value is not None else 0.0, params, w))
+        return lib
+
+
+def _parts_library(d: Design):
+    from engine.parts import load_library
+    lib = load_library()
+    for card, where in d.models.get("_cards", []):
+        lib.add_model_card(card, file=where.file, line=where.line)
+    return lib
+
+
+# ------------------------------------------------------------- validation
+
+def validate_circuit(circ: Circuit, file: str | None = None) -> list[str]:
+    """Check a flat circuit before it reaches the solver.
+
+    Raises DesignError for: no ground, non-positive R/C/L, a net with no DC
+    path to ground, a loop of voltage sources (and inductors). Returns
+    warnings (nets with only one connection).
+    """
+    from engine.circuit import KIND_NODES
+    warnings = []
+    touches_ground = False
+    count: dict[str, list[str]] = {}
+    for e in circ.elements:
+        w = e.where or Where(file)
+        if e.kind not in KIND_NODES:
+            raise DesignError(f"unknown element kind '{e.kind}'", file=w.file, line=w.line,
+                              part=e.name)
+        if len(e.nodes) != KIND_NODES[e.kind]:
+            raise DesignError(f"{e.kind} needs {KIND_NODES[e.kind]} nodes, has {len(e.nodes)}",
+                              file=w.file, line=w.line, part=e.name)
+        if e.kind in ("R", "C", "L") and not (e.value > 0 and math.isfinite(e.value)):
+            raise DesignError(f"value must be positive, not {e.value!r}", file=w.file,
+                              line=w.line, part=e.name)
+        if not math.isfinite(float(e.value)):
+            raise DesignError("value is not a finite number", file=w.file, line=w.line,
+                              part=e.name)
+        for n in e.nodes:
+            if n == GROUND:
+                touches_ground = True
+            count.setdefault(n, []).append(e.name)
+    if not touches_ground:
+        raise DesignError("the circuit has no ground (net 0 or gnd)", file=file,
+                          hint="connect the supply's negative side and the signal "
+                          "return to 0")
+    # DC paths: everything but capacitors and current sources conducts at DC
+    # (device terminals conduct through their junctions).
+    uf = _UnionFind()
+    uf.add(GROUND)
+    for e in circ.elements:
+        for n in e.nodes:
+            uf.add(n)
+        if e.kind in ("C", "I"):
+            continue
+        if e.kind in ("E", "G"):
+            uf.union(e.nodes[0], e.nodes[1]) if e.kind == "E" else None
+            continue
+        for n in e.nodes[1:]:
+            uf.union(e.nodes[0], n)
+    # an E or G output is a path; a G's output pair is not (ideal current source)
+    for n, who in count.items():
+        if n != GROUND and uf.find(n) != uf.find(GROUND):
+            raise DesignError(f"net '{n}' has no DC path to ground (it connects only "
+                              f"through capacitors or current sources: {', '.join(who)})",
+                              file=file, part=who[0],
+                              hint="add a bias resistor to ground or a reference")
+        if n != GROUND and len(who) == 1:
+            warnings.append(f"net '{n}' connects to only one terminal ({who[0]})")
+    # loops of voltage sources and inductors
+    vl = _UnionFind()
+    for e in circ.elements:
+        if e.kind in ("V", "L", "E"):
+            a, b = e.nodes[0], e.nodes[1]
+            if not vl.union(a, b):
+                w = e.where or Where(file)
+                raise DesignError("voltage sources (or inductors) form a loop", file=w.file,
+                                  line=w.line, part=e.name,
+                                  hint="add a series resistance or remove one source")
+    return warnings
+
+
+# ----------------------------------------------------------------- loading
+
+def load_design(source: str | os.PathLike, *, in_source: str = "VIN",
+                out_node: str = "out") -> Design:
+    """Load a design from a TOML file, a built-in design's name, or a SPICE
+    netlist (``.cir``, ``.sp``, ``.spice``, ``.net``, ``.ckt``)."""
+    text_src = str(source)
+    path = Path(text_src)
+    if not path.exists():
+        designs = builtin_designs()
+        if text_src in designs:
+            path = designs[text_src]
+        else:
+            close = difflib.get_close_matches(text_src, designs, n=3)
+            raise DesignError(f"no design file or built-in design named '{text_src}'",
+                              hint=("did you mean " + ", ".join(close) + "?") if close else
+                              "built-in designs: " + (", ".join(designs) or "none"))
+    if path.is_dir():
+        raise DesignError("is a folder, not a design file", file=str(path))
+    if path.suffix.lower() in (".cir", ".sp", ".spice", ".net", ".ckt", ".txt"):
+        return _design_from_netlist(path, in_source, out_node)
+    return _design_from_toml(path)
+
+
+def _design_from_netlist(path: Path, in_source: str, out_node: str) -> Design:
+    from engine.formats.spice import load_netlist
+    nl = load_netlist(path, in_source=in_source, out_node=out_node)
+    circ = nl.circuit
+    if circ.input_source is None:
+        raise DesignError(f"the netlist has no voltage source named '{in_source}' for the "
+                          "input", file=str(path),
+                          hint="name the input source VIN or pass --in-source NAME")
+    if out_node.lower() not in {n.lower() for n in circ.nets()}:
+        raise DesignError(f"the netlist has no node '{out_node}' for the output",
+                          file=str(path), hint="pass --out-node NAME")
+    d = Design()
+    d.path = path
+    d.name = nl.title or path.stem
+    d.netlist = nl
+    parts = []
+    for e in circ.elements:
+        ptype = KIND_TO_TYPE.get(e.kind, "resistor")
+        if e.kind == "Q":
+            ptype = "pnp" if str(e.params.get("TYPE", "NPN")).upper() == "PNP" else "npn"
+        if e.kind == "J":
+            ptype = "pjfet" if str(e.params.get("TYPE", "NJF")).upper() == "PJF" else "njfet"
+        parts.append(Part(name=e.name, type=ptype, nodes=list(e.nodes),
+                          value=e.value if e.kind in ("R", "C", "L", "V", "I", "E", "G") else None,
+                          where=e.where or Where(str(path))))
+    d.stages = [Stage(name="netlist", ports=["in", "out"], parts=parts, kind="netlist",
+                      where=Where(str(path)))]
+    return d
+
+
+def _read_link_end(text: Any, where: Where) -> tuple[str, str]:
+    _expect(isinstance(text, str) and text.count(".") == 1,
+            f"a link end must be written stage.port, not {text!r}", where)
+    s, p = text.split(".")
+    return s, canonical_net(p)
+
+
+def _design_from_toml(path: Path) -> Design:
+    import tomlkit
+    data, text = _toml_load(path)
+    finder = _line_finder(text)
+    file = str(path)
+    d = Design()
+    d.path = path
+    d.doc = tomlkit.parse(text)
+    head = data.get("design", {})
+    _expect(isinstance(head, dict), "[design] must be a table", Where(file, 1))
+    d.name = str(head.get("name", path.stem))
+    d.notes = str(head.get("notes", ""))
+    ov = head.get("oversample", 1)
+    _expect(ov in (1, 2, 4, 8), f"oversample must be 1, 2, 4 or 8, not {ov!r}", Where(file))
+    d.oversample = int(ov)
+    if "source_impedance" in head:
+        d.source_impedance = _parse_value(head["source_impedance"], file=file,
+                                          part="design.source_impedance")
+    if "load" in head:
+        d.load = _parse_value(head["load"], file=file, part="design.load")
+    gn = head.get("global_nets", [])
+    _expect(isinstance(gn, list), "global_nets must be a list of net names", Where(file))
+    d.global_nets = [canonical_net(str(n)) for n in gn]
+    # user model cards
+    cards = data.get("models", {}).get("cards", "")
+    if cards:
+        base = None
+        for i, line in enumerate(text.splitlines(), 1):
+            if line.strip().startswith("[models]"):
+                base = i
+        for j, line in enumerate(str(cards).splitlines()):
+            if line.strip().lower().startswith(".model"):
+                d.models.setdefault("_cards", []).append(
+                    (line.strip(), Where(file, (base or 0) + 2 + j if base else None)))
+    for raw in head.get("part", []):
+        nm = raw.get("name") if isinstance(raw, dict) else None
+        w = Where(file, finder(nm) if isinstance(nm, str) else None)
+        d.parts_global.append(_read_part(raw, w, d.models, ""))
+    stages_raw = data.get("stage", [])
+    _expect(isinstance(stages_raw, list) and stages_raw, "the design needs [[stage]] tables",
+            Where(file), hint="see docs/design-format.md")
+    seen = set()
+    line = 0
+    sdocs = d.doc.get("stage", [])
+    for i, raw in enumerate(stages_raw):
+        name = raw.get("name")
+        sline = finder(name, line) if isinstance(name, str) else None
+        w = Where(file, sline)
+        line = sline or line
+        _expect(isinstance(name, str) and re.fullmatch(r"[A-Za-z0-9_\-]+", name or "") is not None,
+                "a stage needs a name of letters, digits, '_' or '-'", w)
+        _expect(name not in seen, f"two stages are named '{name}'", w, name)
+        seen.add(name)
+        if "template" in raw:
+            st = load_stage_template(str(raw["template"]), w, d.models)
+            st.name, st.template = name, str(raw["template"])
+            st.where = w
+            for pname, val in raw.get("values", {}).items():
+                try:
+                    part = st.part(pname)
+                except KeyError:
+                    raise DesignError(f"template '{st.template}' has no part '{pname}'",
+                                      file=file, line=sline, part=f"{name}.{pname}",
+                                      hint="parts: " + ", ".join(p.name for p in st.parts)) from None
+                part.value = _parse_value(val, file=file, line=sline, part=f"{name}.{pname}")
+                if part.type in POSITIVE_TYPES and part.value <= 0:
+                    raise DesignError("value must be positive", file=file, line=sline,
+                                      part=f"{name}.{pname}")
+            for pname, rot in raw.get("rotations", {}).items():
+                try:
+                    part = st.part(pname)
+                except KeyError:
+                    raise DesignError(f"template '{st.template}' has no pot '{pname}'",
+                                      file=file, line=sline, part=f"{name}.{pname}") from None
+                _expect(part.type == "pot" and isinstance(rot, (int, float)) and 0 <= rot <= 1,
+                        "rotations must be numbers from 0 to 1 for pots", w, f"{name}.{pname}")
+                part.rotation = float(rot)
+            for pname, tap in raw.get("tapers", {}).items():
+                part = st.part(pname)
+                part.taper = _check_taper(tap, w, f"{name}.{pname}")
+            for pname, pos in raw.get("positions", {}).items():
+                st.part(pname).position = int(pos)
+            for prt in raw.get("part", []):  # extra parts added to a template
+                pw = Where(file, finder(prt.get("name", ""), line) or sline)
+                st.parts.append(_read_part(prt, pw, d.models, name))
+            if "kind" in raw:
+                st.kind = str(raw["kind"])
+            if "notes" in raw:
+                st.notes = str(raw["notes"])
+        elif "netlist" in raw:
+            st = _stage_from_netlist(raw, name, path, w)
+        else:
+            st = _read_stage_body(raw, name, w, finder, d.models, path)
+        st.bypass = bool(raw.get("bypass", False))
+        d.stages.append(st)
+        d._stage_docs[name] = sdocs[i]
+    for raw in data.get("link", []):
+        w = Where(file, None)
+        _expect(isinstance(raw, dict) and "from" in raw and "to" in raw,
+                "a [[link]] needs from = \"stage.port\" and to = \"stage.port\"", w)
+        d.links.append(Link(_read_link_end(raw["from"], w), _read_link_end(raw["to"], w), w))
+    for raw in data.get("probe", []):
+        _expect(isinstance(raw, dict) and "expr" in raw,
+                "a [[probe]] needs expr = \"v(stage.net)\" or similar", Where(file))
+        d.probes.append(Probe(str(raw.get("name", raw["expr"])), str(raw["expr"]), Where(file)))
+    d.meters = dict(data.get("meters", {}))
+    return d
+
+
+def _stage_from_netlist(raw: dict, name: str, design_path: Path, w: Where) -> Stage:
+    from engine.formats.spice import load_netlist
+    npath = (design_path.parent / str(raw["netlist"])).resolve()
+    nl = load_netlist(npath)
+    sub = raw.get("subckt")
+    if sub:
+        subs = {k.upper(): v for k, v in nl.subckts.items()}
+        if str(sub).upper() not in subs:
+            raise DesignError(f"netlist has no .subckt '{sub}'", file=str(npath),
+                              hint="subcircuits: " + ", ".join(nl.subckts))
+        from engine.formats.spice import parse_netlist
+        sc = subs[str(sub).upper()]
+        pins = [p.lower() for p in sc.pins]
+        ports = [str(p).lower() for p in raw.get("ports", pins)]
+        _expect(len(ports) == len(pins), "ports must name each pin of the subcircuit", w, name)
+        call = "X__STAGE " + " ".join(ports) + f" {sc.name}\n"
+        nl2 = parse_netlist(npath.read_text() + "\n" + call, file=str(npath))
+        elems = [e for e in nl2.circuit.elements if e.name.upper().startswith("X__STAGE.")]
+        for e in elems:
+            e.name = e.name.split(".", 1)[1]
+            e.nodes = tuple(n.split(".", 1)[1] if n.startswith("x__stage.") else n
+                            for n in e.nodes)
+    else:
+        elems = nl.circuit.elements
+        ports = [str(p).lower() for p in raw.get("ports", ["in", "out"])]
+    parts = []
+    for e in elems:
+        if e.kind in ("Q", "J", "D", "OPAMP", "OTA"):
+            kind_type = {"D": "diode", "OPAMP": "opamp", "OTA": "ota"}.get(e.kind)
+            if e.kind == "Q":
+                kind_type = "pnp" if e.params.get("TYPE") == "PNP" else "npn"
+            if e.kind == "J":
+                kind_type = "pjfet" if e.params.get("TYPE") == "PJF" else "njfet"
+            p = Part(name=e.name, type=kind_type, nodes=list(e.nodes), model="_inline",
+                     params=dict(e.params), where=e.where or w)
+        else:
+            p = Part(name=e.name, type=KIND_TO_TYPE[e.kind], nodes=list(e.nodes),
+                     value=e.value, where=e.where or w)
+            if e.kind == "V" and "wave" in e.params:
+                raise DesignError("a netlist used as a stage cannot hold a signal source "
+                                  "(SIN/PULSE/PWL)", file=str(npath),
+                                  line=e.where.line if e.where else None, part=e.name,
+                                  hint="remove the stimulus or use the netlist as a whole design")
+        parts.append(p)
+    return Stage(name=name, ports=ports, parts=parts, kind="imported netlist",
+                 template=None, where=w)
