@@ -77,7 +77,6 @@ def _fmt(x: float, unit: str) -> str:
 def cmd_render(args) -> int:
     import numpy as np
     import soundfile as sf
-    from engine.solver import Simulator
     d = _load(args)
     inp = Path(args.input)
     try:
@@ -105,6 +104,7 @@ def cmd_render(args) -> int:
     oversample = args.oversample or d.oversample
     probes = [d.resolve_probe(p) for p in args.probe]
     circ = d.flatten()
+    from engine.solver import Simulator
     sim = Simulator(circ, fs=fs, oversample=oversample, probes=tuple(probes))
     n = len(volts)
     y = np.empty(n)
@@ -156,9 +156,9 @@ def cmd_render(args) -> int:
 # ------------------------------------------------------------------ op / ac
 
 def cmd_op(args) -> int:
-    from engine.solver import Simulator
     d = _load(args)
     circ = d.flatten()
+    from engine.solver import Simulator
     sim = Simulator(circ, fs=48000.0, oversample=1)
     op = sim.operating_point()
     data = op.to_dict()
@@ -189,9 +189,9 @@ def cmd_op(args) -> int:
 
 def cmd_ac(args) -> int:
     import numpy as np
-    from engine.solver import ac_response
     d = _load(args)
     circ = d.flatten()
+    from engine.solver import ac_response
     if args.fmin <= 0 or args.fmax <= args.fmin:
         raise DesignError("need 0 < --fmin < --fmax")
     f = np.geomspace(args.fmin, args.fmax, args.points)

@@ -1,0 +1,217 @@
+"""The design layer: loading, validation errors, flattening, edits and saving."""
+import math
+import textwrap
+
+import pytest
+
+from engine.design import (AUDIO_TAPER_BASE, load_design, taper_fraction,
+                           validate_circuit)
+from engine.circuit import Circuit, Element
+from engine.errors import DesignError, SolderlessError
+
+RC = textwrap.dedent("""\
+    # a comment the user wrote
+    [design]
+    name = "RC test"
+    source_impedance = "1k"
+    global_nets = ["vcc"]
+
+    [[design.part]]
+    name = "VCC"
+    type = "supply"
+    nodes = ["vcc", "0"]
+    value = "9"
+
+    [[stage]]
+    name = "lp"
+    [[stage.part]]
+    name = "R1"
+    type = "resistor"
+    nodes = ["in", "out"]
+    value = "10k"   # keep this comment
+    [[stage.part]]
+    name = "C1"
+    type = "capacitor"
+    nodes = ["out", "0"]
+    value = "10n"
+    [[stage.part]]
+    name = "RB"
+    type = "resistor"
+    nodes = ["out", "vcc"]
+    value = "1M"
+
+    [[stage]]
+    name = "vol"
+    [[stage.part]]
+    name = "VOL"
+    type = "pot"
+    nodes = ["in", "out", "0"]
+    value = "100k"
+    taper = "audio"
+    rotation = 0.5
+
+    [[probe]]
+    name = "filter out"
+    expr = "v(lp.out)"
+""")
+
+
+def write(tmp_path, text, name="d.toml"):
+    p = tmp_path / name
+    p.write_text(text)
+    return p
+
+
+def test_flatten_joins_chain_and_adds_jack_and_load(tmp_path):
+    d = load_design(write(tmp_path, RC))
+    c = d.flatten()
+    els = {e.name: e for e in c.elements}
+    # chain: lp.out is the same net as vol.in
+    assert els["vol.VOL.a"].nodes[0] == els["lp.R1"].nodes[1]
+    # the instrument: a source with the design's source impedance in series
+    assert c.input_source == "jack"
+    assert els["jack.rs"].value == pytest.approx(1e3)
+    assert els["jack.rs"].nodes[1] == els["lp.R1"].nodes[0]
+    # output is the last stage's out, loaded by the default 1 Mohm
+    assert c.output[0] == els["vol.VOL.a"].nodes[1]
+    assert els["load"].value == pytest.approx(1e6)
+    # globals are shared, not prefixed
+    assert els["lp.RB"].nodes[1] == "vcc"
+
+
+def test_audio_taper_is_ten_percent_at_half_rotation():
+    # common practice: an "audio" pot has about 10 % of its track at mid rotation
+    assert taper_fraction("audio", 0.5) == pytest.approx(0.10)
+    assert taper_fraction("audio", 0.0) == 0.0 and taper_fraction("audio", 1.0) == 1.0
+    assert taper_fraction("reverse-audio", 0.5) == pytest.approx(0.90)
+    assert taper_fraction([[0, 0], [0.5, 0.2], [1, 1]], 0.25) == pytest.approx(0.1)
+    # the law is exponential: equal rotation steps give equal ratios (+1 offset)
+    r = [taper_fraction("audio", x) * (AUDIO_TAPER_BASE - 1) + 1 for x in (0.2, 0.4, 0.6)]
+    assert r[1] / r[0] == pytest.approx(r[2] / r[1])
+
+
+def test_edits_return_element_changes_and_save_keeps_comments(tmp_path):
+    path = write(tmp_path, RC)
+    d = load_design(path)
+    assert d.set_value("lp.R1", "4k7") == {"lp.R1": 4700.0}
+    ch = d.set_rotation("vol.VOL", 0.25)
+    # audio law at 1/4 rotation: (81**0.25 - 1)/80 = 0.025 of 100k
+    assert ch["vol.VOL.a"] == pytest.approx(2500.0)
+    assert ch["vol.VOL.b"] == pytest.approx(97500.0)
+    d.save()
+    text = path.read_text()
+    assert "# a comment the user wrote" in text and "# keep this comment" in text
+    d2 = load_design(path)
+    assert d2.part("lp.R1").value == pytest.approx(4700.0)
+    assert d2.part("vol.VOL").rotation == pytest.approx(0.25)
+    assert not list(tmp_path.glob(".*.tmp")), "temporary file left behind"
+
+
+def test_bypass_joins_in_and_out(tmp_path):
+    d = load_design(write(tmp_path, RC))
+    d.set_bypass("lp", True)
+    c = d.flatten()
+    names = {e.name for e in c.elements}
+    assert "lp.R1" not in names
+    els = {e.name: e for e in c.elements}
+    assert els["jack.rs"].nodes[1] == els["vol.VOL.a"].nodes[0]
+
+
+def test_probe_names_resolve_through_chain(tmp_path):
+    d = load_design(write(tmp_path, RC))
+    assert d.resolve_probe("v(vol.in)") == d.resolve_probe("v(lp.out)")
+    assert d.resolve_probe("v(vcc)") == "v(vcc)"
+
+
+@pytest.mark.parametrize("change, needle", [
+    (('value = "10k"   # keep this comment', 'value = "ten k"'), "lp.R1"),
+    (('value = "10n"', 'value = "-10n"'), "must be positive"),
+    (('type = "capacitor"', 'type = "capacitr"'), "did you mean capacitor"),
+    (('nodes = ["out", "0"]', 'nodes = ["out"]'), "has 2 nodes"),
+    (('name = "RB"', 'name = "R1"'), "two parts are named 'R1'"),
+    (('rotation = 0.5', 'rotation = 1.5'), "rotation"),
+    (('taper = "audio"', 'taper = "logarithmic"'), "unknown taper"),
+    (('name = "vol"', 'name = "lp"'), "two stages"),
+    (('nodes = ["in", "out"]', 'nodes = ["in", "out" "x"]'), "not valid TOML"),
+])
+def test_bad_input_names_file_line_and_part(tmp_path, change, needle):
+    text = RC.replace(*change)
+    assert text != RC
+    path = write(tmp_path, text)
+    with pytest.raises(SolderlessError) as ei:
+        load_design(path).flatten()
+    msg = str(ei.value)
+    assert needle in msg
+    assert str(path) in msg
+    assert ei.value.line is not None
+
+
+def test_floating_net_and_missing_ground_and_source_loop(tmp_path):
+    # a net reached only through a capacitor has no DC path (SPICE would find
+    # its matrix singular at the operating point)
+    floating = RC.replace('nodes = ["out", "vcc"]', 'nodes = ["x", "vcc"]') + textwrap.dedent("""\
+        [[stage.part]]
+        name = "CX"
+        type = "capacitor"
+        nodes = ["x", "0"]
+        value = "1n"
+    """)
+    with pytest.raises(DesignError, match="no DC path") as ei:
+        load_design(write(tmp_path, floating)).flatten()
+    assert "vol.x" in str(ei.value)
+    c = Circuit([Element("V1", "V", ("a", "b"), 1.0), Element("R1", "R", ("a", "b"), 1.0)])
+    with pytest.raises(DesignError, match="no ground"):
+        validate_circuit(c)
+    c = Circuit([Element("V1", "V", ("a", "0"), 1.0), Element("V2", "V", ("a", "0"), 2.0)])
+    with pytest.raises(DesignError, match="loop"):
+        validate_circuit(c)
+
+
+def test_unknown_design_name_suggests(tmp_path):
+    with pytest.raises(DesignError, match="no design file or built-in design"):
+        load_design("no-such-design-xyz")
+    with pytest.raises(DesignError, match="file not found|no design"):
+        load_design(tmp_path / "missing.toml")
+
+
+def test_switch_selects_parts(tmp_path):
+    text = RC + textwrap.dedent("""\
+        [[stage]]
+        name = "tone"
+        [[stage.part]]
+        name = "R1"
+        type = "resistor"
+        nodes = ["in", "out"]
+        value = "1k"
+        [[stage.part]]
+        name = "CB"
+        type = "capacitor"
+        nodes = ["out", "0"]
+        value = "1n"
+        [[stage.part]]
+        name = "CD"
+        type = "capacitor"
+        nodes = ["out", "0"]
+        value = "10n"
+        [[stage.part]]
+        name = "S1"
+        type = "switch"
+        labels = ["bright", "dark"]
+        positions = [["CB"], ["CD"]]
+        position = 0
+    """)
+    d = load_design(write(tmp_path, text))
+    names = {e.name for e in d.flatten().elements}
+    assert "tone.CB" in names and "tone.CD" not in names
+    d.set_position("tone.S1", 1)
+    names = {e.name for e in d.flatten().elements}
+    assert "tone.CD" in names and "tone.CB" not in names
+
+
+def test_cli_reports_user_mistake_without_traceback(tmp_path, capsys):
+    from engine.cli import main
+    bad = write(tmp_path, RC.replace('value = "10n"', 'value = "lots"'))
+    rc = main(["op", str(bad)])
+    err = capsys.readouterr().err
+    assert rc == 2
+    assert "Traceback" not in err and "error:" in err and "lp.C1" in err
