@@ -313,3 +313,119 @@ def nrmse(ref: np.ndarray, y: np.ndarray, max_lag: int = 8,
     a, b = a[skip:], b[skip:]
     den = float(np.sqrt(np.mean(a ** 2)))
     return float(np.sqrt(np.mean((b - a) ** 2)) / den), lag
+
+
+# ---------------------------------------------------------------------------
+# Source waveforms, evaluated independently of Solderless (ngspice manual,
+# "Independent sources": SIN, PULSE, PWL definitions).
+
+def source_wave(cards: str, source: str = "VIN") -> tuple[float, str | None, list[float]]:
+    """Read a V source's card: (DC value, wave kind or None, wave numbers).
+
+    Only plain numbers and the engineering suffixes ngspice accepts are read.
+    """
+    for line in cards.splitlines():
+        tok = line.split()
+        if tok and tok[0].upper() == source.upper():
+            rest = " ".join(tok[3:])
+            dc = 0.0
+            m = re.search(r"\bDC\s+(\S+)", rest, flags=re.I)
+            if m:
+                dc = spice_number(m.group(1))
+            m = re.search(r"\b(SIN|PULSE|PWL)\s*\(([^)]*)\)", rest, flags=re.I)
+            if not m:
+                return dc, None, []
+            nums = [spice_number(x) for x in re.split(r"[\s,]+", m.group(2).strip()) if x]
+            return dc, m.group(1).upper(), nums
+    raise KeyError(source)
+
+
+_SUFFIX = {"t": 1e12, "g": 1e9, "meg": 1e6, "k": 1e3, "m": 1e-3, "u": 1e-6,
+           "n": 1e-9, "p": 1e-12, "f": 1e-15, "mil": 25.4e-6}
+
+
+def spice_number(text: str) -> float:
+    """A SPICE number with an optional scale suffix (``4.7k``, ``1Meg``, ``10u``)."""
+    m = re.fullmatch(r"([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)([a-zA-Z]*)", text)
+    if not m:
+        raise ValueError(text)
+    v = float(m.group(1))
+    s = m.group(2).lower()
+    for suf in ("meg", "mil", "t", "g", "k", "m", "u", "n", "p", "f"):
+        if s.startswith(suf):
+            return v * _SUFFIX[suf]
+    return v
+
+
+def wave_samples(kind: str | None, nums: list[float], t: np.ndarray,
+                 dc: float = 0.0) -> np.ndarray:
+    """Value of a SIN / PULSE / PWL source at times t (ngspice definitions;
+    in a transient the DC value is ignored when a wave is given)."""
+    t = np.asarray(t, float)
+    if kind is None:
+        return np.full_like(t, dc)
+    if kind == "SIN":
+        vo, va, f, td, theta, ph = (list(nums) + [0, 0, 0, 0, 0, 0])[:6]
+        tt = np.maximum(t - td, 0.0)
+        return vo + va * np.exp(-tt * theta) * np.sin(2 * np.pi * f * tt + np.deg2rad(ph))
+    if kind == "PWL":
+        tp, vp = np.array(nums[0::2]), np.array(nums[1::2])
+        return np.interp(t, tp, vp)
+    if kind == "PULSE":
+        v1, v2, td, tr, tf, pw, per = (list(nums) + [0] * 7)[:7]
+        tr = tr or 1e-12
+        tf = tf or 1e-12
+        per = per or np.inf
+        tt = np.where(t < td, -1.0, np.mod(t - td, per) if np.isfinite(per) else t - td)
+        out = np.full_like(t, v1)
+        rise = (tt >= 0) & (tt < tr)
+        out[rise] = v1 + (v2 - v1) * tt[rise] / tr
+        top = (tt >= tr) & (tt < tr + pw)
+        out[top] = v2
+        fall = (tt >= tr + pw) & (tt < tr + pw + tf)
+        out[fall] = v2 + (v1 - v2) * (tt[fall] - tr - pw) / tf
+        return out
+    raise ValueError(kind)
+
+
+# ---------------------------------------------------------------------------
+# The Solderless side of a comparison (imports the engine lazily so that the
+# ngspice-only helpers above work without it).
+
+#: Reference netlists with an audio input VIN and an output node ``out``.
+def audio_netlists() -> list[str]:
+    """Netlists in tests/netlists that have a VIN source and an ``out`` node."""
+    names = []
+    for n in netlist_names():
+        text = load_netlist(n)
+        if re.search(r"^VIN\s", text, flags=re.M | re.I) and re.search(
+                r"\sout(\s|$)", text, flags=re.M):
+            names.append(n)
+    return names
+
+
+def engine_circuit(name: str, keep_wave: bool = False):
+    """Parse ``tests/netlists/<name>.cir`` with Solderless' SPICE importer.
+
+    The input source VIN becomes the circuit's input; unless ``keep_wave``,
+    its SIN/PWL wave is removed so that the test feeds the samples itself
+    (from :func:`wave_samples`, i.e. independently of the engine).
+    """
+    from engine.formats.spice import parse_netlist
+    p = NETLIST_DIR / f"{name}.cir"
+    nl = parse_netlist(p.read_text(), file=str(p), in_source="VIN", out_node="out")
+    circ = nl.circuit
+    if not keep_wave:
+        el = circ.element(circ.input_source or "VIN")
+        el.params.pop("wave", None)
+    return circ
+
+
+def engine_input(name: str, fs: float, duration: float) -> tuple[np.ndarray, np.ndarray]:
+    """(t, x): sample times and the input samples for VIN at rate fs (x is the
+    wave minus VIN's DC value, because the engine adds x to the DC value)."""
+    text = load_netlist(name)
+    dc, kind, nums = source_wave(text, "VIN")
+    n = int(np.floor(duration * fs + 1e-9)) + 1
+    t = np.arange(n) / fs
+    return t, wave_samples(kind, nums, t, dc) - dc
