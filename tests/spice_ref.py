@@ -429,3 +429,13 @@ def engine_input(name: str, fs: float, duration: float) -> tuple[np.ndarray, np.
     n = int(np.floor(duration * fs + 1e-9)) + 1
     t = np.arange(n) / fs
     return t, wave_samples(kind, nums, t, dc) - dc
+
+
+def engine_simulator():
+    """Return Solderless' Simulator class, or skip the test if it is not built yet."""
+    import pytest
+    try:
+        from engine.solver import Simulator
+    except ImportError as exc:
+        pytest.skip(f"engine.solver.Simulator not available: {exc}")
+    return Simulator

@@ -11,7 +11,6 @@ import pytest
 import spice_ref as S
 
 pytest.importorskip("engine.formats.spice")
-solver = pytest.importorskip("engine.solver")
 
 TOL_V = 1e-3
 
@@ -27,8 +26,9 @@ def version():
 def test_operating_point_matches_ngspice(name, version):
     cards = S.load_netlist(name)
     ref = S.run_op(cards)                       # ngspice op
+    Simulator = S.engine_simulator()
     circ = S.engine_circuit(name)
-    sim = solver.Simulator(circ, 48000.0)
+    sim = Simulator(circ, 48000.0)
     ours = {k.lower(): v for k, v in sim.operating_point().nets.items()}
     nodes = [k for k in ref if not k.startswith("i(")]
     assert nodes, "ngspice returned no node voltages"
