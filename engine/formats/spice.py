@@ -1,0 +1,1196 @@
+"""SPICE-subset netlist import and export.
+
+:func:`parse_netlist` / :func:`load_netlist` read the part of the SPICE
+language that describes an analog audio circuit and flatten it into an
+:class:`engine.circuit.Circuit`; :func:`circuit_to_netlist` writes a Circuit
+back as a netlist that ngspice runs.
+
+What is read (case-insensitive, as in SPICE):
+
+* the title line (the first line of the top file), ``*`` comment lines,
+  ``;`` and `` $ `` end-of-line comments, ``+`` continuation lines;
+* R, C, L (``IC=``), V and I sources (DC value, ``DC x``, ``AC mag`` which is
+  recorded but not used, ``SIN(VO VA FREQ TD THETA)``,
+  ``PULSE(V1 V2 TD TR TF PW PER)``, ``PWL(t v ...)``), linear E and G in the
+  four-node form, D, Q (three nodes and a model; a substrate node or an area
+  factor is ignored with a warning), J;
+* ``.model NAME TYPE(params)`` for D, NPN, PNP, NJF and PJF; parameters
+  Solderless does not simulate (CJO, TT, ...) are kept in
+  :attr:`Netlist.models` and reported in :attr:`Netlist.warnings`;
+* ``.subckt``/``.ends`` with X instances, flattened: element ``R1`` inside
+  instance ``X1`` becomes ``X1.R1``, an internal net ``n1`` becomes
+  ``x1.n1``; instances nest (``X1.X2.R1``); subcircuit parameters
+  (``.subckt name a b params: k=1``) and instance overrides (``X1 a b name
+  k=2``);
+* ``.param`` and ``{expr}`` / ``'expr'`` values, evaluated by a small
+  arithmetic evaluator (no Python ``eval``);
+* ``.include`` relative to the including file; ``.end``.
+
+Analysis and output cards (``.tran``, ``.op``, ``.ac``, ``.options``,
+``.control`` ... ``.endc``, ``.save``, ``.probe``, ``.print``, ``.plot``,
+``.backanno``, ``.lib`` ...) are skipped and listed in
+:attr:`Netlist.ignored`. Any card that would change the circuit but cannot be
+run raises :class:`engine.errors.DesignError` naming the file, the line, the
+card and the reason.
+
+An X instance whose name is not a subcircuit but a model of the parts
+library given as ``library`` (kind OPAMP or OTA) becomes an OPAMP or OTA
+element with nodes (inp, inn, out, vcc|abc, vee).
+
+Reference for the card syntax: the ngspice user manual (chapters "Circuit
+description" and "Device models").
+"""
+from __future__ import annotations
+
+import ast
+import math
+import os
+import re
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+from engine.circuit import GROUND, Circuit, Element, Where, canonical_net
+from engine.errors import DesignError, ValueFormatError
+from engine.values import parse_value
+
+__all__ = [
+    "Netlist", "SpiceModel", "Subckt", "SubcktStage", "load_netlist",
+    "parse_netlist", "circuit_to_netlist", "netlist_subckt_as_stage",
+    "evaluate_expression",
+]
+
+# --------------------------------------------------------------------------
+# Device parameter names
+
+#: Model types read from ``.model`` cards, and the element kind they serve.
+MODEL_KIND = {"D": "D", "NPN": "Q", "PNP": "Q", "NJF": "J", "PJF": "J"}
+
+# Parameters the device modules simulate (fallback if they cannot be read).
+_SIM_FALLBACK = {
+    "D": {"IS", "N", "RS"},
+    "Q": {"IS", "BF", "BR", "NF", "NR", "VAF", "VAR"},
+    "J": {"VTO", "BETA", "LAMBDA", "IS", "N"},
+}
+
+# Standard SPICE model parameters (ngspice manual, device model tables);
+# those we do not simulate are kept and reported, not refused.
+_STANDARD = {
+    "D": {"IS", "N", "RS", "CJO", "CJ0", "CJ", "VJ", "M", "TT", "BV", "IBV",
+          "EG", "XTI", "KF", "AF", "FC", "TNOM", "ISR", "NR", "IKF", "IK",
+          "IKR", "NBV", "IBVL", "NBVL", "TRS", "TRS1", "TRS2", "TCV", "JSW",
+          "CJP", "CJSW", "PHP", "MJSW", "AREA", "PJ", "LEVEL", "IBVL",
+          "TBV1", "TBV2", "TT1", "TT2", "TM1", "TM2", "CTA", "CTP", "TPB",
+          "TPHP", "TLEV", "TLEVC", "XTI", "GAP1", "GAP2", "EGAP", "VP",
+          "IAVE", "IPK", "VPK", "MFG", "TYPE", "BVJ", "DSKIP"},
+    "Q": {"IS", "BF", "NF", "VAF", "VA", "IKF", "IK", "ISE", "NE", "BR",
+          "NR", "VAR", "VB", "IKR", "ISC", "NC", "RB", "IRB", "RBM", "RE",
+          "RC", "CJE", "VJE", "PE", "MJE", "ME", "TF", "XTF", "VTF", "ITF",
+          "PTF", "CJC", "VJC", "PC", "MJC", "MC", "XCJC", "TR", "CJS", "CCS",
+          "VJS", "PS", "MJS", "MS", "XTB", "EG", "XTI", "KF", "AF", "FC",
+          "TNOM", "LEVEL", "SUBS", "QUASI", "RCO", "VO", "GAMMA", "QCO",
+          "ISS", "NS", "NK", "IRB", "TLEV", "TLEVC", "TRE1", "TRE2", "TRC1",
+          "TRC2", "TRB1", "TRB2", "TRM1", "TRM2", "TBF1", "TBF2", "TBR1",
+          "TBR2", "TIKF1", "TIKF2", "TIKR1", "TIKR2", "TIRB1", "TIRB2",
+          "TNC1", "TNC2", "TNE1", "TNE2", "TNF1", "TNF2", "TNR1", "TNR2",
+          "TVAF1", "TVAF2", "TVAR1", "TVAR2", "TITF1", "TITF2", "TTF1",
+          "TTF2", "TTR1", "TTR2", "TMJE1", "TMJE2", "TMJC1", "TMJC2",
+          "TMJS1", "TMJS2", "TIS1", "TIS2", "TISE1", "TISE2", "TISC1",
+          "TISC2", "CTC", "CTE", "CTS", "TVJE", "TVJC", "TVJS", "MFG",
+          "VCEO", "ICRATING", "BVCBO", "BVCEO", "BVEBO", "NKF", "TYPE",
+          "MCONFIG", "ICMAX", "IBMAX", "PDMAX", "VCEMAX", "VBEMAX",
+          "VBCMAX", "AREA", "AREAB", "AREAC"},
+    "J": {"VTO", "VT0", "BETA", "LAMBDA", "RD", "RS", "CGS", "CGD", "PB",
+          "IS", "N", "B", "FC", "KF", "AF", "TNOM", "TCV", "VTOTC", "BEX",
+          "BETATCE", "XTI", "EG", "LEVEL", "ISR", "NR", "ALPHA", "VK", "M",
+          "MFG", "TYPE", "BV", "IBV", "VDSMAX", "VGSMAX", "VGDMAX", "RG"},
+}
+# Aliases SPICE accepts for the same parameter.
+_ALIAS = {
+    "D": {"CJ0": "CJO", "CJ": "CJO"},
+    "Q": {"VA": "VAF", "VB": "VAR", "IK": "IKF", "PE": "VJE", "ME": "MJE",
+          "PC": "VJC", "MC": "MJC", "PS": "VJS", "MS": "MJS", "CCS": "CJS"},
+    "J": {"VT0": "VTO"},
+}
+
+
+def _simulated(kind: str) -> set[str]:
+    """Parameter names the device module for ``kind`` reads."""
+    mod = {"D": "diode", "Q": "bjt", "J": "jfet"}[kind]
+    try:
+        m = __import__(f"engine.devices.{mod}", fromlist=["DEFAULTS"])
+        return set(m.DEFAULTS)
+    except Exception:  # device module missing or broken: keep to the basics
+        return set(_SIM_FALLBACK[kind])
+
+
+# --------------------------------------------------------------------------
+# Safe arithmetic expressions
+
+_FUNCS: dict[str, Callable[..., float]] = {
+    "sqrt": math.sqrt, "exp": math.exp, "ln": math.log, "log": math.log,
+    "log10": math.log10, "abs": abs, "min": min, "max": max, "pow": math.pow,
+    "pwr": lambda a, b: math.copysign(abs(a) ** b, a), "sin": math.sin,
+    "cos": math.cos, "tan": math.tan, "atan": math.atan, "asin": math.asin,
+    "acos": math.acos, "sinh": math.sinh, "cosh": math.cosh,
+    "tanh": math.tanh, "floor": math.floor, "ceil": math.ceil,
+    "int": lambda a: float(int(a)), "nint": lambda a: float(round(a)),
+    "sgn": lambda a: float((a > 0) - (a < 0)), "atan2": math.atan2,
+}
+_CONSTS = {"pi": math.pi}
+_BINOPS = {ast.Add: lambda a, b: a + b, ast.Sub: lambda a, b: a - b,
+           ast.Mult: lambda a, b: a * b, ast.Div: lambda a, b: a / b,
+           ast.Pow: lambda a, b: math.pow(a, b), ast.Mod: math.fmod}
+_SCALED_NUM = re.compile(
+    r"(?<![\w.])((?:\d+\.?\d*|\.\d+)(?:e[+-]?\d+)?)(meg|mil|[tgkmunpf])?[a-z]*(?![\w(])",
+    re.IGNORECASE)
+
+
+def evaluate_expression(text: str, params: dict[str, float]) -> float:
+    """Evaluate a SPICE parameter expression such as ``2*rload + 4.7k``.
+
+    Numbers may carry SPICE scale factors; names are looked up
+    (case-insensitively) in ``params``; operators ``+ - * / ^ ** %``;
+    functions sqrt, exp, ln/log, log10, abs, min, max, pow, pwr, trig and
+    hyperbolic functions, floor, ceil, int, nint, sgn; constant ``pi``.
+    Parsed with :mod:`ast` and walked node by node: no code is executed.
+    Raises ``ValueError`` with the reason.
+    """
+    src = text.strip()
+    if src[:1] in "{'" and src[-1:] in "}'":
+        src = src[1:-1]
+    src = src.replace("^", "**")
+    src = _SCALED_NUM.sub(lambda m: repr(parse_value(m.group(0), spice=True)),
+                          src)
+    try:
+        tree = ast.parse(src.strip(), mode="eval")
+    except SyntaxError:
+        raise ValueError(f"'{text}' is not an arithmetic expression") from None
+    low = {k.lower(): v for k, v in params.items()}
+
+    def ev(node) -> float:
+        if isinstance(node, ast.Expression):
+            return ev(node.body)
+        if isinstance(node, ast.Constant) and isinstance(node.value, (int, float)) \
+                and not isinstance(node.value, bool):
+            return float(node.value)
+        if isinstance(node, ast.Name):
+            key = node.id.lower()
+            if key in low:
+                return float(low[key])
+            if key in _CONSTS:
+                return _CONSTS[key]
+            raise ValueError(f"unknown parameter '{node.id}'")
+        if isinstance(node, ast.BinOp) and type(node.op) in _BINOPS:
+            return _BINOPS[type(node.op)](ev(node.left), ev(node.right))
+        if isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd)):
+            v = ev(node.operand)
+            return -v if isinstance(node.op, ast.USub) else v
+        if isinstance(node, ast.Call) and isinstance(node.func, ast.Name) \
+                and not node.keywords:
+            fn = _FUNCS.get(node.func.id.lower())
+            if fn is None:
+                raise ValueError(f"unknown function '{node.func.id}'")
+            return float(fn(*[ev(a) for a in node.args]))
+        raise ValueError(f"'{ast.unparse(node)}' is not allowed in an expression")
+
+    try:
+        v = ev(tree)
+    except (ZeroDivisionError, OverflowError, TypeError) as exc:
+        raise ValueError(f"'{text}' cannot be evaluated ({exc})") from None
+    except ValueError as exc:
+        if "math domain" in str(exc):
+            raise ValueError(f"'{text}' cannot be evaluated (math domain)") from None
+        raise
+    if not math.isfinite(v):
+        raise ValueError(f"'{text}' is not finite")
+    return v
+
+
+# --------------------------------------------------------------------------
+# Data model
+
+@dataclass
+class Card:
+    """One logical card (continuations joined) and where it starts."""
+    text: str
+    where: Where
+    tokens: list[str] = field(default_factory=list)
+
+    @property
+    def file(self):
+        return self.where.file
+
+    @property
+    def line(self):
+        return self.where.line
+
+
+@dataclass
+class SpiceModel:
+    """A ``.model`` card: ``type`` is D, NPN, PNP, NJF or PJF (or another
+    SPICE type, kept but not usable); ``params`` holds every parameter as
+    written (upper-case names, SI floats)."""
+    name: str
+    type: str
+    params: dict[str, float]
+    where: Where | None = None
+
+
+@dataclass
+class Subckt:
+    """A ``.subckt`` definition: ports, default parameters, body cards."""
+    name: str
+    ports: list[str]
+    defaults: dict[str, str]
+    body: list[Card]
+    subckts: dict[str, "Subckt"]
+    where: Where | None = None
+
+
+@dataclass
+class Netlist:
+    """The result of reading a netlist.
+
+    circuit : the flattened Circuit (``input_source`` set when the named
+        source exists, ``output = (out_node, '0')``).
+    models : top-level ``.model`` cards by upper-case name.
+    subckts : top-level ``.subckt`` definitions by upper-case name.
+    params : top-level ``.param`` values.
+    ignored : (line, card text) of cards skipped as analysis/output cards.
+    warnings : messages about things read but not simulated.
+    element_models : element name -> model name it uses.
+    """
+    title: str
+    circuit: Circuit
+    models: dict[str, SpiceModel] = field(default_factory=dict)
+    subckts: dict[str, Subckt] = field(default_factory=dict)
+    params: dict[str, float] = field(default_factory=dict)
+    ignored: list[tuple[int | None, str]] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+    element_models: dict[str, str] = field(default_factory=dict)
+    library: Any = None
+
+
+# --------------------------------------------------------------------------
+# Reading lines
+
+_IGNORED_DOT = {
+    ".tran", ".op", ".ac", ".dc", ".noise", ".disto", ".pz", ".sens", ".tf",
+    ".four", ".options", ".option", ".opt", ".save", ".probe", ".print",
+    ".plot", ".backanno", ".lib", ".endl", ".temp", ".ic", ".nodeset",
+    ".global", ".meas", ".measure", ".width", ".csparam", ".step", ".func",
+    ".net", ".wave", ".spice", ".hdl", ".control", ".endc",
+}
+_UNSUPPORTED_ELEMENTS = {
+    "M": "MOSFETs are not supported; use a JFET (J) or BJT (Q) model",
+    "B": "behavioural sources are not supported; use linear E/G sources",
+    "F": "current-controlled sources (F) are not supported; use a "
+         "voltage-controlled source (G) across a sense resistor",
+    "H": "current-controlled sources (H) are not supported; use a "
+         "voltage-controlled source (E) across a sense resistor",
+    "K": "coupled inductors (K) are not supported",
+    "T": "transmission lines are not supported",
+    "O": "transmission lines are not supported",
+    "U": "transmission lines are not supported",
+    "S": "switches (S) are not supported; use a resistor of the on or off value",
+    "W": "switches (W) are not supported; use a resistor of the on or off value",
+    "A": "code-model (A) devices are not supported",
+    "Z": "MESFETs are not supported; use a JFET (J) model",
+    "N": "device-level (N) simulation is not supported",
+    "P": "coupled transmission lines (P) are not supported",
+    "Y": "transmission lines are not supported",
+}
+
+
+def _strip_comment(s: str) -> str:
+    i = s.find(";")
+    if i >= 0:
+        s = s[:i]
+    m = re.search(r"(^|\s)\$(\s|$)", s)
+    if m:
+        s = s[:m.start()]
+    i = s.find("//")
+    if i >= 0 and (i == 0 or s[i - 1].isspace()):
+        s = s[:i]
+    return s.rstrip()
+
+
+def _tokenize(text: str, where: Where) -> list[str]:
+    """Split a card into tokens; parentheses and commas separate, '=' is a
+    token of its own, ``{...}`` and ``'...'`` stay whole."""
+    out: list[str] = []
+    i, n = 0, len(text)
+    while i < n:
+        c = text[i]
+        if c.isspace() or c in "(),":
+            i += 1
+        elif c == "=":
+            out.append("=")
+            i += 1
+        elif c == "{":
+            depth, j = 0, i
+            while j < n:
+                if text[j] == "{":
+                    depth += 1
+                elif text[j] == "}":
+                    depth -= 1
+                    if depth == 0:
+                        break
+                j += 1
+            if j >= n:
+                raise DesignError(f"'{text}': unbalanced '{{'", file=where.file,
+                                  line=where.line, hint="close the expression with '}'")
+            out.append(text[i:j + 1])
+            i = j + 1
+        elif c == "'":
+            j = text.find("'", i + 1)
+            if j < 0:
+                raise DesignError(f"'{text}': unbalanced quote", file=where.file,
+                                  line=where.line, hint="close the expression with a quote")
+            out.append("{" + text[i + 1:j] + "}")
+            i = j + 1
+        else:
+            j = i
+            while j < n and not text[j].isspace() and text[j] not in "(),={'":
+                j += 1
+            out.append(text[i:j])
+            i = j
+    return out
+
+
+def _read_file(path: str, where: Where | None) -> str:
+    try:
+        with open(path, "rb") as f:
+            raw = f.read()
+    except OSError as exc:
+        raise DesignError(f"cannot read netlist '{path}': {exc.strerror}",
+                          file=where.file if where else None,
+                          line=where.line if where else None,
+                          hint="check the path (relative paths start at the "
+                               "including file's folder)") from None
+    try:
+        return raw.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        return raw.decode("latin-1")
+
+
+def _cards(text: str, file: str, *, has_title: bool, ignored: list,
+           depth: int = 0) -> tuple[str, list[Card]]:
+    """Logical cards of a netlist text, with ``.include`` spliced in."""
+    if depth > 20:
+        raise DesignError(".include nesting is deeper than 20 levels",
+                          file=file, hint="look for a file that includes itself")
+    lines = text.splitlines()
+    title = ""
+    start = 0
+    if has_title and lines:
+        title = lines[0].strip()
+        start = 1
+    phys: list[tuple[int, str]] = []
+    for k in range(start, len(lines)):
+        s = lines[k]
+        st = s.strip()
+        if not st or st.startswith("*"):
+            continue
+        st = _strip_comment(st)
+        if not st:
+            continue
+        if st.startswith("+"):
+            if not phys:
+                raise DesignError("continuation line '+' with nothing to continue",
+                                  file=file, line=k + 1,
+                                  hint="join it to the card it belongs to")
+            ln, prev = phys[-1]
+            phys[-1] = (ln, prev + " " + st[1:].strip())
+        else:
+            phys.append((k + 1, st))
+    cards: list[Card] = []
+    in_control = False
+    base = os.path.dirname(file) if file and not file.startswith("<") else os.getcwd()
+    for ln, st in phys:
+        where = Where(file, ln)
+        low = st.lower()
+        word = low.split()[0]
+        if in_control:
+            ignored.append((ln, st))
+            if word == ".endc":
+                in_control = False
+            continue
+        if word == ".control":
+            in_control = True
+            ignored.append((ln, st))
+            continue
+        if word == ".end":
+            break
+        if word in (".include", ".inc"):
+            arg = st.split(None, 1)[1].strip() if len(st.split(None, 1)) > 1 else ""
+            arg = arg.strip("\"'")
+            if not arg:
+                raise DesignError(f"'{st}': .include needs a file name", file=file,
+                                  line=ln, hint='write .include "models.lib"')
+            path = arg if os.path.isabs(arg) else os.path.join(base, arg)
+            sub = _read_file(path, where)
+            _, more = _cards(sub, path, has_title=False, ignored=ignored,
+                             depth=depth + 1)
+            cards.extend(more)
+            continue
+        cards.append(Card(st, where, _tokenize(st, where)))
+    return title, cards
+
+
+# --------------------------------------------------------------------------
+# Structure: subcircuit definitions, scopes
+
+def _split_defs(cards: list[Card]) -> tuple[list[Card], dict[str, Subckt]]:
+    """Separate ``.subckt`` definitions (recursively) from the other cards."""
+    top: list[Card] = []
+    defs: dict[str, Subckt] = {}
+    i = 0
+    while i < len(cards):
+        c = cards[i]
+        word = c.tokens[0].lower() if c.tokens else ""
+        if word == ".subckt":
+            depth, j = 1, i + 1
+            while j < len(cards):
+                w = cards[j].tokens[0].lower() if cards[j].tokens else ""
+                if w == ".subckt":
+                    depth += 1
+                elif w == ".ends":
+                    depth -= 1
+                    if depth == 0:
+                        break
+                j += 1
+            if j >= len(cards):
+                raise DesignError(f"'{c.text}': .subckt without .ends", file=c.file,
+                                  line=c.line, hint="close the definition with .ends")
+            body, inner = _split_defs(cards[i + 1:j])
+            sub = _subckt_header(c, body, inner)
+            if sub.name in defs:
+                raise DesignError(f"subcircuit '{sub.name}' is defined twice",
+                                  file=c.file, line=c.line,
+                                  hint=f"first definition at line {defs[sub.name].where.line}")
+            defs[sub.name] = sub
+            i = j + 1
+            continue
+        if word == ".ends":
+            raise DesignError(f"'{c.text}': .ends without .subckt", file=c.file,
+                              line=c.line, hint="remove it or add the .subckt line")
+        top.append(c)
+        i += 1
+    return top, defs
+
+
+def _subckt_header(c: Card, body, inner) -> Subckt:
+    t = c.tokens
+    if len(t) < 2:
+        raise DesignError(f"'{c.text}': .subckt needs a name and ports", file=c.file,
+                          line=c.line, hint=".subckt NAME port1 port2 ...")
+    ports: list[str] = []
+    defaults: dict[str, str] = {}
+    rest = t[2:]
+    k = 0
+    while k < len(rest):
+        tok = rest[k]
+        if tok.lower() in ("params:", "param:"):
+            k += 1
+            continue
+        if k + 2 < len(rest) + 1 and k + 1 < len(rest) and rest[k + 1] == "=":
+            if k + 2 >= len(rest):
+                raise DesignError(f"'{c.text}': parameter '{tok}' has no value",
+                                  file=c.file, line=c.line)
+            defaults[tok.lower()] = rest[k + 2]
+            k += 3
+            continue
+        if defaults:
+            raise DesignError(f"'{c.text}': port '{tok}' after parameters",
+                              file=c.file, line=c.line,
+                              hint="list all ports before 'params:'")
+        ports.append(tok.lower())
+        k += 1
+    return Subckt(t[1].upper(), ports, defaults, body, inner, c.where)
+
+
+@dataclass
+class _Scope:
+    params: dict[str, float]
+    models: dict[str, Card]
+    subckts: dict[str, Subckt]
+    parent: "_Scope | None" = None
+    resolved: dict[str, SpiceModel] = field(default_factory=dict)
+
+    def find_subckt(self, name: str) -> Subckt | None:
+        s: _Scope | None = self
+        while s is not None:
+            if name in s.subckts:
+                return s.subckts[name]
+            s = s.parent
+        return None
+
+
+class _Reader:
+    """Flattens cards into elements; collects warnings and ignored cards."""
+
+    def __init__(self, library, ignored, warnings):
+        self.library = library
+        self.ignored = ignored
+        self.warnings = warnings
+        self.elements: list[Element] = []
+        self.names: dict[str, Where] = {}
+        self.element_models: dict[str, str] = {}
+        self._warned: set[str] = set()
+
+    # -- helpers ---------------------------------------------------------
+    def err(self, card: Card, why: str, hint: str | None = None, part=None):
+        raise DesignError(f"'{card.text}': {why}", file=card.file, line=card.line,
+                          part=part, hint=hint)
+
+    def warn(self, msg: str):
+        if msg not in self._warned:
+            self._warned.add(msg)
+            self.warnings.append(msg)
+
+    def value(self, tok: str, card: Card, scope: _Scope, what: str,
+              part=None) -> float:
+        """A numeric field: number with scale factor, {expr} or a .param name."""
+        if tok.startswith("{"):
+            try:
+                return evaluate_expression(tok, scope_params(scope))
+            except ValueError as exc:
+                self.err(card, f"{what}: {exc}", "define it with .param or fix "
+                         "the expression", part)
+        try:
+            return parse_value(tok, spice=True, file=card.file, line=card.line,
+                               part=part)
+        except ValueFormatError:
+            params = scope_params(scope)
+            if tok.lower() in params:
+                return params[tok.lower()]
+            self.err(card, f"{what} '{tok}' is not a number",
+                     "write e.g. 4.7k, 100n, 1meg or {expression}", part)
+
+    def kv(self, toks: list[str], card: Card) -> tuple[list[str], dict[str, str]]:
+        """Split positional tokens from ``key = value`` pairs."""
+        pos: list[str] = []
+        kv: dict[str, str] = {}
+        k = 0
+        while k < len(toks):
+            if k + 1 < len(toks) and toks[k + 1] == "=":
+                if k + 2 >= len(toks):
+                    self.err(card, f"'{toks[k]}=' has no value")
+                kv[toks[k].upper()] = toks[k + 2]
+                k += 3
+            elif toks[k] == "=":
+                self.err(card, "'=' without a parameter name")
+            else:
+                if kv:
+                    self.err(card, f"'{toks[k]}' after key=value parameters",
+                             "put node names and values before parameters")
+                pos.append(toks[k])
+                k += 1
+        return pos, kv
+
+    # -- scopes, params, models ------------------------------------------
+    def make_scope(self, cards: list[Card], defs, params: dict[str, float],
+                   parent: _Scope | None) -> tuple[_Scope, list[Card]]:
+        scope = _Scope(dict(params), {}, dict(defs), parent)
+        rest: list[Card] = []
+        for c in cards:
+            word = c.tokens[0].lower()
+            if word == ".param":
+                self.read_param(c, scope)
+            elif word == ".model":
+                if len(c.tokens) < 3:
+                    self.err(c, ".model needs a name and a type",
+                             ".model NAME D(IS=1e-14 N=1.8)")
+                name = c.tokens[1].upper()
+                if name in scope.models:
+                    self.err(c, f"model '{name}' is defined twice",
+                             f"first definition at line {scope.models[name].line}")
+                scope.models[name] = c
+            else:
+                rest.append(c)
+        return scope, rest
+
+    def read_param(self, c: Card, scope: _Scope):
+        body = c.text.split(None, 1)[1] if len(c.text.split(None, 1)) > 1 else ""
+        marks = list(re.finditer(r"([A-Za-z_][\w.]*)\s*=", body))
+        # ignore '=' inside braces or quotes
+        marks = [m for m in marks if body[:m.start()].count("{") == body[:m.start()].count("}")
+                 and body[:m.start()].count("'") % 2 == 0]
+        if not marks:
+            self.err(c, ".param needs name=value", ".param rload=10k gain={2*rload}")
+        for k, m in enumerate(marks):
+            end = marks[k + 1].start() if k + 1 < len(marks) else len(body)
+            expr = body[m.end():end].strip().rstrip(",")
+            name = m.group(1).lower()
+            if not expr:
+                self.err(c, f"parameter '{name}' has no value")
+            try:
+                scope.params[name] = evaluate_expression(expr, scope_params(scope))
+            except ValueError as exc:
+                self.err(c, f"parameter '{name}': {exc}",
+                         "define the parameters it uses first")
+
+    def model(self, name: str, card: Card, scope: _Scope, part: str) -> SpiceModel | None:
+        key = name.upper()
+        s: _Scope | None = scope
+        while s is not None:
+            if key in s.resolved:
+                return s.resolved[key]
+            if key in s.models:
+                m = self.read_model(s.models[key], s)
+                s.resolved[key] = m
+                return m
+            s = s.parent
+        if self.library is not None:
+            lm = _library_find(self.library, name)
+            if lm is not None:
+                return SpiceModel(lm.name, lm.kind.upper(), dict(lm.params), None)
+        return None
+
+    def read_model(self, c: Card, scope: _Scope) -> SpiceModel:
+        t = c.tokens
+        name, mtype = t[1].upper(), t[2].upper()
+        _, kv = self.kv(t[3:], c)
+        params: dict[str, float] = {}
+        for k, v in kv.items():
+            params[k] = self.value(v, c, scope, f"model parameter {k}")
+        return SpiceModel(name, mtype, params, c.where)
+
+    # -- elements ----------------------------------------------------------
+    def add(self, el: Element, card: Card):
+        if el.name in self.names:
+            first = self.names[el.name]
+            self.err(card, f"element '{el.name}' is defined twice",
+                     f"first at {first.file}:{first.line}; rename one", el.name)
+        self.names[el.name] = card.where
+        self.elements.append(el)
+
+    def flatten(self, cards: list[Card], scope: _Scope, prefix: str,
+                netmap: dict[str, str], chain: tuple[str, ...] = ()):
+        for c in cards:
+            word = c.tokens[0]
+            low = word.lower()
+            if low.startswith("."):
+                if low in _IGNORED_DOT:
+                    self.ignored.append((c.line, c.text))
+                    continue
+                if low == ".title":
+                    continue
+                self.err(c, f"control card '{word}' is not supported",
+                         "remove it; Solderless reads the circuit, .model, "
+                         ".subckt, .param and .include cards")
+            letter = word[0].upper()
+            # 'R.X1.R1' (ngspice's flattened form, and what the writer emits
+            # for names not starting with their letter) is read as 'X1.R1'
+            own = word[2:] if len(word) > 2 and word[1] == "." else word
+            name = (prefix + "." if prefix else "") + own.upper()
+
+            def net(tok: str) -> str:
+                n = canonical_net(tok.lower())
+                if n == GROUND:
+                    return GROUND
+                if n in netmap:
+                    return netmap[n]
+                return (prefix.lower() + "." + n) if prefix else n
+
+            if letter in "RCL":
+                self.passive(c, letter, name, net, scope)
+            elif letter in "VI":
+                self.source(c, letter, name, net, scope)
+            elif letter in "EG":
+                self.controlled(c, letter, name, net, scope)
+            elif letter in "DQJ":
+                self.device(c, letter, name, net, scope)
+            elif letter == "X":
+                self.instance(c, name, net, scope, chain)
+            elif letter in _UNSUPPORTED_ELEMENTS:
+                self.err(c, _UNSUPPORTED_ELEMENTS[letter], part=name)
+            else:
+                self.err(c, f"'{word}' is not a SPICE element name",
+                         "element names start with R, C, L, V, I, E, G, D, Q, J or X",
+                         part=name)
+
+    def passive(self, c, letter, name, net, scope):
+        pos, kv = self.kv(c.tokens[1:], c)
+        what = {"R": "resistance", "C": "capacitance", "L": "inductance"}[letter]
+        key = {"R": "R", "C": "C", "L": "L"}[letter]
+        if len(pos) == 2 and key in kv:
+            pos.append(kv.pop(key))
+        if len(pos) < 3:
+            self.err(c, f"needs two nodes and a {what}",
+                     f"{c.tokens[0]} node1 node2 value", name)
+        if len(pos) > 3:
+            self.err(c, f"'{pos[3]}': semiconductor {what} models are not "
+                     f"supported", f"give the {what} as a number", name)
+        v = self.value(pos[2], c, scope, what, name)
+        if letter == "R" and v == 0:
+            self.err(c, "a resistance of zero cannot be simulated",
+                     "join the two nets or use a small value such as 1m", name)
+        params: dict[str, Any] = {}
+        for k, tok in kv.items():
+            if k == "IC" and letter in "CL":
+                params["IC"] = self.value(tok, c, scope, "initial condition", name)
+            elif k in ("M",):
+                m = self.value(tok, c, scope, "multiplier", name)
+                v = v / m if letter in "RL" else v * m
+            else:
+                self.warn(f"{c.file}:{c.line}: {name}: parameter {k} is ignored")
+        self.add(Element(name, letter, (net(pos[0]), net(pos[1])), v, params,
+                         c.where), c)
+
+    def source(self, c, letter, name, net, scope):
+        toks = c.tokens[1:]
+        if len(toks) < 2:
+            self.err(c, "needs two nodes", f"{c.tokens[0]} plus minus DC 1", name)
+        nodes = (net(toks[0]), net(toks[1]))
+        rest = toks[2:]
+        dc = None
+        params: dict[str, Any] = {}
+        k = 0
+        funcs = ("sin", "pulse", "pwl")
+        while k < len(rest):
+            w = rest[k].lower()
+            if w == "dc":
+                if k + 1 >= len(rest):
+                    self.err(c, "DC needs a value", part=name)
+                dc = self.value(rest[k + 1], c, scope, "DC value", name)
+                k += 2
+            elif w == "ac":
+                k += 1
+                vals = []
+                while k < len(rest) and len(vals) < 2 and _is_number_like(rest[k]):
+                    vals.append(self.value(rest[k], c, scope, "AC value", name))
+                    k += 1
+                params["AC"] = vals[0] if vals else 1.0
+                if len(vals) > 1:
+                    params["ACPHASE"] = vals[1]
+            elif w in funcs:
+                k += 1
+                vals = []
+                while k < len(rest) and _is_number_like(rest[k]):
+                    vals.append(self.value(rest[k], c, scope, f"{w.upper()} value", name))
+                    k += 1
+                params["wave"] = (w.upper(), self.check_wave(c, name, w.upper(), vals))
+            elif w in ("exp", "sffm", "am", "trnoise", "trrandom", "external",
+                       "distof1", "distof2", "port"):
+                self.err(c, f"the {w.upper()} source function is not supported",
+                         "use a DC value, SIN, PULSE or PWL", name)
+            elif dc is None and (_is_number_like(rest[k])
+                                 or rest[k].lower() in scope_params(scope)):
+                dc = self.value(rest[k], c, scope, "value", name)
+                k += 1
+            else:
+                self.err(c, f"'{rest[k]}' is not understood here",
+                         "write e.g. DC 9, AC 1, SIN(0 1 1k), PULSE(...), PWL(...)",
+                         name)
+        if dc is None:
+            dc = _wave_at_zero(params.get("wave"))
+        self.add(Element(name, letter, nodes, dc, params, c.where), c)
+
+    def check_wave(self, c, name, kind, vals):
+        if kind == "SIN":
+            if len(vals) < 3:
+                self.err(c, "SIN needs at least VO VA FREQ", "SIN(0 0.1 440)", name)
+            if len(vals) > 6:
+                self.err(c, "SIN takes at most VO VA FREQ TD THETA PHASE", part=name)
+        elif kind == "PULSE":
+            if len(vals) < 2 or len(vals) > 8:
+                self.err(c, "PULSE takes V1 V2 TD TR TF PW PER",
+                         "PULSE(0 1 1m 1u 1u 5m 10m)", name)
+        elif kind == "PWL":
+            if len(vals) < 2 or len(vals) % 2:
+                self.err(c, "PWL needs time/value pairs", "PWL(0 0 1m 1 2m 0)", name)
+            ts = vals[0::2]
+            if any(b < a for a, b in zip(ts, ts[1:])):
+                self.err(c, "PWL times must not decrease", part=name)
+        return vals
+
+    def controlled(self, c, letter, name, net, scope):
+        pos, kv = self.kv(c.tokens[1:], c)
+        if any(p.lower() in ("poly", "value", "table", "laplace", "vol", "cur")
+               for p in pos) or kv:
+            self.err(c, "only the linear four-node form is supported",
+                     f"{c.tokens[0]} out+ out- ctrl+ ctrl- gain", name)
+        if len(pos) != 5:
+            self.err(c, "needs four nodes and a gain",
+                     f"{c.tokens[0]} out+ out- ctrl+ ctrl- gain", name)
+        g = self.value(pos[4], c, scope, "gain", name)
+        self.add(Element(name, letter, tuple(net(p) for p in pos[:4]), g, {},
+                         c.where), c)
+
+    def device(self, c, letter, name, net, scope):
+        pos, kv = self.kv(c.tokens[1:], c)
+        nn = {"D": 2, "Q": 3, "J": 3}[letter]
+        want = {"D": "D", "Q": "NPN or PNP", "J": "NJF or PJF"}[letter]
+        if len(pos) < nn + 1:
+            self.err(c, f"needs {nn} nodes and a model name",
+                     f"{c.tokens[0]} " + " ".join(["node"] * nn) + " MODEL", name)
+        mi = nn
+        model = self.model(pos[mi], c, scope, name)
+        if model is None and letter == "Q" and len(pos) > nn + 1:
+            model = self.model(pos[nn + 1], c, scope, name)
+            if model is not None:
+                mi = nn + 1
+                self.warn(f"{c.file}:{c.line}: {name}: substrate node "
+                          f"'{pos[nn]}' is ignored")
+        if model is None:
+            self.err(c, f"model '{pos[mi]}' is not defined",
+                     f"add a .model {pos[mi]} {want.split()[0]}(...) card or use "
+                     "a model of the parts library", name)
+        mtype = model.type.upper()
+        kind = MODEL_KIND.get(mtype)
+        if kind != letter:
+            self.err(c, f"model '{model.name}' is of type {mtype}, a {letter} "
+                     f"element needs {want}", part=name)
+        extra = pos[mi + 1:]
+        for tok in extra:
+            if tok.lower() == "off":
+                self.warn(f"{c.file}:{c.line}: {name}: OFF is ignored "
+                          "(the operating point is always solved)")
+            else:
+                self.value(tok, c, scope, "area factor", name)
+                self.warn(f"{c.file}:{c.line}: {name}: area factor {tok} is ignored")
+        for k in kv:
+            self.warn(f"{c.file}:{c.line}: {name}: instance parameter {k} is ignored")
+        params = self.device_params(model, kind)
+        if kind in ("Q", "J"):
+            params["TYPE"] = mtype
+        params["MODEL"] = model.name
+        self.element_models[name] = model.name
+        self.add(Element(name, letter, tuple(net(p) for p in pos[:nn]), 0.0,
+                         params, c.where), c)
+
+    def device_params(self, model: SpiceModel, kind: str) -> dict[str, Any]:
+        sim = _simulated(kind)
+        alias = _ALIAS[kind]
+        out: dict[str, Any] = {}
+        where = f"{model.where.file}:{model.where.line}: " if model.where else ""
+        for k, v in model.params.items():
+            key = alias.get(k, k)
+            if key in sim:
+                out[key] = v
+            elif key in ("TYPE", "LEVEL", "MFG"):
+                if key == "LEVEL" and v != 1:
+                    self.warn(f"{where}model {model.name}: LEVEL={v:g} is read "
+                              "as the basic level-1 model")
+            elif key in _STANDARD[kind] or k in _STANDARD[kind]:
+                self.warn(f"{where}model {model.name}: {k} is not simulated "
+                          "and is ignored")
+            else:
+                self.warn(f"{where}model {model.name}: unknown parameter {k} "
+                          "is ignored")
+        return out
+
+    def instance(self, c, name, net, scope, chain):
+        pos, kv = self.kv(c.tokens[1:], c)
+        if len(pos) < 1:
+            self.err(c, "needs nodes and a subcircuit name", "X1 in out NAME", name)
+        sname = pos[-1].upper()
+        nodes = pos[:-1]
+        sub = scope.find_subckt(sname)
+        if sub is None:
+            lm = _library_find(self.library, pos[-1]) if self.library is not None else None
+            if lm is not None and lm.kind.upper() in ("OPAMP", "OTA"):
+                if len(nodes) != 5:
+                    order = ("inp inn out vcc vee" if lm.kind.upper() == "OPAMP"
+                             else "inp inn out abc vee")
+                    self.err(c, f"{lm.kind.upper()} '{lm.name}' needs 5 nodes "
+                             f"({order})", part=name)
+                params = dict(lm.params)
+                for k, tok in kv.items():
+                    params[k] = self.value(tok, c, scope, k, name)
+                params["MODEL"] = lm.name
+                self.element_models[name] = lm.name
+                self.add(Element(name, lm.kind.upper(), tuple(net(n) for n in nodes),
+                                 0.0, params, c.where), c)
+                return
+            self.err(c, f"subcircuit '{pos[-1]}' is not defined",
+                     "add its .subckt ... .ends block or .include the file "
+                     "that has it", name)
+        if sname in chain:
+            self.err(c, f"subcircuit '{sname}' uses itself", part=name)
+        if len(nodes) != len(sub.ports):
+            self.err(c, f"subcircuit '{sub.name}' has {len(sub.ports)} ports "
+                     f"({' '.join(sub.ports)}), {len(nodes)} nodes given", part=name)
+        # parameters: defaults evaluated in the definition's scope, overrides
+        # in the caller's scope
+        local: dict[str, float] = {}
+        for k, tok in sub.defaults.items():
+            if k.upper() in kv:
+                continue
+            local[k] = self.value(tok, _Card_at(sub.where, f".subckt {sub.name}"),
+                                  _Scope({**scope_params(scope), **local}, {}, {}),
+                                  f"parameter {k}", name)
+        for k, tok in kv.items():
+            if k.lower() not in sub.defaults:
+                self.err(c, f"subcircuit '{sub.name}' has no parameter '{k}'",
+                         "declared: " + (", ".join(sub.defaults) or "none"), name)
+            local[k.lower()] = self.value(tok, c, scope, f"parameter {k}", name)
+        netmap = {p: net(n) for p, n in zip(sub.ports, nodes)}
+        inner_scope, cards = self.make_scope(sub.body, sub.subckts,
+                                             {**scope_params(scope), **local}, scope)
+        self.flatten(cards, inner_scope, name, netmap, chain + (sname,))
+
+
+def _Card_at(where: Where | None, text: str) -> Card:
+    return Card(text, where or Where(), [])
+
+
+def scope_params(scope: _Scope) -> dict[str, float]:
+    """All parameters visible in ``scope`` (inner ones win)."""
+    chain = []
+    s: _Scope | None = scope
+    while s is not None:
+        chain.append(s.params)
+        s = s.parent
+    out: dict[str, float] = {}
+    for p in reversed(chain):
+        out.update(p)
+    return out
+
+
+def _is_number_like(tok: str) -> bool:
+    return bool(tok) and (tok[0] in "{+-.0123456789")
+
+
+def _wave_at_zero(wave) -> float:
+    """The DC value a source without one takes: its waveform at t = 0."""
+    if not wave:
+        return 0.0
+    kind, vals = wave
+    if kind == "SIN":
+        return vals[0]
+    if kind == "PULSE":
+        return vals[0]
+    return vals[1]  # PWL: first value
+
+
+def _library_find(library, name: str):
+    if library is None:
+        return None
+    find = getattr(library, "find", None)
+    if find is not None:
+        return find(name)
+    try:
+        return library.get(name)
+    except Exception:
+        return None
+
+
+# --------------------------------------------------------------------------
+# Public entry points
+
+def parse_netlist(text: str, *, file: str = "<text>", in_source: str = "VIN",
+                  out_node: str = "out", library=None) -> Netlist:
+    """Read a SPICE-subset netlist from ``text`` and flatten it.
+
+    The first line is the title (as in SPICE). ``in_source`` names the V
+    source the audio input drives (case-insensitive; ignored if absent);
+    ``out_node`` is the output net, measured against ground. ``library`` (a
+    :class:`engine.parts.PartsLibrary`) supplies models the netlist uses but
+    does not define. Raises :class:`engine.errors.DesignError` naming the
+    file, line and card for anything it cannot run.
+
+    >>> nl = parse_netlist("divider\\nVIN in 0 DC 0\\nR1 in out 10k\\n"
+    ...                    "R2 out 0 10k\\n.end\\n")
+    >>> [e.name for e in nl.circuit.elements]
+    ['VIN', 'R1', 'R2']
+    """
+    ignored: list = []
+    warnings: list[str] = []
+    title, cards = _cards(text, file, has_title=True, ignored=ignored)
+    if title and re.match(r"^[RCLVIEGDQJX]\w*\s+\S+\s+\S+", title, re.I) and \
+            len(title.split()) in (4, 5):
+        warnings.append(f"{file}:1: the first line '{title}' is read as the "
+                        "title, as SPICE does; add a title line if it is a part")
+    top, defs = _split_defs(cards)
+    reader = _Reader(library, ignored, warnings)
+    scope, rest = reader.make_scope(top, defs, {}, None)
+    reader.flatten(rest, scope, "", {})
+    circuit = Circuit(reader.elements, title=title, where=Where(file, 1))
+    names = {e.name.upper(): e.name for e in reader.elements}
+    src = names.get(in_source.upper()) if in_source else None
+    if src is not None and circuit.element(src).kind == "V":
+        circuit.input_source = src
+    out = canonical_net(out_node.lower()) if out_node else "out"
+    circuit.output = (out, GROUND)
+    if out != GROUND and out not in circuit.nets():
+        warnings.append(f"{file}: output net '{out}' does not exist in the "
+                        "netlist; name the output net or pass out_node")
+    models = {}
+    for name, c in scope.models.items():
+        models[name] = reader.model(name, c, scope, "")
+    ignored.sort(key=lambda t: (t[0] is None, t[0] or 0))
+    return Netlist(title, circuit, models, dict(scope.subckts),
+                   dict(scope.params), ignored, warnings,
+                   reader.element_models, library)
+
+
+def load_netlist(path, *, in_source: str = "VIN", out_node: str = "out",
+                 library=None) -> Netlist:
+    """Read a netlist file; see :func:`parse_netlist`."""
+    path = os.fspath(path)
+    return parse_netlist(_read_file(path, None), file=path, in_source=in_source,
+                         out_node=out_node, library=library)
+
+
+@dataclass
+class SubcktStage:
+    """A ``.subckt`` offered as a design stage: its ports, its parameters
+    with their defaults, and :meth:`instantiate` producing flat elements."""
+    name: str
+    ports: list[str]
+    defaults: dict[str, str]
+    netlist: Netlist
+
+    def instantiate(self, instance: str, nets: dict[str, str] | list[str],
+                    params: dict[str, Any] | None = None) -> list[Element]:
+        """Elements of one instance; ``nets`` maps each port to an outer net
+        (or lists them in port order); element names are ``INSTANCE.NAME``."""
+        if isinstance(nets, dict):
+            missing = [p for p in self.ports if p not in nets]
+            if missing:
+                raise DesignError(f"subcircuit '{self.name}': ports "
+                                  f"{', '.join(missing)} are not connected",
+                                  part=instance,
+                                  hint="connect every port: " + " ".join(self.ports))
+            nodes = [nets[p] for p in self.ports]
+        else:
+            nodes = list(nets)
+        sub = self.netlist.subckts[self.name]
+        text_params = " ".join(f"{k}={_fmt(float(v)) if not isinstance(v, str) else v}"
+                               for k, v in (params or {}).items())
+        card_text = f"{instance} {' '.join(nodes)} {self.name} {text_params}".strip()
+        where = sub.where or Where()
+        card = Card(card_text, where, _tokenize(card_text, where))
+        reader = _Reader(self.netlist.library, [], self.netlist.warnings)
+        scope, _ = reader.make_scope([], self.netlist.subckts,
+                                     dict(self.netlist.params), None)
+        # top-level models of the netlist are visible to the instance
+        scope.resolved.update(self.netlist.models)
+        reader.flatten([card], scope, "", {})
+        return reader.elements
+
+
+def netlist_subckt_as_stage(netlist: Netlist, name: str) -> SubcktStage:
+    """Expose the ``.subckt`` ``name`` of ``netlist`` for use as a stage."""
+    key = name.upper()
+    if key not in netlist.subckts:
+        import difflib
+        close = difflib.get_close_matches(key, list(netlist.subckts), n=3)
+        raise DesignError(f"the netlist has no subcircuit '{name}'",
+                          hint=("did you mean " + ", ".join(close) + "?") if close
+                          else "defined: " + (", ".join(netlist.subckts) or "none"))
+    s = netlist.subckts[key]
+    return SubcktStage(s.name, list(s.ports), dict(s.defaults), netlist)
+
+
+# --------------------------------------------------------------------------
+# Writer
+
+def _fmt(x: float) -> str:
+    """A float as SPICE reads it back exactly."""
+    if math.isinf(x):
+        return "1e99" if x > 0 else "-1e99"
+    r = repr(float(x))
+    return r[:-2] if r.endswith(".0") else r
+
+
+_NAME_OK = re.compile(r"^[A-Za-z0-9_.#]+$")
+
+
+def _spice_name(el: Element) -> str:
+    """SPICE name of an element: its own name when that starts with the
+    kind letter, else ``<letter>.<name>`` (the form ngspice gives flattened
+    elements, and which :func:`parse_netlist` reads back as ``<name>``)."""
+    letter = el.kind[0]
+    name = re.sub(r"[^A-Za-z0-9_.#]", "_", el.name)
+    if name[:1].upper() == letter and name[1:2] != ".":
+        return name.upper()
+    return (letter + "." + name).upper()
+
+
+def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
+    """Write ``circuit`` as a netlist ngspice runs (ends with ``.end``).
+
+    Every D, Q and J element gets its own ``.model`` card with the parameters
+    Solderless simulates. OPAMP and OTA macromodels have no SPICE element and
+    raise :class:`engine.errors.DesignError`. Elements whose name is not a
+    valid SPICE name for their kind are renamed (``R_...``) and listed in a
+    comment.
+    """
+    lines = [(title or circuit.title or "circuit").splitlines()[0] or "circuit"]
+    seen_nets: dict[str, str] = {}
+    used_names: dict[str, str] = {}
+    models: list[str] = []
+
+    def node(n: str) -> str:
+        if n == GROUND:
+            return "0"
+        if not _NAME_OK.match(n) or n.lower() in ("gnd", "ground"):
+            raise DesignError(f"net '{n}' cannot be written to SPICE",
+                              hint="use letters, digits, '_' and '.' in net names")
+        low = n.lower()
+        if seen_nets.setdefault(low, n) != n:
+            raise DesignError(f"nets '{seen_nets[low]}' and '{n}' differ only by "
+                              "case, which SPICE does not distinguish",
+                              hint="rename one of them")
+        return low
+
+    for el in circuit.elements:
+        w = el.where
+        f, ln = (w.file, w.line) if w else (None, None)
+        if el.kind in ("OPAMP", "OTA"):
+            raise DesignError(f"{el.kind} macromodels cannot be written as SPICE",
+                              file=f, line=ln, part=el.name,
+                              hint="replace it by a transistor-level subcircuit "
+                                   "to compare with a SPICE simulator")
+        if el.kind not in ("R", "C", "L", "V", "I", "E", "G", "D", "Q", "J"):
+            raise DesignError(f"element kind '{el.kind}' cannot be written as SPICE",
+                              file=f, line=ln, part=el.name)
+        sname = _spice_name(el)
+        if sname in used_names:
+            raise DesignError(f"'{el.name}' and '{used_names[sname]}' would both "
+                              f"be written as {sname}", file=f, line=ln,
+                              part=el.name, hint="rename one of them")
+        used_names[sname] = el.name
+        if sname not in (el.name.upper(), f"{el.kind[0]}.{el.name}".upper()):
+            lines.append(f"* {sname} is '{el.name}'")
+        nodes = " ".join(node(n) for n in el.nodes)
+        p = el.params or {}
+        if el.kind in ("R", "C", "L"):
+            s = f"{sname} {nodes} {_fmt(el.value)}"
+            if el.kind in ("C", "L") and "IC" in p:
+                s += f" IC={_fmt(p['IC'])}"
+        elif el.kind in ("V", "I"):
+            s = f"{sname} {nodes} DC {_fmt(el.value)}"
+            if "AC" in p:
+                s += f" AC {_fmt(p['AC'])}"
+                if "ACPHASE" in p:
+                    s += f" {_fmt(p['ACPHASE'])}"
+            wave = p.get("wave")
+            if wave:
+                kind, vals = wave
+                s += f" {kind}(" + " ".join(_fmt(v) for v in vals) + ")"
+        elif el.kind in ("E", "G"):
+            s = f"{sname} {nodes} {_fmt(el.value)}"
+        else:
+            kind = el.kind
+            mtype = {"D": "D"}.get(kind) or str(p.get("TYPE", "")).upper()
+            if kind == "Q" and mtype not in ("NPN", "PNP"):
+                raise DesignError("a BJT needs params['TYPE'] NPN or PNP", file=f,
+                                  line=ln, part=el.name)
+            if kind == "J" and mtype not in ("NJF", "PJF"):
+                raise DesignError("a JFET needs params['TYPE'] NJF or PJF", file=f,
+                                  line=ln, part=el.name)
+            mname = "M_" + sname.replace(".", "_")
+            sim = _simulated(kind)
+            mp = " ".join(f"{k}={_fmt(float(v))}" for k, v in p.items()
+                          if k in sim)
+            models.append(f".model {mname} {mtype}({mp})")
+            s = f"{sname} {nodes} {mname}"
+        lines.append(s)
+    lines.extend(models)
+    lines.append(".end")
+    return "\n".join(lines) + "\n"
