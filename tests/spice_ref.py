@@ -413,11 +413,11 @@ def engine_circuit(name: str, keep_wave: bool = False):
     """
     from engine.formats.spice import parse_netlist
     p = NETLIST_DIR / f"{name}.cir"
-    nl = parse_netlist(p.read_text(), file=str(p), in_source="VIN", out_node="out")
+    src = "VIN" if name in audio_netlists() else None
+    nl = parse_netlist(p.read_text(), file=str(p), in_source=src, out_node="out")
     circ = nl.circuit
-    if not keep_wave:
-        el = circ.element(circ.input_source or "VIN")
-        el.params.pop("wave", None)
+    if not keep_wave and circ.input_source:
+        circ.element(circ.input_source).params.pop("wave", None)
     return circ
 
 
