@@ -897,7 +897,8 @@ class _Reader:
                              else "inp inn out abc vee")
                     self.err(c, f"{lm.kind.upper()} '{lm.name}' needs 5 nodes "
                              f"({order})", part=name)
-                params = dict(lm.params)
+                params = (lm.element_params() if hasattr(lm, "element_params")
+                          else dict(lm.params))
                 for k, tok in kv.items():
                     params[k] = self.value(tok, c, scope, k, name)
                 params["MODEL"] = lm.name
