@@ -328,6 +328,11 @@ def pluck(freq: float, fs: float, duration: float, velocity: float = 0.7,
     low = signal.lfilter([1.0 - r], [1.0, -r], comb)
     low *= np.sqrt(np.mean(comb ** 2) / max(np.mean(low ** 2), 1e-300))
     exc = velocity * comb + (1.0 - velocity) * low
+    if mute:
+        # The palm on the strings by the bridge also softens the attack:
+        # a second one-pole lowpass on the excitation, cutoff 6 f0.
+        r = np.exp(-2.0 * pi * 6.0 * freq / fs)
+        exc = signal.lfilter([1.0 - r], [1.0, -r], exc)
 
     out = np.zeros(n_total)
     _string_loop(exc, loop.N, loop.S, loop.alpha, loop.C, loop.rho, out)
