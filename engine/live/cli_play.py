@@ -1,0 +1,233 @@
+"""``solderless play`` and ``solderless devices``.
+
+``engine.cli`` registers these with :func:`add_play_arguments` /
+:func:`run_play` and :func:`add_devices_arguments` / :func:`run_devices`.
+Nothing here imports sounddevice at module level, so the rest of the command
+line works without the PortAudio library.
+"""
+from __future__ import annotations
+
+import json
+import math
+import sys
+import threading
+import time
+
+from engine.errors import AudioError, SolderlessError
+from engine.live import meters as M
+
+
+def parse_full_scale(text: str | None, what: str) -> float | None:
+    """Read a calibration: ``+3dBu`` (RMS of the full-scale sine, dBu) or
+    ``1.55V`` / ``1.55`` (peak volts at full scale). Returns peak volts."""
+    if text is None:
+        return None
+    t = text.strip().replace(" ", "")
+    try:
+        if t.lower().endswith("dbu"):
+            return M.dbu_to_vrms(float(t[:-3])) * math.sqrt(2.0)
+        from engine.values import parse_value
+        v = parse_value(t, unit="V")
+    except (ValueError, SolderlessError):
+        raise AudioError(f"cannot read the {what} calibration '{text}'",
+                         hint="write it as peak volts (1.55V) or as the dBu of a "
+                              "full-scale sine (+3dBu)") from None
+    if not v > 0:
+        raise AudioError(f"the {what} calibration must be positive, not '{text}'")
+    return float(v)
+
+
+def add_play_arguments(p) -> None:
+    """Arguments of ``solderless play``."""
+    p.add_argument("design", nargs="?", default="flagship",
+                   help="design file (.toml), built-in design name, or SPICE netlist "
+                        "(default: flagship)")
+    p.add_argument("--vs", metavar="VARIANT",
+                   help="a second design to compare live (A = DESIGN, B = VARIANT)")
+    p.add_argument("--source", default="input", metavar="SRC",
+                   help="input (the sound card, default), synth[:PHRASE] (built-in "
+                        "instrument), tone[:HZ[:VOLTS_PEAK]], or an audio file to loop")
+    p.add_argument("--input-device", metavar="DEV", help="input device (index or name part)")
+    p.add_argument("--output-device", metavar="DEV", help="output device (index or name part)")
+    p.add_argument("--input-channel", type=int, default=1, metavar="N",
+                   help="input channel the instrument is on (1-based, default 1)")
+    p.add_argument("--rate", type=float, default=48000.0, help="sample rate, Hz (default 48000)")
+    p.add_argument("--block", type=int, default=128,
+                   help="block size in samples (default 128; 64 for the lowest latency)")
+    p.add_argument("--oversample", type=int, choices=(1, 2, 4, 8),
+                   help="oversampling factor (default: the design's suggestion)")
+    p.add_argument("--in-full-scale", metavar="LEVEL",
+                   help="input calibration: peak volts at the jack for digital full scale "
+                        "(1.55V) or dBu of a full-scale sine (+3dBu, the default)")
+    p.add_argument("--out-full-scale", metavar="LEVEL",
+                   help="output calibration, same form (default +3dBu)")
+    p.add_argument("--level", type=float, default=0.0, metavar="DB",
+                   help="output level, dB (default 0); playback starts silent and ramps up")
+    p.add_argument("--ceiling", type=float, default=-6.0, metavar="DBFS",
+                   help="safety limiter ceiling, dBFS (default -6)")
+    p.add_argument("--no-match", action="store_true",
+                   help="A/B: do not match loudness (BS.1770-4)")
+    p.add_argument("--seconds", type=float, metavar="N",
+                   help="stop after N seconds and print a meter summary")
+    p.add_argument("--json", action="store_true", help="print the summary as JSON")
+    p.add_argument("--no-console", action="store_true",
+                   help="do not read commands from the terminal")
+
+
+def add_devices_arguments(p) -> None:
+    """Arguments of ``solderless devices``."""
+    p.add_argument("--json", action="store_true", help="print as JSON")
+
+
+def run_devices(args) -> int:
+    """List the devices PortAudio sees."""
+    from engine.live.stream import list_devices
+    devs = list_devices()
+    if getattr(args, "json", False):
+        print(json.dumps(devs, indent=1))
+        return 0
+    for d in devs:
+        mark = ("<" if d["default_input"] else " ") + (">" if d["default_output"] else " ")
+        print(f"{mark} {d['index']:3d}  {d['name']}  ({d['host_api']}, "
+              f"{d['inputs']} in, {d['outputs']} out, {d['default_samplerate']:.0f} Hz)")
+    if not devs:
+        print("PortAudio sees no audio devices")
+    return 0
+
+
+def _summary(host, m: dict, wall: float) -> dict:
+    lat = m["latency"]
+    return {
+        "designs": [getattr(v.design, "name", "?") for v in host.voices],
+        "source": host.source.label,
+        "sample_rate": host.fs, "block": host.block, "oversample": host.oversample,
+        "seconds_wall": wall, "blocks": m["blocks"],
+        "seconds_audio": m["blocks"] * host.block / host.fs,
+        "input_full_scale_v_peak": host.in_fs_v,
+        "output_full_scale_v_peak": host.out_fs_v,
+        "output_level_db": host.level_db, "ceiling_dbfs": host.ceiling_dbfs,
+        "meters": m, "latency": lat, "xruns": m["xruns"], "guard": m["guard"],
+        "error": None if host.error is None else repr(host.error),
+        "autosave": None if host.autosave_path is None else str(host.autosave_path),
+    }
+
+
+def _print_summary(s: dict, say) -> None:
+    m = s["meters"]
+    say(f"played {s['seconds_audio']:.1f} s of audio ({s['blocks']} blocks of {s['block']} "
+        f"at {s['sample_rate']:.0f} Hz, x{s['oversample']} oversampling) from {s['source']}")
+    say(f"calibration: full scale = {s['input_full_scale_v_peak']:.3g} V peak in, "
+        f"{s['output_full_scale_v_peak']:.3g} V peak out "
+        f"({M.vrms_to_dbu(s['input_full_scale_v_peak'] / math.sqrt(2)):+.1f} dBu sine)")
+    inp, out = m["input"], m["output"]
+    say(f"input : peak {inp['peak_v']:.4g} V ({inp['peak_dbfs']:.1f} dBFS), "
+        f"RMS {inp['rms_v']:.4g} V ({inp['rms_dbfs']:.1f} dBFS)")
+    say(f"output: peak {out['peak_v']:.4g} V at the jack, {out['peak_dbfs']:.1f} dBFS; "
+        f"RMS {out['rms_v']:.4g} V, {out['rms_dbfs']:.1f} dBFS; "
+        f"deepest limiting {out['limiter_gr_db_max']:.1f} dB")
+    for k, v in m["voices"].items():
+        bits = [f"{k}:"]
+        if v["control_ua"] is not None:
+            bits.append(f"control {v['control_ua']:.2f} uA")
+        if v["gr_control_db"] is not None:
+            bits.append(f"gain reduction {v['gr_control_db']:.1f} dB (control)")
+        if v["gr_measured_db"] is not None:
+            bits.append(f"{v['gr_measured_db']:.1f} dB (measured)")
+        if v["loudness_lkfs"] is not None:
+            bits.append(f"loudness {v['loudness_lkfs']:.1f} LKFS")
+        say("  ".join(bits))
+    if len(m["voices"]) > 1:
+        say(f"loudness match: A - B = {m['loudness_offset_db']:+.2f} LU applied")
+    lat = s["latency"]
+    say(f"latency {1e3 * lat['total_s']:.1f} ms (stream {1e3 * (lat['stream_in_s'] + lat['stream_out_s']):.1f} ms, "
+        f"oversampling {1e3 * lat['oversampling_s']:.2f} ms); CPU per block "
+        f"mean {100 * m['cpu_load_mean']:.0f}%, max {100 * m['cpu_load_max']:.0f}%; xruns {s['xruns']}")
+    if s["xruns"]:
+        say("the computer could not keep up: try a larger --block (256) or lower --oversample")
+    if s["guard"]:
+        say(f"output was muted for safety: {s['guard']}")
+
+
+def run_play(args) -> int:
+    """Play a design (and optionally a variant) live; see ``--help``."""
+    from engine.design import load_design
+    from engine.live.host import LiveHost, caution_once
+    from engine.live.source import parse_source
+    from engine.live.stream import load_sounddevice
+
+    err = lambda s: print(s, file=sys.stderr)  # noqa: E731
+    load_sounddevice()          # fail early, with the install line, before any work
+    design = load_design(args.design)
+    variant = load_design(args.vs) if args.vs else None
+    if args.input_channel < 1:
+        raise AudioError(f"input channel {args.input_channel} does not exist",
+                         hint="channels count from 1")
+    source = parse_source(args.source, args.input_channel - 1)
+    host = LiveHost(design, variant=variant, fs=args.rate, block=args.block,
+                    oversample=args.oversample, source=source,
+                    in_full_scale_v=parse_full_scale(args.in_full_scale, "input"),
+                    out_full_scale_v=parse_full_scale(args.out_full_scale, "output"),
+                    level_db=args.level, ceiling_dbfs=args.ceiling,
+                    loudness_match=not args.no_match)
+    caution_once(err)
+    err(f"building {', '.join(getattr(v.design, 'name', '?') for v in host.voices)} ...")
+    host.prepare()
+    err(f"input calibration: full scale {host.in_fs_v:.3g} V peak "
+        f"({M.vrms_to_dbu(host.in_fs_v / math.sqrt(2)):+.1f} dBu sine); source: {source.label}")
+    t0 = time.perf_counter()
+    try:
+        host.start(input_device=args.input_device, output_device=args.output_device)
+    except SolderlessError:
+        host.close()
+        raise
+    stop = threading.Event()
+    console_thread = None
+    interactive = not args.no_console and sys.stdin is not None and sys.stdin.isatty()
+    if interactive:
+        from engine.live.console import Console
+        con = Console(host, say=err)
+        err("type 'help' for commands, 'quit' to stop")
+
+        def read():
+            for line in sys.stdin:
+                if not con.handle(line):
+                    break
+            stop.set()
+        console_thread = threading.Thread(target=read, daemon=True)
+        console_thread.start()
+    problem = None
+    told_guard = ""
+    try:
+        while not stop.is_set():
+            if args.seconds is not None and time.perf_counter() - t0 >= args.seconds:
+                break
+            stop.wait(0.1)
+            while not host.messages.empty():
+                err(host.messages.get())
+            if host.error is not None:
+                problem = f"the audio stream failed: {host.error!r}"
+                break
+            if host.stream is not None and not host.stream.active:
+                problem = "the audio stream stopped (device unplugged or closed?)"
+                break
+            g = host.guard_reason
+            if g and g != told_guard:
+                err(f"output muted for safety: {g}; type 'unmute' to resume")
+            told_guard = g
+    except KeyboardInterrupt:
+        pass
+    finally:
+        wall = time.perf_counter() - t0
+        host.stop()
+        m = host.meters()
+        s = _summary(host, m, wall)
+        host.close()
+    if problem:
+        err(f"stopped: {problem}. Your design and its edits are kept"
+            + (f" (autosave: {host.autosave_path})" if host.autosave_path else ""))
+    if args.seconds is not None or args.json:
+        if args.json:
+            print(json.dumps(s, indent=1, default=str))
+        else:
+            _print_summary(s, print)
+    return 1 if problem else 0

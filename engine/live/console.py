@@ -1,0 +1,172 @@
+"""Terminal control while playing: one short command per line.
+
+Runs on the terminal's thread; every change goes through the LiveHost's edit
+methods (mailbox to the edit worker), never into the engine directly. A user
+mistake prints one line and the session goes on.
+
+Commands (``help`` prints them)::
+
+    parts                 list the parts with their values
+    pick PART             choose the part the next commands act on
+    up [N] / down [N]     step the picked part N places through its E-series
+    value V               set the picked part's value (4k7, 100n, 2.2u ...)
+    turn R                turn the picked pot to R (0 to 1); 'turn +' / 'turn -'
+                          nudges by 0.05
+    bypass STAGE          toggle bypass of a stage (rebuild + crossfade)
+    a / b                 hear (and edit) the baseline or the variant
+    level DB              output level in dB
+    meters                print the meters now
+    unmute                clear a safety mute (output ramps up again)
+    save [PATH]           save the design atomically (its own file by default)
+    quit                  stop playing
+"""
+from __future__ import annotations
+
+import math
+from typing import Callable
+
+from engine.errors import SolderlessError
+
+HELP = __doc__.split("::", 1)[1].rstrip()
+
+
+def _fmt(x, unit):
+    from engine.values import format_value
+    try:
+        return format_value(x, unit=unit, style="eng")
+    except Exception:
+        return f"{x:.4g} {unit}"
+
+
+def _db(x):
+    return "  -inf" if x is None or x <= -149 else f"{x:6.1f}"
+
+
+def meter_line(m: dict) -> str:
+    """One line summary of a meter snapshot (for the terminal)."""
+    vi = m["voices"].get(m.get("selected", "A")) or m["voices"].get("A", {})
+    parts = [f"in {_db(m['input']['peak_dbfs'])} pk {_db(m['input']['rms_dbfs'])} rms dBFS",
+             f"out {_db(m['output']['peak_dbfs'])} pk {_db(m['output']['rms_dbfs'])} rms dBFS"]
+    if vi.get("control_ua") is not None:
+        parts.append(f"ctl {vi['control_ua']:7.2f} uA")
+    if vi.get("gr_control_db") is not None:
+        parts.append(f"GR {vi['gr_control_db']:5.1f} dB")
+    if vi.get("gr_measured_db") is not None:
+        parts.append(f"GRm {vi['gr_measured_db']:5.1f} dB")
+    if len(m["voices"]) > 1:
+        parts.append(f"[{m.get('selected', 'A')}] match {m['loudness_offset_db']:+.1f} LU")
+    parts.append(f"cpu {100 * m['cpu_load']:3.0f}%")
+    if m["xruns"]:
+        parts.append(f"xruns {m['xruns']}")
+    if m.get("guard"):
+        parts.append(f"MUTED: {m['guard']}")
+    return " | ".join(parts)
+
+
+class Console:
+    """Reads command lines and drives a LiveHost. ``say`` prints a line."""
+
+    def __init__(self, host, say: Callable[[str], None] = print, timeout: float = 30.0):
+        self.host = host
+        self.say = say
+        self.picked: str | None = None
+        self.timeout = timeout
+
+    def _need_pick(self) -> str:
+        if self.picked is None:
+            raise SolderlessError("no part picked", hint="type 'pick PART' (see 'parts')")
+        return self.picked
+
+    def handle(self, line: str) -> bool:
+        """Run one command line; returns False when the user asked to quit."""
+        words = line.strip().split()
+        if not words:
+            return True
+        cmd, rest = words[0].lower(), words[1:]
+        try:
+            return self._run(cmd, rest)
+        except SolderlessError as exc:
+            self.say(f"error: {exc}")
+        except (ValueError, IndexError) as exc:
+            self.say(f"error: cannot read '{line.strip()}' ({exc}); type 'help'")
+        return True
+
+    def _run(self, cmd: str, rest: list[str]) -> bool:
+        h = self.host
+        if cmd in ("quit", "exit", "q"):
+            return False
+        if cmd in ("help", "?"):
+            self.say(HELP)
+        elif cmd == "parts":
+            _, v = h._voice(None)
+            for p in v.design.parts():
+                if p.value is None:
+                    continue
+                extra = f"  rotation {p.rotation:.2f}" if p.is_pot else ""
+                mark = "*" if p.qualname == self.picked else " "
+                self.say(f"{mark} {p.qualname:<22} {_fmt(p.value, p.unit):>12}{extra}")
+        elif cmd == "pick":
+            info = h.part_info(rest[0])
+            self.picked = info.qualname
+            extra = f", rotation {info.rotation:.2f}" if info.is_pot else ""
+            self.say(f"picked {info.qualname} = {_fmt(info.value, info.unit)}{extra}")
+        elif cmd in ("up", "down"):
+            part = self._need_pick()
+            n = int(rest[0]) if rest else 1
+            new = h.step_value(part, n if cmd == "up" else -n).result(self.timeout)
+            self.say(f"{part} = {_fmt(new, h.part_info(part).unit)}")
+        elif cmd == "value":
+            from engine.values import parse_value
+            part = self._need_pick()
+            info = h.part_info(part)
+            v = parse_value(rest[0], unit=info.unit or None, part=part)
+            h.set_value(part, v).result(self.timeout)
+            self.say(f"{part} = {_fmt(v, info.unit)}")
+        elif cmd == "turn":
+            part = self._need_pick()
+            info = h.part_info(part)
+            if rest[0] in ("+", "-"):
+                r = (info.rotation or 0.0) + (0.05 if rest[0] == "+" else -0.05)
+            else:
+                r = float(rest[0])
+            r = min(1.0, max(0.0, r)) if rest[0] in ("+", "-") else r
+            h.set_rotation(part, r).result(self.timeout)
+            self.say(f"{part} rotation {r:.2f}")
+        elif cmd == "bypass":
+            stage = rest[0]
+            _, v = h._voice(None)
+            cur = _bypassed(v.design, stage)
+            t = h.set_bypass(stage, not cur).result(self.timeout)
+            self.say(f"stage {stage} {'bypassed' if not cur else 'back in'} "
+                     f"(rebuilt in {1e3 * t:.0f} ms)")
+        elif cmd in ("a", "b"):
+            h.select(cmd.upper())
+            self.say(f"hearing {cmd.upper()} (loudness offset {h.loudness_offset_db:+.1f} LU)")
+        elif cmd == "level":
+            h.set_level_db(float(rest[0]))
+            self.say(f"output level {float(rest[0]):+.1f} dB")
+        elif cmd == "meters":
+            self.say(meter_line(h.meters()))
+        elif cmd == "unmute":
+            h.unmute()
+            self.say("unmuted; output ramps up from silence")
+        elif cmd == "save":
+            path = h.save(rest[0] if rest else None).result(self.timeout)
+            self.say(f"saved {path}")
+        else:
+            self.say(f"unknown command '{cmd}'; type 'help'")
+        return True
+
+
+def _bypassed(design, stage: str) -> bool:
+    """Whether ``stage`` of ``design`` is bypassed now (False if unknown)."""
+    if hasattr(design, "stage"):
+        try:
+            return bool(design.stage(stage).bypass)
+        except Exception:
+            return False
+    return bool(getattr(design, "bypass", {}).get(stage, False))
+
+
+def finite(x) -> bool:
+    return x is not None and math.isfinite(x)

@@ -1,0 +1,713 @@
+"""The live host: runs one design (or a baseline and a variant for A/B) on a
+block stream, takes edits while playing, and feeds meters.
+
+Threads
+-------
+* **Audio thread** (PortAudio's callback, or the caller of
+  :meth:`LiveHost.run_offline`): :meth:`LiveHost._audio_block` only. It reads
+  the source, calls each simulator's ``process_into`` (compiled, GIL
+  released), runs the output stage (:mod:`engine.live.limiter`) and writes one
+  meter frame into a lock-free ring. No array allocation, no files, no locks,
+  no per-sample Python.
+* **Edit worker** (one daemon thread owned by the host): every edit posted
+  through the public methods runs here, in order: the design is changed, the
+  simulator re-derives its matrices (``set_values``, lands at the next block
+  boundary with the circuit state carried over) or, for a topology change, a
+  new simulator is built and swapped in with a short crossfade. Pot moves are
+  ramped over several blocks so they do not click. After each edit the design
+  is written to an autosave file (atomic write and rename), so no edit is lost
+  to a crash or a stream error.
+* **Any other thread** (terminal, GUI): public methods; they post work and
+  return a :class:`concurrent.futures.Future`, or read meters.
+
+The GIL is shared: a long pure-Python stretch in the GUI delays the callback.
+The kernels release the GIL, so what remains in the callback is a few dozen
+microseconds of Python per block.
+"""
+from __future__ import annotations
+
+import json
+import math
+import os
+import queue
+import threading
+import time
+from concurrent.futures import Future
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+
+from engine.errors import AudioError, DesignError, SolderlessError
+from engine.live import limiter as lim
+from engine.live import meters as M
+from engine.live.loudness import RunningLoudness
+from engine.live.ring import FrameRing
+from engine.live.source import LiveInput, Source
+
+DEFAULT_FULL_SCALE_DBU = 3.0
+"""Default input and output calibration: a full-scale sine is +3 dBU
+(1.10 V RMS, 1.55 V peak) at the jack, a typical instrument-input full
+scale of an audio interface (common practice)."""
+
+LOUDNESS_GATE_POWER = 10 ** ((-70.0 + 0.691) / 10)   # -70 LKFS absolute gate
+MAX_MATCH_DB = 24.0
+MAX_BLOCK = 4096
+MAX_POT_STEP = 0.01
+"""Largest pot rotation change per block during a ramp (1 % of travel)."""
+
+
+def full_scale_peak_from_dbu(dbu: float) -> float:
+    """Peak volts of a full-scale sine whose RMS is ``dbu`` dBu."""
+    return M.dbu_to_vrms(dbu) * math.sqrt(2.0)
+
+
+def config_dir() -> Path:
+    """The user's config folder for Solderless (``$XDG_CONFIG_HOME`` or
+    ``~/.config``, then ``solderless``)."""
+    base = os.environ.get("XDG_CONFIG_HOME") or os.path.join(os.path.expanduser("~"), ".config")
+    return Path(base) / "solderless"
+
+
+CAUTION = ("Caution: a circuit can oscillate or jump in level; keep the monitor "
+           "volume low at first to protect your hearing and your speakers.")
+
+
+def caution_once(say: Callable[[str], None] = print) -> bool:
+    """Show the hearing/speaker caution the first time only; remember that it
+    was shown in ``config_dir()/live.json``. Returns True if it was shown now."""
+    path = config_dir() / "live.json"
+    state: dict = {}
+    try:
+        state = json.loads(path.read_text())
+    except (OSError, ValueError):
+        state = {}
+    if state.get("caution_shown"):
+        return False
+    say(CAUTION)
+    state["caution_shown"] = True
+    try:
+        from engine.design import atomic_write_text
+        path.parent.mkdir(parents=True, exist_ok=True)
+        atomic_write_text(path, json.dumps(state))
+    except OSError:
+        pass
+    return True
+
+
+def default_simulator_factory(circuit, fs, oversample, probes):
+    """Build the engine's simulator (``engine.solver.Simulator``)."""
+    from engine.solver import Simulator
+    return Simulator(circuit, fs=fs, oversample=oversample, probes=tuple(probes),
+                     probe_decimate=1)
+
+
+def _stem(design) -> str:
+    """A file-name stem for a design: its file's stem, else its name."""
+    p = getattr(design, "path", None)
+    if p:
+        return Path(p).stem
+    name = str(getattr(design, "name", "design"))
+    return "".join(c if c.isalnum() or c in "-_" else "-" for c in name).strip("-") or "design"
+
+
+def _is_builtin(path) -> bool:
+    try:
+        from engine.design import PRESETS
+        return Path(path).resolve().is_relative_to(PRESETS.resolve())
+    except Exception:
+        return False
+
+
+def _probes_for(design) -> tuple[list[str], int | None]:
+    """Probe list of a design (control probe first) and the control's index."""
+    meters = getattr(design, "meters", None) or {}
+    control = meters.get("control")
+    names: list[str] = []
+    if control:
+        names.append(control)
+    extra = list(meters.get("probes", []) or [])
+    if hasattr(design, "probe_exprs"):
+        extra += [p for p in design.probe_exprs()]
+    for p in extra:
+        if p not in names:
+            names.append(p)
+    return names, (0 if control else None)
+
+
+class Voice:
+    """One design running live: its simulator, buffers and loudness meter.
+    The host owns it; the audio thread calls :meth:`process`."""
+
+    def __init__(self, design, label: str, fs: float, oversample: int,
+                 factory: Callable):
+        self.design = design
+        self.label = label
+        self.fs = fs
+        self.oversample = oversample
+        self.factory = factory
+        self.probes, self.control_index = _probes_for(design)
+        self.sim = None
+        self.incoming = None
+        self.retired = None
+        self.xpos = 1.0
+        cap = MAX_BLOCK
+        self.y = np.zeros(cap)
+        self.y_old = np.zeros(cap)
+        np_ = max(1, len(self.probes))
+        self.probe_buf = np.zeros((np_, cap * max(1, oversample)))
+        self.probe_scratch = np.zeros_like(self.probe_buf)
+        self.loud = RunningLoudness(fs, tau=3.0)
+        self.build_time_s = 0.0
+        self.probe_units: tuple = ()
+
+    def build(self):
+        """Flatten the design and build a simulator (worker thread). Returns it."""
+        t0 = time.perf_counter()
+        circuit = self.design.flatten()
+        try:
+            sim = self.factory(circuit, self.fs, self.oversample, self.probes)
+        except SolderlessError:
+            raise
+        self.build_time_s = time.perf_counter() - t0
+        self.probe_units = tuple(getattr(sim, "probe_units", ()) or ())
+        return sim
+
+    def warm(self, sim, n: int = 64) -> None:
+        """Run one silent block through ``sim`` so compiled code is loaded."""
+        z = np.zeros(n)
+        sim.process_into(z, self.y_old[:n], self.probe_scratch if self.probes else None)
+
+    def process(self, x: np.ndarray, n: int) -> int:
+        """Run one block (audio thread); output volts land in ``self.y``.
+        Returns the number of probe frames written to ``probe_buf``."""
+        pb = self.probe_buf if self.probes else None
+        inc = self.incoming
+        if inc is None:
+            return self.sim.process_into(x[:n], self.y[:n], pb)
+        ps = self.probe_scratch if self.probes else None
+        self.sim.process_into(x[:n], self.y_old[:n], ps)
+        k = inc.process_into(x[:n], self.y[:n], pb)
+        self.xpos = lim.crossfade_into(self.y_old, self.y, n, self.xpos,
+                                       1.0 / (lim.XFADE_S * self.fs))
+        if self.xpos >= 1.0:
+            self.retired = self.sim
+            self.sim = inc
+            self.incoming = None
+        return k
+
+
+class LiveHost:
+    """Live playing host for one design, or two (A = baseline, B = variant).
+
+    Parameters
+    ----------
+    design : a Design (``engine.design.load_design``) to play.
+    variant : optional second Design for A/B.
+    fs, block : sample rate (Hz) and block size (samples).
+    oversample : oversampling factor (None: the design's suggestion).
+    source : an :class:`engine.live.source.Source` (default: live input 1).
+    in_full_scale_v, out_full_scale_v : peak volts at the jack that map to
+        digital full scale (defaults: a +3 dBu full-scale sine).
+    level_db : output level (dB); playback starts silent and ramps to it.
+    ceiling_dbfs : safety limiter ceiling.
+    loudness_match : keep A and B at the same BS.1770 loudness.
+    simulator_factory : ``f(circuit, fs, oversample, probes) -> simulator``.
+    autosave : path for the autosave copy of A's design (None: beside the
+        config folder; False: off).
+    """
+
+    def __init__(self, design, *, variant=None, fs: float = 48000.0, block: int = 128,
+                 oversample: int | None = None, source: Source | None = None,
+                 in_full_scale_v: float | None = None, out_full_scale_v: float | None = None,
+                 level_db: float = 0.0, ceiling_dbfs: float = lim.DEFAULT_CEILING_DBFS,
+                 loudness_match: bool = True, simulator_factory: Callable | None = None,
+                 autosave: str | os.PathLike | bool | None = None):
+        if not 16 <= int(block) <= MAX_BLOCK:
+            raise AudioError(f"block size {block} is out of range",
+                             hint=f"use 16 to {MAX_BLOCK} samples (64 or more at 48 kHz)")
+        if not fs > 0:
+            raise AudioError(f"sample rate {fs} is not positive")
+        self.fs = float(fs)
+        self.block = int(block)
+        os_ = int(oversample or getattr(design, "oversample", 1) or 1)
+        if os_ not in (1, 2, 4, 8):
+            raise AudioError(f"oversampling x{os_} is not offered", hint="use 1, 2, 4 or 8")
+        self.oversample = os_
+        self.source = source or LiveInput(0)
+        dflt = full_scale_peak_from_dbu(DEFAULT_FULL_SCALE_DBU)
+        self.in_fs_v = float(in_full_scale_v or dflt)
+        self.out_fs_v = float(out_full_scale_v or dflt)
+        self.level_db = float(level_db)
+        self.ceiling_dbfs = float(ceiling_dbfs)
+        self.loudness_match = bool(loudness_match) and variant is not None
+        factory = simulator_factory or default_simulator_factory
+        self.voices = [Voice(design, "A", self.fs, os_, factory)]
+        if variant is not None:
+            self.voices.append(Voice(variant, "B", self.fs, os_, factory))
+        self.selected = 0
+        self.edit_voice = 0
+        # audio-thread buffers and state
+        self.x = np.zeros(MAX_BLOCK)
+        self.mixv = np.zeros(MAX_BLOCK)
+        self.out = np.zeros(MAX_BLOCK)
+        self.st = lim.make_state()
+        self.prm = lim.make_params(self.fs, self.out_fs_v, self.level_db, self.ceiling_dbfs)
+        na = len(self.voices[0].probes)
+        nb = len(self.voices[1].probes) if len(self.voices) > 1 else 0
+        self.ring = FrameRing(8192, M.C_PROBES + na + nb)
+        self.blocks = 0
+        self.xruns = 0
+        self.offset_db = 0.0
+        self.error: BaseException | None = None
+        self.stream = None
+        self.stream_latency_s = (0.0, 0.0)
+        self._edit_pending_t: float | None = None
+        self.edit_latencies_s: list[float] = []
+        self.messages: "queue.SimpleQueue[str]" = queue.SimpleQueue()
+        self._guard_told = 0
+        self.tap: np.ndarray | None = None
+        self.tap_pos = 0
+        # autosave
+        if autosave is False:
+            self.autosave_path = None
+        elif autosave:
+            self.autosave_path = Path(autosave)
+        else:
+            self.autosave_path = config_dir() / "autosave" / f"{_stem(design)}.toml"
+        self.meter = M.MeterReader(self.ring, self.fs, self.block, self.in_fs_v, self.out_fs_v,
+                                   self.voices[0].probes,
+                                   self.voices[1].probes if len(self.voices) > 1 else ())
+        # worker
+        self._jobs: "queue.Queue[tuple[Callable, Future] | None]" = queue.Queue()
+        self._worker = threading.Thread(target=self._work, name="solderless-edits", daemon=True)
+        self._worker.start()
+        self._built = False
+
+    # ------------------------------------------------------------ set-up
+    def prepare(self) -> None:
+        """Build and warm the simulators, render the source and measure each
+        voice's small-signal gain and quiescent control value. Called by
+        :meth:`start` and :meth:`run_offline`; may be called earlier."""
+        if self._built:
+            return
+        for v in self.voices:
+            v.sim = v.build()
+            v.warm(v.sim)
+        self.source.prepare(self.fs, self.in_fs_v)
+        self._warm_kernels()
+        for i, v in enumerate(self.voices):
+            if i == 0:
+                self.meter.units_a = v.probe_units or self.meter.units_a
+            else:
+                self.meter.units_b = v.probe_units or self.meter.units_b
+            self._measure_voice(i)
+        self._built = True
+
+    def _warm_kernels(self) -> None:
+        """Load every compiled kernel the audio thread calls, on scratch data."""
+        z = np.zeros(self.block)
+        st = lim.make_state()
+        lim.output_stage(z, z, self.block, st, self.prm.copy(), z.copy(), z.copy())
+        lim.crossfade_into(z, z.copy(), self.block, 0.0, 0.1)
+        M.peak_ms(z, self.block)
+        M.probe_means(np.zeros((1, 4)), 4, np.zeros(1 + M.C_PROBES), M.C_PROBES)
+        self.source.fill(None, self.block, z.copy())
+        if hasattr(self.source, "pos"):
+            self.source.pos = 0
+
+    def _measure_voice(self, i: int) -> None:
+        """Small-signal gain at 1 kHz (10 mV peak) and the quiescent control
+        value of voice ``i``, on a separate simulator so the live one is not
+        disturbed. Runs off the audio thread."""
+        v = self.voices[i]
+        try:
+            circuit = v.design.flatten()
+            probes = [v.probes[v.control_index]] if v.control_index is not None else []
+            sim = v.factory(circuit, self.fs, self.oversample, probes)
+        except SolderlessError as exc:
+            self.messages.put(f"{v.label}: could not measure the small-signal gain: {exc}")
+            return
+        n = self.block
+        x = np.zeros(n)
+        y = np.zeros(n)
+        pb = np.zeros((1, n * self.oversample)) if probes else None
+        ctl = []
+        t_sil = int(0.3 * self.fs / n)
+        for b in range(t_sil):
+            k = sim.process_into(x, y, pb)
+            if pb is not None and b >= t_sil * 2 // 3 and k:
+                ctl.append(float(pb[0, :k].mean()))
+        f, amp = 1000.0, 0.01
+        nt = int(0.5 * self.fs / n)
+        acc_in = acc_out = 0.0
+        cnt = 0
+        for b in range(nt):
+            t = (np.arange(n) + b * n) / self.fs
+            x[:] = amp * np.sin(2 * np.pi * f * t)
+            sim.process_into(x, y, pb)
+            if b >= nt // 2:
+                acc_in += float(np.dot(x, x))
+                acc_out += float(np.dot(y, y))
+                cnt += n
+        gain_db = 10 * math.log10(acc_out / acc_in) if acc_out > 0 and acc_in > 0 else None
+        self.meter.small_signal_gain_db[i] = gain_db
+        if ctl:
+            q = float(np.mean(ctl))
+            if i == 0:
+                self.meter.control_a = (v.control_index, q)
+            else:
+                self.meter.control_b = (v.control_index, q)
+
+    # ------------------------------------------------------------ audio thread
+    def _audio_block(self, indata, outdata, n: int, xrun: bool) -> None:
+        """Process one block (audio thread). ``outdata`` (n, channels) float32
+        is always filled, with silence on any failure."""
+        t0 = time.perf_counter()
+        try:
+            if xrun:
+                self.xruns += 1
+            if self._edit_pending_t is not None:
+                self.edit_latencies_s.append(t0 - self._edit_pending_t)
+                self._edit_pending_t = None
+            x = self.x
+            self.source.fill(indata, n, x)
+            row = self.ring.next_row()
+            col = M.C_PROBES
+            for i, v in enumerate(self.voices):
+                k = v.process(x, n)
+                if v.probes:
+                    M.probe_means(v.probe_buf, k, row, col)
+                col += len(v.probes)
+                v.loud.process(v.y[:n])
+            va = self.voices[0]
+            vb = self.voices[1] if len(self.voices) > 1 else va
+            if self.loudness_match:
+                pa, pb = va.loud.power, vb.loud.power
+                if pa > LOUDNESS_GATE_POWER * self.out_fs_v ** 2 and \
+                        pb > LOUDNESS_GATE_POWER * self.out_fs_v ** 2:
+                    off = 10.0 * math.log10(pa / pb)
+                    off = max(-MAX_MATCH_DB, min(MAX_MATCH_DB, off))
+                    self.offset_db = off
+                    if off > 0:
+                        self.prm[lim.P_GA] = 10.0 ** (-off / 20.0)
+                        self.prm[lim.P_GB] = 1.0
+                    else:
+                        self.prm[lim.P_GA] = 1.0
+                        self.prm[lim.P_GB] = 10.0 ** (off / 20.0)
+            gmin = lim.output_stage(va.y, vb.y, n, self.st, self.prm, self.mixv, self.out)
+            outdata[:n, :] = self.out[:n, None]
+            tap = self.tap
+            if tap is not None and self.tap_pos + n <= tap.shape[0]:
+                tap[self.tap_pos:self.tap_pos + n] = self.out[:n]
+                self.tap_pos += n
+            # meter frame
+            row[M.C_BLOCK] = self.blocks
+            row[M.C_TIME] = self.blocks * n / self.fs
+            row[M.C_IN_PEAK], row[M.C_IN_MS] = M.peak_ms(x, n)
+            row[M.C_OUT_PEAK], row[M.C_OUT_MS] = M.peak_ms(self.mixv, n)
+            row[M.C_DAC_PEAK], row[M.C_DAC_MS] = M.peak_ms(self.out, n)
+            row[M.C_OUT_PEAK_A], row[M.C_OUT_MS_A] = M.peak_ms(va.y, n)
+            row[M.C_OUT_PEAK_B], row[M.C_OUT_MS_B] = M.peak_ms(vb.y, n)
+            row[M.C_XRUNS] = self.xruns
+            row[M.C_GUARD] = self.st[lim.S_GUARD]
+            row[M.C_AB_POS] = self.st[lim.S_AB]
+            sc = 1.0 / (self.out_fs_v * self.out_fs_v)
+            row[M.C_LOUD_A] = va.loud.power * sc
+            row[M.C_LOUD_B] = vb.loud.power * sc if len(self.voices) > 1 else 0.0
+            row[M.C_OFFSET] = self.offset_db
+            row[M.C_LIMIT_GR] = 20.0 * math.log10(gmin) if gmin > 0 else M.FLOOR_DB
+            row[M.C_CPU] = (time.perf_counter() - t0) * self.fs / n
+            self.ring.commit()
+            self.blocks += 1
+        except BaseException as exc:  # never let the callback die silently
+            outdata[:] = 0
+            if self.error is None:
+                self.error = exc
+            self.st[lim.S_GUARD] = 4.0
+
+    # ------------------------------------------------------------ running
+    def enable_tap(self, seconds: float) -> None:
+        """Record the next ``seconds`` of sound-card output into ``self.tap``
+        (preallocated here; the audio thread only copies into it)."""
+        self.tap = np.zeros(int(seconds * self.fs) + self.block)
+        self.tap_pos = 0
+
+    def tapped(self) -> np.ndarray:
+        """The recorded output so far (a copy)."""
+        return np.zeros(0) if self.tap is None else self.tap[:self.tap_pos].copy()
+
+    def run_offline(self, n_blocks: int, indata: np.ndarray | None = None,
+                    channels: int = 1) -> np.ndarray:
+        """Run ``n_blocks`` blocks without a sound card, on the calling thread
+        (tests, benches, rendering). ``indata`` (samples, ch) feeds a
+        :class:`LiveInput` source. Returns the sound-card output, mono."""
+        self.prepare()
+        n = self.block
+        out = np.zeros((n_blocks * n, channels), dtype=np.float32)
+        for b in range(n_blocks):
+            ind = None if indata is None else indata[b * n:(b + 1) * n]
+            self._audio_block(ind, out[b * n:(b + 1) * n], n, False)
+            if self.error is not None:
+                raise self.error
+        return out[:, 0].astype(np.float64)
+
+    def start(self, *, input_device=None, output_device=None, channels_out: int = 2,
+              channels_in: int | None = None) -> None:
+        """Build the simulators and open the PortAudio stream
+        (:func:`engine.live.stream.open_stream`)."""
+        from engine.live import stream
+        self.prepare()
+        self.stream = stream.open_stream(self, input_device=input_device,
+                                         output_device=output_device,
+                                         channels_out=channels_out, channels_in=channels_in)
+
+    def stop(self) -> None:
+        """Close the stream (if any) and finish pending edits."""
+        if self.stream is not None:
+            try:
+                self.stream.stop()
+                self.stream.close()
+            except Exception:  # a vanished device may refuse to close
+                pass
+            self.stream = None
+        self.flush()
+
+    def close(self) -> None:
+        """Stop and end the edit worker."""
+        self.stop()
+        self._jobs.put(None)
+        self._worker.join(timeout=5)
+
+    @property
+    def running(self) -> bool:
+        s = self.stream
+        return bool(s is not None and s.active and self.error is None)
+
+    # ------------------------------------------------------------ worker
+    def _work(self) -> None:
+        while True:
+            job = self._jobs.get()
+            if job is None:
+                return
+            fn, fut = job
+            if not fut.set_running_or_notify_cancel():
+                continue
+            try:
+                fut.set_result(fn())
+            except BaseException as exc:
+                fut.set_exception(exc)
+            for v in self.voices:   # drop retired simulators off the audio thread
+                v.retired = None
+
+    def _post(self, fn: Callable) -> Future:
+        fut: Future = Future()
+        self._jobs.put((fn, fut))
+        return fut
+
+    def flush(self, timeout: float = 30.0) -> None:
+        """Wait until every posted edit has run."""
+        self._post(lambda: None).result(timeout)
+
+    def _wait_blocks(self, k: int = 1, timeout: float = 0.25) -> None:
+        """Wait (worker) until ``k`` more blocks have been processed, so a ramp
+        step lands on its own block; gives up after ``timeout`` seconds."""
+        start = self.blocks
+        t_end = time.perf_counter() + timeout
+        while self.blocks - start < k and time.perf_counter() < t_end:
+            time.sleep(0.0005)
+
+    def _apply(self, voice: Voice, changes: dict) -> None:
+        """Hand element changes to the running simulator (worker thread)."""
+        sim = voice.sim
+        if sim is None:
+            return
+        sim.set_values(changes)
+        if voice.incoming is not None:
+            voice.incoming.set_values(changes)
+        self._edit_pending_t = time.perf_counter()
+
+    def _after_edit(self, vi: int) -> None:
+        self._autosave(vi)
+        self._measure_voice(vi)
+
+    def _autosave(self, vi: int) -> None:
+        if self.autosave_path is None:
+            return
+        d = self.voices[vi].design
+        path = self.autosave_path if vi == 0 else self.autosave_path.with_name(
+            self.autosave_path.stem + "-variant.toml")
+        try:
+            from engine.design import atomic_write_text
+            path.parent.mkdir(parents=True, exist_ok=True)
+            atomic_write_text(path, d.to_toml())
+        except (SolderlessError, OSError) as exc:
+            self.messages.put(f"autosave failed ({exc}); save with 'save PATH'")
+
+    def _voice(self, which) -> tuple[int, Voice]:
+        i = self.edit_voice if which is None else (0 if which in (0, "A", "a") else 1)
+        if i >= len(self.voices):
+            raise AudioError("there is no variant (B) running", hint="start with --vs VARIANT")
+        return i, self.voices[i]
+
+    # ------------------------------------------------------------ edits (any thread)
+    def set_value(self, part: str, value: float, voice=None) -> Future:
+        """Change a part's value (re-derive, lands at a block boundary)."""
+        def job():
+            i, v = self._voice(voice)
+            changes = v.design.set_value(part, value)
+            self._apply(v, changes)
+            self._after_edit(i)
+            return value
+        return self._post(job)
+
+    def step_value(self, part: str, steps: int = 1, series: str | None = None,
+                   voice=None) -> Future:
+        """Step a part's value ``steps`` places through an E-series (IEC
+        60063; default E24, or E12 for capacitors). Result: the new value."""
+        from engine.values import step_preferred
+
+        def job():
+            i, v = self._voice(voice)
+            info = self.part_info(part, voice)
+            if info.value is None or not info.value > 0:
+                raise DesignError("this part has no positive value to step", part=part)
+            ser = series or ("E12" if info.type == "capacitor" else "E24")
+            new = step_preferred(info.value, ser, steps)
+            changes = v.design.set_value(part, new)
+            self._apply(v, changes)
+            self._after_edit(i)
+            return new
+        return self._post(job)
+
+    def set_rotation(self, pot: str, rotation: float, voice=None,
+                     ramp_s: float = 0.030) -> Future:
+        """Turn a pot to ``rotation`` (0..1), ramping over ``ramp_s`` seconds
+        in block-sized steps so the move does not click."""
+        def job():
+            i, v = self._voice(voice)
+            info = self.part_info(pot, voice)
+            if not info.is_pot:
+                raise DesignError("only a pot can be turned", part=pot,
+                                  hint="use 'value' or 'up'/'down' for other parts")
+            r0 = float(info.rotation if info.rotation is not None else 0.5)
+            r1 = float(rotation)
+            if not 0.0 <= r1 <= 1.0:
+                raise DesignError(f"rotation must be from 0 to 1, not {rotation}", part=pot)
+            # at least ramp_s seconds of blocks, and no step above MAX_POT_STEP
+            steps = max(1, int(math.ceil(ramp_s * self.fs / self.block)),
+                        int(math.ceil(abs(r1 - r0) / MAX_POT_STEP)))
+            steps = min(steps, 400)
+            for s in range(1, steps + 1):
+                r = r0 + (r1 - r0) * s / steps
+                self._apply(v, v.design.set_rotation(pot, r))
+                if s < steps:
+                    self._wait_blocks(1)
+            self._after_edit(i)
+            return r1
+        return self._post(job)
+
+    def set_bypass(self, stage: str, on: bool, voice=None) -> Future:
+        """Bypass a stage (or bring it back): rebuild the simulator and swap it
+        in with a short crossfade. Result: the build time in seconds."""
+        def job():
+            i, v = self._voice(voice)
+            v.design.set_bypass(stage, on)
+            try:
+                sim = v.build()
+            except SolderlessError:
+                v.design.set_bypass(stage, not on)
+                raise
+            v.warm(sim)
+            if v.sim is None:
+                v.sim = sim
+            else:
+                v.xpos = 0.0
+                v.incoming = sim
+                self._wait_blocks(int(lim.XFADE_S * self.fs / self.block) + 2, timeout=1.0)
+            self._after_edit(i)
+            return v.build_time_s
+        return self._post(job)
+
+    def save(self, path: str | os.PathLike | None = None, voice=None) -> Future:
+        """Save a design atomically (to its own file unless ``path`` is given).
+        Result: the path written."""
+        def job():
+            i, v = self._voice(voice)
+            target = path or getattr(v.design, "path", None)
+            if target is not None and not path and _is_builtin(target):
+                # never overwrite a built-in design: save a copy here
+                target = Path.cwd() / Path(target).name
+            if target is None:
+                target = Path.cwd() / f"{_stem(v.design)}.toml"
+            return v.design.save(target)
+        return self._post(job)
+
+    # ------------------------------------------------------------ controls
+    def part_info(self, part: str, voice=None):
+        """PartInfo of ``part`` in the edited (or given) voice."""
+        _, v = self._voice(voice)
+        for p in v.design.parts():
+            if p.qualname == part:
+                return p
+        names = [p.qualname for p in v.design.parts()]
+        import difflib
+        close = difflib.get_close_matches(part, names, n=3)
+        raise DesignError(f"no part named '{part}'",
+                          hint=("did you mean " + ", ".join(close) + "?") if close
+                          else "type 'parts' to list them")
+
+    def select(self, which: str) -> None:
+        """Hear A or B (crossfade of ``limiter.XFADE_S``); edits go to it too."""
+        i = 0 if which in (0, "A", "a") else 1
+        if i >= len(self.voices):
+            raise AudioError("there is no variant (B) running", hint="start with --vs VARIANT")
+        self.selected = i
+        self.edit_voice = i
+        self.prm[lim.P_AB_TARGET] = float(i)
+
+    def set_level_db(self, db: float) -> None:
+        """Output level in dB (smoothed on the audio thread)."""
+        self.level_db = float(db)
+        self.prm[lim.P_LEVEL] = 10.0 ** (db / 20.0) / self.out_fs_v
+
+    @property
+    def loudness_offset_db(self) -> float:
+        """Applied A/B loudness offset: A minus B in LU (positive: A was louder
+        and is turned down)."""
+        return self.offset_db
+
+    @property
+    def guard_reason(self) -> str:
+        """Why the output is muted ('' if it is not)."""
+        g = int(self.st[lim.S_GUARD])
+        if g == 4:
+            return f"the audio callback failed: {self.error!r}"
+        return M.GUARD_REASONS.get(g, "")
+
+    def unmute(self) -> None:
+        """Clear a guard mute; output ramps up from silence again."""
+        lim.reset_guard(self.st)
+
+    def latency(self) -> dict:
+        """Latency in seconds: stream input/output buffers (as PortAudio
+        reports them), one block, oversampling filters, and the total."""
+        os_lat = max((getattr(v.sim, "latency_samples", 0.0) or 0.0) for v in self.voices) \
+            if self._built else 0.0
+        i, o = self.stream_latency_s
+        d = {"stream_in_s": i, "stream_out_s": o, "block_s": self.block / self.fs,
+             "oversampling_s": os_lat / self.fs}
+        d["total_s"] = i + o + d["oversampling_s"] + (0.0 if (i or o) else d["block_s"])
+        return d
+
+    def meters(self) -> dict:
+        """Drain the meter ring and return readings (any thread but the audio
+        thread; one reader at a time)."""
+        snap = self.meter.poll()
+        snap["latency"] = self.latency()
+        snap["blocks"] = self.blocks
+        snap["selected"] = "AB"[self.selected]
+        snap["guard"] = self.guard_reason
+        snap["nonconverged"] = sum(int((getattr(v.sim, "stats", None) or {}).get("nonconverged", 0))
+                                   for v in self.voices if v.sim is not None)
+        return snap
