@@ -1,0 +1,151 @@
+"""Shared pieces of the device models: thermal voltage, junction law, limiting.
+
+Everything numeric here is compiled with numba (``nogil=True, cache=True``)
+and is called per sample from the solver kernel.
+
+References
+----------
+- Junction law, reverse-bias approximation and GMIN across each junction as in
+  SPICE3/ngspice (dioload.c, bjtload.c).
+- Junction voltage limiting ``pnjlim``: L. W. Nagel, "SPICE2: A computer
+  program to simulate semiconductor circuits", ERL-M520, UC Berkeley, 1975.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from numba import njit
+from scipy import constants
+
+from engine.errors import DesignError
+
+#: Nominal device temperature, K (27 degC, the SPICE default TNOM).
+TNOM = 300.15
+#: Thermal voltage k*T/q at TNOM, volts (scipy.constants, CODATA 2018).
+VT = constants.k * TNOM / constants.e
+#: Conductance SPICE places across every junction, siemens.
+GMIN = 1e-12
+#: Exponent beyond which exp() is continued linearly (keeps values finite).
+EXPLIM = 80.0
+
+
+@njit(cache=True, nogil=True)
+def lexp(x):
+    """exp(x) continued linearly above EXPLIM; returns (value, derivative)."""
+    if x > EXPLIM:
+        e = math.exp(EXPLIM)
+        return e * (1.0 + x - EXPLIM), e
+    e = math.exp(x)
+    return e, e
+
+
+@njit(cache=True, nogil=True)
+def junction(v, isat, vte):
+    """Shockley junction current and conductance as in ngspice (no GMIN).
+
+    Forward and mild reverse: I = IS*(exp(v/vte) - 1).  Below -3*vte the
+    reverse-bias approximation I = -IS*(1 + (3*vte/(v*e))**3) is used.
+    """
+    if v >= -3.0 * vte:
+        e, de = lexp(v / vte)
+        return isat * (e - 1.0), isat * de / vte
+    a = 3.0 * vte / (v * math.e)
+    a = a * a * a
+    return -isat * (1.0 + a), isat * 3.0 * a / v
+
+
+@njit(cache=True, nogil=True)
+def pnjlim(vnew, vold, vt, vcrit):
+    """SPICE2 junction voltage limiting (Nagel 1975).
+
+    Above ``vcrit`` a Newton step larger than 2*vt is compressed
+    logarithmically; the fixed point (the answer) is unchanged.
+    """
+    if vnew > vcrit and abs(vnew - vold) > 2.0 * vt:
+        if vold > 0.0:
+            arg = 1.0 + (vnew - vold) / vt
+            if arg > 0.0:
+                return vold + vt * math.log(arg)
+            return vcrit
+        return vt * math.log(vnew / vt)
+    return vnew
+
+
+def vcrit(vte: float, isat: float) -> float:
+    """Critical voltage of a junction: vte*ln(vte/(sqrt(2)*IS)) (SPICE2)."""
+    return vte * math.log(vte / (math.sqrt(2.0) * isat))
+
+
+@dataclass
+class DeviceLayout:
+    """What a device contributes to the flat network.
+
+    ports : node pairs (pos, neg); the device senses v(pos)-v(neg) and draws
+        current from pos through itself into neg.
+    internal : internal node names created by the device.
+    stamps : linear stamps, tuples ("R", a, b, ohm) | ("C", a, b, F, method)
+        | ("G", p, n, cp, cn, siemens) with method "trap" or "be".
+    par : flat float64 parameter vector read by the compiled model.
+    probes : probe kind -> (port-current coefficients, port-voltage
+        coefficients), each a dict {port index: coefficient}.
+    """
+    code: int
+    ports: list[tuple[str, str]]
+    par: np.ndarray
+    internal: list[str] = field(default_factory=list)
+    stamps: list[tuple] = field(default_factory=list)
+    probes: dict[str, tuple[dict[int, float], dict[int, float]]] = field(default_factory=dict)
+
+
+def read_params(el, defaults: dict[str, float], *, positive=(), nonneg=(),
+                allowed_extra=("TYPE", "MODEL", "LEVEL")) -> dict[str, float]:
+    """Merge element params over defaults, validating names and values.
+
+    Unknown parameter names and out-of-range values raise DesignError naming
+    the part and where it was written.
+    """
+    out = dict(defaults)
+    where = el.where
+    f = getattr(where, "file", None) if where else None
+    ln = getattr(where, "line", None) if where else None
+    for key, val in (el.params or {}).items():
+        k = str(key).upper()
+        if k in allowed_extra:
+            continue
+        if k not in defaults:
+            raise DesignError(f"unknown model parameter {key!r} for a {el.kind} device",
+                              file=f, line=ln, part=el.name,
+                              hint="known: " + ", ".join(sorted(defaults)))
+        try:
+            v = float(val)
+        except (TypeError, ValueError):
+            raise DesignError(f"model parameter {k} must be a number, got {val!r}",
+                              file=f, line=ln, part=el.name) from None
+        if not math.isfinite(v) and not (math.isinf(v) and v > 0):
+            raise DesignError(f"model parameter {k} is not finite", file=f, line=ln,
+                              part=el.name)
+        out[k] = v
+    for k in positive:
+        if not out[k] > 0:
+            raise DesignError(f"model parameter {k} must be > 0, got {out[k]:g}",
+                              file=f, line=ln, part=el.name)
+    for k in nonneg:
+        if not out[k] >= 0:
+            raise DesignError(f"model parameter {k} must be >= 0, got {out[k]:g}",
+                              file=f, line=ln, part=el.name)
+    return out
+
+
+def polarity(el, names: tuple[str, str]) -> float:
+    """+1 for the first type name (NPN/NJF), -1 for the second (PNP/PJF)."""
+    t = str((el.params or {}).get("TYPE", names[0])).upper()
+    if t == names[0]:
+        return 1.0
+    if t == names[1]:
+        return -1.0
+    w = el.where
+    raise DesignError(f"TYPE must be {names[0]} or {names[1]}, got {t!r}",
+                      file=getattr(w, "file", None), line=getattr(w, "line", None),
+                      part=el.name)

@@ -1,0 +1,378 @@
+"""The compiled per-sample kernel: one numba function serves every circuit.
+
+Per sample (nodal DK-method; Yeh, Abel & Smith, IEEE TASLP 18(4), 2010;
+Holters & Zoelzer, EUSIPCO 2015):
+
+    p  = Dv x + Ev u                      linear part of the port voltages
+    solve  v = p + K i(v)                 Newton, warm-started, pnjlim
+    y  = Dy x + Ey u + Fy i + Vy v        output (row 0) and probes
+    x' = A x + B u + C i                  trapezoidal state update
+
+Devices are dispatched by integer type code over one flat parameter array,
+so no recompilation per design.  Newton failures fall back to continuation
+in p from the previous sample in sub-steps (4, then 16); if that fails too
+the previous port solution is kept and counted.  Output is never NaN.
+
+Everything here runs on the audio thread: no allocation, ``nogil=True``,
+``cache=True``.
+"""
+from __future__ import annotations
+
+import hashlib
+import math
+import os
+from pathlib import Path
+
+import numpy as np
+from numba import njit
+
+
+def _refresh_cache_stamp():
+    """numba's disk cache keys on this file only; when a device module
+    changes, touch this file so the cached kernel is recompiled."""
+    here = Path(__file__)
+    dev = here.parent.parent / "devices"
+    h = hashlib.sha1()
+    for f in sorted(dev.glob("*.py")):
+        h.update(f.read_bytes())
+    stamp = here.parent / "__pycache__" / "kernel.devices.sha1"
+    try:
+        stamp.parent.mkdir(exist_ok=True)
+        old = stamp.read_text() if stamp.exists() else ""
+        if old != h.hexdigest():
+            os.utime(here)
+            stamp.write_text(h.hexdigest())
+    except OSError:  # read-only install: the cache is what it is
+        pass
+
+
+_refresh_cache_stamp()
+
+from engine.devices import bjt, diode, jfet, opamp, ota  # noqa: E402
+
+# counter slots in the int64 array ``cnt``
+C_SAMPLES, C_NONCONV, C_FALLBACK, C_MAXIT, C_PHASE, C_INDEX, C_ITERS = range(7)
+N_COUNTERS = 8
+
+ABSTOL = 1e-9   # V, Newton step tolerance (plus RELTOL*|v|)
+RELTOL = 1e-7
+MAXIT = 30
+
+
+@njit(cache=True, nogil=True)
+def wave_value(kind, par, t):
+    """SPICE-style source waveform value at time t: 1 SIN, 2 PULSE, 3 PWL."""
+    if kind == 1:  # SIN(VO VA FREQ TD THETA PHASE)
+        vo, va, f, td, th, ph = par[0], par[1], par[2], par[3], par[4], par[5]
+        phr = ph * math.pi / 180.0
+        if t < td:
+            return vo + va * math.sin(phr)
+        tt = t - td
+        return vo + va * math.exp(-tt * th) * math.sin(2.0 * math.pi * f * tt + phr)
+    if kind == 2:  # PULSE(V1 V2 TD TR TF PW PER)
+        v1, v2, td, tr, tf, pw, per = par[0], par[1], par[2], par[3], par[4], par[5], par[6]
+        if t < td:
+            return v1
+        tt = t - td
+        if per > 0.0 and per < 1e300:
+            tt = tt - per * math.floor(tt / per)
+        if tt < tr:
+            return v1 + (v2 - v1) * tt / tr
+        tt -= tr
+        if tt < pw:
+            return v2
+        tt -= pw
+        if tt < tf:
+            return v2 + (v1 - v2) * tt / tf
+        return v1
+    if kind == 3:  # PWL(t0 v0 t1 v1 ...)
+        n = par.size // 2
+        if t <= par[0]:
+            return par[1]
+        for k in range(1, n):
+            t1 = par[2 * k]
+            if t <= t1:
+                t0 = par[2 * k - 2]
+                v0 = par[2 * k - 1]
+                v1 = par[2 * k + 1]
+                if t1 <= t0:
+                    return v1
+                return v0 + (v1 - v0) * (t - t0) / (t1 - t0)
+        return par[2 * n - 1]
+    return 0.0
+
+
+@njit(cache=True, nogil=True)
+def eval_devices(dcode, dpo, dpa, par, v, i, G):
+    """Port currents i(v) and Jacobian blocks G of all devices."""
+    for d in range(dcode.size):
+        c = dcode[d]
+        pp = par[dpa[d]:dpa[d + 1]]
+        po = dpo[d]
+        if c == 2:
+            bjt.evaluate(pp, v, po, i, G)
+        elif c == 1:
+            diode.evaluate(pp, v, po, i, G)
+        elif c == 3:
+            jfet.evaluate(pp, v, po, i, G)
+        elif c == 4:
+            ota.evaluate(pp, v, po, i, G)
+        elif c == 5:
+            opamp.evaluate(pp, v, po, i, G)
+
+
+@njit(cache=True, nogil=True)
+def limit_devices(dcode, dpo, dpa, par, vn, vo):
+    """Junction limiting of a Newton step vo -> vn, in place on vn."""
+    for d in range(dcode.size):
+        c = dcode[d]
+        pp = par[dpa[d]:dpa[d + 1]]
+        po = dpo[d]
+        if c == 2:
+            bjt.limit(pp, vn, vo, po)
+        elif c == 1:
+            diode.limit(pp, vn, vo, po)
+        elif c == 3:
+            jfet.limit(pp, vn, vo, po)
+        elif c == 4:
+            ota.limit(pp, vn, vo, po)
+        elif c == 5:
+            opamp.limit(pp, vn, vo, po)
+
+
+@njit(cache=True, nogil=True)
+def lu_solve(J, b, piv, n):
+    """Solve J z = b in place (b <- z) by Gaussian elimination with partial
+    pivoting; J is overwritten.  Returns False when J is singular."""
+    for k in range(n):
+        m = k
+        big = abs(J[k, k])
+        for r in range(k + 1, n):
+            a = abs(J[r, k])
+            if a > big:
+                big = a
+                m = r
+        if not big > 1e-300:
+            return False
+        if m != k:
+            for c in range(k, n):
+                tmp = J[k, c]
+                J[k, c] = J[m, c]
+                J[m, c] = tmp
+            tmp = b[k]
+            b[k] = b[m]
+            b[m] = tmp
+        inv = 1.0 / J[k, k]
+        for r in range(k + 1, n):
+            f = J[r, k] * inv
+            if f != 0.0:
+                for c in range(k + 1, n):
+                    J[r, c] -= f * J[k, c]
+                b[r] -= f * b[k]
+    for k in range(n - 1, -1, -1):
+        s = b[k]
+        for c in range(k + 1, n):
+            s -= J[k, c] * b[c]
+        b[k] = s / J[k, k]
+    return True
+
+
+@njit(cache=True, nogil=True)
+def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit):
+    """Solve v = p + K i(v) for v (in place, warm start = v on entry).
+
+    Returns the number of iterations, or -1 if not converged within maxit.
+    On success ``i`` holds the port currents at the returned v (first-order
+    corrected for the last step).
+    """
+    n = p.size
+    for it in range(maxit):
+        eval_devices(dcode, dpo, dpa, par, v, i, G)
+        for r in range(n):
+            s = v[r] - p[r]
+            for c in range(n):
+                s -= K[r, c] * i[c]
+            F[r] = -s
+            for c in range(n):
+                J[r, c] = 0.0
+            J[r, r] = 1.0
+        for d in range(dcode.size):
+            po = dpo[d]
+            m = dnp[d]
+            for r in range(n):
+                for a in range(m):
+                    kra = K[r, po + a]
+                    if kra != 0.0:
+                        for b in range(m):
+                            J[r, po + b] -= kra * G[po + a, po + b]
+        if not lu_solve(J, F, piv, n):
+            return -1
+        for r in range(n):
+            vn[r] = v[r] + F[r]
+        limit_devices(dcode, dpo, dpa, par, vn, v)
+        conv = True
+        for r in range(n):
+            d = vn[r] - v[r]
+            if not abs(d) <= ABSTOL + RELTOL * abs(vn[r]):
+                conv = False
+            F[r] = d
+            v[r] = vn[r]
+        if conv:
+            # first-order correction of the currents for the last step
+            for d in range(dcode.size):
+                po = dpo[d]
+                m = dnp[d]
+                for a in range(m):
+                    s = 0.0
+                    for b in range(m):
+                        s += G[po + a, po + b] * F[po + b]
+                    i[po + a] += s
+            return it + 1
+    return -1
+
+
+@njit(cache=True, nogil=True)
+def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv,
+                ptmp, cnt):
+    """Newton with bounded fallback; never leaves non-finite values in v, i."""
+    n = p.size
+    for r in range(n):
+        vprev[r] = v[r]
+    it = newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT)
+    if it > 0:
+        ok = True
+        for r in range(n):
+            if not (math.isfinite(v[r]) and math.isfinite(i[r])):
+                ok = False
+        if ok:
+            if it > cnt[C_MAXIT]:
+                cnt[C_MAXIT] = it
+            cnt[C_ITERS] += it
+            return True
+    # continuation in p from the previous sample, in 4 then 16 sub-steps
+    cnt[C_FALLBACK] += 1
+    for nsub in (4, 16):
+        for r in range(n):
+            v[r] = vprev[r]
+        good = True
+        for s in range(1, nsub + 1):
+            f = s / nsub
+            for r in range(n):
+                ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
+            it = newton(ptmp, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT)
+            if it < 0:
+                good = False
+                break
+            cnt[C_ITERS] += it
+        if good:
+            for r in range(n):
+                if not (math.isfinite(v[r]) and math.isfinite(i[r])):
+                    good = False
+        if good:
+            return True
+    cnt[C_NONCONV] += 1
+    for r in range(n):
+        v[r] = vprev[r]
+    eval_devices(dcode, dpo, dpa, par, v, i, G)
+    return False
+
+
+@njit(cache=True, nogil=True)
+def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
+              A, B, C, Dv, Ev, K, Dy, Ey, Fy, Vy,
+              dcode, dpo, dnp, dpa, par,
+              u, udc, skind, sptr, spar, inp, dt,
+              x, xp, v, i, pprev, ws, G, J, piv, yrow, cnt):
+    """Run ``nin`` samples of input ``xin`` through the model.
+
+    yout[k] receives output row 0; every ``pdec`` samples a probe frame (rows
+    1.. of y) is written into pbuf (if it has rows) at columns pstart, pstart+1
+    ... below ``pcap``.  ws is a (6, max(n_ports, n_states)) workspace.
+    Returns the number of probe frames written.
+    """
+    nx = x.size
+    nu = u.size
+    npt = v.size
+    ny = yrow.size
+    nprobe = pbuf.shape[0]
+    p = ws[0, :npt]
+    vprev = ws[1, :npt]
+    F = ws[2, :npt]
+    vn = ws[3, :npt]
+    ptmp = ws[4, :npt]
+    xt = ws[5, :nx]
+    frames = pstart
+    for k in range(nin):
+        t = cnt[C_INDEX] * dt
+        for s in range(nu):
+            kd = skind[s]
+            if kd == 0:
+                u[s] = udc[s]
+            else:
+                u[s] = wave_value(kd, spar[sptr[s]:sptr[s + 1]], t)
+        if inp >= 0:
+            u[inp] = udc[inp] + xin[k]
+        if npt > 0:
+            for r in range(npt):
+                s = 0.0
+                for c in range(nx):
+                    s += Dv[r, c] * x[c]
+                for c in range(nu):
+                    s += Ev[r, c] * u[c]
+                p[r] = s
+            solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn,
+                        piv, ptmp, cnt)
+            for r in range(npt):
+                pprev[r] = p[r]
+        for r in range(ny):
+            s = 0.0
+            for c in range(nx):
+                s += Dy[r, c] * x[c]
+            for c in range(nu):
+                s += Ey[r, c] * u[c]
+            for c in range(npt):
+                s += Fy[r, c] * i[c] + Vy[r, c] * v[c]
+            yrow[r] = s
+        y0 = yrow[0]
+        if not math.isfinite(y0):
+            y0 = 0.0
+            cnt[C_NONCONV] += 1
+        yout[k] = y0
+        if nprobe > 0:
+            if cnt[C_PHASE] == 0 and frames < pcap:
+                for r in range(nprobe):
+                    pbuf[r, frames] = yrow[r + 1]
+                frames += 1
+            cnt[C_PHASE] += 1
+            if cnt[C_PHASE] >= pdec:
+                cnt[C_PHASE] = 0
+        finite = True
+        for r in range(nx):
+            s = 0.0
+            for c in range(nx):
+                s += A[r, c] * x[c]
+            for c in range(nu):
+                s += B[r, c] * u[c]
+            for c in range(npt):
+                s += C[r, c] * i[c]
+            xt[r] = s
+            if not math.isfinite(s):
+                finite = False
+        if finite:
+            for r in range(nx):
+                xp[r] = x[r]
+                x[r] = xt[r]
+        cnt[C_INDEX] += 1
+        cnt[C_SAMPLES] += 1
+    return frames - pstart
+
+
+@njit(cache=True, nogil=True)
+def convert_states(x, xp, g_old, g_new, a, b):
+    """Carry reactive states over a value change (capacitor voltage and
+    current, inductor current and voltage stay as they were)."""
+    for k in range(x.size):
+        go = g_old[k]
+        r = (x[k] + b[k] * xp[k]) / (a[k] * go) if go != 0.0 else 0.0
+        x[k] = x[k] + (g_new[k] - go) * r
+        xp[k] = (a[k] * g_new[k] * r - x[k]) / b[k] if b[k] != 0.0 else x[k]

@@ -1,0 +1,346 @@
+"""Simulator: a flat circuit running sample by sample, with live part changes.
+
+Build once per topology; :meth:`Simulator.process_into` is the audio-thread
+entry (no allocation, compiled kernel, GIL released); everything else runs on
+other threads.  Value changes (:meth:`Simulator.set_values`) re-derive the
+model in the calling thread and hand it over at the next block boundary by a
+reference swap -- the audio thread takes no lock.
+"""
+from __future__ import annotations
+
+import re
+import threading
+
+import numpy as np
+
+from engine.circuit import Circuit, GROUND, canonical_net
+from engine.errors import DesignError
+from engine.solver import kernel as K
+from engine.solver.dcop import OperatingPoint, report, solve_dc
+from engine.solver.mna import VALUE_KINDS, Network, device_arrays, source_wave
+from engine.solver.statespace import Model, ProbeRow, derive
+
+_PROBE_RE = re.compile(r"^\s*([A-Za-z]+)\s*\(\s*([^,()\s]+)\s*(?:,\s*([^,()\s]+)\s*)?\)\s*$")
+_UNITS = {"v": "V", "i": "A", "ic": "A", "ib": "A", "ie": "A", "id": "A", "ig": "A",
+          "vbe": "V", "vce": "V", "vgs": "V", "vds": "V", "vd": "V", "iabc": "A",
+          "gm": "S", "iout": "A", "vabc": "V", "iclip": "A"}
+
+
+def _net_col(net: Network, name: str, probe: str) -> int:
+    n = canonical_net(name)
+    if n == GROUND:
+        return -1
+    if n not in net.net_index:
+        raise DesignError(f"probe {probe!r}: no net named {name!r}", part=probe,
+                          hint="use a net name of the circuit, e.g. v(out)")
+    return net.net_index[n]
+
+
+def make_probe(net: Network, text: str) -> ProbeRow:
+    """Parse a probe name (``v(net)``, ``v(a,b)``, ``i(R1)``, ``ic(Q1)`` ...)."""
+    m = _PROBE_RE.match(text)
+    if not m:
+        raise DesignError(f"cannot read probe {text!r}", part=text,
+                          hint="write e.g. v(out), v(a,b), i(R1), ic(Q1), gm(U1)")
+    q, a, b = m.group(1).lower(), m.group(2), m.group(3)
+    nw, nx, nu, npt = net.nw, net.nx, net.nu, net.np_
+    z = lambda k: np.zeros(k)  # noqa: E731
+    if q == "v":
+        ca = _net_col(net, a, text)
+        cb = _net_col(net, b, text) if b else -1
+
+        def build(values, g, ca=ca, cb=cb):
+            cw = z(nw)
+            if ca >= 0:
+                cw[ca] += 1.0
+            if cb >= 0:
+                cw[cb] -= 1.0
+            return cw, z(nx), z(nu), z(npt), z(npt)
+        return ProbeRow(text, "V", build)
+    if b is not None:
+        raise DesignError(f"probe {text!r} takes one name", part=text)
+    if q == "i":
+        el = net.elements.get(a)
+        if el is None or el.kind not in ("R", "C", "L", "V", "E", "I"):
+            raise DesignError(f"probe {text!r}: no R, C, L, V, E or I element named {a!r}",
+                              part=text, hint="device currents: ic(Q1), id(D1), iout(U1)")
+        if el.kind == "R":
+            na, nb = net._node(el.nodes[0]), net._node(el.nodes[1])
+
+            def build(values, g, na=na, nb=nb, name=a):
+                cw = z(nw)
+                if na >= 0:
+                    cw[na] += 1.0 / values[name]
+                if nb >= 0:
+                    cw[nb] -= 1.0 / values[name]
+                return cw, z(nx), z(nu), z(npt), z(npt)
+        elif el.kind == "C":
+            k = net.state_index[a]
+            st = net.states[k]
+
+            def build(values, g, k=k, st=st):
+                cw = z(nw)
+                if st.a >= 0:
+                    cw[st.a] += g[k]
+                if st.b >= 0:
+                    cw[st.b] -= g[k]
+                cx = z(nx)
+                cx[k] = -1.0
+                return cw, cx, z(nu), z(npt), z(npt)
+        elif el.kind == "I":
+            k = net.source_index[a]
+
+            def build(values, g, k=k):
+                cu = z(nu)
+                cu[k] = 1.0
+                return z(nw), z(nx), cu, z(npt), z(npt)
+        else:
+            j = net.branch_of[a]
+
+            def build(values, g, j=j):
+                cw = z(nw)
+                cw[j] = 1.0
+                return cw, z(nx), z(nu), z(npt), z(npt)
+        return ProbeRow(text, "A", build)
+    for el, mod, lay, po in net.devices:
+        if el.name == a:
+            if q not in lay.probes:
+                raise DesignError(f"probe {text!r}: a {el.kind} device has no quantity {q!r}",
+                                  part=text, hint="available: " + ", ".join(sorted(lay.probes)))
+            ci, cv = lay.probes[q]
+
+            def build(values, g, ci=ci, cv=cv, po=po):
+                vi, vv = z(npt), z(npt)
+                for k, c in ci.items():
+                    vi[po + k] = c
+                for k, c in cv.items():
+                    vv[po + k] = c
+                return z(nw), z(nx), z(nu), vi, vv
+            return ProbeRow(text, _UNITS.get(q, ""), build)
+    raise DesignError(f"probe {text!r}: no device named {a!r}", part=text,
+                      hint="probe a transistor, diode, JFET, OTA or op-amp by its name")
+
+
+class Simulator:
+    """Real-time simulation of a flat circuit.
+
+    Parameters
+    ----------
+    circuit : the flat circuit; ``circuit.input_source`` is driven by the
+        input samples (added to its DC value), ``circuit.output`` is read.
+    fs : outer sample rate, Hz.
+    oversample : 1, 2, 4 or 8 (polyphase resampling around the kernel).
+    probes : probe names, e.g. ``("v(out)", "ic(Q1)", "gm(U1)")``.
+    probe_decimate : one probe frame every this many outer samples.
+    block_max : largest block given to :meth:`process_into`.
+
+    The simulation starts at the DC operating point (no thump).
+    """
+
+    def __init__(self, circuit: Circuit, fs: float = 48000.0, oversample: int = 1,
+                 probes=(), probe_decimate: int = 1, block_max: int = 4096):
+        if not float(fs) > 0:
+            raise DesignError(f"sample rate {fs!r} must be positive", part="simulator")
+        if int(probe_decimate) < 1:
+            raise DesignError("probe_decimate must be >= 1", part="simulator")
+        self.net = net = Network(circuit)
+        self.circuit = circuit
+        self.fs = float(fs)
+        self.oversample = int(oversample)
+        self.block_max = int(block_max)
+        from engine.solver.oversample import Resampler
+        self._rs = Resampler(self.oversample, self.block_max, self.fs)
+        self.latency_samples = float(self._rs.latency)
+        self._T = 1.0 / (self.fs * self.oversample)
+        out_a, out_b = circuit.output
+        rows = [make_probe(net, f"v({out_a},{out_b})")]
+        rows += [make_probe(net, p) for p in probes]
+        self._rows = rows
+        self.probe_names = [r.name for r in rows[1:]]
+        self.probe_units = [r.unit for r in rows[1:]]
+        self._pdec = int(probe_decimate) * self.oversample
+        self._lock = threading.Lock()
+        self._values = dict(net.values)
+        self._arr = device_arrays(net)
+        skind, spars = [], []
+        for k, el in enumerate(net.sources):
+            kd, par = source_wave(el)
+            if k == net.input_index:
+                kd, par = 0, np.zeros(0)
+            skind.append(kd)
+            spars.append(par)
+        self._skind = np.array(skind, dtype=np.int64)
+        self._sptr = np.zeros(len(spars) + 1, dtype=np.int64)
+        self._sptr[1:] = np.cumsum([p.size for p in spars]) if spars else []
+        self._spar = np.ascontiguousarray(np.concatenate(spars) if spars else np.zeros(0))
+        self._model: Model = derive(net, self._values, self._T, rows)
+        self._next: Model = self._model
+        nx, npt, nu, ny = net.nx, net.np_, net.nu, len(rows)
+        self._x = np.zeros(nx)
+        self._xp = np.zeros(nx)
+        self._v = np.zeros(npt)
+        self._i = np.zeros(npt)
+        self._pprev = np.zeros(npt)
+        self._u = np.zeros(nu)
+        self._ws = np.zeros((6, max(npt, nx, 1)))
+        self._G = np.zeros((npt, npt))
+        self._J = np.zeros((npt, npt))
+        self._piv = np.zeros(npt, dtype=np.int64)
+        self._yrow = np.zeros(ny)
+        self._cnt = np.zeros(K.N_COUNTERS, dtype=np.int64)
+        self._nopb = np.zeros((0, 0))
+        self._xin_up = np.zeros(self.block_max * self.oversample)
+        self._y_up = np.zeros(self.block_max * self.oversample)
+        self._op: OperatingPoint | None = None
+        self._dc = None
+        self._dc_values = None
+        self.reset()
+
+    # ------------------------------------------------------------ state
+    def reset(self) -> None:
+        """Return to the DC operating point of the current values."""
+        m = self._next
+        net = self.net
+        if self._dc is None or self._dc_values != m.values:
+            saved = net.values
+            net.values = m.values
+            try:
+                self._dc = solve_dc(net, m.values, v0=None if self._dc is None else self._dc.v)
+            finally:
+                net.values = saved
+            self._dc_values = dict(m.values)
+            self._op = None
+        dc = self._dc
+        r = net.state_read_rows() @ dc.w
+        self._x[:] = m.g * r  # capacitor: Gc*v with zero current; inductor: RL*i
+        self._xp[:] = self._x
+        self._v[:] = dc.v
+        self._i[:] = dc.i
+        self._pprev[:] = m.Dv @ self._x + m.Ev @ m.udc
+        self._cnt[:] = 0
+        self._model = m
+        self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ dc.i + m.Vy[0] @ dc.v)
+        self._rs.reset()
+
+    def operating_point(self) -> OperatingPoint:
+        """DC operating point report for the current part values."""
+        m = self._next
+        if self._op is None or self._dc_values != m.values:
+            saved = self.net.values
+            self.net.values = m.values
+            try:
+                dc = solve_dc(self.net, m.values, v0=self._dc.v if self._dc else None)
+            finally:
+                self.net.values = saved
+            self._op = report(self.net, dc, m.values)
+            self._dc, self._dc_values = dc, dict(m.values)
+        return self._op
+
+    @property
+    def values(self) -> dict[str, float]:
+        """Current element values (SI), including pending live changes."""
+        return dict(self._values)
+
+    def set_values(self, changes: dict[str, float]) -> None:
+        """Change element values (R, C, L, V, I, E, G) live; thread-safe.
+
+        The new model is derived in the calling thread and picked up by the
+        audio thread at its next block boundary, with capacitor voltages and
+        currents and inductor currents carried over.
+        """
+        net = self.net
+        with self._lock:
+            new = dict(self._values)
+            for name, val in changes.items():
+                el = net.elements.get(name)
+                if el is None or el.kind not in VALUE_KINDS:
+                    raise DesignError(f"no R, C, L, V, I, E or G element named {name!r}",
+                                      part=name, hint="live changes take element values; "
+                                                      "a pot is '<pot>.a' and '<pot>.b'")
+                new[name] = net.check_value(el, val)
+            model = derive(net, new, self._T, self._rows)
+            self._values = new
+            self._next = model
+
+    # ------------------------------------------------------------ audio thread
+    def _swap(self):
+        m = self._next
+        if m is not self._model:
+            K.convert_states(self._x, self._xp, self._model.g, m.g, m.a, m.b)
+            self._model = m
+        return m
+
+    def process_into(self, x: np.ndarray, y: np.ndarray, probe_buf: np.ndarray | None = None,
+                     probe_start: int = 0) -> int:
+        """Process one block: x (input volts, float64) -> y (output volts).
+
+        Audio-thread safe: no array allocation, no locks; the kernel releases
+        the GIL.  ``len(x) <= block_max``.  probe_buf is float64
+        (n_probes, capacity) or None; frames go to columns probe_start ...
+        capacity-1; returns the number of probe frames written.
+        """
+        m = self._swap()
+        n = x.shape[0]
+        pb = self._nopb if probe_buf is None else probe_buf
+        pcap = pb.shape[1] if pb.shape[0] else 0
+        if self.oversample == 1:
+            return K.run_block(x, n, y, pb, probe_start, pcap, self._pdec, *self._args(m))
+        L = self.oversample
+        xu, yu = self._xin_up, self._y_up
+        self._rs.up_into(x, xu)
+        frames = K.run_block(xu, n * L, yu, pb, probe_start, pcap, self._pdec, *self._args(m))
+        yv = yu[:n * L]
+        yv -= self._ydc
+        self._rs.down_into(yv, y)
+        y[:n] += self._ydc
+        return frames
+
+    def _args(self, m: Model):
+        dcode, dpo, dnp, dpa, par = self._arr
+        return (m.A, m.B, m.C, m.Dv, m.Ev, m.K, m.Dy, m.Ey, m.Fy, m.Vy,
+                dcode, dpo, dnp, dpa, par,
+                self._u, m.udc, self._skind, self._sptr, self._spar, self.net.input_index,
+                self._T, self._x, self._xp, self._v, self._i, self._pprev, self._ws,
+                self._G, self._J, self._piv, self._yrow, self._cnt)
+
+    def process(self, x, probe_buf: np.ndarray | None = None) -> np.ndarray:
+        """Offline convenience: process any length of input; allocates y."""
+        x = np.ascontiguousarray(x, dtype=np.float64).ravel()
+        y = np.empty_like(x)
+        B = self.block_max
+        for s in range(0, x.shape[0], B):
+            e = min(x.shape[0], s + B)
+            self.process_into(x[s:e], y[s:e], None)
+        return y
+
+    def run(self, x, probe_capacity: int | None = None):
+        """Offline: process x and return (y, probes) with probes of shape
+        (n_probes, frames)."""
+        x = np.ascontiguousarray(x, dtype=np.float64).ravel()
+        cap = probe_capacity or (x.shape[0] // max(1, self._pdec // self.oversample) + 1)
+        pb = np.zeros((len(self.probe_names), cap))
+        y = np.empty_like(x)
+        B = self.block_max
+        frames = 0
+        for s in range(0, x.shape[0], B):
+            e = min(x.shape[0], s + B)
+            frames += self.process_into(x[s:e], y[s:e], pb, frames)
+        return y, pb[:, :frames]
+
+    @property
+    def stats(self) -> dict:
+        """Counters since the last reset: samples (kernel rate), nonconverged,
+        fallbacks, max_iterations, mean_iterations."""
+        c = self._cnt
+        s = int(c[K.C_SAMPLES])
+        return {"samples": s, "nonconverged": int(c[K.C_NONCONV]),
+                "fallbacks": int(c[K.C_FALLBACK]), "max_iterations": int(c[K.C_MAXIT]),
+                "mean_iterations": float(c[K.C_ITERS]) / s if s else 0.0}
+
+    @property
+    def n_ports(self) -> int:
+        return self.net.np_
+
+    @property
+    def n_states(self) -> int:
+        return self.net.nx

@@ -1,0 +1,109 @@
+"""Discrete nonlinear state-space model from the MNA system (nodal DK-method).
+
+With M = S^-1 [Bx Bu Bn] (S from :mod:`engine.solver.mna`), every linear
+quantity c^T w is a row c^T M over (x, u, i).  The model is
+
+    v  = Dv x + Ev u + K i          nonlinear port voltages
+    x' = A x + B u + C i            state update (trapezoidal / BE companions)
+    y  = Dy x + Ey u + Fy i + Vy v  output row 0, then probe rows
+
+(D. T. Yeh, J. S. Abel, J. O. Smith, "Automated physical modeling of
+nonlinear audio circuits for real-time audio effects -- Part I", IEEE TASLP
+18(4), 2010; M. Holters, U. Zoelzer, "A generalized method for the derivation
+of non-linear state-space models from circuit schematics", EUSIPCO 2015.)
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from engine.errors import SolveError
+from engine.solver.mna import Network
+
+
+@dataclass
+class ProbeRow:
+    """A linear probe: y = cw.w + cx.x + cu.u + ci.i + cv.v (values may
+    depend on element values, so rows are rebuilt by a callable)."""
+    name: str
+    unit: str
+    build: object  # callable(values, g) -> (cw, cx, cu, ci, cv)
+
+
+@dataclass
+class Model:
+    """All arrays the kernel needs for one set of element values."""
+    A: np.ndarray
+    B: np.ndarray
+    C: np.ndarray
+    Dv: np.ndarray
+    Ev: np.ndarray
+    K: np.ndarray
+    Dy: np.ndarray
+    Ey: np.ndarray
+    Fy: np.ndarray
+    Vy: np.ndarray
+    g: np.ndarray
+    a: np.ndarray
+    b: np.ndarray
+    udc: np.ndarray
+    values: dict
+
+
+def _c(a):
+    return np.ascontiguousarray(a, dtype=np.float64)
+
+
+def solve_mna(net: Network, S: np.ndarray, rhs: np.ndarray, what: str) -> np.ndarray:
+    """S^-1 rhs, raising SolveError (naming likely culprits) if S is singular."""
+    try:
+        if S.shape[0] == 0:
+            return np.zeros((0, rhs.shape[1]))
+        cond = np.linalg.cond(S)
+        if not np.isfinite(cond) or cond > 1e17:
+            raise np.linalg.LinAlgError
+        return np.linalg.solve(S, rhs)
+    except np.linalg.LinAlgError:
+        # find near-null directions: the rows/nets with most weight
+        _, sv, vt = np.linalg.svd(S)
+        vec = np.abs(vt[-1])
+        k = int(np.argmax(vec))
+        who = net.net_names[k] if k < net.nn else \
+            next((n for n, j in net.branch_of.items() if j == k), "?")
+        raise SolveError(f"the network matrix is singular ({what}); the problem is near "
+                         f"'{who}'", part=who,
+                         hint="look for a floating net, a loop of voltage sources, or a "
+                              "controlled source without a defined output") from None
+
+
+def derive(net: Network, values: dict[str, float], T: float,
+           probes: list[ProbeRow]) -> Model:
+    """Build the discrete model for element values and step T (seconds)."""
+    S = net.build_S(values, T)
+    Bx, Bu, Bn = net._bx, net._bu, net._bn
+    nx, nu = net.nx, net.nu
+    M = solve_mna(net, S, np.hstack([Bx, Bu, Bn]), "transient")
+    Mx, Mu, Mn = M[:, :nx], M[:, nx:nx + nu], M[:, nx + nu:]
+    P = net.port_rows()
+    R = net.state_read_rows()
+    g, a, b = net.state_g(values, T)
+    ag = (a * g)[:, None]
+    A = ag * (R @ Mx) - np.diag(b)
+    Bm = ag * (R @ Mu)
+    Cm = ag * (R @ Mn)
+    npt = net.np_
+    ny = len(probes)
+    Dy = np.zeros((ny, nx))
+    Ey = np.zeros((ny, nu))
+    Fy = np.zeros((ny, npt))
+    Vy = np.zeros((ny, npt))
+    for r, pr in enumerate(probes):
+        cw, cx, cu, ci, cv = pr.build(values, g)
+        Dy[r] = cw @ Mx + cx
+        Ey[r] = cw @ Mu + cu
+        Fy[r] = cw @ Mn + ci
+        Vy[r] = cv
+    udc = np.array([values[el.name] for el in net.sources], dtype=np.float64)
+    return Model(_c(A), _c(Bm), _c(Cm), _c(P @ Mx), _c(P @ Mu), _c(P @ Mn),
+                 _c(Dy), _c(Ey), _c(Fy), _c(Vy), _c(g), _c(a), _c(b), _c(udc), dict(values))
