@@ -559,8 +559,14 @@ class _Reader:
                 self.err(card, f"{what}: {exc}", "define it with .param or fix "
                          "the expression", part)
         try:
-            return parse_value(tok, spice=True, file=card.file, line=card.line,
-                               part=part)
+            v = parse_value(tok, spice=True, file=card.file, line=card.line,
+                            part=part)
+            if re.fullmatch(r"[+-]?\d+[a-zA-Z\u00b5]\d+", tok) and \
+                    not re.fullmatch(r"[+-]?\d+[eE]\d+", tok):
+                self.warn(f"{card.file}:{card.line}: {part or ''}: '{tok}' is read "
+                          f"as {v:g} (value marking); SPICE simulators stop at "
+                          "the letter and read less, so write it as e.g. 4.7k")
+            return v
         except ValueFormatError:
             params = scope_params(scope)
             if tok.lower() in params:
