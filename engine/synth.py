@@ -44,6 +44,7 @@ from __future__ import annotations
 import argparse
 import os
 import tempfile
+import zlib
 from dataclasses import dataclass
 from math import pi, sqrt
 
@@ -383,15 +384,15 @@ _E_FIFTH = (0, 2, 2, None, None, None)
 def _phrase_notes() -> list[Note]:
     return [Note(0.0, 3, 2, 0.3, 0.55), Note(0.5, 4, 0, 0.3, 0.55),
             Note(1.0, 4, 1, 0.35, 0.55), Note(1.5, 5, 0, 0.35, 0.9),
-            Note(2.4, 1, 2, 0.95, 0.45), Note(2.85, 2, 2, 0.95, 0.45),
-            Note(3.3, 3, 2, 1.0, 1.2)]
+            Note(2.4, 1, 2, 0.85, 0.45), Note(2.85, 2, 2, 0.85, 0.45),
+            Note(3.3, 3, 2, 0.9, 1.2)]
 
 
 def _phrase_chords() -> list[Note]:
     out: list[Note] = []
     for i, shape in enumerate((_E_MAJOR, _A_MAJOR, _G_MAJOR, _D_MAJOR)):
         t = 1.5 * i
-        out += _strum(t, shape, 0.95, 1.0, spread=0.010)
+        out += _strum(t, shape, 1.0, 1.0, spread=0.008)
         out += _strum(t + 1.0, shape, 0.6, 0.5, direction="up", spread=0.008)
     return out
 
@@ -408,12 +409,12 @@ def _phrase_mutes() -> list[Note]:
 
 def _phrase_demo() -> list[Note]:
     out = [Note(0.0, 3, 2, 0.3, 0.5), Note(0.45, 4, 0, 0.3, 0.5),
-           Note(0.9, 4, 3, 0.3, 0.6), Note(1.5, 2, 2, 0.95, 0.4),
-           Note(1.9, 2, 4, 0.95, 0.4), Note(2.3, 3, 2, 1.0, 0.6)]
+           Note(0.9, 4, 3, 0.3, 0.6), Note(1.5, 2, 2, 0.85, 0.4),
+           Note(1.9, 2, 4, 0.85, 0.4), Note(2.3, 3, 2, 0.9, 0.6)]
     out += _strum(3.0, _E_MAJOR, 0.9, 1.5, spread=0.014)
     for i in range(6):
         out += _strum(4.6 + 0.2 * i, _E_FIFTH, 0.85, 0.18, spread=0.006, mute=True)
-    out.append(Note(5.9, 1, 7, 0.9, 2.3))  # E3, left to ring out
+    out.append(Note(5.9, 1, 7, 0.85, 2.3))  # E3, left to ring out
     return out
 
 
@@ -430,10 +431,10 @@ _PHRASE_BUILDERS = {"demo": _phrase_demo, "notes": _phrase_notes,
 
 
 def render_notes(notes: list[Note], fs: float = 48000.0, pickup: str | Pickup = "single-coil",
-                 seed: int = 0, tail: float = 0.3) -> np.ndarray:
+                 seed: int = 0, tail: float = 0.3, stream: int = 0) -> np.ndarray:
     """Render ``notes`` to volts at the jack through ``pickup``.
 
-    Each note gets its own random stream from ``(seed, index)``; timing and
+    Each note gets its own random stream from ``(seed, stream, index)``; timing and
     velocity are jittered slightly (+/-2 ms, +/-5 %), so different seeds
     sound like different takes and the same seed gives the same samples.
     Strings ring in parallel; a string re-picked cuts its previous note.
@@ -443,7 +444,7 @@ def render_notes(notes: list[Note], fs: float = 48000.0, pickup: str | Pickup = 
     if not fs >= 8000.0:
         raise SolderlessError(f"sample rate {fs:g} Hz is too low", part="source",
                               hint="use 44100, 48000 or 96000")
-    jitter = np.random.default_rng([seed, 1_000_003])
+    jitter = np.random.default_rng([seed, stream, 1_000_003])
     end = max(n.time + n.duration for n in notes) + tail + 0.01
     mix = np.zeros(int(np.ceil(end * fs)))
     for i, n in enumerate(notes):
@@ -451,7 +452,7 @@ def render_notes(notes: list[Note], fs: float = 48000.0, pickup: str | Pickup = 
         vel = float(np.clip(n.velocity * jitter.uniform(0.95, 1.05), 0.01, 1.0))
         x = pluck(string_fret_hz(n.string, n.fret), fs, n.duration, velocity=vel,
                   mute=n.mute, direction=n.direction,
-                  seed=np.random.SeedSequence([seed, i]))
+                  seed=np.random.SeedSequence([seed, stream, i]))
         a = int(round(t0 * fs))
         b = min(mix.size, a + x.size)
         mix[a:b] += x[:b - a]
@@ -468,7 +469,9 @@ def render_phrase(name: str = "demo", fs: float = 48000.0, pickup: str = "single
     if name not in _PHRASE_BUILDERS:
         raise SolderlessError(f"unknown phrase {name!r}", part="source",
                               hint="choose one of: " + ", ".join(PHRASES))
-    return render_notes(_PHRASE_BUILDERS[name](), fs, pickup, seed)
+    # Each phrase draws from its own random streams (CRC-32 of its name).
+    return render_notes(_PHRASE_BUILDERS[name](), fs, pickup, seed,
+                        stream=zlib.crc32(name.encode()))
 
 
 # -------------------------------------------------------------------- files
