@@ -53,8 +53,8 @@ scale of an audio interface (common practice)."""
 LOUDNESS_GATE_POWER = 10 ** ((-70.0 + 0.691) / 10)   # -70 LKFS absolute gate
 MAX_MATCH_DB = 24.0
 MAX_BLOCK = 4096
-MAX_POT_STEP = 0.01
-"""Largest pot rotation change per block during a ramp (1 % of travel)."""
+MAX_POT_STEP = 0.005
+"""Largest pot rotation change per block during a ramp (0.5 % of travel)."""
 
 
 def full_scale_peak_from_dbu(dbu: float) -> float:
