@@ -218,7 +218,7 @@ def _validate(m: Model) -> None:
 
 
 def _line_of(text: str, name: str) -> int | None:
-    pat = re.compile(r"^\s*\[\s*[\"']?" + re.escape(name) + r"[\"']?\s*\]", re.M)
+    pat = re.compile(r"^[ \t]*\[[ \t]*[\"']?" + re.escape(name) + r"[\"']?[ \t]*\]", re.M)
     m = pat.search(text)
     return text.count("\n", 0, m.start()) + 1 if m else None
 
