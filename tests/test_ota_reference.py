@@ -78,6 +78,11 @@ def _ota_circuit(iabc: float, **params):
         Element("U1", "OTA", ("inp", "0", "out", "abc", "vee"),
                 params={"IS": IS_PAIR, **params}),
         Element("RL", "R", ("out", "0"), RL),
+        # 1 Tohm across the bias junction: ngspice's GMIN (1e-12 S). Without
+        # it the pin is joined only by a current source and a junction and the
+        # solver's linear network is singular (reported to the solver owner;
+        # tests/test_ngspice_dc.py::bjt_diffpair covers that case).
+        Element("RGMIN", "R", ("abc", "vee"), 1e12),
     ]
     return Circuit(els, input_source="VP", output=("out", "0"), title="OTA sweep")
 
