@@ -763,6 +763,13 @@ class _Flattener:
         validate_circuit(circ, self.file)
         return circ
 
+    def supply_span(self) -> float:
+        """The largest DC supply in the design (V): an OTA's output compliance
+        window is set inside it. 9 V when the design has no supply part."""
+        vals = [abs(p.value) for p in self.d.parts_global if p.type == "supply"]
+        vals += [abs(p.value) for st in self.d.stages for p in st.parts if p.type == "supply"]
+        return max(vals) if vals else 9.0
+
     def emit(self, p: Part, stage: str, uf: _UnionFind, add, lib):
         q = f"{stage}.{p.name}" if stage else p.name
         kind, _, _ = PART_TYPES[p.type]
@@ -797,7 +804,7 @@ class _Flattener:
                 raise DesignError(f"model '{p.model}' is a {mkind} model, but this part is "
                                   f"a {p.type}", file=w.file, line=w.line, part=q,
                                   hint=f"choose a {want} model")
-            params = dict(model.params)
+            params = dict(model.element_params(supply=self.supply_span()))
             params.update(p.params)
             if kind in ("Q", "J"):
                 params["TYPE"] = want
