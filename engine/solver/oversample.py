@@ -228,12 +228,20 @@ class Resampler:
         self._down_buf = np.zeros(n - 1 + self.block_max * L)
         self._up_hist = k_up - 1
         self._down_hist = n - 1
+        # Load (or compile) the kernels now, off the audio thread, for the
+        # float64 contiguous arrays the audio thread will pass.
+        probe = np.zeros(1)
+        self.up_into(probe, np.zeros(L))
+        self.down_into(np.zeros(L), probe)
+        self.reset()
 
     # ------------------------------------------------------------------ audio
     def up_into(self, x: np.ndarray, out: np.ndarray) -> None:
         """Upsample ``x`` (float64, ``len(x) <= block_max``) into ``out[:len(x)*factor]``.
 
         Audio-thread safe: no allocation, state carried to the next call.
+        Pass contiguous float64 arrays (the constructor has loaded the
+        kernel for exactly those; other dtypes would compile on first use).
         """
         n = x.shape[0]
         if n > self.block_max or out.shape[0] < n * self.factor:
