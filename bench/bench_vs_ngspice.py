@@ -67,9 +67,9 @@ def run_ours(name: str, fs: float, x: np.ndarray, repeat: int):
     try:
         from engine.solver import Simulator
         circ = S.engine_circuit(name)
-    except Exception as exc:                      # engine not built yet
+        warm = Simulator(circ, fs)
+    except Exception as exc:          # engine not built yet, or refuses the circuit
         return None, None, f"{type(exc).__name__}: {exc}"
-    warm = Simulator(circ, fs)
     warm.process(x[: min(len(x), 2048)].copy())   # compile / load the kernel cache
     best, y = np.inf, None
     for _ in range(repeat):
