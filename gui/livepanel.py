@@ -1,0 +1,389 @@
+"""The live panel: what goes in, what comes out, and what the circuit does.
+
+Controls: source, audio devices, start/stop, offline preview, output level,
+mute. Displays: bar meters for input and output level (dBFS), the gain
+cell's control current (µA) and gain reduction (dB); scrolling traces of gain
+reduction, control current and any probe over the last seconds; an
+input-versus-output scope; CPU load, xruns and latency.
+
+Two feeds fill the same displays: the live host's meter snapshots
+(:meth:`engine.live.host.LiveHost.meters`, polled by a timer) and an offline
+preview's per-block readings (:class:`gui.preview.PreviewResult`). The panel
+computes nothing; it draws what it is given.
+"""
+from __future__ import annotations
+
+import math
+from collections import deque
+
+import numpy as np
+from PyQt6.QtCore import QRectF, Qt, pyqtSignal
+from PyQt6.QtGui import QColor, QFont, QPainter, QPen
+from PyQt6.QtWidgets import (QComboBox, QGridLayout, QGroupBox, QHBoxLayout, QLabel,
+                             QPushButton, QSizePolicy, QSlider, QVBoxLayout, QWidget)
+
+from gui import theme
+from gui.preview import SOURCES
+
+TRACE_SECONDS = 5.0
+
+
+class BarMeter(QWidget):
+    """A vertical bar meter with a scale, a title and a numeric readout."""
+
+    def __init__(self, title: str, unit: str, lo: float, hi: float, ticks, colour: str,
+                 from_top: bool = False, parent=None):
+        super().__init__(parent)
+        self.title, self.unit, self.lo, self.hi = title, unit, lo, hi
+        self.ticks = ticks
+        self.colour = QColor(colour)
+        self.from_top = from_top
+        self.value: float | None = None
+        self.hold: float | None = None
+        self.setMinimumSize(70, 180)
+        self.setSizePolicy(QSizePolicy.Policy.Preferred, QSizePolicy.Policy.Expanding)
+
+    def set_value(self, v: float | None, hold: float | None = None) -> None:
+        self.value = None if v is None or not math.isfinite(v) else float(v)
+        self.hold = None if hold is None or not math.isfinite(hold) else float(hold)
+        self.update()
+
+    def _frac(self, v: float) -> float:
+        return min(max((v - self.lo) / (self.hi - self.lo), 0.0), 1.0)
+
+    def paintEvent(self, _e):
+        p = QPainter(self)
+        p.setRenderHint(QPainter.RenderHint.Antialiasing)
+        w, h = self.width(), self.height()
+        top, bot = 22, h - 24
+        bx, bw = 8, 16
+        p.setPen(QColor(theme.DIM))
+        f = QFont()
+        f.setPointSize(8)
+        p.setFont(f)
+        p.drawText(QRectF(0, 0, w, 18), Qt.AlignmentFlag.AlignCenter, self.title)
+        p.fillRect(QRectF(bx, top, bw, bot - top), QColor(theme.INSET))
+        p.setPen(QPen(QColor(theme.RULE), 1))
+        p.drawRect(QRectF(bx, top, bw, bot - top))
+        for t in self.ticks:
+            y = bot - self._frac(t) * (bot - top)
+            p.drawLine(int(bx + bw), int(y), int(bx + bw + 4), int(y))
+            p.drawText(QRectF(bx + bw + 6, y - 7, w - bx - bw - 6, 14),
+                       Qt.AlignmentFlag.AlignLeft | Qt.AlignmentFlag.AlignVCenter, f"{t:g}")
+        if self.value is not None:
+            fr = self._frac(self.value)
+            if self.from_top:
+                p.fillRect(QRectF(bx + 2, top + 1, bw - 4, (1 - fr) * (bot - top) - 1),
+                           self.colour)
+            else:
+                y = bot - fr * (bot - top)
+                p.fillRect(QRectF(bx + 2, y, bw - 4, bot - y - 1), self.colour)
+        if self.hold is not None:
+            y = bot - self._frac(self.hold) * (bot - top)
+            p.setPen(QPen(QColor(theme.TEXT), 2))
+            p.drawLine(int(bx + 1), int(y), int(bx + bw - 1), int(y))
+        p.setPen(QColor(theme.READ))
+        f2 = QFont(theme.MONO)
+        f2.setPointSize(9)
+        p.setFont(f2)
+        txt = "—" if self.value is None else f"{self.value:.1f}"
+        p.drawText(QRectF(0, bot + 3, w, 18), Qt.AlignmentFlag.AlignCenter,
+                   f"{txt} {self.unit}")
+        p.end()
+
+
+class Readout(QLabel):
+    def __init__(self, label: str):
+        super().__init__()
+        self.label = label
+        self.setProperty("role", "read")
+        self.set("—")
+
+    def set(self, text: str, bad: bool = False) -> None:
+        colour = theme.BAD if bad else theme.READ
+        self.setText(f"<span style='color:{theme.DIM}'>{self.label}</span> "
+                     f"<span style='color:{colour}'>{text}</span>")
+
+
+class LivePanel(QWidget):
+    """Controls, meters, traces and scope. Signals ask the window to act."""
+    preview_requested = pyqtSignal()
+    start_requested = pyqtSignal()
+    stop_requested = pyqtSignal()
+    level_changed = pyqtSignal(float)
+    mute_changed = pyqtSignal(bool)
+    source_changed = pyqtSignal(str)
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        import pyqtgraph as pg
+        self._pg = pg
+        outer = QVBoxLayout(self)
+        outer.setContentsMargins(4, 4, 4, 4)
+        # controls
+        ctl = QGroupBox("SIGNAL")
+        g = QGridLayout(ctl)
+        self.source = QComboBox()
+        for key, label in SOURCES.items():
+            self.source.addItem(label, key)
+        self.source.currentIndexChanged.connect(
+            lambda _i: self.source_changed.emit(self.source.currentData()))
+        self.dev_in = QComboBox()
+        self.dev_out = QComboBox()
+        self.dev_in.setToolTip("input device")
+        self.dev_out.setToolTip("output device")
+        self.preview_btn = QPushButton("Preview  F5")
+        self.preview_btn.setToolTip("render a few seconds offline (no audio device needed)")
+        self.run_btn = QPushButton("Play  F6")
+        self.run_btn.setCheckable(True)
+        self.mute_btn = QPushButton("Mute")
+        self.mute_btn.setCheckable(True)
+        self.level = QSlider(Qt.Orientation.Horizontal)
+        self.level.setRange(-400, 60)
+        self.level.setValue(-200)
+        self.level.setToolTip("output level, dB (playback starts low and ramps up)")
+        self.level_lab = QLabel()
+        self.level_lab.setProperty("role", "read")
+        self._level_text(-200)
+        g.addWidget(QLabel("source"), 0, 0)
+        g.addWidget(self.source, 0, 1, 1, 3)
+        g.addWidget(QLabel("in"), 1, 0)
+        g.addWidget(self.dev_in, 1, 1)
+        g.addWidget(QLabel("out"), 1, 2)
+        g.addWidget(self.dev_out, 1, 3)
+        g.addWidget(self.preview_btn, 2, 0, 1, 2)
+        g.addWidget(self.run_btn, 2, 2)
+        g.addWidget(self.mute_btn, 2, 3)
+        g.addWidget(QLabel("level"), 3, 0)
+        g.addWidget(self.level, 3, 1, 1, 2)
+        g.addWidget(self.level_lab, 3, 3)
+        self.preview_btn.clicked.connect(self.preview_requested)
+        self.run_btn.toggled.connect(lambda on: (self.start_requested if on
+                                                 else self.stop_requested).emit())
+        self.mute_btn.toggled.connect(self.mute_changed)
+        self.level.valueChanged.connect(self._level_moved)
+        # status readouts
+        st = QHBoxLayout()
+        self.cpu = Readout("CPU")
+        self.xruns = Readout("xruns")
+        self.latency = Readout("latency")
+        self.state = Readout("")
+        for w in (self.state, self.cpu, self.xruns, self.latency):
+            st.addWidget(w)
+        st.addStretch(1)
+        # meters
+        mbox = QGroupBox("METERS")
+        ml = QHBoxLayout(mbox)
+        self.m_in = BarMeter("input", "dBFS", -60, 0, (-60, -40, -20, -10, 0), theme.GOOD)
+        self.m_out = BarMeter("output", "dBFS", -60, 0, (-60, -40, -20, -10, 0), theme.GOOD)
+        self.m_ctl = BarMeter("control", "µA", 0, 100, (0, 25, 50, 75, 100), theme.READ)
+        self.m_gr = BarMeter("gain red.", "dB", -30, 0, (-30, -20, -10, -5, 0), theme.SET,
+                             from_top=True)
+        for m in (self.m_in, self.m_out, self.m_ctl, self.m_gr):
+            ml.addWidget(m)
+        # traces
+        tbox = QGroupBox("TRACES — LAST SECONDS")
+        tl = QVBoxLayout(tbox)
+        self.traces = pg.GraphicsLayoutWidget()
+        tl.addWidget(self.traces)
+        self.probe_pick = QComboBox()
+        self.probe_pick.setToolTip("probe shown in the third trace")
+        tl.addWidget(self.probe_pick)
+        self.plots = {}
+        self.curves = {}
+        for i, (key, unit, col) in enumerate((("gain reduction", "GR dB", theme.SET),
+                                              ("control current", "ctl µA", theme.READ),
+                                              ("probe", "probe", theme.TRACE_COLOURS[2]))):
+            pl = self.traces.addPlot(row=i, col=0)
+            pl.setLabel("left", unit, units=None)
+            pl.getAxis("left").setWidth(64)
+            pl.getAxis("left").enableAutoSIPrefix(False)
+            pl.showGrid(x=True, y=True, alpha=0.2)
+            pl.setMouseEnabled(x=False, y=False)
+            pl.setMenuEnabled(False)
+            pl.hideButtons()
+            if i < 2:
+                pl.getAxis("bottom").setStyle(showValues=False)
+            else:
+                pl.setLabel("bottom", "time", units="s")
+            self.plots[key] = pl
+            self.curves[key] = pl.plot(pen=pg.mkPen(col, width=1.6))
+        self.plots["control current"].setXLink(self.plots["gain reduction"])
+        self.plots["probe"].setXLink(self.plots["gain reduction"])
+        # scope
+        sbox = QGroupBox("SCOPE — OUT AGAINST IN")
+        sl = QVBoxLayout(sbox)
+        self.scope = pg.PlotWidget()
+        self.scope.setLabel("bottom", "input", units="V")
+        self.scope.setLabel("left", "output", units="V")
+        self.scope.showGrid(x=True, y=True, alpha=0.2)
+        self.scope.setMenuEnabled(False)
+        self.scope_curve = self.scope.plot(pen=pg.mkPen(theme.GOOD, width=1.2))
+        self.scope.setMinimumSize(200, 160)
+        sl.addWidget(self.scope)
+        # arrange
+        top = QHBoxLayout()
+        left = QVBoxLayout()
+        left.addWidget(ctl)
+        left.addWidget(mbox, 1)
+        top.addLayout(left, 0)
+        right = QVBoxLayout()
+        right.addWidget(tbox, 3)
+        right.addWidget(sbox, 2)
+        top.addLayout(right, 1)
+        outer.addLayout(top, 1)
+        outer.addLayout(st)
+        # history for the live feed
+        self.hist: dict[str, deque] = {}
+        self.hist_t: deque = deque(maxlen=4000)
+        self.last_preview = None
+        self.probe_pick.currentTextChanged.connect(lambda _t: self._redraw_probe())
+
+    def _level_text(self, v):
+        self.level_lab.setText(f"{v / 10:+.1f} dB")
+
+    def _level_moved(self, v):
+        self._level_text(v)
+        self.level_changed.emit(v / 10.0)
+
+    def set_devices(self, devices: list[dict] | None, problem: str = "") -> None:
+        self.dev_in.clear()
+        self.dev_out.clear()
+        if not devices:
+            self.dev_in.addItem(problem or "no audio device", None)
+            self.dev_out.addItem(problem or "no audio device", None)
+            self.run_btn.setEnabled(False)
+            self.run_btn.setToolTip("no audio device: use Preview (F5)")
+            return
+        self.dev_in.addItem("default", None)
+        self.dev_out.addItem("default", None)
+        for d in devices:
+            if d["inputs"]:
+                self.dev_in.addItem(d["name"], d["index"])
+            if d["outputs"]:
+                self.dev_out.addItem(d["name"], d["index"])
+
+    # ------------------------------------------------------------ feeds
+    def show_preview(self, r) -> None:
+        """Fill meters, traces and scope from an offline preview."""
+        self.last_preview = r
+        self.state.set(f"preview {r.t[-1] + r.block / r.fs:.1f} s")
+        s = r.series
+        m = r.meters
+        self.m_in.set_value(m["input"]["rms_dbfs"], m["input"]["peak_dbfs"])
+        self.m_out.set_value(m["output"]["rms_dbfs"], m["output"]["peak_dbfs"])
+        va = m.get("voices", {}).get("A", {})
+        self.m_ctl.set_value(va.get("control_ua"))
+        gr = va.get("gr_control_db")
+        if gr is None:
+            gr = va.get("gr_measured_db")
+        self.m_gr.set_value(None if gr is None else min(gr, 0.0))
+        self.curves["gain reduction"].setData(r.t, s["gain reduction"], connect="finite")
+        self.curves["control current"].setData(r.t, s["control current"], connect="finite")
+        self._fit("gain reduction", s["gain reduction"])
+        self._fit("control current", s["control current"])
+        self._scale_control(s["control current"])
+        probes = [k for k in s if k not in ("input level", "output level", "control current",
+                                            "gain reduction")]
+        keep = self.probe_pick.currentText()
+        self.probe_pick.blockSignals(True)
+        self.probe_pick.clear()
+        self.probe_pick.addItems(probes + ["input level", "output level"])
+        if keep in probes + ["input level", "output level"]:
+            self.probe_pick.setCurrentText(keep)
+        elif len(probes) > 1:
+            self.probe_pick.setCurrentIndex(1)
+        self.probe_pick.blockSignals(False)
+        self._redraw_probe()
+        self.scope_curve.setData(r.scope_in, r.scope_out)
+        self.cpu.set(f"{100 * m.get('cpu_load_mean', 0.0):.0f} % (offline)")
+        self.xruns.set("— offline")
+        self.latency.set("— offline")
+
+    def _redraw_probe(self) -> None:
+        r = self.last_preview
+        key = self.probe_pick.currentText()
+        if r is None or key not in r.series:
+            return
+        unit = r.units.get(key, "")
+        data = r.series[key]
+        if unit == "A":
+            data, unit = data * 1e6, "µA"
+        self.plots["probe"].setLabel("left", (key if len(key) <= 14 else key[:13] + "…"), units=None)
+        self.curves["probe"].setData(r.t, data, connect="finite")
+        self._fit("probe", data)
+
+    def _fit(self, key: str, data) -> None:
+        """Y range of a trace: gain reduction always shows at least 0 to -6 dB;
+        other traces at least 2 % around their level, so a flat line looks flat
+        rather than magnified noise."""
+        d = np.asarray(data, dtype=float)
+        d = d[np.isfinite(d)]
+        pl = self.plots[key]
+        if d.size == 0:
+            return
+        lo, hi = float(d.min()), float(d.max())
+        if key == "gain reduction":
+            pl.setYRange(min(lo, -6.0), max(hi, 0.0) + 0.5, padding=0.05)
+            return
+        span = max(hi - lo, 0.02 * max(abs(hi), abs(lo)), 1e-9)
+        mid = (hi + lo) / 2
+        pl.setYRange(mid - span / 2, mid + span / 2, padding=0.1)
+
+    def _scale_control(self, data) -> None:
+        d = np.asarray(data, dtype=float)
+        d = d[np.isfinite(d)]
+        top = float(d.max()) if d.size else 0.0
+        for scale in (10, 25, 50, 100, 250, 500, 1000, 2500, 5000):
+            if top <= scale:
+                break
+        m = self.m_ctl
+        m.hi = float(scale)
+        parts = 5 if scale in (25, 250, 2500) else 4
+        m.ticks = tuple(scale * k / parts for k in range(parts + 1))
+        m.update()
+
+    def show_live(self, snap: dict) -> None:
+        """Update from a live host meter snapshot (called by a GUI timer)."""
+        self.m_in.set_value(snap["input"]["rms_dbfs"], snap["input"]["peak_dbfs"])
+        self.m_out.set_value(snap["output"]["rms_dbfs"], snap["output"]["peak_dbfs"])
+        va = snap.get("voices", {}).get(snap.get("selected", "A"), {})
+        self.m_ctl.set_value(va.get("control_ua"))
+        gr = va.get("gr_control_db")
+        if gr is None:
+            gr = va.get("gr_measured_db")
+        self.m_gr.set_value(None if gr is None else min(gr, 0.0))
+        t = snap.get("blocks", 0)
+        self.hist_t.append(t)
+        for key, v in (("gain reduction", gr), ("control current", va.get("control_ua"))):
+            self.hist.setdefault(key, deque(maxlen=4000)).append(np.nan if v is None else v)
+        pk = self.probe_pick.currentText()
+        probes = va.get("probes", {})
+        if self.probe_pick.count() == 0 and probes:
+            self.probe_pick.addItems(list(probes))
+        self.hist.setdefault("probe", deque(maxlen=4000)).append(probes.get(pk, np.nan))
+        lat = snap.get("latency", {})
+        self.cpu.set(f"{100 * snap.get('cpu_load', 0):.0f} %  max "
+                     f"{100 * snap.get('cpu_load_max', 0):.0f} %",
+                     bad=snap.get("cpu_load", 0) > 0.8)
+        self.xruns.set(str(snap.get("xruns", 0)), bad=snap.get("xruns", 0) > 0)
+        self.latency.set(f"{1e3 * lat.get('total_s', 0):.1f} ms")
+        self.state.set("LIVE " + snap.get("selected", "") +
+                       (f"  muted: {snap['guard']}" if snap.get("guard") else ""),
+                       bad=bool(snap.get("guard")))
+
+    def redraw_live(self, fs: float, block: int) -> None:
+        """Redraw the scrolling traces from the live history (GUI timer)."""
+        if not self.hist_t:
+            return
+        t = np.asarray(self.hist_t, dtype=float) * block / fs
+        keep = t >= t[-1] - TRACE_SECONDS
+        for key in ("gain reduction", "control current", "probe"):
+            h = self.hist.get(key)
+            if h is not None and len(h) == len(t):
+                self.curves[key].setData(t[keep], np.asarray(h, dtype=float)[keep],
+                                         connect="finite")
+
+    def clear_live(self) -> None:
+        self.hist.clear()
+        self.hist_t.clear()

@@ -1,0 +1,259 @@
+"""The workbench's bridge to the engine for work that is not live audio:
+the offline preview (the live host run without a sound card), the operating
+point and the small-signal analyses. Everything here runs on one worker
+thread; results come back to the GUI thread through Qt signals. The
+numerics all live in the engine (:mod:`engine.live.host`, the solver); this
+module only orders calls and collects their results.
+"""
+from __future__ import annotations
+
+import math
+import traceback
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+import numpy as np
+from PyQt6.QtCore import QObject, pyqtSignal
+
+from engine.errors import SolderlessError
+
+PREVIEW_SECONDS = 3.0
+SCOPE_SECONDS = 0.25
+FS = 48000.0
+BLOCK = 128
+SOURCES = {
+    "synth:notes": "synthetic instrument: single notes",
+    "synth:chords": "synthetic instrument: strummed chords",
+    "synth:mutes": "synthetic instrument: palm-muted chugs",
+    "synth:demo": "synthetic instrument: demo phrase",
+    "tone:1000:0.1": "test tone 1 kHz, 100 mV peak",
+    "input": "live input",
+}
+
+
+def make_source(spec: str):
+    """An :mod:`engine.live.source` source for a source text (see
+    :func:`engine.live.source.parse_source`); ``input`` offline becomes silence."""
+    from engine.live.source import parse_source, Source
+    if spec == "input":
+        return Source()
+    return parse_source(spec)
+
+
+@dataclass
+class PreviewResult:
+    """What one offline preview produced, per meter block."""
+    fs: float
+    block: int
+    t: np.ndarray                                # block times, s
+    series: dict[str, np.ndarray]                # name -> per-block values
+    units: dict[str, str]
+    scope_in: np.ndarray                         # volts at the input jack (last part)
+    scope_out: np.ndarray                        # volts at the output jack
+    meters: dict                                 # live host's last meter snapshot
+    messages: list[str] = field(default_factory=list)
+
+
+@dataclass
+class OpReport:
+    """Operating point rows for a table: (group, name, quantity, value, unit)."""
+    rows: list[tuple[str, str, str, Any, str]]
+    warnings: list[str]
+    raw: Any = None
+
+
+@dataclass
+class ACResult:
+    f: np.ndarray
+    H: np.ndarray
+    zin: np.ndarray
+
+
+def _factory(factory):
+    if factory is not None:
+        return factory
+    from engine.live.host import default_simulator_factory
+    return default_simulator_factory
+
+
+def run_preview(design, source: str = "synth:notes", seconds: float = PREVIEW_SECONDS,
+                fs: float = FS, block: int = BLOCK, factory: Callable | None = None,
+                level_db: float = 0.0) -> PreviewResult:
+    """Play ``seconds`` of ``source`` through a copy of ``design`` with the
+    live host's offline path (:meth:`engine.live.host.LiveHost.run_offline`)
+    and collect its meter readings block by block."""
+    from engine.live.host import LiveHost
+    d = design.copy()
+    host = LiveHost(d, fs=fs, block=block, source=make_source(source), autosave=False,
+                    simulator_factory=factory, level_db=level_db)
+    try:
+        host.prepare()
+        nb = max(1, int(round(seconds * fs / block)))
+        keys = ["input level", "output level", "control current", "gain reduction"]
+        units = {"input level": "dBFS", "output level": "dBFS", "control current": "µA",
+                 "gain reduction": "dB"}
+        probe_names = list(host.voices[0].probes)
+        pu = dict(zip(probe_names, host.voices[0].probe_units or ("",) * len(probe_names)))
+        for p in probe_names:
+            units[p] = pu.get(p, "")
+        series = {k: np.full(nb, np.nan) for k in keys + probe_names}
+        t = np.arange(nb) * block / fs
+        ns = int(SCOPE_SECONDS * fs) // block * block
+        sc_in = np.zeros(max(ns, block))
+        sc_out = np.zeros(max(ns, block))
+        snap = {}
+        for b in range(nb):
+            host.run_offline(1)
+            snap = host.meters()
+            series["input level"][b] = snap["input"]["rms_dbfs"]
+            series["output level"][b] = snap["output"]["rms_dbfs"]
+            va = snap["voices"].get("A", {})
+            if va.get("control_ua") is not None:
+                series["control current"][b] = va["control_ua"]
+            if va.get("gr_control_db") is not None:
+                series["gain reduction"][b] = va["gr_control_db"]
+            elif va.get("gr_measured_db") is not None:
+                series["gain reduction"][b] = va["gr_measured_db"]
+            for p, v in va.get("probes", {}).items():
+                series[p][b] = v
+            if b * block >= nb * block - len(sc_in):
+                k = b * block - (nb * block - len(sc_in))
+                sc_in[k:k + block] = host.x[:block]
+                sc_out[k:k + block] = host.voices[0].y[:block]
+        msgs = []
+        while not host.messages.empty():
+            msgs.append(host.messages.get())
+        return PreviewResult(fs, block, t, series, units, sc_in, sc_out, snap, msgs)
+    finally:
+        host.close()
+
+
+def _unit_of(q: str) -> str:
+    q = q.lower()
+    if q.startswith("v") or q in ("vbe", "vce", "vgs", "vds"):
+        return "V"
+    if q.startswith("i"):
+        return "A"
+    if q.startswith("gm") or q.startswith("g"):
+        return "S"
+    if q.startswith("p"):
+        return "W"
+    return ""
+
+
+def operating_point(design, factory: Callable | None = None) -> OpReport:
+    """The DC operating point of ``design`` as table rows and warnings
+    (from the solver's ``operating_point()``)."""
+    circuit = design.flatten()
+    sim = _factory(factory)(circuit, FS, 1, [])
+    op = sim.operating_point()
+    if op is None:
+        return OpReport([], ["this simulator reports no operating point"])
+    rows: list[tuple[str, str, str, Any, str]] = []
+    nets = getattr(op, "nets", {}) or {}
+    for n, v in (nets.items() if isinstance(nets, dict) else nets):
+        rows.append(("net", str(n), "V", float(v), "V"))
+    devs = getattr(op, "devices", {}) or {}
+    for name, info in (devs.items() if isinstance(devs, dict) else enumerate(devs)):
+        if isinstance(info, dict):
+            for q, v in info.items():
+                if isinstance(v, (int, float, np.floating)):
+                    rows.append(("device", str(name), str(q), float(v), _unit_of(str(q))))
+                else:
+                    rows.append(("device", str(name), str(q), str(v), ""))
+        else:
+            rows.append(("device", str(name), "", str(info), ""))
+    warnings = [str(w) for w in (getattr(op, "warnings", []) or [])]
+    return OpReport(rows, warnings, op)
+
+
+def frequency_response(design, freqs: np.ndarray | None = None) -> ACResult:
+    """Small-signal response from the input jack to the output and the input
+    impedance, from the engine's AC analysis."""
+    if freqs is None:
+        freqs = np.geomspace(10.0, 40e3, 200)
+    fn = None
+    for mod, name in (("engine.solver", "ac_response"), ("engine.solver.ac", "ac_response"),
+                      ("engine.analysis", "ac_response"), ("engine.analysis.ac", "ac_response")):
+        try:
+            m = __import__(mod, fromlist=[name])
+            fn = getattr(m, name)
+            break
+        except (ImportError, AttributeError):
+            continue
+    if fn is None:
+        raise SolderlessError("the small-signal analysis is not available in this build")
+    f, H, zin = fn(design.flatten(), freqs)
+    return ACResult(np.asarray(f), np.asarray(H), np.asarray(zin))
+
+
+class Analyser(QObject):
+    """Runs previews and analyses on one worker thread; drops stale results.
+
+    Signals carry ``(generation, result)``; ``failed`` carries
+    ``(what, message)`` with a user-readable message.
+    """
+    preview_ready = pyqtSignal(int, object)
+    op_ready = pyqtSignal(int, object)
+    ac_ready = pyqtSignal(int, object)
+    failed = pyqtSignal(str, str)
+    busy_changed = pyqtSignal(bool)
+
+    def __init__(self, factory: Callable | None = None):
+        super().__init__()
+        self.factory = factory
+        self.pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="solderless-analysis")
+        self.generation = 0
+        self.pending = 0
+        self.source = "synth:notes"
+        self.seconds = PREVIEW_SECONDS
+
+    def request(self, design, *, preview: bool = True, op: bool = True, ac: bool = True) -> int:
+        """Queue work on a copy of ``design``; returns the generation number."""
+        self.generation += 1
+        g = self.generation
+        d = design.copy()
+        self.pending += 1
+        self.busy_changed.emit(True)
+        self.pool.submit(self._job, g, d, preview, op, ac, self.source, self.seconds)
+        return g
+
+    def _job(self, g, d, preview, op, ac, source, seconds):
+        try:
+            if g != self.generation:
+                return
+            if op:
+                self._run("operating point", lambda: operating_point(d, self.factory),
+                          self.op_ready, g)
+            if ac and g == self.generation:
+                self._run("frequency response", lambda: frequency_response(d),
+                          self.ac_ready, g)
+            if preview and g == self.generation:
+                self._run("preview", lambda: run_preview(d, source, seconds,
+                                                         factory=self.factory),
+                          self.preview_ready, g)
+        finally:
+            self.pending -= 1
+            if self.pending == 0:
+                self.busy_changed.emit(False)
+
+    def _run(self, what, fn, signal, g):
+        try:
+            r = fn()
+        except SolderlessError as exc:
+            self.failed.emit(what, str(exc))
+            return
+        except ImportError as exc:
+            self.failed.emit(what, f"not available in this build ({exc})")
+            return
+        except Exception as exc:  # an engine bug: report, do not crash the window
+            tb = traceback.format_exc(limit=3)
+            self.failed.emit(what, f"internal error ({type(exc).__name__}: {exc}); "
+                             f"please report it. {tb.splitlines()[-1]}")
+            return
+        signal.emit(g, r)
+
+    def shutdown(self) -> None:
+        self.generation += 1
+        self.pool.shutdown(wait=True, cancel_futures=True)

@@ -1,0 +1,700 @@
+"""The workbench window: the chain across the top, the selected stage's
+parts on the left, and on the right the live panel, the look inside
+(operating point, small-signal plots) and the comparison of kept versions.
+
+The window wires widgets to the :class:`gui.model.Workbench` (edits, undo),
+the :class:`gui.preview.Analyser` (offline preview and analyses on a worker
+thread) and, when playing, an :class:`engine.live.host.LiveHost`.
+"""
+from __future__ import annotations
+
+import os
+from pathlib import Path
+from typing import Callable
+
+from PyQt6.QtCore import QEventLoop, Qt, QTimer
+from PyQt6.QtGui import QAction, QKeySequence
+from PyQt6.QtWidgets import (QFileDialog, QFrame, QHBoxLayout, QInputDialog, QLabel,
+                             QMainWindow, QMenu, QMessageBox, QPushButton, QSplitter,
+                             QTabWidget, QToolBar, QVBoxLayout, QWidget)
+
+from engine.design import builtin_designs, load_design, stage_library
+from engine.errors import SolderlessError
+from gui import theme
+from gui.chain import ChainView
+from gui.inspect import InspectPanel
+from gui.livepanel import LivePanel
+from gui.model import Autosave, Settings, Workbench, config_dir
+from gui.parts import PartsPanel
+from gui.preview import Analyser, make_source
+from gui.snapshots import CURRENT, SnapshotPanel
+
+AUTOSAVE_MS = 15000
+REFRESH_DEBOUNCE_MS = 300
+METER_MS = 33          # about 30 frames per second
+CAUTION_TEXT = ("Listening levels: a circuit can oscillate or jump in level. Start with "
+                "the monitor volume low and raise it slowly; output passes a safety "
+                "limiter, but protect your hearing and your speakers. Long sessions: "
+                "keep the average level moderate (WHO–ITU H.870 suggests 80 dBA for "
+                "40 hours a week).")
+NETLIST_FILTER = "SPICE netlists (*.cir *.sp *.spice *.net *.ckt *.txt)"
+DESIGN_FILTER = "Solderless designs (*.toml)"
+
+
+class NoticeBar(QFrame):
+    """A strip of dismissable notices at the top of the window."""
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.lay = QVBoxLayout(self)
+        self.lay.setContentsMargins(6, 2, 6, 2)
+        self.lay.setSpacing(2)
+        self.notices: list[QFrame] = []
+
+    def add(self, text: str, kind: str = "info", buttons=()) -> QFrame:
+        colour = {"info": theme.READ, "warn": theme.WARN, "bad": theme.BAD}[kind]
+        box = QFrame()
+        box.setStyleSheet(f"QFrame {{ background: #23282e; border-left: 4px solid {colour};"
+                          f" border-radius: 3px; }}")
+        row = QHBoxLayout(box)
+        row.setContentsMargins(8, 4, 4, 4)
+        lab = QLabel(text)
+        lab.setWordWrap(True)
+        lab.setStyleSheet(f"color: {theme.TEXT}; border: 0px;")
+        row.addWidget(lab, 1)
+        for label, fn in buttons:
+            b = QPushButton(label)
+            b.clicked.connect(fn)
+            b.clicked.connect(lambda _c=False, bx=box: self.remove(bx))
+            row.addWidget(b)
+        close = QPushButton("✕")
+        close.setFixedWidth(28)
+        close.setToolTip("dismiss")
+        close.clicked.connect(lambda _c=False, bx=box: self.remove(bx))
+        row.addWidget(close)
+        box.text = text
+        self.lay.addWidget(box)
+        self.notices.append(box)
+        return box
+
+    def remove(self, box) -> None:
+        if box in self.notices:
+            self.notices.remove(box)
+            box.setParent(None)
+            box.deleteLater()
+
+    def texts(self) -> list[str]:
+        return [b.text for b in self.notices]
+
+
+class MainWindow(QMainWindow):
+    """The workbench. ``ask`` may be replaced (tests) by a function
+    ``ask(question) -> 'save' | 'discard' | 'cancel'``."""
+
+    def __init__(self, design=None, *, config: Path | None = None, recover: str = "ask",
+                 factory: Callable | None = None, source: str = "synth:notes",
+                 seconds: float = 3.0):
+        super().__init__()
+        self.config = Path(config) if config else config_dir()
+        self.settings = Settings(self.config)
+        self.autosave = Autosave(self.config)
+        self.factory = factory
+        self.wb = Workbench()
+        self.analyser = Analyser(factory)
+        self.analyser.source = source
+        self.analyser.seconds = seconds
+        self.host = None
+        self.ask: Callable[[str], str] | None = None
+        self.last_preview = None
+        self.last_op = None
+        self.last_ac = None
+        self.problems: list[tuple[str, str]] = []
+        self.setWindowTitle("Solderless workbench")
+        self.resize(1480, 940)
+        self._build()
+        self._actions()
+        self._wire()
+        if self.settings.problem:
+            self.notices.add(self.settings.problem, "warn")
+        if design is not None:
+            self.set_design(design)
+        self._check_autosaves(recover)
+        self._caution()
+        self.autosave_timer = QTimer(self)
+        self.autosave_timer.timeout.connect(self.autosave_now)
+        self.autosave_timer.start(AUTOSAVE_MS)
+
+    # ------------------------------------------------------------ layout
+    def _build(self) -> None:
+        central = QWidget()
+        v = QVBoxLayout(central)
+        v.setContentsMargins(6, 4, 6, 4)
+        v.setSpacing(4)
+        self.notices = NoticeBar()
+        v.addWidget(self.notices)
+        head = QHBoxLayout()
+        self.title = QLabel()
+        self.title.setStyleSheet(f"color: {theme.TEXT}; font-size: 15pt; font-weight: bold;"
+                                 " letter-spacing: 1px;")
+        self.file_lab = QLabel()
+        self.file_lab.setProperty("role", "dim")
+        self.busy = QLabel()
+        self.busy.setProperty("role", "read")
+        head.addWidget(self.title)
+        head.addWidget(self.file_lab, 1)
+        head.addWidget(self.busy)
+        v.addLayout(head)
+        self.chain_bar = QToolBar()
+        v.addWidget(self.chain_bar)
+        self.chain = ChainView(self.wb, self.say)
+        split = QSplitter(Qt.Orientation.Vertical)
+        split.addWidget(self.chain)
+        lower = QSplitter(Qt.Orientation.Horizontal)
+        self.parts = PartsPanel(self.wb, self.say)
+        self.parts.setMinimumWidth(440)
+        lower.addWidget(self.parts)
+        self.tabs = QTabWidget()
+        self.live = LivePanel()
+        self.inspect = InspectPanel()
+        self.compare = SnapshotPanel(self.wb, self.say)
+        self.tabs.addTab(self.live, "Live")
+        self.tabs.addTab(self.inspect, "Inside")
+        self.tabs.addTab(self.compare, "Compare")
+        lower.addWidget(self.tabs)
+        lower.setSizes([500, 960])
+        split.addWidget(lower)
+        split.setSizes([200, 720])
+        v.addWidget(split, 1)
+        self.setCentralWidget(central)
+        self.statusBar().showMessage("ready")
+        self._devices()
+
+    def _devices(self) -> None:
+        try:
+            from engine.live.stream import list_devices
+            devs = list_devices()
+            self.live.set_devices(devs)
+        except (SolderlessError, ImportError, OSError) as exc:
+            self.live.set_devices(None, "no audio device")
+            self.live.run_btn.setToolTip(f"no audio device ({exc}); use Preview (F5)")
+
+    def _act(self, menu, text, fn, keys=None, tip=None) -> QAction:
+        a = QAction(text, self)
+        if keys:
+            a.setShortcuts([QKeySequence(k) for k in (keys if isinstance(keys, list) else [keys])])
+        if tip:
+            a.setStatusTip(tip)
+            a.setToolTip(tip)
+        a.triggered.connect(lambda _c=False: fn())
+        menu.addAction(a)
+        self.addAction(a)
+        return a
+
+    def _actions(self) -> None:
+        mb = self.menuBar()
+        f = mb.addMenu("&File")
+        self._act(f, "Open design…", self.open_dialog, "Ctrl+O")
+        self.builtin_menu = f.addMenu("Open built-in design")
+        for name in builtin_designs():
+            a = self.builtin_menu.addAction(name)
+            a.triggered.connect(lambda _c=False, n=name: self.open_path(n))
+        self.recent_menu = f.addMenu("Recent")
+        self.recent_menu.aboutToShow.connect(self._fill_recent)
+        self._act(f, "Import netlist as design…", self.import_design_dialog, "Ctrl+Shift+I")
+        self._act(f, "Import netlist as stage…", self.import_stage_dialog, "Ctrl+I")
+        f.addSeparator()
+        self._act(f, "Save", self.save, "Ctrl+S")
+        self._act(f, "Save as…", self.save_as_dialog, "Ctrl+Shift+S")
+        f.addSeparator()
+        self._act(f, "Quit", self.close, "Ctrl+Q")
+        e = mb.addMenu("&Edit")
+        self.undo_act = self._act(e, "Undo", self.wb.undo, "Ctrl+Z")
+        self.redo_act = self._act(e, "Redo", self.wb.redo, ["Ctrl+Shift+Z", "Ctrl+Y"])
+        s = mb.addMenu("&Stage")
+        self.add_menu = QMenu("Add from library", self)
+        groups: dict[str, QMenu] = {}
+        for name in stage_library():
+            g, _, leaf = name.partition("/")
+            if g not in groups:
+                groups[g] = self.add_menu.addMenu(g)
+            a = groups[g].addAction(leaf)
+            a.triggered.connect(lambda _c=False, n=name: self.add_stage(n))
+        s.addMenu(self.add_menu)
+        self.remove_act = self._act(s, "Remove stage", self.remove_stage, "Ctrl+Del")
+        self.dup_act = self._act(s, "Duplicate stage", self.duplicate_stage, "Ctrl+D")
+        self.left_act = self._act(s, "Move stage earlier", lambda: self.move_stage(-1),
+                                  "Alt+Left")
+        self.right_act = self._act(s, "Move stage later", lambda: self.move_stage(+1),
+                                   "Alt+Right")
+        self.bypass_act = self._act(s, "Bypass / engage stage", self.toggle_bypass, "Ctrl+B")
+        self.link_act = self._act(s, "Link ports…", self.link_dialog, "Ctrl+L",
+                                  "join a port of one stage to a port of another "
+                                  "(or drag between ports in the chain)")
+        self._act(s, "Previous stage", lambda: self.chain.select_offset(-1), "Ctrl+PgUp")
+        self._act(s, "Next stage", lambda: self.chain.select_offset(+1), "Ctrl+PgDown")
+        self._act(s, "Design parts (supplies)", lambda: self.parts.show_stage(None), "Ctrl+0")
+        p = mb.addMenu("&Play")
+        self._act(p, "Offline preview", self.preview, "F5")
+        self._act(p, "Start / stop live", lambda: self.live.run_btn.toggle(), "F6")
+        self._act(p, "Mute", lambda: self.live.mute_btn.toggle(), "Ctrl+M")
+        self._act(p, "Hear A", lambda: self.hear("A"), "Ctrl+1")
+        self._act(p, "Hear B", lambda: self.hear("B"), "Ctrl+2")
+        self._act(p, "Keep current as snapshot", self.compare.keep_current, "Ctrl+K")
+        vw = mb.addMenu("&View")
+        for i, name in enumerate(("Live", "Inside", "Compare")):
+            self._act(vw, name, lambda i=i: self.tabs.setCurrentIndex(i), f"Alt+{i + 1}")
+        self._act(vw, "Focus chain", lambda: self.chain.setFocus(), "Ctrl+E")
+        self._act(vw, "Focus parts", self._focus_parts, "Ctrl+P")
+        h = mb.addMenu("&Help")
+        self._act(h, "Keys", self.show_keys, "F1")
+        # chain toolbar
+        tb = self.chain_bar
+        add_btn = QPushButton("+ Add stage")
+        add_btn.setMenu(self.add_menu)
+        tb.addWidget(add_btn)
+        for a, label in ((self.remove_act, "Remove"), (self.dup_act, "Duplicate"),
+                         (self.left_act, "◂ Earlier"), (self.right_act, "Later ▸"),
+                         (self.bypass_act, "Bypass"), (self.link_act, "Link…")):
+            b = QPushButton(label)
+            b.setToolTip(f"{a.text()} ({a.shortcut().toString()})")
+            b.clicked.connect(a.trigger)
+            tb.addWidget(b)
+        b = QPushButton("Import stage…")
+        b.clicked.connect(self.import_stage_dialog)
+        tb.addWidget(b)
+        tb.addSeparator()
+        self.undo_btn = QPushButton("↶ Undo")
+        self.redo_btn = QPushButton("↷ Redo")
+        self.undo_btn.clicked.connect(self.wb.undo)
+        self.redo_btn.clicked.connect(self.wb.redo)
+        tb.addWidget(self.undo_btn)
+        tb.addWidget(self.redo_btn)
+
+    def _focus_parts(self) -> None:
+        for row in self.parts.rows.values():
+            w = getattr(row, "edit", None) or getattr(row, "dial", None)
+            if w is not None:
+                w.setFocus()
+                return
+
+    def _wire(self) -> None:
+        self.chain.stage_selected.connect(self.parts.show_stage)
+        self.wb.history_changed.connect(self._history)
+        self.wb.values_changed.connect(self._values_changed)
+        self.wb.structure_changed.connect(self._structure_changed)
+        self.wb.design_replaced.connect(self._replaced)
+        self.refresh_timer = QTimer(self)
+        self.refresh_timer.setSingleShot(True)
+        self.refresh_timer.timeout.connect(self.refresh_analysis)
+        self.analyser.preview_ready.connect(self._preview_ready)
+        self.analyser.op_ready.connect(self._op_ready)
+        self.analyser.ac_ready.connect(self._ac_ready)
+        self.analyser.failed.connect(self._failed)
+        self.analyser.busy_changed.connect(
+            lambda b: self.busy.setText("working…" if b else ""))
+        self.live.preview_requested.connect(self.preview)
+        self.live.start_requested.connect(self.start_live)
+        self.live.stop_requested.connect(self.stop_live)
+        self.live.level_changed.connect(self._level)
+        self.live.mute_changed.connect(self._mute)
+        self.live.source_changed.connect(self._source)
+        self.compare.ab_requested.connect(self.start_ab)
+        self.compare.hear.connect(self.hear)
+        self.compare.recall.connect(self._recall)
+        self.meter_timer = QTimer(self)
+        self.meter_timer.timeout.connect(self._poll_meters)
+
+    # ------------------------------------------------------------ messages
+    def say(self, text: str) -> None:
+        """Show a message in the status line (user mistakes land here)."""
+        self.statusBar().showMessage(text, 15000)
+
+    def _failed(self, what: str, msg: str) -> None:
+        self.problems.append((what, msg))
+        if what in ("operating point", "frequency response"):
+            self.inspect.show_problem(what, msg)
+        else:
+            self.live.state.set(f"{what}: {msg}"[:120], bad=True)
+        self.say(f"{what}: {msg}")
+
+    def show_keys(self) -> None:
+        lines = []
+        for a in self.actions():
+            if a.shortcut().toString():
+                lines.append(f"{a.shortcut().toString():<16} {a.text()}")
+        lines.append("Up/Down              step a value through its E-series")
+        lines.append("Shift+Up/Down        nudge a value by 1 %")
+        lines.append("arrows on a pot      turn it 1 % (PgUp/PgDn 10 %)")
+        lines.append("Left/Right in chain  select the previous / next stage")
+        QMessageBox.information(self, "Keys", "\n".join(lines))
+
+    def _caution(self) -> None:
+        if not self.settings.data.get("caution_shown"):
+            self.notices.add(CAUTION_TEXT, "warn")
+            self.settings.data["caution_shown"] = True
+            self.settings.save()
+
+    # ------------------------------------------------------------ design
+    def set_design(self, d) -> None:
+        self.stop_live()
+        self.wb.set_design(d)
+        self.chain.select(d.stages[0].name if d.stages else None)
+        self._history()
+        self.refresh_analysis()
+
+    def _replaced(self) -> None:
+        d = self.wb.design
+        self.title.setText(d.name)
+        self.file_lab.setText(f"  {d.path}" if d.path else "  (not saved)")
+        if self.chain.selected:
+            self.parts.stage = self.chain.selected
+        self.schedule_refresh()
+
+    def _history(self) -> None:
+        self.undo_act.setEnabled(self.wb.can_undo())
+        self.redo_act.setEnabled(self.wb.can_redo())
+        self.undo_btn.setEnabled(self.wb.can_undo())
+        self.redo_btn.setEnabled(self.wb.can_redo())
+        self.undo_btn.setToolTip(f"Undo {self.wb.undo_text()} (Ctrl+Z)")
+        self.redo_btn.setToolTip(f"Redo {self.wb.redo_text()} (Ctrl+Shift+Z)")
+        d = self.wb.design
+        self.title.setText(d.name + ("  •" if self.wb.dirty else ""))
+        self.setWindowTitle(f"{d.name}{' *' if self.wb.dirty else ''} — Solderless workbench")
+
+    def schedule_refresh(self) -> None:
+        self.refresh_timer.start(REFRESH_DEBOUNCE_MS)
+
+    def refresh_analysis(self) -> int:
+        """Recompute the operating point, the small-signal plots and (when not
+        playing live) the offline preview, on the worker thread."""
+        self.refresh_timer.stop()
+        if not self.wb.design.stages:
+            return 0
+        return self.analyser.request(self.wb.design, preview=self.host is None)
+
+    def preview(self) -> int:
+        return self.analyser.request(self.wb.design, op=False, ac=False, preview=True)
+
+    def _preview_ready(self, g, r) -> None:
+        self.last_preview = r
+        self.live.show_preview(r)
+        for m in r.messages:
+            self.say(m)
+
+    def _op_ready(self, g, rep) -> None:
+        self.last_op = rep
+        self.inspect.show_op(rep)
+
+    def _ac_ready(self, g, r) -> None:
+        self.last_ac = r
+        self.inspect.show_ac(r)
+
+    def wait_idle(self, timeout_s: float = 120.0) -> bool:
+        """Process events until the analyser has nothing queued (tests,
+        screenshots)."""
+        import time
+        t_end = time.monotonic() + timeout_s
+        loop = QEventLoop()
+        while time.monotonic() < t_end:
+            loop.processEvents(QEventLoop.ProcessEventsFlag.AllEvents, 50)
+            if self.analyser.pending == 0 and not self.refresh_timer.isActive():
+                loop.processEvents(QEventLoop.ProcessEventsFlag.AllEvents, 50)
+                return True
+            time.sleep(0.01)
+        return False
+
+    # ------------------------------------------------------------ edits -> sound
+    def _values_changed(self, changes: dict) -> None:
+        h = self.host
+        if h is not None:
+            vi = h.edit_voice
+            voice = h.voices[vi]
+            # element changes land at the next block boundary, state carried over
+            h._post(lambda: h._apply(voice, changes))
+        self.schedule_refresh()
+
+    def _structure_changed(self) -> None:
+        if self.host is not None:
+            self.say("the circuit's structure changed: restarting live playback")
+            self.stop_live()
+            self.live.run_btn.setChecked(True)
+        self.schedule_refresh()
+
+    # ------------------------------------------------------------ stage actions
+    def _guard(self, fn, *a):
+        try:
+            return fn(*a)
+        except SolderlessError as exc:
+            self.say(str(exc))
+            return None
+
+    def add_stage(self, template: str) -> None:
+        idx = None
+        names = [s.name for s in self.wb.design.stages]
+        if self.chain.selected in names:
+            idx = names.index(self.chain.selected) + 1
+        n = self._guard(self.wb.add_stage, template, idx)
+        if n:
+            self.chain.select(n)
+
+    def remove_stage(self) -> None:
+        if self.chain.selected:
+            self._guard(self.wb.remove_stage, self.chain.selected)
+            self.chain.select(self.chain.selected)
+
+    def duplicate_stage(self) -> None:
+        if self.chain.selected:
+            n = self._guard(self.wb.duplicate_stage, self.chain.selected)
+            if n:
+                self.chain.select(n)
+
+    def move_stage(self, delta: int) -> None:
+        if self.chain.selected:
+            name = self.chain.selected
+            self._guard(self.wb.move_stage, name, delta)
+            self.chain.select(name)
+
+    def toggle_bypass(self) -> None:
+        name = self.chain.selected
+        if name:
+            self._guard(self.wb.set_bypass, name, not self.wb.design.stage(name).bypass)
+            self.chain.select(name)
+
+    def link_dialog(self) -> None:
+        ports = [f"{s.name}.{p}" for s in self.wb.design.stages for p in s.ports]
+        if len(ports) < 2:
+            return
+        a, ok = QInputDialog.getItem(self, "Link ports", "from port", ports, 0, False)
+        if not ok:
+            return
+        b, ok = QInputDialog.getItem(self, "Link ports", f"join {a} to", ports, 1, False)
+        if ok:
+            self._guard(self.wb.add_link, tuple(a.split(".", 1)), tuple(b.split(".", 1)))
+
+    def _recall(self, name: str) -> None:
+        self._guard(self.wb.recall_snapshot, name)
+
+    # ------------------------------------------------------------ files
+    def _decide(self, question: str) -> str:
+        if self.ask is not None:
+            return self.ask(question)
+        r = QMessageBox.question(
+            self, "Unsaved changes", question,
+            QMessageBox.StandardButton.Save | QMessageBox.StandardButton.Discard |
+            QMessageBox.StandardButton.Cancel, QMessageBox.StandardButton.Save)
+        return {QMessageBox.StandardButton.Save: "save",
+                QMessageBox.StandardButton.Discard: "discard"}.get(r, "cancel")
+
+    def may_discard(self) -> bool:
+        """Ask before unsaved changes are thrown away; True to go on."""
+        if not self.wb.dirty:
+            return True
+        ans = self._decide(f"'{self.wb.design.name}' has unsaved changes. Save them first?")
+        if ans == "save":
+            return self.save()
+        return ans == "discard"
+
+    def open_path(self, path: str | os.PathLike) -> bool:
+        if not self.may_discard():
+            return False
+        try:
+            d = load_design(path)
+        except SolderlessError as exc:
+            self.notices.add(f"Could not open {path}: {exc}", "bad")
+            self.say(str(exc))
+            return False
+        self.autosave.clear(self.wb.design)
+        self.set_design(d)
+        if d.path and Path(str(path)).exists():
+            self.settings.add_recent(d.path)
+        return True
+
+    def open_dialog(self) -> None:
+        fn, _ = QFileDialog.getOpenFileName(self, "Open design", "",
+                                            f"{DESIGN_FILTER};;{NETLIST_FILTER}")
+        if fn:
+            self.open_path(fn)
+
+    def import_design_dialog(self) -> None:
+        fn, _ = QFileDialog.getOpenFileName(self, "Import netlist as design", "",
+                                            NETLIST_FILTER)
+        if fn:
+            self.open_path(fn)
+
+    def import_stage_dialog(self) -> None:
+        fn, _ = QFileDialog.getOpenFileName(self, "Import netlist as stage", "",
+                                            NETLIST_FILTER)
+        if fn:
+            n = self._guard(self.wb.import_stage, fn)
+            if n:
+                self.chain.select(n)
+
+    def _fill_recent(self) -> None:
+        self.recent_menu.clear()
+        for p in self.settings.data.get("recent", []):
+            a = self.recent_menu.addAction(p)
+            a.triggered.connect(lambda _c=False, q=p: self.open_path(q))
+        if not self.settings.data.get("recent"):
+            self.recent_menu.addAction("(none)").setEnabled(False)
+
+    def save(self, path: str | os.PathLike | None = None) -> bool:
+        """Save atomically (to the design's own file unless ``path`` is given)."""
+        d = self.wb.design
+        target = Path(path) if path else d.path
+        if d.doc is None or target is None or target.suffix.lower() != ".toml":
+            if path is None:
+                return self.save_as_dialog()
+            self.say("a design is saved as a .toml file")
+            return False
+        try:
+            d.save(target)
+        except (SolderlessError, OSError) as exc:
+            self.notices.add(f"Not saved: {exc}. Your work is still open; try another "
+                             "folder (File > Save as).", "bad")
+            return False
+        self.autosave.clear(d)
+        self.wb.mark_saved()
+        self.settings.add_recent(target)
+        self._replaced()
+        self.say(f"saved {target}")
+        return True
+
+    def save_as_dialog(self) -> bool:
+        if self.wb.design.doc is None:
+            self.say("a design imported from a netlist cannot be written as a design "
+                     "file yet; use Import netlist as stage in a .toml design")
+            return False
+        fn, _ = QFileDialog.getSaveFileName(self, "Save design as", "", DESIGN_FILTER)
+        if not fn:
+            return False
+        if not fn.endswith(".toml"):
+            fn += ".toml"
+        return self.save(fn)
+
+    def autosave_now(self) -> Path | None:
+        if not self.wb.dirty:
+            return None
+        try:
+            return self.autosave.write(self.wb.design)
+        except (SolderlessError, OSError) as exc:
+            self.say(f"autosave failed: {exc}")
+            return None
+
+    def _check_autosaves(self, policy: str) -> None:
+        for path in self.autosave.pending():
+            rec = self.autosave.recover(path)
+            if rec.design is None:
+                self.notices.add(rec.message, "warn")
+                continue
+            if policy == "yes":
+                self._adopt(rec)
+            elif policy == "ask":
+                self.notices.add(rec.message.replace(" Save it to keep it.", "")
+                                 + " Open it now?", "info",
+                                 buttons=[("Open recovered", lambda r=rec: self._adopt(r))])
+
+    def _adopt(self, rec) -> None:
+        self.set_design(rec.design)
+        self.wb.generation += 1          # recovered work is unsaved work
+        self._history()
+        self.say(rec.message)
+
+    def closeEvent(self, e) -> None:
+        if not self.may_discard():
+            e.ignore()
+            return
+        self.stop_live()
+        self.analyser.shutdown()
+        self.autosave.clear(self.wb.design)
+        e.accept()
+
+    # ------------------------------------------------------------ live
+    def _source(self, spec: str) -> None:
+        self.analyser.source = spec
+        if self.host is not None:
+            self.stop_live()
+            self.live.run_btn.setChecked(True)
+        else:
+            self.preview()
+
+    def start_live(self, variant=None) -> bool:
+        from engine.live.host import LiveHost
+        if self.host is not None:
+            return True
+        try:
+            host = LiveHost(self.wb.design.copy(), variant=variant,
+                            source=make_source(self.live.source.currentData()),
+                            level_db=self.live.level.value() / 10.0, autosave=False,
+                            simulator_factory=self.factory)
+            host.start(input_device=self.live.dev_in.currentData(),
+                       output_device=self.live.dev_out.currentData())
+        except (SolderlessError, ImportError) as exc:
+            self.say(f"cannot play live: {exc}")
+            self.live.run_btn.blockSignals(True)
+            self.live.run_btn.setChecked(False)
+            self.live.run_btn.blockSignals(False)
+            return False
+        self.host = host
+        self.live.clear_live()
+        self.meter_timer.start(METER_MS)
+        return True
+
+    def stop_live(self) -> None:
+        self.meter_timer.stop() if hasattr(self, "meter_timer") else None
+        h, self.host = self.host, None
+        if h is not None:
+            h.close()
+        if hasattr(self, "live"):
+            self.live.run_btn.blockSignals(True)
+            self.live.run_btn.setChecked(False)
+            self.live.run_btn.blockSignals(False)
+
+    def _poll_meters(self) -> None:
+        h = self.host
+        if h is None:
+            return
+        snap = h.meters()
+        self.live.show_live(snap)
+        self.live.redraw_live(h.fs, h.block)
+        if len(h.voices) > 1:
+            self.compare.show_offset(snap.get("loudness_offset_db"))
+        while not h.messages.empty():
+            self.say(h.messages.get())
+        if h.error is not None:
+            self.say(f"playback stopped: {h.error}")
+            self.stop_live()
+
+    def _level(self, db: float) -> None:
+        if self.host is not None:
+            self.host.set_level_db(-120.0 if self.live.mute_btn.isChecked() else db)
+
+    def _mute(self, on: bool) -> None:
+        if self.host is not None:
+            self.host.set_level_db(-120.0 if on else self.live.level.value() / 10.0)
+
+    def start_ab(self, a: str, b: str) -> None:
+        """Play A and B together (the host matches loudness and crossfades)."""
+        da = self.compare.design_of(a)
+        db = self.compare.design_of(b)
+        self.stop_live()
+        wb_design = self.wb.design
+        self.wb.design = da
+        try:
+            ok = self.start_live(variant=db.copy())
+        finally:
+            self.wb.design = wb_design
+        if ok:
+            self.live.run_btn.blockSignals(True)
+            self.live.run_btn.setChecked(True)
+            self.live.run_btn.blockSignals(False)
+            self.say(f"A = {a}, B = {b}: Ctrl+1 / Ctrl+2 to switch")
+
+    def hear(self, which: str) -> None:
+        h = self.host
+        if h is None or len(h.voices) < 2:
+            self.say("run A and B first (Compare tab)")
+            return
+        try:
+            h.select(which)
+        except SolderlessError as exc:
+            self.say(str(exc))
