@@ -55,6 +55,13 @@ MAX_MATCH_DB = 24.0
 MAX_BLOCK = 4096
 MAX_POT_STEP = 0.005
 """Largest pot rotation change per block during a ramp (0.5 % of travel)."""
+MAX_POT_REL = 0.005
+"""Largest change of a pot's element per block during a ramp, as a fraction
+of the pot's whole resistance (so a divider's ratio moves at most 0.5 % of
+full scale per block, whatever the taper): keeps the gain step per block well
+under a 220 Hz sine's own sample-to-sample change (2 sin(pi 220 / 48000) =
+2.9 % of its peak)."""
+MAX_RAMP_STEPS = 2000
 
 
 def full_scale_peak_from_dbu(dbu: float) -> float:
@@ -147,6 +154,8 @@ class Voice:
         self.oversample = oversample
         self.factory = factory
         self.probes, self.control_index = _probes_for(design)
+        meters = getattr(design, "meters", None) or {}
+        self.control_law = str(meters.get("control_law", "linear"))
         self.sim = None
         self.incoming = None
         self.retired = None
@@ -352,6 +361,7 @@ class LiveHost:
                 cnt += n
         gain_db = 10 * math.log10(acc_out / acc_in) if acc_out > 0 and acc_in > 0 else None
         self.meter.small_signal_gain_db[i] = gain_db
+        self.meter.control_law[i] = v.control_law
         if ctl:
             q = float(np.mean(ctl))
             if i == 0:
@@ -594,18 +604,41 @@ class LiveHost:
             r1 = float(rotation)
             if not 0.0 <= r1 <= 1.0:
                 raise DesignError(f"rotation must be from 0 to 1, not {rotation}", part=pot)
-            # at least ramp_s seconds of blocks, and no step above MAX_POT_STEP
-            steps = max(1, int(math.ceil(ramp_s * self.fs / self.block)),
-                        int(math.ceil(abs(r1 - r0) / MAX_POT_STEP)))
-            steps = min(steps, 400)
-            for s in range(1, steps + 1):
-                r = r0 + (r1 - r0) * s / steps
-                self._apply(v, v.design.set_rotation(pot, r))
-                if s < steps:
-                    self._wait_blocks(1)
+            self._ramp_pot(v, pot, r0, r1, ramp_s)
             self._after_edit(i)
             return r1
         return self._post(job)
+
+    def _ramp_pot(self, v: Voice, pot: str, r0: float, r1: float, ramp_s: float) -> None:
+        """Move a pot from ``r0`` to ``r1`` one block at a time (worker thread).
+
+        Each step changes every element of the pot by at most ``MAX_POT_REL``
+        of the pot's total and the rotation by at most ``MAX_POT_STEP``; the steps are
+        spread over at least ``ramp_s`` seconds. The step is found by halving
+        (a taper can be steep near an end)."""
+        min_steps = max(1, int(math.ceil(ramp_s * self.fs / self.block)))
+        max_dr = min(MAX_POT_STEP, abs(r1 - r0) / min_steps) if r1 != r0 else 0.0
+        prev = v.design.set_rotation(pot, r0)
+        r = r0
+        for _ in range(MAX_RAMP_STEPS):
+            if r == r1:
+                break
+            dr = min(max_dr, abs(r1 - r))
+            while True:
+                rn = r1 if dr >= abs(r1 - r) else r + math.copysign(dr, r1 - r)
+                ch = v.design.set_rotation(pot, rn)
+                total = sum(abs(x) for x in ch.values()) or 1.0
+                worst = max((abs(ch[k] - prev[k]) / total for k in ch if k in prev),
+                            default=0.0)
+                if worst <= MAX_POT_REL or dr < 1e-6:
+                    break
+                dr *= 0.5
+            self._apply(v, ch)
+            prev, r = ch, rn
+            if r != r1:
+                self._wait_blocks(1)
+        if r != r1:                     # step budget spent: land on the target
+            self._apply(v, v.design.set_rotation(pot, r1))
 
     def set_bypass(self, stage: str, on: bool, voice=None) -> Future:
         """Bypass a stage (or bring it back): rebuild the simulator and swap it

@@ -172,6 +172,9 @@ class MeterReader:
         self.control_b: tuple[int, float] | None = None
         self.small_signal_gain_db: list[float | None] = [None, None]
         self.control_hist: list[deque] = [deque(maxlen=w), deque(maxlen=w)]
+        # "linear": gain proportional to the control (OTA); other laws get no
+        # control-based gain reduction (their scale is not known here)
+        self.control_law: list[str] = ["linear", "linear"]
 
     def poll(self) -> dict:
         """Drain new frames and return the current readings (see :meth:`snapshot`)."""
@@ -202,7 +205,7 @@ class MeterReader:
         if ctl is not None and hist:
             cur = hist[-1]
             q = ctl[1]
-            if q > 0 and cur > 0:
+            if q > 0 and cur > 0 and self.control_law[voice] == "linear":
                 gr_ctl = 20.0 * math.log10(cur / q)
         gr_meas = None
         g = self.small_signal_gain_db[voice]
