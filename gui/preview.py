@@ -154,6 +154,8 @@ def operating_point(design, factory: Callable | None = None) -> OpReport:
     nets = getattr(op, "nets", {}) or {}
     for n, v in (nets.items() if isinstance(nets, dict) else nets):
         rows.append(("net", str(n), "V", float(v), "V"))
+    for n, v in (getattr(op, "currents", {}) or {}).items():
+        rows.append(("current", str(n), "I", float(v), "A"))
     devs = getattr(op, "devices", {}) or {}
     for name, info in (devs.items() if isinstance(devs, dict) else enumerate(devs)):
         if isinstance(info, dict):
@@ -208,9 +210,12 @@ class Analyser(QObject):
         self.pending = 0
         self.source = "synth:notes"
         self.seconds = PREVIEW_SECONDS
+        self.closed = False
 
     def request(self, design, *, preview: bool = True, op: bool = True, ac: bool = True) -> int:
         """Queue work on a copy of ``design``; returns the generation number."""
+        if self.closed:
+            return 0
         self.generation += 1
         g = self.generation
         d = design.copy()
@@ -255,5 +260,6 @@ class Analyser(QObject):
         signal.emit(g, r)
 
     def shutdown(self) -> None:
+        self.closed = True
         self.generation += 1
         self.pool.shutdown(wait=True, cancel_futures=True)

@@ -604,6 +604,8 @@ class MainWindow(QMainWindow):
             e.ignore()
             return
         self.stop_live()
+        for t in (self.refresh_timer, self.autosave_timer, self.meter_timer):
+            t.stop()
         self.analyser.shutdown()
         self.autosave.clear(self.wb.design)
         e.accept()

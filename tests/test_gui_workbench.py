@@ -1,0 +1,282 @@
+"""Workbench checks (pytest-qt, offscreen): open a design, change parts, see
+the operating point and the preview change; undo; A/B differences; autosave
+recovery; structural edits survive a save; screenshots of the main views.
+
+The design under test (tests/gui_divider.toml) is small enough to check by
+hand: a 100k/47k divider from 9 V biases a unity buffer, then a 10k linear
+level pot, a switched shunt capacitor and an output coupling capacitor into
+the 1 MΩ load. Expectations come from the voltage-divider rule (Ohm's law),
+IEC 60063 tables and the binomial distribution.
+"""
+import json
+import math
+import shutil
+from pathlib import Path
+
+import pytest
+from PyQt6.QtCore import Qt
+
+pytest.importorskip("engine.solver.simulator")
+
+from engine.design import load_design
+from gui.app import make_window, screenshot
+from gui.model import Autosave, Difference, differences
+from gui.snapshots import BlindTrial
+
+HERE = Path(__file__).resolve().parent
+DIVIDER = HERE / "gui_divider.toml"
+
+
+@pytest.fixture
+def design_file(tmp_path):
+    p = tmp_path / "divider.toml"
+    shutil.copy(DIVIDER, p)
+    return p
+
+
+@pytest.fixture
+def win(qtbot, tmp_path, design_file):
+    w = make_window(load_design(design_file), config=tmp_path / "cfg", recover="no",
+                    source="tone:1000:0.1", seconds=1.5)
+    w.ask = lambda _q: "discard"
+    qtbot.addWidget(w)
+    w.resize(1480, 940)
+    w.show()
+    assert w.wait_idle(180)
+    yield w
+    w.ask = lambda _q: "discard"
+    w.close()
+
+
+def _divider(vs, r_top, r_bottom):
+    """Unloaded voltage divider (Ohm's law)."""
+    return vs * r_bottom / (r_top + r_bottom)
+
+
+def _pot_out(rotation, total=10e3, load=1e6):
+    """Linear pot as a divider, wiper loaded by ``load`` (Ohm's law)."""
+    ra, rb = total * rotation, total * (1 - rotation)
+    rl = rb * load / (rb + load)
+    return rl / (ra + rl)
+
+
+def test_edit_changes_op_table_and_preview(win, qtbot):
+    # operating point of the bias divider: 9 V * 47k / 147k (Ohm's law)
+    assert win.last_op is not None
+    v_b = win.inspect.values[("amp.b", "V")]
+    assert v_b.startswith("2.878")
+    assert math.isclose(dict(((r[1], r[2]), r[3]) for r in win.last_op.rows)[("amp.b", "V")],
+                        _divider(9.0, 100e3, 47e3), rel_tol=1e-6)
+    out0 = win.last_preview.meters["voices"]["A"]["out_rms_v"]
+    trace0 = win.last_preview.series["output level"].copy()
+    # type a new value into R2's field, as a user does
+    win.chain.select("amp")
+    row = win.parts.rows["amp.R2"]
+    row.edit.setFocus()
+    row.edit.selectAll()
+    qtbot.keyClicks(row.edit, "100k")
+    qtbot.keyClick(row.edit, Qt.Key.Key_Return)
+    assert win.wb.design.part("amp.R2").value == 100e3
+    assert win.wait_idle(180)
+    assert math.isclose(dict(((r[1], r[2]), r[3]) for r in win.last_op.rows)[("amp.b", "V")],
+                        _divider(9.0, 100e3, 100e3), rel_tol=1e-6)
+    assert win.inspect.values[("amp.b", "V")].startswith("4.5")
+    # turn the level pot from 50 % to 10 %: the output rises by the ratio of
+    # the two loaded pot dividers (Ohm's law); the trace follows
+    win.chain.select("level")
+    win.parts.rows["level.VOL"].dial.setValue(100)
+    assert win.wb.design.part("level.VOL").rotation == pytest.approx(0.1)
+    assert win.wait_idle(180)
+    out1 = win.last_preview.meters["voices"]["A"]["out_rms_v"]
+    want_db = 20 * math.log10(_pot_out(0.1) / _pot_out(0.5))
+    assert 20 * math.log10(out1 / out0) == pytest.approx(want_db, abs=0.1)
+    trace1 = win.last_preview.series["output level"]
+    assert trace1[-1] - trace0[-1] == pytest.approx(want_db, abs=0.2)
+
+
+def test_undo_restores_exact_value(win, qtbot):
+    win.chain.select("amp")
+    row = win.parts.rows["amp.R2"]
+    # Up arrow walks E24 (IEC 60063): 47k -> 51k
+    row.edit.setFocus()
+    qtbot.keyClick(row.edit, Qt.Key.Key_Up)
+    assert win.wb.design.part("amp.R2").value == pytest.approx(51e3)
+    win.wb._undo[-1] = win.wb._undo[-1][:3] + (0.0,)     # a separate edit, not merged
+    row.edit.selectAll()
+    qtbot.keyClicks(row.edit, "68.1k")
+    qtbot.keyClick(row.edit, Qt.Key.Key_Return)
+    assert win.wb.design.part("amp.R2").value == 68.1e3
+    win.wb.undo()
+    assert win.wb.design.part("amp.R2").value == pytest.approx(51e3)
+    win.wb.undo()
+    assert win.wb.design.part("amp.R2").value == 47e3          # exactly what the file said
+    assert win.parts.rows["amp.R2"].edit.text() == "47k"
+    assert not win.wb.can_undo()
+    win.wb.redo()
+    assert win.wb.design.part("amp.R2").value == pytest.approx(51e3)
+    # the tolerance and the pot taper undo as well
+    win.wb.set_tolerance("amp.R2", 0.01)
+    win.wb.set_taper("level.VOL", [[0, 0], [0.5, 0.2], [1, 1]])
+    win.wb.undo()
+    win.wb.undo()
+    assert win.wb.design.part("amp.R2").tolerance == 0.05
+    assert win.wb.design.part("level.VOL").taper == "linear"
+
+
+def test_snap_shows_distance_to_nearest_standard_value(win, qtbot):
+    win.chain.select("amp")
+    win.wb.set_value("amp.R2", 50e3)
+    row = win.parts.rows["amp.R2"]
+    # E24 neighbours of 50k are 47k and 51k (IEC 60063); 51k is nearer: -2.0 %
+    assert "51k" in row.snap.text() and "-2.0 %" in row.snap.text()
+    row.snap.click()
+    assert win.wb.design.part("amp.R2").value == pytest.approx(51e3)
+    # a value that cannot be read turns the field red and changes nothing
+    row.edit.setFocus()
+    row.edit.selectAll()
+    qtbot.keyClicks(row.edit, "4k7k")
+    assert row.edit.property("valid") == "false"
+    qtbot.keyClick(row.edit, Qt.Key.Key_Return)
+    assert win.wb.design.part("amp.R2").value == pytest.approx(51e3)
+
+
+def test_ab_difference_list_is_exact(win):
+    wb = win.wb
+    wb.take_snapshot("base", "as drawn")
+    wb.set_value("amp.R2", 100e3)
+    wb.set_rotation("level.VOL", 0.25)
+    wb.set_position("level.SW", 1)
+    wb.set_value("amp.R1", 100e3 * (1 + 1e-12))      # a change too small to print
+    wb.take_snapshot("mod", "")
+    got = differences(wb.snapshot("base").design, wb.snapshot("mod").design)
+    assert got == [
+        Difference("amp.R1", "value", repr(100e3), repr(100e3 * (1 + 1e-12))),
+        Difference("amp.R2", "value", "47 kΩ", "100 kΩ"),
+        Difference("level.VOL", "rotation", "50 %", "25 %"),
+        Difference("level.SW", "position", "bright", "dark"),
+    ]
+    assert differences(wb.snapshot("mod").design, wb.design) == []
+    win.compare.refresh()
+    win.compare.a.setCurrentText("base")
+    win.compare.b.setCurrentText("mod")
+    assert win.compare.diff.rowCount() == 4
+    assert win.compare.diff.item(1, 2).text() == "47 kΩ"
+    # recall is an edit like any other: undo returns to where we were
+    wb.recall_snapshot("base")
+    assert wb.design.part("amp.R2").value == 47e3
+    wb.undo()
+    assert wb.design.part("amp.R2").value == 100e3
+
+
+def test_blind_trial_probability():
+    # P(X >= k) for X ~ Binomial(n, 1/2): 10 of 10 -> 1/1024; 7 of 10 ->
+    # (C(10,7)+C(10,8)+C(10,9)+C(10,10))/1024 = 176/1024 (binomial distribution)
+    t = BlindTrial(10, seed=1)
+    while not t.done:
+        t.answer(t.hidden)
+    assert t.score == 10
+    assert t.p_value() == pytest.approx(1 / 1024, rel=1e-12)
+    t = BlindTrial(10, seed=2)
+    k = 0
+    while not t.done:
+        guess = t.hidden if k < 7 else ("B" if t.hidden == "A" else "A")
+        t.answer(guess)
+        k += 1
+    assert t.score == 7
+    assert t.p_value() == pytest.approx(176 / 1024, rel=1e-12)
+
+
+def test_corrupted_autosave_does_not_stop_startup(qtbot, tmp_path, design_file):
+    cfg = tmp_path / "cfg"
+    folder = cfg / "autosave"
+    folder.mkdir(parents=True)
+    (folder / "0123abcd.toml").write_text("[design\nname = broken ~~~\n\x00", encoding="utf-8")
+    (folder / "0123abcd.json").write_text("{not json", encoding="utf-8")
+    w = make_window(load_design(design_file), config=cfg, recover="ask")
+    qtbot.addWidget(w)
+    w.ask = lambda _q: "discard"
+    texts = " ".join(w.notices.texts())
+    assert "could not be read" in texts
+    assert (folder / "0123abcd.toml.unreadable").exists()
+    assert w.wb.design.name == "divider bench"
+    w.close()
+
+
+def test_autosave_recovers_unsaved_work(qtbot, tmp_path, design_file):
+    cfg = tmp_path / "cfg"
+    w = make_window(load_design(design_file), config=cfg, recover="no")
+    qtbot.addWidget(w)
+    w.ask = lambda _q: "discard"
+    w.wb.set_value("amp.R2", 82e3)
+    assert w.autosave_now() is not None
+    # simulate a crash: the window goes away without a clean exit
+    w.autosave_timer.stop()
+    w.analyser.shutdown()
+    w.deleteLater()
+    w2 = make_window(load_design(design_file), config=cfg, recover="yes")
+    qtbot.addWidget(w2)
+    w2.ask = lambda _q: "discard"
+    assert w2.wb.design.part("amp.R2").value == 82e3
+    assert w2.wb.dirty
+    assert Path(w2.wb.design.path) == design_file.resolve()
+    w2.close()
+
+
+def test_discard_prompt_guards_unsaved_work(win, tmp_path):
+    win.wb.set_value("amp.R2", 10e3)
+    win.ask = lambda _q: "cancel"
+    assert not win.open_path(DIVIDER)
+    assert win.wb.design.part("amp.R2").value == 10e3
+    win.ask = lambda _q: "save"
+    assert win.open_path(DIVIDER)
+    # the save went to the design's own file, atomically, and reads back
+    assert load_design(tmp_path / "divider.toml").part("amp.R2").value == 10e3
+
+
+def test_structural_edits_save_and_undo(win, tmp_path):
+    wb = win.wb
+    before = [s.name for s in wb.design.stages]
+    dup = wb.duplicate_stage("amp")
+    assert [s.name for s in wb.design.stages] == ["amp", dup, "level"]
+    wb.move_stage("level", -2)
+    assert [s.name for s in wb.design.stages] == ["level", "amp", dup]
+    wb.add_link(("amp", "env"), ("level", "ctl"))
+    wb.set_bypass(dup, True)
+    target = tmp_path / "edited.toml"
+    assert win.save(target)
+    back = load_design(target)
+    assert [s.name for s in back.stages] == ["level", "amp", dup]
+    assert back.stage(dup).bypass
+    assert [(ln.a, ln.b) for ln in back.links] == [(("amp", "env"), ("level", "ctl"))]
+    wb.remove_stage(dup)
+    assert [s.name for s in wb.design.stages] == ["level", "amp"]
+    for _ in range(5):
+        wb.undo()
+    assert [s.name for s in wb.design.stages] == before
+    assert wb.design.links == []
+    # a stage from the library lands after the selected one
+    win.chain.select("amp")
+    lib = sorted(__import__("engine.design", fromlist=["x"]).stage_library())
+    win.add_stage(lib[0])
+    assert len(wb.design.stages) == 3 and wb.design.stages[1].template == lib[0]
+
+
+def test_screenshots_of_main_views(win, artifacts):
+    win.chain.select("level")
+    for i, name in enumerate(("live", "inside", "compare")):
+        win.tabs.setCurrentIndex(i)
+        out = screenshot(win, artifacts / f"gui_{name}.png")
+        assert out.stat().st_size > 10_000
+    assert win.inspect.table.rowCount() > 0
+
+
+def test_flagship_screenshot(qtbot, tmp_path, artifacts):
+    if "flagship" not in __import__("engine.design", fromlist=["x"]).builtin_designs():
+        pytest.skip("no flagship design")
+    w = make_window("flagship", config=tmp_path / "cfg", recover="no", seconds=2.0)
+    qtbot.addWidget(w)
+    w.ask = lambda _q: "discard"
+    w.show()
+    screenshot(w, artifacts / "gui_flagship.png")
+    assert w.last_preview is not None and w.last_op is not None
+    w.close()
