@@ -1,0 +1,218 @@
+"""The stage library and the built-in designs: they load, bias sanely, run
+the synthetic guitar without non-convergence, and the A/B variants differ
+where they should."""
+import math
+import re
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy.optimize import brentq
+
+from engine import demo
+from engine.analysis import compression as cp
+from engine.design import builtin_designs, load_design, load_stage_template, stage_library
+from engine.solver import Simulator
+from engine.synth import render_phrase
+
+FS = 48000.0
+DESIGNS = sorted(builtin_designs())
+TEMPLATES = sorted(stage_library())
+EXPECTED_DESIGNS = {"flagship", "flagship-slow-release", "flagship-linear-sustain",
+                    "feedforward", "overdrive", "booster", "octave-fuzz", "envelope-filter"}
+# a token shaped like a catalogue part number (letters then three or more digits)
+PART_NUMBER_SHAPE = re.compile(r"\b[A-Za-z]{1,4}\d{3,6}[A-Za-z]?\b")
+
+
+@pytest.fixture(scope="module")
+def phrase():
+    return render_phrase("demo", fs=FS)[: int(2.0 * FS)]
+
+
+def test_the_built_in_set_is_complete():
+    assert EXPECTED_DESIGNS <= set(DESIGNS)
+    groups = {t.split("/")[0] for t in TEMPLATES}
+    assert {"buffers", "gain-cells", "makeup", "detectors", "clippers", "boosters", "tone",
+            "output", "supply"} <= groups
+    assert len([t for t in TEMPLATES if t.startswith("detectors/")]) >= 4
+    assert len([t for t in TEMPLATES if t.startswith("clippers/")]) >= 3
+
+
+@pytest.mark.parametrize("name", TEMPLATES)
+def test_template_loads_and_explains_every_part(name):
+    st = load_stage_template(name)
+    assert st.kind and len(st.notes) > 40
+    for p in st.parts:
+        assert len(p.note) > 8, f"{name}: part {p.name} has no note"
+    text = Path(stage_library()[name]).read_text()
+    assert not PART_NUMBER_SHAPE.search(text), "generic parts only"
+
+
+def _harness(name: str, tmp_path: Path) -> Path:
+    """A minimal design around one template: supply, bias, a source stage if
+    the template is a side branch, and an output stage."""
+    st = load_stage_template(name)
+    stages = []
+    if "in" not in st.ports or "out" not in st.ports:
+        stages.append(("src", "buffers/emitter-follower"))
+    if name != "supply/bias-divider":
+        stages.append(("dut", name))
+        stages.append(("bias", "supply/bias-divider"))
+    else:
+        stages.append(("dut", name))
+    stages.append(("jack", "output/volume"))
+    if stages[0][1] == "supply/bias-divider":
+        stages.insert(0, ("src", "buffers/emitter-follower"))
+    lines = ['[design]', f'name = "harness for {name}"', 'oversample = 2',
+             'global_nets = ["vcc", "vref"]', '',
+             '[[design.part]]', 'name = "VCC"', 'type = "supply"',
+             'nodes = ["vcc", "0"]', 'value = "9"', '']
+    if "ctl" in st.ports:
+        lines += ['[[design.part]]', 'name = "RCB"', 'type = "resistor"',
+                  'nodes = ["vcc", "dut.ctl"]', 'value = "47k"', '']
+    for sname, tmpl in stages:
+        lines += ['[[stage]]', f'name = "{sname}"', f'template = "{tmpl}"', '']
+    path = tmp_path / (name.replace("/", "_") + ".toml")
+    path.write_text("\n".join(lines))
+    return path
+
+
+@pytest.mark.parametrize("name", TEMPLATES)
+def test_template_biases_sanely_and_passes_a_tone(name, tmp_path):
+    d = load_design(_harness(name, tmp_path))
+    sim = Simulator(d.flatten(), fs=FS, oversample=d.oversample)
+    op = sim.operating_point()
+    assert demo.transistor_problems(d, op) == []
+    t = np.arange(int(0.3 * FS)) / FS
+    y = sim.process(0.1 * np.sin(2 * np.pi * 220 * t))
+    assert np.all(np.isfinite(y))
+    assert sim.stats["nonconverged"] == 0
+
+
+@pytest.mark.parametrize("name", DESIGNS)
+def test_design_loads_biases_and_plays_the_phrase(name, phrase):
+    d = load_design(name)
+    assert len(d.notes) > 200 and "listen" in d.notes.lower()
+    text = builtin_designs()[name].read_text()
+    assert not PART_NUMBER_SHAPE.search(text), "generic parts and invented names only"
+    sim = Simulator(d.flatten(), fs=FS, oversample=d.oversample)
+    op = sim.operating_point()
+    # no transistor accidentally saturated or cut off at rest; devices that
+    # are off by design say so in their note and in the design's notes
+    assert demo.transistor_problems(d, op) == []
+    for r in demo.transistor_check(d, op):
+        if r["region"] == "off":
+            assert r["part"] in d.notes, f"{r['part']} is off at rest: say so in the notes"
+    y = sim.process(phrase)
+    assert sim.stats["nonconverged"] == 0
+    assert np.all(np.isfinite(y))
+    assert 1e-3 < cp.rms(y - np.mean(y)) < 2.0, "the design passes the guitar at a sane level"
+
+
+def test_oversampling_suggestions_follow_the_design_convention():
+    # compressors and filters at 1x; clipping designs oversampled (common practice:
+    # hard nonlinearities generate harmonics that alias at 1x)
+    for n in ("flagship", "flagship-slow-release", "flagship-linear-sustain", "feedforward",
+              "envelope-filter"):
+        assert load_design(n).oversample == 1
+    for n in ("overdrive", "octave-fuzz"):
+        assert load_design(n).oversample >= 2
+
+
+def test_flagship_is_small_and_metered():
+    d = load_design("flagship")
+    types = [p.type for p in d.parts()]
+    assert 5 <= types.count("npn") + types.count("pnp") <= 7
+    assert types.count("ota") == 1
+    assert d.control_probe() == "iabc(gain.U1)"
+    assert d.meters.get("control_law") == "linear"
+
+
+def _parts_params(model: str) -> dict:
+    lib = tomllib.loads((Path(__file__).resolve().parent.parent / "presets" / "parts.toml")
+                        .read_text())
+    return lib[model]
+
+
+def test_flagship_rest_control_current_matches_the_hand_calculation():
+    # At rest the rectifiers are off, so the control current flows from the
+    # supply through RREL and RCTL into the OTA's control pin, which sits one
+    # junction drop N*VT*ln(Iabc/IS) above ground (REFERENCES.md, bipolar OTA).
+    # VT = kT/q at 300.15 K from scipy.constants (REFERENCES.md, BJT).
+    from scipy.constants import Boltzmann, elementary_charge
+    d = load_design("flagship")
+    vt = Boltzmann * 300.15 / elementary_charge
+    m = _parts_params(d.part("gain.U1").model)
+    IS, N = float(m["IS"]), float(m.get("N", 1.0))
+    r = d.part("detector.RREL").value + d.part("gain.RCTL").value
+    vcc = d.part("VCC").value
+    iabc = brentq(lambda i: i - (vcc - N * vt * math.log(i / IS)) / r, 1e-9, vcc / r)
+    op = Simulator(d.flatten(), fs=FS).operating_point()
+    assert demo.rest_control(d, op) == pytest.approx(iabc, rel=0.02)
+
+
+def _release(name):
+    d = load_design(name)
+    rt, _, gr, t1, stats = demo.measure_release(d, FS, tail=1.6)
+    assert stats["nonconverged"] == 0
+    return d, rt, float(gr[int(t1 * FS) - int(0.02 * FS)])
+
+
+def test_release_time_matches_the_detector_time_constant_and_slow_variant_is_slower():
+    # Release time: time for the gain reduction to recover 63 % (1 - 1/e) of
+    # its step after the loud note stops (time-constant convention,
+    # Giannoulis, Massberg & Reiss, JAES 2012; IEC 60050-351-45-36).
+    # Expectation (handbook RC discharge + OTA gain proportional to Iabc):
+    # after the burst the rectifiers are off, the smoothing capacitor CS
+    # recovers with tau = CS * (RREL || RCTL), so Iabc(t)/Irest =
+    # 1 - (1 - g0) exp(-t/tau) with g0 the gain at the end of the burst; the
+    # 63 % point in dB follows from that.
+    d0, rt0, gr0 = _release("flagship")
+    d1, rt1, gr1 = _release("flagship-slow-release")
+
+    def predicted(d, gr_start):
+        rr, rc = d.part("detector.RREL").value, d.part("gain.RCTL").value
+        tau = d.part("detector.CS").value * rr * rc / (rr + rc)
+        g0 = 10 ** (gr_start / 20)
+        g_target = 10 ** (gr_start * (1 - cp.TIME_CONSTANT_FRACTION) / 20)
+        return -tau * math.log((1 - g_target) / (1 - g0))
+
+    assert gr0 < -6.0 and gr1 < -6.0, "the burst must cause real gain reduction"
+    assert rt0 == pytest.approx(predicted(d0, gr0), rel=0.15)
+    assert rt1 == pytest.approx(predicted(d1, gr1), rel=0.15)
+    # the variant's capacitor is 68/22 = 3.1 times bigger: measurably slower
+    assert rt1 > 2.0 * rt0
+
+
+@pytest.fixture(scope="module")
+def static_curves():
+    levels = np.arange(-40.0, 0.1, 4.0)
+    return {n: demo.measure_static(load_design(n), FS, levels, hold=0.4, measure=0.1)
+            for n in ("flagship", "flagship-linear-sustain")}
+
+
+def test_flagship_static_curve_compresses_above_threshold(static_curves):
+    c = static_curves["flagship"]
+    thr = c.threshold_db(1.0)
+    assert -40.0 < thr < -15.0
+    # Below the threshold the curve follows the input 1:1; above it the slope
+    # is well under 1 (compression; Giannoulis et al. 2012 static curve).
+    below = c.input_db <= thr - 6
+    assert np.polyfit(c.input_db[below], c.output_db[below], 1)[0] == pytest.approx(1.0, abs=0.05)
+    assert c.slope(thr + 6.0) < 0.3
+
+
+def test_linear_taper_variant_compresses_more_at_the_same_rotation(static_curves):
+    # Same SUSTAIN rotation (0.8): the audio taper passes (81**0.8 - 1)/80 =
+    # 0.38 of the signal to the detector, the linear taper 0.80 (taper laws:
+    # docs/design-format.md; audio = 10 % at mid rotation, common practice), so
+    # the linear variant's threshold is lower by roughly 20*log10(0.8/0.38)
+    # = 6.5 dB (less, since the detector loads the wiper).
+    base, lin = static_curves["flagship"], static_curves["flagship-linear-sustain"]
+    d0, d1 = load_design("flagship"), load_design("flagship-linear-sustain")
+    assert d0.part("detector.SUSTAIN").rotation == d1.part("detector.SUSTAIN").rotation
+    shift = base.threshold_db(1.0) - lin.threshold_db(1.0)
+    assert 3.0 < shift < 8.0
+    k = int(np.argmin(np.abs(base.input_db - (-20.0))))
+    assert lin.gain_reduction_db[k] < base.gain_reduction_db[k] - 3.0
