@@ -272,7 +272,8 @@ class LiveHost:
         self.stream = None
         self.stream_latency_s = (0.0, 0.0)
         self._edit_pending_t: float | None = None
-        self.edit_latencies_s: list[float] = []
+        self._edit_lat = np.zeros(1024)
+        self._n_edit_lat = 0
         self.messages: "queue.SimpleQueue[str]" = queue.SimpleQueue()
         self._guard_told = 0
         self.tap: np.ndarray | None = None
@@ -292,6 +293,12 @@ class LiveHost:
         self._worker = threading.Thread(target=self._work, name="solderless-edits", daemon=True)
         self._worker.start()
         self._built = False
+        self._closing = False
+        self._measure_dirty: set[int] = set()
+        self._measure_wake = threading.Event()
+        self._measurer = threading.Thread(target=self._measure_loop,
+                                          name="solderless-measure", daemon=True)
+        self._measurer.start()
 
     # ------------------------------------------------------------ set-up
     def prepare(self) -> None:
@@ -378,7 +385,9 @@ class LiveHost:
             if xrun:
                 self.xruns += 1
             if self._edit_pending_t is not None:
-                self.edit_latencies_s.append(t0 - self._edit_pending_t)
+                self._edit_lat[self._n_edit_lat % self._edit_lat.shape[0]] = \
+                    t0 - self._edit_pending_t
+                self._n_edit_lat += 1
                 self._edit_pending_t = None
             x = self.x
             self.source.fill(indata, n, x)
@@ -488,6 +497,8 @@ class LiveHost:
         self.stop()
         self._jobs.put(None)
         self._worker.join(timeout=5)
+        self._closing = True
+        self._measure_wake.set()
 
     @property
     def running(self) -> bool:
@@ -527,19 +538,39 @@ class LiveHost:
         while self.blocks - start < k and time.perf_counter() < t_end:
             time.sleep(0.0005)
 
-    def _apply(self, voice: Voice, changes: dict) -> None:
-        """Hand element changes to the running simulator (worker thread)."""
+    def _apply(self, voice: Voice, changes: dict, t_post: float | None = None) -> None:
+        """Hand element changes to the running simulator (worker thread).
+        ``t_post``: when the edit was asked for; the audio thread records the
+        time from then to the start of the first block that uses it."""
         sim = voice.sim
         if sim is None:
             return
         sim.set_values(changes)
         if voice.incoming is not None:
             voice.incoming.set_values(changes)
-        self._edit_pending_t = time.perf_counter()
+        if t_post is not None:
+            self._edit_pending_t = t_post
 
     def _after_edit(self, vi: int) -> None:
         self._autosave(vi)
-        self._measure_voice(vi)
+        self._measure_dirty.add(vi)
+        self._measure_wake.set()
+
+    def _measure_loop(self) -> None:
+        """Re-measure small-signal gain and quiescent control after edits, on
+        its own thread so the edit queue never waits for it (debounced)."""
+        while True:
+            self._measure_wake.wait()
+            if self._closing:
+                return
+            time.sleep(0.2)                 # let a burst of edits finish
+            self._measure_wake.clear()
+            dirty, self._measure_dirty = self._measure_dirty, set()
+            for vi in sorted(dirty):
+                try:
+                    self._measure_voice(vi)
+                except Exception as exc:  # a measurement must never stop playing
+                    self.messages.put(f"could not re-measure the small-signal gain: {exc}")
 
     def _autosave(self, vi: int) -> None:
         if self.autosave_path is None:
@@ -563,10 +594,12 @@ class LiveHost:
     # ------------------------------------------------------------ edits (any thread)
     def set_value(self, part: str, value: float, voice=None) -> Future:
         """Change a part's value (re-derive, lands at a block boundary)."""
+        t_post = time.perf_counter()
+
         def job():
             i, v = self._voice(voice)
             changes = v.design.set_value(part, value)
-            self._apply(v, changes)
+            self._apply(v, changes, t_post)
             self._after_edit(i)
             return value
         return self._post(job)
@@ -576,6 +609,7 @@ class LiveHost:
         """Step a part's value ``steps`` places through an E-series (IEC
         60063; default E24, or E12 for capacitors). Result: the new value."""
         from engine.values import step_preferred
+        t_post = time.perf_counter()
 
         def job():
             i, v = self._voice(voice)
@@ -585,7 +619,7 @@ class LiveHost:
             ser = series or ("E12" if info.type == "capacitor" else "E24")
             new = step_preferred(info.value, ser, steps)
             changes = v.design.set_value(part, new)
-            self._apply(v, changes)
+            self._apply(v, changes, t_post)
             self._after_edit(i)
             return new
         return self._post(job)
@@ -594,6 +628,8 @@ class LiveHost:
                      ramp_s: float = 0.030) -> Future:
         """Turn a pot to ``rotation`` (0..1), ramping over ``ramp_s`` seconds
         in block-sized steps so the move does not click."""
+        t_post = time.perf_counter()
+
         def job():
             i, v = self._voice(voice)
             info = self.part_info(pot, voice)
@@ -604,12 +640,13 @@ class LiveHost:
             r1 = float(rotation)
             if not 0.0 <= r1 <= 1.0:
                 raise DesignError(f"rotation must be from 0 to 1, not {rotation}", part=pot)
-            self._ramp_pot(v, pot, r0, r1, ramp_s)
+            self._ramp_pot(v, pot, r0, r1, ramp_s, t_post)
             self._after_edit(i)
             return r1
         return self._post(job)
 
-    def _ramp_pot(self, v: Voice, pot: str, r0: float, r1: float, ramp_s: float) -> None:
+    def _ramp_pot(self, v: Voice, pot: str, r0: float, r1: float, ramp_s: float,
+                  t_post: float | None = None) -> None:
         """Move a pot from ``r0`` to ``r1`` one block at a time (worker thread).
 
         Each step changes every element of the pot by at most ``MAX_POT_REL``
@@ -633,7 +670,8 @@ class LiveHost:
                 if worst <= MAX_POT_REL or dr < 1e-6:
                     break
                 dr *= 0.5
-            self._apply(v, ch)
+            self._apply(v, ch, t_post)
+            t_post = None
             prev, r = ch, rn
             if r != r1:
                 self._wait_blocks(1)
@@ -703,6 +741,13 @@ class LiveHost:
         """Output level in dB (smoothed on the audio thread)."""
         self.level_db = float(db)
         self.prm[lim.P_LEVEL] = 10.0 ** (db / 20.0) / self.out_fs_v
+
+    @property
+    def edit_latencies_s(self) -> list[float]:
+        """Seconds from each edit request to the start of the first block that
+        used it (the most recent 1024 edits)."""
+        k = min(self._n_edit_lat, self._edit_lat.shape[0])
+        return [float(x) for x in self._edit_lat[:k]]
 
     @property
     def loudness_offset_db(self) -> float:

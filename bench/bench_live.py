@@ -1,0 +1,182 @@
+"""Live host benchmark: block processing time and edit latency.
+
+For every built-in design and an A/B pair, at 64, 128 and 256 samples per
+block and 48 kHz, runs the host's whole audio-thread path
+(``LiveHost._audio_block``: source, simulator(s), output stage, meters) on
+the built-in synthetic instrument and reports the distribution of the time
+per block (median, p99, p99.9, max) as a fraction of the block period.
+Target from issue 3: p99.9 <= 25 % of the period for the flagship at 64.
+
+Then, with blocks paced in real time on a thread (as a sound card would),
+measures the time from a part change request to the start of the first block
+that uses it.
+
+Prints a table and writes bench/results/live.json.
+
+    python bench/bench_live.py [--seconds 5] [--designs a,b] [--quick]
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import platform
+import sys
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+
+from engine.design import builtin_designs, load_design  # noqa: E402
+from engine.errors import SolderlessError  # noqa: E402
+from engine.live.host import LiveHost  # noqa: E402
+from engine.live.source import LoopSource  # noqa: E402
+
+FS = 48000.0
+BLOCKS = (64, 128, 256)
+AB_PAIR = ("flagship", "flagship-slow-release")
+
+
+def _source(phrase_volts):
+    return LoopSource(phrase_volts, "synthetic instrument")
+
+
+def block_times(design, variant, block, seconds, volts) -> dict:
+    """Time every block of ``seconds`` of audio through the host path."""
+    h = LiveHost(load_design(design), variant=load_design(variant) if variant else None,
+                 fs=FS, block=block, source=_source(volts), autosave=False)
+    try:
+        t0 = time.perf_counter()
+        h.prepare()
+        prep = time.perf_counter() - t0
+        n = int(seconds * FS / block)
+        out = np.zeros((block, 2), dtype=np.float32)
+        t = np.zeros(n)
+        for _ in range(int(0.2 * FS / block)):        # warm-up, not counted
+            h._audio_block(None, out, block, False)
+        pc = time.perf_counter
+        for i in range(n):
+            a = pc()
+            h._audio_block(None, out, block, False)
+            t[i] = pc() - a
+        if h.error is not None:
+            raise h.error
+        period = block / FS
+        q = np.quantile(t, [0.5, 0.99, 0.999])
+        return {"design": design, "variant": variant, "block": block, "blocks": n,
+                "period_s": period, "prepare_s": prep,
+                "median_s": float(q[0]), "p99_s": float(q[1]), "p999_s": float(q[2]),
+                "max_s": float(t.max()),
+                "median_frac": float(q[0] / period), "p99_frac": float(q[1] / period),
+                "p999_frac": float(q[2] / period), "max_frac": float(t.max() / period),
+                "nonconverged": h.meters()["nonconverged"]}
+    finally:
+        h.close()
+
+
+def edit_latency(design, part, block, volts, n_edits=20) -> dict:
+    """Real-time paced blocks on a thread; step ``part`` up and down and
+    record the time from request to the first block that uses the change."""
+    h = LiveHost(load_design(design), fs=FS, block=block, source=_source(volts),
+                 autosave=False)
+    h.prepare()
+    # the measurement run after each edit would compete for the CPU like the
+    # real worker does; keep it (it is what a user gets)
+    stop = threading.Event()
+    out = np.zeros((block, 2), dtype=np.float32)
+
+    def pace():
+        period = block / FS
+        nxt = time.perf_counter()
+        while not stop.is_set():
+            h._audio_block(None, out, block, False)
+            nxt += period
+            d = nxt - time.perf_counter()
+            if d > 0:
+                time.sleep(d)
+            else:
+                nxt = time.perf_counter()
+    th = threading.Thread(target=pace, daemon=True)
+    th.start()
+    try:
+        time.sleep(0.3)
+        rederive = []
+        for k in range(n_edits):
+            a = time.perf_counter()
+            h.step_value(part, 1 if k % 2 == 0 else -1).result(30)
+            rederive.append(time.perf_counter() - a)
+            time.sleep(0.3)
+        time.sleep(0.05)
+    finally:
+        stop.set()
+        th.join(5)
+        h.close()
+    lat = np.array(h.edit_latencies_s)
+    return {"design": design, "part": part, "block": block, "edits": int(lat.size),
+            "latency_median_s": float(np.median(lat)) if lat.size else None,
+            "latency_max_s": float(lat.max()) if lat.size else None,
+            "edit_job_median_s": float(np.median(rederive)),
+            "note": "latency: request to the start of the first block using the change; "
+                    "edit job: design edit + re-derive + autosave, in the worker"}
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--seconds", type=float, default=5.0, help="audio per case (default 5)")
+    ap.add_argument("--designs", help="comma-separated designs (default: all built-in)")
+    ap.add_argument("--quick", action="store_true", help="1 s per case, 64 samples only")
+    args = ap.parse_args(argv)
+    from engine.synth import render_phrase
+    volts = render_phrase("demo", FS)
+    designs = args.designs.split(",") if args.designs else sorted(builtin_designs())
+    blocks = (64,) if args.quick else BLOCKS
+    secs = 1.0 if args.quick else args.seconds
+    rows, errors = [], []
+    cases = [(d, None) for d in designs] + [AB_PAIR]
+    print(f"{'design':<34}{'block':>6}{'median':>9}{'p99':>9}{'p99.9':>9}{'max':>9}"
+          "   (fraction of the block period)")
+    for d, v in cases:
+        for b in blocks:
+            name = d if v is None else f"{d} vs {v}"
+            try:
+                r = block_times(d, v, b, secs, volts)
+            except SolderlessError as exc:
+                errors.append({"design": name, "block": b, "error": str(exc)})
+                print(f"{name:<34}{b:>6}   error: {exc}")
+                break
+            rows.append(r)
+            print(f"{name:<34}{b:>6}{r['median_frac']:9.3f}{r['p99_frac']:9.3f}"
+                  f"{r['p999_frac']:9.3f}{r['max_frac']:9.3f}")
+    lat = []
+    for d, part in (("feedforward", "detector.C1"), ("flagship", "detector.C1")):
+        for b in (64, 256):
+            try:
+                r = edit_latency(d, part, b, volts)
+            except SolderlessError as exc:
+                errors.append({"design": d, "edit": part, "error": str(exc)})
+                print(f"edit latency {d}: error: {exc}")
+                break
+            lat.append(r)
+            print(f"edit latency {d} {part} block {b}: median "
+                  f"{1e3 * r['latency_median_s']:.2f} ms, max {1e3 * r['latency_max_s']:.2f} ms "
+                  f"(edit job {1e3 * r['edit_job_median_s']:.1f} ms)")
+    target = [r for r in rows if r["design"] == "flagship" and r["variant"] is None
+              and r["block"] == 64]
+    res = {"fs": FS, "seconds_per_case": secs, "machine": platform.platform(),
+           "python": platform.python_version(), "block_times": rows,
+           "edit_latency": lat, "errors": errors,
+           "target": {"what": "flagship, 64 samples, single design: p99.9 <= 0.25 of the period",
+                      "p999_frac": target[0]["p999_frac"] if target else None,
+                      "met": (target[0]["p999_frac"] <= 0.25) if target else None}}
+    out = ROOT / "bench" / "results" / "live.json"
+    out.parent.mkdir(parents=True, exist_ok=True)
+    out.write_text(json.dumps(res, indent=1))
+    print(f"wrote {out}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
