@@ -4,8 +4,8 @@ Every device module provides the same small set of things (SPICE3 style):
 ``KIND``, ``CODE`` (integer type code for the compiled kernel), ``NPORTS``,
 ``DEFAULTS`` (SPICE .model parameter defaults), ``layout(element)`` (validate
 parameters; ports, internal nodes, linear stamps, flat parameter vector,
-probes), numba ``evaluate(par, v, po, i, G)`` (port currents and Jacobian
-block), numba ``limit(par, vnew, vold, po)`` (junction limiting) and
+probes), numba ``evaluate(par, pa, v, po, i, G)`` (port currents and Jacobian
+block), numba ``limit(par, pa, vnew, vold, po)`` (junction limiting) and
 ``region(par, v, i)`` for reports.
 
 Adding a device: one module, one line in ``REGISTRY`` below, and one branch

@@ -31,7 +31,7 @@ GMIN = 1e-12
 EXPLIM = 80.0
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def lexp(x):
     """exp(x) continued linearly above EXPLIM; returns (value, derivative)."""
     if x > EXPLIM:
@@ -41,7 +41,7 @@ def lexp(x):
     return e, e
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def junction(v, isat, vte):
     """Shockley junction current and conductance as in ngspice (no GMIN).
 
@@ -56,7 +56,7 @@ def junction(v, isat, vte):
     return -isat * (1.0 + a), isat * 3.0 * a / v
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def pnjlim(vnew, vold, vt, vcrit):
     """SPICE2 junction voltage limiting (Nagel 1975).
 

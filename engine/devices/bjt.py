@@ -57,29 +57,29 @@ def layout(el) -> DeviceLayout:
                                 "vbe": ({}, {0: 1.0}), "vce": ({}, {1: 1.0})})
 
 
-@njit(cache=True, nogil=True)
-def evaluate(par, v, po, i, G):
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def evaluate(par, pa, v, po, i, G):
     """Ib, Ic and their 2x2 Jacobian w.r.t. (Vbe, Vce) at the ports."""
-    pol = par[0]
+    pol = par[pa + 0]
     vbe = pol * v[po]
     vce = pol * v[po + 1]
     vbc = vbe - vce
-    isat = par[1]
-    cbe, gbe = junction(vbe, isat, par[4])
-    cbc, gbc = junction(vbc, isat, par[5])
-    q1 = 1.0 - vbc * par[6] - vbe * par[7]
+    isat = par[pa + 1]
+    cbe, gbe = junction(vbe, isat, par[pa + 4])
+    cbc, gbc = junction(vbc, isat, par[pa + 5])
+    q1 = 1.0 - vbc * par[pa + 6] - vbe * par[pa + 7]
     if q1 < 1e-3:
         q1 = 1e-3
     # qb = 1/q1 ; (cbe - cbc)/qb = (cbe - cbc)*q1
     ict = (cbe - cbc) * q1
-    dict_dvbe = gbe * q1 - (cbe - cbc) * par[7]
-    dict_dvbc = -gbc * q1 - (cbe - cbc) * par[6]
-    ic = ict - cbc / par[3] - GMIN * vbc
-    ib = cbe / par[2] + cbc / par[3] + GMIN * (vbe + vbc)
+    dict_dvbe = gbe * q1 - (cbe - cbc) * par[pa + 7]
+    dict_dvbc = -gbc * q1 - (cbe - cbc) * par[pa + 6]
+    ic = ict - cbc / par[pa + 3] - GMIN * vbc
+    ib = cbe / par[pa + 2] + cbc / par[pa + 3] + GMIN * (vbe + vbc)
     dic_dvbe = dict_dvbe
-    dic_dvbc = dict_dvbc - gbc / par[3] - GMIN
-    dib_dvbe = gbe / par[2] + GMIN
-    dib_dvbc = gbc / par[3] + GMIN
+    dic_dvbc = dict_dvbc - gbc / par[pa + 3] - GMIN
+    dib_dvbe = gbe / par[pa + 2] + GMIN
+    dib_dvbc = gbc / par[pa + 3] + GMIN
     # chain rule: vbc = vbe - vce
     i[po] = pol * ib
     i[po + 1] = pol * ic
@@ -89,16 +89,16 @@ def evaluate(par, v, po, i, G):
     G[po + 1, po + 1] = -dic_dvbc
 
 
-@njit(cache=True, nogil=True)
-def limit(par, vn, vo, po):
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def limit(par, pa, vn, vo, po):
     """pnjlim on Vbe and Vbc (as SPICE), Vce follows."""
-    pol = par[0]
+    pol = par[pa + 0]
     vbe_n = pol * vn[po]
     vbe_o = pol * vo[po]
     vbc_n = vbe_n - pol * vn[po + 1]
     vbc_o = vbe_o - pol * vo[po + 1]
-    vbe_l = pnjlim(vbe_n, vbe_o, par[4], par[8])
-    vbc_l = pnjlim(vbc_n, vbc_o, par[5], par[9])
+    vbe_l = pnjlim(vbe_n, vbe_o, par[pa + 4], par[pa + 8])
+    vbc_l = pnjlim(vbc_n, vbc_o, par[pa + 5], par[pa + 9])
     vn[po] = pol * vbe_l
     vn[po + 1] = pol * (vbe_l - vbc_l)
 

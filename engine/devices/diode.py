@@ -42,13 +42,13 @@ def layout(el) -> DeviceLayout:
                         probes={"id": ({0: 1.0}, {}), "vd": ({}, {0: 1.0})})
 
 
-@njit(cache=True, nogil=True)
-def evaluate(par, v, po, i, G):
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def evaluate(par, pa, v, po, i, G):
     """Junction current and conductance at port voltage v[po]."""
     vd = v[po]
-    isat = par[0]
-    vte = par[1]
-    xbv = par[3]
+    isat = par[pa + 0]
+    vte = par[pa + 1]
+    xbv = par[pa + 3]
     if vd < -xbv:
         e, de = lexp(-(xbv + vd) / vte)
         c = -isat * e
@@ -59,13 +59,13 @@ def evaluate(par, v, po, i, G):
     G[po, po] = g + GMIN
 
 
-@njit(cache=True, nogil=True)
-def limit(par, vn, vo, po):
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def limit(par, pa, vn, vo, po):
     """pnjlim on the junction (and on the breakdown side when BV is set)."""
-    vn[po] = pnjlim(vn[po], vo[po], par[1], par[2])
-    xbv = par[3]
+    vn[po] = pnjlim(vn[po], vo[po], par[pa + 1], par[pa + 2])
+    xbv = par[pa + 3]
     if vn[po] < -xbv + 0.0 and vn[po] < 0.0:
-        vn[po] = -xbv - pnjlim(-(vn[po] + xbv), -(vo[po] + xbv), par[1], par[2])
+        vn[po] = -xbv - pnjlim(-(vn[po] + xbv), -(vo[po] + xbv), par[pa + 1], par[pa + 2])
 
 
 def region(par, v, i) -> str:

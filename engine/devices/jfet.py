@@ -47,7 +47,7 @@ def layout(el) -> DeviceLayout:
                                 "vgs": ({}, {0: 1.0}), "vds": ({}, {1: 1.0})})
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def _channel(vgs, vds, vto, beta, lam):
     """Square-law channel current for vds >= 0: (Id, dId/dVgs, dId/dVds)."""
     vgst = vgs - vto
@@ -61,25 +61,25 @@ def _channel(vgs, vds, vto, beta, lam):
     return beta * base * lf, beta * 2.0 * vgst * lf, beta * base * lam
 
 
-@njit(cache=True, nogil=True)
-def evaluate(par, v, po, i, G):
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def evaluate(par, pa, v, po, i, G):
     """Gate and drain currents and their 2x2 Jacobian w.r.t. (Vgs, Vds)."""
-    pol = par[0]
+    pol = par[pa + 0]
     vgs = pol * v[po]
     vds = pol * v[po + 1]
     vgd = vgs - vds
-    igs, ggs = junction(vgs, par[4], par[5])
-    igd, ggd = junction(vgd, par[4], par[5])
+    igs, ggs = junction(vgs, par[pa + 4], par[pa + 5])
+    igd, ggd = junction(vgd, par[pa + 4], par[pa + 5])
     igs += GMIN * vgs
     ggs += GMIN
     igd += GMIN * vgd
     ggd += GMIN
     if vds >= 0.0:
-        idc, gm, gds = _channel(vgs, vds, par[1], par[2], par[3])
+        idc, gm, gds = _channel(vgs, vds, par[pa + 1], par[pa + 2], par[pa + 3])
         d_vgs = gm
         d_vds = gds
     else:
-        f, gm, gds = _channel(vgd, -vds, par[1], par[2], par[3])
+        f, gm, gds = _channel(vgd, -vds, par[pa + 1], par[pa + 2], par[pa + 3])
         idc = -f
         d_vgs = -gm
         d_vds = gm + gds
@@ -91,16 +91,16 @@ def evaluate(par, v, po, i, G):
     G[po + 1, po + 1] = d_vds + ggd
 
 
-@njit(cache=True, nogil=True)
-def limit(par, vn, vo, po):
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def limit(par, pa, vn, vo, po):
     """pnjlim on the gate junctions Vgs and Vgd."""
-    pol = par[0]
+    pol = par[pa + 0]
     vgs_n = pol * vn[po]
     vgs_o = pol * vo[po]
     vgd_n = vgs_n - pol * vn[po + 1]
     vgd_o = vgs_o - pol * vo[po + 1]
-    a = pnjlim(vgs_n, vgs_o, par[5], par[6])
-    b = pnjlim(vgd_n, vgd_o, par[5], par[6])
+    a = pnjlim(vgs_n, vgs_o, par[pa + 5], par[pa + 6])
+    b = pnjlim(vgd_n, vgd_o, par[pa + 5], par[pa + 6])
     vn[po] = pol * a
     vn[po + 1] = pol * (a - b)
 

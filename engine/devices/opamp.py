@@ -47,22 +47,22 @@ def layout(el) -> DeviceLayout:
                         probes={"iclip": ({0: 1.0, 1: -1.0}, {})})
 
 
-@njit(cache=True, nogil=True)
-def evaluate(par, v, po, i, G):
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def evaluate(par, pa, v, po, i, G):
     """Clamp currents I0*exp((v + VHR)/VSOFT) and conductances."""
     for k in range(2):
-        e, de = lexp((v[po + k] + par[1]) / par[2])
-        i[po + k] = par[0] * e
-        G[po + k, po + k] = par[0] * de / par[2]
+        e, de = lexp((v[po + k] + par[pa + 1]) / par[pa + 2])
+        i[po + k] = par[pa + 0] * e
+        G[po + k, po + k] = par[pa + 0] * de / par[pa + 2]
     G[po, po + 1] = 0.0
     G[po + 1, po] = 0.0
 
 
-@njit(cache=True, nogil=True)
-def limit(par, vn, vo, po):
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def limit(par, pa, vn, vo, po):
     """pnjlim on the shifted clamp voltages."""
     for k in range(2):
-        vn[po + k] = pnjlim(vn[po + k] + par[1], vo[po + k] + par[1], par[2], par[3]) - par[1]
+        vn[po + k] = pnjlim(vn[po + k] + par[pa + 1], vo[po + k] + par[pa + 1], par[pa + 2], par[pa + 3]) - par[pa + 1]
 
 
 def region(par, v, i) -> str:

@@ -53,11 +53,11 @@ def layout(el) -> DeviceLayout:
                                 "vabc": ({}, {1: 1.0})})
 
 
-@njit(cache=True, nogil=True)
-def evaluate(par, v, po, i, G):
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def evaluate(par, pa, v, po, i, G):
     """Port currents (0, Iabc, -Iout) and their 3x3 Jacobian."""
     va = v[po + 1]
-    c, g = junction(va, par[0], par[1])
+    c, g = junction(va, par[pa + 0], par[pa + 1])
     i[po] = 0.0
     i[po + 1] = c + GMIN * va
     G[po + 1, po + 1] = g + GMIN
@@ -66,17 +66,17 @@ def evaluate(par, v, po, i, G):
     if ia < 0.0:
         ia = 0.0
         dia = 0.0
-    t = math.tanh(v[po] * par[3])
-    dt = (1.0 - t * t) * par[3]
+    t = math.tanh(v[po] * par[pa + 3])
+    dt = (1.0 - t * t) * par[pa + 3]
     vo = v[po + 2]
     if t >= 0.0:
-        h = math.tanh((par[5] - vo) / par[6])
+        h = math.tanh((par[pa + 5] - vo) / par[pa + 6])
         s = 0.5 * (1.0 + h)
-        ds = -0.5 * (1.0 - h * h) / par[6]
+        ds = -0.5 * (1.0 - h * h) / par[pa + 6]
     else:
-        h = math.tanh((vo - par[4]) / par[6])
+        h = math.tanh((vo - par[pa + 4]) / par[pa + 6])
         s = 0.5 * (1.0 + h)
-        ds = 0.5 * (1.0 - h * h) / par[6]
+        ds = 0.5 * (1.0 - h * h) / par[pa + 6]
     i[po + 2] = -ia * t * s
     G[po + 2, po] = -ia * dt * s
     G[po + 2, po + 1] = -dia * t * s
@@ -88,10 +88,10 @@ def evaluate(par, v, po, i, G):
     G[po + 1, po + 2] = 0.0
 
 
-@njit(cache=True, nogil=True)
-def limit(par, vn, vo, po):
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def limit(par, pa, vn, vo, po):
     """pnjlim on the bias junction(s); the tanh input needs none."""
-    vn[po + 1] = pnjlim(vn[po + 1], vo[po + 1], par[1], par[2])
+    vn[po + 1] = pnjlim(vn[po + 1], vo[po + 1], par[pa + 1], par[pa + 2])
 
 
 def region(par, v, i) -> str:

@@ -51,17 +51,22 @@ _refresh_cache_stamp()
 from engine.devices import bjt, diode, jfet, opamp, ota  # noqa: E402
 
 # counter slots in the int64 array ``cnt``
-C_SAMPLES, C_NONCONV, C_FALLBACK, C_MAXIT, C_PHASE, C_INDEX, C_ITERS = range(7)
+C_SAMPLES, C_NONCONV, C_FALLBACK, C_MAXIT, C_PHASE, C_INDEX, C_ITERS, C_LUOK = range(8)
 N_COUNTERS = 8
 
-ABSTOL = 1e-9   # V, Newton step tolerance (plus RELTOL*|v|)
-RELTOL = 1e-7
+# Newton stops when a step is below ABSTOL + RELTOL*|v|.  Newton's error after
+# a step d is second order, about d**2/(2*VT) at a junction: 3e-5 V leaves
+# ~2e-8 V, i.e. ~7e-7 relative in a junction current (below -120 dB).
+ABSTOL = 3e-5   # V
+RELTOL = 1e-6
 MAXIT = 30
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def wave_value(kind, par, t):
-    """SPICE-style source waveform value at time t: 1 SIN, 2 PULSE, 3 PWL."""
+    """SPICE-style source waveform value at time t: 1 SIN, 2 PULSE, 3 PWL.
+
+    par holds this source's parameters only."""
     if kind == 1:  # SIN(VO VA FREQ TD THETA PHASE)
         vo, va, f, td, th, ph = par[0], par[1], par[2], par[3], par[4], par[5]
         phr = ph * math.pi / 180.0
@@ -102,48 +107,49 @@ def wave_value(kind, par, t):
     return 0.0
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def eval_devices(dcode, dpo, dpa, par, v, i, G):
     """Port currents i(v) and Jacobian blocks G of all devices."""
     for d in range(dcode.size):
         c = dcode[d]
-        pp = par[dpa[d]:dpa[d + 1]]
+        pa = dpa[d]
         po = dpo[d]
         if c == 2:
-            bjt.evaluate(pp, v, po, i, G)
+            bjt.evaluate(par, pa, v, po, i, G)
         elif c == 1:
-            diode.evaluate(pp, v, po, i, G)
+            diode.evaluate(par, pa, v, po, i, G)
         elif c == 3:
-            jfet.evaluate(pp, v, po, i, G)
+            jfet.evaluate(par, pa, v, po, i, G)
         elif c == 4:
-            ota.evaluate(pp, v, po, i, G)
+            ota.evaluate(par, pa, v, po, i, G)
         elif c == 5:
-            opamp.evaluate(pp, v, po, i, G)
+            opamp.evaluate(par, pa, v, po, i, G)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def limit_devices(dcode, dpo, dpa, par, vn, vo):
     """Junction limiting of a Newton step vo -> vn, in place on vn."""
     for d in range(dcode.size):
         c = dcode[d]
-        pp = par[dpa[d]:dpa[d + 1]]
+        pa = dpa[d]
         po = dpo[d]
         if c == 2:
-            bjt.limit(pp, vn, vo, po)
+            bjt.limit(par, pa, vn, vo, po)
         elif c == 1:
-            diode.limit(pp, vn, vo, po)
+            diode.limit(par, pa, vn, vo, po)
         elif c == 3:
-            jfet.limit(pp, vn, vo, po)
+            jfet.limit(par, pa, vn, vo, po)
         elif c == 4:
-            ota.limit(pp, vn, vo, po)
+            ota.limit(par, pa, vn, vo, po)
         elif c == 5:
-            opamp.limit(pp, vn, vo, po)
+            opamp.limit(par, pa, vn, vo, po)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def lu_solve(J, b, piv, n):
     """Solve J z = b in place (b <- z) by Gaussian elimination with partial
-    pivoting; J is overwritten.  Returns False when J is singular."""
+    pivoting; J is overwritten by its LU factors and piv by the pivot rows
+    (reusable with :func:`lu_resolve`).  Returns False when J is singular."""
     for k in range(n):
         m = k
         big = abs(J[k, k])
@@ -152,6 +158,7 @@ def lu_solve(J, b, piv, n):
             if a > big:
                 big = a
                 m = r
+        piv[k] = m
         if not big > 1e-300:
             return False
         if m != k:
@@ -165,6 +172,7 @@ def lu_solve(J, b, piv, n):
         inv = 1.0 / J[k, k]
         for r in range(k + 1, n):
             f = J[r, k] * inv
+            J[r, k] = f
             if f != 0.0:
                 for c in range(k + 1, n):
                     J[r, c] -= f * J[k, c]
@@ -177,8 +185,26 @@ def lu_solve(J, b, piv, n):
     return True
 
 
-@njit(cache=True, nogil=True)
-def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit):
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def lu_resolve(J, piv, b, n):
+    """Solve with factors left by :func:`lu_solve` (b <- J^-1 b)."""
+    for k in range(n):
+        m = piv[k]
+        if m != k:
+            tmp = b[k]
+            b[k] = b[m]
+            b[m] = tmp
+        for r in range(k + 1, n):
+            b[r] -= J[r, k] * b[k]
+    for k in range(n - 1, -1, -1):
+        s = b[k]
+        for c in range(k + 1, n):
+            s -= J[k, c] * b[c]
+        b[k] = s / J[k, k]
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt):
     """Solve v = p + K i(v) for v (in place, warm start = v on entry).
 
     Returns the number of iterations, or -1 if not converged within maxit.
@@ -206,7 +232,9 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit):
                         for b in range(m):
                             J[r, po + b] -= kra * G[po + a, po + b]
         if not lu_solve(J, F, piv, n):
+            cnt[C_LUOK] = 0
             return -1
+        cnt[C_LUOK] = 1
         for r in range(n):
             vn[r] = v[r] + F[r]
         limit_devices(dcode, dpo, dpa, par, vn, v)
@@ -231,14 +259,31 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit):
     return -1
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv,
-                ptmp, cnt):
-    """Newton with bounded fallback; never leaves non-finite values in v, i."""
+                ptmp, cnt, v2, p2):
+    """Newton with bounded fallback; never leaves non-finite values in v, i.
+
+    Predictor: the previous solution plus a chord step with the previous
+    Jacobian's factors, v + J^-1 (p - pprev) (exact for a linear network).
+    v2, p2 keep the solution and p two samples back (for diagnostics).
+    """
     n = p.size
     for r in range(n):
         vprev[r] = v[r]
-    it = newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT)
+    if cnt[C_LUOK] == 1:
+        for r in range(n):
+            F[r] = p[r] - pprev[r]
+        lu_resolve(J, piv, F, n)
+        for r in range(n):
+            vn[r] = v[r] + F[r]
+        limit_devices(dcode, dpo, dpa, par, vn, v)
+        for r in range(n):
+            v[r] = vn[r]
+    for r in range(n):
+        v2[r] = vprev[r]
+        p2[r] = pprev[r]
+    it = newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt)
     if it > 0:
         ok = True
         for r in range(n):
@@ -259,7 +304,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
             f = s / nsub
             for r in range(n):
                 ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
-            it = newton(ptmp, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT)
+            it = newton(ptmp, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt)
             if it < 0:
                 good = False
                 break
@@ -277,7 +322,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
     return False
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
               A, B, C, Dv, Ev, K, Dy, Ey, Fy, Vy,
               dcode, dpo, dnp, dpa, par,
@@ -287,7 +332,8 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
 
     yout[k] receives output row 0; every ``pdec`` samples a probe frame (rows
     1.. of y) is written into pbuf (if it has rows) at columns pstart, pstart+1
-    ... below ``pcap``.  ws is a (6, max(n_ports, n_states)) workspace.
+    ... below ``pcap``.  ws is an (8, max(n_ports, n_states)) workspace
+    whose rows 6, 7 (port voltages and p two samples back) persist.
     Returns the number of probe frames written.
     """
     nx = x.size
@@ -301,6 +347,8 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     vn = ws[3, :npt]
     ptmp = ws[4, :npt]
     xt = ws[5, :nx]
+    v2 = ws[6, :npt]
+    p2 = ws[7, :npt]
     frames = pstart
     for k in range(nin):
         t = cnt[C_INDEX] * dt
@@ -321,7 +369,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
                     s += Ev[r, c] * u[c]
                 p[r] = s
             solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn,
-                        piv, ptmp, cnt)
+                        piv, ptmp, cnt, v2, p2)
             for r in range(npt):
                 pprev[r] = p[r]
         for r in range(ny):
@@ -367,7 +415,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     return frames - pstart
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def convert_states(x, xp, g_old, g_new, a, b):
     """Carry reactive states over a value change (capacitor voltage and
     current, inductor current and voltage stay as they were)."""

@@ -182,7 +182,7 @@ class Simulator:
         self._i = np.zeros(npt)
         self._pprev = np.zeros(npt)
         self._u = np.zeros(nu)
-        self._ws = np.zeros((6, max(npt, nx, 1)))
+        self._ws = np.zeros((8, max(npt, nx, 1)))
         self._G = np.zeros((npt, npt))
         self._J = np.zeros((npt, npt))
         self._piv = np.zeros(npt, dtype=np.int64)
@@ -217,6 +217,8 @@ class Simulator:
         self._v[:] = dc.v
         self._i[:] = dc.i
         self._pprev[:] = m.Dv @ self._x + m.Ev @ m.udc
+        self._ws[6, :net.np_] = dc.v
+        self._ws[7, :net.np_] = self._pprev
         self._cnt[:] = 0
         self._model = m
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ dc.i + m.Vy[0] @ dc.v)
