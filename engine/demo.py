@@ -41,7 +41,7 @@ FLAGSHIP = "flagship"
 VARIANTS = ("flagship-slow-release", "flagship-linear-sustain")
 FS = 48000.0
 #: WAV full scale: a sample of 1.0 is this many volts.
-WAV_FULL_SCALE_V = 2.0
+WAV_FULL_SCALE_V = 1.0
 #: Vce below this with the base-emitter junction forward biased: saturated
 #: (common practice: a small-signal BJT saturates near 0.1-0.3 V).
 VCE_SAT = 0.3
@@ -220,8 +220,10 @@ def _plots(out: Path, fs: float, x: np.ndarray, runs: list[Run], curves, release
     fig, ax = plt.subplots(figsize=(5.5, 5))
     for r, c in zip(runs, curves):
         ax.plot(c.input_db, c.output_db, "o-", ms=3, label=r.title)
-    lo, hi = float(STATIC_LEVELS_DB[0]), float(STATIC_LEVELS_DB[-1])
-    ax.plot([lo, hi], [lo, hi], ":", color="0.5", label="unity (no compression)")
+    lo, hi = float(curves[0].input_db[0]), float(curves[0].input_db[-1])
+    g0 = float(curves[0].gain_db[0])
+    ax.plot([lo, hi], [lo + g0, hi + g0], ":", color="0.5",
+            label="slope 1 through the first point (no compression)")
     ax.set_xlabel("input level (dBV RMS)")
     ax.set_ylabel("output level (dBV RMS)")
     ax.set_title(f"Static curve, steady {STATIC_FREQ:g} Hz tones")
