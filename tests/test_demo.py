@@ -1,0 +1,114 @@
+"""`solderless demo`: it runs, writes the WAVs, the plots and the report."""
+import argparse
+import json
+import re
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+import soundfile as sf
+
+from engine import demo
+from engine.errors import SolderlessError
+
+PNG_MAGIC = b"\x89PNG\r\n\x1a\n"   # PNG signature (ISO/IEC 15948, 5.2)
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo")
+    path = demo.run_demo(out, seconds=2.0, verbose=False)
+    return out, path
+
+
+def test_report_exists_with_every_picture(demo_run):
+    out, path = demo_run
+    assert path == out / "report.html" and path.is_file()
+    text = path.read_text(encoding="utf-8")
+    imgs = re.findall(r"<img src='([^']+)'", text)
+    assert set(imgs) == {"waveforms.png", "control.png", "static_curve.png", "release.png"}
+    for name in imgs:
+        data = (out / name).read_bytes()
+        assert data[:8] == PNG_MAGIC and len(data) > 5000
+    for word in ("Operating point", "LUFS", "63 %", "solderless play flagship",
+                 "solderless gui flagship", "full scale"):
+        assert word in text
+    # the operating point table lists the detector's rectifiers as off by design
+    assert "detector.Q2" in text and "off (by design)" in text
+
+
+def test_wavs_hold_the_rendered_signals(demo_run):
+    out, _ = demo_run
+    names = ["input.wav", "flagship.wav", "flagship-slow-release.wav",
+             "flagship-linear-sustain.wav"]
+    for n in names:
+        x, fs = sf.read(out / n)
+        assert fs == 48000 and x.size == 96000
+        assert np.all(np.abs(x) <= 1.0) and np.max(np.abs(x)) > 1e-3
+    x, _ = sf.read(out / "input.wav")
+    from engine.synth import render_phrase
+    ref = render_phrase("demo", fs=48000.0)[:96000] / demo.WAV_FULL_SCALE_V
+    assert np.max(np.abs(x - ref)) < 1e-6     # float WAV: the input as rendered
+
+
+def test_summary_numbers(demo_run):
+    out, _ = demo_run
+    s = json.loads((out / "summary.json").read_text())
+    assert [d["name"] for d in s["designs"]] == ["flagship", "flagship-slow-release",
+                                                  "flagship-linear-sustain"]
+    for d in s["designs"]:
+        assert d["nonconverged"] == 0
+        assert np.isfinite(d["integrated_loudness_lufs"])
+    base, slow, lin = s["designs"]
+    assert base["level_vs_baseline_lu"] == 0.0
+    # loudness difference is the difference of BS.1770 integrated loudness
+    assert lin["level_vs_baseline_lu"] == pytest.approx(
+        lin["integrated_loudness_lufs"] - base["integrated_loudness_lufs"])
+    # time-constant convention (63 %): the slow variant recovers later
+    assert slow["release_time_s"] > 2.0 * base["release_time_s"]
+    # static curve shows compression: the output rises less than the input
+    dx = base["static_input_dbv"][-1] - base["static_input_dbv"][0]
+    dy = base["static_output_dbv"][-1] - base["static_output_dbv"][0]
+    assert dy < 0.6 * dx
+
+
+def test_loudness_uses_bs1770():
+    # ITU-R BS.1770-4 Annex 1: a 0 dBFS 997 Hz sine in one channel reads -3.01 LKFS
+    fs = 48000.0
+    t = np.arange(int(5 * fs)) / fs
+    x = demo.WAV_FULL_SCALE_V * np.sin(2 * np.pi * 997 * t)
+    assert demo.loudness(x, fs) == pytest.approx(-3.01, abs=0.02)
+
+
+def test_transistor_check_classifies_regions():
+    # thresholds: Vce < 0.3 V with Vbe forward = saturated; Ic < 1 uA = off
+    # (common practice for small-signal transistors)
+    parts = [SimpleNamespace(qualname="s.QA", type="npn", note=""),
+             SimpleNamespace(qualname="s.QB", type="npn", note="rectifier (off at rest)"),
+             SimpleNamespace(qualname="s.QC", type="pnp", note=""),
+             SimpleNamespace(qualname="s.QD", type="npn", note="")]
+    design = SimpleNamespace(parts=lambda: parts)
+    op = SimpleNamespace(devices={
+        "s.QA": {"ic": 1e-3, "vbe": 0.65, "vce": 0.1},
+        "s.QB": {"ic": 1e-9, "vbe": 0.3, "vce": 5.0},
+        "s.QC": {"ic": -5e-4, "vbe": -0.62, "vce": -4.0},
+        "s.QD": {"ic": 1e-8, "vbe": 0.2, "vce": 9.0}})
+    regions = {r["part"]: (r["region"], r["intended"]) for r in demo.transistor_check(design, op)}
+    assert regions == {"s.QA": ("saturated", False), "s.QB": ("off", True),
+                       "s.QC": ("active", False), "s.QD": ("off", False)}
+    probs = demo.transistor_problems(design, op)
+    assert len(probs) == 2 and "s.QA" in probs[0] and "s.QD" in probs[1]
+
+
+def test_cli_arguments_and_user_mistakes(tmp_path):
+    p = argparse.ArgumentParser()
+    demo.add_demo_arguments(p)
+    a = p.parse_args(["--out", str(tmp_path / "x"), "--seconds", "1.5"])
+    assert a.out == str(tmp_path / "x") and a.seconds == 1.5
+    with pytest.raises(SolderlessError, match="--seconds"):
+        demo.run_demo(tmp_path / "y", seconds=-1.0, verbose=False)
+    blocker = tmp_path / "file"
+    blocker.write_text("keep me")
+    with pytest.raises(SolderlessError, match="output folder"):
+        demo.run_demo(blocker / "sub", seconds=1.0, verbose=False)
+    assert blocker.read_text() == "keep me"
