@@ -165,7 +165,9 @@ def main(argv=None) -> int:
                   f"(edit job {1e3 * r['edit_job_median_s']:.1f} ms)")
     target = [r for r in rows if r["design"] == "flagship" and r["variant"] is None
               and r["block"] == 64]
+    import os
     res = {"fs": FS, "seconds_per_case": secs, "machine": platform.platform(),
+           "cpus": os.cpu_count(), "load_average_at_end": os.getloadavg(),
            "python": platform.python_version(), "block_times": rows,
            "edit_latency": lat, "errors": errors,
            "target": {"what": "flagship, 64 samples, single design: p99.9 <= 0.25 of the period",

@@ -295,3 +295,29 @@ def test_missing_portaudio_gives_the_install_line(tmp_path):
     r = subprocess.run([sys.executable, "-m", "engine.cli", "designs"], cwd=ROOT,
                        env=env, capture_output=True, text=True, timeout=120)
     assert r.returncode == 0 and "flagship" in r.stdout
+
+
+def test_a_failing_callback_goes_silent_and_reports():
+    class Broken(StandInSimulator):
+        def process_into(self, x, y, probe_buf=None):
+            if self.values["drive.GAIN"] > 5:
+                raise RuntimeError("solver fell over")
+            return super().process_into(x, y, probe_buf)
+    h = _host(source=ToneSource(1000.0, 0.1), simulator_factory=Broken, block=64)
+    h.run_offline(10)
+    h.voices[0].sim.set_values({"drive.GAIN": 10.0})
+    out = np.ones((64, 2), dtype=np.float32)
+    h._audio_block(None, out, 64, False)            # as PortAudio would call it
+    assert np.all(out == 0.0)
+    assert isinstance(h.error, RuntimeError)
+    assert "the audio callback failed" in h.guard_reason
+    h.close()
+
+
+def test_set_source_while_running():
+    h = _host(source=ToneSource(1000.0, 0.1), block=64)
+    h.run_offline(10)
+    h.set_source(ToneSource(500.0, 0.3))
+    h.run_offline(int(0.5 * FS / 64))
+    assert h.meters()["input"]["peak_v"] == pytest.approx(0.3, rel=1e-9)
+    h.close()

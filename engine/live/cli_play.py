@@ -197,6 +197,7 @@ def run_play(args) -> int:
         console_thread.start()
     problem = None
     told_guard = ""
+    told_xruns = 0
     try:
         while not stop.is_set():
             if args.seconds is not None and time.perf_counter() - t0 >= args.seconds:
@@ -214,6 +215,10 @@ def run_play(args) -> int:
             if g and g != told_guard:
                 err(f"output muted for safety: {g}; type 'unmute' to resume")
             told_guard = g
+            if host.xruns > told_xruns and told_xruns == 0:
+                err("audio dropouts (xruns): the computer is not keeping up; "
+                    "try a larger --block (256) or a lower --oversample")
+            told_xruns = host.xruns
     except KeyboardInterrupt:
         pass
     finally:

@@ -728,6 +728,18 @@ class LiveHost:
                           hint=("did you mean " + ", ".join(close) + "?") if close
                           else "type 'parts' to list them")
 
+    def set_source(self, source: Source) -> None:
+        """Change the input source while playing (any thread but the audio
+        thread). The source is prepared here, then handed over in one
+        reference swap; a source that needs the live input can only replace
+        another one that does (the stream type is fixed when it opens)."""
+        if self.stream is not None and bool(source.needs_input) != bool(self.source.needs_input):
+            raise AudioError("this source needs a different kind of stream",
+                             hint="stop and start again with --source " +
+                                  ("input" if source.needs_input else "synth / tone / FILE"))
+        source.prepare(self.fs, self.in_fs_v)
+        self.source = source
+
     def select(self, which: str) -> None:
         """Hear A or B (crossfade of ``limiter.XFADE_S``); edits go to it too."""
         i = 0 if which in (0, "A", "a") else 1
