@@ -8,7 +8,9 @@ output.  Output current into ``out``:
 (emitter-coupled pair: Gray, Hurst, Lewis & Meyer, Analysis and Design of
 Analog Integrated Circuits, 5th ed.), where s(Vo) is a soft output compliance
 that fades the current out as Vo = v(out)-v(vee) leaves [VLO, VHI] (width
-VSOFT), and ROUT is the output resistance from out to vee.
+VSOFT), and ROUT is the output resistance from out to vee.  The device has no
+positive-supply pin, so the upper limit is off by default (VHI = 1e6 V); set
+VHI to about (V+ - V-) - 1 V to model it.
 Small-signal transconductance gm = Iabc/(2*VT).
 """
 from __future__ import annotations
@@ -24,7 +26,7 @@ from engine.devices._common import (GMIN, VT, DeviceLayout, junction, pnjlim,
 KIND = "OTA"
 CODE = 4
 NPORTS = 3
-DEFAULTS = {"IS": 1e-15, "N": 1.0, "JUNCTIONS": 1.0, "VLO": 1.0, "VHI": 8.0,
+DEFAULTS = {"IS": 1e-15, "N": 1.0, "JUNCTIONS": 1.0, "VLO": 1.0, "VHI": 1e6,
             "VSOFT": 0.1, "ROUT": 1e8, "RIN": math.inf}
 # par: 0 IS, 1 vte (all junctions), 2 vcrit, 3 1/(2VT), 4 VLO, 5 VHI, 6 VSOFT
 

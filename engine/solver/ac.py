@@ -83,7 +83,9 @@ def ac_response(circuit: Circuit | Network, freqs, values: dict | None = None):
     if rs is not None and rs.kind == "R" and src.nodes[0] in rs.nodes:
         jack = rs.nodes[1] if rs.nodes[0] == src.nodes[0] else rs.nodes[0]
         i_rs = (vn(src.nodes[0]) - vn(jack)) / values[rs.name]
-        Zin = (vn(jack) - vn(src.nodes[1])) / i_rs
+        with np.errstate(divide="ignore", invalid="ignore"):  # no current: Zin = inf
+            Zin = (vn(jack) - vn(src.nodes[1])) / i_rs
     else:
-        Zin = (vn(src.nodes[0]) - vn(src.nodes[1])) / (-w[:, net.branch_of[src.name]])
+        with np.errstate(divide="ignore", invalid="ignore"):  # no current: Zin = inf
+            Zin = (vn(src.nodes[0]) - vn(src.nodes[1])) / (-w[:, net.branch_of[src.name]])
     return freqs, H, Zin

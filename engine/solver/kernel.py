@@ -60,6 +60,11 @@ N_COUNTERS = 8
 ABSTOL = 3e-5   # V
 RELTOL = 1e-6
 MAXIT = 30
+#: Conductance placed across every device port in the linear network (and
+#: taken off the device currents, so the model is exact).  It keeps the
+#: linear network regular when a net touches only device ports (a Darlington
+#: base, a diode string, an OTA bias pin fed by a current source).
+PORT_G0 = 1e-3
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
@@ -124,6 +129,16 @@ def eval_devices(dcode, dpo, dpa, par, v, i, G):
             ota.evaluate(par, pa, v, po, i, G)
         elif c == 5:
             opamp.evaluate(par, pa, v, po, i, G)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def eval_ports(dcode, dpo, dpa, par, v, i, G):
+    """Device port currents less the port offset conductance PORT_G0 that the
+    linear network carries (see :data:`PORT_G0`): i - PORT_G0*v, G - PORT_G0."""
+    eval_devices(dcode, dpo, dpa, par, v, i, G)
+    for r in range(v.size):
+        i[r] -= PORT_G0 * v[r]
+        G[r, r] -= PORT_G0
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
@@ -213,7 +228,7 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt):
     """
     n = p.size
     for it in range(maxit):
-        eval_devices(dcode, dpo, dpa, par, v, i, G)
+        eval_ports(dcode, dpo, dpa, par, v, i, G)
         for r in range(n):
             s = v[r] - p[r]
             for c in range(n):
@@ -318,7 +333,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
     cnt[C_NONCONV] += 1
     for r in range(n):
         v[r] = vprev[r]
-    eval_devices(dcode, dpo, dpa, par, v, i, G)
+    eval_ports(dcode, dpo, dpa, par, v, i, G)
     return False
 
 

@@ -285,8 +285,10 @@ class Network:
                 g[k] = 0.0 if T is None else 2.0 * val / T
         return g, a, b
 
-    def build_S(self, values: dict[str, float], T: float | None, gshunt: float = 0.0):
-        """The MNA matrix for element values and step T (None: DC)."""
+    def build_S(self, values: dict[str, float], T: float | None, gshunt: float = 0.0,
+                port_g0: float = 0.0):
+        """The MNA matrix for element values and step T (None: DC); port_g0
+        is a conductance placed across every device port."""
         nw = self.nw
         S = np.zeros((nw, nw))
         node = self._node
@@ -343,6 +345,9 @@ class Network:
                     cond(s.a, s.b, g[k])
                 else:
                     S[s.branch, s.branch] -= g[k]
+        if port_g0:
+            for a, b in self.ports:
+                cond(a, b, port_g0)
         if gshunt:
             for k in range(self.nn):
                 S[k, k] += gshunt

@@ -111,10 +111,11 @@ def make_probe(net: Network, text: str) -> ProbeRow:
 
             def build(values, g, ci=ci, cv=cv, po=po):
                 vi, vv = z(npt), z(npt)
-                for k, c in ci.items():
+                for k, c in ci.items():  # kernel currents are i - PORT_G0*v
                     vi[po + k] = c
+                    vv[po + k] += c * K.PORT_G0
                 for k, c in cv.items():
-                    vv[po + k] = c
+                    vv[po + k] += c
                 return z(nw), z(nx), z(nu), vi, vv
             return ProbeRow(text, _UNITS.get(q, ""), build)
     raise DesignError(f"probe {text!r}: no device named {a!r}", part=text,
@@ -215,13 +216,14 @@ class Simulator:
         self._x[:] = m.g * r  # capacitor: Gc*v with zero current; inductor: RL*i
         self._xp[:] = self._x
         self._v[:] = dc.v
-        self._i[:] = dc.i
+        self._i[:] = dc.i - K.PORT_G0 * dc.v
         self._pprev[:] = m.Dv @ self._x + m.Ev @ m.udc
         self._ws[6, :net.np_] = dc.v
         self._ws[7, :net.np_] = self._pprev
         self._cnt[:] = 0
         self._model = m
-        self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ dc.i + m.Vy[0] @ dc.v)
+        self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i
+                          + m.Vy[0] @ dc.v)
         self._rs.reset()
 
     def operating_point(self) -> OperatingPoint:

@@ -4,6 +4,7 @@ With M = S^-1 [Bx Bu Bn] (S from :mod:`engine.solver.mna`), every linear
 quantity c^T w is a row c^T M over (x, u, i).  The model is
 
     v  = Dv x + Ev u + K i          nonlinear port voltages
+                                    (i: device currents less PORT_G0*v)
     x' = A x + B u + C i            state update (trapezoidal / BE companions)
     y  = Dy x + Ey u + Fy i + Vy v  output row 0, then probe rows
 
@@ -80,7 +81,8 @@ def solve_mna(net: Network, S: np.ndarray, rhs: np.ndarray, what: str) -> np.nda
 def derive(net: Network, values: dict[str, float], T: float,
            probes: list[ProbeRow]) -> Model:
     """Build the discrete model for element values and step T (seconds)."""
-    S = net.build_S(values, T)
+    from engine.solver.kernel import PORT_G0
+    S = net.build_S(values, T, port_g0=PORT_G0)
     Bx, Bu, Bn = net._bx, net._bu, net._bn
     nx, nu = net.nx, net.nu
     M = solve_mna(net, S, np.hstack([Bx, Bu, Bn]), "transient")
