@@ -1,0 +1,42 @@
+"""The live host in its own process, through real PortAudio on ALSA null."""
+import os
+
+import pytest
+
+from engine.errors import DesignError, SolderlessError
+from engine.live.remote import HostProcess
+
+pytestmark = pytest.mark.audio
+
+
+@pytest.fixture
+def null_home(tmp_path, monkeypatch):
+    # the child is spawned fresh, so PortAudio there reads this HOME's .asoundrc
+    home = tmp_path / "home"
+    home.mkdir()
+    (home / ".asoundrc").write_text("pcm.!default {\n    type null\n}\n")
+    monkeypatch.setenv("HOME", str(home))
+    monkeypatch.setenv("XDG_CONFIG_HOME", str(home / ".config"))
+    return home
+
+
+def test_host_process_streams_takes_edits_and_reports_meters(null_home):
+    with HostProcess("booster", source="tone:440:100m", block=128, start=True) as hp:
+        s0 = hp.state()
+        assert s0["running"] and s0["error"] is None
+        m = hp.meters()
+        assert m["input"]["peak_v"] == pytest.approx(0.1, rel=1e-6)
+        new = hp.step_value("boost.C1", 1)           # E12 for capacitors: 100n -> 120n
+        assert new == pytest.approx(120e-9)
+        assert any(p.qualname == "boost.C1" and p.value == pytest.approx(120e-9)
+                   for p in hp.parts())
+        frames, lost = hp.frames()
+        assert frames.shape[0] > 0
+        with pytest.raises(DesignError, match="no part named"):
+            hp.set_value("boost.R99", 1e3)
+        assert hp.state()["blocks"] > s0["blocks"]
+
+
+def test_host_process_reports_a_bad_design_as_a_user_error(null_home):
+    with pytest.raises(SolderlessError, match="no design file or built-in design"):
+        HostProcess("no-such-design", source="tone")
