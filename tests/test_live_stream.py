@@ -183,3 +183,26 @@ def test_devices_lists_what_portaudio_sees(null_home):
     assert r.returncode == 0, r.stderr
     devs = json.loads(r.stdout)
     assert any(d["name"] == "default" and d["outputs"] > 0 for d in devs)
+
+
+def test_cli_terminal_commands_edit_and_save(null_home, tmp_path):
+    home, env = null_home
+    target = tmp_path / "mine.toml"
+    cmds = f"pick boost.C1\nup\npick level.LEVEL\nturn 0.5\nbypass boost\nsave {target}\n"
+    r = subprocess.run([sys.executable, "-m", "engine.cli", "play", "booster",
+                        "--source", "tone:1k:50m", "--seconds", "4", "--json"],
+                       cwd=ROOT, env=env, input=cmds, capture_output=True, text=True,
+                       timeout=600)
+    assert r.returncode == 0, r.stderr[-2000:]
+    assert "error" not in r.stderr.lower().replace('"error": null', "")
+    assert f"saved {target}" in r.stderr
+    from engine.design import load_design
+    d = load_design(target)
+    parts = {p.qualname: p for p in d.parts()}
+    # 100n stepped up once through E12 (IEC 60063) is 120n
+    assert parts["boost.C1"].value == pytest.approx(120e-9)
+    assert parts["level.LEVEL"].rotation == pytest.approx(0.5)
+    assert d.stage("boost").bypass is True
+    # every edit was also autosaved under the config folder
+    auto = home / ".config" / "solderless" / "autosave" / "booster.toml"
+    assert auto.exists() and "bypass = true" in auto.read_text()

@@ -182,17 +182,24 @@ def run_play(args) -> int:
         raise
     stop = threading.Event()
     console_thread = None
-    interactive = not args.no_console and sys.stdin is not None and sys.stdin.isatty()
+    interactive = not args.no_console and sys.stdin is not None
     if interactive:
         from engine.live.console import Console
         con = Console(host, say=err)
-        err("type 'help' for commands, 'quit' to stop")
+        tty = sys.stdin.isatty()
+        if tty:
+            err("type 'help' for commands, 'quit' to stop")
 
         def read():
-            for line in sys.stdin:
-                if not con.handle(line):
-                    break
-            stop.set()
+            try:
+                for line in sys.stdin:
+                    if not con.handle(line):
+                        stop.set()
+                        return
+            except (OSError, ValueError):
+                return
+            if tty:                 # Ctrl-D at the terminal stops; a script's end does not
+                stop.set()
         console_thread = threading.Thread(target=read, daemon=True)
         console_thread.start()
     problem = None
@@ -230,6 +237,9 @@ def run_play(args) -> int:
     if problem:
         err(f"stopped: {problem}. Your design and its edits are kept"
             + (f" (autosave: {host.autosave_path})" if host.autosave_path else ""))
+    elif host.edits and host.autosave_path:
+        err(f"{host.edits} edit(s) this session; a copy is in {host.autosave_path}"
+            " ('save' writes the design itself)")
     if args.seconds is not None or args.json:
         if args.json:
             print(json.dumps(s, indent=1, default=str))

@@ -169,17 +169,37 @@ class Voice:
         self.loud = RunningLoudness(fs, tau=3.0)
         self.build_time_s = 0.0
         self.probe_units: tuple = ()
+        # probe row of each simulator -> position in self.probes (a rebuilt
+        # circuit may have lost a probed net, e.g. when its stage is bypassed)
+        self.maps: dict[int, np.ndarray] = {}
+        self.last_map = np.arange(len(self.probes), dtype=np.int64)
+        self.missing: list[str] = []
 
     def build(self):
-        """Flatten the design and build a simulator (worker thread). Returns it."""
+        """Flatten the design and build a simulator (worker thread). Returns it.
+        Probes the circuit no longer has are left out (their meters read
+        nothing) and listed in ``self.missing``."""
         t0 = time.perf_counter()
         circuit = self.design.flatten()
-        try:
-            sim = self.factory(circuit, self.fs, self.oversample, self.probes)
-        except SolderlessError:
-            raise
+        keep = list(self.probes)
+        missing = []
+        while True:
+            try:
+                sim = self.factory(circuit, self.fs, self.oversample, keep)
+                break
+            except SolderlessError as exc:
+                bad = exc.part if exc.part in keep else next(
+                    (p for p in keep if p in str(exc)), None)
+                if bad is None:
+                    raise
+                keep.remove(bad)
+                missing.append(bad)
         self.build_time_s = time.perf_counter() - t0
-        self.probe_units = tuple(getattr(sim, "probe_units", ()) or ())
+        self.missing = missing
+        units = dict(zip(keep, tuple(getattr(sim, "probe_units", ()) or ())))
+        if not missing:
+            self.probe_units = tuple(units.get(p, "") for p in self.probes)
+        self.maps[id(sim)] = np.array([self.probes.index(p) for p in keep], dtype=np.int64)
         return sim
 
     def warm(self, sim, n: int = 64) -> None:
@@ -193,9 +213,11 @@ class Voice:
         pb = self.probe_buf if self.probes else None
         inc = self.incoming
         if inc is None:
+            self.last_map = self.maps.get(id(self.sim), self.last_map)
             return self.sim.process_into(x[:n], self.y[:n], pb)
         ps = self.probe_scratch if self.probes else None
         self.sim.process_into(x[:n], self.y_old[:n], ps)
+        self.last_map = self.maps.get(id(inc), self.last_map)
         k = inc.process_into(x[:n], self.y[:n], pb)
         self.xpos = lim.crossfade_into(self.y_old, self.y, n, self.xpos,
                                        1.0 / (lim.XFADE_S * self.fs))
@@ -274,6 +296,7 @@ class LiveHost:
         self._edit_pending_t: float | None = None
         self._edit_lat = np.zeros(1024)
         self._n_edit_lat = 0
+        self.edits = 0
         self.messages: "queue.SimpleQueue[str]" = queue.SimpleQueue()
         self._guard_told = 0
         self.tap: np.ndarray | None = None
@@ -327,7 +350,8 @@ class LiveHost:
         lim.output_stage(z, z, self.block, st, self.prm.copy(), z.copy(), z.copy())
         lim.crossfade_into(z, z.copy(), self.block, 0.0, 0.1)
         M.peak_ms(z, self.block)
-        M.probe_means(np.zeros((1, 4)), 4, np.zeros(1 + M.C_PROBES), M.C_PROBES)
+        M.probe_means_mapped(np.zeros((1, 4)), 4, np.zeros(1 + M.C_PROBES), M.C_PROBES,
+                             np.zeros(1, dtype=np.int64), 1)
         self.source.fill(None, self.block, z.copy())
         if hasattr(self.source, "pos"):
             self.source.pos = 0
@@ -396,7 +420,8 @@ class LiveHost:
             for i, v in enumerate(self.voices):
                 k = v.process(x, n)
                 if v.probes:
-                    M.probe_means(v.probe_buf, k, row, col)
+                    M.probe_means_mapped(v.probe_buf, k, row, col, v.last_map,
+                                         len(v.probes))
                 col += len(v.probes)
                 v.loud.process(v.y[:n])
             va = self.voices[0]
@@ -519,7 +544,9 @@ class LiveHost:
             except BaseException as exc:
                 fut.set_exception(exc)
             for v in self.voices:   # drop retired simulators off the audio thread
-                v.retired = None
+                if v.retired is not None:
+                    v.maps.pop(id(v.retired), None)
+                    v.retired = None
 
     def _post(self, fn: Callable) -> Future:
         fut: Future = Future()
@@ -552,6 +579,7 @@ class LiveHost:
             self._edit_pending_t = t_post
 
     def _after_edit(self, vi: int) -> None:
+        self.edits += 1
         self._autosave(vi)
         self._measure_dirty.add(vi)
         self._measure_wake.set()
@@ -690,6 +718,9 @@ class LiveHost:
                 v.design.set_bypass(stage, not on)
                 raise
             v.warm(sim)
+            if v.missing:
+                self.messages.put(f"{v.label}: no longer measured after the change: "
+                                  + ", ".join(v.missing))
             if v.sim is None:
                 v.sim = sim
             else:

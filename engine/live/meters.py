@@ -94,6 +94,19 @@ def probe_means(buf, nframes, row, col0):  # pragma: no cover - compiled
         row[col0 + p] = acc / nframes if nframes > 0 else np.nan
 
 
+@numba.njit(nogil=True, cache=True)
+def probe_means_mapped(buf, nframes, row, col0, idx, width):  # pragma: no cover
+    """Like :func:`probe_means`, with probe row ``j`` written to column
+    ``col0 + idx[j]``; columns of probes the simulator lacks read NaN."""
+    for c in range(width):
+        row[col0 + c] = np.nan
+    for p in range(idx.shape[0]):
+        acc = 0.0
+        for i in range(nframes):
+            acc += buf[p, i]
+        row[col0 + idx[p]] = acc / nframes if nframes > 0 else np.nan
+
+
 class _Ballistics:
     """Peak hold/fall and windowed RMS of one level column pair."""
 
@@ -202,7 +215,7 @@ class MeterReader:
         gr_ctl = None
         cur = None
         hist = self.control_hist[voice]
-        if ctl is not None and hist:
+        if ctl is not None and hist and not math.isnan(hist[-1]):
             cur = hist[-1]
             q = ctl[1]
             if q > 0 and cur > 0 and self.control_law[voice] == "linear":
@@ -251,7 +264,8 @@ class MeterReader:
                 continue
             off = C_PROBES + (0 if v == 0 else len(self.names_a))
             probes = {} if f is None else {
-                n: float(f[off + i]) for i, n in enumerate(names)}
+                n: (None if math.isnan(f[off + i]) else float(f[off + i]))
+                for i, n in enumerate(names)}
             cur, gr_ctl, gr_meas = self._gr(v)
             loud = None if f is None else f[C_LOUD_A if v == 0 else C_LOUD_B]
             out = self.out_a if v == 0 else self.out_b
