@@ -321,3 +321,39 @@ def test_set_source_while_running():
     h.run_offline(int(0.5 * FS / 64))
     assert h.meters()["input"]["peak_v"] == pytest.approx(0.3, rel=1e-9)
     h.close()
+
+
+# ------------------------------------------------------------ real designs
+def _real(name, **kw):
+    from engine.design import load_design
+    kw.setdefault("autosave", False)
+    return H.LiveHost(load_design(name), **kw)
+
+
+def test_gain_reduction_from_control_agrees_with_the_measured_one():
+    # Feed-forward OTA compressor on a steady 1 kHz tone: with gain
+    # proportional to Iabc (gm = Iabc / 2VT, REFERENCES.md), the gain change
+    # read from the control current must equal the change of output level
+    # against the small-signal gain, measured independently from the levels.
+    h = _real("feedforward", source=ToneSource(1000.0, 0.3), block=128)
+    h.run_offline(int(2.0 * FS / 128))
+    v = h.meters()["voices"]["A"]
+    assert v["gr_control_db"] < -3.0                     # it is compressing
+    assert v["gr_control_db"] == pytest.approx(v["gr_measured_db"], abs=1.0)
+    h.close()
+
+
+def test_real_ab_pair_is_loudness_matched():
+    # Baseline compressor against a much louder booster: with matching, what
+    # is heard from A and from B has the same BS.1770-4 integrated loudness.
+    from engine.design import load_design
+    h = H.LiveHost(load_design("feedforward"), variant=load_design("booster"),
+                   source=ToneSource(330.0, 0.2), block=256, autosave=False, level_db=-12.0)
+    h.run_offline(int(10 * FS / 256))
+    ya = h.run_offline(int(2 * FS / 256))
+    h.select("B")
+    h.run_offline(int(0.1 * FS / 256))
+    yb = h.run_offline(int(2 * FS / 256))
+    assert abs(h.loudness_offset_db) > 3.0               # they did differ
+    assert integrated_loudness(ya, FS) == pytest.approx(integrated_loudness(yb, FS), abs=0.3)
+    h.close()
