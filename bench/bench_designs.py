@@ -1,0 +1,107 @@
+"""Speed and operating-point sanity of every built-in design.
+
+For each design in presets/designs: flatten, solve the DC operating point,
+classify its transistors (engine.demo.transistor_check), then render the
+synthetic guitar phrase "demo" (engine.synth) at the design's suggested
+oversampling, in 4096-sample blocks through ``Simulator.process_into`` as the
+live host does. The kernels are warmed on a short block first, so the timing
+excludes compilation. Real-time factor = audio seconds / wall seconds (the
+target is 20x or more). Prints a table and writes bench/results/designs.json.
+
+Run from the repository root:  python bench/bench_designs.py [--repeat N]
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import platform
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+
+from engine import demo  # noqa: E402
+from engine.design import builtin_designs, load_design  # noqa: E402
+from engine.solver import Simulator  # noqa: E402
+from engine.synth import render_phrase  # noqa: E402
+
+FS = 48000.0
+TARGET_RT = 20.0
+BLOCK = 4096
+
+
+def bench_one(name: str, x: np.ndarray, repeat: int) -> dict:
+    d = load_design(name)
+    circ = d.flatten()
+    t0 = time.perf_counter()
+    sim = Simulator(circ, fs=FS, oversample=d.oversample, block_max=BLOCK)
+    op = sim.operating_point()
+    t_setup = time.perf_counter() - t0
+    checks = demo.transistor_check(d, op)
+    problems = demo.transistor_problems(d, op)
+    y = np.empty(BLOCK)
+    sim.process_into(np.zeros(BLOCK), y)          # warm the compiled kernels
+    walls = []
+    nonconv = 0
+    for _ in range(repeat):
+        sim.reset()
+        out = np.empty_like(x)
+        t1 = time.perf_counter()
+        for s in range(0, x.size, BLOCK):
+            e = min(s + BLOCK, x.size)
+            sim.process_into(x[s:e], out[s:e])
+        walls.append(time.perf_counter() - t1)
+        nonconv = max(nonconv, sim.stats["nonconverged"])
+    wall = min(walls)
+    types = [p.type for p in d.parts()]
+    return {
+        "design": name, "title": d.name, "oversample": d.oversample,
+        "bjts": types.count("npn") + types.count("pnp"),
+        "devices": sum(types.count(t) for t in ("npn", "pnp", "njfet", "pjfet", "diode",
+                                                "opamp", "ota")),
+        "states": sim.n_states, "ports": sim.n_ports,
+        "setup_s": t_setup, "audio_s": x.size / FS, "wall_s": wall,
+        "realtime_factor": (x.size / FS) / wall, "meets_target": (x.size / FS) / wall >= TARGET_RT,
+        "nonconverged": nonconv,
+        "op_method": getattr(op, "method", ""),
+        "transistors": {r["part"]: r["region"] + (" (by design)" if r["intended"] else "")
+                        for r in checks},
+        "op_problems": problems,
+        "out_rms_v": float(np.sqrt(np.mean((out - out.mean()) ** 2))),
+    }
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--repeat", type=int, default=3, help="timed runs per design (best kept)")
+    ap.add_argument("--designs", nargs="*", default=None, help="names (default: all built-in)")
+    args = ap.parse_args(argv)
+    x = render_phrase("demo", fs=FS)
+    rows = [bench_one(n, x, args.repeat) for n in (args.designs or sorted(builtin_designs()))]
+    hdr = (f"{'design':<26}{'os':>3}{'BJT':>4}{'dev':>4}{'st':>4}{'pt':>4}"
+           f"{'x RT':>8}{'target':>8}{'nonconv':>8}  operating point")
+    print(hdr)
+    print("-" * len(hdr))
+    for r in rows:
+        opn = "ok" if not r["op_problems"] else "; ".join(r["op_problems"])
+        print(f"{r['design']:<26}{r['oversample']:>3}{r['bjts']:>4}{r['devices']:>4}"
+              f"{r['states']:>4}{r['ports']:>4}{r['realtime_factor']:>8.1f}"
+              f"{'yes' if r['meets_target'] else 'NO':>8}{r['nonconverged']:>8}  {opn}")
+    load = os.getloadavg() if hasattr(os, "getloadavg") else None
+    result = {"fs": FS, "phrase_s": x.size / FS, "block": BLOCK, "target_realtime": TARGET_RT,
+              "repeat": args.repeat, "machine": platform.machine(), "python": platform.python_version(),
+              "cpus": os.cpu_count(), "loadavg_at_end": load, "designs": rows}
+    out = ROOT / "bench" / "results"
+    out.mkdir(parents=True, exist_ok=True)
+    (out / "designs.json").write_text(json.dumps(result, indent=2, default=float))
+    print(f"\nwrote {out / 'designs.json'} (load average {load})")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
