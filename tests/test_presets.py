@@ -205,10 +205,10 @@ def test_flagship_static_curve_compresses_above_threshold(static_curves):
 
 def test_linear_taper_variant_compresses_more_at_the_same_rotation(static_curves):
     # Same SUSTAIN rotation (0.8): the audio taper passes (81**0.8 - 1)/80 =
-    # 0.38 of the signal to the detector, the linear taper 0.80 (taper laws:
+    # 0.41 of the signal to the detector, the linear taper 0.80 (taper laws:
     # docs/design-format.md; audio = 10 % at mid rotation, common practice), so
-    # the linear variant's threshold is lower by roughly 20*log10(0.8/0.38)
-    # = 6.5 dB (less, since the detector loads the wiper).
+    # the linear variant's threshold is lower by roughly 20*log10(0.8/0.41)
+    # = 5.8 dB (a little less, since the detector loads the wiper).
     base, lin = static_curves["flagship"], static_curves["flagship-linear-sustain"]
     d0, d1 = load_design("flagship"), load_design("flagship-linear-sustain")
     assert d0.part("detector.SUSTAIN").rotation == d1.part("detector.SUSTAIN").rotation
