@@ -33,10 +33,16 @@ def add_gui_arguments(parser: argparse.ArgumentParser) -> None:
                         help="folder for settings and autosaves (default ~/.config/solderless)")
 
 
+_APP = None
+
+
 def _app():
+    """The QApplication (created once and kept alive) with the workbench style."""
+    global _APP
     from PyQt6.QtWidgets import QApplication
     from gui import theme
     app = QApplication.instance() or QApplication(sys.argv[:1])
+    _APP = app
     app.setApplicationName("Solderless")
     theme.apply(app)
     return app

@@ -198,16 +198,21 @@ class LivePanel(QWidget):
             pl.setLabel("left", unit, units=None)
             pl.getAxis("left").setWidth(64)
             pl.getAxis("left").enableAutoSIPrefix(False)
-            pl.showGrid(x=True, y=True, alpha=0.2)
             pl.setMouseEnabled(x=False, y=False)
             pl.setMenuEnabled(False)
             pl.hideButtons()
             if i < 2:
-                pl.getAxis("bottom").setStyle(showValues=False)
+                pl.hideAxis("bottom")
             else:
                 pl.setLabel("bottom", "time", units="s")
             self.plots[key] = pl
-            self.curves[key] = pl.plot(pen=pg.mkPen(col, width=1.6))
+            # thin pens without antialiasing and peak downsampling keep a redraw
+            # cheap: painting runs Python on the GUI thread and shares the GIL
+            # with the audio thread
+            c = pl.plot(pen=pg.mkPen(col, width=1), antialias=False)
+            c.setDownsampling(auto=True, method="peak")
+            c.setClipToView(True)
+            self.curves[key] = c
         self.plots["control current"].setXLink(self.plots["gain reduction"])
         self.plots["probe"].setXLink(self.plots["gain reduction"])
         # scope
@@ -237,6 +242,7 @@ class LivePanel(QWidget):
         self.hist: dict[str, deque] = {}
         self.hist_t: deque = deque(maxlen=4000)
         self.last_preview = None
+        self._ranges: dict = {}
         self.probe_pick.currentTextChanged.connect(lambda _t: self._redraw_probe())
 
     def _level_text(self, v):
@@ -267,6 +273,8 @@ class LivePanel(QWidget):
     def show_preview(self, r) -> None:
         """Fill meters, traces and scope from an offline preview."""
         self.last_preview = r
+        for pl in self.plots.values():
+            pl.enableAutoRange(x=True)
         self.state.set(f"preview {r.t[-1] + r.block / r.fs:.1f} s")
         s = r.series
         m = r.meters
@@ -373,17 +381,41 @@ class LivePanel(QWidget):
                        bad=bool(snap.get("guard")))
 
     def redraw_live(self, fs: float, block: int) -> None:
-        """Redraw the scrolling traces from the live history (GUI timer)."""
+        """Redraw the scrolling traces from the live history (GUI timer).
+        Time runs as "seconds ago" on a fixed axis and the y ranges move only
+        when the data leaves them, so the axes are not re-rendered every frame."""
         if not self.hist_t:
             return
         t = np.asarray(self.hist_t, dtype=float) * block / fs
-        keep = t >= t[-1] - TRACE_SECONDS
+        t = t - t[-1]
+        keep = t >= -TRACE_SECONDS
         for key in ("gain reduction", "control current", "probe"):
             h = self.hist.get(key)
             if h is not None and len(h) == len(t):
-                self.curves[key].setData(t[keep], np.asarray(h, dtype=float)[keep],
-                                         connect="finite")
+                y = np.asarray(h, dtype=float)[keep]
+                self.curves[key].setData(t[keep], y, connect="finite")
+                self._follow(key, y)
+
+    def _follow(self, key: str, y) -> None:
+        d = y[np.isfinite(y)]
+        if d.size == 0:
+            return
+        lo, hi = float(d.min()), float(d.max())
+        cur = self._ranges.get(key)
+        if cur is not None and cur[0] <= lo and hi <= cur[1]:
+            return
+        if key == "gain reduction":
+            r = (min(-6.0, 1.5 * lo), 0.5)
+        else:
+            span = max(hi - lo, 0.05 * max(abs(hi), abs(lo)), 1e-9)
+            r = (lo - 0.5 * span, hi + 0.5 * span)
+        self._ranges[key] = r
+        self.plots[key].setYRange(*r, padding=0)
 
     def clear_live(self) -> None:
         self.hist.clear()
         self.hist_t.clear()
+        self._ranges = {}
+        for pl in self.plots.values():
+            pl.setXRange(-TRACE_SECONDS, 0, padding=0)
+            pl.disableAutoRange()

@@ -63,4 +63,6 @@ def apply(app) -> None:
     """Give the application the workbench style and pyqtgraph its colours."""
     import pyqtgraph as pg
     app.setStyleSheet(STYLE)
-    pg.setConfigOptions(background=INSET, foreground=DIM, antialias=True)
+    # no antialiasing: painting runs Python on the GUI thread, which shares the
+    # GIL with the audio thread; crisp thin lines cost a fraction of smooth ones
+    pg.setConfigOptions(background=INSET, foreground=DIM, antialias=False)
