@@ -711,8 +711,16 @@ class _Flattener:
         if not d.stages:
             raise DesignError("the design has no stages", file=self.file,
                               hint="add a [[stage]] table")
-        first_in = uf.find(self.local(d.stages[0].name, "in"))
-        last_out = uf.find(self.local(d.stages[-1].name, "out"))
+        # the jack feeds the first stage with an `in` port; the output is the
+        # last stage with an `out` port (side branches such as a detector have
+        # no `out`; a bias stage has no ports at all)
+        with_in = [s for s in d.stages if "in" in s.ports]
+        with_out = [s for s in d.stages if "out" in s.ports]
+        if not with_in or not with_out:
+            raise DesignError("the chain needs a stage with an 'in' port and one with an "
+                              "'out' port", file=self.file)
+        first_in = uf.find(self.local(with_in[0].name, "in"))
+        last_out = uf.find(self.local(with_out[-1].name, "out"))
         elements: list[Element] = []
         names: set[str] = set()
 
