@@ -51,8 +51,9 @@ _refresh_cache_stamp()
 from engine.devices import bjt, diode, jfet, opamp, ota  # noqa: E402
 
 # counter slots in the int64 array ``cnt``
-C_SAMPLES, C_NONCONV, C_FALLBACK, C_MAXIT, C_PHASE, C_INDEX, C_ITERS, C_LUOK = range(8)
-N_COUNTERS = 8
+(C_SAMPLES, C_NONCONV, C_FALLBACK, C_MAXIT, C_PHASE, C_INDEX, C_ITERS, C_LUOK,
+ C_FACTOR) = range(9)
+N_COUNTERS = 10
 
 # Newton stops when a step is below ABSTOL + RELTOL*|v|.  Newton's error after
 # a step d is second order, about d**2/(2*VT) at a junction: 3e-5 V leaves
@@ -60,11 +61,17 @@ N_COUNTERS = 8
 ABSTOL = 3e-5   # V
 RELTOL = 1e-6
 MAXIT = 30
+# Chord iterations converge linearly (rate <= 1/4 enforced), so their step
+# tolerance is tighter: the error left is below a third of the last step.
+CHORD_TOL = 1e-6  # V
+CHORD_MAX = 4
 #: Conductance placed across every device port in the linear network (and
 #: taken off the device currents, so the model is exact).  It keeps the
 #: linear network regular when a net touches only device ports (a Darlington
 #: base, a diode string, an OTA bias pin fed by a current source).
 PORT_G0 = 1e-3
+#: Device bypass threshold on port-voltage change, volts.
+BYPASS_TOL = 1e-6
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
@@ -132,13 +139,51 @@ def eval_devices(dcode, dpo, dpa, par, v, i, G):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
-def eval_ports(dcode, dpo, dpa, par, v, i, G):
+def eval_one(c, par, pa, v, po, i, G):
+    """Evaluate one device by type code."""
+    if c == 2:
+        bjt.evaluate(par, pa, v, po, i, G)
+    elif c == 1:
+        diode.evaluate(par, pa, v, po, i, G)
+    elif c == 3:
+        jfet.evaluate(par, pa, v, po, i, G)
+    elif c == 4:
+        ota.evaluate(par, pa, v, po, i, G)
+    elif c == 5:
+        opamp.evaluate(par, pa, v, po, i, G)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval):
     """Device port currents less the port offset conductance PORT_G0 that the
-    linear network carries (see :data:`PORT_G0`): i - PORT_G0*v, G - PORT_G0."""
-    eval_devices(dcode, dpo, dpa, par, v, i, G)
-    for r in range(v.size):
-        i[r] -= PORT_G0 * v[r]
-        G[r, r] -= PORT_G0
+    linear network carries (see :data:`PORT_G0`): i - PORT_G0*v, G - PORT_G0.
+
+    Bypass (as SPICE's BYPASS option): a device whose port voltages moved
+    less than BYPASS_TOL since its last evaluation (veval, ieval) is not
+    re-evaluated; its currents are continued linearly with its last Jacobian
+    block (error ~ BYPASS_TOL**2/(2*VT), far below the Newton tolerance).
+    """
+    for d in range(dcode.size):
+        po = dpo[d]
+        m = dnp[d]
+        far = False
+        for a in range(m):
+            if not abs(v[po + a] - veval[po + a]) < BYPASS_TOL:
+                far = True
+        if far:
+            eval_one(dcode[d], par, dpa[d], v, po, i, G)
+            for a in range(m):
+                r = po + a
+                i[r] -= PORT_G0 * v[r]
+                G[r, r] -= PORT_G0
+                veval[r] = v[r]
+                ieval[r] = i[r]
+        else:
+            for a in range(m):
+                s = ieval[po + a]
+                for b in range(m):
+                    s += G[po + a, po + b] * (v[po + b] - veval[po + b])
+                i[po + a] = s
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
@@ -219,16 +264,65 @@ def lu_resolve(J, piv, b, n):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
-def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt):
+def _correct_currents(dcode, dpo, dnp, G, dv, i):
+    """First-order correction of the port currents for the last step dv."""
+    for d in range(dcode.size):
+        po = dpo[d]
+        m = dnp[d]
+        for a in range(m):
+            s = 0.0
+            for b in range(m):
+                s += G[po + a, po + b] * dv[po + b]
+            i[po + a] += s
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt, veval,
+           ieval):
     """Solve v = p + K i(v) for v (in place, warm start = v on entry).
 
-    Returns the number of iterations, or -1 if not converged within maxit.
+    First up to CHORD_MAX chord iterations with the last LU factors (if any),
+    then Newton-Raphson with a fresh Jacobian each iteration.  Returns the number of iterations, or -1 if not converged within maxit.
     On success ``i`` holds the port currents at the returned v (first-order
     corrected for the last step).
     """
     n = p.size
+    done = 0
+    if cnt[C_LUOK] == 1:
+        # chord iterations with the factors of an earlier Jacobian: cheap
+        # (no refactorisation) and fast while the Jacobian changes slowly;
+        # fall through to full Newton when convergence is slower than 1/4.
+        prev = 1e300
+        for it in range(CHORD_MAX):
+            eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
+            for r in range(n):
+                s = p[r] - v[r]
+                for c in range(n):
+                    s += K[r, c] * i[c]
+                F[r] = s
+            lu_resolve(J, piv, F, n)
+            for r in range(n):
+                vn[r] = v[r] + F[r]
+            limit_devices(dcode, dpo, dpa, par, vn, v)
+            conv = True
+            big = 0.0
+            for r in range(n):
+                d = vn[r] - v[r]
+                if not abs(d) <= CHORD_TOL + RELTOL * abs(vn[r]):
+                    conv = False
+                if abs(d) > big:
+                    big = abs(d)
+                F[r] = d
+                v[r] = vn[r]
+            done += 1
+            if conv:
+                _correct_currents(dcode, dpo, dnp, G, F, i)
+                return done
+            if not big < 0.25 * prev:
+                break
+            prev = big
     for it in range(maxit):
-        eval_ports(dcode, dpo, dpa, par, v, i, G)
+        eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
         for r in range(n):
             s = v[r] - p[r]
             for c in range(n):
@@ -246,6 +340,7 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt):
                     if kra != 0.0:
                         for b in range(m):
                             J[r, po + b] -= kra * G[po + a, po + b]
+        cnt[C_FACTOR] += 1
         if not lu_solve(J, F, piv, n):
             cnt[C_LUOK] = 0
             return -1
@@ -261,22 +356,14 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt):
             F[r] = d
             v[r] = vn[r]
         if conv:
-            # first-order correction of the currents for the last step
-            for d in range(dcode.size):
-                po = dpo[d]
-                m = dnp[d]
-                for a in range(m):
-                    s = 0.0
-                    for b in range(m):
-                        s += G[po + a, po + b] * F[po + b]
-                    i[po + a] += s
-            return it + 1
+            _correct_currents(dcode, dpo, dnp, G, F, i)
+            return done + it + 1
     return -1
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv,
-                ptmp, cnt, v2, p2):
+                ptmp, cnt, v2, p2, veval, ieval):
     """Newton with bounded fallback; never leaves non-finite values in v, i.
 
     Predictor: the previous solution plus a chord step with the previous
@@ -298,7 +385,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
     for r in range(n):
         v2[r] = vprev[r]
         p2[r] = pprev[r]
-    it = newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt)
+    it = newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt, veval, ieval)
     if it > 0:
         ok = True
         for r in range(n):
@@ -319,7 +406,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
             f = s / nsub
             for r in range(n):
                 ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
-            it = newton(ptmp, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt)
+            it = newton(ptmp, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt, veval, ieval)
             if it < 0:
                 good = False
                 break
@@ -333,7 +420,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
     cnt[C_NONCONV] += 1
     for r in range(n):
         v[r] = vprev[r]
-    eval_ports(dcode, dpo, dpa, par, v, i, G)
+    eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
     return False
 
 
@@ -347,8 +434,8 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
 
     yout[k] receives output row 0; every ``pdec`` samples a probe frame (rows
     1.. of y) is written into pbuf (if it has rows) at columns pstart, pstart+1
-    ... below ``pcap``.  ws is an (8, max(n_ports, n_states)) workspace
-    whose rows 6, 7 (port voltages and p two samples back) persist.
+    ... below ``pcap``.  ws is a (10, max(n_ports, n_states)) workspace
+    whose rows 6-9 persist (v, p two samples back; bypass memory).
     Returns the number of probe frames written.
     """
     nx = x.size
@@ -364,6 +451,8 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     xt = ws[5, :nx]
     v2 = ws[6, :npt]
     p2 = ws[7, :npt]
+    veval = ws[8, :npt]
+    ieval = ws[9, :npt]
     frames = pstart
     for k in range(nin):
         t = cnt[C_INDEX] * dt
@@ -384,7 +473,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
                     s += Ev[r, c] * u[c]
                 p[r] = s
             solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn,
-                        piv, ptmp, cnt, v2, p2)
+                        piv, ptmp, cnt, v2, p2, veval, ieval)
             for r in range(npt):
                 pprev[r] = p[r]
         for r in range(ny):

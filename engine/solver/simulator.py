@@ -183,7 +183,7 @@ class Simulator:
         self._i = np.zeros(npt)
         self._pprev = np.zeros(npt)
         self._u = np.zeros(nu)
-        self._ws = np.zeros((8, max(npt, nx, 1)))
+        self._ws = np.zeros((10, max(npt, nx, 1)))
         self._G = np.zeros((npt, npt))
         self._J = np.zeros((npt, npt))
         self._piv = np.zeros(npt, dtype=np.int64)
@@ -220,6 +220,8 @@ class Simulator:
         self._pprev[:] = m.Dv @ self._x + m.Ev @ m.udc
         self._ws[6, :net.np_] = dc.v
         self._ws[7, :net.np_] = self._pprev
+        self._ws[8, :] = 1e300  # bypass memory: force a first evaluation
+        self._ws[9, :] = 0.0
         self._cnt[:] = 0
         self._model = m
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i
@@ -334,12 +336,14 @@ class Simulator:
     @property
     def stats(self) -> dict:
         """Counters since the last reset: samples (kernel rate), nonconverged,
-        fallbacks, max_iterations, mean_iterations."""
+        fallbacks, max_iterations, mean_iterations, factorizations (Jacobian
+        LU factorisations; chord iterations reuse the last one)."""
         c = self._cnt
         s = int(c[K.C_SAMPLES])
         return {"samples": s, "nonconverged": int(c[K.C_NONCONV]),
                 "fallbacks": int(c[K.C_FALLBACK]), "max_iterations": int(c[K.C_MAXIT]),
-                "mean_iterations": float(c[K.C_ITERS]) / s if s else 0.0}
+                "mean_iterations": float(c[K.C_ITERS]) / s if s else 0.0,
+                "factorizations": int(c[K.C_FACTOR])}
 
     @property
     def n_ports(self) -> int:
