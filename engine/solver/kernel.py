@@ -264,6 +264,31 @@ def lu_resolve(J, piv, b, n):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def lu_inverse(J, piv, Ji, col, n):
+    """Explicit inverse from LU factors (col: scratch vector); chord steps
+    are then one matrix-vector product."""
+    for c in range(n):
+        for r in range(n):
+            col[r] = 0.0
+        col[c] = 1.0
+        lu_resolve(J, piv, col, n)
+        for r in range(n):
+            Ji[r, c] = col[r]
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def matvec_inplace(Ji, F, tmp, n):
+    """F <- Ji F (tmp: scratch)."""
+    for r in range(n):
+        s = 0.0
+        for c in range(n):
+            s += Ji[r, c] * F[c]
+        tmp[r] = s
+    for r in range(n):
+        F[r] = tmp[r]
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def _correct_currents(dcode, dpo, dnp, G, dv, i):
     """First-order correction of the port currents for the last step dv."""
     for d in range(dcode.size):
@@ -278,7 +303,7 @@ def _correct_currents(dcode, dpo, dnp, G, dv, i):
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt, veval,
-           ieval):
+           ieval, Ji):
     """Solve v = p + K i(v) for v (in place, warm start = v on entry).
 
     First up to CHORD_MAX chord iterations with the last LU factors (if any),
@@ -300,7 +325,7 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt, 
                 for c in range(n):
                     s += K[r, c] * i[c]
                 F[r] = s
-            lu_resolve(J, piv, F, n)
+            matvec_inplace(Ji, F, vn, n)
             for r in range(n):
                 vn[r] = v[r] + F[r]
             limit_devices(dcode, dpo, dpa, par, vn, v)
@@ -344,6 +369,7 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt, 
         if not lu_solve(J, F, piv, n):
             cnt[C_LUOK] = 0
             return -1
+        lu_inverse(J, piv, Ji, vn, n)
         cnt[C_LUOK] = 1
         for r in range(n):
             vn[r] = v[r] + F[r]
@@ -363,7 +389,7 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt, 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv,
-                ptmp, cnt, v2, p2, veval, ieval):
+                ptmp, cnt, v2, p2, veval, ieval, Ji):
     """Newton with bounded fallback; never leaves non-finite values in v, i.
 
     Predictor: the previous solution plus a chord step with the previous
@@ -376,7 +402,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
     if cnt[C_LUOK] == 1:
         for r in range(n):
             F[r] = p[r] - pprev[r]
-        lu_resolve(J, piv, F, n)
+        matvec_inplace(Ji, F, vn, n)
         for r in range(n):
             vn[r] = v[r] + F[r]
         limit_devices(dcode, dpo, dpa, par, vn, v)
@@ -385,7 +411,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
     for r in range(n):
         v2[r] = vprev[r]
         p2[r] = pprev[r]
-    it = newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt, veval, ieval)
+    it = newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt, veval, ieval, Ji)
     if it > 0:
         ok = True
         for r in range(n):
@@ -406,7 +432,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
             f = s / nsub
             for r in range(n):
                 ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
-            it = newton(ptmp, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt, veval, ieval)
+            it = newton(ptmp, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt, veval, ieval, Ji)
             if it < 0:
                 good = False
                 break
@@ -429,7 +455,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
               A, B, C, Dv, Ev, K, Dy, Ey, Fy, Vy,
               dcode, dpo, dnp, dpa, par,
               u, udc, skind, sptr, spar, inp, dt,
-              x, xp, v, i, pprev, ws, G, J, piv, yrow, cnt):
+              x, xp, v, i, pprev, ws, G, J, Ji, piv, yrow, cnt):
     """Run ``nin`` samples of input ``xin`` through the model.
 
     yout[k] receives output row 0; every ``pdec`` samples a probe frame (rows
@@ -473,7 +499,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
                     s += Ev[r, c] * u[c]
                 p[r] = s
             solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn,
-                        piv, ptmp, cnt, v2, p2, veval, ieval)
+                        piv, ptmp, cnt, v2, p2, veval, ieval, Ji)
             for r in range(npt):
                 pprev[r] = p[r]
         for r in range(ny):

@@ -186,6 +186,7 @@ class Simulator:
         self._ws = np.zeros((10, max(npt, nx, 1)))
         self._G = np.zeros((npt, npt))
         self._J = np.zeros((npt, npt))
+        self._Ji = np.zeros((npt, npt))
         self._piv = np.zeros(npt, dtype=np.int64)
         self._yrow = np.zeros(ny)
         self._cnt = np.zeros(K.N_COUNTERS, dtype=np.int64)
@@ -307,7 +308,7 @@ class Simulator:
                 dcode, dpo, dnp, dpa, par,
                 self._u, m.udc, self._skind, self._sptr, self._spar, self.net.input_index,
                 self._T, self._x, self._xp, self._v, self._i, self._pprev, self._ws,
-                self._G, self._J, self._piv, self._yrow, self._cnt)
+                self._G, self._J, self._Ji, self._piv, self._yrow, self._cnt)
 
     def process(self, x, probe_buf: np.ndarray | None = None) -> np.ndarray:
         """Offline convenience: process any length of input; allocates y."""
