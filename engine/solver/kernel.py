@@ -52,7 +52,7 @@ from engine.devices import bjt, diode, jfet, opamp, ota  # noqa: E402
 
 # counter slots in the int64 array ``cnt``
 (C_SAMPLES, C_NONCONV, C_FALLBACK, C_MAXIT, C_PHASE, C_INDEX, C_ITERS, C_LUOK,
- C_FACTOR) = range(9)
+ C_FACTOR, C_INVOK) = range(10)
 N_COUNTERS = 10
 
 # Newton stops when a step is below ABSTOL + RELTOL*|v|.  Newton's error after
@@ -314,6 +314,9 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt, 
     n = p.size
     done = 0
     if cnt[C_LUOK] == 1:
+        if cnt[C_INVOK] == 0:
+            lu_inverse(J, piv, Ji, vn, n)
+            cnt[C_INVOK] = 1
         # chord iterations with the factors of an earlier Jacobian: cheap
         # (no refactorisation) and fast while the Jacobian changes slowly;
         # fall through to full Newton when convergence is slower than 1/4.
@@ -369,8 +372,8 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt, 
         if not lu_solve(J, F, piv, n):
             cnt[C_LUOK] = 0
             return -1
-        lu_inverse(J, piv, Ji, vn, n)
         cnt[C_LUOK] = 1
+        cnt[C_INVOK] = 0
         for r in range(n):
             vn[r] = v[r] + F[r]
         limit_devices(dcode, dpo, dpa, par, vn, v)
@@ -400,6 +403,9 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
     for r in range(n):
         vprev[r] = v[r]
     if cnt[C_LUOK] == 1:
+        if cnt[C_INVOK] == 0:
+            lu_inverse(J, piv, Ji, vn, n)
+            cnt[C_INVOK] = 1
         for r in range(n):
             F[r] = p[r] - pprev[r]
         matvec_inplace(Ji, F, vn, n)
