@@ -68,12 +68,12 @@ def main(argv=None) -> int:
     host.prepare()
     t_build = time.perf_counter() - t_build
     applied: list[float] = []
-    orig_apply = host._apply
+    orig_set = host.set_value
 
-    def stamped_apply(voice, changes):
-        orig_apply(voice, changes)
-        applied.append(host._edit_pending_t)
-    host._apply = stamped_apply
+    def stamped_set(part, value, voice=None):
+        applied.append(time.perf_counter())      # the host's own edit clock starts here
+        return orig_set(part, value, voice)
+    host.set_value = stamped_set
 
     period = args.block / args.fs
     stop = threading.Event()
@@ -152,7 +152,8 @@ def main(argv=None) -> int:
     th.join(5)
     elapsed = time.perf_counter() - t_start
 
-    # edit-to-sound: the block after the hand-over starts at apply + host latency
+    # edit-to-sound: from the workbench edit to the start of the first block that
+    # uses it = (GUI edit -> host call) + the host's own request-to-block time
     lat = host.edit_latencies_s
     e2s = []
     for (t0, k) in edits:

@@ -92,17 +92,137 @@ class BarMeter(QWidget):
         p.end()
 
 
-class Readout(QLabel):
+class StripChart(QWidget):
+    """Stacked traces against time, painted directly with QPainter.
+
+    Each trace is turned into one QPainterPath by pyqtgraph's vectorised
+    ``arrayToQPath`` and drawn with a single call, so a redraw costs about a
+    millisecond of GUI-thread time whatever the number of points (the GUI
+    thread shares the GIL with the audio thread)."""
+
+    def __init__(self, rows, parent=None):
+        super().__init__(parent)
+        self.rows = list(rows)                 # (key, label, colour)
+        self.data: dict[str, tuple] = {}
+        self.yr: dict[str, tuple[float, float]] = {k: (0.0, 1.0) for k, _, _ in self.rows}
+        self.labels = {k: lab for k, lab, _ in self.rows}
+        self.xr = (0.0, 1.0)
+        self.x_label = "time (s)"
+        self.setMinimumHeight(180)
+        self.setSizePolicy(QSizePolicy.Policy.Expanding, QSizePolicy.Policy.Expanding)
+
+    def set_x_range(self, lo: float, hi: float, label: str | None = None) -> None:
+        self.xr = (float(lo), float(hi))
+        if label:
+            self.x_label = label
+        self.update()
+
+    def set_trace(self, key: str, x, y, yrange=None, label: str | None = None) -> None:
+        self.data[key] = (np.asarray(x, dtype=float), np.asarray(y, dtype=float))
+        if yrange is not None:
+            self.yr[key] = (float(yrange[0]), float(yrange[1]))
+        if label is not None:
+            self.labels[key] = label
+        self.update()
+
+    def paintEvent(self, _e):
+        from PyQt6.QtGui import QTransform
+        import pyqtgraph as pg
+        p = QPainter(self)
+        w, h = self.width(), self.height()
+        left, right, top, bottom = 78, 8, 4, 20
+        n = len(self.rows)
+        rh = (h - top - bottom) / n
+        x0, x1 = self.xr
+        f = QFont()
+        f.setPointSize(8)
+        p.setFont(f)
+        for i, (key, _lab, colour) in enumerate(self.rows):
+            r = QRectF(left, top + i * rh + 2, w - left - right, rh - 4)
+            p.fillRect(r, QColor(theme.INSET))
+            p.setPen(QPen(QColor(theme.RULE), 1))
+            p.drawRect(r)
+            y0, y1 = self.yr[key]
+            p.setPen(QColor(theme.DIM))
+            p.drawText(QRectF(2, r.top(), left - 6, 14), Qt.AlignmentFlag.AlignRight,
+                       f"{y1:.3g}")
+            p.drawText(QRectF(2, r.bottom() - 14, left - 6, 14), Qt.AlignmentFlag.AlignRight,
+                       f"{y0:.3g}")
+            p.setPen(QColor(colour))
+            p.drawText(QRectF(2, r.center().y() - 8, left - 6, 16),
+                       Qt.AlignmentFlag.AlignRight, self.labels.get(key, key)[:12])
+            if y0 < 0 < y1:
+                yz = r.bottom() - (0 - y0) / (y1 - y0) * r.height()
+                p.setPen(QPen(QColor(theme.RULE), 1, Qt.PenStyle.DotLine))
+                p.drawLine(int(r.left()), int(yz), int(r.right()), int(yz))
+            d = self.data.get(key)
+            if d is None or len(d[0]) < 2 or x1 <= x0 or y1 <= y0:
+                continue
+            path = pg.arrayToQPath(d[0], d[1], connect="finite")
+            sx = r.width() / (x1 - x0)
+            sy = -r.height() / (y1 - y0)
+            t = QTransform(sx, 0, 0, sy, r.left() - x0 * sx, r.bottom() - y0 * sy)
+            p.save()
+            p.setClipRect(r)
+            p.setTransform(t)
+            pen = QPen(QColor(colour), 1.3)
+            pen.setCosmetic(True)
+            p.setPen(pen)
+            p.drawPath(path)
+            p.restore()
+        # time axis
+        p.setPen(QColor(theme.DIM))
+        span = x1 - x0
+        step = 0.5 if span <= 3 else 1.0
+        k = math.ceil(x0 / step)
+        while k * step <= x1 + 1e-9:
+            xv = k * step
+            px = left + (xv - x0) / span * (w - left - right)
+            p.drawLine(int(px), int(h - bottom), int(px), int(h - bottom + 3))
+            p.drawText(QRectF(px - 20, h - bottom + 3, 40, 14), Qt.AlignmentFlag.AlignCenter,
+                       f"{xv:g}")
+            k += 1
+        p.drawText(QRectF(0, h - bottom + 3, left - 6, 14), Qt.AlignmentFlag.AlignRight,
+                   self.x_label)
+        p.end()
+
+
+class Readout(QWidget):
+    """A label and a value painted directly: changing the value never changes
+    the widget's size, so a meter frame repaints only this small rectangle
+    (a QLabel would ask for a new layout, and the layout would repaint the
+    plots around it)."""
+
     def __init__(self, label: str):
         super().__init__()
         self.label = label
-        self.setProperty("role", "read")
-        self.set("—")
+        self.value = "—"
+        self.bad = False
+        self.setFixedHeight(20)
 
     def set(self, text: str, bad: bool = False) -> None:
-        colour = theme.BAD if bad else theme.READ
-        self.setText(f"<span style='color:{theme.DIM}'>{self.label}</span> "
-                     f"<span style='color:{colour}'>{text}</span>")
+        if text != self.value or bad != self.bad:
+            self.value, self.bad = text, bad
+            self.update()
+
+    def text(self) -> str:
+        return f"{self.label} {self.value}".strip()
+
+    def paintEvent(self, _e):
+        p = QPainter(self)
+        f = QFont(theme.MONO)
+        f.setPointSize(9)
+        p.setFont(f)
+        x = 2
+        if self.label:
+            p.setPen(QColor(theme.DIM))
+            p.drawText(QRectF(x, 0, self.width(), self.height()),
+                       Qt.AlignmentFlag.AlignVCenter, self.label)
+            x += p.fontMetrics().horizontalAdvance(self.label + " ")
+        p.setPen(QColor(theme.BAD if self.bad else theme.READ))
+        p.drawText(QRectF(x, 0, self.width() - x, self.height()),
+                   Qt.AlignmentFlag.AlignVCenter, self.value)
+        p.end()
 
 
 class LivePanel(QWidget):
@@ -168,7 +288,11 @@ class LivePanel(QWidget):
         self.xruns = Readout("xruns")
         self.latency = Readout("latency")
         self.state = Readout("")
-        for w in (self.state, self.cpu, self.xruns, self.latency):
+        # fixed widths: a readout whose text changes width would re-lay-out and
+        # repaint the whole panel (plots included) on every meter frame
+        for w, width in ((self.state, 300), (self.cpu, 190), (self.xruns, 110),
+                         (self.latency, 150)):
+            w.setFixedWidth(width)
             st.addWidget(w)
         st.addStretch(1)
         # meters
@@ -184,37 +308,13 @@ class LivePanel(QWidget):
         # traces
         tbox = QGroupBox("TRACES — LAST SECONDS")
         tl = QVBoxLayout(tbox)
-        self.traces = pg.GraphicsLayoutWidget()
+        self.traces = StripChart([("gain reduction", "GR dB", theme.SET),
+                                  ("control current", "ctl µA", theme.READ),
+                                  ("probe", "probe", theme.TRACE_COLOURS[2])])
         tl.addWidget(self.traces)
         self.probe_pick = QComboBox()
         self.probe_pick.setToolTip("probe shown in the third trace")
         tl.addWidget(self.probe_pick)
-        self.plots = {}
-        self.curves = {}
-        for i, (key, unit, col) in enumerate((("gain reduction", "GR dB", theme.SET),
-                                              ("control current", "ctl µA", theme.READ),
-                                              ("probe", "probe", theme.TRACE_COLOURS[2]))):
-            pl = self.traces.addPlot(row=i, col=0)
-            pl.setLabel("left", unit, units=None)
-            pl.getAxis("left").setWidth(64)
-            pl.getAxis("left").enableAutoSIPrefix(False)
-            pl.setMouseEnabled(x=False, y=False)
-            pl.setMenuEnabled(False)
-            pl.hideButtons()
-            if i < 2:
-                pl.hideAxis("bottom")
-            else:
-                pl.setLabel("bottom", "time", units="s")
-            self.plots[key] = pl
-            # thin pens without antialiasing and peak downsampling keep a redraw
-            # cheap: painting runs Python on the GUI thread and shares the GIL
-            # with the audio thread
-            c = pl.plot(pen=pg.mkPen(col, width=1), antialias=False)
-            c.setDownsampling(auto=True, method="peak")
-            c.setClipToView(True)
-            self.curves[key] = c
-        self.plots["control current"].setXLink(self.plots["gain reduction"])
-        self.plots["probe"].setXLink(self.plots["gain reduction"])
         # scope
         sbox = QGroupBox("SCOPE — OUT AGAINST IN")
         sl = QVBoxLayout(sbox)
@@ -273,8 +373,7 @@ class LivePanel(QWidget):
     def show_preview(self, r) -> None:
         """Fill meters, traces and scope from an offline preview."""
         self.last_preview = r
-        for pl in self.plots.values():
-            pl.enableAutoRange(x=True)
+        self.traces.set_x_range(0.0, float(r.t[-1] + r.block / r.fs), "time (s)")
         self.state.set(f"preview {r.t[-1] + r.block / r.fs:.1f} s")
         s = r.series
         m = r.meters
@@ -286,10 +385,8 @@ class LivePanel(QWidget):
         if gr is None:
             gr = va.get("gr_measured_db")
         self.m_gr.set_value(None if gr is None else min(gr, 0.0))
-        self.curves["gain reduction"].setData(r.t, s["gain reduction"], connect="finite")
-        self.curves["control current"].setData(r.t, s["control current"], connect="finite")
-        self._fit("gain reduction", s["gain reduction"])
-        self._fit("control current", s["control current"])
+        for key in ("gain reduction", "control current"):
+            self.traces.set_trace(key, r.t, s[key], self._fit(key, s[key]))
         self._scale_control(s["control current"])
         probes = [k for k in s if k not in ("input level", "output level", "control current",
                                             "gain reduction")]
@@ -317,9 +414,8 @@ class LivePanel(QWidget):
         data = r.series[key]
         if unit == "A":
             data, unit = data * 1e6, "µA"
-        self.plots["probe"].setLabel("left", (key if len(key) <= 14 else key[:13] + "…"), units=None)
-        self.curves["probe"].setData(r.t, data, connect="finite")
-        self._fit("probe", data)
+        self.traces.set_trace("probe", r.t, data, self._fit("probe", data),
+                              label=f"{key}")
 
     def _fit(self, key: str, data) -> None:
         """Y range of a trace: gain reduction always shows at least 0 to -6 dB;
@@ -327,16 +423,14 @@ class LivePanel(QWidget):
         rather than magnified noise."""
         d = np.asarray(data, dtype=float)
         d = d[np.isfinite(d)]
-        pl = self.plots[key]
         if d.size == 0:
-            return
+            return None
         lo, hi = float(d.min()), float(d.max())
         if key == "gain reduction":
-            pl.setYRange(min(lo, -6.0), max(hi, 0.0) + 0.5, padding=0.05)
-            return
+            return (min(lo * 1.1, -6.0), max(hi, 0.0) + 0.5)
         span = max(hi - lo, 0.02 * max(abs(hi), abs(lo)), 1e-9)
         mid = (hi + lo) / 2
-        pl.setYRange(mid - span / 2, mid + span / 2, padding=0.1)
+        return (mid - 0.6 * span, mid + 0.6 * span)
 
     def _scale_control(self, data) -> None:
         d = np.asarray(data, dtype=float)
@@ -393,29 +487,26 @@ class LivePanel(QWidget):
             h = self.hist.get(key)
             if h is not None and len(h) == len(t):
                 y = np.asarray(h, dtype=float)[keep]
-                self.curves[key].setData(t[keep], y, connect="finite")
-                self._follow(key, y)
+                self.traces.set_trace(key, t[keep], y, self._follow(key, y))
 
     def _follow(self, key: str, y) -> None:
         d = y[np.isfinite(y)]
         if d.size == 0:
-            return
+            return None
         lo, hi = float(d.min()), float(d.max())
         cur = self._ranges.get(key)
         if cur is not None and cur[0] <= lo and hi <= cur[1]:
-            return
+            return cur
         if key == "gain reduction":
             r = (min(-6.0, 1.5 * lo), 0.5)
         else:
             span = max(hi - lo, 0.05 * max(abs(hi), abs(lo)), 1e-9)
             r = (lo - 0.5 * span, hi + 0.5 * span)
         self._ranges[key] = r
-        self.plots[key].setYRange(*r, padding=0)
+        return r
 
     def clear_live(self) -> None:
         self.hist.clear()
         self.hist_t.clear()
         self._ranges = {}
-        for pl in self.plots.values():
-            pl.setXRange(-TRACE_SECONDS, 0, padding=0)
-            pl.disableAutoRange()
+        self.traces.set_x_range(-TRACE_SECONDS, 0.0, "seconds ago")

@@ -374,12 +374,17 @@ class Workbench(QObject):
     values_changed(dict) : element value changes {element: value} that a
         running simulator takes at a block boundary without a reset.
     part_changed(str) : a part's displayed state changed (qualified name).
+    edited(str, str, object) : (kind, part, new setting) for each part edit
+        that a running simulator can take without a rebuild; kind is
+        "value", "rotation" or "taper". Emitted for undo and redo too, so a
+        live host can follow every change through its own edit methods.
     history_changed : undo/redo availability or the dirty flag changed.
     """
     design_replaced = pyqtSignal()
     structure_changed = pyqtSignal()
     values_changed = pyqtSignal(dict)
     part_changed = pyqtSignal(str)
+    edited = pyqtSignal(str, str, object)
     history_changed = pyqtSignal()
     snapshots_changed = pyqtSignal()
 
@@ -480,13 +485,22 @@ class Workbench(QObject):
         if _same_structure(old, new):
             changes: dict[str, float] = {}
             pa = {p.qualname: p for p in old.parts()}
+            edits = []
             for p in new.parts():
                 q = pa.get(p.qualname)
                 if q is not None and (q.value, q.rotation, q.taper, q.tolerance) != \
                         (p.value, p.rotation, p.taper, p.tolerance):
                     if p.value is not None:
                         changes.update(new._element_values(p.qualname, new.part(p.qualname)))
+                    if q.value != p.value:
+                        edits.append(("value", p.qualname, p.value))
+                    if q.taper != p.taper:
+                        edits.append(("taper", p.qualname, p.taper))
+                    if q.rotation != p.rotation:
+                        edits.append(("rotation", p.qualname, p.rotation))
                     self.part_changed.emit(p.qualname)
+            for e in edits:
+                self.edited.emit(*e)
             self.design_replaced.emit()
             if changes:
                 self.values_changed.emit(changes)
@@ -504,6 +518,7 @@ class Workbench(QObject):
         ch = self._apply(f"value of {qualname}", lambda d: d.set_value(qualname, value),
                          merge=f"value:{qualname}")
         self.part_changed.emit(qualname)
+        self.edited.emit("value", qualname, self.design.part(qualname).value)
         self.values_changed.emit(ch)
         return ch
 
@@ -511,6 +526,7 @@ class Workbench(QObject):
         ch = self._apply(f"turn {qualname}", lambda d: d.set_rotation(qualname, rotation),
                          merge=f"rot:{qualname}")
         self.part_changed.emit(qualname)
+        self.edited.emit("rotation", qualname, self.design.part(qualname).rotation)
         self.values_changed.emit(ch)
         return ch
 
@@ -518,6 +534,7 @@ class Workbench(QObject):
         ch = self._apply(f"taper of {qualname}", lambda d: d.set_taper(qualname, taper),
                          merge=f"taper:{qualname}")
         self.part_changed.emit(qualname)
+        self.edited.emit("taper", qualname, self.design.part(qualname).taper)
         self.values_changed.emit(ch)
         return ch
 

@@ -19,7 +19,7 @@ from PyQt6.QtCore import QObject, pyqtSignal
 from engine.errors import SolderlessError
 
 PREVIEW_SECONDS = 3.0
-SCOPE_SECONDS = 0.25
+SCOPE_SECONDS = 0.1
 FS = 48000.0
 BLOCK = 128
 SOURCES = {

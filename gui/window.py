@@ -281,6 +281,7 @@ class MainWindow(QMainWindow):
         self.chain.stage_selected.connect(self.parts.show_stage)
         self.wb.history_changed.connect(self._history)
         self.wb.values_changed.connect(self._values_changed)
+        self.wb.edited.connect(self._forward)
         self.wb.structure_changed.connect(self._structure_changed)
         self.wb.design_replaced.connect(self._replaced)
         self.refresh_timer = QTimer(self)
@@ -405,13 +406,29 @@ class MainWindow(QMainWindow):
 
     # ------------------------------------------------------------ edits -> sound
     def _values_changed(self, changes: dict) -> None:
-        h = self.host
-        if h is not None:
-            vi = h.edit_voice
-            voice = h.voices[vi]
-            # element changes land at the next block boundary, state carried over
-            h._post(lambda: h._apply(voice, changes))
         self.schedule_refresh()
+
+    def _forward(self, kind: str, q: str, value) -> None:
+        """Pass a part edit to the live host: it re-derives off the audio
+        thread and the new element values land at the next block boundary
+        with the circuit state carried over (pot moves are ramped)."""
+        h = self.host
+        if h is None:
+            return
+        if kind == "value":
+            h.set_value(q, value)
+        elif kind == "rotation":
+            h.set_rotation(q, value)
+        elif kind == "taper":
+            import time as _t
+            t_post = _t.perf_counter()
+            vi = h.edit_voice
+
+            def job():
+                v = h.voices[vi]
+                h._apply(v, v.design.set_taper(q, value), t_post)
+                h._after_edit(vi)
+            h._post(job)
 
     def _structure_changed(self) -> None:
         if self.host is not None:
@@ -614,8 +631,10 @@ class MainWindow(QMainWindow):
     def _source(self, spec: str) -> None:
         self.analyser.source = spec
         if self.host is not None:
-            self.stop_live()
-            self.live.run_btn.setChecked(True)
+            try:
+                self.host.set_source(make_source(spec))
+            except SolderlessError as exc:
+                self.say(str(exc))
         else:
             self.preview()
 
