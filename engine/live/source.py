@@ -27,6 +27,22 @@ def _loop_copy(src, pos, out, n):  # pragma: no cover - compiled
     return pos
 
 
+@numba.njit(nogil=True, cache=True)
+def _scale_clamp(src, scale, out, n):  # pragma: no cover - compiled
+    """out = src * scale, with samples outside full scale clamped to it and
+    non-finite samples set to 0 (a converter cannot deliver more than full
+    scale; a driver fault can)."""
+    for i in range(n):
+        v = src[i]
+        if not np.isfinite(v):
+            v = 0.0
+        elif v > 1.0:
+            v = 1.0
+        elif v < -1.0:
+            v = -1.0
+        out[i] = v * scale
+
+
 class Source:
     """Base class. ``needs_input`` says whether a capture stream is needed."""
     needs_input = False
@@ -42,7 +58,9 @@ class Source:
 
 class LiveInput(Source):
     """One channel of the sound card input, scaled by the input calibration
-    (full-scale peak volts at the jack)."""
+    (full-scale peak volts at the jack). Samples beyond full scale are clamped
+    to it and non-finite ones zeroed, so a faulty driver cannot feed the
+    circuit impossible voltages."""
     needs_input = True
 
     def __init__(self, channel: int = 0):
@@ -52,12 +70,14 @@ class LiveInput(Source):
 
     def prepare(self, fs, full_scale_v):
         self.scale = float(full_scale_v)
+        z = np.zeros((4, self.channel + 1), dtype=np.float32)
+        _scale_clamp(z[:, self.channel], 1.0, np.zeros(4), 4)   # compile before streaming
 
     def fill(self, indata, n, out):
         if indata is None:
             out[:n] = 0.0
         else:
-            np.multiply(indata[:n, self.channel], self.scale, out=out[:n])
+            _scale_clamp(indata[:, self.channel], self.scale, out, n)
 
 
 class LoopSource(Source):

@@ -68,10 +68,24 @@ def open_stream(host, *, input_device=None, output_device=None, channels_out: in
     sd = load_sounddevice()
     needs_in = bool(getattr(host.source, "needs_input", False))
     ind, outd = _device_arg(input_device), _device_arg(output_device)
-    flags = ("input_underflow", "input_overflow", "output_underflow", "output_overflow")
+    try:   # a mono output device gets one channel, a stereo one two
+        info = sd.query_devices(outd, "output")
+        channels_out = max(1, min(channels_out, int(info["max_output_channels"])))
+    except (sd.PortAudioError, ValueError) as exc:
+        raise AudioError(f"no output device '{output_device or 'default'}': {exc}",
+                         hint="see 'solderless devices' for what is there") from None
 
     if needs_in:
         ch_in = channels_in or (host.source.channel + 1)
+        try:
+            have = int(sd.query_devices(ind, "input")["max_input_channels"])
+        except (sd.PortAudioError, ValueError) as exc:
+            raise AudioError(f"no input device '{input_device or 'default'}': {exc}",
+                             hint="see 'solderless devices', or use --source synth") from None
+        if ch_in > have:
+            raise AudioError(f"input channel {host.source.channel + 1} does not exist on "
+                             f"the input device ({have} channels)",
+                             hint=f"use --input-channel 1 to {have}")
 
         def callback(indata, outdata, frames, time_info, status):
             host._audio_block(indata, outdata, frames, bool(status))
@@ -82,7 +96,6 @@ def open_stream(host, *, input_device=None, output_device=None, channels_out: in
             host._audio_block(None, outdata, frames, bool(status))
         kw = dict(device=outd, channels=channels_out)
         cls = sd.OutputStream
-    del flags
     try:
         stream = cls(samplerate=host.fs, blocksize=host.block, dtype="float32",
                      latency="low", callback=callback, **kw)
