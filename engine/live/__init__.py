@@ -1,0 +1,18 @@
+"""Live playing: a design (or an A/B pair) on a sound card stream.
+
+Modules, one responsibility each:
+
+* ``host``      :class:`~engine.live.host.LiveHost`, the object a front end drives
+* ``remote``    :class:`~engine.live.remote.HostProcess`, the host in its own process
+* ``stream``    sounddevice/PortAudio, imported lazily
+* ``source``    live input, WAV loop, synthetic instrument, test tone
+* ``limiter``   output stage: A/B crossfade, level ramp, guard, safety limiter
+* ``meters``    per-block frames in, ballistic readings out
+* ``ring``      lock-free single-writer frame ring
+* ``loudness``  ITU-R BS.1770-4 K-weighting and loudness
+* ``console``   terminal commands while playing
+* ``cli_play``  ``solderless play`` and ``solderless devices``
+* ``standin``   a tiny stand-in design/simulator for tests and benches
+
+Nothing here imports sounddevice at import time.
+"""
