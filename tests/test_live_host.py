@@ -189,6 +189,16 @@ def test_ab_loudness_match_and_click_free_switch():
     h.close()
 
 
+def test_pot_turned_while_not_playing_lands_without_waiting_for_blocks():
+    # Before the stream starts (a GUI may edit first) a ramp must not wait for
+    # blocks that never come; the last value is what the simulator gets.
+    h = _host(source=ToneSource(1000.0, 0.1))
+    h.prepare()
+    assert h.set_rotation("level.VOL", 0.0).result(60) == 0.0
+    assert h.voices[0].sim.values["level.VOL.b"] == pytest.approx(1.0)
+    h.close()
+
+
 def test_bypass_rebuilds_and_crossfades():
     h = _host(source=ToneSource(5000.0, 0.2), block=64, in_full_scale_v=1.0,
               out_full_scale_v=1.0)

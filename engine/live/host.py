@@ -62,6 +62,8 @@ full scale per block, whatever the taper): keeps the gain step per block well
 under a 220 Hz sine's own sample-to-sample change (2 sin(pi 220 / 48000) =
 2.9 % of its peak)."""
 MAX_RAMP_STEPS = 2000
+IDLE_S = 0.1
+"""A ramp stops waiting for blocks when none has run for this long."""
 
 
 def full_scale_peak_from_dbu(dbu: float) -> float:
@@ -297,6 +299,7 @@ class LiveHost:
         self._edit_lat = np.zeros(1024)
         self._n_edit_lat = 0
         self.edits = 0
+        self._last_block_t = -1e9
         self.messages: "queue.SimpleQueue[str]" = queue.SimpleQueue()
         self._guard_told = 0
         self.tap: np.ndarray | None = None
@@ -464,6 +467,7 @@ class LiveHost:
             row[M.C_CPU] = (time.perf_counter() - t0) * self.fs / n
             self.ring.commit()
             self.blocks += 1
+            self._last_block_t = t0
         except BaseException as exc:  # never let the callback die silently
             outdata[:] = 0
             if self.error is None:
@@ -563,6 +567,8 @@ class LiveHost:
         start = self.blocks
         t_end = time.perf_counter() + timeout
         while self.blocks - start < k and time.perf_counter() < t_end:
+            if time.perf_counter() - self._last_block_t > IDLE_S:
+                return          # nothing is playing: the change lands when it starts
             time.sleep(0.0005)
 
     def _apply(self, voice: Voice, changes: dict, t_post: float | None = None) -> None:
