@@ -190,6 +190,29 @@ def frequency_response(design, freqs: np.ndarray | None = None) -> ACResult:
     return ACResult(np.asarray(f), np.asarray(H), np.asarray(zin))
 
 
+@dataclass
+class ABResult:
+    """An offline A/B run: the live host's loudness offset (A minus B, LU)
+    and each voice's loudness and output level at the end."""
+    offset_db: float
+    meters: dict
+
+
+def run_ab_offline(a, b, source: str = "synth:notes", seconds: float = PREVIEW_SECONDS,
+                   fs: float = FS, block: int = BLOCK,
+                   factory: Callable | None = None) -> ABResult:
+    """Play A and B together through the live host without a sound card and
+    report its BS.1770 loudness match (:class:`engine.live.host.LiveHost`)."""
+    from engine.live.host import LiveHost
+    host = LiveHost(a.copy(), variant=b.copy(), fs=fs, block=block,
+                    source=make_source(source), autosave=False, simulator_factory=factory)
+    try:
+        host.run_offline(max(1, int(round(seconds * fs / block))))
+        return ABResult(float(host.loudness_offset_db), host.meters())
+    finally:
+        host.close()
+
+
 class Analyser(QObject):
     """Runs previews and analyses on one worker thread; drops stale results.
 
@@ -199,6 +222,7 @@ class Analyser(QObject):
     preview_ready = pyqtSignal(int, object)
     op_ready = pyqtSignal(int, object)
     ac_ready = pyqtSignal(int, object)
+    ab_ready = pyqtSignal(int, object)
     failed = pyqtSignal(str, str)
     busy_changed = pyqtSignal(bool)
 
@@ -222,6 +246,27 @@ class Analyser(QObject):
         self.pending += 1
         self.busy_changed.emit(True)
         self.pool.submit(self._job, g, d, preview, op, ac, self.source, self.seconds)
+        return g
+
+    def request_ab(self, a, b) -> int:
+        """Queue an offline A/B loudness comparison of designs ``a`` and ``b``."""
+        if self.closed:
+            return 0
+        self.pending += 1
+        self.busy_changed.emit(True)
+        a, b = a.copy(), b.copy()
+        g = self.generation
+
+        def job():
+            try:
+                self._run("A/B", lambda: run_ab_offline(a, b, self.source, self.seconds,
+                                                        factory=self.factory),
+                          self.ab_ready, g)
+            finally:
+                self.pending -= 1
+                if self.pending == 0:
+                    self.busy_changed.emit(False)
+        self.pool.submit(job)
         return g
 
     def _job(self, g, d, preview, op, ac, source, seconds):

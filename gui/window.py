@@ -108,6 +108,7 @@ class MainWindow(QMainWindow):
         self.last_preview = None
         self.last_op = None
         self.last_ac = None
+        self.last_ab = None
         self.problems: list[tuple[str, str]] = []
         self.setWindowTitle("Solderless workbench")
         self.resize(1480, 940)
@@ -290,6 +291,7 @@ class MainWindow(QMainWindow):
         self.analyser.preview_ready.connect(self._preview_ready)
         self.analyser.op_ready.connect(self._op_ready)
         self.analyser.ac_ready.connect(self._ac_ready)
+        self.analyser.ab_ready.connect(self._ab_ready)
         self.analyser.failed.connect(self._failed)
         self.analyser.busy_changed.connect(
             lambda b: self.busy.setText("working…" if b else ""))
@@ -389,6 +391,10 @@ class MainWindow(QMainWindow):
     def _ac_ready(self, g, r) -> None:
         self.last_ac = r
         self.inspect.show_ac(r)
+
+    def _ab_ready(self, g, r) -> None:
+        self.last_ab = r
+        self.compare.show_offset(r.offset_db)
 
     def wait_idle(self, timeout_s: float = 120.0) -> bool:
         """Process events until the analyser has nothing queued (tests,
@@ -697,6 +703,10 @@ class MainWindow(QMainWindow):
         """Play A and B together (the host matches loudness and crossfades)."""
         da = self.compare.design_of(a)
         db = self.compare.design_of(b)
+        if not self.live.run_btn.isEnabled():
+            self.analyser.request_ab(da, db)
+            self.say("no audio device: A and B are compared offline (loudness match only)")
+            return
         self.stop_live()
         wb_design = self.wb.design
         self.wb.design = da

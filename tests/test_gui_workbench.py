@@ -280,3 +280,82 @@ def test_flagship_screenshot(qtbot, tmp_path, artifacts):
     screenshot(w, artifacts / "gui_flagship.png")
     assert w.last_preview is not None and w.last_op is not None
     w.close()
+
+
+def test_offline_ab_matches_loudness(win):
+    # B is A with the level pot turned from 50 % to 10 %: B is louder by the
+    # ratio of the loaded pot dividers (Ohm's law); the host's BS.1770 match
+    # reports A minus B in LU, which for the same tone is that ratio in dB
+    # (ITU-R BS.1770-4: loudness is a level of the K-weighted mean square).
+    win.wb.take_snapshot("half", "")
+    win.wb.set_rotation("level.VOL", 0.1)
+    win.wb.take_snapshot("tenth", "")
+    win.compare.refresh()
+    win.live.run_btn.setEnabled(False)          # as on a machine without an audio device
+    win.start_ab("half", "tenth")
+    assert win.wait_idle(180)
+    want = 20 * math.log10(_pot_out(0.5) / _pot_out(0.1))
+    assert win.last_ab.offset_db == pytest.approx(want, abs=0.2)
+    assert "LU" in win.compare.match.text()
+
+
+def test_import_netlist_as_stage(win, tmp_path):
+    # a first-order RC low-pass as a SPICE netlist whose nets in/out are the ports
+    net = tmp_path / "sub" / "rc.cir"
+    net.parent.mkdir()
+    net.write_text("RC low-pass\nR1 in out 10k\nC1 out 0 10n\n.end\n")
+    name = win.wb.import_stage(str(net))
+    assert name == "rc"
+    st = win.wb.design.stage("rc")
+    assert [p.name for p in st.parts] == ["R1", "C1"]
+    assert st.part("R1").value == 10e3
+    target = tmp_path / "with-rc.toml"
+    assert win.save(target)
+    back = load_design(target)
+    assert [s.name for s in back.stages] == ["amp", "level", "rc"]
+    assert back.stage("rc").part("C1").value == pytest.approx(10e-9)
+    # the netlist path is stored relative to the design file
+    assert 'netlist = "sub/rc.cir"' in target.read_text()
+
+
+def test_edits_and_undo_reach_a_running_host(win):
+    from engine.live.host import LiveHost
+    from gui.preview import make_source
+    host = LiveHost(win.wb.design.copy(), source=make_source("tone:1000:0.1"),
+                    autosave=False)
+    host.prepare()
+    win.host = host
+    try:
+        win.wb.set_value("amp.R2", 100e3)
+        win.wb.set_rotation("level.VOL", 0.2)
+        win.wb.set_taper("level.VOL", "audio")
+        host.flush()
+        host.run_offline(2)
+        sim = host.voices[0].sim
+        assert sim.values["amp.R2"] == 100e3
+        # audio taper: 10 % of the track at half rotation, exponential law
+        # (docs/design-format.md); at 20 %: (81**0.2 - 1) / 80
+        frac = (81 ** 0.2 - 1) / 80
+        assert sim.values["level.VOL.a"] == pytest.approx(10e3 * frac, rel=1e-9)
+        for _ in range(3):
+            win.wb.undo()
+        host.flush()
+        host.run_offline(2)
+        assert sim.values["amp.R2"] == 47e3
+        assert sim.values["level.VOL.a"] == pytest.approx(5e3, rel=1e-9)
+        assert host.voices[0].design.part("level.VOL").taper == "linear"
+    finally:
+        win.host = None
+        host.close()
+
+
+def test_caution_is_shown_once(qtbot, tmp_path, design_file):
+    cfg = tmp_path / "cfg"
+    seen = []
+    for _ in range(2):
+        w = make_window(load_design(design_file), config=cfg, recover="no")
+        qtbot.addWidget(w)
+        w.ask = lambda _q: "discard"
+        seen.append(any("Listening levels" in t for t in w.notices.texts()))
+        w.close()
+    assert seen == [True, False]
