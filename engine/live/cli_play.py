@@ -108,7 +108,7 @@ def _summary(host, m: dict, wall: float) -> dict:
         "output_level_db": host.level_db, "ceiling_dbfs": host.ceiling_dbfs,
         "meters": m, "latency": lat, "xruns": m["xruns"], "guard": m["guard"],
         "error": None if host.error is None else repr(host.error),
-        "autosave": None if host.autosave_path is None else str(host.autosave_path),
+        "autosave": host.autosave_paths(),
     }
 
 
@@ -236,9 +236,10 @@ def run_play(args) -> int:
         host.close()
     if problem:
         err(f"stopped: {problem}. Your design and its edits are kept"
-            + (f" (autosave: {host.autosave_path})" if host.autosave_path else ""))
-    elif host.edits and host.autosave_path:
-        err(f"{host.edits} edit(s) this session; a copy is in {host.autosave_path}"
+            + (f" (autosave: {', '.join(host.autosave_paths())})"
+               if host.edits and host.autosave_paths() else ""))
+    elif host.edits and host.autosave_paths():
+        err(f"{host.edits} edit(s) this session; a copy is in {', '.join(host.autosave_paths())}"
             " ('save' writes the design itself)")
     if args.seconds is not None or args.json:
         if args.json:

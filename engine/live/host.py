@@ -305,6 +305,7 @@ class LiveHost:
         self.tap: np.ndarray | None = None
         self.tap_pos = 0
         # autosave
+        self._autosave_default = autosave is None or autosave is True
         if autosave is False:
             self.autosave_path = None
         elif autosave:
@@ -606,18 +607,36 @@ class LiveHost:
                 except Exception as exc:  # a measurement must never stop playing
                     self.messages.put(f"could not re-measure the small-signal gain: {exc}")
 
-    def _autosave(self, vi: int) -> None:
+    def _autosave_target(self, vi: int) -> Path | None:
+        """Autosave file of voice ``vi``: the given path for A (with ``-B``
+        added for B), or ``config_dir()/autosave/<design>.toml``."""
         if self.autosave_path is None:
+            return None
+        if not self._autosave_default:
+            p = self.autosave_path
+            return p if vi == 0 else p.with_name(p.stem + "-B" + p.suffix)
+        stem = _stem(self.voices[vi].design)
+        if vi == 1 and stem == _stem(self.voices[0].design):
+            stem += "-B"
+        return self.autosave_path.parent / f"{stem}.toml"
+
+    def autosave_paths(self) -> list[str]:
+        """Where each voice's edits are autosaved (empty if autosave is off)."""
+        return [str(p) for p in (self._autosave_target(i) for i in range(len(self.voices)))
+                if p is not None]
+
+    def _autosave(self, vi: int) -> None:
+        path = self._autosave_target(vi)
+        if path is None:
             return
         d = self.voices[vi].design
-        path = self.autosave_path if vi == 0 else self.autosave_path.with_name(
-            self.autosave_path.stem + "-variant.toml")
         try:
             from engine.design import atomic_write_text
             path.parent.mkdir(parents=True, exist_ok=True)
             atomic_write_text(path, d.to_toml())
         except (SolderlessError, OSError) as exc:
-            self.messages.put(f"autosave failed ({exc}); save with 'save PATH'")
+            self.messages.put(f"autosave of {self.voices[vi].label} failed ({exc}); "
+                              "save with 'save PATH'")
 
     def _voice(self, which) -> tuple[int, Voice]:
         i = self.edit_voice if which is None else (0 if which in (0, "A", "a") else 1)
