@@ -198,3 +198,22 @@ def test_opamp_noninverting_gain_and_swing():
     y = sim.process(1.0 * np.sin(2 * np.pi * 200 * t))  # 100 V wanted: clips
     assert np.all(np.isfinite(y))
     assert 6.5 < y.max() < 9.0 and -9.0 < y.min() < -6.5
+
+
+def test_operating_point_warnings():
+    # base tied hard to the rail through a small resistor: saturated (common practice)
+    sat = Circuit([E("Vcc", "V", ("vcc", "0"), 9.0), E("RB", "R", ("vcc", "b"), 10e3),
+                   E("RC", "R", ("vcc", "c"), 10e3), E("Q1", "Q", ("c", "b", "0"), 0.0, SMALL_NPN)],
+                  output=("c", "0"))
+    op = Simulator(sat).operating_point()
+    assert op.devices["Q1"]["region"] == "saturated"
+    assert any("Q1" in w and "saturated" in w for w in op.warnings)
+    # no base drive: cut off, collector sits at the rail
+    off = Circuit([E("Vcc", "V", ("vcc", "0"), 9.0), E("RB", "R", ("b", "0"), 10e3),
+                   E("RC", "R", ("vcc", "c"), 10e3), E("Q1", "Q", ("c", "b", "0"), 0.0, SMALL_NPN)],
+                  output=("c", "0"))
+    op = Simulator(off).operating_point()
+    assert op.devices["Q1"]["region"] == "cut-off"
+    assert any("cut-off" in w for w in op.warnings)
+    assert any("within 0.3 V of supply rail 'vcc'" in w for w in op.warnings)
+    assert op.to_dict()["devices"]["Q1"]["region"] == "cut-off"

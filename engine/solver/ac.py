@@ -44,12 +44,7 @@ def ac_response(circuit: Circuit | Network, freqs, values: dict | None = None):
         raise DesignError("the circuit has no input source for an AC response",
                           hint="name the V element that the signal drives as input_source")
     freqs = np.atleast_1d(np.asarray(freqs, dtype=np.float64))
-    saved = net.values
-    net.values = values
-    try:
-        dc = solve_dc(net, values)
-    finally:
-        net.values = saved
+    dc = solve_dc(net, values)
     S0 = net.build_S(values, None).astype(complex)
     if net.np_:
         S0 -= net._bn @ dc.G @ net.port_rows()

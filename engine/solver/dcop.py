@@ -73,12 +73,7 @@ def solve_dc(net: Network, values: dict[str, float] | None = None,
     """DC solution of the network; raises SolveError if no method converges."""
     values = dict(net.values if values is None else values)
     if u is None:
-        saved = net.values
-        net.values = values
-        try:
-            u = net.source_values(0.0)
-        finally:
-            net.values = saved
+        u = net.source_values(0.0, values)
     arrays = device_arrays(net)
     Bu, Bn = net._bu, net._bn
     P = net.port_rows()

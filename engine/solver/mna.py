@@ -376,14 +376,15 @@ class Network:
                 P[j, b] = -1.0
         return P
 
-    def source_values(self, t: float = 0.0) -> np.ndarray:
+    def source_values(self, t: float = 0.0, values: dict | None = None) -> np.ndarray:
         """Independent source values at time t (DC value when no waveform)."""
         from engine.solver.kernel import wave_value
+        values = self.values if values is None else values
         u = np.zeros(self.nu)
         for k, el in enumerate(self.sources):
             kind, par = source_wave(el)
             if kind == 0:
-                u[k] = self.values[el.name]
+                u[k] = values[el.name]
             else:
                 u[k] = wave_value(kind, par, t)
         return u

@@ -200,16 +200,14 @@ class Simulator:
 
     # ------------------------------------------------------------ state
     def reset(self) -> None:
-        """Return to the DC operating point of the current values."""
+        """Return to the DC operating point of the current values.
+
+        Not for use while another thread is inside :meth:`process_into`
+        (call it from the audio thread, or with the stream stopped)."""
         m = self._next
         net = self.net
         if self._dc is None or self._dc_values != m.values:
-            saved = net.values
-            net.values = m.values
-            try:
-                self._dc = solve_dc(net, m.values, v0=None if self._dc is None else self._dc.v)
-            finally:
-                net.values = saved
+            self._dc = solve_dc(net, m.values, v0=None if self._dc is None else self._dc.v)
             self._dc_values = dict(m.values)
             self._op = None
         dc = self._dc
@@ -230,15 +228,11 @@ class Simulator:
         self._rs.reset()
 
     def operating_point(self) -> OperatingPoint:
-        """DC operating point report for the current part values."""
+        """DC operating point report for the current part values (any thread;
+        computed off the audio path)."""
         m = self._next
         if self._op is None or self._dc_values != m.values:
-            saved = self.net.values
-            self.net.values = m.values
-            try:
-                dc = solve_dc(self.net, m.values, v0=self._dc.v if self._dc else None)
-            finally:
-                self.net.values = saved
+            dc = solve_dc(self.net, m.values, v0=self._dc.v if self._dc else None)
             self._op = report(self.net, dc, m.values)
             self._dc, self._dc_values = dc, dict(m.values)
         return self._op
