@@ -409,8 +409,7 @@ class Workbench(QObject):
 
     @property
     def dirty(self) -> bool:
-        return self.generation != self.saved_generation or bool(self.design.dirty and
-                                                                self._undo)
+        return self.generation != self.saved_generation
 
     def can_undo(self) -> bool:
         return bool(self._undo)

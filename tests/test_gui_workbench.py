@@ -359,3 +359,37 @@ def test_caution_is_shown_once(qtbot, tmp_path, design_file):
         seen.append(any("Listening levels" in t for t in w.notices.texts()))
         w.close()
     assert seen == [True, False]
+
+
+def test_pot_switch_and_custom_law_controls(win, qtbot):
+    win.chain.select("level")
+    row = win.parts.rows["level.VOL"]
+    # arrow keys on the dial turn the pot 1 % per press (common practice for
+    # fine control; our own step size)
+    row.dial.setFocus()
+    qtbot.keyClick(row.dial, Qt.Key.Key_Up)
+    assert win.wb.design.part("level.VOL").rotation == pytest.approx(0.51)
+    # both resistances are shown: a-w = 10k * 0.51, w-b = the rest (linear law)
+    assert row.ra.text() == "a–w 5.1 kΩ" and row.rb.text() == "w–b 4.9 kΩ"
+    # choosing the custom law samples the current law at five points ...
+    row.taper.setCurrentIndex(row.taper.findData("custom"))
+    row.taper.activated.emit(row.taper.currentIndex())
+    law = win.wb.design.part("level.VOL").taper
+    assert law == [[0, 0.0], [0.25, 0.25], [0.5, 0.5], [0.75, 0.75], [1, 1.0]]
+    # ... which can be dragged: moving the middle point to 0.2 makes the law
+    # pass through (0.5, 0.2), interpolated linearly in between
+    row = win.parts.rows["level.VOL"]
+    handle = row.plot.handles[2]
+    handle.setPos((0.5, 0.2))
+    row.plot._dropped()
+    law = win.wb.design.part("level.VOL").taper
+    assert law[2] == [0.5, 0.2]
+    ra, rb = win.wb.design.pot_resistances(win.wb.design.part("level.VOL"))
+    # rotation 0.51 lies between (0.5, 0.2) and (0.75, 0.75): 0.2 + 0.01/0.25 * 0.55
+    assert ra == pytest.approx(10e3 * (0.2 + 0.01 / 0.25 * 0.55), rel=1e-9)
+    # a switch is a row of position buttons; choosing one rebuilds the circuit
+    sw = win.parts.rows["level.SW"]
+    with qtbot.waitSignal(win.wb.structure_changed, timeout=2000):
+        sw.group.button(1).click()
+    assert win.wb.design.part("level.SW").position == 1
+    assert sw.group.button(1).isChecked()
