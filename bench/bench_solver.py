@@ -95,15 +95,31 @@ def per_sample(circ: Circuit, seconds: float, block: int = 256, oversample: int 
     sim.process_into(x[:block], y)  # warm
     sim.reset()
     t0 = time.perf_counter()
+    c0 = time.process_time()
     for s in range(0, n, block):
         sim.process_into(x[s:s + block], y)
     dt = time.perf_counter() - t0
+    cpu = time.process_time() - c0
     st = sim.stats
     return {"ports": sim.n_ports, "states": sim.n_states, "unknowns": sim.net.nw,
             "oversample": oversample, "build_s": build, "us_per_sample": dt / n * 1e6,
-            "realtime_x": (n / FS) / dt, "mean_iterations": st["mean_iterations"],
+            "realtime_x": (n / FS) / dt, "cpu_us_per_sample": cpu / n * 1e6,
+            "realtime_x_cpu": (n / FS) / cpu, "mean_iterations": st["mean_iterations"],
+            "factorizations_per_sample": st["factorizations"] / max(1, st["samples"]),
             "max_iterations": st["max_iterations"], "fallbacks": st["fallbacks"],
             "nonconverged": st["nonconverged"]}
+
+
+def per_sample_designs(seconds: float) -> dict:
+    """Every built-in design (presets/designs), flattened, at oversample 1."""
+    from engine.design import builtin_designs, load_design
+    out = {}
+    for name, path in sorted(builtin_designs().items()):
+        try:
+            out[name] = per_sample(load_design(path).flatten(), seconds)
+        except Exception as e:  # a broken preset is reported, not fatal here
+            out[name] = {"error": f"{type(e).__name__}: {e}"}
+    return out
 
 
 def part_change(circ: Circuit, name: str, values, reps: int = 20) -> dict:
@@ -162,12 +178,14 @@ def main(quick: bool = False) -> dict:
     res = {"fs": FS, "loadavg": os.getloadavg(), "cpu_count": os.cpu_count(),
            "cascade": [], "compressor": {}, "part_change": {}, "start": {}}
     print(f"load average {res['loadavg']}, {res['cpu_count']} CPUs")
+    print("us/smp and x RT from wall time; cpu = process CPU time (less sensitive to load)")
     print(f"{'circuit':<22}{'ports':>6}{'states':>7}{'unk':>5}{'os':>4}{'us/smp':>9}"
-          f"{'x RT':>8}{'iter':>6}{'fb':>5}{'nc':>5}")
+          f"{'x RT':>8}{'x RTcpu':>8}{'iter':>6}{'LU/smp':>7}{'fb':>5}{'nc':>5}")
 
     def row(name, r):
         print(f"{name:<22}{r['ports']:>6}{r['states']:>7}{r['unknowns']:>5}{r['oversample']:>4}"
-              f"{r['us_per_sample']:>9.2f}{r['realtime_x']:>8.1f}{r['mean_iterations']:>6.2f}"
+              f"{r['us_per_sample']:>9.2f}{r['realtime_x']:>8.1f}{r['realtime_x_cpu']:>8.1f}"
+              f"{r['mean_iterations']:>6.2f}{r['factorizations_per_sample']:>7.3f}"
               f"{r['fallbacks']:>5}{r['nonconverged']:>5}")
 
     for n in (1, 2, 3, 5, 7):
@@ -179,6 +197,12 @@ def main(quick: bool = False) -> dict:
         r = per_sample(compressor(), secs, oversample=os_)
         res["compressor"][f"x{os_}"] = r
         row("compressor 5Q+OTA", r)
+    res["designs"] = per_sample_designs(secs)
+    for name, r in res["designs"].items():
+        if "error" in r:
+            print(f"{name:<22} {r['error']}")
+        else:
+            row(name[:22], r)
     print()
     print(f"{'part change':<28}{'unk':>5}{'median ms':>11}{'max ms':>9}{'rebuild ms':>12}")
     for label, circ, name, vals in (("compressor RREL", compressor(), "RREL", [220e3, 1e6]),
