@@ -196,8 +196,8 @@ def report(net: Network, sol: DCSolution, values: dict[str, float]) -> Operating
         if out_net is not None and canonical_net(out_net) not in rails \
                 and canonical_net(out_net) != GROUND:
             vo = vnet(out_net)
-            for rn, rv in list(rails.items()) + [(GROUND, 0.0)]:
-                if abs(vo - rv) < RAIL_MARGIN and rv != 0.0:
+            for rn, rv in rails.items():
+                if abs(vo - rv) < RAIL_MARGIN:
                     warnings.append(f"{el.name}: net '{out_net}' sits at {vo:.3f} V, within "
                                     f"{RAIL_MARGIN} V of supply rail '{rn}' ({rv:.3f} V)")
     return OperatingPoint(nets, devices, warnings, currents, sol.method)

@@ -9,9 +9,15 @@ Holters & Zoelzer, EUSIPCO 2015):
     x' = A x + B u + C i                  trapezoidal state update
 
 Devices are dispatched by integer type code over one flat parameter array,
-so no recompilation per design.  Newton failures fall back to continuation
-in p from the previous sample in sub-steps (4, then 16); if that fails too
-the previous port solution is kept and counted.  Output is never NaN.
+so no recompilation per design.  The port solve starts from a predictor
+(previous solution plus a chord step for the change in p), runs chord
+iterations on the explicit inverse of the last factored Jacobian, and falls
+through to full Newton-Raphson (fresh Jacobian, pnjlim limiting) when the
+chord contraction is slower than 1/4.  Devices whose port voltages moved
+less than BYPASS_TOL are not re-evaluated (SPICE's bypass).  Newton failures
+fall back to continuation in p from the previous sample in sub-steps (4,
+then 16); if that fails too the previous port solution is kept and counted.
+Output is never NaN.
 
 Everything here runs on the audio thread: no allocation, ``nogil=True``,
 ``cache=True``.

@@ -128,7 +128,9 @@ class Simulator:
     Parameters
     ----------
     circuit : the flat circuit; ``circuit.input_source`` is driven by the
-        input samples (added to its DC value), ``circuit.output`` is read.
+        input samples (added to its DC value; a waveform on it is ignored),
+        ``circuit.output`` is read.  Other sources play their SIN/PULSE/PWL
+        waveforms from t = 0 at the first processed sample.
     fs : outer sample rate, Hz.
     oversample : 1, 2, 4 or 8 (polyphase resampling around the kernel).
     probes : probe names, e.g. ``("v(out)", "ic(Q1)", "gm(U1)")``.
