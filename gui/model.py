@@ -430,14 +430,14 @@ class Workbench(QObject):
         merged = bool(merge and self._undo and self._undo[-1][2] == merge
                       and now - self._undo[-1][3] < MERGE_SECONDS)
         before = None if merged else self.design.copy()
+        # the design layer checks an edit before it changes anything, so a
+        # refused edit leaves the design as it was; a whole-design copy is kept
+        # anyway for edits that are not merged, and put back on any refusal
         try:
             result = fn(self.design)
         except SolderlessError:
             if before is not None:
                 self.design = before
-            else:
-                self.design = self._undo[-1][1].copy()
-                self._replay_after_failed_merge()
             raise
         except (KeyError, ValueError, TypeError) as exc:
             if before is not None:
@@ -453,9 +453,6 @@ class Workbench(QObject):
         self.generation += 1
         self.history_changed.emit()
         return result
-
-    def _replay_after_failed_merge(self):  # pragma: no cover - defensive
-        self.design_replaced.emit()
 
     def undo(self) -> bool:
         """Return to the design before the last edit (exactly)."""

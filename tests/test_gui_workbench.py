@@ -393,3 +393,16 @@ def test_pot_switch_and_custom_law_controls(win, qtbot):
         sw.group.button(1).click()
     assert win.wb.design.part("level.SW").position == 1
     assert sw.group.button(1).isChecked()
+
+
+def test_refused_value_is_explained_and_changes_nothing(win, qtbot):
+    win.chain.select("amp")
+    row = win.parts.rows["amp.R2"]
+    row.edit.setFocus()
+    row.edit.selectAll()
+    qtbot.keyClicks(row.edit, "-1k")
+    qtbot.keyClick(row.edit, Qt.Key.Key_Return)
+    assert win.wb.design.part("amp.R2").value == 47e3
+    msg = win.statusBar().currentMessage()
+    assert "amp.R2" in msg and "positive" in msg
+    assert not win.wb.can_undo()
