@@ -60,11 +60,16 @@ class InspectPanel(QWidget):
         self.gain_curve = self.gain.plot(pen=pg.mkPen(theme.SET, width=2))
         self.zin = pg.PlotWidget()
         self.zin.setLogMode(x=True, y=True)
-        self.zin.setLabel("left", "input impedance", units="Ω")
-        self.zin.setLabel("bottom", "frequency", units="Hz")
+
         self.zin.showGrid(x=True, y=True, alpha=0.25)
         self.zin_curve = self.zin.plot(pen=pg.mkPen(theme.READ, width=2))
         self.zin.setXLink(self.gain)
+        # plain Hz and Ω on log axes: SI prefixes on a log axis read as 0.01 kHz
+        for w in (self.gain, self.zin):
+            for ax in ("left", "bottom"):
+                w.getAxis(ax).enableAutoSIPrefix(False)
+        self.zin.setLabel("left", "input impedance (Ω)")
+        self.zin.setLabel("bottom", "frequency (Hz)")
         self.ac_status = QLabel("")
         self.ac_status.setProperty("role", "dim")
         al.addWidget(self.gain, 1)
