@@ -471,7 +471,7 @@ class Design:
                     if raw.get("name") == pname:
                         return raw, key
             table = {"value": "values", "rotation": "rotations", "taper": "tapers",
-                     "position": "positions"}[key]
+                     "position": "positions", "tolerance": "tolerances"}[key]
             import tomlkit
             if table not in sdoc:
                 sdoc[table] = tomlkit.table()
@@ -536,6 +536,28 @@ class Design:
         part.taper = _check_taper(taper, Where(self._file()), qualname)
         self._record(qualname, "taper", part.taper)
         return self._element_values(qualname, part)
+
+    def set_tolerance(self, qualname: str, tolerance: float | str | None) -> None:
+        """Set a part's tolerance (a fraction, or text such as "5%" or "J");
+        None removes it. Tolerance does not change the simulation."""
+        part = self.part(qualname)
+        if tolerance is None:
+            part.tolerance = None
+            loc = self._part_doc(qualname, "tolerance")
+            if loc is not None and loc[1] in loc[0]:
+                del loc[0][loc[1]]
+            self.dirty = True
+            return
+        if isinstance(tolerance, str):
+            from engine.values import parse_tolerance
+            tol = parse_tolerance(tolerance, part=qualname)
+        else:
+            tol = float(tolerance)
+        if not 0.0 < tol < 1.0:
+            raise DesignError(f"tolerance must lie between 0 and 100 %, not {tolerance!r}",
+                              part=qualname, file=self._file())
+        part.tolerance = tol
+        self._record(qualname, "tolerance", f"{tol * 100:g}%")
 
     def set_position(self, qualname: str, position: int) -> None:
         """Move a selector switch (a topology change: rebuild the simulator)."""
@@ -1042,6 +1064,14 @@ def _design_from_toml(path: Path) -> Design:
                 part.taper = _check_taper(tap, w, f"{name}.{pname}")
             for pname, pos in raw.get("positions", {}).items():
                 st.part(pname).position = int(pos)
+            for pname, tol in raw.get("tolerances", {}).items():
+                from engine.values import parse_tolerance
+                try:
+                    st.part(pname).tolerance = parse_tolerance(
+                        tol, file=file, line=sline, part=f"{name}.{pname}")
+                except KeyError:
+                    raise DesignError(f"template '{st.template}' has no part '{pname}'",
+                                      file=file, line=sline, part=f"{name}.{pname}") from None
             for prt in raw.get("part", []):  # extra parts added to a template
                 pw = Where(file, finder(prt.get("name", ""), line) or sline)
                 st.parts.append(_read_part(prt, pw, d.models, name))

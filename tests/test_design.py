@@ -215,3 +215,42 @@ def test_cli_reports_user_mistake_without_traceback(tmp_path, capsys):
     err = capsys.readouterr().err
     assert rc == 2
     assert "Traceback" not in err and "error:" in err and "lp.C1" in err
+
+
+TEMPLATED = textwrap.dedent("""\
+    [design]
+    name = "templated"
+    global_nets = ["vcc", "vref"]
+    [[design.part]]
+    name = "VCC"
+    type = "supply"
+    nodes = ["vcc", "0"]
+    value = "9"
+    [[design.part]]
+    name = "VREF"
+    type = "supply"
+    nodes = ["vref", "0"]
+    value = "4.5"
+
+    [[stage]]
+    name = "buffer"
+    template = "buffers/emitter-follower"
+""")
+
+
+def test_template_edits_are_saved_as_overrides(tmp_path):
+    path = write(tmp_path, TEMPLATED)
+    d = load_design(path)
+    d.set_value("buffer.RE", "4k7")
+    d.set_tolerance("buffer.RE", "1%")
+    d.save()
+    text = path.read_text()
+    # the library file is untouched; the design carries the overrides
+    assert "[stage.values]" in text and "[stage.tolerances]" in text
+    d2 = load_design(path)
+    assert d2.part("buffer.RE").value == pytest.approx(4700.0)
+    assert d2.part("buffer.RE").tolerance == pytest.approx(0.01)
+    assert load_design(write(tmp_path, TEMPLATED, "fresh.toml")).part("buffer.RE").value \
+        == pytest.approx(10e3)
+    with pytest.raises(DesignError, match="no part 'NOPE'"):
+        load_design(write(tmp_path, TEMPLATED + '[stage.values]\nNOPE = "1k"\n', "bad.toml"))
