@@ -579,21 +579,33 @@ class Design:
             self._stage_docs[stage]["bypass"] = bool(on)
 
     # ------------------------------------------------------------ save
-    def to_toml(self) -> str:
+    def to_toml(self, target: Path | None = None) -> str:
+        """The design file's text. A design made from a whole netlist is
+        written as a small design file that names the netlist (relative to
+        ``target``'s folder) and carries the edited values."""
         if self.doc is None:
-            raise DesignError("a design imported from a netlist is saved by writing a "
-                              "design file that uses it", file=self._file(),
-                              hint="save as a .toml file")
+            raise DesignError("this design has no document to save", file=self._file())
         import tomlkit
+        if self.netlist is not None and target is not None:
+            src = Path(self.doc["netlist"]["file"])
+            if not src.is_absolute() and self.path is not None:
+                src = (self.path.parent / src).resolve()
+            self.doc["netlist"]["file"] = os.path.relpath(src, Path(target).resolve().parent)
         return tomlkit.dumps(self.doc)
 
     def save(self, path: str | os.PathLike | None = None) -> Path:
         """Write the design atomically (temporary file in the same folder, then
-        rename), so a crash never leaves a half-written file."""
+        rename), so a crash never leaves a half-written file. A design made
+        from a netlist is saved as a .toml design that uses the netlist; the
+        netlist itself is never overwritten."""
         target = Path(path) if path else self.path
         if target is None:
             raise DesignError("no file name to save to", hint="give a path")
-        text = self.to_toml()
+        if self.netlist is not None and target.suffix.lower() != ".toml":
+            raise DesignError("a design made from a netlist is saved as a .toml design "
+                              "file that uses the netlist (the netlist stays untouched)",
+                              file=str(target), hint="save under a name ending in .toml")
+        text = self.to_toml(target)
         atomic_write_text(target, text)
         self.path = target
         self.dirty = False
@@ -972,6 +984,47 @@ def _design_from_netlist(path: Path, in_source: str, out_node: str) -> Design:
                           where=e.where or Where(str(path))))
     d.stages = [Stage(name="netlist", ports=["in", "out"], parts=parts, kind="netlist",
                       where=Where(str(path)))]
+    import tomlkit
+    d.doc = tomlkit.document()
+    head = tomlkit.table()
+    head["name"] = d.name
+    d.doc["design"] = head
+    table = tomlkit.table()
+    table["file"] = str(path.resolve())
+    table["in_source"] = in_source
+    table["out_node"] = out_node
+    d.doc["netlist"] = table
+    d._stage_docs["netlist"] = table
+    return d
+
+
+def _design_from_netlist_toml(path: Path, data: dict, doc) -> Design:
+    """A design file whose [netlist] table names a whole netlist, with the
+    user's edited values ([netlist.values], [netlist.rotations] ...)."""
+    table = data["netlist"]
+    w = Where(str(path))
+    _expect(isinstance(table, dict) and isinstance(table.get("file"), str),
+            "[netlist] needs file = \"name.cir\"", w)
+    npath = Path(table["file"])
+    if not npath.is_absolute():
+        npath = path.parent / npath
+    d = _design_from_netlist(npath, str(table.get("in_source", "VIN")),
+                             str(table.get("out_node", "out")))
+    d.path = path
+    d.doc = doc
+    d._stage_docs["netlist"] = doc["netlist"]
+    d.name = str(data.get("design", {}).get("name", d.name))
+    d.notes = str(data.get("design", {}).get("notes", ""))
+    st = d.stages[0]
+    for pname, val in table.get("values", {}).items():
+        try:
+            part = st.part(pname)
+        except KeyError:
+            raise DesignError(f"the netlist has no part '{pname}'", file=str(path),
+                              part=pname) from None
+        part.value = _parse_value(val, file=str(path), part=pname)
+        if part.type in POSITIVE_TYPES and not part.value > 0:
+            raise DesignError("value must be positive", file=str(path), part=pname)
     return d
 
 
@@ -987,6 +1040,8 @@ def _design_from_toml(path: Path) -> Design:
     data, text = _toml_load(path)
     finder = _line_finder(text)
     file = str(path)
+    if "netlist" in data:
+        return _design_from_netlist_toml(path, data, tomlkit.parse(text))
     d = Design()
     d.path = path
     d.doc = tomlkit.parse(text)

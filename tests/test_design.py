@@ -254,3 +254,23 @@ def test_template_edits_are_saved_as_overrides(tmp_path):
         == pytest.approx(10e3)
     with pytest.raises(DesignError, match="no part 'NOPE'"):
         load_design(write(tmp_path, TEMPLATED + '[stage.values]\nNOPE = "1k"\n', "bad.toml"))
+
+
+def test_netlist_design_saves_as_toml_that_uses_it(tmp_path):
+    net = tmp_path / "nets" / "rc.cir"
+    net.parent.mkdir()
+    original = "rc from a netlist\nVIN src 0 0\nR1 src out 10k\nC1 out 0 10n\n.end\n"
+    net.write_text(original)
+    d = load_design(net)
+    d.set_value("netlist.R1", "22k")
+    with pytest.raises(DesignError, match=r"\.toml"):
+        d.save()                      # never overwrite the netlist with TOML
+    assert net.read_text() == original
+    out = tmp_path / "work" / "rc-mod.toml"
+    d.save(out)
+    assert net.read_text() == original
+    d2 = load_design(out)
+    assert d2.part("netlist.R1").value == pytest.approx(22e3)
+    els = {e.name: e for e in d2.flatten().elements}
+    assert els["R1"].value == pytest.approx(22e3) and els["C1"].value == pytest.approx(10e-9)
+    assert "../nets/rc.cir" in out.read_text()
