@@ -144,6 +144,13 @@ def _probes_for(design) -> tuple[list[str], int | None]:
     return names, (0 if control else None)
 
 
+def scope_tail(ring: FrameRing, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """The last ``n`` pairs of a scope ring as (input, output) arrays."""
+    end = ring.written
+    frames, _, _ = ring.read_new(max(0, end - int(n)))
+    return frames[:, 0].copy(), frames[:, 1].copy()
+
+
 class Voice:
     """One design running live: its simulator, buffers and loudness meter.
     The host owns it; the audio thread calls :meth:`process`."""
@@ -248,6 +255,8 @@ class LiveHost:
     simulator_factory : ``f(circuit, fs, oversample, probes) -> simulator``.
     autosave : path for the autosave copy of A's design (None: beside the
         config folder; False: off).
+    shared : put the meter ring and the scope ring in shared memory, so
+        another process can read them (:class:`engine.live.remote.HostProcess`).
     """
 
     def __init__(self, design, *, variant=None, fs: float = 48000.0, block: int = 128,
@@ -255,7 +264,7 @@ class LiveHost:
                  in_full_scale_v: float | None = None, out_full_scale_v: float | None = None,
                  level_db: float = 0.0, ceiling_dbfs: float = lim.DEFAULT_CEILING_DBFS,
                  loudness_match: bool = True, simulator_factory: Callable | None = None,
-                 autosave: str | os.PathLike | bool | None = None):
+                 autosave: str | os.PathLike | bool | None = None, shared: bool = False):
         if not 16 <= int(block) <= MAX_BLOCK:
             raise AudioError(f"block size {block} is out of range",
                              hint=f"use 16 to {MAX_BLOCK} samples (64 or more at 48 kHz)")
@@ -288,7 +297,13 @@ class LiveHost:
         self.prm = lim.make_params(self.fs, self.out_fs_v, self.level_db, self.ceiling_dbfs)
         na = len(self.voices[0].probes)
         nb = len(self.voices[1].probes) if len(self.voices) > 1 else 0
-        self.ring = FrameRing(8192, M.C_PROBES + na + nb)
+        mk = FrameRing.shared if shared else FrameRing
+        self.ring = mk(8192, M.C_PROBES + na + nb)
+        # scope capture: (input V, output V) pairs, decimated (meters.scope_write)
+        self.scope = mk(M.SCOPE_FRAMES, 2)
+        self._scope_phase = np.zeros(1, dtype=np.int64)
+        self._clock: threading.Thread | None = None
+        self._clock_stop = threading.Event()
         self.blocks = 0
         self.xruns = 0
         self.offset_db = 0.0
@@ -297,6 +312,7 @@ class LiveHost:
         self.stream_latency_s = (0.0, 0.0)
         self._edit_pending_t: float | None = None
         self._edit_lat = np.zeros(1024)
+        self._edit_post = np.zeros(1024)
         self._n_edit_lat = 0
         self.edits = 0
         self._last_block_t = -1e9
@@ -356,6 +372,8 @@ class LiveHost:
         M.peak_ms(z, self.block)
         M.probe_means_mapped(np.zeros((1, 4)), 4, np.zeros(1 + M.C_PROBES), M.C_PROBES,
                              np.zeros(1, dtype=np.int64), 1)
+        M.scope_write(np.zeros((4, 2)), np.zeros(1, dtype=np.int64), z, z, self.block,
+                      M.SCOPE_DECIMATE, np.zeros(1, dtype=np.int64))
         self.source.fill(None, self.block, z.copy())
         if hasattr(self.source, "pos"):
             self.source.pos = 0
@@ -413,8 +431,9 @@ class LiveHost:
             if xrun:
                 self.xruns += 1
             if self._edit_pending_t is not None:
-                self._edit_lat[self._n_edit_lat % self._edit_lat.shape[0]] = \
-                    t0 - self._edit_pending_t
+                k = self._n_edit_lat % self._edit_lat.shape[0]
+                self._edit_lat[k] = t0 - self._edit_pending_t
+                self._edit_post[k] = self._edit_pending_t
                 self._n_edit_lat += 1
                 self._edit_pending_t = None
             x = self.x
@@ -455,6 +474,8 @@ class LiveHost:
             row[M.C_IN_PEAK], row[M.C_IN_MS] = M.peak_ms(x, n)
             row[M.C_OUT_PEAK], row[M.C_OUT_MS] = M.peak_ms(self.mixv, n)
             row[M.C_DAC_PEAK], row[M.C_DAC_MS] = M.peak_ms(self.out, n)
+            M.scope_write(self.scope.data, self.scope._written, x, self.mixv, n,
+                          M.SCOPE_DECIMATE, self._scope_phase)
             row[M.C_OUT_PEAK_A], row[M.C_OUT_MS_A] = M.peak_ms(va.y, n)
             row[M.C_OUT_PEAK_B], row[M.C_OUT_MS_B] = M.peak_ms(vb.y, n)
             row[M.C_XRUNS] = self.xruns
@@ -511,8 +532,43 @@ class LiveHost:
                                          output_device=output_device,
                                          channels_out=channels_out, channels_in=channels_in)
 
+    def start_paced(self) -> None:
+        """Run the audio path without a sound card, paced at real time by a
+        thread of its own (benches and tests of the whole chain; no sound is
+        heard). A block that starts more than one block period after its due
+        time is counted as an xrun on the next block, the way PortAudio
+        reports an underflow, and the clock then resynchronises."""
+        self.prepare()
+        if self._clock is not None:
+            return
+        self._clock_stop.clear()
+        n = self.block
+        period = n / self.fs
+        out = np.zeros((n, 1), dtype=np.float32)
+        ind = np.zeros((n, 1), dtype=np.float32) if self.source.needs_input else None
+
+        def run():
+            t_next = time.perf_counter()
+            late = False
+            while not self._clock_stop.is_set():
+                self._audio_block(ind, out, n, late)
+                late = False
+                t_next += period
+                now = time.perf_counter()
+                if now > t_next + period:
+                    late = True
+                    t_next = now
+                elif t_next > now:
+                    time.sleep(t_next - now)
+        self._clock = threading.Thread(target=run, name="solderless-clock", daemon=True)
+        self._clock.start()
+
     def stop(self) -> None:
-        """Close the stream (if any) and finish pending edits."""
+        """Close the stream (or the paced clock) and finish pending edits."""
+        if self._clock is not None:
+            self._clock_stop.set()
+            self._clock.join(5)
+            self._clock = None
         if self.stream is not None:
             try:
                 self.stream.stop()
@@ -529,9 +585,14 @@ class LiveHost:
         self._worker.join(timeout=5)
         self._closing = True
         self._measure_wake.set()
+        for r in (self.ring, self.scope):
+            r.close()
 
     @property
     def running(self) -> bool:
+        """True while a stream (or the paced clock) runs without error."""
+        if self._clock is not None:
+            return self.error is None
         s = self.stream
         return bool(s is not None and s.active and self.error is None)
 
@@ -731,6 +792,21 @@ class LiveHost:
         if r != r1:                     # step budget spent: land on the target
             self._apply(v, v.design.set_rotation(pot, r1))
 
+    def set_taper(self, pot: str, taper, voice=None) -> Future:
+        """Change a pot's taper ("linear", "audio", "reverse-audio" or a table
+        of (rotation, fraction) points, as :meth:`Design.set_taper` takes);
+        the new element values land at a block boundary with the state
+        carried over. Result: the taper as stored."""
+        t_post = time.perf_counter()
+
+        def job():
+            i, v = self._voice(voice)
+            changes = v.design.set_taper(pot, taper)
+            self._apply(v, changes, t_post)
+            self._after_edit(i)
+            return v.design.part(pot).taper
+        return self._post(job)
+
     def set_bypass(self, stage: str, on: bool, voice=None) -> Future:
         """Bypass a stage (or bring it back): rebuild the simulator and swap it
         in with a short crossfade. Result: the build time in seconds."""
@@ -816,6 +892,27 @@ class LiveHost:
         used it (the most recent 1024 edits)."""
         k = min(self._n_edit_lat, self._edit_lat.shape[0])
         return [float(x) for x in self._edit_lat[:k]]
+
+    @property
+    def edit_landings(self) -> list[tuple[float, float]]:
+        """``(t_asked, t_block)`` per edit (the most recent 1024), both on the
+        ``time.perf_counter`` clock (system-wide monotonic on Linux, so
+        another process can compare): when the edit was asked for and when
+        the first block that used it started."""
+        k = min(self._n_edit_lat, self._edit_lat.shape[0])
+        return [(float(self._edit_post[i]), float(self._edit_post[i] + self._edit_lat[i]))
+                for i in range(k)]
+
+    def scope_spec(self) -> dict:
+        """How to read the scope ring: shared-memory spec (or None), the
+        decimation and the sample rate of the pairs."""
+        return {"ring": self.scope.spec(), "decimate": M.SCOPE_DECIMATE,
+                "rate": self.fs / M.SCOPE_DECIMATE}
+
+    def scope_latest(self, n: int) -> tuple[np.ndarray, np.ndarray]:
+        """The last ``n`` (input V, output V) pairs of the scope capture (any
+        thread but the audio thread)."""
+        return scope_tail(self.scope, n)
 
     @property
     def loudness_offset_db(self) -> float:

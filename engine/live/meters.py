@@ -107,6 +107,74 @@ def probe_means_mapped(buf, nframes, row, col0, idx, width):  # pragma: no cover
         row[col0 + idx[p]] = acc / nframes if nframes > 0 else np.nan
 
 
+SCOPE_DECIMATE = 2
+"""The scope capture keeps every second sample (24 kHz at 48 kHz: enough
+points per cycle to draw an input/output transfer curve)."""
+SCOPE_FRAMES = 16384
+
+
+@numba.njit(nogil=True, cache=True)
+def scope_write(data, written, x, y, n, decim, phase):  # pragma: no cover - compiled
+    """Append every ``decim``-th sample pair ``(x[i], y[i])`` of a block to the
+    ring ``data`` (rows of 2), then publish by advancing ``written[0]`` once.
+    ``phase[0]`` carries the decimation phase across blocks. Audio thread."""
+    cap = data.shape[0]
+    w = written[0]
+    ph = phase[0]
+    for i in range(n):
+        if ph == 0:
+            r = w % cap
+            data[r, 0] = x[i]
+            data[r, 1] = y[i]
+            w += 1
+        ph += 1
+        if ph >= decim:
+            ph = 0
+    phase[0] = ph
+    written[0] = w
+
+
+class _Session:
+    """Figures over the whole session (since the reader was made): the largest
+    input and output peaks, the deepest gain reduction, the control current's
+    range and the CPU load per block (kept for percentiles)."""
+
+    def __init__(self):
+        self.in_peak = 0.0
+        self.out_peak = 0.0
+        self.dac_peak = 0.0
+        self.gr_min: list[float | None] = [None, None]
+        self.ctl_min: list[float | None] = [None, None]
+        self.ctl_max: list[float | None] = [None, None]
+        self.cpu = np.zeros(1 << 16)
+        self.n_cpu = 0
+
+    def feed_cpu(self, c: float) -> None:
+        self.cpu[self.n_cpu % self.cpu.shape[0]] = c
+        self.n_cpu += 1
+
+    def feed_control(self, v: int, cur: float) -> None:
+        if math.isnan(cur):
+            return
+        lo, hi = self.ctl_min[v], self.ctl_max[v]
+        self.ctl_min[v] = cur if lo is None else min(lo, cur)
+        self.ctl_max[v] = cur if hi is None else max(hi, cur)
+
+    def feed_gr(self, v: int, gr: float | None) -> None:
+        if gr is None or math.isnan(gr):
+            return
+        g = self.gr_min[v]
+        self.gr_min[v] = gr if g is None else min(g, gr)
+
+    def cpu_stats(self) -> dict:
+        k = min(self.n_cpu, self.cpu.shape[0])
+        if k == 0:
+            return {"median": None, "p99": None, "max": None, "blocks": 0}
+        c = self.cpu[:k]
+        return {"median": float(np.median(c)), "p99": float(np.percentile(c, 99)),
+                "max": float(c.max()), "blocks": int(self.n_cpu)}
+
+
 class _Ballistics:
     """Peak hold/fall and windowed RMS of one level column pair."""
 
@@ -188,6 +256,7 @@ class MeterReader:
         # "linear": gain proportional to the control (OTA); other laws get no
         # control-based gain reduction (their scale is not known here)
         self.control_law: list[str] = ["linear", "linear"]
+        self.session = _Session()
 
     def poll(self) -> dict:
         """Drain new frames and return the current readings (see :meth:`snapshot`)."""
@@ -203,12 +272,46 @@ class MeterReader:
             self.cpu_max = max(self.cpu_max, f[C_CPU])
             self.cpu_sum += f[C_CPU]
             self.limit_gr_min = min(self.limit_gr_min, f[C_LIMIT_GR])
+            ss = self.session
+            ss.in_peak = max(ss.in_peak, f[C_IN_PEAK])
+            ss.out_peak = max(ss.out_peak, f[C_OUT_PEAK])
+            ss.dac_peak = max(ss.dac_peak, f[C_DAC_PEAK])
+            ss.feed_cpu(f[C_CPU])
             for v, ctl, off in ((0, self.control_a, 0),
                                 (1, self.control_b, len(self.names_a))):
                 if ctl is not None:
-                    self.control_hist[v].append(f[C_PROBES + off + ctl[0]])
+                    cur = f[C_PROBES + off + ctl[0]]
+                    self.control_hist[v].append(cur)
+                    ss.feed_control(v, cur)
+                    if self.control_law[v] == "linear" and ctl[1] > 0 and cur > 0:
+                        ss.feed_gr(v, 20.0 * math.log10(cur / ctl[1]))
             self.last = f
         return self.snapshot()
+
+    def session_figures(self) -> dict:
+        """Figures over the whole session, beside the ballistic readings:
+        largest input/output peak (V and dBFS), deepest gain reduction from
+        the control (dB, per block mean of the control), the control current's
+        range (A), xruns and CPU load per block (median, p99, max)."""
+        ss = self.session
+        f = self.last
+        out = {
+            "input_peak_v": ss.in_peak,
+            "input_peak_dbfs": to_db(ss.in_peak / self.in_fs_v),
+            "output_peak_v": ss.out_peak,
+            "output_peak_dbfs": to_db(ss.dac_peak),
+            "xruns": 0 if f is None else int(f[C_XRUNS]),
+            "cpu_load": ss.cpu_stats(),
+            "voices": {},
+        }
+        for v in (0, 1):
+            if v == 1 and self.control_b is None:
+                continue
+            out["voices"]["AB"[v]] = {
+                "gr_control_db_deepest": ss.gr_min[v],
+                "control_a_min": ss.ctl_min[v], "control_a_max": ss.ctl_max[v],
+            }
+        return out
 
     def _gr(self, voice: int) -> tuple[float | None, float | None, float | None]:
         ctl = self.control_a if voice == 0 else self.control_b
@@ -283,4 +386,5 @@ class MeterReader:
             }
         snap["voices"] = voices
         snap["loudness_offset_db"] = 0.0 if f is None else float(f[C_OFFSET])
+        snap["session"] = self.session_figures()
         return snap

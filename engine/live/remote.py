@@ -4,86 +4,152 @@ delay the audio callback.
 Python's GIL is shared by every thread of a process: a long pure-Python
 stretch in a GUI thread holds up the PortAudio callback of a host in the same
 process and causes dropouts. :class:`HostProcess` runs a
-:class:`~engine.live.host.LiveHost` in a child process (``spawn``) and talks
-to it through a pipe: commands in (the same edit methods), meter snapshots
-and meter frames out. The child's own audio callback then only competes with
-the child's edit worker.
+:class:`~engine.live.host.LiveHost` in a child process (``spawn``):
 
-Every call is a short request/answer round trip (well under a millisecond on
-a local pipe); the GUI polls :meth:`HostProcess.meters` at its frame rate.
-The audio thread is never involved in a round trip.
+* **Commands in** through a pipe: the host's edit methods, each tagged with
+  a request number. The child calls the method and answers when its Future
+  is done (from the child's edit worker), so the caller never waits for an
+  edit unless it asks to (:meth:`HostProcess.call` waits, :meth:`HostProcess.post`
+  does not).
+* **Meters and scope out** through shared memory: the child's meter ring and
+  scope ring (:meth:`engine.live.ring.FrameRing.shared`) are attached in this
+  process, and :meth:`HostProcess.meters` turns frames into readings here
+  (:class:`engine.live.meters.MeterReader`), without a round trip. What the
+  readings need besides frames (small-signal gain, quiescent control, latency)
+  is fetched from the child now and then.
+
+The child's audio callback then competes only with the child's edit worker
+and its command loop, which sleep while nothing is asked.
 """
 from __future__ import annotations
 
+import itertools
 import multiprocessing as mp
+import queue
 import threading
+import time
 import traceback
+from concurrent.futures import Future
 from typing import Any
 
 from engine.errors import AudioError, SolderlessError
 
 #: Methods of LiveHost a HostProcess may call; those returning a Future are
-#: waited for in the child (edits land through the child's mailbox).
-ALLOWED = {"start", "stop", "set_value", "step_value", "set_rotation", "set_bypass",
-           "save", "select", "set_level_db", "unmute", "latency", "meters",
-           "part_info", "prepare"}
+#: answered when the Future is done (edits land through the child's mailbox).
+ALLOWED = {"start", "start_paced", "stop", "set_value", "step_value", "set_rotation",
+           "set_taper", "set_bypass", "save", "select", "set_level_db", "unmute",
+           "latency", "part_info", "prepare", "flush"}
+#: Requests served by the child loop itself.
+EXTRA = {"parts", "state", "meter_setup", "set_source", "edit_landings", "host_meters"}
+SETUP_EVERY_S = 0.5
+"""How often the meter set-up (small-signal gain, quiescent control) is
+refreshed from the child; it changes only after edits."""
 
 
-def _child_main(conn, design: str, variant: str | None, kwargs: dict,
-                start_kwargs: dict | None) -> None:  # pragma: no cover - child process
+def _meter_setup(host) -> dict:
+    m = host.meter
+    return {"control_a": m.control_a, "control_b": m.control_b,
+            "small_signal_gain_db": list(m.small_signal_gain_db),
+            "control_law": list(m.control_law), "units_a": m.units_a, "units_b": m.units_b,
+            "latency": host.latency(),
+            "nonconverged": sum(int((getattr(v.sim, "stats", None) or {}).get("nonconverged", 0))
+                                for v in host.voices if v.sim is not None)}
+
+
+def _load(d):
+    from engine.design import load_design
+    if d is None or not isinstance(d, (str, bytes)) and not hasattr(d, "__fspath__"):
+        return d
+    return load_design(d)
+
+
+def _child_main(conn, design, variant, kwargs: dict, start_kwargs: dict | None,
+                paced: bool) -> None:  # pragma: no cover - child process
     from concurrent.futures import Future
 
-    from engine.design import load_design
     from engine.live.host import LiveHost
     from engine.live.source import parse_source
+    if hasattr(__import__("sys"), "setswitchinterval"):
+        import sys
+        sys.setswitchinterval(0.001)     # the audio thread waits less for the GIL
+    lock = threading.Lock()
+
+    def send(msg):
+        with lock:
+            try:
+                conn.send(msg)
+            except (OSError, ValueError):
+                pass
+
+    host = None
     try:
         src = kwargs.pop("source", None)
         ch = kwargs.pop("input_channel", 0)
-        host = LiveHost(load_design(design),
-                        variant=load_design(variant) if variant else None,
-                        source=parse_source(src, ch), **kwargs)
+        if src is None or isinstance(src, str):
+            src = parse_source(src, ch)
+        host = LiveHost(_load(design), variant=_load(variant), source=src, shared=True,
+                        **kwargs)
         host.prepare()
         if start_kwargs is not None:
             host.start(**start_kwargs)
-        conn.send(("ready", {"fs": host.fs, "block": host.block,
-                             "probes": [v.probes for v in host.voices],
-                             "designs": [getattr(v.design, "name", "?") for v in host.voices]}))
+        elif paced:
+            host.start_paced()
+        send(("ready", 0, True, {
+            "fs": host.fs, "block": host.block, "oversample": host.oversample,
+            "in_fs_v": host.in_fs_v, "out_fs_v": host.out_fs_v,
+            "level_db": host.level_db, "ceiling_dbfs": host.ceiling_dbfs,
+            "probes": [v.probes for v in host.voices],
+            "designs": [getattr(v.design, "name", "?") for v in host.voices],
+            "source": host.source.label, "ring": host.ring.spec(),
+            "scope": host.scope_spec(), "setup": _meter_setup(host),
+            "autosave": host.autosave_paths()}))
     except BaseException as exc:
-        conn.send(("err", _portable(exc)))
+        send(("ready", 0, False, _portable(exc)))
+        if host is not None:
+            host.close()
         return
-    since = 0
+
+    def answer(rid, fut):
+        exc = fut.exception()
+        send(("done", rid, exc is None, fut.result() if exc is None else _portable(exc)))
+
     while True:
         try:
             msg = conn.recv()
         except (EOFError, OSError):
             break
-        kind = msg[0]
-        if kind == "quit":
+        if msg[0] == "quit":
             break
+        _, rid, name, args, kw = msg
         try:
-            if kind == "call":
-                _, name, args, kw = msg
-                if name not in ALLOWED:
-                    raise AudioError(f"'{name}' cannot be called on the host process")
+            if name in ALLOWED:
                 r = getattr(host, name)(*args, **kw)
-                if isinstance(r, Future):
-                    r = r.result(60)
-                conn.send(("ok", r))
-            elif kind == "parts":
-                conn.send(("ok", host.voices[host.edit_voice].design.parts()))
-            elif kind == "frames":
-                frames, since, lost = host.ring.read_new(since)
-                conn.send(("ok", (frames, lost)))
-            elif kind == "state":
-                conn.send(("ok", {"blocks": host.blocks, "xruns": host.xruns,
-                                  "guard": host.guard_reason, "running": host.running,
-                                  "error": None if host.error is None else repr(host.error),
-                                  "offset_db": host.loudness_offset_db,
-                                  "messages": _drain(host.messages)}))
+            elif name == "parts":
+                r = host.voices[host.edit_voice].design.parts()
+            elif name == "state":
+                r = {"blocks": host.blocks, "xruns": host.xruns, "guard": host.guard_reason,
+                     "running": host.running, "edits": host.edits,
+                     "error": None if host.error is None else repr(host.error),
+                     "offset_db": host.loudness_offset_db, "selected": "AB"[host.selected],
+                     "messages": _drain(host.messages)}
+            elif name == "meter_setup":
+                r = _meter_setup(host)
+            elif name == "set_source":
+                s = args[0]
+                r = host.set_source(parse_source(s) if isinstance(s, str) else s)
+            elif name == "edit_landings":
+                r = host.edit_landings
+            elif name == "host_meters":
+                r = host.meters()
             else:
-                raise AudioError(f"unknown request {kind!r}")
+                raise AudioError(f"'{name}' cannot be called on the host process")
         except BaseException as exc:
-            conn.send(("err", _portable(exc)))
+            send(("done", rid, False, _portable(exc)))
+            continue
+        if isinstance(r, Future):
+            r.add_done_callback(lambda f, rid=rid: answer(rid, f))
+        else:
+            send(("done", rid, True, r))
     try:
         host.close()
     except Exception:
@@ -128,83 +194,295 @@ class HostProcess:
 
     Parameters
     ----------
-    design, variant : design file paths or built-in names (loaded in the child).
+    design, variant : Design objects (pickled to the child) or design file
+        paths / built-in names (loaded in the child).
     start : open the sound card stream at once (``start_kwargs`` passed to
-        :meth:`LiveHost.start`); otherwise call :meth:`start` later.
-    **kwargs : LiveHost arguments (``fs``, ``block``, ``level_db`` ...);
-        ``source`` is a ``--source`` string ("synth", "tone:1k:100m", a path).
+        :meth:`LiveHost.start`).
+    paced : instead of a sound card, run the audio path on a real-time
+        paced clock (:meth:`LiveHost.start_paced`; benches and tests).
+    wait : wait here until the child is ready (else see :meth:`wait_ready`;
+        requests posted before then are served once it is).
+    **kwargs : LiveHost arguments (``fs``, ``block``, ``level_db``,
+        ``simulator_factory`` (picklable) ...); ``source`` is a ``--source``
+        string ("synth", "tone:1k:100m", a path, "input") or a Source.
+
+    Example
+    -------
+    >>> with HostProcess("booster", source="tone:440:100m", start=True) as hp:  # doctest: +SKIP
+    ...     hp.post("set_value", "boost.R1", 4.7e3)
+    ...     level = hp.meters()["input"]["peak_v"]
     """
 
-    def __init__(self, design: str, variant: str | None = None, *, start: bool = False,
-                 start_kwargs: dict | None = None, timeout: float = 300.0, **kwargs):
+    def __init__(self, design, variant=None, *, start: bool = False,
+                 start_kwargs: dict | None = None, paced: bool = False, wait: bool = True,
+                 timeout: float = 300.0, **kwargs):
         ctx = mp.get_context("spawn")
         self._conn, child = ctx.Pipe()
-        self._lock = threading.Lock()
+        self._send_lock = threading.Lock()
+        self._pending: dict[int, Future] = {}
+        self._ids = itertools.count(1)
+        self._ready = threading.Event()
+        self._ready_error: BaseException | None = None
+        self.info: dict = {}
+        self.messages: "queue.SimpleQueue[str]" = queue.SimpleQueue()
+        self.error: str | None = None
+        self.ended = False
+        self.selected = "A"
+        self.meter = None
+        self.ring = None
+        self.scope = None
+        self._setup_t = 0.0
+        self._setup_fut: Future | None = None
+        self._state: dict = {}
+        self._state_fut: Future | None = None
         self.proc = ctx.Process(target=_child_main, name="solderless-live",
-                                args=(child, str(design), variant and str(variant), kwargs,
-                                      (start_kwargs or {}) if start else None),
+                                args=(child, design, variant, kwargs,
+                                      (start_kwargs or {}) if start else None, paced),
                                 daemon=True)
         self.proc.start()
         child.close()
-        if not self._conn.poll(timeout):
+        self._reader = threading.Thread(target=self._read_loop, name="solderless-remote",
+                                        daemon=True)
+        self._reader.start()
+        if wait:
+            self.wait_ready(timeout)
+
+    # ------------------------------------------------------------ plumbing
+    def _read_loop(self) -> None:
+        """Receive answers (own thread): resolve the Future of each request."""
+        while True:
+            try:
+                kind, rid, ok, value = self._conn.recv()
+            except (EOFError, OSError, TypeError, ValueError):
+                break
+            if kind == "ready":
+                if ok:
+                    self._attach(value)
+                else:
+                    self._ready_error = value.inner
+                self._ready.set()
+                continue
+            fut = self._pending.pop(rid, None)
+            if fut is None:
+                continue
+            if ok:
+                fut.set_result(value)
+            else:
+                fut.set_exception(value.inner)
+        self.ended = True
+        if not self._ready.is_set():
+            self._ready_error = AudioError("the live host process ended while starting")
+            self._ready.set()
+        gone = AudioError("the live host process has ended",
+                          hint="start it again; the design's edits were autosaved")
+        for rid in list(self._pending):
+            fut = self._pending.pop(rid, None)
+            if fut is not None and not fut.done():
+                fut.set_exception(gone)
+
+    def _attach(self, info: dict) -> None:
+        from engine.live import meters as M
+        from engine.live.ring import FrameRing
+        self.info = info
+        self.ring = FrameRing.attach(*info["ring"])
+        self.scope = FrameRing.attach(*info["scope"]["ring"])
+        pa = info["probes"][0]
+        pb = info["probes"][1] if len(info["probes"]) > 1 else ()
+        self.meter = M.MeterReader(self.ring, info["fs"], info["block"], info["in_fs_v"],
+                                   info["out_fs_v"], pa, pb)
+        self._apply_setup(info["setup"])
+        self._setup_t = time.perf_counter()
+
+    def wait_ready(self, timeout: float = 300.0) -> None:
+        """Wait until the child has built and warmed the design (and opened
+        the stream when asked to); raise the child's error if it could not."""
+        if not self._ready.wait(timeout):
             self.close()
             raise AudioError("the live host process did not start in time")
-        kind, info = self._conn.recv()
-        if kind == "err":
+        if self._ready_error is not None:
+            err = self._ready_error
             self.close()
-            raise info.inner
-        self.info = info
+            raise err
 
-    def _ask(self, *msg, timeout: float = 120.0) -> Any:
-        with self._lock:
-            if not self.proc.is_alive():
-                raise AudioError("the live host process has ended",
-                                 hint="start it again; the design's edits were autosaved")
-            self._conn.send(msg)
-            if not self._conn.poll(timeout):
-                raise AudioError("the live host process did not answer")
-            kind, value = self._conn.recv()
-        if kind == "err":
-            raise value.inner
-        return value
+    @property
+    def ready(self) -> bool:
+        """True once the child is running (and has not failed to start)."""
+        return self._ready.is_set() and self._ready_error is None
 
-    def call(self, name: str, *args, **kw) -> Any:
-        """Call a LiveHost method in the child and return its result (an edit's
-        Future is waited for in the child)."""
-        return self._ask("call", name, args, kw)
+    def post(self, name: str, *args, **kw) -> Future:
+        """Ask the child to call LiveHost method ``name`` (or one of the
+        child's own requests); returns at once with a Future of the answer.
+        A user error comes back as its own SolderlessError class."""
+        if name not in ALLOWED and name not in EXTRA:
+            raise AudioError(f"'{name}' cannot be called on the host process")
+        fut: Future = Future()
+        if self.ended or not self.proc.is_alive():
+            fut.set_exception(AudioError("the live host process has ended",
+                                         hint="start it again; the design's edits were "
+                                              "autosaved"))
+            return fut
+        rid = next(self._ids)
+        self._pending[rid] = fut
+        try:
+            with self._send_lock:
+                self._conn.send(("call", rid, name, args, kw))
+        except (OSError, ValueError) as exc:
+            self._pending.pop(rid, None)
+            fut.set_exception(AudioError(f"the live host process cannot be reached ({exc})"))
+        return fut
+
+    def post_reported(self, name: str, *args, **kw) -> Future:
+        """Like :meth:`post`; a failure is also put into :attr:`messages`
+        (for a front end that does not wait for the answer)."""
+        fut = self.post(name, *args, **kw)
+
+        def told(f):
+            e = f.exception()
+            if e is not None:
+                self.messages.put(str(e))
+        fut.add_done_callback(told)
+        return fut
+
+    def call(self, name: str, *args, timeout: float = 120.0, **kw) -> Any:
+        """Call a LiveHost method in the child and wait for its answer (an
+        edit is answered once it has been handed to the audio thread)."""
+        fut = self.post(name, *args, **kw)
+        try:
+            return fut.result(timeout)
+        except TimeoutError:
+            raise AudioError("the live host process did not answer") from None
 
     def __getattr__(self, name: str):
         if name in ALLOWED:
             return lambda *a, **k: self.call(name, *a, **k)
         raise AttributeError(name)
 
+    # ------------------------------------------------------------ front-end API
+    @property
+    def fs(self) -> float:
+        return float(self.info.get("fs", 0.0))
+
+    @property
+    def block(self) -> int:
+        return int(self.info.get("block", 0))
+
+    @property
+    def n_voices(self) -> int:
+        """1, or 2 when a variant (B) runs."""
+        return len(self.info.get("probes", [[]]))
+
     def parts(self):
         """PartInfo list of the design being edited."""
-        return self._ask("parts")
+        return self.call("parts")
+
+    def select(self, which: str) -> None:
+        """Hear A or B (waits for the child's answer; raises for no B)."""
+        self.call("select", which)
+        self.selected = "A" if which in (0, "A", "a") else "B"
+
+    def set_source(self, source) -> Future:
+        """Change the input source: a ``--source`` string or a Source."""
+        return self.post_reported("set_source", source)
 
     def frames(self):
         """New meter frames since the last call: ``(array, frames_lost)``
-        (columns as in :mod:`engine.live.meters`)."""
-        return self._ask("frames")
+        (columns as in :mod:`engine.live.meters`), read from shared memory."""
+        self.wait_ready()
+        since = getattr(self, "_frames_since", 0)
+        frames, self._frames_since, lost = self.ring.read_new(since)
+        return frames, lost
+
+    def _apply_setup(self, s: dict) -> None:
+        m = self.meter
+        m.control_a, m.control_b = s["control_a"], s["control_b"]
+        m.small_signal_gain_db = list(s["small_signal_gain_db"])
+        m.control_law = list(s["control_law"])
+        m.units_a = tuple(s["units_a"]) or m.units_a
+        m.units_b = tuple(s["units_b"]) or m.units_b
+        self._setup = s
+
+    def meters(self) -> dict:
+        """Meter readings, as :meth:`LiveHost.meters`, computed here from the
+        shared meter ring (no round trip; the set-up is refreshed every
+        ``SETUP_EVERY_S`` in the background). One reader at a time."""
+        from engine.live import meters as M
+        self.wait_ready()
+        now = time.perf_counter()
+        f = self._setup_fut
+        if f is not None and f.done():
+            if f.exception() is None:
+                self._apply_setup(f.result())
+            self._setup_fut = None
+        if self._setup_fut is None and now - self._setup_t > SETUP_EVERY_S and not self.ended:
+            self._setup_t = now
+            self._setup_fut = self.post("meter_setup")
+        snap = self.meter.poll()
+        last = self.meter.last
+        snap["latency"] = self._setup["latency"]
+        snap["blocks"] = 0 if last is None else int(last[M.C_BLOCK]) + 1
+        snap["selected"] = self.selected
+        g = "" if last is None else M.GUARD_REASONS.get(int(last[M.C_GUARD]), "")
+        if last is not None and int(last[M.C_GUARD]) == 4:
+            g = "the audio callback failed"
+        snap["guard"] = g
+        snap["nonconverged"] = self._setup.get("nonconverged", 0)
+        return snap
+
+    def scope_latest(self, n: int):
+        """The last ``n`` (input V, output V) pairs of the scope capture,
+        read from shared memory (``info['scope']['rate']`` pairs per second)."""
+        from engine.live.host import scope_tail
+        self.wait_ready()
+        return scope_tail(self.scope, n)
 
     def state(self) -> dict:
         """Blocks, xruns, guard reason, running, error, loudness offset and
-        pending messages of the child host."""
-        return self._ask("state")
+        pending messages of the child host (waits for the answer)."""
+        return self.call("state")
+
+    def poll_state(self) -> dict:
+        """The latest state without waiting: asks for a new one in the
+        background and returns the last answer (``{}`` at first). Messages
+        from the child go to :attr:`messages`; a stream error sets
+        :attr:`error`; an ended child sets it too."""
+        f = self._state_fut
+        if f is not None and f.done():
+            self._state_fut = None
+            if f.exception() is None:
+                self._state = f.result()
+                for m in self._state.get("messages", ()):
+                    self.messages.put(m)
+                if self._state.get("error"):
+                    self.error = self._state["error"]
+            elif self.ended:
+                self.error = str(f.exception())
+        if self.ended and self.error is None:
+            self.error = "the live host process has ended"
+        if self._state_fut is None and self.ready and not self.ended:
+            self._state_fut = self.post("state")
+        return self._state
 
     def close(self) -> None:
-        """Stop the stream and end the child process."""
+        """Stop the stream and end the child process; release shared memory."""
         try:
             if self.proc.is_alive():
-                with self._lock:
+                with self._send_lock:
                     self._conn.send(("quit",))
                 self.proc.join(10)
-        except (OSError, BrokenPipeError):
+        except (OSError, BrokenPipeError, ValueError):
             pass
         if self.proc.is_alive():
             self.proc.terminate()
             self.proc.join(5)
-        self._conn.close()
+        crashed = self.proc.exitcode not in (0, None)
+        for r in (self.ring, self.scope):
+            if r is not None:
+                r.owner = crashed        # the child unlinks its own, unless it crashed
+                r.close()
+        try:
+            self._conn.close()
+        except OSError:
+            pass
 
     def __enter__(self):
         return self
