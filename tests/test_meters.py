@@ -130,3 +130,34 @@ def test_measured_gain_reduction_is_zero_for_a_linear_circuit():
         h.run_offline(int(0.8 * FS / 64))
         assert h.meters()["voices"]["A"]["gr_measured_db"] == pytest.approx(0.0, abs=0.02)
         h.close()
+
+
+def test_session_figures_keep_extremes_after_the_display_has_fallen():
+    # frames written by hand: a loud block, then quiet ones for longer than the
+    # hold + fall time; the session keeps the loud block's peak
+    ring = FrameRing(4096, M.C_PROBES + 1)
+    r = M.MeterReader(ring, 48000.0, 128, 1.0, 1.0, ("iabc(U1)",))
+    q = 20e-6
+    r.control_a = (0, q)
+    ctl = [20e-6, 10e-6, 2e-6, 40e-6] + [20e-6] * 1500
+    for b, c in enumerate(ctl):
+        row = np.zeros(ring.width)
+        row[M.C_IN_PEAK] = 0.5 if b == 1 else 1e-3
+        row[M.C_OUT_PEAK] = 0.25 if b == 1 else 1e-3
+        row[M.C_DAC_PEAK] = 0.25 if b == 1 else 1e-3
+        row[M.C_CPU] = 0.1 * (b % 10)        # 0.0 .. 0.9, uniform
+        row[M.C_PROBES] = c
+        ring.write_row(row)
+    snap = r.poll()
+    ss = snap["session"]
+    assert ss["input_peak_v"] == 0.5 and ss["output_peak_v"] == 0.25
+    # the ballistic display has fallen: 1.0 s hold, then 20 dB/s (module doc)
+    assert snap["input"]["peak_v"] < 0.5 * 10 ** (-10 / 20)
+    va = ss["voices"]["A"]
+    assert va["control_a_min"] == 2e-6 and va["control_a_max"] == 40e-6
+    # gain of an OTA cell is proportional to its control current (gm = Iabc/2VT,
+    # REFERENCES.md): 2 uA against 20 uA quiescent is 20 log10(0.1) = -20 dB
+    assert va["gr_control_db_deepest"] == pytest.approx(-20.0, abs=1e-9)
+    cpu = ss["cpu_load"]
+    assert cpu["max"] == pytest.approx(0.9) and cpu["blocks"] == len(ctl)
+    assert cpu["median"] == pytest.approx(np.median([0.1 * (b % 10) for b in range(len(ctl))]))

@@ -106,6 +106,7 @@ def _summary(host, m: dict, wall: float) -> dict:
         "input_full_scale_v_peak": host.in_fs_v,
         "output_full_scale_v_peak": host.out_fs_v,
         "output_level_db": host.level_db, "ceiling_dbfs": host.ceiling_dbfs,
+        "session": m.get("session", {}),
         "meters": m, "latency": lat, "xruns": m["xruns"], "guard": m["guard"],
         "error": None if host.error is None else repr(host.error),
         "autosave": host.autosave_paths(),
@@ -119,6 +120,29 @@ def _print_summary(s: dict, say) -> None:
     say(f"calibration: full scale = {s['input_full_scale_v_peak']:.3g} V peak in, "
         f"{s['output_full_scale_v_peak']:.3g} V peak out "
         f"({M.vrms_to_dbu(s['input_full_scale_v_peak'] / math.sqrt(2)):+.1f} dBu sine)")
+    ss = s.get("session") or {}
+    if ss:
+        say(f"session: input peak max {ss['input_peak_v']:.4g} V "
+            f"({ss['input_peak_dbfs']:.1f} dBFS); output peak max "
+            f"{ss['output_peak_v']:.4g} V at the jack ({ss['output_peak_dbfs']:.1f} dBFS)")
+        for k, v in ss.get("voices", {}).items():
+            bits = [f"  {k}:"]
+            if v["control_a_min"] is not None:
+                bits.append(f"control {1e6 * v['control_a_min']:.2f} .. "
+                            f"{1e6 * v['control_a_max']:.2f} uA")
+            if v["gr_control_db_deepest"] is not None:
+                bits.append(f"deepest gain reduction {v['gr_control_db_deepest']:.1f} dB "
+                            "(control)")
+            if len(bits) > 1:
+                say("  ".join(bits))
+        c = ss["cpu_load"]
+        if c["blocks"]:
+            say(f"  CPU per block (of the block period): median {100 * c['median']:.0f}%, "
+                f"p99 {100 * c['p99']:.0f}%, max {100 * c['max']:.0f}%; "
+                f"xruns {ss['xruns']}")
+        say("at the end (ballistic meters: peak hold "
+            f"{m['peak_hold_s']:g} s then {m['peak_fall_db_per_s']:g} dB/s, "
+            f"RMS over {1e3 * m['rms_window_s']:.0f} ms):")
     inp, out = m["input"], m["output"]
     say(f"input : peak {inp['peak_v']:.4g} V ({inp['peak_dbfs']:.1f} dBFS), "
         f"RMS {inp['rms_v']:.4g} V ({inp['rms_dbfs']:.1f} dBFS)")
@@ -210,6 +234,7 @@ def run_play(args) -> int:
             if args.seconds is not None and time.perf_counter() - t0 >= args.seconds:
                 break
             stop.wait(0.1)
+            host.meters()           # drain the ring so the session figures see every block
             while not host.messages.empty():
                 err(host.messages.get())
             if host.error is not None:

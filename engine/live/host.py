@@ -313,6 +313,7 @@ class LiveHost:
         self._edit_pending_t: float | None = None
         self._edit_lat = np.zeros(1024)
         self._edit_post = np.zeros(1024)
+        self._meter_lock = threading.Lock()
         self._n_edit_lat = 0
         self.edits = 0
         self._last_block_t = -1e9
@@ -945,8 +946,11 @@ class LiveHost:
 
     def meters(self) -> dict:
         """Drain the meter ring and return readings (any thread but the audio
-        thread; one reader at a time)."""
-        snap = self.meter.poll()
+        thread; readers take turns on a lock the audio thread never takes).
+        Session figures (``snap['session']``) cover the frames drained so
+        far: poll at least every ``ring.capacity`` blocks to see them all."""
+        with self._meter_lock:
+            snap = self.meter.poll()
         snap["latency"] = self.latency()
         snap["blocks"] = self.blocks
         snap["selected"] = "AB"[self.selected]
