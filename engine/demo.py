@@ -50,7 +50,7 @@ IC_OFF = 1e-6
 #: Part notes containing this phrase mark a device that is off at rest by design.
 OFF_BY_DESIGN = "off at rest"
 
-STATIC_LEVELS_DB = np.arange(-44.0, 4.0 + 0.1, 4.0)
+STATIC_LEVELS_DB = np.arange(-64.0, 0.0 + 0.1, 4.0)
 STATIC_FREQ = 220.0
 
 
@@ -143,9 +143,14 @@ def rest_control(design, op) -> float | None:
     return _device_quantity(q, "iabc") if q else None
 
 
-def measure_release(design, fs: float = FS, amplitude: float = 0.5,
+#: Peak volts of the tone burst for the release measurement: a hard-picked
+#: note at the jack (tens of mV peak; REFERENCES.md, pickups, common practice).
+RELEASE_BURST_V = 0.05
+
+
+def measure_release(design, fs: float = FS, amplitude: float = RELEASE_BURST_V,
                     burst: float = 0.6, tail: float = 2.0, smooth: float = 0.02):
-    """Release time (s) after a loud tone burst, from the control current:
+    """Release time (s) after a tone burst (220 Hz, ``amplitude`` volts peak), from the control current:
     the time for the gain reduction to recover by 63 % (1 - 1/e) of its step
     (Giannoulis et al., JAES 2012). Returns (release time, times, GR trace in
     dB, burst end time)."""
@@ -242,7 +247,7 @@ def _plots(out: Path, fs: float, x: np.ndarray, runs: list[Run], curves, release
     ax.set_xlim(-0.7, tt[-1] - t1)
     ax.set_xlabel("time after the burst ends (s)")
     ax.set_ylabel("gain reduction (dB)")
-    ax.set_title("Release after a 0.5 V tone burst (dotted: 63 % recovered)")
+    ax.set_title(f"Release after a {RELEASE_BURST_V * 1e3:g} mV peak tone burst (dotted: 63 % recovered)")
     ax.legend(fontsize=7)
     ax.grid(True, alpha=0.3)
     fig.tight_layout()
@@ -312,7 +317,7 @@ Rendered in {elapsed:.1f} s. WAV files are 32-bit float at {fs:g} Hz; full scale
 <p>Threshold: input level where the gain has dropped by 1 dB. Slope: output dB per input dB
 (1 = no compression; 1/ratio above threshold; Giannoulis, Massberg &amp; Reiss, JAES 2012).
 Release time: time for the gain reduction to recover by 63 % (1 &minus; 1/e) of its step after a
-0.5 V burst ends (time-constant convention; IEC 60050-351-45-36). Loudness: ITU-R BS.1770-4
+{RELEASE_BURST_V * 1e3:g} mV peak burst ends (time-constant convention; IEC 60050-351-45-36). Loudness: ITU-R BS.1770-4
 integrated loudness of the output WAV; the last column is the gain that would play the variant at
 the baseline's loudness.</p>
 <h2>Input and output waveforms</h2>{imgs['waveforms']}
