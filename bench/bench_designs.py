@@ -8,6 +8,12 @@ live host does. The kernels are warmed on a short block first, so the timing
 excludes compilation. Real-time factor = audio seconds / wall seconds (the
 target is 20x or more). Prints a table and writes bench/results/designs.json.
 
+For designs with a gain-cell control meter (the compressors) it also
+measures, outside the timing: the static curve's threshold (1 dB of gain
+reduction) and slope 6 dB above it, the release time after a 50 mV burst
+(63 % recovery, time-constant convention; engine.demo.measure_release), and
+the deepest gain reduction on the phrase's soft and hard single notes.
+
 Run from the repository root:  python bench/bench_designs.py [--repeat N]
 """
 from __future__ import annotations
@@ -76,6 +82,36 @@ def bench_one(name: str, x: np.ndarray, repeat: int) -> dict:
     }
 
 
+#: Onsets (s) of the demo phrase's soft and hard single notes (engine.synth).
+SOFT_NOTES = (0.0, 0.45, 0.9)
+HARD_NOTES = (1.5, 1.9, 2.3)
+
+
+def compression_figures(name: str, x: np.ndarray) -> dict:
+    """Static curve, release and phrase gain reduction of a compressor design."""
+    from engine.analysis import compression as cp
+    d = load_design(name)
+    ctl = d.control_probe()
+    if not ctl:
+        return {}
+    c = demo.measure_static(d, FS, np.arange(-64.0, 0.1, 4.0), hold=0.4, measure=0.1)
+    thr = c.threshold_db(1.0)
+    try:
+        slope = c.slope(thr + 6.0)
+    except ValueError:          # no reduction, or too near the top of the range
+        slope = float("nan")
+    rt = demo.measure_release(d, FS, tail=2.0)[0]
+    _, pr, sim = demo.simulate(d, x, FS, probes=(ctl,))
+    rest = demo.rest_control(d, sim.operating_point())
+    gr = cp.gain_reduction_from_control(pr[ctl], rest, d.meters.get("control_law", "linear"))
+
+    def deepest(onsets):
+        return [float(-gr[int(t * FS):int((t + 0.3) * FS)].min()) for t in onsets]
+    return {"rest_control_a": rest, "threshold_dbv": thr, "slope_above": slope,
+            "release_time_s": rt, "gr_soft_db": deepest(SOFT_NOTES),
+            "gr_hard_db": deepest(HARD_NOTES), "gr_max_db": float(-gr.min())}
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=3, help="timed runs per design (best kept)")
@@ -92,6 +128,16 @@ def main(argv=None) -> int:
         print(f"{r['design']:<26}{r['oversample']:>3}{r['bjts']:>4}{r['devices']:>4}"
               f"{r['states']:>4}{r['ports']:>4}{r['realtime_factor']:>8.1f}"
               f"{'yes' if r['meets_target'] else 'NO':>8}{r['nonconverged']:>8}  {opn}")
+    print(f"\n{'compressor':<26}{'Iabc uA':>8}{'thr dBV':>8}{'slope':>7}{'rel ms':>7}"
+          f"{'GR soft dB':>14}{'GR hard dB':>14}{'GR max':>7}")
+    for r in rows:
+        f = compression_figures(r["design"], x)
+        r["compression"] = f
+        if f:
+            print(f"{r['design']:<26}{f['rest_control_a'] * 1e6:>8.1f}{f['threshold_dbv']:>8.1f}"
+                  f"{f['slope_above']:>7.3f}{f['release_time_s'] * 1e3:>7.0f}"
+                  f"{min(f['gr_soft_db']):>7.1f}-{max(f['gr_soft_db']):<6.1f}"
+                  f"{min(f['gr_hard_db']):>7.1f}-{max(f['gr_hard_db']):<6.1f}{f['gr_max_db']:>7.1f}")
     load = os.getloadavg() if hasattr(os, "getloadavg") else None
     result = {"fs": FS, "phrase_s": x.size / FS, "block": BLOCK, "target_realtime": TARGET_RT,
               "repeat": args.repeat, "machine": platform.machine(), "python": platform.python_version(),
