@@ -26,6 +26,9 @@ from gui import theme
 from gui.preview import SOURCES
 
 TRACE_SECONDS = 5.0
+SCOPE_LIVE_S = 0.05
+"""The live scope shows the last 50 ms of input and output (a few cycles of
+a low guitar note)."""
 
 
 class BarMeter(QWidget):
@@ -505,8 +508,19 @@ class LivePanel(QWidget):
         self._ranges[key] = r
         return r
 
+    def scope_points(self, rate: float) -> int:
+        """How many scope pairs make ``SCOPE_LIVE_S`` at ``rate`` pairs/s."""
+        return max(2, int(SCOPE_LIVE_S * rate))
+
+    def show_scope(self, x, y) -> None:
+        """Draw output against input from the live scope capture (volts)."""
+        if len(x) < 2:
+            return
+        self.scope_curve.setData(x, y)
+
     def clear_live(self) -> None:
         self.hist.clear()
         self.hist_t.clear()
         self._ranges = {}
         self.traces.set_x_range(-TRACE_SECONDS, 0.0, "seconds ago")
+        self.scope_curve.setData([], [])

@@ -4,7 +4,11 @@ parts on the left, and on the right the live panel, the look inside
 
 The window wires widgets to the :class:`gui.model.Workbench` (edits, undo),
 the :class:`gui.preview.Analyser` (offline preview and analyses on a worker
-thread) and, when playing, an :class:`engine.live.host.LiveHost`.
+thread) and, when playing, an :class:`engine.live.remote.HostProcess`: the
+live host in a process of its own, so that the window's Python work (plots,
+tables) never holds up the audio callback (they would share one GIL in one
+process). Edits go to it as requests that do not wait; meters and the scope
+are read from its shared-memory rings at the frame rate.
 """
 from __future__ import annotations
 
@@ -104,6 +108,8 @@ class MainWindow(QMainWindow):
         self.analyser.source = source
         self.analyser.seconds = seconds
         self.host = None
+        self.live_driver = "device"      # "paced": no sound card (benches, tests)
+        self._live_variant = False
         self.ask: Callable[[str], str] | None = None
         self.last_preview = None
         self.last_op = None
@@ -380,6 +386,8 @@ class MainWindow(QMainWindow):
 
     def _preview_ready(self, g, r) -> None:
         self.last_preview = r
+        if self.host is not None:        # playing live: the live feed owns the panel
+            return
         self.live.show_preview(r)
         for m in r.messages:
             self.say(m)
@@ -421,20 +429,10 @@ class MainWindow(QMainWindow):
         h = self.host
         if h is None:
             return
-        if kind == "value":
-            h.set_value(q, value)
-        elif kind == "rotation":
-            h.set_rotation(q, value)
-        elif kind == "taper":
-            import time as _t
-            t_post = _t.perf_counter()
-            vi = h.edit_voice
-
-            def job():
-                v = h.voices[vi]
-                h._apply(v, v.design.set_taper(q, value), t_post)
-                h._after_edit(vi)
-            h._post(job)
+        name = {"value": "set_value", "rotation": "set_rotation",
+                "taper": "set_taper"}.get(kind)
+        if name is not None:
+            h.post_reported(name, q, value)      # answered later; failures in messages
 
     def _structure_changed(self) -> None:
         if self.host is not None:
@@ -637,34 +635,58 @@ class MainWindow(QMainWindow):
     def _source(self, spec: str) -> None:
         self.analyser.source = spec
         if self.host is not None:
-            try:
-                self.host.set_source(make_source(spec))
-            except SolderlessError as exc:
-                self.say(str(exc))
+            self.host.set_source(spec)       # the host process reads the spec itself
         else:
             self.preview()
 
     def start_live(self, variant=None) -> bool:
-        from engine.live.host import LiveHost
+        """Start the live host process on a copy of the design (and a
+        variant for A/B). Returns at once; the process builds and warms the
+        design (a few seconds) while the panel shows that it is starting,
+        and edits made meanwhile are queued for it."""
+        from engine.live.remote import HostProcess
         if self.host is not None:
             return True
+        paced = self.live_driver == "paced"
+        kw = {}
+        if self.factory is not None:
+            kw["simulator_factory"] = self.factory
         try:
-            host = LiveHost(self.wb.design.copy(), variant=variant,
-                            source=make_source(self.live.source.currentData()),
-                            level_db=self.live.level.value() / 10.0, autosave=False,
-                            simulator_factory=self.factory)
-            host.start(input_device=self.live.dev_in.currentData(),
-                       output_device=self.live.dev_out.currentData())
-        except (SolderlessError, ImportError) as exc:
-            self.say(f"cannot play live: {exc}")
-            self.live.run_btn.blockSignals(True)
-            self.live.run_btn.setChecked(False)
-            self.live.run_btn.blockSignals(False)
+            host = HostProcess(self.wb.design.copy(), variant,
+                               source=self.live.source.currentData(),
+                               level_db=(-120.0 if self.live.mute_btn.isChecked()
+                                         else self.live.level.value() / 10.0),
+                               autosave=False, start=not paced, paced=paced,
+                               start_kwargs={"input_device": self.live.dev_in.currentData(),
+                                             "output_device": self.live.dev_out.currentData()},
+                               wait=False, **kw)
+        except (SolderlessError, ImportError, OSError) as exc:
+            self._live_refused(exc)
             return False
         self.host = host
+        self._live_variant = variant is not None
         self.live.clear_live()
+        self.live.state.set("starting the live host …")
         self.meter_timer.start(METER_MS)
         return True
+
+    def _live_refused(self, exc) -> None:
+        self.say(f"cannot play live: {exc}")
+        self.live.run_btn.blockSignals(True)
+        self.live.run_btn.setChecked(False)
+        self.live.run_btn.blockSignals(False)
+
+    def wait_live(self, timeout_s: float = 300.0) -> bool:
+        """Process events until the live host is running (tests, benches)."""
+        import time
+        t_end = time.monotonic() + timeout_s
+        loop = QEventLoop()
+        while time.monotonic() < t_end and self.host is not None:
+            loop.processEvents(QEventLoop.ProcessEventsFlag.AllEvents, 20)
+            if self.host is not None and self.host.ready:
+                return True
+            time.sleep(0.01)
+        return False
 
     def stop_live(self) -> None:
         self.meter_timer.stop() if hasattr(self, "meter_timer") else None
@@ -677,14 +699,24 @@ class MainWindow(QMainWindow):
             self.live.run_btn.blockSignals(False)
 
     def _poll_meters(self) -> None:
+        """Meter timer: read meters and scope from the host's shared rings
+        and redraw (no round trip to the host process)."""
         h = self.host
         if h is None:
+            return
+        if not h.ready:
+            err = h.start_error
+            if err is not None:                  # it could not start
+                self.stop_live()
+                self._live_refused(err)
             return
         snap = h.meters()
         self.live.show_live(snap)
         self.live.redraw_live(h.fs, h.block)
-        if len(h.voices) > 1:
+        self.live.show_scope(*h.scope_latest(self.live.scope_points(h.info["scope"]["rate"])))
+        if h.n_voices > 1:
             self.compare.show_offset(snap.get("loudness_offset_db"))
+        h.poll_state()
         while not h.messages.empty():
             self.say(h.messages.get())
         if h.error is not None:
@@ -693,11 +725,13 @@ class MainWindow(QMainWindow):
 
     def _level(self, db: float) -> None:
         if self.host is not None:
-            self.host.set_level_db(-120.0 if self.live.mute_btn.isChecked() else db)
+            self.host.post_reported("set_level_db",
+                                    -120.0 if self.live.mute_btn.isChecked() else db)
 
     def _mute(self, on: bool) -> None:
         if self.host is not None:
-            self.host.set_level_db(-120.0 if on else self.live.level.value() / 10.0)
+            self.host.post_reported("set_level_db",
+                                    -120.0 if on else self.live.level.value() / 10.0)
 
     def start_ab(self, a: str, b: str) -> None:
         """Play A and B together (the host matches loudness and crossfades)."""
@@ -722,8 +756,11 @@ class MainWindow(QMainWindow):
 
     def hear(self, which: str) -> None:
         h = self.host
-        if h is None or len(h.voices) < 2:
+        if h is None or not self._live_variant:
             self.say("run A and B first (Compare tab)")
+            return
+        if not h.ready:
+            self.say("the live host is still starting")
             return
         try:
             h.select(which)

@@ -1,6 +1,7 @@
 """The live host in its own process, through real PortAudio on ALSA null."""
 import os
 
+import numpy as np
 import pytest
 
 from engine.errors import DesignError, SolderlessError
@@ -24,14 +25,24 @@ def test_host_process_streams_takes_edits_and_reports_meters(null_home):
     with HostProcess("booster", source="tone:440:100m", block=128, start=True) as hp:
         s0 = hp.state()
         assert s0["running"] and s0["error"] is None
-        m = hp.meters()
-        assert m["input"]["peak_v"] == pytest.approx(0.1, rel=1e-6)
+        m = hp.meters()          # read here from the child's shared-memory ring
+        # sampled 440 Hz sine: the largest sample is within 1 - cos(pi f / fs)
+        # = 4.3e-4 of the crest (a sample falls within half a sample step of it)
+        assert m["input"]["peak_v"] == pytest.approx(0.1, rel=4.3e-4)
+        assert m["input"]["peak_v"] <= 0.1 * (1 + 1e-9)
         new = hp.step_value("boost.C1", 1)           # E12 for capacitors: 100n -> 120n
         assert new == pytest.approx(120e-9)
         assert any(p.qualname == "boost.C1" and p.value == pytest.approx(120e-9)
                    for p in hp.parts())
         frames, lost = hp.frames()
         assert frames.shape[0] > 0
+        # the scope capture: input column is the tone, 100 mV peak, kept at
+        # 24 kHz (every 2nd sample): within 1 - cos(pi 440 / 24000) = 1.7e-3
+        x, y = hp.scope_latest(2400)
+        assert len(x) == 2400 and np.max(np.abs(x)) == pytest.approx(0.1, rel=1.7e-3)
+        # an edit posted without waiting is answered later
+        fut = hp.post("set_value", "boost.C1", 100e-9)
+        assert fut.result(60) == pytest.approx(100e-9)
         with pytest.raises(DesignError, match="no part named"):
             hp.set_value("boost.R99", 1e3)
         assert hp.state()["blocks"] > s0["blocks"]

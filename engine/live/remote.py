@@ -40,7 +40,8 @@ ALLOWED = {"start", "start_paced", "stop", "set_value", "step_value", "set_rotat
            "set_taper", "set_bypass", "save", "select", "set_level_db", "unmute",
            "latency", "part_info", "prepare", "flush"}
 #: Requests served by the child loop itself.
-EXTRA = {"parts", "state", "meter_setup", "set_source", "edit_landings", "host_meters"}
+EXTRA = {"parts", "state", "meter_setup", "set_source", "edit_landings", "host_meters",
+         "element_values"}
 SETUP_EVERY_S = 0.5
 """How often the meter set-up (small-signal gain, quiescent control) is
 refreshed from the child; it changes only after edits."""
@@ -141,6 +142,10 @@ def _child_main(conn, design, variant, kwargs: dict, start_kwargs: dict | None,
                 r = host.edit_landings
             elif name == "host_meters":
                 r = host.meters()
+            elif name == "element_values":
+                # what the running simulator of voice args[0] was handed last
+                sim = host.voices[args[0] if args else host.edit_voice].sim
+                r = dict(getattr(sim, "values", {}) or {})
             else:
                 raise AudioError(f"'{name}' cannot be called on the host process")
         except BaseException as exc:
@@ -303,6 +308,11 @@ class HostProcess:
             err = self._ready_error
             self.close()
             raise err
+
+    @property
+    def start_error(self) -> BaseException | None:
+        """Why the child could not start (None while starting or once running)."""
+        return self._ready_error if self._ready.is_set() else None
 
     @property
     def ready(self) -> bool:
