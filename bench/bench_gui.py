@@ -12,7 +12,7 @@ due time counts as an xrun (the clock resynchronises like a sound card).
   host process that runs with the new element values (the host stamps both
   ends on the system-wide monotonic clock).
 * frame rate: meter/trace/scope redraws per second of the window's meter
-  timer (target period 33 ms) while the host plays.
+  timer (period ``gui.window.METER_MS``, 30 ms) while the host plays.
 * xruns: counted by the host process, first for 3 s with the window idle
   (meter timer off: the machine's own baseline), then during the run.
 
@@ -50,6 +50,7 @@ def main(argv=None) -> int:
     from engine.design import load_design
     from engine.values import step_preferred
     from gui.app import make_window, tune_interpreter
+    from gui.window import METER_MS
 
     tune_interpreter()                       # what `solderless gui` does
     cfg = Path(tempfile.mkdtemp(prefix="solderless-bench-"))
@@ -100,7 +101,7 @@ def main(argv=None) -> int:
     s1 = h.state()
     baseline_late, baseline_blocks = s1["xruns"] - s0["xruns"], s1["blocks"] - s0["blocks"]
     if not args.no_meters:
-        win.meter_timer.start(33)
+        win.meter_timer.start(METER_MS)
 
     # value edits from the GUI thread, spread over the run
     edits: list[float] = []

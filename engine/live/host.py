@@ -144,6 +144,42 @@ def _probes_for(design) -> tuple[list[str], int | None]:
     return names, (0 if control else None)
 
 
+def measure_small_signal(design, fs: float, oversample: int, block: int,
+                         control_probe: str | None, factory: Callable):
+    """Small-signal gain at 1 kHz (10 mV peak; RMS ratio over the settled
+    second half of 0.5 s) and the quiescent value of the control probe (mean
+    over the last third of 0.3 s of silence), on a simulator of its own.
+    Returns ``(gain_db or None, quiescent or None, problem or None)``."""
+    try:
+        circuit = design.flatten()
+        probes = [control_probe] if control_probe else []
+        sim = factory(circuit, fs, oversample, probes)
+    except SolderlessError as exc:
+        return None, None, str(exc)
+    n = block
+    x = np.zeros(n)
+    y = np.zeros(n)
+    pb = np.zeros((1, n * oversample)) if probes else None
+    ctl = []
+    t_sil = int(0.3 * fs / n)
+    for b in range(t_sil):
+        k = sim.process_into(x, y, pb)
+        if pb is not None and b >= t_sil * 2 // 3 and k:
+            ctl.append(float(pb[0, :k].mean()))
+    f, amp = 1000.0, 0.01
+    nt = int(0.5 * fs / n)
+    acc_in = acc_out = 0.0
+    for b in range(nt):
+        t = (np.arange(n) + b * n) / fs
+        x[:] = amp * np.sin(2 * np.pi * f * t)
+        sim.process_into(x, y, pb)
+        if b >= nt // 2:
+            acc_in += float(np.dot(x, x))
+            acc_out += float(np.dot(y, y))
+    gain_db = 10 * math.log10(acc_out / acc_in) if acc_out > 0 and acc_in > 0 else None
+    return gain_db, (float(np.mean(ctl)) if ctl else None), None
+
+
 def scope_tail(ring: FrameRing, n: int) -> tuple[np.ndarray, np.ndarray]:
     """The last ``n`` pairs of a scope ring as (input, output) arrays."""
     end = ring.written
@@ -379,45 +415,35 @@ class LiveHost:
         if hasattr(self.source, "pos"):
             self.source.pos = 0
 
+    def measure_in_process(self) -> None:
+        """Re-measure after edits in a helper process of its own instead of a
+        thread of this one: building a simulator holds the GIL for several
+        milliseconds at a stretch (longer than a block period at 128 samples),
+        which would hold up the audio callback. The helper starts on first
+        use; the measuring thread only waits for its answers."""
+        from concurrent.futures import ProcessPoolExecutor
+        import multiprocessing as mp
+        if getattr(self, "_measure_pool", None) is None:
+            self._measure_pool = ProcessPoolExecutor(1, mp_context=mp.get_context("spawn"))
+
     def _measure_voice(self, i: int) -> None:
-        """Small-signal gain at 1 kHz (10 mV peak) and the quiescent control
-        value of voice ``i``, on a separate simulator so the live one is not
-        disturbed. Runs off the audio thread."""
+        """Small-signal gain and quiescent control value of voice ``i``
+        (:func:`measure_small_signal`), off the audio thread; in the helper
+        process if :meth:`measure_in_process` was called."""
         v = self.voices[i]
-        try:
-            circuit = v.design.flatten()
-            probes = [v.probes[v.control_index]] if v.control_index is not None else []
-            sim = v.factory(circuit, self.fs, self.oversample, probes)
-        except SolderlessError as exc:
-            self.messages.put(f"{v.label}: could not measure the small-signal gain: {exc}")
+        ctl = v.probes[v.control_index] if v.control_index is not None else None
+        args = (v.design, self.fs, self.oversample, self.block, ctl, v.factory)
+        pool = getattr(self, "_measure_pool", None)
+        if pool is not None and self._built:
+            gain_db, q, problem = pool.submit(measure_small_signal, *args).result(120)
+        else:
+            gain_db, q, problem = measure_small_signal(*args)
+        if problem:
+            self.messages.put(f"{v.label}: could not measure the small-signal gain: {problem}")
             return
-        n = self.block
-        x = np.zeros(n)
-        y = np.zeros(n)
-        pb = np.zeros((1, n * self.oversample)) if probes else None
-        ctl = []
-        t_sil = int(0.3 * self.fs / n)
-        for b in range(t_sil):
-            k = sim.process_into(x, y, pb)
-            if pb is not None and b >= t_sil * 2 // 3 and k:
-                ctl.append(float(pb[0, :k].mean()))
-        f, amp = 1000.0, 0.01
-        nt = int(0.5 * self.fs / n)
-        acc_in = acc_out = 0.0
-        cnt = 0
-        for b in range(nt):
-            t = (np.arange(n) + b * n) / self.fs
-            x[:] = amp * np.sin(2 * np.pi * f * t)
-            sim.process_into(x, y, pb)
-            if b >= nt // 2:
-                acc_in += float(np.dot(x, x))
-                acc_out += float(np.dot(y, y))
-                cnt += n
-        gain_db = 10 * math.log10(acc_out / acc_in) if acc_out > 0 and acc_in > 0 else None
         self.meter.small_signal_gain_db[i] = gain_db
         self.meter.control_law[i] = v.control_law
-        if ctl:
-            q = float(np.mean(ctl))
+        if q is not None:
             if i == 0:
                 self.meter.control_a = (v.control_index, q)
             else:
@@ -533,12 +559,17 @@ class LiveHost:
                                          output_device=output_device,
                                          channels_out=channels_out, channels_in=channels_in)
 
-    def start_paced(self) -> None:
+    def start_paced(self, realtime: bool = True) -> None:
         """Run the audio path without a sound card, paced at real time by a
         thread of its own (benches and tests of the whole chain; no sound is
         heard). A block that starts more than one block period after its due
         time is counted as an xrun on the next block, the way PortAudio
-        reports an underflow, and the clock then resynchronises."""
+        reports an underflow, and the clock then resynchronises.
+
+        ``realtime``: ask for real-time (FIFO) scheduling of the clock thread,
+        as PortAudio does for its callback thread where the system allows it
+        (the clock sleeps between blocks; Linux also throttles real-time
+        threads to 95 % of each second). Refused quietly if not permitted."""
         self.prepare()
         if self._clock is not None:
             return
@@ -549,6 +580,12 @@ class LiveHost:
         ind = np.zeros((n, 1), dtype=np.float32) if self.source.needs_input else None
 
         def run():
+            if realtime and hasattr(os, "sched_setscheduler"):
+                try:
+                    os.sched_setscheduler(0, os.SCHED_FIFO, os.sched_param(
+                        max(1, os.sched_get_priority_min(os.SCHED_FIFO) + 9)))
+                except (OSError, AttributeError):
+                    pass
             t_next = time.perf_counter()
             late = False
             while not self._clock_stop.is_set():
@@ -588,6 +625,9 @@ class LiveHost:
         self._measure_wake.set()
         for r in (self.ring, self.scope):
             r.close()
+        pool = getattr(self, "_measure_pool", None)
+        if pool is not None:
+            pool.shutdown(wait=False, cancel_futures=True)
 
     @property
     def running(self) -> bool:

@@ -42,6 +42,9 @@ ALLOWED = {"start", "start_paced", "stop", "set_value", "step_value", "set_rotat
 #: Requests served by the child loop itself.
 EXTRA = {"parts", "state", "meter_setup", "set_source", "edit_landings", "host_meters",
          "element_values"}
+SWITCH_INTERVAL_S = 0.0002
+"""Interpreter switch interval in the host process (measured with
+bench/bench_gui.py: late blocks during edits)."""
 SETUP_EVERY_S = 0.5
 """How often the meter set-up (small-signal gain, quiescent control) is
 refreshed from the child; it changes only after edits."""
@@ -70,9 +73,11 @@ def _child_main(conn, design, variant, kwargs: dict, start_kwargs: dict | None,
 
     from engine.live.host import LiveHost
     from engine.live.source import parse_source
-    if hasattr(__import__("sys"), "setswitchinterval"):
-        import sys
-        sys.setswitchinterval(0.001)     # the audio thread waits less for the GIL
+    import sys
+    # The audio thread hands the GIL back and forth around each compiled call
+    # (about ten per block); while the edit worker or the gain measurement
+    # runs Python, each hand-back may wait up to the switch interval.
+    sys.setswitchinterval(SWITCH_INTERVAL_S)
     lock = threading.Lock()
 
     def send(msg):
@@ -91,6 +96,7 @@ def _child_main(conn, design, variant, kwargs: dict, start_kwargs: dict | None,
         host = LiveHost(_load(design), variant=_load(variant), source=src, shared=True,
                         **kwargs)
         host.prepare()
+        host.measure_in_process()
         if start_kwargs is not None:
             host.start(**start_kwargs)
         elif paced:
