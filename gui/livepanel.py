@@ -328,6 +328,7 @@ class LivePanel(QWidget):
         self.scope.setMenuEnabled(False)
         self.scope_curve = self.scope.plot(pen=pg.mkPen(theme.GOOD, width=1.2))
         self.scope.setMinimumSize(200, 160)
+        self.scope.setMouseEnabled(x=False, y=False)
         sl.addWidget(self.scope)
         # arrange
         top = QHBoxLayout()
@@ -404,6 +405,7 @@ class LivePanel(QWidget):
         self.probe_pick.blockSignals(False)
         self._redraw_probe()
         self.scope_curve.setData(r.scope_in, r.scope_out)
+        self.scope.enableAutoRange()
         self.cpu.set(f"{100 * m.get('cpu_load_mean', 0.0):.0f} % (offline)")
         self.xruns.set("— offline")
         self.latency.set("— offline")
@@ -517,6 +519,18 @@ class LivePanel(QWidget):
         if len(x) < 2:
             return
         self.scope_curve.setData(x, y)
+        # fixed ranges that move only when the data leaves them or shrinks to
+        # a quarter, so the axes are not re-rendered every frame
+        for key, d in (("scope x", x), ("scope y", y)):
+            m = float(np.max(np.abs(d))) if len(d) else 0.0
+            cur = self._ranges.get(key)
+            if m > 0 and (cur is None or m > cur or m < 0.25 * cur):
+                r = 1.25 * m
+                self._ranges[key] = r
+                if key == "scope x":
+                    self.scope.setXRange(-r, r, padding=0)
+                else:
+                    self.scope.setYRange(-r, r, padding=0)
 
     def clear_live(self) -> None:
         self.hist.clear()
@@ -524,3 +538,4 @@ class LivePanel(QWidget):
         self._ranges = {}
         self.traces.set_x_range(-TRACE_SECONDS, 0.0, "seconds ago")
         self.scope_curve.setData([], [])
+        self.scope.disableAutoRange()
