@@ -1,5 +1,6 @@
 """The live host in its own process, through real PortAudio on ALSA null."""
 import os
+import time
 
 import numpy as np
 import pytest
@@ -38,6 +39,9 @@ def test_host_process_streams_takes_edits_and_reports_meters(null_home):
         assert frames.shape[0] > 0
         # the scope capture: input column is the tone, 100 mV peak, kept at
         # 24 kHz (every 2nd sample): within 1 - cos(pi 440 / 24000) = 1.7e-3
+        t_end = time.monotonic() + 60
+        while hp.scope.written < 2400 and time.monotonic() < t_end:
+            time.sleep(0.01)
         x, y = hp.scope_latest(2400)
         assert len(x) == 2400 and np.max(np.abs(x)) == pytest.approx(0.1, rel=1.7e-3)
         # an edit posted without waiting is answered later
