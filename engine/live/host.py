@@ -829,7 +829,11 @@ class LiveHost:
             t_post = None
             prev, r = ch, rn
             if r != r1:
-                self._wait_blocks(1)
+                # two blocks: the block running when this step was handed
+                # over may have started before it; the next one surely uses
+                # it. Waiting only one lets a late step replace this one
+                # unheard, doubling the step that reaches the output.
+                self._wait_blocks(2)
         if r != r1:                     # step budget spent: land on the target
             self._apply(v, v.design.set_rotation(pot, r1))
 
