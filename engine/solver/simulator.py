@@ -179,15 +179,18 @@ class Simulator:
         self._model: Model = derive(net, self._values, self._T, rows)
         self._next: Model = self._model
         nx, npt, nu, ny = net.nx, net.np_, net.nu, len(rows)
-        self._x = np.zeros(nx)
+        # kernel vector z = [x; varying sources]; self._x is a view of its head
+        self._z = np.zeros(nx + self._model.uvar.size)
+        self._x = self._z[:nx]
         self._xp = np.zeros(nx)
         self._v = np.zeros(npt)
         self._i = np.zeros(npt)
         self._pprev = np.zeros(npt)
         self._u = np.zeros(nu)
-        self._ws = np.zeros((10, max(npt, nx, 1)))
+        self._ws = np.zeros((11, max(npt, nx, 2)))
         self._G = np.zeros((npt, npt))
         self._J = np.zeros((npt, npt))
+        self._Gf = np.zeros((npt, npt))
         self._Ji = np.zeros((npt, npt))
         self._piv = np.zeros(npt, dtype=np.int64)
         self._yrow = np.zeros(ny)
@@ -223,6 +226,7 @@ class Simulator:
         self._ws[7, :net.np_] = self._pprev
         self._ws[8, :] = 1e300  # bypass memory: force a first evaluation
         self._ws[9, :] = 0.0
+        self._ws[10, :] = 0.0  # chord rate memory, refactor flag
         self._cnt[:] = 0
         self._model = m
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i
@@ -300,11 +304,11 @@ class Simulator:
 
     def _args(self, m: Model):
         dcode, dpo, dnp, dpa, par = self._arr
-        return (m.A, m.B, m.C, m.Dv, m.Ev, m.K, m.Dy, m.Ey, m.Fy, m.Vy,
+        return (m.Pz, m.p0, m.Az, m.x0, m.C, m.K, m.Yz, m.y0, m.Fy, m.Vy,
                 dcode, dpo, dnp, dpa, par,
-                self._u, m.udc, self._skind, self._sptr, self._spar, self.net.input_index,
-                self._T, self._x, self._xp, self._v, self._i, self._pprev, self._ws,
-                self._G, self._J, self._Ji, self._piv, self._yrow, self._cnt)
+                m.uvar, self._skind, self._sptr, self._spar, self.net.input_index,
+                self._T, self._z, self._xp, self._v, self._i, self._pprev, self._ws,
+                self._G, self._Gf, self._J, self._Ji, self._piv, self._yrow, self._cnt)
 
     def process(self, x, probe_buf: np.ndarray | None = None) -> np.ndarray:
         """Offline convenience: process any length of input; allocates y."""

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from engine.errors import SolveError
-from engine.solver.mna import Network
+from engine.solver.mna import Network, source_wave
 
 
 @dataclass
@@ -50,6 +50,14 @@ class Model:
     b: np.ndarray
     udc: np.ndarray
     values: dict
+    # kernel form: z = [x; u[uvar]] with the constant sources folded in
+    Pz: np.ndarray = None   # [Dv Ev[:, uvar]]
+    p0: np.ndarray = None   # Ev ud  (ud: udc with the waveform sources zeroed)
+    Az: np.ndarray = None   # [A B[:, uvar]]
+    x0: np.ndarray = None   # B ud
+    Yz: np.ndarray = None   # [Dy Ey[:, uvar]]
+    y0: np.ndarray = None   # Ey ud
+    uvar: np.ndarray = None  # varying sources: the input, then waveform sources
 
 
 def _c(a):
@@ -107,5 +115,17 @@ def derive(net: Network, values: dict[str, float], T: float,
         Fy[r] = cw @ Mn + ci
         Vy[r] = cv
     udc = np.array([values[el.name] for el in net.sources], dtype=np.float64)
-    return Model(_c(A), _c(Bm), _c(Cm), _c(P @ Mx), _c(P @ Mu), _c(P @ Mn),
-                 _c(Dy), _c(Ey), _c(Fy), _c(Vy), _c(g), _c(a), _c(b), _c(udc), dict(values))
+    Dv, Ev = P @ Mx, P @ Mu
+    # Only the input and waveform sources change per sample; the input adds
+    # its samples to its DC value, a waveform source replaces it.
+    wave = [k for k, el in enumerate(net.sources)
+            if k != net.input_index and source_wave(el)[0] != 0]
+    uvar = ([net.input_index] if net.input_index >= 0 else []) + wave
+    ud = udc.copy()
+    ud[wave] = 0.0
+    return Model(_c(A), _c(Bm), _c(Cm), _c(Dv), _c(Ev), _c(P @ Mn),
+                 _c(Dy), _c(Ey), _c(Fy), _c(Vy), _c(g), _c(a), _c(b), _c(udc), dict(values),
+                 Pz=_c(np.hstack([Dv, Ev[:, uvar]])), p0=_c(Ev @ ud),
+                 Az=_c(np.hstack([A, Bm[:, uvar]])), x0=_c(Bm @ ud),
+                 Yz=_c(np.hstack([Dy, Ey[:, uvar]])), y0=_c(Ey @ ud),
+                 uvar=np.array(uvar, dtype=np.int64))
