@@ -57,7 +57,7 @@ def layout(el) -> DeviceLayout:
                                 "vbe": ({}, {0: 1.0}), "vce": ({}, {1: 1.0})})
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def evaluate(par, pa, v, po, i, G):
     """Ib, Ic and their 2x2 Jacobian w.r.t. (Vbe, Vce) at the ports."""
     pol = par[pa + 0]
@@ -89,7 +89,7 @@ def evaluate(par, pa, v, po, i, G):
     G[po + 1, po + 1] = -dic_dvbc
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def limit(par, pa, vn, vo, po):
     """pnjlim on Vbe and Vbc (as SPICE), Vce follows."""
     pol = par[pa + 0]

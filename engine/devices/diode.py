@@ -42,7 +42,7 @@ def layout(el) -> DeviceLayout:
                         probes={"id": ({0: 1.0}, {}), "vd": ({}, {0: 1.0})})
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def evaluate(par, pa, v, po, i, G):
     """Junction current and conductance at port voltage v[po]."""
     vd = v[po]
@@ -59,7 +59,7 @@ def evaluate(par, pa, v, po, i, G):
     G[po, po] = g + GMIN
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def limit(par, pa, vn, vo, po):
     """pnjlim on the junction (and on the breakdown side when BV is set)."""
     vn[po] = pnjlim(vn[po], vo[po], par[pa + 1], par[pa + 2])

@@ -61,7 +61,7 @@ def _channel(vgs, vds, vto, beta, lam):
     return beta * base * lf, beta * 2.0 * vgst * lf, beta * base * lam
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def evaluate(par, pa, v, po, i, G):
     """Gate and drain currents and their 2x2 Jacobian w.r.t. (Vgs, Vds)."""
     pol = par[pa + 0]
@@ -91,7 +91,7 @@ def evaluate(par, pa, v, po, i, G):
     G[po + 1, po + 1] = d_vds + ggd
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def limit(par, pa, vn, vo, po):
     """pnjlim on the gate junctions Vgs and Vgd."""
     pol = par[pa + 0]

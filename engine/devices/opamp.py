@@ -47,7 +47,7 @@ def layout(el) -> DeviceLayout:
                         probes={"iclip": ({0: 1.0, 1: -1.0}, {})})
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def evaluate(par, pa, v, po, i, G):
     """Clamp currents I0*exp((v + VHR)/VSOFT) and conductances."""
     for k in range(2):
@@ -58,7 +58,7 @@ def evaluate(par, pa, v, po, i, G):
     G[po + 1, po] = 0.0
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def limit(par, pa, vn, vo, po):
     """pnjlim on the shifted clamp voltages."""
     for k in range(2):

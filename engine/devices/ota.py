@@ -55,7 +55,7 @@ def layout(el) -> DeviceLayout:
                                 "vabc": ({}, {1: 1.0})})
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def evaluate(par, pa, v, po, i, G):
     """Port currents (0, Iabc, -Iout) and their 3x3 Jacobian."""
     va = v[po + 1]
@@ -90,7 +90,7 @@ def evaluate(par, pa, v, po, i, G):
     G[po + 1, po + 2] = 0.0
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def limit(par, pa, vn, vo, po):
     """pnjlim on the bias junction(s); the tanh input needs none."""
     vn[po + 1] = pnjlim(vn[po + 1], vo[po + 1], par[pa + 1], par[pa + 2])

@@ -24,6 +24,12 @@ sample in sub-steps (4, then 16); if that fails too the previous port
 solution is kept and counted.  Output is never NaN.  Loops are compiled
 with reassociation allowed (dot products on several accumulators).
 
+The per-sample path (solve_ports, newton, device evaluation and limiting,
+LU helpers) is inlined into run_block (numba ``inline="always"``): numba
+passes every array as an exploded struct of ~7 scalars, so a call with 20
+arrays cost ~100 ns, more than a 2-port Newton step itself.  The rare
+fallback paths call real (outlined) functions to bound the compile time.
+
 Everything here runs on the audio thread: no allocation, ``nogil=True``,
 ``cache=True``.
 """
@@ -108,7 +114,7 @@ BYPASS_TOL = 1e-6
 FM = {"reassoc", "contract"}
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def wave_value(kind, par, t):
     """SPICE-style source waveform value at time t: 1 SIN, 2 PULSE, 3 PWL.
 
@@ -172,7 +178,7 @@ def eval_devices(dcode, dpo, dpa, par, v, i, G):
             opamp.evaluate(par, pa, v, po, i, G)
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def eval_one(c, par, pa, v, po, i, G):
     """Evaluate one device by type code."""
     if c == 2:
@@ -187,7 +193,7 @@ def eval_one(c, par, pa, v, po, i, G):
         opamp.evaluate(par, pa, v, po, i, G)
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval):
     """Device port currents less the port offset conductance PORT_G0 that the
     linear network carries (see :data:`PORT_G0`): i - PORT_G0*v, G - PORT_G0.
@@ -220,7 +226,7 @@ def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval):
                 i[po + a] = s
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def limit_devices(dcode, dpo, dpa, par, vn, vo):
     """Junction limiting of a Newton step vo -> vn, in place on vn."""
     for d in range(dcode.size):
@@ -279,7 +285,7 @@ def lu_solve(J, b, piv, n):
     return True
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def lu_resolve(J, piv, b, n):
     """Solve with factors left by :func:`lu_solve` (b <- J^-1 b)."""
     for k in range(n):
@@ -297,7 +303,7 @@ def lu_resolve(J, piv, b, n):
         b[k] = s / J[k, k]
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def lu_factor(J, piv, n):
     """LU factors of J in place with partial pivoting (rows recorded in piv,
     as :func:`lu_solve`).  Returns False when J is singular."""
@@ -327,7 +333,7 @@ def lu_factor(J, piv, n):
     return True
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def factor_jacobian(K, G, Gf, J, piv, dcode, dpo, dnp, cnt):
     """J = I - K G (G block diagonal by device), factored in place; G is
     remembered in Gf (for :func:`jacobian_drift`).  Sets the LU flags."""
@@ -355,7 +361,7 @@ def factor_jacobian(K, G, Gf, J, piv, dcode, dpo, dnp, cnt):
     return False
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def jacobian_drift(G, Gf, dpo, dnp):
     """Largest change of a device's Jacobian block since the last
     factorisation, |G - Gf| / (|G| + |Gf|) per entry (0 ... 1)."""
@@ -375,7 +381,7 @@ def jacobian_drift(G, Gf, dpo, dnp):
     return worst
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def lu_inverse(J, piv, Ji, col, n):
     """Explicit inverse from LU factors (col: scratch vector); chord steps
     are then one matrix-vector product."""
@@ -388,7 +394,7 @@ def lu_inverse(J, piv, Ji, col, n):
             Ji[r, c] = col[r]
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def matvec_inplace(Ji, F, tmp, n):
     """F <- Ji F (tmp: scratch)."""
     for r in range(n):
@@ -400,7 +406,7 @@ def matvec_inplace(Ji, F, tmp, n):
         F[r] = tmp[r]
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def _correct_currents(dcode, dpo, dnp, G, dv, i):
     """First-order correction of the port currents for the last step dv."""
     for d in range(dcode.size):
@@ -413,7 +419,7 @@ def _correct_currents(dcode, dpo, dnp, G, dv, i):
             i[po + a] += s
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt, veval,
            ieval, Ji, Gf, mem):
     """Solve v = p + K i(v) for v (in place, warm start = v on entry).
@@ -520,6 +526,21 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt, 
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+def newton_outlined(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt,
+                    veval, ieval, Ji, Gf, mem):
+    """:func:`newton` as a real call, for the rare fallback path (keeps the
+    inlined hot path small and the compile time short)."""
+    return newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt,
+                  veval, ieval, Ji, Gf, mem)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+def eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval):
+    """:func:`eval_ports` as a real call (rare paths)."""
+    eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv,
                 ptmp, cnt, v2, p2, veval, ieval, Ji, Gf, mem):
     """Newton with bounded fallback; never leaves non-finite values in v, i.
@@ -573,7 +594,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
             f = s / nsub
             for r in range(n):
                 ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
-            it = newton(ptmp, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt, veval, ieval, Ji, Gf, mem)
+            it = newton_outlined(ptmp, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt, veval, ieval, Ji, Gf, mem)
             if it < 0:
                 good = False
                 break
@@ -587,7 +608,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
     cnt[C_NONCONV] += 1
     for r in range(n):
         v[r] = vprev[r]
-    eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
+    eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
     return False
 
 
