@@ -236,7 +236,7 @@ def _expect(cond: bool, msg: str, where: Where, part: str | None = None, hint=No
         raise DesignError(msg, file=where.file, line=where.line, part=part, hint=hint)
 
 
-def _read_part(raw: Any, where: Where, models: dict, stage: str) -> Part:
+def _read_part(raw: Any, where: Where, stage: str) -> Part:
     _expect(isinstance(raw, dict), "a part must be a table with name, type and nodes", where)
     name = raw.get("name")
     _expect(isinstance(name, str) and name.strip() != "", "a part has no name", where,
@@ -314,7 +314,7 @@ def _read_part(raw: Any, where: Where, models: dict, stage: str) -> Part:
     return p
 
 
-def _read_stage_body(body: dict, name: str, where: Where, finder, models, path) -> Stage:
+def _read_stage_body(body: dict, name: str, where: Where, finder) -> Stage:
     ports = body.get("ports", ["in", "out"])
     _expect(isinstance(ports, list) and all(isinstance(p, str) for p in ports),
             "ports must be a list of net names", where, name)
@@ -327,7 +327,7 @@ def _read_stage_body(body: dict, name: str, where: Where, finder, models, path) 
         pname = raw.get("name") if isinstance(raw, dict) else None
         pline = finder(pname, line) if isinstance(pname, str) and finder else None
         pw = Where(where.file, pline or where.line)
-        part = _read_part(raw, pw, models, name)
+        part = _read_part(raw, pw, name)
         _expect(part.name not in seen, f"two parts are named '{part.name}'", pw,
                 f"{name}.{part.name}", hint="give each part of a stage its own name")
         seen.add(part.name)
@@ -352,7 +352,7 @@ def builtin_designs() -> dict[str, Path]:
     return {f.stem: f for f in sorted(DESIGN_LIBRARY.glob("*.toml"))}
 
 
-def load_stage_template(name: str, where: Where | None = None, models=None) -> Stage:
+def load_stage_template(name: str, where: Where | None = None) -> Stage:
     """Load a stage template from the stage library by ``group/name``."""
     lib = stage_library()
     where = where or Where()
@@ -368,7 +368,7 @@ def load_stage_template(name: str, where: Where | None = None, models=None) -> S
     _expect(isinstance(body, dict), "a stage template needs a [stage] table",
             Where(str(path), 1))
     return _read_stage_body(body, name.split("/")[-1], Where(str(path), 1),
-                            _line_finder(text), models or {}, path)
+                            _line_finder(text))
 
 
 # ----------------------------------------------------------------- the design
@@ -499,8 +499,6 @@ class Design:
         if part.type == "pot":
             ra, rb = self.pot_resistances(part)
             return {f"{qualname}.a": ra, f"{qualname}.b": rb}
-        if part.type == "input":
-            return {qualname: part.value}
         return {qualname: part.value}
 
     def set_value(self, qualname: str, value: float | str) -> dict[str, float]:
@@ -1074,7 +1072,7 @@ def _design_from_toml(path: Path) -> Design:
     for raw in head.get("part", []):
         nm = raw.get("name") if isinstance(raw, dict) else None
         w = Where(file, finder(nm) if isinstance(nm, str) else None)
-        d.parts_global.append(_read_part(raw, w, d.models, ""))
+        d.parts_global.append(_read_part(raw, w, ""))
     stages_raw = data.get("stage", [])
     _expect(isinstance(stages_raw, list) and stages_raw, "the design needs [[stage]] tables",
             Where(file), hint="see docs/design-format.md")
@@ -1091,7 +1089,7 @@ def _design_from_toml(path: Path) -> Design:
         _expect(name not in seen, f"two stages are named '{name}'", w, name)
         seen.add(name)
         if "template" in raw:
-            st = load_stage_template(str(raw["template"]), w, d.models)
+            st = load_stage_template(str(raw["template"]), w)
             st.name, st.template = name, str(raw["template"])
             st.where = w
             for pname, val in raw.get("values", {}).items():
@@ -1129,7 +1127,7 @@ def _design_from_toml(path: Path) -> Design:
                                       file=file, line=sline, part=f"{name}.{pname}") from None
             for prt in raw.get("part", []):  # extra parts added to a template
                 pw = Where(file, finder(prt.get("name", ""), line) or sline)
-                st.parts.append(_read_part(prt, pw, d.models, name))
+                st.parts.append(_read_part(prt, pw, name))
             if "kind" in raw:
                 st.kind = str(raw["kind"])
             if "notes" in raw:
@@ -1137,7 +1135,7 @@ def _design_from_toml(path: Path) -> Design:
         elif "netlist" in raw:
             st = _stage_from_netlist(raw, name, path, w)
         else:
-            st = _read_stage_body(raw, name, w, finder, d.models, path)
+            st = _read_stage_body(raw, name, w, finder)
         st.bypass = bool(raw.get("bypass", False))
         d.stages.append(st)
         d._stage_docs[name] = sdocs[i]

@@ -65,7 +65,7 @@ def add_stage(d: Design, template: str, index: int | None = None,
     (default: the end); return its name."""
     import tomlkit
     aot = _stage_aot(d)
-    st = load_stage_template(template, models=d.models)
+    st = load_stage_template(template)
     st.name = unique_stage_name(d, name or template.split("/")[-1])
     st.template = template
     idx = len(d.stages) if index is None else max(0, min(index, len(d.stages)))
