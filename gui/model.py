@@ -213,24 +213,9 @@ def remove_link(d: Design, index: int) -> None:
 
 
 def set_tolerance(d: Design, qualname: str, tol: float | None) -> None:
-    """Set a part's tolerance (a fraction). Written into the part's own table;
-    parts from a stage template keep it in memory only (the file format has
-    no tolerance override for template parts yet)."""
-    part = d.part(qualname)
-    if tol is not None and not 0 < tol < 1:
-        raise DesignError("tolerance must be between 0 and 100 %", part=qualname)
-    part.tolerance = tol
-    d.dirty = True
-    if d.doc is None or "." not in qualname:
-        return
-    sname, pname = qualname.split(".", 1)
-    sdoc = d._stage_docs.get(sname)
-    for raw in (sdoc.get("part", []) if sdoc is not None else []):
-        if raw.get("name") == pname:
-            if tol is None:
-                raw.pop("tolerance", None)
-            else:
-                raw["tolerance"] = f"{tol * 100:g}%"
+    """Set a part's tolerance (a fraction, or None to remove it); saved in the
+    part's own table, or as a [stage.tolerances] override for template parts."""
+    d.set_tolerance(qualname, tol)
 
 
 # ------------------------------------------------------------ differences
