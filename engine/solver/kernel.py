@@ -13,8 +13,8 @@ Devices are dispatched by integer type code over one flat parameter array,
 so no recompilation per design.  Constant sources are folded into offsets
 (p0, x0, y0), so only z = [x; varying sources] is multiplied per sample.
 The port solve starts from a predictor (previous solution plus a chord step
-for the change in p), runs chord iterations on the explicit inverse of the
-last factored Jacobian with the stopping rule of Hairer & Wanner (error left
+for the change in p), runs chord iterations with the last factored Jacobian
+(LU solves for its first INV_AFTER uses, then its explicit inverse) with the stopping rule of Hairer & Wanner (error left
 <= th/(1-th)*|step|, th the measured contraction rate), refactors before the
 next sample when the rate was poor, and falls through to full Newton-Raphson
 (fresh Jacobian, pnjlim limiting) when the rate exceeds 1/4.  Devices whose
@@ -109,6 +109,10 @@ STEP_FLOOR = 1e-11
 PORT_G0 = 1e-3
 #: Device bypass threshold on port-voltage change, volts.
 BYPASS_TOL = 1e-6
+#: Solves with one set of LU factors before their explicit inverse is formed
+#: (forming it costs about n solves; designs that refactor nearly every
+#: sample never pay it).
+INV_AFTER = 8
 #: LLVM fast-math flags for the kernel loops: reassociation lets dot products
 #: run on several accumulators (SIMD) instead of one serial add chain.
 FM = {"reassoc", "contract"}
@@ -407,6 +411,23 @@ def matvec_inplace(Ji, F, tmp, n):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+def chord_solve(J, piv, Ji, F, tmp, n, cnt):
+    """F <- J^-1 F with the last factors.  The first INV_AFTER solves use
+    the LU factors (n**2 each); from then on the factors have proved
+    long-lived and the explicit inverse (n**3 once) makes each solve one
+    matrix-vector product.  cnt[C_INVOK]: 1 inverse valid, -k k solves done."""
+    if cnt[C_INVOK] == 1:
+        matvec_inplace(Ji, F, tmp, n)
+    elif cnt[C_INVOK] <= -INV_AFTER:
+        lu_inverse(J, piv, Ji, tmp, n)
+        cnt[C_INVOK] = 1
+        matvec_inplace(Ji, F, tmp, n)
+    else:
+        cnt[C_INVOK] -= 1
+        lu_resolve(J, piv, F, n)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def _correct_currents(dcode, dpo, dnp, G, dv, i):
     """First-order correction of the port currents for the last step dv."""
     for d in range(dcode.size):
@@ -432,9 +453,6 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt, 
     n = p.size
     done = 0
     if cnt[C_LUOK] == 1:
-        if cnt[C_INVOK] == 0:
-            lu_inverse(J, piv, Ji, vn, n)
-            cnt[C_INVOK] = 1
         # chord iterations with the factors of an earlier Jacobian: cheap
         # (no refactorisation) and fast while the Jacobian changes slowly.
         # Stopping rule of Hairer & Wanner (Solving ODEs II, sec. IV.8): with
@@ -461,7 +479,7 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt, 
                 # junction that was in hard conduction and is now off) can be
                 # tiny while the error is not: measure the rate first
                 sane = jacobian_drift(G, Gf, dpo, dnp) <= DRIFT_MAX
-            matvec_inplace(Ji, F, vn, n)
+            chord_solve(J, piv, Ji, F, vn, n, cnt)
             for r in range(n):
                 vn[r] = v[r] + F[r]
             limit_devices(dcode, dpo, dpa, par, vn, v)
@@ -559,12 +577,9 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
         mem[0] = 0.0
     mem[1] = 0.0
     if cnt[C_LUOK] == 1:
-        if cnt[C_INVOK] == 0:
-            lu_inverse(J, piv, Ji, vn, n)
-            cnt[C_INVOK] = 1
         for r in range(n):
             F[r] = p[r] - pprev[r]
-        matvec_inplace(Ji, F, vn, n)
+        chord_solve(J, piv, Ji, F, vn, n, cnt)
         for r in range(n):
             vn[r] = v[r] + F[r]
         limit_devices(dcode, dpo, dpa, par, vn, v)
