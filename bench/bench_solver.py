@@ -224,5 +224,30 @@ def main(quick: bool = False) -> dict:
     return res
 
 
+def start_only() -> dict:
+    """Measure only the cold/warm start and update that entry of
+    bench/results/solver.json (the per-sample tables are kept)."""
+    out = ROOT / "bench" / "results" / "solver.json"
+    res = json.loads(out.read_text()) if out.exists() else {}
+    res["start"] = start_times()
+    res["start_loadavg"] = os.getloadavg()
+    for k, v in res["start"].items():
+        print(f"{k} start: import {v['import_s']:.2f} s, build + first block "
+              f"{v['first_block_s']:.2f} s")
+    out.parent.mkdir(parents=True, exist_ok=True)
+    out.write_text(json.dumps(res, indent=2))
+    print(f"\nwrote {out}")
+    return res
+
+
 if __name__ == "__main__":
-    main(quick="--quick" in sys.argv)
+    import argparse
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="1 s of audio per row instead of 3 s")
+    ap.add_argument("--start", action="store_true",
+                    help="measure only cold/warm start (updates that entry of the JSON)")
+    a = ap.parse_args()
+    if a.start:
+        start_only()
+    else:
+        main(quick=a.quick)

@@ -24,11 +24,16 @@ sample in sub-steps (4, then 16); if that fails too the previous port
 solution is kept and counted.  Output is never NaN.  Loops are compiled
 with reassociation allowed (dot products on several accumulators).
 
-The per-sample path (solve_ports, newton, device evaluation and limiting,
-LU helpers) is inlined into run_block (numba ``inline="always"``): numba
-passes every array as an exploded struct of ~7 scalars, so a call with 20
-arrays cost ~100 ns, more than a 2-port Newton step itself.  The rare
-fallback paths call real (outlined) functions to bound the compile time.
+The per-sample path (solve_ports, newton, the device loops, the chord
+solve and small LU helpers) is inlined into run_block (numba
+``inline="always"``): numba passes every array as an exploded struct of ~7
+scalars, so a call with 20 arrays cost ~100 ns, more than a 2-port Newton
+step itself.  numba's IR-level inlining is slow to compile, so it is used
+sparingly: newton has a single call site (the fallback's continuation
+sub-steps reuse it), each device type's evaluate/limit is compiled once into
+one dispatch function (eval_one, limit_one: one real call per device), and
+the rare Jacobian refactorisation and explicit inverse are real calls.
+Cold start (empty cache) to the first block ~25 s instead of ~90 s.
 
 Everything here runs on the audio thread: no allocation, ``nogil=True``,
 ``cache=True``.
@@ -167,22 +172,10 @@ def wave_value(kind, par, t):
 def eval_devices(dcode, dpo, dpa, par, v, i, G):
     """Port currents i(v) and Jacobian blocks G of all devices."""
     for d in range(dcode.size):
-        c = dcode[d]
-        pa = dpa[d]
-        po = dpo[d]
-        if c == 2:
-            bjt.evaluate(par, pa, v, po, i, G)
-        elif c == 1:
-            diode.evaluate(par, pa, v, po, i, G)
-        elif c == 3:
-            jfet.evaluate(par, pa, v, po, i, G)
-        elif c == 4:
-            ota.evaluate(par, pa, v, po, i, G)
-        elif c == 5:
-            opamp.evaluate(par, pa, v, po, i, G)
+        eval_one(dcode[d], par, dpa[d], v, dpo[d], i, G)
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
 def eval_one(c, par, pa, v, po, i, G):
     """Evaluate one device by type code."""
     if c == 2:
@@ -230,23 +223,26 @@ def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval):
                 i[po + a] = s
 
 
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+def limit_one(c, par, pa, vn, vo, po):
+    """Junction limiting of one device by type code."""
+    if c == 2:
+        bjt.limit(par, pa, vn, vo, po)
+    elif c == 1:
+        diode.limit(par, pa, vn, vo, po)
+    elif c == 3:
+        jfet.limit(par, pa, vn, vo, po)
+    elif c == 4:
+        ota.limit(par, pa, vn, vo, po)
+    elif c == 5:
+        opamp.limit(par, pa, vn, vo, po)
+
+
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def limit_devices(dcode, dpo, dpa, par, vn, vo):
     """Junction limiting of a Newton step vo -> vn, in place on vn."""
     for d in range(dcode.size):
-        c = dcode[d]
-        pa = dpa[d]
-        po = dpo[d]
-        if c == 2:
-            bjt.limit(par, pa, vn, vo, po)
-        elif c == 1:
-            diode.limit(par, pa, vn, vo, po)
-        elif c == 3:
-            jfet.limit(par, pa, vn, vo, po)
-        elif c == 4:
-            ota.limit(par, pa, vn, vo, po)
-        elif c == 5:
-            opamp.limit(par, pa, vn, vo, po)
+        limit_one(dcode[d], par, dpa[d], vn, vo, dpo[d])
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
@@ -337,7 +333,7 @@ def lu_factor(J, piv, n):
     return True
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
 def factor_jacobian(K, G, Gf, J, piv, dcode, dpo, dnp, cnt):
     """J = I - K G (G block diagonal by device), factored in place; G is
     remembered in Gf (for :func:`jacobian_drift`).  Sets the LU flags."""
@@ -385,7 +381,7 @@ def jacobian_drift(G, Gf, dpo, dnp):
     return worst
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
 def lu_inverse(J, piv, Ji, col, n):
     """Explicit inverse from LU factors (col: scratch vector); chord steps
     are then one matrix-vector product."""
@@ -544,15 +540,6 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt, 
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
-def newton_outlined(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt,
-                    veval, ieval, Ji, Gf, mem):
-    """:func:`newton` as a real call, for the rare fallback path (keeps the
-    inlined hot path small and the compile time short)."""
-    return newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, maxit, cnt,
-                  veval, ieval, Ji, Gf, mem)
-
-
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
 def eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval):
     """:func:`eval_ports` as a real call (rare paths)."""
     eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
@@ -588,38 +575,44 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn
     for r in range(n):
         v2[r] = vprev[r]
         p2[r] = pprev[r]
-    it = newton(p, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt, veval, ieval, Ji, Gf, mem)
-    if it > 0:
-        ok = True
-        for r in range(n):
-            if not (math.isfinite(v[r]) and math.isfinite(i[r])):
-                ok = False
-        if ok:
-            if it > cnt[C_MAXIT]:
-                cnt[C_MAXIT] = it
+        ptmp[r] = p[r]
+    # One call site of the (inlined) Newton solver serves the direct solve
+    # and the fallback: continuation in p from the previous sample, in 4
+    # then 16 sub-steps (ptmp: the p of the current (sub-)step).
+    nsub = 1
+    s = 1
+    while True:
+        it = newton(ptmp, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt,
+                    veval, ieval, Ji, Gf, mem)
+        good = it >= 0 if nsub > 1 else it > 0
+        if good and nsub > 1:
             cnt[C_ITERS] += it
-            return True
-    # continuation in p from the previous sample, in 4 then 16 sub-steps
-    cnt[C_FALLBACK] += 1
-    for nsub in (4, 16):
-        for r in range(n):
-            v[r] = vprev[r]
-        good = True
-        for s in range(1, nsub + 1):
-            f = s / nsub
-            for r in range(n):
-                ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
-            it = newton_outlined(ptmp, v, K, dcode, dpo, dnp, dpa, par, i, G, J, F, vn, piv, MAXIT, cnt, veval, ieval, Ji, Gf, mem)
-            if it < 0:
-                good = False
-                break
-            cnt[C_ITERS] += it
+            if s < nsub:
+                s += 1
+                f = s / nsub
+                for r in range(n):
+                    ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
+                continue
         if good:
             for r in range(n):
                 if not (math.isfinite(v[r]) and math.isfinite(i[r])):
                     good = False
         if good:
+            if nsub == 1:
+                if it > cnt[C_MAXIT]:
+                    cnt[C_MAXIT] = it
+                cnt[C_ITERS] += it
             return True
+        if nsub == 16:
+            break
+        if nsub == 1:
+            cnt[C_FALLBACK] += 1
+        nsub = 4 if nsub == 1 else 16
+        s = 1
+        f = s / nsub
+        for r in range(n):
+            v[r] = vprev[r]
+            ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
     cnt[C_NONCONV] += 1
     for r in range(n):
         v[r] = vprev[r]
