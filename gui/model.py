@@ -495,29 +495,26 @@ class Workbench(QObject):
         self.history_changed.emit()
 
     # ---------------------------------------------------------- part edits
-    def set_value(self, qualname: str, value: float | str) -> dict[str, float]:
-        ch = self._apply(f"value of {qualname}", lambda d: d.set_value(qualname, value),
-                         merge=f"value:{qualname}")
+    def _part_edit(self, label: str, merge: str, field: str, qualname: str,
+                   fn) -> dict[str, float]:
+        """Apply an undoable edit of one part's ``field`` and announce it."""
+        ch = self._apply(label, fn, merge=merge)
         self.part_changed.emit(qualname)
-        self.edited.emit("value", qualname, self.design.part(qualname).value)
+        self.edited.emit(field, qualname, getattr(self.design.part(qualname), field))
         self.values_changed.emit(ch)
         return ch
+
+    def set_value(self, qualname: str, value: float | str) -> dict[str, float]:
+        return self._part_edit(f"value of {qualname}", f"value:{qualname}", "value",
+                               qualname, lambda d: d.set_value(qualname, value))
 
     def set_rotation(self, qualname: str, rotation: float) -> dict[str, float]:
-        ch = self._apply(f"turn {qualname}", lambda d: d.set_rotation(qualname, rotation),
-                         merge=f"rot:{qualname}")
-        self.part_changed.emit(qualname)
-        self.edited.emit("rotation", qualname, self.design.part(qualname).rotation)
-        self.values_changed.emit(ch)
-        return ch
+        return self._part_edit(f"turn {qualname}", f"rot:{qualname}", "rotation",
+                               qualname, lambda d: d.set_rotation(qualname, rotation))
 
     def set_taper(self, qualname: str, taper: Any) -> dict[str, float]:
-        ch = self._apply(f"taper of {qualname}", lambda d: d.set_taper(qualname, taper),
-                         merge=f"taper:{qualname}")
-        self.part_changed.emit(qualname)
-        self.edited.emit("taper", qualname, self.design.part(qualname).taper)
-        self.values_changed.emit(ch)
-        return ch
+        return self._part_edit(f"taper of {qualname}", f"taper:{qualname}", "taper",
+                               qualname, lambda d: d.set_taper(qualname, taper))
 
     def set_tolerance(self, qualname: str, tol: float | None) -> None:
         self._apply(f"tolerance of {qualname}", lambda d: set_tolerance(d, qualname, tol))
