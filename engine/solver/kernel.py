@@ -246,49 +246,9 @@ def limit_devices(dcode, dpo, dpa, par, vn, vo):
         limit_one(dcode[d], par, dpa[d], vn, vo, dpo[d])
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
-def lu_solve(J, b, piv, n):
-    """Solve J z = b in place (b <- z) by Gaussian elimination with partial
-    pivoting; J is overwritten by its LU factors and piv by the pivot rows
-    (reusable with :func:`lu_resolve`).  Returns False when J is singular."""
-    for k in range(n):
-        m = k
-        big = abs(J[k, k])
-        for r in range(k + 1, n):
-            a = abs(J[r, k])
-            if a > big:
-                big = a
-                m = r
-        piv[k] = m
-        if not big > 1e-300:
-            return False
-        if m != k:
-            for c in range(k, n):
-                tmp = J[k, c]
-                J[k, c] = J[m, c]
-                J[m, c] = tmp
-            tmp = b[k]
-            b[k] = b[m]
-            b[m] = tmp
-        inv = 1.0 / J[k, k]
-        for r in range(k + 1, n):
-            f = J[r, k] * inv
-            J[r, k] = f
-            if f != 0.0:
-                for c in range(k + 1, n):
-                    J[r, c] -= f * J[k, c]
-                b[r] -= f * b[k]
-    for k in range(n - 1, -1, -1):
-        s = b[k]
-        for c in range(k + 1, n):
-            s -= J[k, c] * b[c]
-        b[k] = s / J[k, k]
-    return True
-
-
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def lu_resolve(J, piv, b, n):
-    """Solve with factors left by :func:`lu_solve` (b <- J^-1 b)."""
+    """Solve with factors left by :func:`lu_factor` (b <- J^-1 b)."""
     for k in range(n):
         m = piv[k]
         if m != k:
@@ -306,8 +266,8 @@ def lu_resolve(J, piv, b, n):
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def lu_factor(J, piv, n):
-    """LU factors of J in place with partial pivoting (rows recorded in piv,
-    as :func:`lu_solve`).  Returns False when J is singular."""
+    """LU factors of J in place with partial pivoting (pivot rows recorded
+    in piv for :func:`lu_resolve`).  Returns False when J is singular."""
     for k in range(n):
         m = k
         big = abs(J[k, k])
