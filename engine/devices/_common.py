@@ -73,6 +73,22 @@ def pnjlim(vnew, vold, vt, vcrit):
     return vnew
 
 
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def limit_two_junctions(vn, vo, po, pol, vt1, vcrit1, vt2, vcrit2):
+    """pnjlim on both junctions of a three-terminal device whose ports are
+    (control, common) at ``po`` and (output, common) at ``po + 1``: junction 1
+    is control-common (Vbe, Vgs), junction 2 control-output (Vbc, Vgd).
+    ``pol`` is +1 for N-type, -1 for P-type. Updates vn in place."""
+    j1_n = pol * vn[po]
+    j1_o = pol * vo[po]
+    j2_n = j1_n - pol * vn[po + 1]
+    j2_o = j1_o - pol * vo[po + 1]
+    a = pnjlim(j1_n, j1_o, vt1, vcrit1)
+    b = pnjlim(j2_n, j2_o, vt2, vcrit2)
+    vn[po] = pol * a
+    vn[po + 1] = pol * (a - b)
+
+
 def vcrit(vte: float, isat: float) -> float:
     """Critical voltage of a junction: vte*ln(vte/(sqrt(2)*IS)) (SPICE2)."""
     return vte * math.log(vte / (math.sqrt(2.0) * isat))

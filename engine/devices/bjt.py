@@ -17,7 +17,8 @@ import math
 import numpy as np
 from numba import njit
 
-from engine.devices._common import (GMIN, VT, DeviceLayout, junction, pnjlim, polarity,
+from engine.devices._common import (GMIN, VT, DeviceLayout, junction, limit_two_junctions,
+                                    polarity,
                                     read_params, vcrit)
 
 KIND = "Q"
@@ -92,15 +93,8 @@ def evaluate(par, pa, v, po, i, G):
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def limit(par, pa, vn, vo, po):
     """pnjlim on Vbe and Vbc (as SPICE), Vce follows."""
-    pol = par[pa + 0]
-    vbe_n = pol * vn[po]
-    vbe_o = pol * vo[po]
-    vbc_n = vbe_n - pol * vn[po + 1]
-    vbc_o = vbe_o - pol * vo[po + 1]
-    vbe_l = pnjlim(vbe_n, vbe_o, par[pa + 4], par[pa + 8])
-    vbc_l = pnjlim(vbc_n, vbc_o, par[pa + 5], par[pa + 9])
-    vn[po] = pol * vbe_l
-    vn[po + 1] = pol * (vbe_l - vbc_l)
+    limit_two_junctions(vn, vo, po, par[pa + 0], par[pa + 4], par[pa + 8],
+                        par[pa + 5], par[pa + 9])
 
 
 def region(par, v, i) -> str:

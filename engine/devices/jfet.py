@@ -15,7 +15,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from engine.devices._common import (GMIN, VT, DeviceLayout, junction, pnjlim, polarity,
+from engine.devices._common import (GMIN, VT, DeviceLayout, junction, limit_two_junctions,
+                                    polarity,
                                     read_params, vcrit)
 
 KIND = "J"
@@ -94,15 +95,8 @@ def evaluate(par, pa, v, po, i, G):
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def limit(par, pa, vn, vo, po):
     """pnjlim on the gate junctions Vgs and Vgd."""
-    pol = par[pa + 0]
-    vgs_n = pol * vn[po]
-    vgs_o = pol * vo[po]
-    vgd_n = vgs_n - pol * vn[po + 1]
-    vgd_o = vgs_o - pol * vo[po + 1]
-    a = pnjlim(vgs_n, vgs_o, par[pa + 5], par[pa + 6])
-    b = pnjlim(vgd_n, vgd_o, par[pa + 5], par[pa + 6])
-    vn[po] = pol * a
-    vn[po + 1] = pol * (a - b)
+    limit_two_junctions(vn, vo, po, par[pa + 0], par[pa + 5], par[pa + 6],
+                        par[pa + 5], par[pa + 6])
 
 
 def region(par, v, i) -> str:

@@ -51,19 +51,28 @@ from numba import njit
 
 
 def _refresh_cache_stamp():
-    """numba's disk cache keys on this file only; when a device module
-    changes, touch this file so the cached kernel is recompiled."""
+    """numba's disk cache keys on this file's contents only, but the kernel
+    compiles the device modules' code into itself: when a device module
+    changes, drop this file's cached kernels so they are compiled again."""
     here = Path(__file__)
     dev = here.parent.parent / "devices"
     h = hashlib.sha1()
     for f in sorted(dev.glob("*.py")):
         h.update(f.read_bytes())
-    stamp = here.parent / "__pycache__" / "kernel.devices.sha1"
+    cache = here.parent / "__pycache__"
+    stamp = cache / "kernel.devices.sha1"
     try:
-        stamp.parent.mkdir(exist_ok=True)
+        cache.mkdir(exist_ok=True)
         old = stamp.read_text() if stamp.exists() else ""
         if old != h.hexdigest():
-            os.utime(here)
+            from numba.core import config
+            pattern = f"{here.stem}.*.nb[ic]"
+            stale = list(cache.glob(pattern))
+            if config.CACHE_DIR:       # NUMBA_CACHE_DIR relocates the cache
+                stale += [f for f in Path(config.CACHE_DIR).rglob(pattern)
+                          if "solver" in str(f.parent)]
+            for f in stale:
+                f.unlink(missing_ok=True)
             stamp.write_text(h.hexdigest())
     except OSError:  # read-only install: the cache is what it is
         pass
