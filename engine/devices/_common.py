@@ -106,6 +106,9 @@ class DeviceLayout:
     par : flat float64 parameter vector read by the compiled model.
     probes : probe kind -> (port-current coefficients, port-voltage
         coefficients), each a dict {port index: coefficient}.
+    quiet_step : a Newton step that moves none of the port voltages by this
+        much (volts) or more is left unchanged by the device's ``limit``, so
+        the kernel skips the call (0: always call).
     """
     code: int
     ports: list[tuple[str, str]]
@@ -113,6 +116,7 @@ class DeviceLayout:
     internal: list[str] = field(default_factory=list)
     stamps: list[tuple] = field(default_factory=list)
     probes: dict[str, tuple[dict[int, float], dict[int, float]]] = field(default_factory=dict)
+    quiet_step: float = 0.0
 
 
 def read_params(el, defaults: dict[str, float], *, positive=(), nonneg=(),

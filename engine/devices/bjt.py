@@ -55,7 +55,10 @@ def layout(el) -> DeviceLayout:
     return DeviceLayout(CODE, [(bi, ei), (ci, ei)], par, internal, stamps,
                         probes={"ib": ({0: 1.0}, {}), "ic": ({1: 1.0}, {}),
                                 "ie": ({0: -1.0, 1: -1.0}, {}),
-                                "vbe": ({}, {0: 1.0}), "vce": ({}, {1: 1.0})})
+                                "vbe": ({}, {0: 1.0}), "vce": ({}, {1: 1.0})},
+                        # Vbe moves by the step, Vbc by at most twice it;
+                        # pnjlim acts only on junction steps above 2*vt
+                        quiet_step=min(vtf, vtr))
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")

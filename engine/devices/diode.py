@@ -39,7 +39,8 @@ def layout(el) -> DeviceLayout:
         stamps.append(("R", a, ai, p["RS"]))
     par = np.array([p["IS"], vte, vcrit(vte, p["IS"]), xbv])
     return DeviceLayout(CODE, [(ai, k)], par, internal, stamps,
-                        probes={"id": ({0: 1.0}, {}), "vd": ({}, {0: 1.0})})
+                        probes={"id": ({0: 1.0}, {}), "vd": ({}, {0: 1.0})},
+                        quiet_step=2.0 * vte)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")

@@ -45,7 +45,8 @@ def layout(el) -> DeviceLayout:
     par = np.array([pol, p["VTO"], p["BETA"], p["LAMBDA"], p["IS"], vte, vcrit(vte, p["IS"])])
     return DeviceLayout(CODE, [(g, s), (d, s)], par, internal, stamps,
                         probes={"ig": ({0: 1.0}, {}), "id": ({1: 1.0}, {}),
-                                "vgs": ({}, {0: 1.0}), "vds": ({}, {1: 1.0})})
+                                "vgs": ({}, {0: 1.0}), "vds": ({}, {1: 1.0})},
+                        quiet_step=vte)  # as the BJT: Vgd moves by <= 2 steps
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)

@@ -44,7 +44,8 @@ def layout(el) -> DeviceLayout:
     i0 = gm1 * 1e-4
     par = np.array([i0, p["VHR"], p["VSOFT"], vcrit(p["VSOFT"], i0)])
     return DeviceLayout(CODE, [(node, vcc), (vee, node)], par, [node], stamps,
-                        probes={"iclip": ({0: 1.0, 1: -1.0}, {})})
+                        probes={"iclip": ({0: 1.0, 1: -1.0}, {})},
+                        quiet_step=2.0 * p["VSOFT"])
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")

@@ -52,7 +52,8 @@ def layout(el) -> DeviceLayout:
     return DeviceLayout(CODE, [(inp, inn), (abc, vee), (out, vee)], par, [], stamps,
                         probes={"iabc": ({1: 1.0}, {}), "gm": ({1: 1.0 / (2.0 * VT)}, {}),
                                 "iout": ({2: -1.0}, {}), "vd": ({}, {0: 1.0}),
-                                "vabc": ({}, {1: 1.0})})
+                                "vabc": ({}, {1: 1.0})},
+                        quiet_step=2.0 * vte)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")

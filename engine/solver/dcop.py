@@ -35,7 +35,7 @@ class DCSolution:
 
 
 def _newton(net, S, Bu, Bn, P, u, arrays, v0, maxit=150):
-    dcode, dpo, dnp, dpa, par = arrays
+    dcode, dpo, dnp, dpa, par, _ = arrays
     npt = net.np_
     v = v0.copy()
     i = np.zeros(npt)

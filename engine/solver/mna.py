@@ -422,8 +422,9 @@ def source_wave(el) -> tuple[int, np.ndarray]:
 
 def device_arrays(net: Network):
     """Flat arrays describing the devices for the compiled kernel:
-    (dcode, dpo, dnp, dpa, par) = type codes, port offsets, port counts,
-    parameter offsets (n+1) and the concatenated parameter vector."""
+    (dcode, dpo, dnp, dpa, par, dqs) = type codes, port offsets, port counts,
+    parameter offsets (n+1), the concatenated parameter vector and each
+    device's quiet step (see DeviceLayout.quiet_step)."""
     dcode = np.array([lay.code for _, _, lay, _ in net.devices], dtype=np.int64)
     dpo = np.array([po for _, _, _, po in net.devices], dtype=np.int64)
     dnp = np.array([len(lay.ports) for _, _, lay, _ in net.devices], dtype=np.int64)
@@ -431,4 +432,5 @@ def device_arrays(net: Network):
     dpa = np.zeros(len(sizes) + 1, dtype=np.int64)
     dpa[1:] = np.cumsum(sizes)
     par = np.concatenate([lay.par for _, _, lay, _ in net.devices]) if sizes else np.zeros(0)
-    return dcode, dpo, dnp, dpa, np.ascontiguousarray(par, dtype=np.float64)
+    dqs = np.array([lay.quiet_step for _, _, lay, _ in net.devices], dtype=np.float64)
+    return dcode, dpo, dnp, dpa, np.ascontiguousarray(par, dtype=np.float64), dqs

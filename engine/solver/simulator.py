@@ -136,16 +136,23 @@ class Simulator:
     probes : probe names, e.g. ``("v(out)", "ic(Q1)", "gm(U1)")``.
     probe_decimate : one probe frame every this many outer samples.
     block_max : largest block given to :meth:`process_into`.
+    tolerance : error (volts) left in the nonlinear port voltages each
+        sample; default the kernel's ERR_TOL (1 uV, SPICE's VNTOL).
 
     The simulation starts at the DC operating point (no thump).
     """
 
     def __init__(self, circuit: Circuit, fs: float = 48000.0, oversample: int = 1,
-                 probes=(), probe_decimate: int = 1, block_max: int = 4096):
+                 probes=(), probe_decimate: int = 1, block_max: int = 4096,
+                 tolerance: float | None = None):
         if not float(fs) > 0:
             raise DesignError(f"sample rate {fs!r} must be positive", part="simulator")
         if int(probe_decimate) < 1:
             raise DesignError("probe_decimate must be >= 1", part="simulator")
+        self.tolerance = K.ERR_TOL if tolerance is None else float(tolerance)
+        if not self.tolerance > 0:
+            raise DesignError(f"tolerance {tolerance!r} must be positive volts",
+                              part="simulator")
         self.net = net = Network(circuit)
         self.circuit = circuit
         self.fs = float(fs)
@@ -187,7 +194,7 @@ class Simulator:
         self._i = np.zeros(npt)
         self._pprev = np.zeros(npt)
         self._u = np.zeros(nu)
-        self._ws = np.zeros((11, max(npt, nx, 2)))
+        self._ws = np.zeros((13, max(npt, nx, 3)))
         self._G = np.zeros((npt, npt))
         self._J = np.zeros((npt, npt))
         self._Gf = np.zeros((npt, npt))
@@ -226,7 +233,10 @@ class Simulator:
         self._ws[7, :net.np_] = self._pprev
         self._ws[8, :] = 1e300  # bypass memory: force a first evaluation
         self._ws[9, :] = 0.0
-        self._ws[10, :] = 0.0  # chord rate memory, refactor flag
+        self._ws[10, :] = 0.0  # chord rate memory, refactor flag, tolerance
+        self._ws[10, 2] = self.tolerance
+        self._ws[11, :] = 0.0  # column scales of K (set at factorisation)
+        self._ws[12, :] = 0.0  # predictor's last linear step
         self._cnt[:] = 0
         self._model = m
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i
@@ -303,9 +313,9 @@ class Simulator:
         return frames
 
     def _args(self, m: Model):
-        dcode, dpo, dnp, dpa, par = self._arr
+        dcode, dpo, dnp, dpa, par, dqs = self._arr
         return (m.Pz, m.p0, m.Az, m.x0, m.C, m.K, m.Yz, m.y0, m.Fy, m.Vy,
-                dcode, dpo, dnp, dpa, par,
+                dcode, dpo, dnp, dpa, par, dqs,
                 m.uvar, self._skind, self._sptr, self._spar, self.net.input_index,
                 self._T, self._z, self._xp, self._v, self._i, self._pprev, self._ws,
                 self._G, self._Gf, self._J, self._Ji, self._piv, self._yrow, self._cnt)
