@@ -13,28 +13,28 @@ Devices are dispatched by integer type code over one flat parameter array,
 so no recompilation per design.  Constant sources are folded into offsets
 (p0, x0, y0), so only z = [x; varying sources] is multiplied per sample.
 The port solve starts from a predictor (previous solution plus a chord step
-for the change in p), runs chord iterations with the last factored Jacobian
-(LU solves for its first INV_AFTER uses, then its explicit inverse) with the stopping rule of Hairer & Wanner (error left
-<= th/(1-th)*|step|, th the measured contraction rate), refactors before the
-next sample when the rate was poor, and falls through to full Newton-Raphson
-(fresh Jacobian, pnjlim limiting) when the rate exceeds 1/4.  Devices whose
+for the change in p plus the nonlinear part of the previous step), runs
+chord iterations with the inverse of an earlier Jacobian (formed by
+Gauss-Jordan elimination, so every step is one matrix-vector product) with
+the stopping rule of Hairer & Wanner (error left <= th/(1-th)*|step|, th the
+measured contraction rate), refactors before the next sample when the rate
+was poor, and falls through to full Newton-Raphson (fresh Jacobian, pnjlim
+limiting) when the rate exceeds 1/4.  Devices whose
 port voltages moved less than BYPASS_TOL are not re-evaluated (SPICE's
 bypass).  Newton failures fall back to continuation in p from the previous
 sample in sub-steps (4, then 16); if that fails too the previous port
 solution is kept and counted.  Output is never NaN.  Loops are compiled
 with reassociation allowed (dot products on several accumulators).
 
-The per-sample path (solve_ports, newton, the device loops, the chord
-solve and small LU helpers) is inlined into run_block (numba
-``inline="always"``): numba passes every array as an exploded struct of ~7
-scalars, so a call with 20 arrays cost ~100 ns, more than a 2-port Newton
-step itself.  numba's IR-level inlining is slow to compile, so it is used
-sparingly: newton has a single call site (the fallback's continuation
-sub-steps reuse it), each device type's evaluate/limit is compiled once into
-one dispatch function (eval_one, limit_one: one real call per device), and
-the explicit inverse (rare) and the once-per-sample Jacobian refresh are
-real calls (the Newton loop's refactorisation stays inlined).
-Cold start (empty cache) to the first block ~25 s instead of ~90 s.
+The per-sample path (solve_ports, newton, the device loops and the chord
+step) is inlined into run_block (numba ``inline="always"``): numba passes
+every array as an exploded struct of ~7 scalars, so a call with 20 arrays
+cost ~100 ns, more than a 2-port Newton step itself.  numba's IR-level
+inlining is slow to compile, so it is used sparingly: newton has a single
+call site (the fallback's continuation sub-steps reuse it), each device
+type's evaluate/limit is compiled once into one dispatch function (eval_one,
+limit_one: one real call per device), and the Jacobian inverse (a few per
+cent of samples) is a real call.
 
 Everything here runs on the audio thread: no allocation, ``nogil=True``,
 ``cache=True``.
@@ -84,7 +84,7 @@ from engine.devices import bjt, diode, jfet, opamp, ota  # noqa: E402
 
 # counter slots in the int64 array ``cnt``
 (C_SAMPLES, C_NONCONV, C_FALLBACK, C_MAXIT, C_PHASE, C_INDEX, C_ITERS, C_LUOK,
- C_FACTOR, C_INVOK) = range(10)
+ C_FACTOR) = range(9)
 N_COUNTERS = 10
 
 # Newton stops when a step is below ABSTOL + RELTOL*|v|.  Newton's error after
@@ -127,10 +127,6 @@ STEP_FLOOR = 1e-11
 PORT_G0 = 1e-3
 #: Device bypass threshold on port-voltage change, volts.
 BYPASS_TOL = 1e-6
-#: Solves with one set of LU factors before their explicit inverse is formed
-#: (forming it costs about n solves; designs that refactor nearly every
-#: sample never pay it).
-INV_AFTER = 8
 #: LLVM fast-math flags for the kernel loops: reassociation lets dot products
 #: run on several accumulators (SIMD) instead of one serial add chain.
 FM = {"reassoc", "contract"}
@@ -274,27 +270,15 @@ def limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, vo):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def lu_resolve(J, piv, b, n):
-    """Solve with factors left by :func:`lu_factor` (b <- J^-1 b)."""
-    for k in range(n):
-        m = piv[k]
-        if m != k:
-            tmp = b[k]
-            b[k] = b[m]
-            b[m] = tmp
-        for r in range(k + 1, n):
-            b[r] -= J[r, k] * b[k]
-    for k in range(n - 1, -1, -1):
-        s = b[k]
-        for c in range(k + 1, n):
-            s -= J[k, c] * b[c]
-        b[k] = s / J[k, k]
-
-
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def lu_factor(J, piv, n):
-    """LU factors of J in place with partial pivoting (pivot rows recorded
-    in piv for :func:`lu_resolve`).  Returns False when J is singular."""
+def gj_inverse(J, Ji, n):
+    """Ji <- J^-1 by Gauss-Jordan elimination with partial pivoting on the
+    augmented rows [J | I] (J is overwritten).  Returns False when J is
+    singular.  Every update is a whole contiguous row, which vectorises;
+    each chord or Newton step is then one matrix-vector product."""
+    for r in range(n):
+        for c in range(n):
+            Ji[r, c] = 0.0
+        Ji[r, r] = 1.0
     for k in range(n):
         m = k
         big = abs(J[k, k])
@@ -303,29 +287,38 @@ def lu_factor(J, piv, n):
             if a > big:
                 big = a
                 m = r
-        piv[k] = m
         if not big > 1e-300:
             return False
         if m != k:
-            for c in range(k, n):
-                tmp = J[k, c]
+            for c in range(n):
+                t = J[k, c]
                 J[k, c] = J[m, c]
-                J[m, c] = tmp
+                J[m, c] = t
+                t = Ji[k, c]
+                Ji[k, c] = Ji[m, c]
+                Ji[m, c] = t
         inv = 1.0 / J[k, k]
-        for r in range(k + 1, n):
-            f = J[r, k] * inv
-            J[r, k] = f
-            if f != 0.0:
-                for c in range(k + 1, n):
+        for c in range(k, n):
+            J[k, c] *= inv
+        for c in range(n):
+            Ji[k, c] *= inv
+        for r in range(n):
+            f = J[r, k]
+            if r != k and f != 0.0:
+                # columns left of k are zero in rows k and r already
+                for c in range(k, n):
                     J[r, c] -= f * J[k, c]
+                for c in range(n):
+                    Ji[r, c] -= f * Ji[k, c]
     return True
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def factor_jacobian(K, G, Gf, J, piv, dcode, dpo, dnp, cnt, kc):
-    """J = I - K G (G block diagonal by device), factored in place; G is
+def factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc):
+    """Ji = (I - K G)^-1 (G block diagonal by device; J is scratch); G is
     remembered in Gf and the column scales kc[c] = max |K[:, c]| are
-    refreshed (both for :func:`jacobian_drift`).  Sets the LU flags."""
+    refreshed (both for :func:`jacobian_drift`).  Sets cnt[C_LUOK] (1: Ji
+    is valid) and returns it as a bool."""
     n = J.shape[0]
     for r in range(n):
         for c in range(n):
@@ -347,8 +340,7 @@ def factor_jacobian(K, G, Gf, J, piv, dcode, dpo, dnp, cnt, kc):
                     for r in range(n):
                         J[r, po + b] -= K[r, po + a] * g
     cnt[C_FACTOR] += 1
-    cnt[C_INVOK] = 0
-    if lu_factor(J, piv, n):
+    if gj_inverse(J, Ji, n):
         cnt[C_LUOK] = 1
         return True
     cnt[C_LUOK] = 0
@@ -356,10 +348,11 @@ def factor_jacobian(K, G, Gf, J, piv, dcode, dpo, dnp, cnt, kc):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
-def factor_jacobian_outlined(K, G, Gf, J, piv, dcode, dpo, dnp, cnt, kc):
-    """:func:`factor_jacobian` as a real call (the once-per-sample refresh
-    site; the Newton loop inlines it)."""
-    return factor_jacobian(K, G, Gf, J, piv, dcode, dpo, dnp, cnt, kc)
+def factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc):
+    """:func:`factor_jacobian` as a real call: it runs on a few per cent of
+    samples, and keeping its loops out of run_block keeps that function
+    small (fewer registers spilled in the per-sample path)."""
+    return factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
@@ -393,19 +386,6 @@ def jacobian_drift(G, Gf, dpo, dnp, kc):
     return worst
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
-def lu_inverse(J, piv, Ji, col, n):
-    """Explicit inverse from LU factors (col: scratch vector); chord steps
-    are then one matrix-vector product."""
-    for c in range(n):
-        for r in range(n):
-            col[r] = 0.0
-        col[c] = 1.0
-        lu_resolve(J, piv, col, n)
-        for r in range(n):
-            Ji[r, c] = col[r]
-
-
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def matvec_inplace(Ji, F, tmp, n):
     """F <- Ji F (tmp: scratch)."""
@@ -416,23 +396,6 @@ def matvec_inplace(Ji, F, tmp, n):
         tmp[r] = s
     for r in range(n):
         F[r] = tmp[r]
-
-
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def chord_solve(J, piv, Ji, F, tmp, n, cnt):
-    """F <- J^-1 F with the last factors.  The first INV_AFTER solves use
-    the LU factors (n**2 each); from then on the factors have proved
-    long-lived and the explicit inverse (n**3 once) makes each solve one
-    matrix-vector product.  cnt[C_INVOK]: 1 inverse valid, -k k solves done."""
-    if cnt[C_INVOK] == 1:
-        matvec_inplace(Ji, F, tmp, n)
-    elif cnt[C_INVOK] <= -INV_AFTER:
-        lu_inverse(J, piv, Ji, tmp, n)
-        cnt[C_INVOK] = 1
-        matvec_inplace(Ji, F, tmp, n)
-    else:
-        cnt[C_INVOK] -= 1
-        lu_resolve(J, piv, F, n)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
@@ -449,11 +412,11 @@ def _correct_currents(dcode, dpo, dnp, G, dv, i):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, piv, maxit, cnt, veval,
+def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, maxit, cnt, veval,
            ieval, Ji, Gf, mem, kc):
     """Solve v = p + K i(v) for v (in place, warm start = v on entry).
 
-    First up to CHORD_MAX chord iterations with the last LU factors (if any),
+    First up to CHORD_MAX chord iterations with the last inverse (if any),
     then Newton-Raphson with a fresh Jacobian each iteration.  Returns the
     number of iterations, or -1 if not converged within maxit.  On success
     ``i`` holds the port currents at the returned v (first-order corrected
@@ -484,7 +447,7 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, piv, maxit, 
             res = 0.0
             for r in range(n):
                 res = max(res, abs(F[r]))
-            chord_solve(J, piv, Ji, F, vn, n, cnt)
+            matvec_inplace(Ji, F, vn, n)
             for r in range(n):
                 vn[r] = v[r] + F[r]
             limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
@@ -535,9 +498,9 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, piv, maxit, 
             for c in range(n):
                 s += K[r, c] * i[c]
             F[r] = s
-        if not factor_jacobian(K, G, Gf, J, piv, dcode, dpo, dnp, cnt, kc):
+        if not factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc):
             return -1
-        lu_resolve(J, piv, F, n)
+        matvec_inplace(Ji, F, vn, n)
         for r in range(n):
             vn[r] = v[r] + F[r]
         limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
@@ -563,7 +526,7 @@ def eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, piv,
+def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
                 ptmp, cnt, v2, p2, veval, ieval, Ji, Gf, mem, kc, lprev):
     """Newton with bounded fallback; never leaves non-finite values in v, i.
 
@@ -581,13 +544,13 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
     if cnt[C_LUOK] == 1 and mem[1] != 0.0:
         # the last sample's chord iterations contracted slowly: refactor at
         # its converged point before predicting this one
-        factor_jacobian_outlined(K, G, Gf, J, piv, dcode, dpo, dnp, cnt, kc)
+        factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc)
         mem[0] = 0.0
     mem[1] = 0.0
     if cnt[C_LUOK] == 1:
         for r in range(n):
             F[r] = p[r] - pprev[r]
-        chord_solve(J, piv, Ji, F, vn, n, cnt)
+        matvec_inplace(Ji, F, vn, n)
         for r in range(n):
             # linear step for the change in p, plus the last sample's
             # nonlinear part of its step (its step less its linear part)
@@ -606,7 +569,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
     nsub = 1
     s = 1
     while True:
-        it = newton(ptmp, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, piv, MAXIT, cnt,
+        it = newton(ptmp, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, MAXIT, cnt,
                     veval, ieval, Ji, Gf, mem, kc)
         good = it >= 0 if nsub > 1 else it > 0
         if good and nsub > 1:
@@ -649,7 +612,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
               Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy,
               dcode, dpo, dnp, dpa, par, dqs,
               uvar, skind, sptr, spar, inp, dt,
-              z, xp, v, i, pprev, ws, G, Gf, J, Ji, piv, yrow, cnt):
+              z, xp, v, i, pprev, ws, G, Gf, J, Ji, yrow, cnt):
     """Run ``nin`` samples of input ``xin`` through the model.
 
     z = [x; varying source values]: the first nx entries are the states, the
@@ -699,7 +662,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
                     s += Pz[r, c] * z[c]
                 p[r] = s
             solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
-                        piv, ptmp, cnt, v2, p2, veval, ieval, Ji, Gf, ws[10], ws[11, :npt], ws[12, :npt])
+                        ptmp, cnt, v2, p2, veval, ieval, Ji, Gf, ws[10], ws[11, :npt], ws[12, :npt])
             for r in range(npt):
                 pprev[r] = p[r]
         take = nprobe > 0 and cnt[C_PHASE] == 0 and frames < pcap

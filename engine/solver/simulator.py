@@ -199,7 +199,6 @@ class Simulator:
         self._J = np.zeros((npt, npt))
         self._Gf = np.zeros((npt, npt))
         self._Ji = np.zeros((npt, npt))
-        self._piv = np.zeros(npt, dtype=np.int64)
         self._yrow = np.zeros(ny)
         self._cnt = np.zeros(K.N_COUNTERS, dtype=np.int64)
         self._nopb = np.zeros((0, 0))
@@ -318,7 +317,7 @@ class Simulator:
                 dcode, dpo, dnp, dpa, par, dqs,
                 m.uvar, self._skind, self._sptr, self._spar, self.net.input_index,
                 self._T, self._z, self._xp, self._v, self._i, self._pprev, self._ws,
-                self._G, self._Gf, self._J, self._Ji, self._piv, self._yrow, self._cnt)
+                self._G, self._Gf, self._J, self._Ji, self._yrow, self._cnt)
 
     def process(self, x, probe_buf: np.ndarray | None = None) -> np.ndarray:
         """Offline convenience: process any length of input; allocates y."""
@@ -348,7 +347,7 @@ class Simulator:
     def stats(self) -> dict:
         """Counters since the last reset: samples (kernel rate), nonconverged,
         fallbacks, max_iterations, mean_iterations, factorizations (Jacobian
-        LU factorisations; chord iterations reuse the last one)."""
+        inversions; chord iterations reuse the last one)."""
         c = self._cnt
         s = int(c[K.C_SAMPLES])
         return {"samples": s, "nonconverged": int(c[K.C_NONCONV]),
