@@ -208,14 +208,21 @@ def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval):
     less than BYPASS_TOL since its last evaluation (veval, ieval) is not
     re-evaluated; its currents are continued linearly with its last Jacobian
     block (error ~ BYPASS_TOL**2/(2*VT), far below the Newton tolerance).
+    Two-port devices (BJT, JFET, op-amp) take straight-line paths: loops
+    with a trip count of 2 cost more in overhead than in arithmetic.
     """
     for d in range(dcode.size):
         po = dpo[d]
         m = dnp[d]
-        far = False
-        for a in range(m):
-            if not abs(v[po + a] - veval[po + a]) < BYPASS_TOL:
-                far = True
+        if m == 2:
+            d0 = v[po] - veval[po]
+            d1 = v[po + 1] - veval[po + 1]
+            far = not (abs(d0) < BYPASS_TOL and abs(d1) < BYPASS_TOL)
+        else:
+            far = False
+            for a in range(m):
+                if not abs(v[po + a] - veval[po + a]) < BYPASS_TOL:
+                    far = True
         if far:
             eval_one(dcode[d], par, dpa[d], v, po, i, G)
             for a in range(m):
@@ -224,6 +231,9 @@ def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval):
                 G[r, r] -= PORT_G0
                 veval[r] = v[r]
                 ieval[r] = i[r]
+        elif m == 2:
+            i[po] = ieval[po] + G[po, po] * d0 + G[po, po + 1] * d1
+            i[po + 1] = ieval[po + 1] + G[po + 1, po] * d0 + G[po + 1, po + 1] * d1
         else:
             for a in range(m):
                 s = ieval[po + a]
@@ -263,10 +273,15 @@ def limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, vo):
     for d in range(dcode.size):
         po = dpo[d]
         q = dqs[d]
-        for a in range(dnp[d]):
-            if not abs(vn[po + a] - vo[po + a]) < q:
+        m = dnp[d]
+        if m == 2:
+            if not (abs(vn[po] - vo[po]) < q and abs(vn[po + 1] - vo[po + 1]) < q):
                 limit_one(dcode[d], par, dpa[d], vn, vo, po)
-                break
+        else:
+            for a in range(m):
+                if not abs(vn[po + a] - vo[po + a]) < q:
+                    limit_one(dcode[d], par, dpa[d], vn, vo, po)
+                    break
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
@@ -371,15 +386,25 @@ def jacobian_drift(G, Gf, dpo, dnp, kc):
     for d in range(dpo.size):
         po = dpo[d]
         m = dnp[d]
-        num = 0.0
-        den = 1.0
-        for a in range(m):
-            w = kc[po + a]
-            for b in range(m):
-                g = G[po + a, po + b]
-                gf = Gf[po + a, po + b]
-                num += w * abs(g - gf)
-                den += w * max(abs(g), abs(gf))
+        if m == 2:
+            g00, g01, g10, g11 = G[po, po], G[po, po + 1], G[po + 1, po], G[po + 1, po + 1]
+            f00, f01, f10, f11 = Gf[po, po], Gf[po, po + 1], Gf[po + 1, po], Gf[po + 1, po + 1]
+            w0 = kc[po]
+            w1 = kc[po + 1]
+            num = (w0 * (abs(g00 - f00) + abs(g01 - f01))
+                   + w1 * (abs(g10 - f10) + abs(g11 - f11)))
+            den = 1.0 + (w0 * (max(abs(g00), abs(f00)) + max(abs(g01), abs(f01)))
+                         + w1 * (max(abs(g10), abs(f10)) + max(abs(g11), abs(f11))))
+        else:
+            num = 0.0
+            den = 1.0
+            for a in range(m):
+                w = kc[po + a]
+                for b in range(m):
+                    g = G[po + a, po + b]
+                    gf = Gf[po + a, po + b]
+                    num += w * abs(g - gf)
+                    den += w * max(abs(g), abs(gf))
         q = num / den
         if q > worst:
             worst = q
@@ -387,13 +412,44 @@ def jacobian_drift(G, Gf, dpo, dnp, kc):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+def gemv_add(A, x, y, nr, nc):
+    """y[:nr] += A[:nr, :nc] @ x[:nc], four rows at a time.
+
+    The model's port and source dimensions are padded to multiples of four
+    (statespace.PAD), so every inner loop runs whole SIMD vectors; four rows
+    per pass share each load of x and one loop's overhead.  For the 12-16
+    port designs this is ~1.6x faster than one row at a time."""
+    r = 0
+    while r + 4 <= nr:
+        s0 = 0.0
+        s1 = 0.0
+        s2 = 0.0
+        s3 = 0.0
+        for c in range(nc):
+            xc = x[c]
+            s0 += A[r, c] * xc
+            s1 += A[r + 1, c] * xc
+            s2 += A[r + 2, c] * xc
+            s3 += A[r + 3, c] * xc
+        y[r] += s0
+        y[r + 1] += s1
+        y[r + 2] += s2
+        y[r + 3] += s3
+        r += 4
+    while r < nr:
+        s = 0.0
+        for c in range(nc):
+            s += A[r, c] * x[c]
+        y[r] += s
+        r += 1
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def matvec_inplace(Ji, F, tmp, n):
     """F <- Ji F (tmp: scratch)."""
     for r in range(n):
-        s = 0.0
-        for c in range(n):
-            s += Ji[r, c] * F[c]
-        tmp[r] = s
+        tmp[r] = 0.0
+    gemv_add(Ji, F, tmp, n, n)
     for r in range(n):
         F[r] = tmp[r]
 
@@ -404,11 +460,17 @@ def _correct_currents(dcode, dpo, dnp, G, dv, i):
     for d in range(dcode.size):
         po = dpo[d]
         m = dnp[d]
-        for a in range(m):
-            s = 0.0
-            for b in range(m):
-                s += G[po + a, po + b] * dv[po + b]
-            i[po + a] += s
+        if m == 2:
+            d0 = dv[po]
+            d1 = dv[po + 1]
+            i[po] += G[po, po] * d0 + G[po, po + 1] * d1
+            i[po + 1] += G[po + 1, po] * d0 + G[po + 1, po + 1] * d1
+        else:
+            for a in range(m):
+                s = 0.0
+                for b in range(m):
+                    s += G[po + a, po + b] * dv[po + b]
+                i[po + a] += s
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
@@ -440,10 +502,8 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, maxit, cnt, 
         for it in range(CHORD_MAX):
             eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
             for r in range(n):
-                s = p[r] - v[r]
-                for c in range(n):
-                    s += K[r, c] * i[c]
-                F[r] = s
+                F[r] = p[r] - v[r]
+            gemv_add(K, i, F, n, n)
             res = 0.0
             for r in range(n):
                 res = max(res, abs(F[r]))
@@ -492,12 +552,10 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, maxit, cnt, 
                 return done
             prev = big
     for it in range(maxit):
-        eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
+        eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
         for r in range(n):
-            s = p[r] - v[r]
-            for c in range(n):
-                s += K[r, c] * i[c]
-            F[r] = s
+            F[r] = p[r] - v[r]
+        gemv_add(K, i, F, n, n)
         if not factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc):
             return -1
         matvec_inplace(Ji, F, vn, n)
@@ -615,25 +673,28 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
               z, xp, v, i, pprev, ws, G, Gf, J, Ji, yrow, cnt):
     """Run ``nin`` samples of input ``xin`` through the model.
 
-    z = [x; varying source values]: the first nx entries are the states, the
-    rest the sources listed in ``uvar`` (the input ``inp``, which takes the
-    samples xin, and waveform sources); constant sources are folded into the
+    z = [x; varying source values; zeros]: the first nx (= xp.size) entries
+    are the states, then the sources listed in ``uvar`` (the input ``inp``,
+    which takes the samples xin, and waveform sources), then zero padding to
+    a multiple of statespace.PAD; the ports are padded likewise (a padded
+    port has zero rows and columns, so it stays at 0 V and 0 A).  Constant
+    sources are folded into the
     offsets p0, x0, y0 (see :func:`engine.solver.statespace.derive`), so
     per sample
         p = p0 + Pz z,  y = y0 + Yz z + Fy i + Vy v,  x' = x0 + Az z + C i.
     yout[k] receives output row 0; every ``pdec`` samples a probe frame (rows
     1.. of y, computed only then) is written into pbuf (if it has rows) at
     columns pstart, pstart+1 ... below ``pcap``.  ws is a
-    (13, max(n_ports, n_states)) workspace: rows 0-5 scratch; rows 6-12
-    persist (v, p two samples back; bypass memory; chord rate memory,
-    refactor flag and error tolerance; column scales of K; the predictor's
-    last linear step).  Returns the number of probe frames
+    (13, max(padded ports, padded states, 3)) workspace: rows 0-5 scratch;
+    rows 6-12 persist (v, p two samples back; bypass memory; chord rate
+    memory, refactor flag and error tolerance; column scales of K; the
+    predictor's last linear step).  Returns the number of probe frames
     written.
     """
-    nz = z.size
+    nz = z.size      # states, varying sources, zero padding
     nv = uvar.size
-    nx = nz - nv
-    npt = v.size
+    nx = xp.size
+    npt = v.size     # ports, zero padding
     ny = yrow.size
     nprobe = pbuf.shape[0]
     p = ws[0, :npt]
@@ -641,7 +702,8 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     F = ws[2, :npt]
     vn = ws[3, :npt]
     ptmp = ws[4, :npt]
-    xt = ws[5, :nx]
+    nxp = x0.size    # states, zero padding (rows of the state update)
+    xt = ws[5, :nxp]
     v2 = ws[6, :npt]
     p2 = ws[7, :npt]
     veval = ws[8, :npt]
@@ -657,10 +719,8 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
                 z[nx + j] = wave_value(skind[s], spar[sptr[s]:sptr[s + 1]], t)
         if npt > 0:
             for r in range(npt):
-                s = p0[r]
-                for c in range(nz):
-                    s += Pz[r, c] * z[c]
-                p[r] = s
+                p[r] = p0[r]
+            gemv_add(Pz, z, p, npt, nz)
             solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
                         ptmp, cnt, v2, p2, veval, ieval, Ji, Gf, ws[10], ws[11, :npt], ws[12, :npt])
             for r in range(npt):
@@ -686,15 +746,13 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
             cnt[C_PHASE] += 1
             if cnt[C_PHASE] >= pdec:
                 cnt[C_PHASE] = 0
+        for r in range(nxp):
+            xt[r] = x0[r]
+        gemv_add(Az, z, xt, nxp, nz)
+        gemv_add(C, i, xt, nxp, npt)
         finite = True
         for r in range(nx):
-            s = x0[r]
-            for c in range(nz):
-                s += Az[r, c] * z[c]
-            for c in range(npt):
-                s += C[r, c] * i[c]
-            xt[r] = s
-            if not math.isfinite(s):
+            if not math.isfinite(xt[r]):
                 finite = False
         if finite:
             for r in range(nx):

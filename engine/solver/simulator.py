@@ -18,7 +18,7 @@ from engine.errors import DesignError
 from engine.solver import kernel as K
 from engine.solver.dcop import OperatingPoint, report, solve_dc
 from engine.solver.mna import VALUE_KINDS, Network, device_arrays, source_wave
-from engine.solver.statespace import Model, ProbeRow, derive
+from engine.solver.statespace import Model, ProbeRow, derive, padded
 
 _PROBE_RE = re.compile(r"^\s*([A-Za-z]+)\s*\(\s*([^,()\s]+)\s*(?:,\s*([^,()\s]+)\s*)?\)\s*$")
 _UNITS = {"v": "V", "i": "A", "ic": "A", "ib": "A", "ie": "A", "id": "A", "ig": "A",
@@ -185,16 +185,19 @@ class Simulator:
         self._spar = np.ascontiguousarray(np.concatenate(spars) if spars else np.zeros(0))
         self._model: Model = derive(net, self._values, self._T, rows)
         self._next: Model = self._model
-        nx, npt, nu, ny = net.nx, net.np_, net.nu, len(rows)
-        # kernel vector z = [x; varying sources]; self._x is a view of its head
-        self._z = np.zeros(nx + self._model.uvar.size)
+        nx, nu, ny = net.nx, net.nu, len(rows)
+        # kernel vector z = [x; varying sources; padding]; self._x is a view
+        # of its head.  The kernel's port vectors are padded too (their
+        # first net.np_ entries are the device ports).
+        self._z = np.zeros(padded(nx + self._model.uvar.size))
         self._x = self._z[:nx]
         self._xp = np.zeros(nx)
+        npt = padded(net.np_)
         self._v = np.zeros(npt)
         self._i = np.zeros(npt)
         self._pprev = np.zeros(npt)
         self._u = np.zeros(nu)
-        self._ws = np.zeros((13, max(npt, nx, 3)))
+        self._ws = np.zeros((13, max(npt, padded(nx), 3)))
         self._G = np.zeros((npt, npt))
         self._J = np.zeros((npt, npt))
         self._Gf = np.zeros((npt, npt))
@@ -225,11 +228,12 @@ class Simulator:
         r = net.state_read_rows() @ dc.w
         self._x[:] = m.g * r  # capacitor: Gc*v with zero current; inductor: RL*i
         self._xp[:] = self._x
-        self._v[:] = dc.v
-        self._i[:] = dc.i - K.PORT_G0 * dc.v
-        self._pprev[:] = m.Dv @ self._x + m.Ev @ m.udc
+        n = net.np_
+        self._v[:n] = dc.v
+        self._i[:n] = dc.i - K.PORT_G0 * dc.v
+        self._pprev[:n] = m.Dv @ self._x + m.Ev @ m.udc
         self._ws[6, :net.np_] = dc.v
-        self._ws[7, :net.np_] = self._pprev
+        self._ws[7, :self._pprev.size] = self._pprev
         self._ws[8, :] = 1e300  # bypass memory: force a first evaluation
         self._ws[9, :] = 0.0
         self._ws[10, :] = 0.0  # chord rate memory, refactor flag, tolerance
@@ -238,7 +242,7 @@ class Simulator:
         self._ws[12, :] = 0.0  # predictor's last linear step
         self._cnt[:] = 0
         self._model = m
-        self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i
+        self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i[:n]
                           + m.Vy[0] @ dc.v)
         self._rs.reset()
 
@@ -313,7 +317,7 @@ class Simulator:
 
     def _args(self, m: Model):
         dcode, dpo, dnp, dpa, par, dqs = self._arr
-        return (m.Pz, m.p0, m.Az, m.x0, m.C, m.K, m.Yz, m.y0, m.Fy, m.Vy,
+        return (m.Pz, m.p0, m.Az, m.x0, m.Ck, m.Kk, m.Yz, m.y0, m.Fyk, m.Vyk,
                 dcode, dpo, dnp, dpa, par, dqs,
                 m.uvar, self._skind, self._sptr, self._spar, self.net.input_index,
                 self._T, self._z, self._xp, self._v, self._i, self._pprev, self._ws,

@@ -50,18 +50,46 @@ class Model:
     b: np.ndarray
     udc: np.ndarray
     values: dict
-    # kernel form: z = [x; u[uvar]] with the constant sources folded in
-    Pz: np.ndarray = None   # [Dv Ev[:, uvar]]
+    # kernel form: z = [x; u[uvar]; 0...] with the constant sources folded
+    # in; z, the ports and the state update's rows are zero-padded to
+    # multiples of PAD
+    Pz: np.ndarray = None   # [Dv Ev[:, uvar]]          (ports x z, padded)
     p0: np.ndarray = None   # Ev ud  (ud: udc with the waveform sources zeroed)
-    Az: np.ndarray = None   # [A B[:, uvar]]
+    Az: np.ndarray = None   # [A B[:, uvar]]            (states x z, padded)
     x0: np.ndarray = None   # B ud
-    Yz: np.ndarray = None   # [Dy Ey[:, uvar]]
+    Yz: np.ndarray = None   # [Dy Ey[:, uvar]]          (probes x z, padded)
     y0: np.ndarray = None   # Ey ud
     uvar: np.ndarray = None  # varying sources: the input, then waveform sources
+    Kk: np.ndarray = None   # K, C, Fy, Vy with the port dimension padded
+    Ck: np.ndarray = None
+    Fyk: np.ndarray = None
+    Vyk: np.ndarray = None
+
+
+#: The kernel's port and z dimensions are zero-padded to multiples of this,
+#: so its matrix-vector loops run whole SIMD vectors (kernel.gemv_add).
+PAD = 4
+
+
+def padded(n: int) -> int:
+    """n rounded up to a multiple of PAD."""
+    return -(-n // PAD) * PAD
 
 
 def _c(a):
     return np.ascontiguousarray(a, dtype=np.float64)
+
+
+def _pad(a, rows: int | None = None, cols: int | None = None):
+    """a zero-padded to (rows, cols) (None: unchanged), C-contiguous."""
+    a = np.asarray(a, dtype=np.float64)
+    if a.ndim == 1:
+        out = np.zeros(rows)
+        out[:a.shape[0]] = a
+        return out
+    out = np.zeros((a.shape[0] if rows is None else rows, a.shape[1] if cols is None else cols))
+    out[:a.shape[0], :a.shape[1]] = a
+    return out
 
 
 def solve_mna(net: Network, S: np.ndarray, rhs: np.ndarray, what: str) -> np.ndarray:
@@ -123,9 +151,13 @@ def derive(net: Network, values: dict[str, float], T: float,
     uvar = ([net.input_index] if net.input_index >= 0 else []) + wave
     ud = udc.copy()
     ud[wave] = 0.0
-    return Model(_c(A), _c(Bm), _c(Cm), _c(Dv), _c(Ev), _c(P @ Mn),
+    K = P @ Mn
+    nzp, npp, nxp = padded(nx + len(uvar)), padded(npt), padded(nx)
+    return Model(_c(A), _c(Bm), _c(Cm), _c(Dv), _c(Ev), _c(K),
                  _c(Dy), _c(Ey), _c(Fy), _c(Vy), _c(g), _c(a), _c(b), _c(udc), dict(values),
-                 Pz=_c(np.hstack([Dv, Ev[:, uvar]])), p0=_c(Ev @ ud),
-                 Az=_c(np.hstack([A, Bm[:, uvar]])), x0=_c(Bm @ ud),
-                 Yz=_c(np.hstack([Dy, Ey[:, uvar]])), y0=_c(Ey @ ud),
-                 uvar=np.array(uvar, dtype=np.int64))
+                 Pz=_pad(np.hstack([Dv, Ev[:, uvar]]), npp, nzp), p0=_pad(Ev @ ud, npp),
+                 Az=_pad(np.hstack([A, Bm[:, uvar]]), nxp, nzp), x0=_pad(Bm @ ud, nxp),
+                 Yz=_pad(np.hstack([Dy, Ey[:, uvar]]), None, nzp), y0=_c(Ey @ ud),
+                 uvar=np.array(uvar, dtype=np.int64),
+                 Kk=_pad(K, npp, npp), Ck=_pad(Cm, nxp, npp), Fyk=_pad(Fy, None, npp),
+                 Vyk=_pad(Vy, None, npp))
