@@ -313,17 +313,17 @@ def gj_inverse(J, Ji, n):
                 Ji[k, c] = Ji[m, c]
                 Ji[m, c] = t
         inv = 1.0 / J[k, k]
-        for c in range(k, n):
-            J[k, c] *= inv
         for c in range(n):
+            J[k, c] *= inv
             Ji[k, c] *= inv
         for r in range(n):
             f = J[r, k]
             if r != k and f != 0.0:
-                # columns left of k are zero in rows k and r already
-                for c in range(k, n):
-                    J[r, c] -= f * J[k, c]
+                # whole rows in one loop (n is padded to a multiple of 4);
+                # the columns left of k are (to rounding) zero in rows k and
+                # r already
                 for c in range(n):
+                    J[r, c] -= f * J[k, c]
                     Ji[r, c] -= f * Ji[k, c]
     return True
 
