@@ -199,7 +199,7 @@ class Simulator:
         self._u = np.zeros(nu)
         self._ws = np.zeros((13, max(npt, padded(nx), 3)))
         self._G = np.zeros((npt, npt))
-        self._J = np.zeros((npt, npt))
+        self._J = np.zeros((npt + 1, 2 * npt))  # [J | I] and a pivot row
         self._Gf = np.zeros((npt, npt))
         self._Ji = np.zeros((npt, npt))
         self._yrow = np.zeros(ny)
