@@ -597,12 +597,6 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
     n = p.size
     for r in range(n):
         vprev[r] = v[r]
-    if cnt[C_LUOK] == 1 and mem[1] != 0.0:
-        # the last sample's chord iterations contracted slowly: refactor at
-        # its converged point before predicting this one
-        factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc)
-        mem[0] = 0.0
-    mem[1] = 0.0
     if cnt[C_LUOK] == 1:
         for r in range(n):
             F[r] = p[r] - pprev[r]
@@ -615,6 +609,15 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
         limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
         for r in range(n):
             v[r] = vn[r]
+        if mem[1] != 0.0:
+            # the last sample's chord iterations contracted slowly: refactor
+            # at this sample's predicted point (closer to its solution than
+            # the last one's; the chord loop's first evaluation is then a
+            # bypass)
+            eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
+            factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc)
+            mem[0] = 0.0
+    mem[1] = 0.0
     for r in range(n):
         v2[r] = vprev[r]
         p2[r] = pprev[r]
