@@ -178,3 +178,29 @@ def test_bad_set_values_keeps_state():
         sim.set_values({"Q7": 1.0})
     assert sim.values["R1"] == 10e3
     assert isinstance(DesignError("x"), SolderlessError)
+
+
+def test_tolerance_option_bounds_the_error():
+    """The per-sample tolerance (default: SPICE's VNTOL, 1 uV; ngspice manual,
+    .options) is an error bound on the port voltages: a hard-driven
+    transistor stage run at the default stays within -80 dB (RMS) of the same
+    run at 1e-11 V, which takes more iterations.  Self-convergence check: the
+    reference is the same model solved to rounding."""
+    t = np.arange(int(0.05 * FS)) / FS
+    x = 0.3 * np.sin(2 * np.pi * 440.0 * t) * np.minimum(1.0, t / 0.005)
+    runs = {}
+    for tol in (None, 1e-11):
+        sim = Simulator(ce_amp(), FS, tolerance=tol)
+        runs[tol] = (sim.process(x), sim.stats["mean_iterations"])
+    y, it = runs[None]
+    ref, it_ref = runs[1e-11]
+    ac = ref - ref.mean()
+    err = np.sqrt(np.mean((y - ref) ** 2)) / np.sqrt(np.mean(ac ** 2))
+    assert err < 1e-4
+    assert it_ref > it
+
+
+@pytest.mark.parametrize("bad", [0.0, -1e-6, float("nan")])
+def test_tolerance_must_be_positive(bad):
+    with pytest.raises(DesignError, match="tolerance"):
+        Simulator(rc(), FS, tolerance=bad)
