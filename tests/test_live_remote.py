@@ -27,6 +27,10 @@ def test_host_process_streams_takes_edits_and_reports_meters(null_home):
         s0 = hp.state()
         assert s0["running"] and s0["error"] is None
         m = hp.meters()          # read here from the child's shared-memory ring
+        t_end = time.monotonic() + 60    # the first metered block may still be on its way
+        while m["blocks"] == 0 and time.monotonic() < t_end:
+            time.sleep(0.01)
+            m = hp.meters()
         # sampled 440 Hz sine: the largest sample is within 1 - cos(pi f / fs)
         # = 4.3e-4 of the crest (a sample falls within half a sample step of it)
         assert m["input"]["peak_v"] == pytest.approx(0.1, rel=4.3e-4)
