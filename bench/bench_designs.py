@@ -112,13 +112,29 @@ def compression_figures(name: str, x: np.ndarray) -> dict:
             "gr_hard_db": deepest(HARD_NOTES), "gr_max_db": float(-gr.min())}
 
 
+def cpu_times() -> tuple[int, int] | None:
+    """(busy, steal) jiffies of all CPUs from /proc/stat (Linux), else None.
+    Steal is time the hypervisor gave to other guests: on a shared virtual
+    machine it is why runs of the same code differ."""
+    try:
+        f = [int(v) for v in Path("/proc/stat").read_text().split("\n")[0].split()[1:]]
+    except (OSError, ValueError, IndexError):
+        return None
+    return sum(f[:3]) + sum(f[5:7]), f[7] if len(f) > 7 else 0
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=3, help="timed runs per design (best kept)")
     ap.add_argument("--designs", nargs="*", default=None, help="names (default: all built-in)")
     args = ap.parse_args(argv)
     x = render_phrase("demo", fs=FS)
+    c0 = cpu_times()
     rows = [bench_one(n, x, args.repeat) for n in (args.designs or sorted(builtin_designs()))]
+    c1 = cpu_times()
+    steal = None
+    if c0 and c1 and (c1[0] - c0[0]) + (c1[1] - c0[1]) > 0:
+        steal = (c1[1] - c0[1]) / ((c1[0] - c0[0]) + (c1[1] - c0[1]))
     hdr = (f"{'design':<26}{'os':>3}{'BJT':>4}{'dev':>4}{'st':>4}{'pt':>4}"
            f"{'x RT':>8}{'target':>8}{'nonconv':>8}  operating point")
     print(hdr)
@@ -141,11 +157,14 @@ def main(argv=None) -> int:
     load = os.getloadavg() if hasattr(os, "getloadavg") else None
     result = {"fs": FS, "phrase_s": x.size / FS, "block": BLOCK, "target_realtime": TARGET_RT,
               "repeat": args.repeat, "machine": platform.machine(), "python": platform.python_version(),
-              "cpus": os.cpu_count(), "loadavg_at_end": load, "designs": rows}
+              "cpus": os.cpu_count(), "loadavg_at_end": load,
+              "cpu_steal_fraction": steal, "designs": rows}
     out = ROOT / "bench" / "results"
     out.mkdir(parents=True, exist_ok=True)
     (out / "designs.json").write_text(json.dumps(result, indent=2, default=float))
-    print(f"\nwrote {out / 'designs.json'} (load average {load})")
+    st = "n/a" if steal is None else f"{100 * steal:.1f} %"
+    print(f"\nwrote {out / 'designs.json'} (load average {load}; CPU time stolen by the "
+          f"hypervisor during the timing: {st})")
     return 0
 
 
