@@ -747,37 +747,38 @@ class LiveHost:
         return i, self.voices[i]
 
     # ------------------------------------------------------------ edits (any thread)
-    def set_value(self, part: str, value: float, voice=None) -> Future:
-        """Change a part's value (re-derive, lands at a block boundary)."""
+    def _post_part_edit(self, voice, edit) -> Future:
+        """Post an edit: ``edit(voice)`` (on the edit worker) changes the
+        voice's design and returns (element changes, result); the changes
+        land at a block boundary with the state carried over."""
         t_post = time.perf_counter()
 
         def job():
             i, v = self._voice(voice)
-            changes = v.design.set_value(part, value)
+            changes, result = edit(v)
             self._apply(v, changes, t_post)
             self._after_edit(i)
-            return value
+            return result
         return self._post(job)
+
+    def set_value(self, part: str, value: float, voice=None) -> Future:
+        """Change a part's value (re-derive, lands at a block boundary)."""
+        return self._post_part_edit(voice, lambda v: (v.design.set_value(part, value), value))
 
     def step_value(self, part: str, steps: int = 1, series: str | None = None,
                    voice=None) -> Future:
         """Step a part's value ``steps`` places through an E-series (IEC
         60063; default E24, or E12 for capacitors). Result: the new value."""
         from engine.values import step_preferred
-        t_post = time.perf_counter()
 
-        def job():
-            i, v = self._voice(voice)
+        def edit(v):
             info = self.part_info(part, voice)
             if info.value is None or not info.value > 0:
                 raise DesignError("this part has no positive value to step", part=part)
             ser = series or ("E12" if info.type == "capacitor" else "E24")
             new = step_preferred(info.value, ser, steps)
-            changes = v.design.set_value(part, new)
-            self._apply(v, changes, t_post)
-            self._after_edit(i)
-            return new
-        return self._post(job)
+            return v.design.set_value(part, new), new
+        return self._post_part_edit(voice, edit)
 
     def set_rotation(self, pot: str, rotation: float, voice=None,
                      ramp_s: float = 0.030) -> Future:
@@ -842,15 +843,10 @@ class LiveHost:
         of (rotation, fraction) points, as :meth:`Design.set_taper` takes);
         the new element values land at a block boundary with the state
         carried over. Result: the taper as stored."""
-        t_post = time.perf_counter()
-
-        def job():
-            i, v = self._voice(voice)
+        def edit(v):
             changes = v.design.set_taper(pot, taper)
-            self._apply(v, changes, t_post)
-            self._after_edit(i)
-            return v.design.part(pot).taper
-        return self._post(job)
+            return changes, v.design.part(pot).taper
+        return self._post_part_edit(voice, edit)
 
     def set_bypass(self, stage: str, on: bool, voice=None) -> Future:
         """Bypass a stage (or bring it back): rebuild the simulator and swap it

@@ -36,7 +36,7 @@ type's evaluate/limit is compiled once into one dispatch function (eval_one,
 limit_one: one real call per device), and the Jacobian inverse (a few per
 cent of samples), the full-Newton fallback's steps and the padded
 matrix-vector product (gemv_add) are real calls.  Cold start (empty cache)
-to the first block: ~25 s.
+to the first block: ~20 s.
 
 Everything here runs on the audio thread: no allocation, ``nogil=True``,
 ``cache=True``.
@@ -420,7 +420,7 @@ def gemv_add(A, x, y, nr, nc):
     per pass share each load of x and one loop's overhead.  For the 12-16
     port designs this is ~1.6x faster than one row at a time.  A real call
     (not inlined): it costs ~2 % more instructions per sample than inlined
-    copies at its six call sites, and saves ~4 s of cold compile time."""
+    copies at its call sites, and saves ~4 s of cold compile time."""
     r = 0
     while r + 4 <= nr:
         s0 = 0.0
@@ -601,7 +601,7 @@ def eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval):
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
-                ptmp, cnt, v2, p2, veval, ieval, Ji, Gf, mem, kc, lprev):
+                ptmp, cnt, v2, veval, ieval, Ji, Gf, mem, kc, lprev):
     """Newton with bounded fallback; never leaves non-finite values in v, i.
 
     Predictor: the previous solution plus a chord step with the previous
@@ -610,7 +610,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
     its own linear part lprev), which the signal's smoothness makes a good
     guess of this one's: on the built-in designs this leaves 10-25 % fewer
     iterations than the linear step alone.
-    v2, p2 keep the solution and p two samples back.
+    v2 keeps the solution two samples back.
     """
     n = p.size
     for r in range(n):
@@ -638,7 +638,6 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
     mem[1] = 0.0
     for r in range(n):
         v2[r] = vprev[r]
-        p2[r] = pprev[r]
         ptmp[r] = p[r]
     # One call site of the (inlined) Newton solver serves the direct solve
     # and the fallback: continuation in p from the previous sample, in 4
@@ -704,10 +703,10 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     yout[k] receives output row 0; every ``pdec`` samples a probe frame (rows
     1.. of y, computed only then) is written into pbuf (if it has rows) at
     columns pstart, pstart+1 ... below ``pcap``.  ws is a
-    (13, max(padded ports, padded states, 3)) workspace: rows 0-5 scratch;
-    rows 6-12 persist (v, p two samples back; bypass memory; chord rate
-    memory, refactor flag and error tolerance; column scales of K; the
-    predictor's last linear step).  Returns the number of probe frames
+    (12, max(padded ports, padded states, 3)) workspace: rows 0-5 scratch;
+    rows 6-11 persist (v two samples back; the predictor's last linear step;
+    bypass memory (2 rows); chord rate memory, refactor flag and error
+    tolerance; column scales of K).  Returns the number of probe frames
     written.
     """
     nz = z.size      # states, varying sources, zero padding
@@ -724,7 +723,6 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     nxp = x0.size    # states, zero padding (rows of the state update)
     xt = ws[5, :nxp]
     v2 = ws[6, :npt]
-    p2 = ws[7, :npt]
     veval = ws[8, :npt]
     ieval = ws[9, :npt]
     frames = pstart
@@ -741,7 +739,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
                 p[r] = p0[r]
             gemv_add(Pz, z, p, npt, nz)
             solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
-                        ptmp, cnt, v2, p2, veval, ieval, Ji, Gf, ws[10], ws[11, :npt], ws[12, :npt])
+                        ptmp, cnt, v2, veval, ieval, Ji, Gf, ws[10], ws[11, :npt], ws[7, :npt])
             for r in range(npt):
                 pprev[r] = p[r]
         take = nprobe > 0 and cnt[C_PHASE] == 0 and frames < pcap

@@ -197,7 +197,7 @@ class Simulator:
         self._i = np.zeros(npt)
         self._pprev = np.zeros(npt)
         self._u = np.zeros(nu)
-        self._ws = np.zeros((13, max(npt, padded(nx), 3)))
+        self._ws = np.zeros((12, max(npt, padded(nx), 3)))
         self._G = np.zeros((npt, npt))
         self._J = np.zeros((npt + 1, 2 * npt))  # [J | I] and a pivot row
         self._Gf = np.zeros((npt, npt))
@@ -233,13 +233,12 @@ class Simulator:
         self._i[:n] = dc.i - K.PORT_G0 * dc.v
         self._pprev[:n] = m.Dv @ self._x + m.Ev @ m.udc
         self._ws[6, :net.np_] = dc.v
-        self._ws[7, :self._pprev.size] = self._pprev
+        self._ws[7, :] = 0.0  # predictor's last linear step
         self._ws[8, :] = 1e300  # bypass memory: force a first evaluation
         self._ws[9, :] = 0.0
         self._ws[10, :] = 0.0  # chord rate memory, refactor flag, tolerance
         self._ws[10, 2] = self.tolerance
         self._ws[11, :] = 0.0  # column scales of K (set at factorisation)
-        self._ws[12, :] = 0.0  # predictor's last linear step
         self._cnt[:] = 0
         self._model = m
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i[:n]
