@@ -18,8 +18,9 @@ chord iterations with the inverse of an earlier Jacobian (formed by
 Gauss-Jordan elimination, so every step is one matrix-vector product) with
 the stopping rule of Hairer & Wanner (error left <= th/(1-th)*|step|, th the
 measured contraction rate), refactors before the next sample when the rate
-was poor, and falls through to full Newton-Raphson (fresh Jacobian, pnjlim
-limiting) when the rate exceeds 1/4.  Devices whose
+was poor, and falls through to Newton-Raphson (pnjlim limiting; a fresh
+Jacobian whenever the steps stop contracting fast, else the last one's
+inverse is kept) when the rate exceeds 1/4.  Devices whose
 port voltages moved less than BYPASS_TOL are not re-evaluated (SPICE's
 bypass).  Newton failures fall back to continuation in p from the previous
 sample in sub-steps (4, then 16); if that fails too the previous port
@@ -119,6 +120,10 @@ DRIFT_MAX = 0.5
 #: Largest residual |p + K i(v) - v| (volts) at which a chord step may be
 #: accepted (guards the same failure from far outside the Jacobian's range).
 RES_SANE = 1e-3
+#: After a Newton step no larger than this (volts) the next step of the
+#: Newton fallback reuses its Jacobian's inverse: a junction's conductance
+#: moves by exp(3 mV/VT) - 1, about 12 %, over such a step.
+REUSE_STEP = 3e-3
 #: Steps below this (volts) are rounding noise: converged, and no rate is
 #: measured from them.
 STEP_FLOOR = 1e-11
@@ -572,24 +577,59 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, maxit, cnt, 
                 _correct_currents(dcode, dpo, dnp, G, F, i)
                 return done
             prev = big
+    # Newton-Raphson, keeping a fresh Jacobian's inverse for the following
+    # steps while they contract fast (rate below THETA_MAX, measured from
+    # successive steps as in the chord loop) and refactoring when they do not
+    # (Shamanskii's modification of Newton's method; Kelley, Iterative Methods
+    # for Linear and Nonlinear Equations, SIAM 1995, sec. 5.4.3).  A step
+    # right after a refactorisation is a Newton step and stops on ABSTOL
+    # (error ~ step**2/(2*VT)); a step with older factors stops on the
+    # error estimate th/(1-th)*|step| <= tolerance, as the chord loop does.
+    fresh = True
+    prev = 0.0
+    th = 0.0
     for it in range(maxit):
         eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
         residual_outlined(p, v, K, i, F, n)
-        if not factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc):
-            return -1
+        res = 0.0
+        for r in range(n):
+            res = max(res, abs(F[r]))
+        if fresh:
+            if not factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc):
+                return -1
         step_outlined(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs)
-        conv = True
+        big = 0.0
         for r in range(n):
             d = vn[r] - v[r]
-            if not abs(d) <= ABSTOL + RELTOL * abs(vn[r]):
-                conv = False
+            if abs(d) > big:
+                big = abs(d)
             F[r] = d
+        conv = True
+        if fresh:
+            for r in range(n):
+                if not abs(F[r]) <= ABSTOL + RELTOL * abs(vn[r]):
+                    conv = False
+        elif big > STEP_FLOOR:
+            th = big / prev if prev > 0.0 else 1.0
+            if th < THETA_MAX:
+                eta = th / (1.0 - th)
+                conv = res <= RES_SANE
+                for r in range(n):
+                    if not eta * abs(F[r]) <= mem[2] + RELTOL * abs(vn[r]):
+                        conv = False
+            else:
+                conv = False
+        for r in range(n):
             v[r] = vn[r]
         if conv:
-            mem[0] = 0.0  # fresh factors: the rate is unknown (floored)
+            mem[0] = 0.0 if fresh else th
             mem[1] = 0.0
             _correct_currents(dcode, dpo, dnp, G, F, i)
             return done + it + 1
+        # keep the factors after a Newton step small enough that the
+        # Jacobian barely moved, or a chord step that contracted fast
+        fresh = not (big <= REUSE_STEP if fresh else th < THETA_MAX)
+        prev = big
     return -1
 
 
