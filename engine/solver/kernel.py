@@ -215,8 +215,9 @@ def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval):
     less than BYPASS_TOL since its last evaluation (veval, ieval) is not
     re-evaluated; its currents are continued linearly with its last Jacobian
     block (error ~ BYPASS_TOL**2/(2*VT), far below the Newton tolerance).
-    Two-port devices (BJT, JFET, op-amp) take straight-line paths: loops
-    with a trip count of 2 cost more in overhead than in arithmetic.
+    One- and two-port devices (diode; BJT, JFET, op-amp) take straight-line
+    paths: loops with a trip count of 1 or 2 cost more in overhead than in
+    arithmetic.
     """
     for d in range(dcode.size):
         po = dpo[d]
@@ -225,6 +226,9 @@ def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval):
             d0 = v[po] - veval[po]
             d1 = v[po + 1] - veval[po + 1]
             far = not (abs(d0) < BYPASS_TOL and abs(d1) < BYPASS_TOL)
+        elif m == 1:
+            d0 = v[po] - veval[po]
+            far = not abs(d0) < BYPASS_TOL
         else:
             far = False
             for a in range(m):
@@ -241,6 +245,8 @@ def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval):
         elif m == 2:
             i[po] = ieval[po] + G[po, po] * d0 + G[po, po + 1] * d1
             i[po + 1] = ieval[po + 1] + G[po + 1, po] * d0 + G[po + 1, po + 1] * d1
+        elif m == 1:
+            i[po] = ieval[po] + G[po, po] * d0
         else:
             for a in range(m):
                 s = ieval[po + a]
@@ -283,6 +289,9 @@ def limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, vo):
         m = dnp[d]
         if m == 2:
             if not (abs(vn[po] - vo[po]) < q and abs(vn[po + 1] - vo[po + 1]) < q):
+                limit_one(dcode[d], par, dpa[d], vn, vo, po)
+        elif m == 1:
+            if not abs(vn[po] - vo[po]) < q:
                 limit_one(dcode[d], par, dpa[d], vn, vo, po)
         else:
             for a in range(m):
@@ -400,6 +409,10 @@ def jacobian_drift(G, Gf, dpo, dnp, kc):
                    + w1 * (abs(g10 - f10) + abs(g11 - f11)))
             den = 1.0 + (w0 * (max(abs(g00), abs(f00)) + max(abs(g01), abs(f01)))
                          + w1 * (max(abs(g10), abs(f10)) + max(abs(g11), abs(f11))))
+        elif m == 1:
+            g00, f00, w0 = G[po, po], Gf[po, po], kc[po]
+            num = w0 * abs(g00 - f00)
+            den = 1.0 + w0 * max(abs(g00), abs(f00))
         else:
             num = 0.0
             den = 1.0
@@ -491,6 +504,8 @@ def _correct_currents(dcode, dpo, dnp, G, dv, i):
             d1 = dv[po + 1]
             i[po] += G[po, po] * d0 + G[po, po + 1] * d1
             i[po + 1] += G[po + 1, po] * d0 + G[po + 1, po + 1] * d1
+        elif m == 1:
+            i[po] += G[po, po] * dv[po]
         else:
             for a in range(m):
                 s = 0.0
