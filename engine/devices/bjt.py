@@ -18,8 +18,7 @@ import numpy as np
 from numba import njit
 
 from engine.devices._common import (GMIN, VT, DeviceLayout, junction, limit_two_junctions,
-                                    polarity,
-                                    read_params, vcrit)
+                                    polarity, read_params, vcrit)
 
 KIND = "Q"
 CODE = 2

@@ -34,10 +34,10 @@ cost ~100 ns, more than a 2-port Newton step itself.  numba's IR-level
 inlining is slow to compile, so it is used sparingly: newton has a single
 call site (the fallback's continuation sub-steps reuse it), each device
 type's evaluate/limit is compiled once into one dispatch function (eval_one,
-limit_one: one real call per device), and the Jacobian inverse (a few per
-cent of samples), the full-Newton fallback's steps and the padded
-matrix-vector product (gemv_add) are real calls.  Cold start (empty cache)
-to the first block: ~20 s.
+limit_one: one real call per device), and the Jacobian inverse and the
+refactoring Newton phase (newton_refactoring; both on a few per cent of
+samples) and the padded matrix-vector product (gemv_add) are real calls.
+Cold start (empty cache) to the first block: ~20-22 s.
 
 Everything here runs on the audio thread: no allocation, ``nogil=True``,
 ``cache=True``.
@@ -109,7 +109,7 @@ CHORD_MAX = 6
 ERR_TOL = 1e-6  # V
 #: Floor of the rate assumed on the first chord step of a sample.
 THETA_MIN = 0.01
-#: Rates above this fall through to full Newton.
+#: Rates above this fall through to Newton with refactoring (newton_refactoring).
 THETA_MAX = 0.25
 #: After a sample whose measured rate exceeded this, the Jacobian is
 #: refactored at its solution before the next sample.
@@ -341,10 +341,9 @@ def gj_inverse(A, Ji, n):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc):
+def factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt):
     """Ji = (I - K G)^-1 (G block diagonal by device; J is the (n+1) x 2n
-    scratch of :func:`gj_inverse`); G is remembered in Gf and the column
-    scales kc[c] = max |K[:, c]| are refreshed (both for
+    scratch of :func:`gj_inverse`); G is remembered in Gf (for
     :func:`jacobian_drift`).  Sets cnt[C_LUOK] (1: Ji is valid) and returns
     it as a bool."""
     n = Ji.shape[0]
@@ -353,11 +352,6 @@ def factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc):
             J[r, c] = 0.0
         J[r, r] = 1.0
         J[r, n + r] = 1.0
-    for c in range(n):
-        kc[c] = 0.0
-    for r in range(n):
-        for c in range(n):
-            kc[c] = max(kc[c], abs(K[r, c]))
     for d in range(dcode.size):
         po = dpo[d]
         m = dnp[d]
@@ -377,11 +371,11 @@ def factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
-def factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc):
+def factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt):
     """:func:`factor_jacobian` as a real call: it runs on a few per cent of
     samples, and keeping its loops out of run_block keeps that function
     small (fewer registers spilled in the per-sample path)."""
-    return factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc)
+    return factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
@@ -391,7 +385,7 @@ def jacobian_drift(G, Gf, dpo, dnp, kc):
 
         sum |K[:,a]| |G - Gf|_ab  /  (1 + sum |K[:,a]| max(|G|, |Gf|)_ab)
 
-    (kc[a] = max |K[:, a]|; 0 ... 1).  A device whose currents barely load
+    (kc[a] = max |K[:, a]|, the model's column scales; 0 ... 1).  A device whose currents barely load
     the network (a junction in cut-off) scores ~0 however its conductances
     change relative to each other; one that switches between conduction and
     cut-off, or whose conductances change by a large fraction, scores near
@@ -464,23 +458,43 @@ def gemv_add(A, x, y, nr, nc):
         r += 1
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
-def residual_outlined(p, v, K, i, F, n):
-    """F = p - v + K i as a real call (the Newton fallback; inlined copies
-    of the matrix-vector loops cost compile time)."""
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+def residual(p, v, K, i, F, n):
+    """F = p - v + K i (the residual at v); returns max |F|."""
     for r in range(n):
         F[r] = p[r] - v[r]
     gemv_add(K, i, F, n, n)
+    res = 0.0
+    for r in range(n):
+        res = max(res, abs(F[r]))
+    return res
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
-def step_outlined(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs):
-    """vn = v + Ji F, junction-limited; F <- Ji F.  Real call (the Newton
-    fallback)."""
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+def take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs):
+    """vn = v + Ji F, junction-limited; then F <- vn - v, the step taken.
+    Returns its largest entry, max |vn - v|."""
     matvec_inplace(Ji, F, vn, n)
     for r in range(n):
         vn[r] = v[r] + F[r]
     limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
+    big = 0.0
+    for r in range(n):
+        d = vn[r] - v[r]
+        if abs(d) > big:
+            big = abs(d)
+        F[r] = d
+    return big
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+def within(F, vn, n, eta, tol):
+    """True when every eta*|F[r]| <= tol + RELTOL*|vn[r]| (F: the step just
+    taken, vn: the new iterate; eta scales the step to the error estimate)."""
+    for r in range(n):
+        if not eta * abs(F[r]) <= tol + RELTOL * abs(vn[r]):
+            return False
+    return True
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
@@ -520,11 +534,12 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, maxit, cnt, 
     """Solve v = p + K i(v) for v (in place, warm start = v on entry).
 
     First up to CHORD_MAX chord iterations with the last inverse (if any),
-    then Newton-Raphson with a fresh Jacobian each iteration.  Returns the
+    then Newton-Raphson that refactors whenever its steps stop contracting
+    fast.  Returns the
     number of iterations, or -1 if not converged within maxit.  On success
     ``i`` holds the port currents at the returned v (first-order corrected
     for the last step).  mem: [last measured chord rate, refactor flag,
-    error tolerance in volts]; kc: column scales of K.
+    error tolerance in volts]; kc: the model's column scales of K.
     """
     n = p.size
     done = 0
@@ -535,29 +550,15 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, maxit, cnt, 
         # contraction rate th, the error left after a step d is at most
         # th/(1-th)*|d|.  th is measured from successive steps; on the first
         # step it is the last measured one, floored at THETA_MIN.  Fall
-        # through to full Newton when the rate exceeds THETA_MAX.
+        # through to Newton with refactoring when the rate exceeds THETA_MAX.
         th = mem[0]
         if not th >= THETA_MIN:
             th = THETA_MIN
         prev = 0.0
         for it in range(CHORD_MAX):
             eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
-            for r in range(n):
-                F[r] = p[r] - v[r]
-            gemv_add(K, i, F, n, n)
-            res = 0.0
-            for r in range(n):
-                res = max(res, abs(F[r]))
-            matvec_inplace(Ji, F, vn, n)
-            for r in range(n):
-                vn[r] = v[r] + F[r]
-            limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
-            big = 0.0
-            for r in range(n):
-                d = vn[r] - v[r]
-                if abs(d) > big:
-                    big = abs(d)
-                F[r] = d
+            res = residual(p, v, K, i, F, n)
+            big = take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs)
             tiny = big <= STEP_FLOOR
             if it > 0 and not tiny:
                 th = big / prev if prev > 0.0 else 0.0
@@ -567,14 +568,9 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, maxit, cnt, 
                     done += 1
                     mem[1] = 1.0  # refactor before the next sample
                     break
-            eta = th / (1.0 - th)
-            etol = mem[2]
             # a stale Jacobian far stiffer than the true one makes tiny steps
             # from a large residual: never trust those
-            conv = res <= RES_SANE
-            for r in range(n):
-                if not (tiny or eta * abs(F[r]) <= etol + RELTOL * abs(vn[r])):
-                    conv = False
+            conv = res <= RES_SANE and (tiny or within(F, vn, n, th / (1.0 - th), mem[2]))
             if conv and it == 0:
                 # a step from factors of a very different Jacobian (e.g. a
                 # junction that was in hard conduction and is now off) can be
@@ -592,48 +588,45 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, maxit, cnt, 
                 _correct_currents(dcode, dpo, dnp, G, F, i)
                 return done
             prev = big
-    # Newton-Raphson, keeping a fresh Jacobian's inverse for the following
-    # steps while they contract fast (rate below THETA_MAX, measured from
-    # successive steps as in the chord loop) and refactoring when they do not
-    # (Shamanskii's modification of Newton's method; Kelley, Iterative Methods
-    # for Linear and Nonlinear Equations, SIAM 1995, sec. 5.4.3).  A step
-    # right after a refactorisation is a Newton step and stops on ABSTOL
-    # (error ~ step**2/(2*VT)); a step with older factors stops on the
-    # error estimate th/(1-th)*|step| <= tolerance, as the chord loop does.
+    return newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
+                              maxit, cnt, veval, ieval, Ji, Gf, mem, done)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, maxit, cnt,
+                       veval, ieval, Ji, Gf, mem, done):
+    """The second phase of :func:`newton`, a real call (it runs on a few
+    per cent of samples; compiled once, outside run_block).  ``done``: the
+    chord iterations already spent; returns the total, or -1.
+
+    Newton-Raphson, keeping a fresh Jacobian's inverse for the following
+    steps while they contract fast (rate below THETA_MAX, measured from
+    successive steps as in the chord loop) and refactoring when they do not
+    (Shamanskii's modification of Newton's method; Kelley, Iterative Methods
+    for Linear and Nonlinear Equations, SIAM 1995, sec. 5.4.3).  A step
+    right after a refactorisation is a Newton step and stops on ABSTOL
+    (error ~ step**2/(2*VT)); a step with older factors stops on the
+    error estimate th/(1-th)*|step| <= tolerance, as the chord loop does.
+    """
+    n = p.size
     fresh = True
     prev = 0.0
     th = 0.0
     for it in range(maxit):
         eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
-        residual_outlined(p, v, K, i, F, n)
-        res = 0.0
-        for r in range(n):
-            res = max(res, abs(F[r]))
+        res = residual(p, v, K, i, F, n)
         if fresh:
-            if not factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc):
+            if not factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt):
                 return -1
-        step_outlined(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs)
-        big = 0.0
-        for r in range(n):
-            d = vn[r] - v[r]
-            if abs(d) > big:
-                big = abs(d)
-            F[r] = d
-        conv = True
+        big = take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs)
         if fresh:
-            for r in range(n):
-                if not abs(F[r]) <= ABSTOL + RELTOL * abs(vn[r]):
-                    conv = False
+            conv = within(F, vn, n, 1.0, ABSTOL)
         elif big > STEP_FLOOR:
             th = big / prev if prev > 0.0 else 1.0
-            if th < THETA_MAX:
-                eta = th / (1.0 - th)
-                conv = res <= RES_SANE
-                for r in range(n):
-                    if not eta * abs(F[r]) <= mem[2] + RELTOL * abs(vn[r]):
-                        conv = False
-            else:
-                conv = False
+            conv = (th < THETA_MAX and res <= RES_SANE
+                    and within(F, vn, n, th / (1.0 - th), mem[2]))
+        else:
+            conv = True
         for r in range(n):
             v[r] = vn[r]
         if conv:
@@ -688,7 +681,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
             # the last one's; the chord loop's first evaluation is then a
             # bypass)
             eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval)
-            factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt, kc)
+            factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt)
             mem[0] = 0.0
     mem[1] = 0.0
     for r in range(n):
@@ -740,7 +733,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
 def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
-              Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy,
+              Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy, kc,
               dcode, dpo, dnp, dpa, par, dqs,
               uvar, skind, sptr, spar, inp, dt,
               z, xp, v, i, pprev, ws, G, Gf, J, Ji, yrow, cnt):
@@ -757,12 +750,12 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
         p = p0 + Pz z,  y = y0 + Yz z + Fy i + Vy v,  x' = x0 + Az z + C i.
     yout[k] receives output row 0; every ``pdec`` samples a probe frame (rows
     1.. of y, computed only then) is written into pbuf (if it has rows) at
-    columns pstart, pstart+1 ... below ``pcap``.  ws is a
-    (12, max(padded ports, padded states, 3)) workspace: rows 0-5 scratch;
-    rows 6-11 persist (v two samples back; the predictor's last linear step;
+    columns pstart, pstart+1 ... below ``pcap``.  kc[c] = max |K[:, c]|
+    (the model's column scales of K, for :func:`jacobian_drift`).  ws is an
+    (11, max(padded ports, padded states, 3)) workspace: rows 0-5 scratch;
+    rows 6-10 persist (v two samples back; the predictor's last linear step;
     bypass memory (2 rows); chord rate memory, refactor flag and error
-    tolerance; column scales of K).  Returns the number of probe frames
-    written.
+    tolerance).  Returns the number of probe frames written.
     """
     nz = z.size      # states, varying sources, zero padding
     nv = uvar.size
@@ -794,7 +787,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
                 p[r] = p0[r]
             gemv_add(Pz, z, p, npt, nz)
             solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
-                        ptmp, cnt, v2, veval, ieval, Ji, Gf, ws[10], ws[11, :npt], ws[7, :npt])
+                        ptmp, cnt, v2, veval, ieval, Ji, Gf, ws[10], kc, ws[7, :npt])
             for r in range(npt):
                 pprev[r] = p[r]
         take = nprobe > 0 and cnt[C_PHASE] == 0 and frames < pcap

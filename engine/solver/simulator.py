@@ -197,7 +197,7 @@ class Simulator:
         self._i = np.zeros(npt)
         self._pprev = np.zeros(npt)
         self._u = np.zeros(nu)
-        self._ws = np.zeros((12, max(npt, padded(nx), 3)))
+        self._ws = np.zeros((11, max(npt, padded(nx), 3)))
         self._G = np.zeros((npt, npt))
         self._J = np.zeros((npt + 1, 2 * npt))  # [J | I] and a pivot row
         self._Gf = np.zeros((npt, npt))
@@ -238,7 +238,6 @@ class Simulator:
         self._ws[9, :] = 0.0
         self._ws[10, :] = 0.0  # chord rate memory, refactor flag, tolerance
         self._ws[10, 2] = self.tolerance
-        self._ws[11, :] = 0.0  # column scales of K (set at factorisation)
         self._cnt[:] = 0
         self._model = m
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i[:n]
@@ -316,7 +315,7 @@ class Simulator:
 
     def _args(self, m: Model):
         dcode, dpo, dnp, dpa, par, dqs = self._arr
-        return (m.Pz, m.p0, m.Az, m.x0, m.Ck, m.Kk, m.Yz, m.y0, m.Fyk, m.Vyk,
+        return (m.Pz, m.p0, m.Az, m.x0, m.Ck, m.Kk, m.Yz, m.y0, m.Fyk, m.Vyk, m.kc,
                 dcode, dpo, dnp, dpa, par, dqs,
                 m.uvar, self._skind, self._sptr, self._spar, self.net.input_index,
                 self._T, self._z, self._xp, self._v, self._i, self._pprev, self._ws,

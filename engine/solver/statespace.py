@@ -64,6 +64,7 @@ class Model:
     Ck: np.ndarray = None
     Fyk: np.ndarray = None
     Vyk: np.ndarray = None
+    kc: np.ndarray = None   # column scales max |K[:, c]| (padded)
 
 
 #: The kernel's port and z dimensions are zero-padded to multiples of this,
@@ -160,4 +161,5 @@ def derive(net: Network, values: dict[str, float], T: float,
                  Yz=_pad(np.hstack([Dy, Ey[:, uvar]]), None, nzp), y0=_c(Ey @ ud),
                  uvar=np.array(uvar, dtype=np.int64),
                  Kk=_pad(K, npp, npp), Ck=_pad(Cm, nxp, npp), Fyk=_pad(Fy, None, npp),
-                 Vyk=_pad(Vy, None, npp))
+                 Vyk=_pad(Vy, None, npp),
+                 kc=_pad(np.abs(K).max(axis=0) if K.size else np.zeros(0), npp))
