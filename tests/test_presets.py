@@ -110,6 +110,22 @@ def test_design_loads_biases_and_plays_the_phrase(name, phrase):
     assert 1e-3 < cp.rms(y - np.mean(y)) < 2.0, "the design passes the guitar at a sane level"
 
 
+@pytest.mark.parametrize("name", DESIGNS)
+def test_design_converges_on_every_sample_of_a_loud_steady_tone(name):
+    # a 0.3 V two-tone (110 + 220 Hz, decaying, with a little seeded noise)
+    # at the input with no oversampling: the port solve converges on every
+    # sample, so no sample is held at the last solution (an audible
+    # glitch).  This drive once drove the Newton fallback into a two-cycle
+    # on the envelope filter.
+    t = np.arange(int(0.5 * FS)) / FS
+    noise = 0.01 * np.random.default_rng(0).standard_normal(t.size)
+    x = 0.3 * np.exp(-3 * t) * (np.sin(2 * np.pi * 110 * t) + 0.5 * np.sin(2 * np.pi * 220 * t)
+                                + noise)
+    sim = Simulator(load_design(name).flatten(), fs=FS)
+    sim.process(x)
+    assert sim.stats["nonconverged"] == 0
+
+
 def test_oversampling_suggestions_follow_the_design_convention():
     # compressors and filters at 1x; clipping designs oversampled (common practice:
     # hard nonlinearities generate harmonics that alias at 1x)

@@ -603,7 +603,8 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
     steps while they contract fast (rate below THETA_MAX, measured from
     successive steps as in the chord loop) and refactoring when they do not
     (Shamanskii's modification of Newton's method; Kelley, Iterative Methods
-    for Linear and Nonlinear Equations, SIAM 1995, sec. 5.4.3).  A step
+    for Linear and Nonlinear Equations, SIAM 1995, sec. 5.4.3); a step with
+    kept factors that does not contract is dropped.  A step
     right after a refactorisation is a Newton step and stops on ABSTOL
     (error ~ step**2/(2*VT)); a step with older factors stops on the
     error estimate th/(1-th)*|step| <= tolerance, as the chord loop does.
@@ -623,8 +624,13 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
             conv = within(F, vn, n, 1.0, ABSTOL)
         elif big > STEP_FLOOR:
             th = big / prev if prev > 0.0 else 1.0
-            conv = (th < THETA_MAX and res <= RES_SANE
-                    and within(F, vn, n, th / (1.0 - th), mem[2]))
+            if not th < THETA_MAX:
+                # the kept factors do not contract here: drop this step and
+                # take a Newton step from where it started (keeping it can
+                # undo the last Newton step, a two-cycle)
+                fresh = True
+                continue
+            conv = res <= RES_SANE and within(F, vn, n, th / (1.0 - th), mem[2])
         else:
             conv = True
         for r in range(n):
@@ -634,9 +640,10 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
             mem[1] = 0.0
             _correct_currents(dcode, dpo, dnp, G, F, i)
             return done + it + 1
-        # keep the factors after a Newton step small enough that the
-        # Jacobian barely moved, or a chord step that contracted fast
-        fresh = not (big <= REUSE_STEP if fresh else th < THETA_MAX)
+        # after a Newton step small enough that the Jacobian barely moved,
+        # keep its factors (a kept one stays while it contracts fast)
+        if fresh:
+            fresh = big > REUSE_STEP
         prev = big
     return -1
 
