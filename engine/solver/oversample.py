@@ -124,45 +124,61 @@ def _design(factor: int, fs: float) -> np.ndarray:
     raise RuntimeError(f"oversampling filter design failed for factor {factor}")
 
 
-@numba.njit(nogil=True, cache=True)
-def _up_kernel(x, n, phases, buf, out):  # pragma: no cover - compiled
+#: LLVM fast-math flags for the filter loops: reassociation lets each dot
+#: product run on several SIMD accumulators instead of one serial add chain
+#: (about 5x faster for the 58- and 115-tap filters of factor 2).
+_FM = {"reassoc", "contract"}
+#: Tap counts are padded to multiples of this (LLVM's vector loop takes 32
+#: doubles per pass: 8 per AVX-512 register, 4 accumulators).
+VEC = 32
+
+
+def _ceil_to(n: int, m: int) -> int:
+    return -(-n // m) * m
+
+
+@numba.njit(nogil=True, cache=True, fastmath=_FM)
+def _up_kernel(x, n, rphases, buf, out):  # pragma: no cover - compiled
     """Polyphase interpolation of ``x[:n]`` into ``out[:n*L]``.
 
-    ``phases[p, j] = L*h[j*L + p]``; ``buf[:K-1]`` holds the last ``K-1``
-    inputs of the previous call (newest last) and is updated in place.
+    ``rphases[p, K-1-j] = L*h[j*L + p]`` (each phase reversed, so the dot
+    product runs forward through memory); ``buf[:K-1]`` holds the last
+    ``K-1`` inputs of the previous call (newest last), updated in place.
     """
-    L, K = phases.shape
+    L, K = rphases.shape
     hist = K - 1
     for i in range(n):
         buf[hist + i] = x[i]
     for i in range(n):
-        base = hist + i
         for p in range(L):
             acc = 0.0
             for j in range(K):
-                acc += phases[p, j] * buf[base - j]
+                acc += rphases[p, j] * buf[i + j]
             out[i * L + p] = acc
     for i in range(hist):
         buf[i] = buf[n + i]
 
 
-@numba.njit(nogil=True, cache=True)
-def _down_kernel(y, m, L, h, buf, out):  # pragma: no cover - compiled
+@numba.njit(nogil=True, cache=True, fastmath=_FM)
+def _down_kernel(y, m, L, hr, buf, out):  # pragma: no cover - compiled
     """Polyphase decimation by ``L`` of ``y[:m*L]`` into ``out[:m]``.
 
-    ``out[i] = sum_j h[j] * y[i*L - j]`` (stream indices); ``buf[:N-1]`` holds
-    the last ``N-1`` high-rate inputs of the previous call, updated in place.
+    ``out[i] = sum_j h[j] * y[i*L - j]`` (stream indices), with ``hr`` = h
+    reversed; ``buf[:N-1]`` holds the last ``N-1`` high-rate inputs of the
+    previous call, updated in place.
     """
-    N = h.shape[0]
+    N = hr.shape[0]
     hist = N - 1
     total = m * L
     for i in range(total):
         buf[hist + i] = y[i]
     for i in range(m):
-        base = hist + i * L
+        # a view of the window: with plain buf[i*L + j] LLVM leaves this
+        # loop scalar (about 5x slower)
+        w = buf[i * L:i * L + N]
         acc = 0.0
         for j in range(N):
-            acc += h[j] * buf[base - j]
+            acc += hr[j] * w[j]
         out[i] = acc
     for i in range(hist):
         buf[i] = buf[total + i]
@@ -218,16 +234,22 @@ class Resampler:
         self.taps = h
         n = h.shape[0]
         self.latency = float((n - 1) // L)
-        k_up = -(-n // L)  # taps per phase
+        # Both dot products are padded with zero taps to whole multiples of
+        # VEC, so that the compiled loops run as whole SIMD vectors with no
+        # scalar remainder; zero taps change no output sample.
+        k_up = _ceil_to(-(-n // L), VEC)  # taps per phase
         padded = np.zeros(k_up * L)
         padded[:n] = h * L
-        # phases[p, j] = L*h[j*L + p]
-        self._phases = np.ascontiguousarray(padded.reshape(k_up, L).T)
-        self._h = np.ascontiguousarray(h, dtype=np.float64)
+        # phases[p, j] = L*h[j*L + p], stored reversed along j for the kernel
+        self._phases = np.ascontiguousarray(padded.reshape(k_up, L).T[:, ::-1])
+        n_down = _ceil_to(n, VEC)
+        h_down = np.zeros(n_down)
+        h_down[:n] = h
+        self._h = np.ascontiguousarray(h_down[::-1], dtype=np.float64)
         self._up_buf = np.zeros(k_up - 1 + self.block_max)
-        self._down_buf = np.zeros(n - 1 + self.block_max * L)
+        self._down_buf = np.zeros(n_down - 1 + self.block_max * L)
         self._up_hist = k_up - 1
-        self._down_hist = n - 1
+        self._down_hist = n_down - 1
         # Load (or compile) the kernels now, off the audio thread, for the
         # float64 contiguous arrays the audio thread will pass.
         probe = np.zeros(1)
