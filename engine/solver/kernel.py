@@ -36,8 +36,11 @@ call site (the fallback's continuation sub-steps reuse it), each device
 type's evaluate/limit is compiled once into one dispatch function (eval_one,
 limit_one: one real call per device), and the Jacobian inverse and the
 refactoring Newton phase (newton_refactoring; both on a few per cent of
-samples) and the padded matrix-vector product (gemv_add) are real calls.
-Cold start (empty cache) to the first block: ~20-22 s.
+samples) are real calls.  The padded matrix-vector product is inlined at
+the four products made once per sample (gemv_inl) and a real call inside
+Newton's loops (gemv_add).  numba's builtin max() is an out-of-line call
+per use, so the per-sample path compares explicitly.  Cold start (empty
+cache) to the first block: ~20-23 s.
 
 Everything here runs on the audio thread: no allocation, ``nogil=True``,
 ``cache=True``.
@@ -379,6 +382,16 @@ def factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+def _absmax(a, b):
+    """max(|a|, |b|) as straight-line code (numba's builtin max is an
+    out-of-line call per use, ~10 % of the per-sample path when it ran in
+    the residual's loop)."""
+    a = abs(a)
+    b = abs(b)
+    return a if a > b else b
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def jacobian_drift(G, Gf, dpo, dnp, kc):
     """How far the Jacobian J = I - K G has moved since its factorisation,
     device by device, as a fraction of that device's part of J:
@@ -401,12 +414,12 @@ def jacobian_drift(G, Gf, dpo, dnp, kc):
             w1 = kc[po + 1]
             num = (w0 * (abs(g00 - f00) + abs(g01 - f01))
                    + w1 * (abs(g10 - f10) + abs(g11 - f11)))
-            den = 1.0 + (w0 * (max(abs(g00), abs(f00)) + max(abs(g01), abs(f01)))
-                         + w1 * (max(abs(g10), abs(f10)) + max(abs(g11), abs(f11))))
+            den = 1.0 + (w0 * (_absmax(g00, f00) + _absmax(g01, f01))
+                         + w1 * (_absmax(g10, f10) + _absmax(g11, f11)))
         elif m == 1:
             g00, f00, w0 = G[po, po], Gf[po, po], kc[po]
             num = w0 * abs(g00 - f00)
-            den = 1.0 + w0 * max(abs(g00), abs(f00))
+            den = 1.0 + w0 * _absmax(g00, f00)
         else:
             num = 0.0
             den = 1.0
@@ -416,23 +429,28 @@ def jacobian_drift(G, Gf, dpo, dnp, kc):
                     g = G[po + a, po + b]
                     gf = Gf[po + a, po + b]
                     num += w * abs(g - gf)
-                    den += w * max(abs(g), abs(gf))
+                    den += w * _absmax(g, gf)
         q = num / den
         if q > worst:
             worst = q
     return worst
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
-def gemv_add(A, x, y, nr, nc):
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+def gemv_inl(A, x, y, nr, nc):
     """y[:nr] += A[:nr, :nc] @ x[:nc], four rows at a time.
 
     The model's port and source dimensions are padded to multiples of four
     (statespace.PAD), so every inner loop runs whole SIMD vectors; four rows
     per pass share each load of x and one loop's overhead.  For the 12-16
-    port designs this is ~1.6x faster than one row at a time.  A real call
-    (not inlined): it costs ~2 % more instructions per sample than inlined
-    copies at its call sites, and saves ~4 s of cold compile time."""
+    port designs this is ~1.6x faster than one row at a time.
+
+    Inlined at the four products every sample makes once (p, the
+    predictor, and the state update's two): a call passes each array as
+    ~7 scalars on the stack, and at these sites that cost 15-20 % of the
+    octave fuzz's and feed-forward compressor's time.  The products inside
+    Newton's iterations call :func:`gemv_add` instead (inlining those too
+    gained nothing measurable and cost ~2 s more cold compile)."""
     r = 0
     while r + 4 <= nr:
         s0 = 0.0
@@ -458,6 +476,12 @@ def gemv_add(A, x, y, nr, nc):
         r += 1
 
 
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+def gemv_add(A, x, y, nr, nc):
+    """:func:`gemv_inl` as a real call (the products in Newton's loops)."""
+    gemv_inl(A, x, y, nr, nc)
+
+
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def residual(p, v, K, i, F, n):
     """F = p - v + K i (the residual at v); returns max |F|."""
@@ -466,7 +490,9 @@ def residual(p, v, K, i, F, n):
     gemv_add(K, i, F, n, n)
     res = 0.0
     for r in range(n):
-        res = max(res, abs(F[r]))
+        a = abs(F[r])
+        if a > res:
+            res = a
     return res
 
 
@@ -673,7 +699,10 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
     if cnt[C_LUOK] == 1:
         for r in range(n):
             F[r] = p[r] - pprev[r]
-        matvec_inplace(Ji, F, vn, n)
+            vn[r] = 0.0
+        gemv_inl(Ji, F, vn, n, n)
+        for r in range(n):
+            F[r] = vn[r]
         for r in range(n):
             # linear step for the change in p, plus the last sample's
             # nonlinear part of its step (its step less its linear part)
@@ -792,7 +821,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
         if npt > 0:
             for r in range(npt):
                 p[r] = p0[r]
-            gemv_add(Pz, z, p, npt, nz)
+            gemv_inl(Pz, z, p, npt, nz)
             solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
                         ptmp, cnt, v2, veval, ieval, Ji, Gf, ws[10], kc, ws[7, :npt])
             for r in range(npt):
@@ -820,8 +849,8 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
                 cnt[C_PHASE] = 0
         for r in range(nxp):
             xt[r] = x0[r]
-        gemv_add(Az, z, xt, nxp, nz)
-        gemv_add(C, i, xt, nxp, npt)
+        gemv_inl(Az, z, xt, nxp, nz)
+        gemv_inl(C, i, xt, nxp, npt)
         finite = True
         for r in range(nx):
             if not math.isfinite(xt[r]):
