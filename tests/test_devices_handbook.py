@@ -217,3 +217,18 @@ def test_operating_point_warnings():
     assert any("cut-off" in w for w in op.warnings)
     assert any("within 0.3 V of supply rail 'vcc'" in w for w in op.warnings)
     assert op.to_dict()["devices"]["Q1"]["region"] == "cut-off"
+
+
+def test_junction_limiting_follows_spice():
+    # pnjlim as in ngspice (src/spicelib/devices/devsup.c, DEVpnjlim):
+    # forward steps above vcrit are compressed to vold + vt*ln(1 + dv/vt);
+    # reverse steps stop at -(vold + 1) from forward bias and at 2*vold - 1
+    # from reverse bias; anything else passes unchanged
+    from engine.devices._common import pnjlim, vcrit
+    vt = VT
+    vc = vcrit(vt, 1e-14)
+    assert pnjlim(2.0, 0.6, vt, vc) == pytest.approx(0.6 + vt * math.log(1 + 1.4 / vt), rel=1e-12)
+    assert pnjlim(-5.0, 0.6, vt, vc) == pytest.approx(-1.6, rel=1e-12)
+    assert pnjlim(-5.0, -1.0, vt, vc) == pytest.approx(-3.0, rel=1e-12)
+    assert pnjlim(-2.5, -1.0, vt, vc) == -2.5
+    assert pnjlim(0.3, 0.6, vt, vc) == 0.3
