@@ -20,9 +20,7 @@ the stopping rule of Hairer & Wanner (error left <= th/(1-th)*|step|, th the
 measured contraction rate), refactors before the next sample when the rate
 was poor, and falls through to Newton-Raphson (pnjlim limiting; a fresh
 Jacobian whenever the steps stop contracting fast, else the last one's
-inverse is kept; within one sample, Jacobians after the first are LU
-factors, a sixth of the inverse's work, and the inverse is formed again
-on convergence) when the rate exceeds 1/4.  Devices whose port voltages
+inverse is kept) when the rate exceeds 1/4.  Devices whose port voltages
 moved less than BYPASS_RATIO times the tolerance are not re-evaluated
 (SPICE's bypass).  Newton failures fall back to continuation in p from the previous
 sample in sub-steps (4, then 16); if that fails too the previous port
@@ -387,76 +385,6 @@ def factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
-def lu_jacobian(K, G, Gf, J, dcode, dpo, dnp, cnt):
-    """LU factors (partial pivoting) of J = I - K G in place in J[:n, :n]
-    (unit lower and upper triangle; row n holds the row exchanges), for
-    the Newton steps of :func:`newton_refactoring` after its first: ~n^3/3
-    multiply-adds against ~2n^3 for the inverse that :func:`factor_jacobian`
-    forms.  G is remembered in Gf.  Returns False when J is singular."""
-    n = G.shape[0]
-    for r in range(n):
-        for c in range(n):
-            J[r, c] = 0.0
-        J[r, r] = 1.0
-    for d in range(dcode.size):
-        po = dpo[d]
-        m = dnp[d]
-        for a in range(m):
-            for b in range(m):
-                g = G[po + a, po + b]
-                Gf[po + a, po + b] = g
-                if g != 0.0:
-                    for r in range(n):
-                        J[r, po + b] -= K[r, po + a] * g
-    cnt[C_FACTOR] += 1
-    for k in range(n):
-        m = k
-        big = abs(J[k, k])
-        for r in range(k + 1, n):
-            a = abs(J[r, k])
-            if a > big:
-                big = a
-                m = r
-        if not big > 1e-300:
-            return False
-        J[n, k] = m
-        if m != k:
-            for c in range(n):
-                t = J[k, c]
-                J[k, c] = J[m, c]
-                J[m, c] = t
-        inv = 1.0 / J[k, k]
-        for r in range(k + 1, n):
-            f = J[r, k] * inv
-            J[r, k] = f
-            if f != 0.0:
-                for c in range(k + 1, n):
-                    J[r, c] -= f * J[k, c]
-    return True
-
-
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def lu_solve(J, F, n):
-    """F <- J^-1 F with the factors of :func:`lu_jacobian`."""
-    for k in range(n):
-        m = int(J[n, k])
-        if m != k:
-            t = F[k]
-            F[k] = F[m]
-            F[m] = t
-    for r in range(n):
-        acc = F[r]
-        for c in range(r):
-            acc -= J[r, c] * F[c]
-        F[r] = acc
-    for r in range(n - 1, -1, -1):
-        acc = F[r]
-        for c in range(r + 1, n):
-            acc -= J[r, c] * F[c]
-        F[r] = acc / J[r, r]
-
-
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
 def factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt):
     """:func:`factor_jacobian` as a real call: it runs on a few per cent of
     samples, and keeping its loops out of run_block keeps that function
@@ -584,13 +512,6 @@ def take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs):
     """vn = v + Ji F, junction-limited; then F <- vn - v, the step taken.
     Returns its largest entry, max |vn - v|."""
     matvec_inplace(Ji, F, vn, n)
-    return finish_step(F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs)
-
-
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def finish_step(F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs):
-    """vn = v + F (F: the Newton or chord update), junction-limited; then
-    F <- vn - v, the step taken.  Returns max |vn - v|."""
     for r in range(n):
         vn[r] = v[r] + F[r]
     limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
@@ -729,29 +650,13 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
     fresh = True
     prev = 0.0
     th = 0.0
-    nfresh = 0      # Jacobians factored in this call
-    lu = False      # the latest factors are J's LU (in J), not Ji
     for it in range(maxit):
         eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, BYPASS_RATIO * mem[2])
         res = residual(p, v, K, i, F, n)
         if fresh:
-            # the first factorisation forms the inverse that the next
-            # samples' chord iterations use; later ones (a junction still
-            # swinging through its knee) take LU factors, and the inverse
-            # is formed once more on convergence
-            if nfresh == 0:
-                if not factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt):
-                    return -1
-            elif not lu_jacobian(K, G, Gf, J, dcode, dpo, dnp, cnt):
-                cnt[C_LUOK] = 0
+            if not factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt):
                 return -1
-            lu = nfresh > 0
-            nfresh += 1
-        if lu:
-            lu_solve(J, F, n)
-            big = finish_step(F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs)
-        else:
-            big = take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs)
+        big = take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs)
         if fresh:
             conv = within(F, vn, n, 1.0, ABSTOL)
         elif big > STEP_FLOOR:
@@ -771,16 +676,12 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
             mem[0] = 0.0 if fresh else th
             mem[1] = 0.0
             _correct_currents(dcode, dpo, dnp, G, F, i)
-            if lu and not factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt):
-                return -1
             return done + it + 1
         # after a Newton step small enough that the Jacobian barely moved,
         # keep its factors (a kept one stays while it contracts fast)
         if fresh:
             fresh = big > REUSE_STEP
         prev = big
-    if lu:
-        cnt[C_LUOK] = 0  # Ji no longer matches Gf
     return -1
 
 

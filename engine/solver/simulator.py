@@ -349,8 +349,7 @@ class Simulator:
     def stats(self) -> dict:
         """Counters since the last reset: samples (kernel rate), nonconverged,
         fallbacks, max_iterations, mean_iterations, factorizations (Jacobian
-        inversions and LU factorisations; chord iterations reuse the last
-        inverse)."""
+        inversions; chord iterations reuse the last one)."""
         c = self._cnt
         s = int(c[K.C_SAMPLES])
         return {"samples": s, "nonconverged": int(c[K.C_NONCONV]),
