@@ -22,8 +22,8 @@ was poor, and falls through to Newton-Raphson (pnjlim limiting; a fresh
 Jacobian whenever the steps stop contracting fast, else the last one's
 inverse is kept) when the rate exceeds 1/4.  Devices whose port voltages
 moved less than BYPASS_RATIO times the tolerance are not re-evaluated
-(SPICE's bypass).  Newton failures fall back to continuation in p from the previous
-sample in sub-steps (4, then 16); if that fails too the previous port
+(SPICE's bypass).  Newton failures fall back to continuation in p from the
+previous sample in sub-steps (4, then 16); if that fails too the previous port
 solution is kept and counted.  Output is never NaN.  Loops are compiled
 with reassociation allowed (dot products on several accumulators).
 
@@ -220,12 +220,12 @@ def eval_one(c, par, pa, v, po, i, G):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, btol):
+def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem):
     """Device port currents less the port offset conductance PORT_G0 that the
     linear network carries (see :data:`PORT_G0`): i - PORT_G0*v, G - PORT_G0.
 
     Bypass (as SPICE's BYPASS option): a device whose port voltages moved
-    less than btol (BYPASS_RATIO times the tolerance) since its last
+    less than BYPASS_RATIO times the error tolerance mem[2] since its last
     evaluation (veval, ieval) is not re-evaluated; its currents are
     continued linearly with its last Jacobian block (error below the
     tolerance: see BYPASS_RATIO).
@@ -233,6 +233,7 @@ def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, btol):
     paths: loops with a trip count of 1 or 2 cost more in overhead than in
     arithmetic.
     """
+    btol = BYPASS_RATIO * mem[2]
     for d in range(dcode.size):
         po = dpo[d]
         m = dnp[d]
@@ -409,8 +410,9 @@ def jacobian_drift(G, Gf, dpo, dnp, kc):
 
         sum |K[:,a]| |G - Gf|_ab  /  (1 + sum |K[:,a]| max(|G|, |Gf|)_ab)
 
-    (kc[a] = max |K[:, a]|, the model's column scales; 0 ... 1).  A device whose currents barely load
-    the network (a junction in cut-off) scores ~0 however its conductances
+    (kc[a] = max |K[:, a]|, the model's column scales; 0 ... 1).  A device
+    whose currents barely load the network (a junction in cut-off) scores ~0
+    however its conductances
     change relative to each other; one that switches between conduction and
     cut-off, or whose conductances change by a large fraction, scores near
     its relative change.  Returns the largest score."""
@@ -593,7 +595,7 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, maxit, cnt, 
             th = THETA_MIN
         prev = 0.0
         for it in range(CHORD_MAX):
-            eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, BYPASS_RATIO * mem[2])
+            eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
             res = residual(p, v, K, i, F, n)
             big = take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs)
             tiny = big <= STEP_FLOOR
@@ -651,7 +653,7 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
     prev = 0.0
     th = 0.0
     for it in range(maxit):
-        eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, BYPASS_RATIO * mem[2])
+        eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
         res = residual(p, v, K, i, F, n)
         if fresh:
             if not factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt):
@@ -686,9 +688,9 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
-def eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, btol):
+def eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem):
     """:func:`eval_ports` as a real call (rare paths)."""
-    eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, btol)
+    eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
@@ -713,12 +715,11 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
             vn[r] = 0.0
         gemv_inl(Ji, F, vn, n, n)
         for r in range(n):
-            F[r] = vn[r]
-        for r in range(n):
-            # linear step for the change in p, plus the last sample's
+            # linear step for the change in p (vn), plus the last sample's
             # nonlinear part of its step (its step less its linear part)
-            vn[r] = v[r] + F[r] + (v[r] - v2[r] - lprev[r])
-            lprev[r] = F[r]
+            lin = vn[r]
+            vn[r] = v[r] + lin + (v[r] - v2[r] - lprev[r])
+            lprev[r] = lin
         limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
         for r in range(n):
             v[r] = vn[r]
@@ -727,7 +728,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
             # at this sample's predicted point (closer to its solution than
             # the last one's; the chord loop's first evaluation is then a
             # bypass)
-            eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, BYPASS_RATIO * mem[2])
+            eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
             factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt)
             mem[0] = 0.0
     mem[1] = 0.0
@@ -774,7 +775,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
     cnt[C_NONCONV] += 1
     for r in range(n):
         v[r] = vprev[r]
-    eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, BYPASS_RATIO * mem[2])
+    eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
     return False
 
 

@@ -248,8 +248,6 @@ class Resampler:
         self._h = np.ascontiguousarray(h_down[::-1], dtype=np.float64)
         self._up_buf = np.zeros(k_up - 1 + self.block_max)
         self._down_buf = np.zeros(n_down - 1 + self.block_max * L)
-        self._up_hist = k_up - 1
-        self._down_hist = n_down - 1
         # Load (or compile) the kernels now, off the audio thread, for the
         # float64 contiguous arrays the audio thread will pass.
         probe = np.zeros(1)
