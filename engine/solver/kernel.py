@@ -779,6 +779,69 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
     return False
 
 
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+def load_sources(z, nx, uvar, inp, xk, skind, sptr, spar, t):
+    """This sample's varying sources into z[nx:]: the input takes xk, a
+    waveform source its value at time t."""
+    for j in range(uvar.size):
+        s = uvar[j]
+        if s == inp:
+            z[nx + j] = xk
+        else:
+            z[nx + j] = wave_value(skind[s], spar[sptr[s]:sptr[s + 1]], t)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+def finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
+                  z, xp, v, i, xt, yrow, cnt):
+    """After the port solve of sample k: the output into yout[k] (never
+    non-finite), a probe frame into pbuf every pdec samples, and the state
+    update x' = x0 + Az z + C i (kept only if finite).  Returns the frame
+    count."""
+    nz = z.size
+    nx = xp.size
+    npt = v.size
+    ny = yrow.size
+    nprobe = pbuf.shape[0]
+    take = nprobe > 0 and cnt[C_PHASE] == 0 and frames < pcap
+    for r in range(ny if take else 1):
+        s = y0[r]
+        for c in range(nz):
+            s += Yz[r, c] * z[c]
+        for c in range(npt):
+            s += Fy[r, c] * i[c] + Vy[r, c] * v[c]
+        yrow[r] = s
+    y0v = yrow[0]
+    if not math.isfinite(y0v):
+        y0v = 0.0
+        cnt[C_NONCONV] += 1
+    yout[k] = y0v
+    if nprobe > 0:
+        if take:
+            for r in range(nprobe):
+                pbuf[r, frames] = yrow[r + 1]
+            frames += 1
+        cnt[C_PHASE] += 1
+        if cnt[C_PHASE] >= pdec:
+            cnt[C_PHASE] = 0
+    nxp = x0.size
+    for r in range(nxp):
+        xt[r] = x0[r]
+    gemv_inl(Az, z, xt, nxp, nz)
+    gemv_inl(C, i, xt, nxp, npt)
+    finite = True
+    for r in range(nx):
+        if not math.isfinite(xt[r]):
+            finite = False
+    if finite:
+        for r in range(nx):
+            xp[r] = z[r]
+            z[r] = xt[r]
+    cnt[C_INDEX] += 1
+    cnt[C_SAMPLES] += 1
+    return frames
+
+
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
 def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
               Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy, kc,
@@ -806,11 +869,8 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     tolerance).  Returns the number of probe frames written.
     """
     nz = z.size      # states, varying sources, zero padding
-    nv = uvar.size
     nx = xp.size
     npt = v.size     # ports, zero padding
-    ny = yrow.size
-    nprobe = pbuf.shape[0]
     p = ws[0, :npt]
     vprev = ws[1, :npt]
     F = ws[2, :npt]
@@ -823,13 +883,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     ieval = ws[9, :npt]
     frames = pstart
     for k in range(nin):
-        t = cnt[C_INDEX] * dt
-        for j in range(nv):
-            s = uvar[j]
-            if s == inp:
-                z[nx + j] = xin[k]
-            else:
-                z[nx + j] = wave_value(skind[s], spar[sptr[s]:sptr[s + 1]], t)
+        load_sources(z, nx, uvar, inp, xin[k], skind, sptr, spar, cnt[C_INDEX] * dt)
         if npt > 0:
             for r in range(npt):
                 p[r] = p0[r]
@@ -838,41 +892,158 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
                         ptmp, cnt, v2, veval, ieval, Ji, Gf, ws[10], kc, ws[7, :npt])
             for r in range(npt):
                 pprev[r] = p[r]
-        take = nprobe > 0 and cnt[C_PHASE] == 0 and frames < pcap
-        for r in range(ny if take else 1):
-            s = y0[r]
+        frames = finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
+                               z, xp, v, i, xt, yrow, cnt)
+    return frames - pstart
+
+
+#: Circuits with at most this many nonlinear ports run :func:`run_block_small`.
+SMALL_PORTS = 2
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+def newton2(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, Ji, vn, veval, ieval, mem, cnt):
+    """Newton-Raphson on v = p + K i(v) for at most two ports (v[0], v[1];
+    a one-port circuit has a zero second port), with a fresh Jacobian at
+    every iteration inverted in closed form (cheaper at this size than
+    deciding whether to keep it), pnjlim limiting and SPICE's bypass.
+    Stops on a step below min(ABSTOL, sqrt(2*VT*tol)) + RELTOL*|v|: Newton's
+    error after a step d is about d**2/(2*N*VT) at a junction, so this
+    leaves at most the tolerance mem[2] (below 2e-8 V at the default).
+    Ji keeps the last Jacobian's inverse (the next sample's predictor).
+    Returns the number of iterations, or -1 (no convergence or a singular
+    Jacobian)."""
+    stol = math.sqrt(2.0 * 0.02585 * mem[2])
+    if stol > ABSTOL:
+        stol = ABSTOL
+    k00, k01, k10, k11 = K[0, 0], K[0, 1], K[1, 0], K[1, 1]
+    for it in range(MAXIT):
+        eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
+        i0 = i[0]
+        i1 = i[1]
+        f0 = p[0] - v[0] + k00 * i0 + k01 * i1
+        f1 = p[1] - v[1] + k10 * i0 + k11 * i1
+        g00, g01, g10, g11 = G[0, 0], G[0, 1], G[1, 0], G[1, 1]
+        a = 1.0 - (k00 * g00 + k01 * g10)
+        b = -(k00 * g01 + k01 * g11)
+        c = -(k10 * g00 + k11 * g10)
+        d = 1.0 - (k10 * g01 + k11 * g11)
+        det = a * d - b * c
+        if not abs(det) > 1e-300:
+            return -1
+        q = 1.0 / det
+        Ji[0, 0] = d * q
+        Ji[0, 1] = -b * q
+        Ji[1, 0] = -c * q
+        Ji[1, 1] = a * q
+        vn[0] = v[0] + (d * f0 - b * f1) * q
+        vn[1] = v[1] + (a * f1 - c * f0) * q
+        limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
+        d0 = vn[0] - v[0]
+        d1 = vn[1] - v[1]
+        v[0] = vn[0]
+        v[1] = vn[1]
+        if (abs(d0) <= stol + RELTOL * abs(v[0])
+                and abs(d1) <= stol + RELTOL * abs(v[1])):
+            i[0] = i0 + g00 * d0 + g01 * d1
+            i[1] = i1 + g10 * d0 + g11 * d1
+            cnt[C_FACTOR] += it + 1
+            return it + 1
+    cnt[C_FACTOR] += MAXIT
+    return -1
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
+                    Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy, kc,
+                    dcode, dpo, dnp, dpa, par, dqs,
+                    uvar, skind, sptr, spar, inp, dt,
+                    z, xp, v, i, pprev, ws, G, Gf, J, Ji, yrow, cnt):
+    """:func:`run_block` for circuits with one or two nonlinear ports
+    (SMALL_PORTS; same arguments, same state, same counters: a circuit may
+    move between the two at a block boundary).
+
+    At this size the generic path's bookkeeping (padded loops, chord
+    rates, drift checks, real calls) costs more than the arithmetic, so
+    each sample here runs the same predictor as :func:`solve_ports` and
+    then plain Newton-Raphson with a closed-form 2 x 2 inverse
+    (:func:`newton2`), with the same bounded fallback: continuation in p
+    in 4, then 16 sub-steps, else the previous solution is kept and
+    counted.  Output and state update are those of run_block."""
+    nz = z.size
+    nx = xp.size
+    p = ws[0, :2]
+    vprev = ws[1, :2]
+    vn = ws[3, :2]
+    ptmp = ws[4, :2]
+    xt = ws[5, :x0.size]
+    v2 = ws[6, :2]
+    lprev = ws[7, :2]
+    veval = ws[8, :]
+    ieval = ws[9, :]
+    mem = ws[10]
+    frames = pstart
+    for k in range(nin):
+        load_sources(z, nx, uvar, inp, xin[k], skind, sptr, spar, cnt[C_INDEX] * dt)
+        for r in range(2):
+            acc = p0[r]
             for c in range(nz):
-                s += Yz[r, c] * z[c]
-            for c in range(npt):
-                s += Fy[r, c] * i[c] + Vy[r, c] * v[c]
-            yrow[r] = s
-        y0v = yrow[0]
-        if not math.isfinite(y0v):
-            y0v = 0.0
-            cnt[C_NONCONV] += 1
-        yout[k] = y0v
-        if nprobe > 0:
-            if take:
-                for r in range(nprobe):
-                    pbuf[r, frames] = yrow[r + 1]
-                frames += 1
-            cnt[C_PHASE] += 1
-            if cnt[C_PHASE] >= pdec:
-                cnt[C_PHASE] = 0
-        for r in range(nxp):
-            xt[r] = x0[r]
-        gemv_inl(Az, z, xt, nxp, nz)
-        gemv_inl(C, i, xt, nxp, npt)
-        finite = True
-        for r in range(nx):
-            if not math.isfinite(xt[r]):
-                finite = False
-        if finite:
-            for r in range(nx):
-                xp[r] = z[r]
-                z[r] = xt[r]
-        cnt[C_INDEX] += 1
-        cnt[C_SAMPLES] += 1
+                acc += Pz[r, c] * z[c]
+            p[r] = acc
+            vprev[r] = v[r]
+        if cnt[C_LUOK] == 1:
+            e0 = p[0] - pprev[0]
+            e1 = p[1] - pprev[1]
+            for r in range(2):
+                lin = Ji[r, 0] * e0 + Ji[r, 1] * e1
+                vn[r] = v[r] + lin + (v[r] - v2[r] - lprev[r])
+                lprev[r] = lin
+            limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
+            v[0] = vn[0]
+            v[1] = vn[1]
+        v2[0] = vprev[0]
+        v2[1] = vprev[1]
+        ptmp[0] = p[0]
+        ptmp[1] = p[1]
+        nsub = 1
+        s = 1
+        while True:
+            it = newton2(ptmp, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, Ji, vn, veval,
+                         ieval, mem, cnt)
+            good = it > 0
+            if good and nsub > 1 and s < nsub:
+                cnt[C_ITERS] += it
+                s += 1
+                f = s / nsub
+                for r in range(2):
+                    ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
+                continue
+            if good:
+                good = (math.isfinite(v[0]) and math.isfinite(v[1])
+                        and math.isfinite(i[0]) and math.isfinite(i[1]))
+            if good:
+                cnt[C_LUOK] = 1
+                if nsub == 1 and it > cnt[C_MAXIT]:
+                    cnt[C_MAXIT] = it
+                cnt[C_ITERS] += it
+                break
+            if nsub == 16:
+                cnt[C_NONCONV] += 1
+                v[0] = vprev[0]
+                v[1] = vprev[1]
+                eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
+                break
+            if nsub == 1:
+                cnt[C_FALLBACK] += 1
+            nsub = 4 if nsub == 1 else 16
+            s = 1
+            for r in range(2):
+                v[r] = vprev[r]
+                ptmp[r] = pprev[r] + (p[r] - pprev[r]) / nsub
+        pprev[0] = p[0]
+        pprev[1] = p[1]
+        frames = finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
+                               z, xp, v, i, xt, yrow, cnt)
     return frames - pstart
 
 

@@ -172,6 +172,8 @@ class Simulator:
         self._lock = threading.Lock()
         self._values = dict(net.values)
         self._arr = device_arrays(net)
+        # one or two nonlinear ports: the lean path (same state and counters)
+        self._run = K.run_block_small if 0 < net.np_ <= K.SMALL_PORTS else K.run_block
         skind, spars = [], []
         for k, el in enumerate(net.sources):
             kd, par = source_wave(el)
@@ -301,12 +303,13 @@ class Simulator:
         n = x.shape[0]
         pb = self._nopb if probe_buf is None else probe_buf
         pcap = pb.shape[1] if pb.shape[0] else 0
+        run = self._run
         if self.oversample == 1:
-            return K.run_block(x, n, y, pb, probe_start, pcap, self._pdec, *self._args(m))
+            return run(x, n, y, pb, probe_start, pcap, self._pdec, *self._args(m))
         L = self.oversample
         xu, yu = self._xin_up, self._y_up
         self._rs.up_into(x, xu)
-        frames = K.run_block(xu, n * L, yu, pb, probe_start, pcap, self._pdec, *self._args(m))
+        frames = run(xu, n * L, yu, pb, probe_start, pcap, self._pdec, *self._args(m))
         yv = yu[:n * L]
         yv -= self._ydc
         self._rs.down_into(yv, y)
