@@ -17,7 +17,9 @@ for the change in p plus the nonlinear part of the previous step), runs
 chord iterations with the inverse of an earlier Jacobian (formed by
 Gauss-Jordan elimination, so every step is one matrix-vector product) with
 the stopping rule of Hairer & Wanner (error left <= th/(1-th)*|step|, th the
-measured contraction rate), refactors before the next sample when the rate
+measured contraction rate; on a sample's first step, not yet measured, the
+larger of the last one and the Jacobian's drift since its factorisation),
+refactors before the next sample when the rate
 was poor, and falls through to Newton-Raphson (pnjlim limiting; a fresh
 Jacobian whenever the steps stop contracting fast, else the last one's
 inverse is kept) when the rate exceeds 1/4.  Devices whose port voltages
@@ -87,15 +89,17 @@ def _refresh_cache_stamp():
 _refresh_cache_stamp()
 
 from engine.devices import bjt, diode, jfet, opamp, ota  # noqa: E402
+from engine.devices._common import VT  # noqa: E402
 
 # counter slots in the int64 array ``cnt``
 (C_SAMPLES, C_NONCONV, C_FALLBACK, C_MAXIT, C_PHASE, C_INDEX, C_ITERS, C_LUOK,
  C_FACTOR) = range(9)
 N_COUNTERS = 10
 
-# Newton stops when a step is below ABSTOL + RELTOL*|v|.  Newton's error after
-# a step d is second order, about d**2/(2*VT) at a junction: 3e-5 V leaves
-# ~2e-8 V, i.e. ~7e-7 relative in a junction current (below -120 dB).
+# Newton stops when a step is below ABSTOL + RELTOL*|v| (both scaled down
+# with a tighter tolerance: newton_tol, Simulator's tolerance).  Newton's
+# error after a step d is second order, about d**2/(2*VT) at a junction:
+# 3e-5 V leaves ~2e-8 V, i.e. ~7e-7 relative in a junction current.
 ABSTOL = 3e-5   # V
 RELTOL = 1e-6
 MAXIT = 30
@@ -527,11 +531,21 @@ def take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def within(F, vn, n, eta, tol):
-    """True when every eta*|F[r]| <= tol + RELTOL*|vn[r]| (F: the step just
+def newton_tol(mem):
+    """Step size below which a Newton step (fresh Jacobian) has converged:
+    its error is then about step**2/(2*N*VT) at a junction, so
+    min(ABSTOL, sqrt(2*VT*tol)) leaves at most the tolerance mem[2] (below
+    2e-8 V at the default, where ABSTOL binds)."""
+    t = math.sqrt(2.0 * VT * mem[2])
+    return t if t < ABSTOL else ABSTOL
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+def within(F, vn, n, eta, tol, rtol):
+    """True when every eta*|F[r]| <= tol + rtol*|vn[r]| (F: the step just
     taken, vn: the new iterate; eta scales the step to the error estimate)."""
     for r in range(n):
-        if not eta * abs(F[r]) <= tol + RELTOL * abs(vn[r]):
+        if not eta * abs(F[r]) <= tol + rtol * abs(vn[r]):
             return False
     return True
 
@@ -609,13 +623,22 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, maxit, cnt, 
                     break
             # a stale Jacobian far stiffer than the true one makes tiny steps
             # from a large residual: never trust those
-            conv = res <= RES_SANE and (tiny or within(F, vn, n, th / (1.0 - th), mem[2]))
+            conv = res <= RES_SANE and (tiny or within(F, vn, n, th / (1.0 - th), mem[2], mem[3]))
             if conv and it == 0:
-                # a step from factors of a very different Jacobian (e.g. a
-                # junction that was in hard conduction and is now off) can be
-                # tiny while the error is not: take it only if the Jacobian
-                # has not moved much (else measure the rate on a second step)
-                conv = jacobian_drift(G, Gf, dpo, dnp, kc) <= DRIFT_MAX
+                # The first step's rate is not measured.  The chord rate is
+                # about the relative change of the Jacobian since its
+                # factorisation (|J_f^-1 (J - J_f)|; Kelley 1995, sec. 5.4),
+                # which jacobian_drift scores device by device: the error
+                # estimate uses the larger of it and the remembered rate.
+                # A step from factors of a very different Jacobian (a
+                # junction that was in hard conduction and is now off) can
+                # be tiny while the error is not: beyond DRIFT_MAX, always
+                # measure the rate on a second step.
+                dr = jacobian_drift(G, Gf, dpo, dnp, kc)
+                if not dr <= DRIFT_MAX:
+                    conv = False
+                elif dr > th and not tiny:
+                    conv = within(F, vn, n, dr / (1.0 - dr), mem[2], mem[3])
             for r in range(n):
                 v[r] = vn[r]
             done += 1
@@ -644,7 +667,7 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
     (Shamanskii's modification of Newton's method; Kelley, Iterative Methods
     for Linear and Nonlinear Equations, SIAM 1995, sec. 5.4.3); a step with
     kept factors that does not contract is dropped.  A step
-    right after a refactorisation is a Newton step and stops on ABSTOL
+    right after a refactorisation is a Newton step and stops on newton_tol
     (error ~ step**2/(2*VT)); a step with older factors stops on the
     error estimate th/(1-th)*|step| <= tolerance, as the chord loop does.
     """
@@ -660,7 +683,7 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
                 return -1
         big = take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs)
         if fresh:
-            conv = within(F, vn, n, 1.0, ABSTOL)
+            conv = within(F, vn, n, 1.0, newton_tol(mem), mem[3])
         elif big > STEP_FLOOR:
             th = big / prev if prev > 0.0 else 1.0
             if not th < THETA_MAX:
@@ -669,7 +692,7 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
                 # undo the last Newton step, a two-cycle)
                 fresh = True
                 continue
-            conv = res <= RES_SANE and within(F, vn, n, th / (1.0 - th), mem[2])
+            conv = res <= RES_SANE and within(F, vn, n, th / (1.0 - th), mem[2], mem[3])
         else:
             conv = True
         for r in range(n):
@@ -863,10 +886,10 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     1.. of y, computed only then) is written into pbuf (if it has rows) at
     columns pstart, pstart+1 ... below ``pcap``.  kc[c] = max |K[:, c]|
     (the model's column scales of K, for :func:`jacobian_drift`).  ws is an
-    (11, max(padded ports, padded states, 3)) workspace: rows 0-5 scratch;
+    (11, max(padded ports, padded states, 4)) workspace: rows 0-5 scratch;
     rows 6-10 persist (v two samples back; the predictor's last linear step;
-    bypass memory (2 rows); chord rate memory, refactor flag and error
-    tolerance).  Returns the number of probe frames written.
+    bypass memory (2 rows); chord rate memory, refactor flag, absolute and
+    relative error tolerance).  Returns the number of probe frames written.
     """
     nz = z.size      # states, varying sources, zero padding
     nx = xp.size
@@ -907,15 +930,13 @@ def newton2(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, Ji, vn, veval, ieval,
     a one-port circuit has a zero second port), with a fresh Jacobian at
     every iteration inverted in closed form (cheaper at this size than
     deciding whether to keep it), pnjlim limiting and SPICE's bypass.
-    Stops on a step below min(ABSTOL, sqrt(2*VT*tol)) + RELTOL*|v|: Newton's
-    error after a step d is about d**2/(2*N*VT) at a junction, so this
-    leaves at most the tolerance mem[2] (below 2e-8 V at the default).
+    Stops on a step below :func:`newton_tol` + mem[3]*|v| (mem[3]: the
+    relative tolerance).
     Ji keeps the last Jacobian's inverse (the next sample's predictor).
     Returns the number of iterations, or -1 (no convergence or a singular
     Jacobian)."""
-    stol = math.sqrt(2.0 * 0.02585 * mem[2])
-    if stol > ABSTOL:
-        stol = ABSTOL
+    stol = newton_tol(mem)
+    rtol = mem[3]
     k00, k01, k10, k11 = K[0, 0], K[0, 1], K[1, 0], K[1, 1]
     for it in range(MAXIT):
         eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
@@ -943,8 +964,8 @@ def newton2(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, Ji, vn, veval, ieval,
         d1 = vn[1] - v[1]
         v[0] = vn[0]
         v[1] = vn[1]
-        if (abs(d0) <= stol + RELTOL * abs(v[0])
-                and abs(d1) <= stol + RELTOL * abs(v[1])):
+        if (abs(d0) <= stol + rtol * abs(v[0])
+                and abs(d1) <= stol + rtol * abs(v[1])):
             i[0] = i0 + g00 * d0 + g01 * d1
             i[1] = i1 + g10 * d0 + g11 * d1
             cnt[C_FACTOR] += it + 1

@@ -137,7 +137,9 @@ class Simulator:
     probe_decimate : one probe frame every this many outer samples.
     block_max : largest block given to :meth:`process_into`.
     tolerance : error (volts) left in the nonlinear port voltages each
-        sample; default the kernel's ERR_TOL (1 uV, SPICE's VNTOL).
+        sample; default the kernel's ERR_TOL (1 uV, SPICE's VNTOL).  The
+        relative tolerance (kernel RELTOL, 1e-6 of the port voltage) scales
+        with it.
 
     The simulation starts at the DC operating point (no thump).
     """
@@ -199,7 +201,7 @@ class Simulator:
         self._i = np.zeros(npt)
         self._pprev = np.zeros(npt)
         self._u = np.zeros(nu)
-        self._ws = np.zeros((11, max(npt, padded(nx), 3)))
+        self._ws = np.zeros((11, max(npt, padded(nx), 4)))
         self._G = np.zeros((npt, npt))
         self._J = np.zeros((npt + 1, 2 * npt))  # [J | I] and a pivot row
         self._Gf = np.zeros((npt, npt))
@@ -238,8 +240,11 @@ class Simulator:
         self._ws[7, :] = 0.0  # predictor's last linear step
         self._ws[8, :] = 1e300  # bypass memory: force a first evaluation
         self._ws[9, :] = 0.0
-        self._ws[10, :] = 0.0  # chord rate memory, refactor flag, tolerance
+        # chord rate memory, refactor flag, absolute and relative tolerance
+        # (RELTOL scaled with the absolute one)
+        self._ws[10, :] = 0.0
         self._ws[10, 2] = self.tolerance
+        self._ws[10, 3] = K.RELTOL * self.tolerance / K.ERR_TOL
         self._cnt[:] = 0
         self._model = m
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i[:n]
