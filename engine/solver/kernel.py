@@ -255,12 +255,26 @@ def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem):
                     far = True
         if far:
             eval_one(dcode[d], par, dpa[d], v, po, i, G)
-            for a in range(m):
-                r = po + a
-                i[r] -= PORT_G0 * v[r]
-                G[r, r] -= PORT_G0
-                veval[r] = v[r]
-                ieval[r] = i[r]
+            if m == 2:
+                v0 = v[po]
+                v1 = v[po + 1]
+                i0 = i[po] - PORT_G0 * v0
+                i1 = i[po + 1] - PORT_G0 * v1
+                i[po] = i0
+                i[po + 1] = i1
+                G[po, po] -= PORT_G0
+                G[po + 1, po + 1] -= PORT_G0
+                veval[po] = v0
+                veval[po + 1] = v1
+                ieval[po] = i0
+                ieval[po + 1] = i1
+            else:
+                for a in range(m):
+                    r = po + a
+                    i[r] -= PORT_G0 * v[r]
+                    G[r, r] -= PORT_G0
+                    veval[r] = v[r]
+                    ieval[r] = i[r]
         elif m == 2:
             i[po] = ieval[po] + G[po, po] * d0 + G[po, po + 1] * d1
             i[po + 1] = ieval[po + 1] + G[po + 1, po] * d0 + G[po + 1, po + 1] * d1
@@ -514,20 +528,31 @@ def residual(p, v, K, i, F, n):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs):
-    """vn = v + Ji F, junction-limited; then F <- vn - v, the step taken.
-    Returns its largest entry, max |vn - v|."""
-    matvec_inplace(Ji, F, vn, n)
+def take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs, tol, rtol, commit):
+    """vn = v + Ji F, junction-limited; then F <- vn - v, the step taken,
+    and, if commit, v <- vn.  Returns (max |F|, w) with
+    w = max |F[r]| / (tol + rtol*|vn[r]|): the step meets an error estimate
+    eta*|F[r]| <= tol + rtol*|vn[r]| for every r exactly when eta*w <= 1
+    (one pass instead of a second loop; w is infinite if F is not finite)."""
     for r in range(n):
-        vn[r] = v[r] + F[r]
+        vn[r] = v[r]
+    gemv_add(Ji, F, vn, n, n)
     limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
     big = 0.0
+    w = 0.0
     for r in range(n):
-        d = vn[r] - v[r]
-        if abs(d) > big:
-            big = abs(d)
+        a = vn[r]
+        d = a - v[r]
+        ad = abs(d)
+        if ad > big:
+            big = ad
+        q = ad / (tol + rtol * abs(a))
+        if not q <= w:
+            w = q if q == q else math.inf
         F[r] = d
-    return big
+        if commit:
+            v[r] = a
+    return big, w
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
@@ -538,26 +563,6 @@ def newton_tol(mem):
     2e-8 V at the default, where ABSTOL binds)."""
     t = math.sqrt(2.0 * VT * mem[2])
     return t if t < ABSTOL else ABSTOL
-
-
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def within(F, vn, n, eta, tol, rtol):
-    """True when every eta*|F[r]| <= tol + rtol*|vn[r]| (F: the step just
-    taken, vn: the new iterate; eta scales the step to the error estimate)."""
-    for r in range(n):
-        if not eta * abs(F[r]) <= tol + rtol * abs(vn[r]):
-            return False
-    return True
-
-
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def matvec_inplace(Ji, F, tmp, n):
-    """F <- Ji F (tmp: scratch)."""
-    for r in range(n):
-        tmp[r] = 0.0
-    gemv_add(Ji, F, tmp, n, n)
-    for r in range(n):
-        F[r] = tmp[r]
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
@@ -611,19 +616,18 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, maxit, cnt, 
         for it in range(CHORD_MAX):
             eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
             res = residual(p, v, K, i, F, n)
-            big = take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs)
+            big, w = take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs, mem[2],
+                               mem[3], True)
             tiny = big <= STEP_FLOOR
             if it > 0 and not tiny:
                 th = big / prev if prev > 0.0 else 0.0
                 if not th < THETA_MAX:
-                    for r in range(n):
-                        v[r] = vn[r]
                     done += 1
                     mem[1] = 1.0  # refactor before the next sample
                     break
             # a stale Jacobian far stiffer than the true one makes tiny steps
             # from a large residual: never trust those
-            conv = res <= RES_SANE and (tiny or within(F, vn, n, th / (1.0 - th), mem[2], mem[3]))
+            conv = res <= RES_SANE and (tiny or th / (1.0 - th) * w <= 1.0)
             if conv and it == 0:
                 # The first step's rate is not measured.  The chord rate is
                 # about the relative change of the Jacobian since its
@@ -638,9 +642,7 @@ def newton(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, maxit, cnt, 
                 if not dr <= DRIFT_MAX:
                     conv = False
                 elif dr > th and not tiny:
-                    conv = within(F, vn, n, dr / (1.0 - dr), mem[2], mem[3])
-            for r in range(n):
-                v[r] = vn[r]
+                    conv = dr / (1.0 - dr) * w <= 1.0
             done += 1
             if conv:
                 if it > 0:
@@ -681,9 +683,10 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
         if fresh:
             if not factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt):
                 return -1
-        big = take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs)
+        big, w = take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs,
+                           newton_tol(mem) if fresh else mem[2], mem[3], False)
         if fresh:
-            conv = within(F, vn, n, 1.0, newton_tol(mem), mem[3])
+            conv = w <= 1.0
         elif big > STEP_FLOOR:
             th = big / prev if prev > 0.0 else 1.0
             if not th < THETA_MAX:
@@ -692,7 +695,7 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
                 # undo the last Newton step, a two-cycle)
                 fresh = True
                 continue
-            conv = res <= RES_SANE and within(F, vn, n, th / (1.0 - th), mem[2], mem[3])
+            conv = res <= RES_SANE and th / (1.0 - th) * w <= 1.0
         else:
             conv = True
         for r in range(n):
@@ -730,8 +733,6 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
     v2 keeps the solution two samples back.
     """
     n = p.size
-    for r in range(n):
-        vprev[r] = v[r]
     if cnt[C_LUOK] == 1:
         for r in range(n):
             F[r] = p[r] - pprev[r]
@@ -739,13 +740,16 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
         gemv_inl(Ji, F, vn, n, n)
         for r in range(n):
             # linear step for the change in p (vn), plus the last sample's
-            # nonlinear part of its step (its step less its linear part)
+            # nonlinear part of its step (its step less its linear part);
+            # vprev, v2 and ptmp set in the same pass
+            vr = v[r]
             lin = vn[r]
-            vn[r] = v[r] + lin + (v[r] - v2[r] - lprev[r])
+            vprev[r] = vr
+            v[r] = vr + lin + (vr - v2[r] - lprev[r])
             lprev[r] = lin
-        limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
-        for r in range(n):
-            v[r] = vn[r]
+            v2[r] = vr
+            ptmp[r] = p[r]
+        limit_moved(dcode, dpo, dnp, dpa, par, dqs, v, vprev)
         if mem[1] != 0.0:
             # the last sample's chord iterations contracted slowly: refactor
             # at this sample's predicted point (closer to its solution than
@@ -754,10 +758,12 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
             eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
             factor_jacobian_outlined(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt)
             mem[0] = 0.0
+    else:
+        for r in range(n):
+            vprev[r] = v[r]
+            v2[r] = v[r]
+            ptmp[r] = p[r]
     mem[1] = 0.0
-    for r in range(n):
-        v2[r] = vprev[r]
-        ptmp[r] = p[r]
     # One call site of the (inlined) Newton solver serves the direct solve
     # and the fallback: continuation in p from the previous sample, in 4
     # then 16 sub-steps (ptmp: the p of the current (sub-)step).
