@@ -5,8 +5,11 @@ classify its transistors (engine.demo.transistor_check), then render the
 synthetic guitar phrase "demo" (engine.synth) at the design's suggested
 oversampling, in 4096-sample blocks through ``Simulator.process_into`` as the
 live host does. The kernels are warmed on a short block first, so the timing
-excludes compilation. Real-time factor = audio seconds / wall seconds (the
-target is 20x or more). Prints a table and writes bench/results/designs.json.
+excludes compilation. The designs are timed round-robin, --repeat times
+each, and each keeps its best run (the table also stores the median), so a
+slow stretch of a shared machine does not fall on one design alone.
+Real-time factor = audio seconds / wall seconds (the target is 20x or
+more). Prints a table and writes bench/results/designs.json.
 
 For designs with a gain-cell control meter (the compressors) it also
 measures, outside the timing: the static curve's threshold (1 dB of gain
@@ -41,45 +44,69 @@ TARGET_RT = 20.0
 BLOCK = 4096
 
 
-def bench_one(name: str, x: np.ndarray, repeat: int) -> dict:
-    d = load_design(name)
-    circ = d.flatten()
-    t0 = time.perf_counter()
-    sim = Simulator(circ, fs=FS, oversample=d.oversample, block_max=BLOCK)
-    op = sim.operating_point()
-    t_setup = time.perf_counter() - t0
-    checks = demo.transistor_check(d, op)
-    problems = demo.transistor_problems(d, op)
-    y = np.empty(BLOCK)
-    sim.process_into(np.zeros(BLOCK), y)          # warm the compiled kernels
-    walls = []
-    nonconv = 0
-    for _ in range(repeat):
+class DesignRun:
+    """One design set up for timing: flattened, at its operating point, its
+    kernels warmed (compilation excluded from the timing)."""
+
+    def __init__(self, name: str):
+        self.name = name
+        self.d = d = load_design(name)
+        t0 = time.perf_counter()
+        self.sim = Simulator(d.flatten(), fs=FS, oversample=d.oversample, block_max=BLOCK)
+        self.op = self.sim.operating_point()
+        self.setup_s = time.perf_counter() - t0
+        y = np.empty(BLOCK)
+        self.sim.process_into(np.zeros(BLOCK), y)          # warm the compiled kernels
+        self.walls: list[float] = []
+        self.nonconv = 0
+        self.out = None
+
+    def time_once(self, x: np.ndarray) -> None:
+        """Render x once from the operating point, as the live host does."""
+        sim = self.sim
         sim.reset()
         out = np.empty_like(x)
         t1 = time.perf_counter()
         for s in range(0, x.size, BLOCK):
             e = min(s + BLOCK, x.size)
             sim.process_into(x[s:e], out[s:e])
-        walls.append(time.perf_counter() - t1)
-        nonconv = max(nonconv, sim.stats["nonconverged"])
-    wall = min(walls)
-    types = [p.type for p in d.parts()]
-    return {
-        "design": name, "title": d.name, "oversample": d.oversample,
-        "bjts": types.count("npn") + types.count("pnp"),
-        "devices": sum(types.count(t) for t in ("npn", "pnp", "njfet", "pjfet", "diode",
-                                                "opamp", "ota")),
-        "states": sim.n_states, "ports": sim.n_ports,
-        "setup_s": t_setup, "audio_s": x.size / FS, "wall_s": wall,
-        "realtime_factor": (x.size / FS) / wall, "meets_target": (x.size / FS) / wall >= TARGET_RT,
-        "nonconverged": nonconv,
-        "op_method": getattr(op, "method", ""),
-        "transistors": {r["part"]: r["region"] + (" (by design)" if r["intended"] else "")
-                        for r in checks},
-        "op_problems": problems,
-        "out_rms_v": float(np.sqrt(np.mean((out - out.mean()) ** 2))),
-    }
+        self.walls.append(time.perf_counter() - t1)
+        self.nonconv = max(self.nonconv, sim.stats["nonconverged"])
+        self.out = out
+
+    def row(self, x: np.ndarray) -> dict:
+        d, sim, op = self.d, self.sim, self.op
+        wall = min(self.walls)
+        types = [p.type for p in d.parts()]
+        return {
+            "design": self.name, "title": d.name, "oversample": d.oversample,
+            "bjts": types.count("npn") + types.count("pnp"),
+            "devices": sum(types.count(t) for t in ("npn", "pnp", "njfet", "pjfet", "diode",
+                                                    "opamp", "ota")),
+            "states": sim.n_states, "ports": sim.n_ports,
+            "setup_s": self.setup_s, "audio_s": x.size / FS, "wall_s": wall,
+            "wall_median_s": float(np.median(self.walls)),
+            "realtime_factor": (x.size / FS) / wall,
+            "meets_target": (x.size / FS) / wall >= TARGET_RT,
+            "nonconverged": self.nonconv,
+            "op_method": getattr(op, "method", ""),
+            "transistors": {r["part"]: r["region"] + (" (by design)" if r["intended"] else "")
+                            for r in demo.transistor_check(d, op)},
+            "op_problems": demo.transistor_problems(d, op),
+            "out_rms_v": float(np.sqrt(np.mean((self.out - self.out.mean()) ** 2))),
+        }
+
+
+def bench_all(names: list[str], x: np.ndarray, repeat: int) -> list[dict]:
+    """Time every design ``repeat`` times, round-robin: on a shared machine
+    whose speed drifts over minutes, each design then meets the same slow
+    and fast stretches instead of one design taking all of a slow one.  The
+    best run of each is kept (noise only ever adds time)."""
+    runs = [DesignRun(n) for n in names]
+    for _ in range(repeat):
+        for r in runs:
+            r.time_once(x)
+    return [r.row(x) for r in runs]
 
 
 #: Onsets (s) of the demo phrase's soft and hard single notes (engine.synth).
@@ -125,12 +152,13 @@ def cpu_times() -> tuple[int, int] | None:
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--repeat", type=int, default=3, help="timed runs per design (best kept)")
+    ap.add_argument("--repeat", type=int, default=5,
+                    help="timed runs per design, round-robin over the designs (best kept)")
     ap.add_argument("--designs", nargs="*", default=None, help="names (default: all built-in)")
     args = ap.parse_args(argv)
     x = render_phrase("demo", fs=FS)
     c0 = cpu_times()
-    rows = [bench_one(n, x, args.repeat) for n in (args.designs or sorted(builtin_designs()))]
+    rows = bench_all(args.designs or sorted(builtin_designs()), x, args.repeat)
     c1 = cpu_times()
     steal = None
     if c0 and c1 and (c1[0] - c0[0]) + (c1[1] - c0[1]) > 0:
