@@ -42,7 +42,7 @@ samples) are real calls.  The padded matrix-vector product is inlined at
 the four products made once per sample (gemv_inl) and a real call inside
 Newton's loops (gemv_add).  numba's builtin max() is an out-of-line call
 per use, so the per-sample path compares explicitly.  Cold start (empty
-cache) to the first block: ~20-23 s.
+cache) to the first block: ~20-26 s (bench/bench_solver.py).
 
 Everything here runs on the audio thread: no allocation, ``nogil=True``,
 ``cache=True``.
