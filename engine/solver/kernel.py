@@ -36,7 +36,8 @@ cost ~100 ns, more than a 2-port Newton step itself.  numba's IR-level
 inlining is slow to compile, so it is used sparingly: newton has a single
 call site (the fallback's continuation sub-steps reuse it), each device
 type's evaluate/limit is compiled once into one dispatch function (eval_one,
-limit_one: one real call per device), and the Jacobian inverse and the
+limit_one: one real call per device; eval_one is inlined only into the lean
+two-port kernel, through a numba inline cost model), and the Jacobian inverse and the
 refactoring Newton phase (newton_refactoring; both on a few per cent of
 samples) are real calls.  The padded matrix-vector product is inlined at
 the four products made once per sample (gemv_inl) and a real call inside
@@ -205,7 +206,15 @@ def eval_devices(dcode, dpo, dpa, par, v, i, G):
         eval_one(dcode[d], par, dpa[d], v, dpo[d], i, G)
 
 
-@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM)
+def _inline_in_small(expr, caller_ir, callee_ir):
+    """numba inline cost model: inline at the IR level only into the lean
+    two-port kernel (one or two devices: the call's argument passing cost
+    more than a device's arithmetic there); a real call everywhere else."""
+    return caller_ir.func_id.func_name == "run_block_small"
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM,
+      inline=_inline_in_small)
 def eval_one(c, par, pa, v, po, i, G):
     """Evaluate one device by type code."""
     if c == 2:
