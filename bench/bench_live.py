@@ -4,8 +4,12 @@ For every built-in design and an A/B pair, at 64, 128 and 256 samples per
 block and 48 kHz, runs the host's whole audio-thread path
 (``LiveHost._audio_block``: source, simulator(s), output stage, meters) on
 the built-in synthetic instrument and reports the distribution of the time
-per block (median, p99, p99.9, max) as a fraction of the block period.
-Target from issue 3: p99.9 <= 25 % of the period for the flagship at 64.
+per block (median, p99, p99.9, max) as a fraction of the block period:
+for a first pass by the wall clock and by the thread's CPU time, and for
+each block's smallest CPU time over --passes fresh passes (the work per
+block is deterministic, so that is the code's own cost with a shared
+machine's interference taken out).  Target from issue 3: p99.9 <= 25 % of
+the period for the flagship at 64.
 
 Then, with blocks paced in real time on a thread (as a sound card would),
 measures the time from a part change request to the start of the first block
@@ -13,7 +17,7 @@ that uses it.
 
 Prints a table and writes bench/results/live.json.
 
-    python bench/bench_live.py [--seconds 5] [--designs a,b] [--quick]
+    python bench/bench_live.py [--seconds 5] [--designs a,b] [--quick] [--passes 3]
 """
 from __future__ import annotations
 
@@ -44,8 +48,9 @@ def _source(phrase_volts):
     return LoopSource(phrase_volts, "synthetic instrument")
 
 
-def block_times(design, variant, block, seconds, volts) -> dict:
-    """Time every block of ``seconds`` of audio through the host path."""
+def _one_pass(design, variant, block, seconds, volts):
+    """(prepare seconds, wall and thread-CPU seconds of every block, meters)
+    of one fresh host over ``seconds`` of audio through the host path."""
     h = LiveHost(load_design(design), variant=load_design(variant) if variant else None,
                  fs=FS, block=block, source=_source(volts), autosave=False)
     try:
@@ -66,20 +71,39 @@ def block_times(design, variant, block, seconds, volts) -> dict:
             t[i] = pc() - a
         if h.error is not None:
             raise h.error
-        period = block / FS
-        q = np.quantile(t, [0.5, 0.99, 0.999])
-        qc = np.quantile(c, [0.5, 0.99, 0.999])
-        return {"design": design, "variant": variant, "block": block, "blocks": n,
-                "period_s": period, "prepare_s": prep,
-                "median_s": float(q[0]), "p99_s": float(q[1]), "p999_s": float(q[2]),
-                "max_s": float(t.max()),
-                "median_frac": float(q[0] / period), "p99_frac": float(q[1] / period),
-                "p999_frac": float(q[2] / period), "max_frac": float(t.max() / period),
-                "cpu_median_frac": float(qc[0] / period), "cpu_p99_frac": float(qc[1] / period),
-                "cpu_p999_frac": float(qc[2] / period), "cpu_max_frac": float(c.max() / period),
-                "nonconverged": h.meters()["nonconverged"]}
+        return prep, t, c, h.meters()
     finally:
         h.close()
+
+
+def block_times(design, variant, block, seconds, volts, passes: int = 3) -> dict:
+    """Time every block of ``seconds`` of audio through the host path.
+
+    The first pass gives the distribution as one run meets it (wall clock
+    and the thread's CPU time).  The work per block is deterministic (same
+    input, a fresh host at the same operating point each pass), so the
+    smallest CPU time of each block over ``passes`` passes is the cost of
+    the code itself on this machine, without what a shared machine adds (a
+    neighbour's load, cache and memory-bandwidth contention): both are
+    reported."""
+    runs = [_one_pass(design, variant, block, seconds, volts) for _ in range(max(1, passes))]
+    prep, t, c, meters = runs[0]
+    best = np.min(np.vstack([r[2] for r in runs]), axis=0)
+    period = block / FS
+    q = np.quantile(t, [0.5, 0.99, 0.999])
+    qc = np.quantile(c, [0.5, 0.99, 0.999])
+    qb = np.quantile(best, [0.5, 0.99, 0.999])
+    return {"design": design, "variant": variant, "block": block, "blocks": int(t.size),
+            "period_s": period, "prepare_s": prep, "passes": len(runs),
+            "median_s": float(q[0]), "p99_s": float(q[1]), "p999_s": float(q[2]),
+            "max_s": float(t.max()),
+            "median_frac": float(q[0] / period), "p99_frac": float(q[1] / period),
+            "p999_frac": float(q[2] / period), "max_frac": float(t.max() / period),
+            "cpu_median_frac": float(qc[0] / period), "cpu_p99_frac": float(qc[1] / period),
+            "cpu_p999_frac": float(qc[2] / period), "cpu_max_frac": float(c.max() / period),
+            "best_median_frac": float(qb[0] / period), "best_p99_frac": float(qb[1] / period),
+            "best_p999_frac": float(qb[2] / period), "best_max_frac": float(best.max() / period),
+            "nonconverged": meters["nonconverged"]}
 
 
 def host_overhead(block: int, ab: bool, n: int = 5000) -> dict:
@@ -157,6 +181,9 @@ def main(argv=None) -> int:
     ap.add_argument("--seconds", type=float, default=5.0, help="audio per case (default 5)")
     ap.add_argument("--designs", help="comma-separated designs (default: all built-in)")
     ap.add_argument("--quick", action="store_true", help="1 s per case, 64 samples only")
+    ap.add_argument("--passes", type=int, default=3,
+                    help="passes per case; each block's smallest CPU time over them is "
+                         "reported beside the first pass (default 3)")
     args = ap.parse_args(argv)
     from engine.synth import render_phrase
     volts = render_phrase("demo", FS)
@@ -165,15 +192,17 @@ def main(argv=None) -> int:
     secs = 1.0 if args.quick else args.seconds
     rows, errors = [], []
     cases = [(d, None) for d in designs] + [AB_PAIR]
-    print("time per block as a fraction of the block period; wall clock, then the "
-          "thread's CPU time\n(the CPU time leaves out preemption by other processes)")
+    print("time per block as a fraction of the block period: first pass by the wall clock "
+          "and by the thread's CPU time\n(which leaves out preemption by other processes); "
+          f"then each block's least CPU time over {args.passes} passes (the code's own cost)")
     print(f"{'design':<34}{'block':>6}{'median':>8}{'p99':>8}{'p99.9':>8}{'max':>8}"
-          f" |{'cpu med':>8}{'p99':>8}{'p99.9':>8}{'max':>8}")
+          f" |{'cpu med':>8}{'p99':>8}{'p99.9':>8}{'max':>8} |{'best med':>9}{'p99':>7}"
+          f"{'p99.9':>7}{'max':>7}")
     for d, v in cases:
         for b in blocks:
             name = d if v is None else f"{d} vs {v}"
             try:
-                r = block_times(d, v, b, secs, volts)
+                r = block_times(d, v, b, secs, volts, args.passes)
             except SolderlessError as exc:
                 errors.append({"design": name, "block": b, "error": str(exc)})
                 print(f"{name:<34}{b:>6}   error: {exc}")
@@ -181,7 +210,9 @@ def main(argv=None) -> int:
             rows.append(r)
             print(f"{name:<34}{b:>6}{r['median_frac']:8.3f}{r['p99_frac']:8.3f}"
                   f"{r['p999_frac']:8.3f}{r['max_frac']:8.3f} |{r['cpu_median_frac']:8.3f}"
-                  f"{r['cpu_p99_frac']:8.3f}{r['cpu_p999_frac']:8.3f}{r['cpu_max_frac']:8.3f}")
+                  f"{r['cpu_p99_frac']:8.3f}{r['cpu_p999_frac']:8.3f}{r['cpu_max_frac']:8.3f} |"
+                  f"{r['best_median_frac']:9.3f}{r['best_p99_frac']:7.3f}"
+                  f"{r['best_p999_frac']:7.3f}{r['best_max_frac']:7.3f}")
     overhead = []
     for b in blocks:
         for ab in (False, True):
@@ -213,8 +244,10 @@ def main(argv=None) -> int:
            "target": {"what": "flagship, 64 samples, single design: p99.9 <= 0.25 of the period",
                       "p999_frac": target[0]["p999_frac"] if target else None,
                       "cpu_p999_frac": target[0]["cpu_p999_frac"] if target else None,
+                      "best_p999_frac": target[0]["best_p999_frac"] if target else None,
                       "met_wall": (target[0]["p999_frac"] <= 0.25) if target else None,
-                      "met_cpu": (target[0]["cpu_p999_frac"] <= 0.25) if target else None}}
+                      "met_cpu": (target[0]["cpu_p999_frac"] <= 0.25) if target else None,
+                      "met_best": (target[0]["best_p999_frac"] <= 0.25) if target else None}}
     out = ROOT / "bench" / "results" / "live.json"
     out.parent.mkdir(parents=True, exist_ok=True)
     out.write_text(json.dumps(res, indent=1))
