@@ -28,6 +28,9 @@ moved less than BYPASS_RATIO times the tolerance are not re-evaluated
 previous sample in sub-steps (4, then 16); if that fails too the previous port
 solution is kept and counted.  Output is never NaN.  Loops are compiled
 with reassociation allowed (dot products on several accumulators).
+Circuits with one or two nonlinear ports run the lean kernel
+run_block_small instead: the same predictor and fallback around plain
+Newton with a closed-form 2 x 2 inverse at every iteration.
 
 The per-sample path (solve_ports, newton, the device loops and the chord
 step) is inlined into run_block (numba ``inline="always"``): numba passes
@@ -995,8 +998,8 @@ def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
                     uvar, skind, sptr, spar, inp, dt,
                     z, xp, v, i, pprev, ws, G, Gf, J, Ji, yrow, cnt):
     """:func:`run_block` for circuits with one or two nonlinear ports
-    (SMALL_PORTS; same arguments, same state, same counters: a circuit may
-    move between the two at a block boundary).
+    (SMALL_PORTS; same arguments, workspace layout and counters; Simulator
+    picks one of the two at construction).
 
     At this size the generic path's bookkeeping (padded loops, chord
     rates, drift checks, real calls) costs more than the arithmetic, so
