@@ -42,18 +42,22 @@ def lexp(x):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
-def junction(v, isat, vte):
+def junction(v, isat, vte, rvte):
     """Shockley junction current and conductance as in ngspice (no GMIN).
 
     Forward and mild reverse: I = IS*(exp(v/vte) - 1).  Below -3*vte the
     reverse-bias approximation I = -IS*(1 + (3*vte/(v*e))**3) is used.
+    rvte = 1/vte, kept in the device's parameters: a multiplication costs a
+    fraction of a division, and the device laws run several per junction
+    at every Newton iteration.
     """
     if v >= -3.0 * vte:
-        e, de = lexp(v / vte)
-        return isat * (e - 1.0), isat * de / vte
-    a = 3.0 * vte / (v * math.e)
+        e, de = lexp(v * rvte)
+        return isat * (e - 1.0), isat * de * rvte
+    rv = 1.0 / v
+    a = (3.0 / math.e) * vte * rv
     a = a * a * a
-    return -isat * (1.0 + a), isat * 3.0 * a / v
+    return -isat * (1.0 + a), isat * 3.0 * a * rv
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)

@@ -27,7 +27,8 @@ DEFAULTS = {"IS": 1e-16, "BF": 100.0, "BR": 1.0, "NF": 1.0, "NR": 1.0,
             "VAF": math.inf, "VAR": math.inf, "RB": 0.0, "RC": 0.0, "RE": 0.0,
             "IKF": math.inf, "IKR": math.inf, "ISE": 0.0, "ISC": 0.0,
             "CJE": 0.0, "CJC": 0.0, "TF": 0.0, "TR": 0.0}
-# par: 0 pol, 1 IS, 2 BF, 3 BR, 4 vtf, 5 vtr, 6 1/VAF, 7 1/VAR, 8 vcrit_f, 9 vcrit_r
+# par: 0 pol, 1 IS, 2 BF, 3 BR, 4 vtf, 5 vtr, 6 1/VAF, 7 1/VAR, 8 vcrit_f, 9 vcrit_r,
+# 10 1/BF, 11 1/BR, 12 1/vtf, 13 1/vtr (reciprocals: the evaluation multiplies)
 
 
 def layout(el) -> DeviceLayout:
@@ -50,7 +51,8 @@ def layout(el) -> DeviceLayout:
     vtf, vtr = p["NF"] * VT, p["NR"] * VT
     par = np.array([pol, p["IS"], p["BF"], p["BR"], vtf, vtr,
                     1.0 / p["VAF"], 1.0 / p["VAR"],
-                    vcrit(vtf, p["IS"]), vcrit(vtr, p["IS"])])
+                    vcrit(vtf, p["IS"]), vcrit(vtr, p["IS"]),
+                    1.0 / p["BF"], 1.0 / p["BR"], 1.0 / vtf, 1.0 / vtr])
     return DeviceLayout(CODE, [(bi, ei), (ci, ei)], par, internal, stamps,
                         probes={"ib": ({0: 1.0}, {}), "ic": ({1: 1.0}, {}),
                                 "ie": ({0: -1.0, 1: -1.0}, {}),
@@ -68,8 +70,10 @@ def evaluate(par, pa, v, po, i, G):
     vce = pol * v[po + 1]
     vbc = vbe - vce
     isat = par[pa + 1]
-    cbe, gbe = junction(vbe, isat, par[pa + 4])
-    cbc, gbc = junction(vbc, isat, par[pa + 5])
+    cbe, gbe = junction(vbe, isat, par[pa + 4], par[pa + 12])
+    cbc, gbc = junction(vbc, isat, par[pa + 5], par[pa + 13])
+    rbf = par[pa + 10]
+    rbr = par[pa + 11]
     q1 = 1.0 - vbc * par[pa + 6] - vbe * par[pa + 7]
     if q1 < 1e-3:
         q1 = 1e-3
@@ -77,12 +81,12 @@ def evaluate(par, pa, v, po, i, G):
     ict = (cbe - cbc) * q1
     dict_dvbe = gbe * q1 - (cbe - cbc) * par[pa + 7]
     dict_dvbc = -gbc * q1 - (cbe - cbc) * par[pa + 6]
-    ic = ict - cbc / par[pa + 3] - GMIN * vbc
-    ib = cbe / par[pa + 2] + cbc / par[pa + 3] + GMIN * (vbe + vbc)
+    ic = ict - cbc * rbr - GMIN * vbc
+    ib = cbe * rbf + cbc * rbr + GMIN * (vbe + vbc)
     dic_dvbe = dict_dvbe
-    dic_dvbc = dict_dvbc - gbc / par[pa + 3] - GMIN
-    dib_dvbe = gbe / par[pa + 2] + GMIN
-    dib_dvbc = gbc / par[pa + 3] + GMIN
+    dic_dvbc = dict_dvbc - gbc * rbr - GMIN
+    dib_dvbe = gbe * rbf + GMIN
+    dib_dvbc = gbc * rbr + GMIN
     # chain rule: vbc = vbe - vce
     i[po] = pol * ib
     i[po + 1] = pol * ic

@@ -37,7 +37,7 @@ def layout(el) -> DeviceLayout:
         ai = f"{el.name}#a"
         internal.append(ai)
         stamps.append(("R", a, ai, p["RS"]))
-    par = np.array([p["IS"], vte, vcrit(vte, p["IS"]), xbv])
+    par = np.array([p["IS"], vte, vcrit(vte, p["IS"]), xbv, 1.0 / vte])
     return DeviceLayout(CODE, [(ai, k)], par, internal, stamps,
                         probes={"id": ({0: 1.0}, {}), "vd": ({}, {0: 1.0})},
                         quiet_step=2.0 * vte)
@@ -50,12 +50,13 @@ def evaluate(par, pa, v, po, i, G):
     isat = par[pa + 0]
     vte = par[pa + 1]
     xbv = par[pa + 3]
+    rvte = par[pa + 4]
     if vd < -xbv:
-        e, de = lexp(-(xbv + vd) / vte)
+        e, de = lexp(-(xbv + vd) * rvte)
         c = -isat * e
-        g = isat * de / vte
+        g = isat * de * rvte
     else:
-        c, g = junction(vd, isat, vte)
+        c, g = junction(vd, isat, vte, rvte)
     i[po] = c + GMIN * vd
     G[po, po] = g + GMIN
 

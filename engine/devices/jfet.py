@@ -41,7 +41,8 @@ def layout(el) -> DeviceLayout:
         stamps.append(("R", s, internal[-1], p["RS"]))
         s = internal[-1]
     vte = p["N"] * VT
-    par = np.array([pol, p["VTO"], p["BETA"], p["LAMBDA"], p["IS"], vte, vcrit(vte, p["IS"])])
+    par = np.array([pol, p["VTO"], p["BETA"], p["LAMBDA"], p["IS"], vte, vcrit(vte, p["IS"]),
+                    1.0 / vte])
     return DeviceLayout(CODE, [(g, s), (d, s)], par, internal, stamps,
                         probes={"ig": ({0: 1.0}, {}), "id": ({1: 1.0}, {}),
                                 "vgs": ({}, {0: 1.0}), "vds": ({}, {1: 1.0})},
@@ -69,8 +70,8 @@ def evaluate(par, pa, v, po, i, G):
     vgs = pol * v[po]
     vds = pol * v[po + 1]
     vgd = vgs - vds
-    igs, ggs = junction(vgs, par[pa + 4], par[pa + 5])
-    igd, ggd = junction(vgd, par[pa + 4], par[pa + 5])
+    igs, ggs = junction(vgs, par[pa + 4], par[pa + 5], par[pa + 7])
+    igd, ggd = junction(vgd, par[pa + 4], par[pa + 5], par[pa + 7])
     igs += GMIN * vgs
     ggs += GMIN
     igd += GMIN * vgd

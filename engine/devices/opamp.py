@@ -25,7 +25,7 @@ CODE = 5
 NPORTS = 2
 DEFAULTS = {"A0": 2e5, "GBW": 1e6, "ROUT": 50.0, "RIN": 1e12, "VHR": 1.5,
             "VSOFT": 0.05, "RP": 1e9}
-# par: 0 I0, 1 VHR, 2 VSOFT, 3 vcrit (shifted variable)
+# par: 0 I0, 1 VHR, 2 VSOFT, 3 vcrit (shifted variable), 4 1/VSOFT
 
 
 def layout(el) -> DeviceLayout:
@@ -42,7 +42,7 @@ def layout(el) -> DeviceLayout:
     if math.isfinite(p["RIN"]):
         stamps.append(("R", inp, inn, p["RIN"]))
     i0 = gm1 * 1e-4
-    par = np.array([i0, p["VHR"], p["VSOFT"], vcrit(p["VSOFT"], i0)])
+    par = np.array([i0, p["VHR"], p["VSOFT"], vcrit(p["VSOFT"], i0), 1.0 / p["VSOFT"]])
     return DeviceLayout(CODE, [(node, vcc), (vee, node)], par, [node], stamps,
                         probes={"iclip": ({0: 1.0, 1: -1.0}, {})},
                         quiet_step=2.0 * p["VSOFT"])
@@ -52,9 +52,9 @@ def layout(el) -> DeviceLayout:
 def evaluate(par, pa, v, po, i, G):
     """Clamp currents I0*exp((v + VHR)/VSOFT) and conductances."""
     for k in range(2):
-        e, de = lexp((v[po + k] + par[pa + 1]) / par[pa + 2])
+        e, de = lexp((v[po + k] + par[pa + 1]) * par[pa + 4])
         i[po + k] = par[pa + 0] * e
-        G[po + k, po + k] = par[pa + 0] * de / par[pa + 2]
+        G[po + k, po + k] = par[pa + 0] * de * par[pa + 4]
     G[po, po + 1] = 0.0
     G[po + 1, po] = 0.0
 

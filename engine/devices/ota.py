@@ -48,7 +48,7 @@ def layout(el) -> DeviceLayout:
     if math.isfinite(p["RIN"]):
         stamps.append(("R", inp, inn, p["RIN"]))
     par = np.array([p["IS"], vte, vcrit(vte, p["IS"]), 1.0 / (2.0 * VT),
-                    p["VLO"], p["VHI"], p["VSOFT"]])
+                    p["VLO"], p["VHI"], p["VSOFT"], 1.0 / vte, 1.0 / p["VSOFT"]])
     return DeviceLayout(CODE, [(inp, inn), (abc, vee), (out, vee)], par, [], stamps,
                         probes={"iabc": ({1: 1.0}, {}), "gm": ({1: 1.0 / (2.0 * VT)}, {}),
                                 "iout": ({2: -1.0}, {}), "vd": ({}, {0: 1.0}),
@@ -60,7 +60,7 @@ def layout(el) -> DeviceLayout:
 def evaluate(par, pa, v, po, i, G):
     """Port currents (0, Iabc, -Iout) and their 3x3 Jacobian."""
     va = v[po + 1]
-    c, g = junction(va, par[pa + 0], par[pa + 1])
+    c, g = junction(va, par[pa + 0], par[pa + 1], par[pa + 7])
     i[po] = 0.0
     i[po + 1] = c + GMIN * va
     G[po + 1, po + 1] = g + GMIN
@@ -73,13 +73,13 @@ def evaluate(par, pa, v, po, i, G):
     dt = (1.0 - t * t) * par[pa + 3]
     vo = v[po + 2]
     if t >= 0.0:
-        h = math.tanh((par[pa + 5] - vo) / par[pa + 6])
+        h = math.tanh((par[pa + 5] - vo) * par[pa + 8])
         s = 0.5 * (1.0 + h)
-        ds = -0.5 * (1.0 - h * h) / par[pa + 6]
+        ds = -0.5 * (1.0 - h * h) * par[pa + 8]
     else:
-        h = math.tanh((vo - par[pa + 4]) / par[pa + 6])
+        h = math.tanh((vo - par[pa + 4]) * par[pa + 8])
         s = 0.5 * (1.0 + h)
-        ds = 0.5 * (1.0 - h * h) / par[pa + 6]
+        ds = 0.5 * (1.0 - h * h) * par[pa + 8]
     i[po + 2] = -ia * t * s
     G[po + 2, po] = -ia * dt * s
     G[po + 2, po + 1] = -dia * t * s
