@@ -470,9 +470,9 @@ def jacobian_drift(G, Gf, dpo, dnp, kc):
                     gf = Gf[po + a, po + b]
                     num += w * abs(g - gf)
                     den += w * _absmax(g, gf)
-        q = num / den
-        if q > worst:
-            worst = q
+        # den >= 1: compare without dividing, divide for a new maximum only
+        if num > worst * den:
+            worst = num / den
     return worst
 
 
@@ -555,9 +555,11 @@ def take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs, tol, rtol, commit
         ad = abs(d)
         if ad > big:
             big = ad
-        q = ad / (tol + rtol * abs(a))
-        if not q <= w:
-            w = q if q == q else math.inf
+        # w = max ad/den, dividing only for a new maximum (a division
+        # per port cost more than the rest of this loop)
+        den = tol + rtol * abs(a)
+        if not ad <= w * den:
+            w = ad / den if ad == ad else math.inf
         F[r] = d
         if commit:
             v[r] = a
