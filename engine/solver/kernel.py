@@ -949,17 +949,17 @@ SMALL_PORTS = 2
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def newton2(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, Ji, vn, veval, ieval, mem, cnt):
+def newton2(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, Ji, vn, veval, ieval, mem, stol,
+            cnt):
     """Newton-Raphson on v = p + K i(v) for at most two ports (v[0], v[1];
     a one-port circuit has a zero second port), with a fresh Jacobian at
     every iteration inverted in closed form (cheaper at this size than
     deciding whether to keep it), pnjlim limiting and SPICE's bypass.
-    Stops on a step below :func:`newton_tol` + mem[3]*|v| (mem[3]: the
-    relative tolerance).
+    Stops on a step below stol (:func:`newton_tol`, worked out once per
+    block by the caller) + mem[3]*|v| (mem[3]: the relative tolerance).
     Ji keeps the last Jacobian's inverse (the next sample's predictor).
     Returns the number of iterations, or -1 (no convergence or a singular
     Jacobian)."""
-    stol = newton_tol(mem)
     rtol = mem[3]
     k00, k01, k10, k11 = K[0, 0], K[0, 1], K[1, 0], K[1, 1]
     for it in range(MAXIT):
@@ -1027,6 +1027,7 @@ def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
     veval = ws[8, :]
     ieval = ws[9, :]
     mem = ws[10]
+    stol = newton_tol(mem)   # the tolerance is fixed for the block: one sqrt
     frames = pstart
     for k in range(nin):
         load_sources(z, nx, uvar, inp, xin[k], skind, sptr, spar, cnt[C_INDEX] * dt)
@@ -1054,7 +1055,7 @@ def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
         s = 1
         while True:
             it = newton2(ptmp, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, Ji, vn, veval,
-                         ieval, mem, cnt)
+                         ieval, mem, stol, cnt)
             good = it > 0
             if good and nsub > 1 and s < nsub:
                 cnt[C_ITERS] += it
