@@ -203,7 +203,8 @@ class Simulator:
         self._u = np.zeros(nu)
         self._ws = np.zeros((11, max(npt, padded(nx), 4)))
         self._G = np.zeros((npt, npt))
-        self._J = np.zeros((npt + 1, 2 * npt))  # [J | I] and a pivot row
+        # [J | I], a pivot row, and the low-rank update's workspace
+        self._J = np.zeros((npt + 1 + K.J_EXTRA_ROWS, 2 * npt))
         self._Gf = np.zeros((npt, npt))
         self._Ji = np.zeros((npt, npt))
         self._yrow = np.zeros(ny)
@@ -357,13 +358,15 @@ class Simulator:
     def stats(self) -> dict:
         """Counters since the last reset: samples (kernel rate), nonconverged,
         fallbacks, max_iterations, mean_iterations, factorizations (Jacobian
-        inversions; chord iterations reuse the last one)."""
+        inversions; chord iterations reuse the last one), jacobian_updates
+        (low-rank updates of the inverse instead of a factorisation)."""
         c = self._cnt
         s = int(c[K.C_SAMPLES])
         return {"samples": s, "nonconverged": int(c[K.C_NONCONV]),
                 "fallbacks": int(c[K.C_FALLBACK]), "max_iterations": int(c[K.C_MAXIT]),
                 "mean_iterations": float(c[K.C_ITERS]) / s if s else 0.0,
-                "factorizations": int(c[K.C_FACTOR])}
+                "factorizations": int(c[K.C_FACTOR]),
+                "jacobian_updates": int(c[K.C_UPDATE])}
 
     @property
     def n_ports(self) -> int:

@@ -61,6 +61,8 @@ class Model:
     y0: np.ndarray = None   # Ey ud
     uvar: np.ndarray = None  # varying sources: the input, then waveform sources
     Kk: np.ndarray = None   # K, C, Fy, Vy with the port dimension padded
+    #                         (Kk: 2 npp x npp, K^T stacked below K so the
+    #                         kernel reads K's columns as rows)
     Ck: np.ndarray = None
     Fyk: np.ndarray = None
     Vyk: np.ndarray = None
@@ -91,6 +93,11 @@ def _pad(a, rows: int | None = None, cols: int | None = None):
     out = np.zeros((a.shape[0] if rows is None else rows, a.shape[1] if cols is None else cols))
     out[:a.shape[0], :a.shape[1]] = a
     return out
+
+
+def _stack_transpose(a):
+    """[a; a^T] for a square a, C-contiguous."""
+    return np.ascontiguousarray(np.vstack([a, a.T]))
 
 
 def solve_mna(net: Network, S: np.ndarray, rhs: np.ndarray, what: str) -> np.ndarray:
@@ -160,6 +167,6 @@ def derive(net: Network, values: dict[str, float], T: float,
                  Az=_pad(np.hstack([A, Bm[:, uvar]]), nxp, nzp), x0=_pad(Bm @ ud, nxp),
                  Yz=_pad(np.hstack([Dy, Ey[:, uvar]]), None, nzp), y0=_c(Ey @ ud),
                  uvar=np.array(uvar, dtype=np.int64),
-                 Kk=_pad(K, npp, npp), Ck=_pad(Cm, nxp, npp), Fyk=_pad(Fy, None, npp),
+                 Kk=_stack_transpose(_pad(K, npp, npp)), Ck=_pad(Cm, nxp, npp), Fyk=_pad(Fy, None, npp),
                  Vyk=_pad(Vy, None, npp),
                  kc=_pad(np.abs(K).max(axis=0) if K.size else np.zeros(0), npp))
