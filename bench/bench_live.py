@@ -10,8 +10,8 @@ each block's smallest CPU time over --passes fresh passes (the work per
 block is deterministic, so that is the code's own cost with a shared
 machine's interference taken out).  Target from issue 3: p99.9 <= 25 % of
 the period for the flagship at 64.  Beside the times, the solver's work in
-the slowest 0.1 % of blocks (factorisations and iterations, which do not
-depend on the machine) for judging solver changes on a noisy machine.
+the slowest 0.1 % of blocks (factorisations, iterations and low-rank
+Jacobian updates, which do not depend on the machine) for judging solver changes on a noisy machine.
 
 Then, with blocks paced in real time on a thread (as a sound card would),
 measures the time from a part change request to the start of the first block
@@ -64,19 +64,21 @@ def _one_pass(design, variant, block, seconds, volts):
         out = np.zeros((block, 2), dtype=np.float32)
         t = np.zeros(n)
         c = np.zeros(n)
-        work = np.zeros((n, 2))     # factorisations, iterations per block (all voices)
+        work = np.zeros((n, 3))     # factorisations, iterations, low-rank updates
+        #                             per block (all voices)
         for _ in range(int(0.2 * FS / block)):        # warm-up, not counted
             h._audio_block(None, out, block, False)
         pc, tt = time.perf_counter, time.thread_time
         cnts = [v.sim._cnt for v in h.voices]
         for i in range(n):
-            w0 = sum(k[KERNEL.C_FACTOR] for k in cnts), sum(k[KERNEL.C_ITERS] for k in cnts)
+            w0 = [sum(k[s] for k in cnts)
+                  for s in (KERNEL.C_FACTOR, KERNEL.C_ITERS, KERNEL.C_UPDATE)]
             a, ca = pc(), tt()
             h._audio_block(None, out, block, False)
             c[i] = tt() - ca
             t[i] = pc() - a
-            work[i] = (sum(k[KERNEL.C_FACTOR] for k in cnts) - w0[0],
-                       sum(k[KERNEL.C_ITERS] for k in cnts) - w0[1])
+            work[i] = [sum(k[s] for k in cnts) - w
+                       for s, w in zip((KERNEL.C_FACTOR, KERNEL.C_ITERS, KERNEL.C_UPDATE), w0)]
         if h.error is not None:
             raise h.error
         return prep, t, c, h.meters(), work
@@ -117,6 +119,7 @@ def block_times(design, variant, block, seconds, volts, passes: int = 3) -> dict
             "best_p999_frac": float(qb[2] / period), "best_max_frac": float(best.max() / period),
             "tail_factorizations": float(work[slow, 0].mean()),
             "tail_iterations": float(work[slow, 1].mean()),
+            "tail_jacobian_updates": float(work[slow, 2].mean()),
             "max_block_factorizations": int(work[:, 0].max()),
             "nonconverged": meters["nonconverged"]}
 
@@ -251,13 +254,14 @@ def main(argv=None) -> int:
                   f"(edit job {1e3 * r['edit_job_median_s']:.1f} ms)")
     target = [r for r in rows if r["design"] == "flagship" and r["variant"] is None
               and r["block"] == 64]
-    print("solver work in the slowest 0.1 % of blocks (mean factorisations / iterations; "
-          "most factorisations in one block):")
+    print("solver work in the slowest 0.1 % of blocks (mean factorisations / iterations / "
+          "low-rank Jacobian updates; most factorisations in one block):")
     for r in rows:
         if r["block"] == 64:
             name = r["design"] if r["variant"] is None else f"{r['design']} vs {r['variant']}"
             print(f"  {name:<34} 64: {r['tail_factorizations']:6.1f} / "
-                  f"{r['tail_iterations']:6.1f}; {r['max_block_factorizations']}")
+                  f"{r['tail_iterations']:6.1f} / {r['tail_jacobian_updates']:5.1f}; "
+                  f"{r['max_block_factorizations']}")
     import os
     res = {"fs": FS, "seconds_per_case": secs, "machine": platform.platform(),
            "cpus": os.cpu_count(), "load_average_at_end": os.getloadavg(),
