@@ -99,10 +99,12 @@ from engine.devices import bjt, diode, jfet, opamp, ota  # noqa: E402
 from engine.devices._common import VT  # noqa: E402
 
 #: Largest number of ports whose Jacobian blocks a low-rank update of the
-#: inverse (:func:`update_jacobian`) takes on; more, and J is refactored.
+#: inverse (:func:`update_jacobian`) takes on (and at most half the padded
+#: ports); more, and J is refactored.
 #: Timed alone at the flagship's 16 (padded) ports: an update of 2 ports
-#: ~0.46 us, 4 ports ~0.86 us, 6 ports ~1.3 us, Gauss-Jordan ~1.5 us.
-UPDATE_PORTS = 4
+#: ~0.3 us, 4 ports ~0.55 us, 6 ports ~1.0-1.2 us, 8 ports ~1.1 us,
+#: Gauss-Jordan ~1.5 us.
+UPDATE_PORTS = 6
 # counter slots in the int64 array ``cnt`` (C_HARD: fresh Jacobians the last
 # sample's port solve needed, C_CHAIN: low-rank updates since the last
 # factorisation, C_PLIST...: the ports of an update; state, not statistics)
@@ -474,7 +476,8 @@ def update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, cnt):
 
     The kept Ji inverts J_f = I - K Gf.  Devices whose blocks moved by more
     than DRIFT_UPDATE (:func:`device_moved`) since then take their new
-    blocks: with P their k <= UPDATE_PORTS ports and D = G - Gf on them,
+    blocks: with P their k <= UPDATE_PORTS (and <= n/2) ports and D = G - Gf
+    on them,
     J = J_f - (K[:, P] D) E_P^T, and by the Sherman-Morrison-Woodbury
     formula (Golub & Van Loan, Matrix Computations, 4th ed., sec. 2.1.4)
 
@@ -483,7 +486,7 @@ def update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, cnt):
     about 2 n^2 k multiply-adds against ~2 n^3 for Gauss-Jordan.  At a
     note's attack many of Newton's fresh Jacobians differ from the last one
     in one or two transistors (the detector's rectifier switching): on the
-    built-in designs' phrase 14 % of the flagship's are made this way, 17 %
+    built-in designs' phrase 19 % of the flagship's are made this way, 20 %
     of the feed-forward compressor's.  Every UPDATE_CHAIN updates, when
     more ports moved, or when the small system is near-singular, J is
     refactored instead (:func:`factor_jacobian`).
@@ -498,13 +501,16 @@ def update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, cnt):
     if cnt[C_LUOK] != 1 or cnt[C_CHAIN] >= UPDATE_CHAIN:
         cnt[C_CHAIN] = 0
         return factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt)
+    # at most half the ports: beyond that Gauss-Jordan is as cheap (timed
+    # at 8 ports: 0.35 us for an update of 4, 0.56 us of 6, 0.41 us GJ)
+    kmax = UPDATE_PORTS if 2 * UPDATE_PORTS <= n else n // 2
     nd = 0
     k = 0
     for d in range(dcode.size):
         po = dpo[d]
         m = dnp[d]
         if device_moved(G, Gf, po, m, kc, DRIFT_UPDATE):
-            if k + m > UPDATE_PORTS:
+            if k + m > kmax:
                 cnt[C_CHAIN] = 0
                 return factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt)
             cnt[C_PLIST + nd] = d
@@ -573,12 +579,22 @@ def update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, cnt):
                 for c in range(wd):
                     J[rs + r, c] -= f * J[rs + q, c]
     # Ji += W T, T = S^-1 Ji[P, :] (rows rs.., columns k..k+n-1)
-    for r in range(n):
-        for jj in range(k):
-            f = J[rw + jj, r]
-            if f != 0.0:
-                for c in range(n):
-                    Ji[r, c] += f * J[rs + jj, k + c]
+    # (four rows per pass, as gemv_inl: n is a multiple of statespace.PAD;
+    # one row per pass cost 1.6x as much for 2-4 ports)
+    for jj in range(k):
+        t = J[rs + jj, k:k + n]
+        wt = J[rw + jj, :n]
+        for r in range(0, n, 4):
+            f0 = wt[r]
+            f1 = wt[r + 1]
+            f2 = wt[r + 2]
+            f3 = wt[r + 3]
+            for c in range(n):
+                tc = t[c]
+                Ji[r, c] += f0 * tc
+                Ji[r + 1, c] += f1 * tc
+                Ji[r + 2, c] += f2 * tc
+                Ji[r + 3, c] += f3 * tc
     cnt[C_UPDATE] += 1
     cnt[C_CHAIN] += 1
     return True
