@@ -453,9 +453,9 @@ def factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
-def device_moved(G, Gf, po, m, kc, lim):
-    """Whether one device's score of :func:`jacobian_drift` exceeds lim
-    (compared without dividing)."""
+def drift_terms(G, Gf, po, m, kc):
+    """(numerator, denominator) of one device's score in
+    :func:`jacobian_drift`, any number of ports."""
     num = 0.0
     den = 1.0
     for a in range(m):
@@ -465,6 +465,14 @@ def device_moved(G, Gf, po, m, kc, lim):
             gf = Gf[po + a, po + b]
             num += w * abs(g - gf)
             den += w * _absmax(g, gf)
+    return num, den
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
+def device_moved(G, Gf, po, m, kc, lim):
+    """Whether one device's score of :func:`jacobian_drift` exceeds lim
+    (compared without dividing)."""
+    num, den = drift_terms(G, Gf, po, m, kc)
     return num > lim * den
 
 
@@ -641,15 +649,7 @@ def jacobian_drift(G, Gf, dpo, dnp, kc):
             num = w0 * abs(g00 - f00)
             den = 1.0 + w0 * _absmax(g00, f00)
         else:
-            num = 0.0
-            den = 1.0
-            for a in range(m):
-                w = kc[po + a]
-                for b in range(m):
-                    g = G[po + a, po + b]
-                    gf = Gf[po + a, po + b]
-                    num += w * abs(g - gf)
-                    den += w * _absmax(g, gf)
+            num, den = drift_terms(G, Gf, po, m, kc)
         # den >= 1: compare without dividing, divide for a new maximum only
         if num > worst * den:
             worst = num / den
