@@ -87,6 +87,11 @@ def _one_pass(design, variant, block, seconds, volts):
         h.close()
 
 
+def _case(design, variant) -> str:
+    """A case's name in the printed tables."""
+    return design if variant is None else f"{design} vs {variant}"
+
+
 def block_times(design, variant, block, seconds, volts, passes: int = 3) -> dict:
     """Time every block of ``seconds`` of audio through the host path.
 
@@ -223,7 +228,7 @@ def main(argv=None) -> int:
           f"{'p99.9':>7}{'max':>7}")
     for d, v in cases:
         for b in blocks:
-            name = d if v is None else f"{d} vs {v}"
+            name = _case(d, v)
             try:
                 r = block_times(d, v, b, secs, volts, args.passes)
             except SolderlessError as exc:
@@ -263,14 +268,14 @@ def main(argv=None) -> int:
           f"{args.passes} passes):")
     for r in rows:
         if r["block"] == 64:
-            name = r["design"] if r["variant"] is None else f"{r['design']} vs {r['variant']}"
+            name = _case(r["design"], r["variant"])
             pp = r["pass_cpu_p999_frac"]
             print(f"  {name:<34} 64: {min(pp):.3f} / {np.median(pp):.3f} / {max(pp):.3f}")
     print("solver work in the slowest 0.1 % of blocks (mean factorisations / iterations / "
           "low-rank Jacobian updates; most factorisations in one block):")
     for r in rows:
         if r["block"] == 64:
-            name = r["design"] if r["variant"] is None else f"{r['design']} vs {r['variant']}"
+            name = _case(r["design"], r["variant"])
             print(f"  {name:<34} 64: {r['tail_factorizations']:6.1f} / "
                   f"{r['tail_iterations']:6.1f} / {r['tail_jacobian_updates']:5.1f}; "
                   f"{r['max_block_factorizations']}")

@@ -107,10 +107,10 @@ from engine.devices._common import VT  # noqa: E402
 UPDATE_PORTS = 6
 # counter slots in the int64 array ``cnt`` (C_HARD: fresh Jacobians the last
 # sample's port solve needed, C_CHAIN: low-rank updates since the last
-# factorisation, C_PLIST...: the ports of an update; state, not statistics)
+# factorisation, C_PLIST...: the devices of an update; state, not statistics)
 (C_SAMPLES, C_NONCONV, C_FALLBACK, C_MAXIT, C_PHASE, C_INDEX, C_ITERS, C_LUOK,
  C_FACTOR, C_HARD, C_UPDATE, C_CHAIN, C_PLIST) = range(13)
-N_COUNTERS = C_PLIST + 2 * UPDATE_PORTS
+N_COUNTERS = C_PLIST + UPDATE_PORTS
 #: Rows the Jacobian scratch J needs beyond the n + 1 of :func:`gj_inverse`
 #: (the low-rank update's workspace).
 J_EXTRA_ROWS = 2 * UPDATE_PORTS + 1
@@ -165,8 +165,8 @@ RES_SANE = 1e-3
 #: more iterations, the same error against 1e-11 V runs; at 30 mV and
 #: above, samples start to need the continuation fallback.
 REUSE_STEP = 1e-2
-#: After a sample whose port solve needed this many factorisations or more,
-#: the next one skips the chord phase and starts Newton with a fresh
+#: After a sample whose port solve needed this many fresh Jacobians or more
+#: (factorisations or low-rank updates), the next one skips the chord phase and starts Newton with a fresh
 #: Jacobian: counted on the built-in designs' phrase, the kept factors then
 #: converge on only 10-27 % of samples (84-97 % after an easy sample), and
 #: the first chord step's error estimate, which has no measured rate after a
@@ -502,8 +502,8 @@ def update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, cnt):
     K has K^T stacked below it (rows n ... 2n-1, statespace.derive), so a
     column of K is read as a contiguous row.  Workspace: rows n+1 ... of J
     (J_EXTRA_ROWS of them): the k x (k + n) system [I_k - W[P, :] | Ji[P, :]],
-    W transposed (k x n) and a column of K[:, P] D; the devices and then
-    the ports of the update in cnt[C_PLIST:].
+    W transposed (k x n) and a column of K[:, P] D; the updated devices
+    in cnt[C_PLIST:].
     """
     n = Ji.shape[0]
     if cnt[C_LUOK] != 1 or cnt[C_CHAIN] >= UPDATE_CHAIN:
@@ -522,8 +522,6 @@ def update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, cnt):
                 cnt[C_CHAIN] = 0
                 return factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, cnt)
             cnt[C_PLIST + nd] = d
-            for a in range(m):
-                cnt[C_PLIST + UPDATE_PORTS + k + a] = po + a
             nd += 1
             k += m
     if k == 0:
@@ -552,12 +550,15 @@ def update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, cnt):
         for a in range(m):
             for b in range(m):
                 Gf[po + a, po + b] = G[po + a, po + b]
-    for i in range(k):
-        pi = cnt[C_PLIST + UPDATE_PORTS + i]
-        for jj in range(k):
-            J[rs + i, jj] = (1.0 if i == jj else 0.0) - J[rw + jj, pi]
-        for c in range(n):
-            J[rs + i, k + c] = Ji[pi, c]
+    i = 0                             # row i of the small system: port pi
+    for e in range(nd):
+        d = cnt[C_PLIST + e]
+        for pi in range(dpo[d], dpo[d] + dnp[d]):
+            for jj in range(k):
+                J[rs + i, jj] = (1.0 if i == jj else 0.0) - J[rw + jj, pi]
+            for c in range(n):
+                J[rs + i, k + c] = Ji[pi, c]
+            i += 1
     # [S | Ji[P, :]] -> [I | S^-1 Ji[P, :]], partial pivoting
     wd = k + n
     for q in range(k):
@@ -923,7 +924,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
     its own linear part lprev), which the signal's smoothness makes a good
     guess of this one's: on the built-in designs this leaves 10-25 % fewer
     iterations than the linear step alone.  Not after a sample that needed
-    a factorisation (cnt[C_HARD] > 0): its step was a junction switching
+    a fresh Jacobian (cnt[C_HARD] > 0): its step was a junction switching
     (a rectifier transistor saturating at a note's attack moves its
     collector volts in one sample), and extrapolating that throws the next
     guess volts past the answer.  Counted on the built-in designs' phrase
