@@ -22,8 +22,12 @@ DEFAULT_DESIGN = "flagship"
 
 def _load(args):
     from engine.design import load_design
-    return load_design(args.design, in_source=getattr(args, "in_source", "VIN"),
-                       out_node=getattr(args, "out_node", "out"))
+    d = load_design(args.design, in_source=getattr(args, "in_source", "VIN"),
+                    out_node=getattr(args, "out_node", "out"))
+    nl = getattr(d, "netlist", None)
+    for w in (nl.warnings if nl is not None else []):
+        print(f"warning: {w}", file=sys.stderr)
+    return d
 
 
 def _add_design_arg(p, nargs=None):

@@ -960,9 +960,22 @@ def _design_from_netlist(path: Path, in_source: str, out_node: str) -> Design:
     nl = load_netlist(path, in_source=in_source, out_node=out_node)
     circ = nl.circuit
     if circ.input_source is None:
-        raise DesignError(f"the netlist has no voltage source named '{in_source}' for the "
-                          "input", file=str(path),
-                          hint="name the input source VIN or pass --in-source NAME")
+        # an exported netlist names its signal source as the editor numbered
+        # it (V2, V3 ...): with the default name absent, take the one source
+        # that has a waveform, and say so
+        signal = [e.name for e in circ.elements
+                  if e.kind == "V" and (e.params or {}).get("wave")]
+        if in_source.upper() == "VIN" and len(signal) == 1:
+            circ.input_source = in_source = signal[0]
+            nl.warnings.append(f"{path}: no source named VIN; the input drives "
+                               f"{signal[0]}, the netlist's only signal source "
+                               "(--in-source NAME chooses another)")
+        else:
+            raise DesignError(f"the netlist has no voltage source named '{in_source}' for "
+                              "the input", file=str(path),
+                              hint="name the input source VIN or pass --in-source NAME"
+                              + (f" (its signal sources: {', '.join(signal)})"
+                                 if signal else ""))
     if out_node.lower() not in {n.lower() for n in circ.nets()}:
         raise DesignError(f"the netlist has no node '{out_node}' for the output",
                           file=str(path), hint="pass --out-node NAME")

@@ -150,6 +150,33 @@ def test_netlist_design_with_named_source_and_node(tmp_path, capsys):
     assert "VIN" in capsys.readouterr().err
 
 
+def test_exported_netlist_runs_as_it_is(tmp_path, capsys):
+    # an editor's export: numbered sources (no VIN), nets named
+    # "Net-(R1-Pad2)".  The one signal source becomes the input, with a
+    # warning; the divider node sits at V*R2/(R1+R2) (textbook divider).
+    net = tmp_path / "exported.cir"
+    net.write_text(textwrap.dedent("""\
+        * exported from a schematic
+        V1 vcc 0 DC 9
+        V2 /in 0 SIN(0 0.1 1k)
+        R1 vcc Net-(R1-Pad2) 47k
+        R2 Net-(R1-Pad2) 0 10k
+        C1 /in Net-(R1-Pad2) 100n
+        .end
+    """))
+    rc = main(["op", str(net), "--out-node", "Net-(R1-Pad2)", "--json"])
+    out, err = capsys.readouterr()
+    assert rc == 0, err
+    assert "V2" in err and "warning" in err
+    nets = json.loads(out)["nets"]
+    assert nets["net-(r1-pad2)"] == pytest.approx(9 * 10 / 57, rel=1e-6)
+    # two signal sources: no guess, the error names both
+    net.write_text(net.read_text().replace("V1 vcc 0 DC 9", "V1 vcc 0 SIN(9 1 50)"))
+    rc = main(["op", str(net), "--out-node", "Net-(R1-Pad2)"])
+    err = capsys.readouterr().err
+    assert rc == 2 and "V1" in err and "V2" in err and "Traceback" not in err
+
+
 def test_render_missing_input_is_a_clear_error(tmp_path, capsys):
     design = tmp_path / "lp.toml"
     design.write_text(LOWPASS)

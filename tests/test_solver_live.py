@@ -135,10 +135,27 @@ def test_probe_decimation_and_units():
 
 
 def test_unknown_probe_raises_design_error():
-    for bad in ("v(nowhere)", "ic(Q9)", "gm(Q1)", "zz", "i(Q1)"):
+    for bad in ("v(nowhere)", "ic(Q9)", "gm(Q1)", "zz", "i(Q1)", "v(b,c,0)", "v((b)",
+                "v(b))", "v(b c)", "v()"):
         with pytest.raises(DesignError) as ei:
             Simulator(ce_amp(), probes=(bad,))
         assert bad in str(ei.value)
+
+
+def test_probe_of_a_net_named_with_parentheses():
+    # exported nets such as "Net-(R1-Pad2)": v(Net-(R1-Pad2)) and the
+    # two-net form read the whole name; KVL: v(a,b) = v(a) - v(b)
+    circ = Circuit([E("Vcc", "V", ("vcc", "0"), 9.0), E("Vin", "V", ("in", "0"), 0.0),
+                    E("R1", "R", ("vcc", "net-(r1-pad2)"), 47e3),
+                    E("R2", "R", ("net-(r1-pad2)", "0"), 10e3),
+                    E("C1", "C", ("in", "net-(r1-pad2)"), 100e-9)], input_source="Vin")
+    circ.output = ("net-(r1-pad2)", "0")
+    sim = Simulator(circ, probes=("v(Net-(R1-Pad2))", "v(vcc, Net-(R1-Pad2))"))
+    pb = np.zeros((2, 4))
+    sim.process_into(np.zeros(4), np.empty(4), pb)
+    # divider: V*R2/(R1+R2) (textbook)
+    assert pb[0, 0] == pytest.approx(9.0 * 10 / 57, rel=1e-9)
+    assert pb[1, 0] == pytest.approx(9.0 - 9.0 * 10 / 57, rel=1e-9)
 
 
 def test_absurd_drive_never_nan():

@@ -211,6 +211,28 @@ def test_include_relative_to_file(tmp_path):
         load_netlist(top)
 
 
+def test_lib_section_and_whole_file(tmp_path):
+    # '.lib FILE SECTION' takes the cards between '.lib SECTION' and '.endl'
+    # of FILE; '.lib FILE' the whole file (ngspice manual, ".lib")
+    (tmp_path / "m").mkdir()
+    (tmp_path / "m" / "parts.lib").write_text(
+        "* a model library\n.lib bjts\n.model QX NPN(IS=1e-14 BF=150)\n.endl bjts\n"
+        ".lib diodes\n.model DX D(IS=1n N=1.8)\n.endl\n")
+    (tmp_path / "m" / "plain.lib").write_text(".model QY PNP(IS=2e-14 BF=90)\n")
+    net = tmp_path / "amp.cir"
+    net.write_text("amp\n.lib m/parts.lib BJTS\n.lib \"m/plain.lib\"\nV1 vcc 0 9\n"
+                   "Q1 c b 0 QX\nQ2 0 b c QY\nR1 vcc c 1k\nR2 vcc b 100k\n.end\n")
+    nl = load_netlist(net)
+    assert nl.circuit.element("Q1").params["BF"] == 150
+    assert nl.circuit.element("Q2").params["TYPE"] == "PNP"
+    assert "DX" not in nl.models          # only the section asked for
+    net.write_text(net.read_text().replace("BJTS", "mosfets"))
+    with pytest.raises(DesignError) as ei:
+        load_netlist(net)
+    msg = str(ei.value)
+    assert "amp.cir" in msg and ":2" in msg and "mosfets" in msg and "bjts" in msg
+
+
 def test_missing_file_is_a_user_error(tmp_path):
     with pytest.raises(DesignError, match="cannot read"):
         load_netlist(tmp_path / "nope.cir")
@@ -246,6 +268,33 @@ C1 N002 0 {C}
     assert nl.circuit.element("C1").value == 100e-9
     assert nl.circuit.output == ("n002", "0")
     assert nl.circuit.input_source is None
+
+
+def test_parenthesised_net_names_and_title_card():
+    # schematic editors name unlabelled nets like "Net-(R1-Pad2)"; ngspice
+    # reads such a name as one node (common practice).  '.title' replaces
+    # the first line as the title (ngspice manual, "Title line").
+    text = """* /home/user/pedal.sch
+.title bias divider
+V1 vcc 0 DC 9
+VIN /in 0 SIN(0 0.1 1k)
+R1 vcc Net-(Q1-B) 47k
+R2 Net-(Q1-B) 0 10k
+C1 /in Net-(Q1-B) 100n
+Q1 Net-(Q1-C) Net-(Q1-B) 0 QN
+R3 vcc Net-(Q1-C) 4.7k
+.model QN NPN(IS=1e-14 BF=200)
+.end
+"""
+    nl = parse_netlist(text)
+    assert nl.title == "bias divider"
+    q = nl.circuit.element("Q1")
+    assert q.nodes == ("net-(q1-c)", "net-(q1-b)", "0")
+    assert nl.circuit.element("R1").nodes == ("vcc", "net-(q1-b)")
+    assert nl.circuit.element("R1").value == 47e3
+    assert nl.circuit.element("VIN").params["wave"][0] == "SIN"
+    # a keyword's parenthesis (SIN(, NPN() still separates
+    assert nl.models["QN"].params["BF"] == 200
 
 
 def test_writer_round_trip():

@@ -7,7 +7,8 @@ back as a netlist that ngspice runs.
 
 What is read (case-insensitive, as in SPICE):
 
-* the title line (the first line of the top file), ``*`` comment lines,
+* the title line (the first line of the top file, or a ``.title`` card),
+  ``*`` comment lines,
   ``;`` and `` $ `` end-of-line comments, ``+`` continuation lines;
 * R, C, L (``IC=``), V and I sources (DC value, ``DC x``, ``AC mag`` which is
   recorded but not used, ``SIN(VO VA FREQ TD THETA)``,
@@ -24,11 +25,15 @@ What is read (case-insensitive, as in SPICE):
   k=2``);
 * ``.param`` and ``{expr}`` / ``'expr'`` values, evaluated by a small
   arithmetic evaluator (no Python ``eval``);
-* ``.include`` relative to the including file; ``.end``.
+* ``.include`` relative to the including file; ``.lib FILE SECTION`` (one
+  section of a model library, up to its ``.endl``) and ``.lib FILE`` (the
+  whole file); ``.end``;
+* node names as schematic editors export them: ``/in``, ``Net-(R1-Pad2)``
+  (a parenthesised part after a ``-`` belongs to the name, as in ngspice).
 
 Analysis and output cards (``.tran``, ``.op``, ``.ac``, ``.options``,
 ``.control`` ... ``.endc``, ``.save``, ``.probe``, ``.print``, ``.plot``,
-``.backanno``, ``.lib`` ...) are skipped and listed in
+``.backanno`` ...) are skipped and listed in
 :attr:`Netlist.ignored`. Any card that would change the circuit but cannot be
 run raises :class:`engine.errors.DesignError` naming the file, the line, the
 card and the reason.
@@ -353,6 +358,18 @@ def _tokenize(text: str, where: Where) -> list[str]:
             j = i
             while j < n and not text[j].isspace() and text[j] not in "(),={'":
                 j += 1
+            # a node name with a parenthesised part after a '-', as schematic
+            # editors name unlabelled nets ("Net-(R1-Pad2)"): one token, as
+            # ngspice reads it (a keyword's '(' follows a letter: SIN(, NPN()
+            while j < n and text[j] == "(" and j > i and text[j - 1] == "-":
+                k = j + 1
+                while k < n and not text[k].isspace() and text[k] not in "()":
+                    k += 1
+                if k >= n or text[k] != ")" or k == j + 1:
+                    break
+                j = k + 1
+                while j < n and not text[j].isspace() and text[j] not in "(),={'":
+                    j += 1
             out.append(text[i:j])
             i = j
     return out
@@ -372,6 +389,31 @@ def _read_file(path: str, where: Where | None) -> str:
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError:
         return raw.decode("latin-1")
+
+
+def _lib_section(text: str, section: str, path: str, where: Where) -> str:
+    """The lines of section ``section`` of a model library: from the line
+    '.lib SECTION' up to its '.endl' (names case-insensitive)."""
+    out: list[str] = []
+    found = False
+    names: list[str] = []
+    for line in text.splitlines():
+        words = _strip_comment(line.strip()).split()
+        low = [w.lower() for w in words]
+        if not found:
+            if len(low) == 2 and low[0] == ".lib":
+                names.append(words[1])
+                found = low[1] == section.lower()
+            continue
+        if low[:1] == [".endl"]:
+            return "\n".join(out) + "\n"
+        out.append(line)
+    if found:
+        return "\n".join(out) + "\n"
+    raise DesignError(f"model library '{path}' has no section '{section}'",
+                      file=where.file, line=where.line,
+                      hint=("its sections: " + ", ".join(names)) if names else
+                      "the file defines no '.lib NAME' sections; name the file alone")
 
 
 def _cards(text: str, file: str, *, has_title: bool, ignored: list,
@@ -422,6 +464,28 @@ def _cards(text: str, file: str, *, has_title: bool, ignored: list,
             continue
         if word == ".end":
             break
+        if word == ".lib":
+            # '.lib FILE SECTION' takes one section of a model library
+            # (ngspice manual, ".lib"); '.lib FILE' the whole file; a
+            # one-word '.lib NAME' that is not a file opens a section inside
+            # a library (its cards follow, up to '.endl')
+            args = [a.strip("\"'") for a in st.split()[1:]]
+            path = ""
+            if args:
+                path = args[0] if os.path.isabs(args[0]) else os.path.join(base, args[0])
+            if len(args) >= 2 or (args and os.path.isfile(path)):
+                sub = _read_file(path, where)
+                if len(args) >= 2:
+                    sub = _lib_section(sub, args[1], path, where)
+                _, more = _cards(sub, path, has_title=False, ignored=ignored,
+                                 depth=depth + 1)
+                cards.extend(more)
+                continue
+            if not args:
+                raise DesignError(f"'{st}': .lib needs a file name", file=file, line=ln,
+                                  hint="write .lib \"models.lib\" SECTION")
+            ignored.append((ln, st))
+            continue
         if word in (".include", ".inc"):
             arg = st.split(None, 1)[1].strip() if len(st.split(None, 1)) > 1 else ""
             arg = arg.strip("\"'")
@@ -1007,6 +1071,11 @@ def parse_netlist(text: str, *, file: str = "<text>", in_source: str = "VIN",
     ignored: list = []
     warnings: list[str] = []
     title, cards = _cards(text, file, has_title=True, ignored=ignored)
+    for c in cards:
+        if c.tokens and c.tokens[0].lower() == ".title":
+            # '.title' replaces the first line as the title (as in ngspice)
+            title = c.text.split(None, 1)[1].strip() if len(c.text.split(None, 1)) > 1 else ""
+            break
     if title and re.match(r"^[RCLVIEGDQJX]\w*\s+\S+\s+\S+", title, re.I) and \
             len(title.split()) in (4, 5):
         warnings.append(f"{file}:1: the first line '{title}' is read as the "

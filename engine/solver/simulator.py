@@ -20,7 +20,7 @@ from engine.solver.dcop import OperatingPoint, report, solve_dc
 from engine.solver.mna import VALUE_KINDS, Network, device_arrays, source_wave
 from engine.solver.statespace import Model, ProbeRow, derive, padded
 
-_PROBE_RE = re.compile(r"^\s*([A-Za-z]+)\s*\(\s*([^,()\s]+)\s*(?:,\s*([^,()\s]+)\s*)?\)\s*$")
+_PROBE_RE = re.compile(r"^\s*([A-Za-z]+)\s*\((.*)\)\s*$")
 _UNITS = {"v": "V", "i": "A", "ic": "A", "ib": "A", "ie": "A", "id": "A", "ig": "A",
           "vbe": "V", "vce": "V", "vgs": "V", "vds": "V", "vd": "V", "iabc": "A",
           "gm": "S", "iout": "A", "vabc": "V", "iclip": "A"}
@@ -31,18 +31,49 @@ def _net_col(net: Network, name: str, probe: str) -> int:
     if n == GROUND:
         return -1
     if n not in net.net_index:
+        # SPICE names are case-insensitive (a netlist's nets are read in
+        # lower case): take a name that differs only in case, if just one
+        same = [k for k in net.net_index if k.lower() == n.lower()]
+        if len(same) == 1:
+            return net.net_index[same[0]]
         raise DesignError(f"probe {probe!r}: no net named {name!r}", part=probe,
                           hint="use a net name of the circuit, e.g. v(out)")
     return net.net_index[n]
 
 
-def make_probe(net: Network, text: str) -> ProbeRow:
-    """Parse a probe name (``v(net)``, ``v(a,b)``, ``i(R1)``, ``ic(Q1)`` ...)."""
+def _probe_parts(text: str) -> tuple[str, str, str | None] | None:
+    """(quantity, name, second name or None) of ``q(a)`` / ``q(a,b)``; a
+    name may hold balanced parentheses (an exported net such as
+    ``Net-(R1-Pad2)``)."""
     m = _PROBE_RE.match(text)
     if not m:
+        return None
+    names, depth, start, inner = [], 0, 0, m.group(2)
+    for k, ch in enumerate(inner):
+        if ch == "(":
+            depth += 1
+        elif ch == ")":
+            depth -= 1
+            if depth < 0:
+                return None
+        elif ch == "," and depth == 0:
+            names.append(inner[start:k])
+            start = k + 1
+    names.append(inner[start:])
+    names = [n.strip() for n in names]
+    if depth != 0 or len(names) > 2 or not all(n and not any(c.isspace() for c in n)
+                                               for n in names):
+        return None
+    return m.group(1), names[0], names[1] if len(names) == 2 else None
+
+
+def make_probe(net: Network, text: str) -> ProbeRow:
+    """Parse a probe name (``v(net)``, ``v(a,b)``, ``i(R1)``, ``ic(Q1)`` ...)."""
+    parts = _probe_parts(text)
+    if parts is None:
         raise DesignError(f"cannot read probe {text!r}", part=text,
                           hint="write e.g. v(out), v(a,b), i(R1), ic(Q1), gm(U1)")
-    q, a, b = m.group(1).lower(), m.group(2), m.group(3)
+    q, a, b = parts[0].lower(), parts[1], parts[2]
     nw, nx, nu, npt = net.nw, net.nx, net.nu, net.np_
     z = lambda k: np.zeros(k)  # noqa: E731
     if q == "v":
