@@ -992,6 +992,7 @@ def _design_from_netlist(path: Path, in_source: str, out_node: str) -> Design:
             ptype = "pjfet" if str(e.params.get("TYPE", "NJF")).upper() == "PJF" else "njfet"
         parts.append(Part(name=e.name, type=ptype, nodes=list(e.nodes),
                           value=e.value if e.kind in ("R", "C", "L", "V", "I", "E", "G") else None,
+                          model=nl.element_models.get(e.name),
                           where=e.where or Where(str(path))))
     d.stages = [Stage(name="netlist", ports=["in", "out"], parts=parts, kind="netlist",
                       where=Where(str(path)))]

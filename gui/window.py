@@ -528,6 +528,9 @@ class MainWindow(QMainWindow):
             return False
         self.autosave.clear(self.wb.design)
         self.set_design(d)
+        nl = getattr(d, "netlist", None)
+        for w in (nl.warnings if nl is not None else []):
+            self.notices.add(w, "warn")
         if d.path and Path(str(path)).exists():
             self.settings.add_recent(d.path)
         return True

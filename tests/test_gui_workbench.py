@@ -234,6 +234,17 @@ def test_discard_prompt_guards_unsaved_work(win, tmp_path):
     assert load_design(tmp_path / "divider.toml").part("amp.R2").value == 10e3
 
 
+def test_opening_an_exported_netlist_shows_its_warnings(win, tmp_path):
+    net = tmp_path / "exported.cir"
+    net.write_text("* exported\nV1 vcc 0 DC 9\nV2 /in 0 SIN(0 0.1 1k)\n"
+                   "R1 vcc Net-(R1-Pad2) 47k\nR2 Net-(R1-Pad2) 0 10k\n"
+                   "C1 /in Net-(R1-Pad2) 100n\nR3 Net-(R1-Pad2) out 1k\nR4 out 0 100k\n.end\n")
+    win.ask = lambda _q: "discard"
+    assert win.open_path(net)
+    texts = " ".join(win.notices.texts())
+    assert "V2" in texts and "only signal source" in texts
+
+
 def test_structural_edits_save_and_undo(win, tmp_path):
     wb = win.wb
     before = [s.name for s in wb.design.stages]
