@@ -29,7 +29,7 @@ What is read (case-insensitive, as in SPICE):
   section of a model library, up to its ``.endl``) and ``.lib FILE`` (the
   whole file); ``.end``;
 * node names as schematic editors export them: ``/in``, ``Net-(R1-Pad2)``
-  (a parenthesised part after a ``-`` belongs to the name, as in ngspice).
+  (a parenthesised part after a ``-`` belongs to the name).
 
 Analysis and output cards (``.tran``, ``.op``, ``.ac``, ``.options``,
 ``.control`` ... ``.endc``, ``.save``, ``.probe``, ``.print``, ``.plot``,
@@ -359,8 +359,8 @@ def _tokenize(text: str, where: Where) -> list[str]:
             while j < n and not text[j].isspace() and text[j] not in "(),={'":
                 j += 1
             # a node name with a parenthesised part after a '-', as schematic
-            # editors name unlabelled nets ("Net-(R1-Pad2)"): one token, as
-            # ngspice reads it (a keyword's '(' follows a letter: SIN(, NPN()
+            # editors name unlabelled nets ("Net-(R1-Pad2)"): one token (a
+            # keyword's '(' follows a letter: SIN(, NPN()
             while j < n and text[j] == "(" and j > i and text[j - 1] == "-":
                 k = j + 1
                 while k < n and not text[k].isspace() and text[k] not in "()":
@@ -1187,6 +1187,10 @@ def _spice_name(el: Element) -> str:
     return (letter + "." + name).upper()
 
 
+#: Net names ngspice reads as they are (checked with ngspice-39 in batch mode).
+_NET_OK = re.compile(r"^[A-Za-z0-9_.#/]+$")
+
+
 def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
     """Write ``circuit`` as a netlist ngspice runs (ends with ``.end``).
 
@@ -1194,17 +1198,20 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
     Solderless simulates. OPAMP and OTA macromodels have no SPICE element and
     raise :class:`engine.errors.DesignError`. Elements whose name is not a
     valid SPICE name for their kind are renamed (``R_...``) and listed in a
-    comment.
+    comment; so are nets whose names ngspice would misread (``Net-(R1-Pad2)``
+    gets a plain name and a ``* net NAME is 'Net-(R1-Pad2)'`` comment).
     """
     lines = [(title or circuit.title or "circuit").splitlines()[0] or "circuit"]
     seen_nets: dict[str, str] = {}
     used_names: dict[str, str] = {}
     models: list[str] = []
 
+    renamed: dict[str, str] = {}
+
     def node(n: str) -> str:
         if n == GROUND:
             return "0"
-        if not _NAME_OK.match(n) or n.lower() in ("gnd", "ground"):
+        if n.lower() in ("gnd", "ground") or not n or any(c.isspace() for c in n):
             raise DesignError(f"net '{n}' cannot be written to SPICE",
                               hint="use letters, digits, '_' and '.' in net names")
         low = n.lower()
@@ -1212,7 +1219,20 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
             raise DesignError(f"nets '{seen_nets[low]}' and '{n}' differ only by "
                               "case, which SPICE does not distinguish",
                               hint="rename one of them")
-        return low
+        if _NET_OK.match(low):
+            return low
+        # an exported name such as 'net-(q1-b)': ngspice-39 drops or
+        # misreads the parentheses, so it is written under a plain name
+        if low not in renamed:
+            safe = re.sub(r"[^a-z0-9_.#/]", "_", low).strip("_") or "net"
+            k = 1
+            base = safe
+            while safe in renamed.values() or safe in seen_nets:
+                k += 1
+                safe = f"{base}_{k}"
+            renamed[low] = safe
+            lines.append(f"* net {safe} is '{n}'")
+        return renamed[low]
 
     for el in circuit.elements:
         w = el.where
