@@ -23,6 +23,10 @@ V      (p, n)                         DC volts; params['wave'] optional
 I      (p, n)                         DC amps, flowing p -> through source -> n
 E      (p, n, cp, cn)                 voltage gain  v(p,n) = value * v(cp,cn)
 G      (p, n, cp, cn)                 transconductance, A/V, p -> n
+F      (p, n)                         current gain: value * i(params['CONTROL'])
+                                      flows p -> through the source -> n
+H      (p, n)                         transresistance, ohm:
+                                      v(p,n) = value * i(params['CONTROL'])
 D      (a, k)                         params: diode model (IS, N, RS ...)
 Q      (c, b, e)                      params: BJT model, params['TYPE'] NPN|PNP
 J      (d, g, s)                      params: JFET model, params['TYPE'] NJF|PJF
@@ -41,10 +45,13 @@ GROUND = "0"
 GROUND_ALIASES = {"0", "gnd", "ground"}
 
 KIND_NODES: dict[str, int] = {
-    "R": 2, "C": 2, "L": 2, "V": 2, "I": 2, "E": 4, "G": 4,
+    "R": 2, "C": 2, "L": 2, "V": 2, "I": 2, "E": 4, "G": 4, "F": 2, "H": 2,
     "D": 2, "Q": 3, "J": 3, "OPAMP": 5, "OTA": 5,
 }
-LINEAR_KINDS = {"R", "C", "L", "V", "I", "E", "G"}
+LINEAR_KINDS = {"R", "C", "L", "V", "I", "E", "G", "F", "H"}
+#: Current-controlled sources: params['CONTROL'] names the voltage source
+#: (kind V) whose current, from its p node through it to n, controls them.
+CURRENT_CONTROLLED = {"F", "H"}
 DEVICE_KINDS = {"D", "Q", "J", "OPAMP", "OTA"}
 
 

@@ -26,7 +26,7 @@ from typing import Any
 
 import numpy as np
 
-from engine.circuit import GROUND, Circuit, Element, Where, canonical_net
+from engine.circuit import GROUND, LINEAR_KINDS, Circuit, Element, Where, canonical_net
 from engine.errors import DesignError, SolderlessError
 
 PRESETS = Path(__file__).resolve().parent.parent / "presets"
@@ -43,6 +43,8 @@ PART_TYPES: dict[str, tuple[str, tuple[str, ...], str]] = {
     "current": ("I", ("p", "n"), "A"),
     "vcvs": ("E", ("p", "n", "cp", "cn"), ""),
     "vccs": ("G", ("p", "n", "cp", "cn"), "A/V"),
+    "cccs": ("F", ("p", "n"), "A/A"),
+    "ccvs": ("H", ("p", "n"), "V/A"),
     "pot": ("R", ("a", "wiper", "b"), "Ω"),
     "switch": ("", (), ""),
     "diode": ("D", ("anode", "cathode"), ""),
@@ -54,11 +56,12 @@ PART_TYPES: dict[str, tuple[str, tuple[str, ...], str]] = {
     "ota": ("OTA", ("in+", "in-", "out", "control", "v-"), ""),
 }
 KIND_TO_TYPE = {"R": "resistor", "C": "capacitor", "L": "inductor", "V": "supply",
-                "I": "current", "E": "vcvs", "G": "vccs", "D": "diode",
+                "I": "current", "E": "vcvs", "G": "vccs", "F": "cccs", "H": "ccvs",
+                "D": "diode",
                 "J": "njfet", "OPAMP": "opamp", "OTA": "ota"}
 DEVICE_TYPES = {"diode", "npn", "pnp", "njfet", "pjfet", "opamp", "ota"}
 VALUE_TYPES = {"resistor", "capacitor", "inductor", "supply", "input", "current",
-               "vcvs", "vccs", "pot"}
+               "vcvs", "vccs", "cccs", "ccvs", "pot"}
 POSITIVE_TYPES = {"resistor", "capacitor", "inductor", "pot"}
 MODEL_KIND = {"diode": "D", "npn": "NPN", "pnp": "PNP", "njfet": "NJF",
               "pjfet": "PJF", "opamp": "OPAMP", "ota": "OTA"}
@@ -144,6 +147,7 @@ class Part:
     position: int = 0
     note: str = ""
     where: Where = field(default_factory=Where)
+    control: str | None = None   # cccs/ccvs: the supply part whose current controls it
 
 
 @dataclass
@@ -291,6 +295,13 @@ def _read_part(raw: Any, where: Where, stage: str) -> Part:
             p.tolerance = parse_tolerance(raw["tolerance"])
         except SolderlessError as exc:
             raise DesignError(exc.message, file=where.file, line=where.line, part=qual) from None
+    if ptype in ("cccs", "ccvs"):
+        ctl = raw.get("control")
+        _expect(isinstance(ctl, str) and ctl.strip() != "",
+                f"a {ptype} needs control = \"NAME\": the supply or input part whose "
+                "current it follows", where, qual, hint='for example control = "SENSE" '
+                "(a 0 V supply in series with the branch)")
+        p.control = ctl.strip()
     if ptype == "input":
         p.impedance = _parse_value(raw.get("impedance", 0), file=where.file,
                                    line=where.line, part=qual)
@@ -820,6 +831,12 @@ class _Flattener:
             add(Element(f"{q}.a", "R", (nodes[0], nodes[1]), ra, {}, w))
             add(Element(f"{q}.b", "R", (nodes[1], nodes[2]), rb, {}, w))
             return lib
+        if p.type in ("cccs", "ccvs"):
+            ctl = p.control or ""
+            if stage and any(o.name == ctl for o in self.d.stage(stage).parts):
+                ctl = f"{stage}.{ctl}"
+            add(Element(q, kind, nodes, p.value, {"CONTROL": ctl}, w))
+            return lib
         if p.type == "input":
             if p.impedance and p.impedance > 0:
                 mid = f"{q}.src"
@@ -902,14 +919,15 @@ def validate_circuit(circ: Circuit, file: str | None = None) -> list[str]:
     for e in circ.elements:
         for n in e.nodes:
             uf.add(n)
-        if e.kind in ("C", "I"):
+        if e.kind in ("C", "I", "F"):
             continue
-        if e.kind in ("E", "G"):
-            uf.union(e.nodes[0], e.nodes[1]) if e.kind == "E" else None
+        if e.kind in ("E", "G", "H"):
+            uf.union(e.nodes[0], e.nodes[1]) if e.kind in ("E", "H") else None
             continue
         for n in e.nodes[1:]:
             uf.union(e.nodes[0], n)
-    # an E or G output is a path; a G's output pair is not (ideal current source)
+    # an E or H output is a path; a G's or F's output pair is not (ideal
+    # current source)
     for n, who in count.items():
         if n != GROUND and uf.find(n) != uf.find(GROUND):
             raise DesignError(f"net '{n}' has no DC path to ground (it connects only "
@@ -921,7 +939,7 @@ def validate_circuit(circ: Circuit, file: str | None = None) -> list[str]:
     # loops of voltage sources and inductors
     vl = _UnionFind()
     for e in circ.elements:
-        if e.kind in ("V", "L", "E"):
+        if e.kind in ("V", "L", "E", "H"):
             a, b = e.nodes[0], e.nodes[1]
             if not vl.union(a, b):
                 w = e.where or Where(file)
@@ -991,8 +1009,9 @@ def _design_from_netlist(path: Path, in_source: str, out_node: str) -> Design:
         if e.kind == "J":
             ptype = "pjfet" if str(e.params.get("TYPE", "NJF")).upper() == "PJF" else "njfet"
         parts.append(Part(name=e.name, type=ptype, nodes=list(e.nodes),
-                          value=e.value if e.kind in ("R", "C", "L", "V", "I", "E", "G") else None,
+                          value=e.value if e.kind in LINEAR_KINDS else None,
                           model=nl.element_models.get(e.name),
+                          control=(e.params or {}).get("CONTROL"),
                           where=e.where or Where(str(path))))
     d.stages = [Stage(name="netlist", ports=["in", "out"], parts=parts, kind="netlist",
                       where=Where(str(path)))]

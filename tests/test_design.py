@@ -274,3 +274,79 @@ def test_netlist_design_saves_as_toml_that_uses_it(tmp_path):
     els = {e.name: e for e in d2.flatten().elements}
     assert els["R1"].value == pytest.approx(22e3) and els["C1"].value == pytest.approx(10e-9)
     assert "../nets/rc.cir" in out.read_text()
+
+
+CONTROLLED = textwrap.dedent("""\
+    [design]
+    name = "current-controlled parts"
+    global_nets = ["vcc"]
+
+    [[design.part]]
+    name = "VCC"
+    type = "supply"
+    nodes = ["vcc", "0"]
+    value = "9"
+
+    [[stage]]
+    name = "sense"
+    [[stage.part]]
+    name = "R1"
+    type = "resistor"
+    nodes = ["vcc", "s"]
+    value = "10k"
+    [[stage.part]]
+    name = "AMM"
+    type = "supply"
+    nodes = ["s", "0"]
+    value = "0"
+    [[stage.part]]
+    name = "MIR"
+    type = "cccs"
+    nodes = ["0", "m"]
+    value = "2"
+    control = "AMM"
+    [[stage.part]]
+    name = "RM"
+    type = "resistor"
+    nodes = ["m", "0"]
+    value = "1k"
+    [[stage.part]]
+    name = "TR"
+    type = "ccvs"
+    nodes = ["t", "0"]
+    value = "1k"
+    control = "AMM"
+    [[stage.part]]
+    name = "RT"
+    type = "resistor"
+    nodes = ["t", "out"]
+    value = "1k"
+    [[stage.part]]
+    name = "RIN"
+    type = "resistor"
+    nodes = ["in", "0"]
+    value = "100k"
+""")
+
+
+def test_current_controlled_parts(tmp_path):
+    # a 0 V supply as an ammeter: i = 9 V / 10 k = 0.9 mA (Ohm's law);
+    # cccs (F): 2 x 0.9 mA flows 0 -> through it -> m, into RM: 1.8 V;
+    # ccvs (H): v = 1 k x 0.9 mA = 0.9 V (the SPICE F and H definitions)
+    from engine.solver import Simulator
+    d = load_design(write(tmp_path, CONTROLLED))
+    circ = d.flatten()
+    assert circ.element("sense.MIR").params["CONTROL"] == "sense.AMM"
+    op = Simulator(circ, 48000.0).operating_point()
+    assert op.nets["sense.m"] == pytest.approx(1.8, rel=1e-9)
+    assert op.nets["sense.t"] == pytest.approx(0.9, rel=1e-9)
+    bad = CONTROLLED.replace('control = "AMM"\n[[stage.part]]\nname = "RM"',
+                             'control = "R1"\n[[stage.part]]\nname = "RM"')
+    assert bad != CONTROLLED
+    with pytest.raises(DesignError) as ei:
+        Simulator(load_design(write(tmp_path, bad, "bad.toml")).flatten(), 48000.0)
+    assert "sense.MIR" in str(ei.value) and "voltage source" in str(ei.value)
+    missing = CONTROLLED.replace('control = "AMM"\n', "", 1)
+    with pytest.raises(DesignError) as ei:
+        load_design(write(tmp_path, missing, "missing.toml"))
+    assert "control" in str(ei.value) and "MIR" in str(ei.value)

@@ -297,6 +297,40 @@ R3 vcc Net-(Q1-C) 4.7k
     assert nl.models["QN"].params["BF"] == 200
 
 
+def test_current_controlled_sources_and_their_errors():
+    # F and H name the V source whose current controls them (ngspice manual,
+    # "Linear Current-Controlled Current Sources" / "... Voltage Sources");
+    # inside a subcircuit the name is the instance's own source
+    text = """cc
+VCC vcc 0 9
+X1 vcc o1 mir
+X2 vcc o2 mir
+.subckt mir a o
+VS a s 0
+R1 s 0 10k
+F1 o 0 VS 2
+H1 h 0 VS 1k
+RH h 0 1k
+.ends
+RL1 o1 0 1k
+RL2 o2 0 1k
+.end
+"""
+    nl = parse_netlist(text)
+    f1 = nl.circuit.element("X1.F1")
+    assert f1.kind == "F" and f1.value == 2 and f1.params["CONTROL"] == "X1.VS"
+    assert nl.circuit.element("X2.H1").params["CONTROL"] == "X2.VS"
+    assert "X1.VS F1" not in circuit_to_netlist(nl.circuit)
+    assert re.search(r"^F\.X1\.F1 o1 0 V\.X1\.VS 2$", circuit_to_netlist(nl.circuit),
+                     flags=re.M)
+    for card, why in (("F1 o 0 POLY(1) VS 0 2", "linear form"),
+                      ("F1 o 0 R1 2", "not a voltage source"),
+                      ("H1 o 0 VS", "controlling V source and a value")):
+        with pytest.raises(DesignError) as ei:
+            parse_netlist(f"t\nVS a 0 0\nR1 a 0 1k\nRO o 0 1k\n{card}\n")
+        assert why in str(ei.value) and ":5" in str(ei.value)
+
+
 def test_writer_round_trip():
     nl = parse_netlist(DEMO)
     text = circuit_to_netlist(nl.circuit, title="again")

@@ -13,7 +13,8 @@ What is read (case-insensitive, as in SPICE):
 * R, C, L (``IC=``), V and I sources (DC value, ``DC x``, ``AC mag`` which is
   recorded but not used, ``SIN(VO VA FREQ TD THETA)``,
   ``PULSE(V1 V2 TD TR TF PW PER)``, ``PWL(t v ...)``), linear E and G in the
-  four-node form, D, Q (three nodes and a model; a substrate node or an area
+  four-node form, linear F and H (``F1 out+ out- VSENSE gain``: the current
+  of a V source controls them), D, Q (three nodes and a model; a substrate node or an area
   factor is ignored with a warning), J;
 * ``.model NAME TYPE(params)`` for D, NPN, PNP, NJF and PJF; parameters
   Solderless does not simulate (CJO, TT, ...) are kept in
@@ -289,10 +290,6 @@ _IGNORED_DOT = {
 _UNSUPPORTED_ELEMENTS = {
     "M": "MOSFETs are not supported; use a JFET (J) or BJT (Q) model",
     "B": "behavioural sources are not supported; use linear E/G sources",
-    "F": "current-controlled sources (F) are not supported; use a "
-         "voltage-controlled source (G) across a sense resistor",
-    "H": "current-controlled sources (H) are not supported; use a "
-         "voltage-controlled source (E) across a sense resistor",
     "K": "coupled inductors (K) are not supported",
     "T": "transmission lines are not supported",
     "O": "transmission lines are not supported",
@@ -770,6 +767,8 @@ class _Reader:
                 self.source(c, letter, name, net, scope)
             elif letter in "EG":
                 self.controlled(c, letter, name, net, scope)
+            elif letter in "FH":
+                self.current_controlled(c, letter, name, net, scope, prefix)
             elif letter in "DQJ":
                 self.device(c, letter, name, net, scope)
             elif letter == "X":
@@ -778,7 +777,7 @@ class _Reader:
                 self.err(c, _UNSUPPORTED_ELEMENTS[letter], part=name)
             else:
                 self.err(c, f"'{word}' is not a SPICE element name",
-                         "element names start with R, C, L, V, I, E, G, D, Q, J or X",
+                         "element names start with R, C, L, V, I, E, G, F, H, D, Q, J or X",
                          part=name)
 
     def passive(self, c, letter, name, net, scope):
@@ -887,6 +886,27 @@ class _Reader:
                      f"{c.tokens[0]} out+ out- ctrl+ ctrl- gain", name)
         g = self.value(pos[4], c, scope, "gain", name)
         self.add(Element(name, letter, tuple(net(p) for p in pos[:4]), g, {},
+                         c.where), c)
+
+    def current_controlled(self, c, letter, name, net, scope, prefix):
+        """F (current gain) and H (transresistance), linear form: ``F1 out+
+        out- VSENSE gain``; the controlling V source is named as the card
+        names it, in the same subcircuit instance."""
+        pos, kv = self.kv(c.tokens[1:], c)
+        form = f"{c.tokens[0]} out+ out- VNAME {'gain' if letter == 'F' else 'ohms'}"
+        if any(p.lower() in ("poly", "value", "table") for p in pos) or kv:
+            self.err(c, "only the linear form with one controlling source is supported",
+                     form, name)
+        if len(pos) != 4:
+            self.err(c, "needs two nodes, the controlling V source and a value", form, name)
+        ctl = pos[2]
+        own = ctl[2:] if len(ctl) > 2 and ctl[1] == "." else ctl
+        if own[:1].upper() != "V":
+            self.err(c, f"'{ctl}' is not a voltage source: the current through a V "
+                        "source controls it", form, name)
+        g = self.value(pos[3], c, scope, "gain" if letter == "F" else "transresistance", name)
+        self.add(Element(name, letter, (net(pos[0]), net(pos[1])), g,
+                         {"CONTROL": (prefix + "." if prefix else "") + own.upper()},
                          c.where), c)
 
     def device(self, c, letter, name, net, scope):
@@ -1242,7 +1262,7 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
                               file=f, line=ln, part=el.name,
                               hint="replace it by a transistor-level subcircuit "
                                    "to compare with a SPICE simulator")
-        if el.kind not in ("R", "C", "L", "V", "I", "E", "G", "D", "Q", "J"):
+        if el.kind not in ("R", "C", "L", "V", "I", "E", "G", "F", "H", "D", "Q", "J"):
             raise DesignError(f"element kind '{el.kind}' cannot be written as SPICE",
                               file=f, line=ln, part=el.name)
         sname = _spice_name(el)
@@ -1271,6 +1291,13 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
                 s += f" {kind}(" + " ".join(_fmt(v) for v in vals) + ")"
         elif el.kind in ("E", "G"):
             s = f"{sname} {nodes} {_fmt(el.value)}"
+        elif el.kind in ("F", "H"):
+            try:
+                ctl = circuit.element(str(p.get("CONTROL", "")))
+            except KeyError:
+                raise DesignError(f"controlling source {p.get('CONTROL')!r} is not in "
+                                  "the circuit", file=f, line=ln, part=el.name) from None
+            s = f"{sname} {nodes} {_spice_name(ctl)} {_fmt(el.value)}"
         else:
             kind = el.kind
             mtype = {"D": "D"}.get(kind) or str(p.get("TYPE", "")).upper()

@@ -147,8 +147,10 @@ def report(net: Network, sol: DCSolution, values: dict[str, float]) -> Operating
 
     currents = {}
     for el in net.elements.values():
-        if el.kind in ("V", "E", "L"):
+        if el.kind in ("V", "E", "L", "H"):
             currents[el.name] = float(w[net.branch_of[el.name]])
+        elif el.kind == "F":
+            currents[el.name] = values[el.name] * float(w[net.branch_of[el.params["CONTROL"]]])
         elif el.kind == "R":
             currents[el.name] = (vnet(el.nodes[0]) - vnet(el.nodes[1])) / values[el.name]
         elif el.kind == "C":

@@ -30,7 +30,7 @@ from engine.circuit import GROUND, KIND_NODES, Circuit, canonical_net
 from engine.devices import REGISTRY
 from engine.errors import DesignError
 
-VALUE_KINDS = {"R", "C", "L", "V", "I", "E", "G"}
+VALUE_KINDS = {"R", "C", "L", "V", "I", "E", "G", "F", "H"}
 
 
 def _where(el):
@@ -126,9 +126,18 @@ class Network:
         self.branch_of: dict[str, int] = {}
         nb = 0
         for el in els:
-            if el.kind in ("V", "E", "L"):
+            if el.kind in ("V", "E", "L", "H"):
                 self.branch_of[el.name] = self.nn + nb
                 nb += 1
+        for el in els:
+            if el.kind in ("F", "H"):
+                ctl = str((el.params or {}).get("CONTROL", ""))
+                src = self.elements.get(ctl)
+                if src is None or src.kind != "V":
+                    raise DesignError(f"controlling source {ctl!r} is not a voltage source "
+                                      "of the circuit", part=el.name, **_where(el),
+                                      hint="a current-controlled source senses the current "
+                                           "of a V source (a 0 V source as an ammeter)")
         self.nw = self.nn + nb
         self.states: list[State] = []
         for el in els:
@@ -200,7 +209,7 @@ class Network:
 
         # loops of voltage-defining elements (V, E outputs, L shorted at DC)
         for el in self.elements.values():
-            if el.kind in ("V", "E", "L"):
+            if el.kind in ("V", "E", "L", "H"):
                 a, b = self._node(el.nodes[0]), self._node(el.nodes[1])
                 if a == b or not union(a, b):
                     raise DesignError("this source/inductor closes a loop of voltage sources "
@@ -317,7 +326,15 @@ class Network:
                 cond(node(el.nodes[0]), node(el.nodes[1]), 1.0 / values[el.name])
             elif k == "G":
                 vccs(*(node(n) for n in el.nodes), values[el.name])
-            elif k in ("V", "E", "L"):
+            elif k == "F":
+                jc = self.branch_of[el.params["CONTROL"]]
+                a, b = node(el.nodes[0]), node(el.nodes[1])
+                gain = values[el.name]
+                if a >= 0:
+                    S[a, jc] += gain
+                if b >= 0:
+                    S[b, jc] -= gain
+            elif k in ("V", "E", "L", "H"):
                 j = self.branch_of[el.name]
                 a, b = node(el.nodes[0]), node(el.nodes[1])
                 if a >= 0:
@@ -326,6 +343,8 @@ class Network:
                 if b >= 0:
                     S[b, j] -= 1.0
                     S[j, b] -= 1.0
+                if k == "H":
+                    S[j, self.branch_of[el.params["CONTROL"]]] -= values[el.name]
                 if k == "E":
                     cp, cn = node(el.nodes[2]), node(el.nodes[3])
                     gain = values[el.name]

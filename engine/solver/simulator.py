@@ -92,8 +92,8 @@ def make_probe(net: Network, text: str) -> ProbeRow:
         raise DesignError(f"probe {text!r} takes one name", part=text)
     if q == "i":
         el = net.elements.get(a)
-        if el is None or el.kind not in ("R", "C", "L", "V", "E", "I"):
-            raise DesignError(f"probe {text!r}: no R, C, L, V, E or I element named {a!r}",
+        if el is None or el.kind not in ("R", "C", "L", "V", "E", "H", "I"):
+            raise DesignError(f"probe {text!r}: no R, C, L, V, E, H or I element named {a!r}",
                               part=text, hint="device currents: ic(Q1), id(D1), iout(U1)")
         if el.kind == "R":
             na, nb = net._node(el.nodes[0]), net._node(el.nodes[1])
@@ -311,7 +311,7 @@ class Simulator:
             for name, val in changes.items():
                 el = net.elements.get(name)
                 if el is None or el.kind not in VALUE_KINDS:
-                    raise DesignError(f"no R, C, L, V, I, E or G element named {name!r}",
+                    raise DesignError(f"no R, C, L, V, I, E, G, F or H element named {name!r}",
                                       part=name, hint="live changes take element values; "
                                                       "a pot is '<pot>.a' and '<pot>.b'")
                 new[name] = net.check_value(el, val)
