@@ -87,8 +87,16 @@ def small_circuits(draw):
     nets = NETS + ["vcc"]
     n = draw(st.integers(2, 8))
     for k in range(n):
-        kind = draw(st.sampled_from(["R", "R", "C", "D", "Q"]))
-        if kind == "Q":
+        kind = draw(st.sampled_from(["R", "R", "C", "D", "Q", "E", "G", "F", "H"]))
+        if kind in ("F", "H"):
+            nodes = (draw(st.sampled_from(nets)), draw(st.sampled_from(nets)))
+            els.append(E(f"{kind}{k}", kind, nodes, draw(st.sampled_from([-10.0, 0.5, 3.0])),
+                         {"CONTROL": draw(st.sampled_from(["Vin", "Vcc", "Vnone"]))}))
+        elif kind in ("E", "G"):
+            nodes = tuple(draw(st.sampled_from(nets)) for _ in range(4))
+            els.append(E(f"{kind}{k}", kind, nodes,
+                         draw(st.sampled_from([-10.0, 0.5, 3.0, 1e-3]))))
+        elif kind == "Q":
             nodes = tuple(draw(st.sampled_from(nets)) for _ in range(3))
             els.append(E(f"Q{k}", "Q", nodes, 0.0,
                          {"TYPE": draw(st.sampled_from(["NPN", "PNP"])), "IS": 1e-14}))
@@ -101,10 +109,11 @@ def small_circuits(draw):
     return Circuit(els, input_source="Vin")
 
 
-@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(small_circuits(), st.floats(0.01, 50.0))
 def test_random_circuits_run_finite_or_fail_cleanly(circ, amp):
-    # random R/C/diode/BJT networks: either a SolderlessError or finite output
+    # random R/C/diode/BJT/controlled-source networks: either a
+    # SolderlessError or finite output
     try:
         sim = Simulator(circ)
     except SolderlessError:
