@@ -85,3 +85,31 @@ def test_editor_style_net_names_written_so_ngspice_runs_them(version):
     # and the written text reads back as the same circuit
     back = spice.parse_netlist(text).circuit
     assert len(back.elements) == len(circ.elements)
+
+
+FUNC_STYLE = """* parameters and functions in expressions
+.param rtop=10k
+.func twice(x) {2*x}
+.func par(a,b) {a*b/(a+b)}
+V1 vcc 0 DC 9
+R1 vcc mid {twice(rtop)} TC1=0.001
+R2 mid 0 {par(twice(rtop), 10k)}
+R3 mid out {rtop/2}
+R4 out 0 22k
+.end
+"""
+
+
+def test_func_expressions_read_as_ngspice_reads_them(version):
+    # ngspice evaluates the same .func/.param expressions (and a TC1 changes
+    # nothing at its nominal 27 degC): every node within 1 mV
+    ref = S.run_op(FUNC_STYLE)
+    nl = spice.parse_netlist(FUNC_STYLE)
+    Simulator = S.engine_simulator()
+    ours = Simulator(nl.circuit, 48000.0).operating_point().nets
+    for node, v in ref.items():
+        if not node.startswith("i("):
+            assert abs(ours[node] - v) <= 1e-3, (node, ours[node], v, version)
+    # divider: R1 = 20k over R2 || (R3 + R4) = (20k || 10k) || 27k (textbook)
+    low = 1 / (1 / 20e3 + 1 / 10e3 + 1 / 27e3)
+    assert ref["mid"] == pytest.approx(9 * low / (20e3 + low), rel=1e-6)

@@ -143,6 +143,22 @@ def test_expressions():
             evaluate_expression(bad, p)
 
 
+def test_func_cards_and_list_valued_instance_parameters():
+    # .func name(args) {expr} defines a function for expressions (ngspice
+    # manual, ".func"); TC=tc1,tc2 is a list (ignored, with a warning: at the
+    # nominal 27 degC it changes nothing)
+    nl = parse_netlist("t\n.func twice(x) {2*x}\n.func par(a,b) {a*b/(a+b)}\n"
+                       ".param rp={par(twice(5k), 10k)}\nV1 a 0 1\n"
+                       "R1 a 0 {twice(2.2k)} TC=0.001,0\nR2 a 0 {rp}\n")
+    assert nl.circuit.element("R1").value == pytest.approx(4.4e3)
+    assert nl.circuit.element("R2").value == pytest.approx(5e3)
+    assert any("TC" in w for w in nl.warnings)
+    for bad, why in (("R3 a 0 {twice(1, 2)}", "takes 1 argument"),
+                     (".func loop(x) {loop(x)}\nR3 a 0 {loop(1)}", "32 deep")):
+        with pytest.raises(DesignError, match=why):
+            parse_netlist("t\n.func twice(x) {2*x}\nV1 a 0 1\n" + bad + "\n")
+
+
 def test_param_order_and_subckt_defaults():
     nl = parse_netlist("""t
 .param a=2 b={a*3}

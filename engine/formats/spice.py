@@ -25,7 +25,8 @@ What is read (case-insensitive, as in SPICE):
   (``.subckt name a b params: k=1``) and instance overrides (``X1 a b name
   k=2``);
 * ``.param`` and ``{expr}`` / ``'expr'`` values, evaluated by a small
-  arithmetic evaluator (no Python ``eval``);
+  arithmetic evaluator (no Python ``eval``), with the user's ``.func``
+  functions;
 * ``.include`` relative to the including file; ``.lib FILE SECTION`` (one
   section of a model library, up to its ``.endl``) and ``.lib FILE`` (the
   whole file); ``.end``;
@@ -151,16 +152,23 @@ _SCALED_NUM = re.compile(
     re.IGNORECASE)
 
 
-def evaluate_expression(text: str, params: dict[str, float]) -> float:
+def evaluate_expression(text: str, params: dict[str, float],
+                        funcs: dict[str, tuple[list[str], str]] | None = None,
+                        _depth: int = 0) -> float:
     """Evaluate a SPICE parameter expression such as ``2*rload + 4.7k``.
 
     Numbers may carry SPICE scale factors; names are looked up
     (case-insensitively) in ``params``; operators ``+ - * / ^ ** %``;
     functions sqrt, exp, ln/log, log10, abs, min, max, pow, pwr, trig and
-    hyperbolic functions, floor, ceil, int, nint, sgn; constant ``pi``.
+    hyperbolic functions, floor, ceil, int, nint, sgn; constant ``pi``;
+    and the user's ``.func`` functions in ``funcs`` (lower-case name ->
+    (argument names, body expression)).
     Parsed with :mod:`ast` and walked node by node: no code is executed.
     Raises ``ValueError`` with the reason.
     """
+    if _depth > 32:
+        raise ValueError("functions nest more than 32 deep (a .func that calls itself?)")
+    funcs = funcs or {}
     src = text.strip()
     if src[:1] in "{'" and src[-1:] in "}'":
         src = src[1:-1]
@@ -193,6 +201,15 @@ def evaluate_expression(text: str, params: dict[str, float]) -> float:
             return -v if isinstance(node.op, ast.USub) else v
         if isinstance(node, ast.Call) and isinstance(node.func, ast.Name) \
                 and not node.keywords:
+            user = funcs.get(node.func.id.lower())
+            if user is not None:
+                names, body = user
+                if len(node.args) != len(names):
+                    raise ValueError(f"function '{node.func.id}' takes {len(names)} "
+                                     f"argument(s), not {len(node.args)}")
+                inner = dict(low)
+                inner.update(zip(names, (ev(a) for a in node.args)))
+                return evaluate_expression(body, inner, funcs, _depth + 1)
             fn = _FUNCS.get(node.func.id.lower())
             if fn is None:
                 raise ValueError(f"unknown function '{node.func.id}'")
@@ -284,9 +301,11 @@ _IGNORED_DOT = {
     ".tran", ".op", ".ac", ".dc", ".noise", ".disto", ".pz", ".sens", ".tf",
     ".four", ".options", ".option", ".opt", ".save", ".probe", ".print",
     ".plot", ".backanno", ".lib", ".endl", ".temp", ".ic", ".nodeset",
-    ".global", ".meas", ".measure", ".width", ".csparam", ".step", ".func",
+    ".global", ".meas", ".measure", ".width", ".csparam", ".step",
     ".net", ".wave", ".spice", ".hdl", ".control", ".endc",
 }
+#: Instance parameters whose value may be a comma list (``TC=tc1,tc2``).
+_LIST_KEYS = {"TC"}
 _UNSUPPORTED_ELEMENTS = {
     "M": "MOSFETs are not supported; use a JFET (J) or BJT (Q) model",
     "B": "behavioural sources are not supported; use linear E/G sources",
@@ -578,6 +597,7 @@ class _Scope:
     subckts: dict[str, Subckt]
     parent: "_Scope | None" = None
     resolved: dict[str, SpiceModel] = field(default_factory=dict)
+    funcs: dict[str, tuple[list[str], str]] = field(default_factory=dict)
 
     def find_subckt(self, name: str) -> Subckt | None:
         s: _Scope | None = self
@@ -615,7 +635,8 @@ class _Reader:
         """A numeric field: number with scale factor, {expr} or a .param name."""
         if tok.startswith("{"):
             try:
-                return evaluate_expression(tok, scope_params(scope))
+                return evaluate_expression(tok, scope_params(scope),
+                                           scope_funcs(scope))
             except ValueError as exc:
                 self.err(card, f"{what}: {exc}", "define it with .param or fix "
                          "the expression", part)
@@ -644,8 +665,14 @@ class _Reader:
             if k + 1 < len(toks) and toks[k + 1] == "=":
                 if k + 2 >= len(toks):
                     self.err(card, f"'{toks[k]}=' has no value")
-                kv[toks[k].upper()] = toks[k + 2]
+                key = toks[k].upper()
+                kv[key] = toks[k + 2]
                 k += 3
+                # a list value, 'TC=0.001,0' (temperature coefficients):
+                # the first item is the value, the rest go with it
+                while key in _LIST_KEYS and k < len(toks) and _is_number_like(toks[k]) \
+                        and not (k + 1 < len(toks) and toks[k + 1] == "="):
+                    k += 1
             elif toks[k] == "=":
                 self.err(card, "'=' without a parameter name")
             else:
@@ -665,6 +692,8 @@ class _Reader:
             word = c.tokens[0].lower()
             if word == ".param":
                 self.read_param(c, scope)
+            elif word == ".func":
+                self.read_func(c, scope)
             elif word == ".model":
                 if len(c.tokens) < 3:
                     self.err(c, ".model needs a name and a type",
@@ -677,6 +706,19 @@ class _Reader:
             else:
                 rest.append(c)
         return scope, rest
+
+    def read_func(self, c: Card, scope: _Scope):
+        """``.func name(a, b) {expression}`` (ngspice manual, ".func")."""
+        m = re.match(r"^\.func\s+([A-Za-z_]\w*)\s*\(([^)]*)\)\s*=?\s*(.+)$", c.text,
+                     flags=re.I)
+        if not m:
+            self.err(c, ".func needs a name, arguments and an expression",
+                     ".func half(x) {x/2}")
+        args = [a.strip().lower() for a in m.group(2).split(",") if a.strip()]
+        if not all(re.fullmatch(r"[A-Za-z_]\w*", a) for a in args):
+            self.err(c, f"function arguments must be names, not '{m.group(2)}'",
+                     ".func half(x) {x/2}")
+        scope.funcs[m.group(1).lower()] = (args, m.group(3).strip())
 
     def read_param(self, c: Card, scope: _Scope):
         body = c.text.split(None, 1)[1] if len(c.text.split(None, 1)) > 1 else ""
@@ -693,7 +735,8 @@ class _Reader:
             if not expr:
                 self.err(c, f"parameter '{name}' has no value")
             try:
-                scope.params[name] = evaluate_expression(expr, scope_params(scope))
+                scope.params[name] = evaluate_expression(expr, scope_params(scope),
+                                                         scope_funcs(scope))
             except ValueError as exc:
                 self.err(c, f"parameter '{name}': {exc}",
                          "define the parameters it uses first")
@@ -1028,17 +1071,28 @@ def _Card_at(where: Where | None, text: str) -> Card:
     return Card(text, where or Where(), [])
 
 
-def scope_params(scope: _Scope) -> dict[str, float]:
-    """All parameters visible in ``scope`` (inner ones win)."""
+def _visible(scope: _Scope, attr: str) -> dict:
+    """Merge ``attr`` (params or funcs) of ``scope`` and its parents, inner
+    ones winning."""
     chain = []
     s: _Scope | None = scope
     while s is not None:
-        chain.append(s.params)
+        chain.append(getattr(s, attr))
         s = s.parent
-    out: dict[str, float] = {}
-    for p in reversed(chain):
-        out.update(p)
+    out: dict = {}
+    for d in reversed(chain):
+        out.update(d)
     return out
+
+
+def scope_params(scope: _Scope) -> dict[str, float]:
+    """All parameters visible in ``scope`` (inner ones win)."""
+    return _visible(scope, "params")
+
+
+def scope_funcs(scope: _Scope) -> dict[str, tuple[list[str], str]]:
+    """All ``.func`` functions visible in ``scope`` (inner ones win)."""
+    return _visible(scope, "funcs")
 
 
 def _is_number_like(tok: str) -> bool:
