@@ -30,6 +30,8 @@ H      (p, n)                         transresistance, ohm:
 D      (a, k)                         params: diode model (IS, N, RS ...)
 Q      (c, b, e)                      params: BJT model, params['TYPE'] NPN|PNP
 J      (d, g, s)                      params: JFET model, params['TYPE'] NJF|PJF
+M      (d, g, s, b)                   params: MOSFET model (level 1) with W, L,
+                                      params['TYPE'] NMOS|PMOS
 OPAMP  (inp, inn, out, vcc, vee)      params: macromodel (A0, GBW, ...)
 OTA    (inp, inn, out, abc, vee)      params: macromodel (JUNCTIONS, IS, ...)
 ====== ============================== =========================================
@@ -46,13 +48,13 @@ GROUND_ALIASES = {"0", "gnd", "ground"}
 
 KIND_NODES: dict[str, int] = {
     "R": 2, "C": 2, "L": 2, "V": 2, "I": 2, "E": 4, "G": 4, "F": 2, "H": 2,
-    "D": 2, "Q": 3, "J": 3, "OPAMP": 5, "OTA": 5,
+    "D": 2, "Q": 3, "J": 3, "M": 4, "OPAMP": 5, "OTA": 5,
 }
 LINEAR_KINDS = {"R", "C", "L", "V", "I", "E", "G", "F", "H"}
 #: Current-controlled sources: params['CONTROL'] names the voltage source
 #: (kind V) whose current, from its p node through it to n, controls them.
 CURRENT_CONTROLLED = {"F", "H"}
-DEVICE_KINDS = {"D", "Q", "J", "OPAMP", "OTA"}
+DEVICE_KINDS = {"D", "Q", "J", "M", "OPAMP", "OTA"}
 
 
 def canonical_net(name: str) -> str:

@@ -52,19 +52,21 @@ PART_TYPES: dict[str, tuple[str, tuple[str, ...], str]] = {
     "pnp": ("Q", ("c", "b", "e"), ""),
     "njfet": ("J", ("d", "g", "s"), ""),
     "pjfet": ("J", ("d", "g", "s"), ""),
+    "nmos": ("M", ("d", "g", "s"), ""),   # bulk = source, or a 4th node b
+    "pmos": ("M", ("d", "g", "s"), ""),
     "opamp": ("OPAMP", ("in+", "in-", "out", "v+", "v-"), ""),
     "ota": ("OTA", ("in+", "in-", "out", "control", "v-"), ""),
 }
 KIND_TO_TYPE = {"R": "resistor", "C": "capacitor", "L": "inductor", "V": "supply",
                 "I": "current", "E": "vcvs", "G": "vccs", "F": "cccs", "H": "ccvs",
                 "D": "diode",
-                "J": "njfet", "OPAMP": "opamp", "OTA": "ota"}
-DEVICE_TYPES = {"diode", "npn", "pnp", "njfet", "pjfet", "opamp", "ota"}
+                "J": "njfet", "M": "nmos", "OPAMP": "opamp", "OTA": "ota"}
+DEVICE_TYPES = {"diode", "npn", "pnp", "njfet", "pjfet", "nmos", "pmos", "opamp", "ota"}
 VALUE_TYPES = {"resistor", "capacitor", "inductor", "supply", "input", "current",
                "vcvs", "vccs", "cccs", "ccvs", "pot"}
 POSITIVE_TYPES = {"resistor", "capacitor", "inductor", "pot"}
 MODEL_KIND = {"diode": "D", "npn": "NPN", "pnp": "PNP", "njfet": "NJF",
-              "pjfet": "PJF", "opamp": "OPAMP", "ota": "OTA"}
+              "pjfet": "PJF", "nmos": "NMOS", "pmos": "PMOS", "opamp": "OPAMP", "ota": "OTA"}
 TAPERS = ("linear", "audio", "reverse-audio")
 AUDIO_TAPER_BASE = 81.0  # (B**0.5 - 1)/(B - 1) = 0.1: 10 % at mid rotation
 POT_END_FRACTION = 1e-4  # residual end resistance (fraction of the track)
@@ -276,7 +278,8 @@ def _read_part(raw: Any, where: Where, stage: str) -> Part:
     nodes = raw.get("nodes")
     _expect(isinstance(nodes, list) and all(isinstance(n, (str, int)) for n in nodes),
             f"nodes must be a list of net names ({', '.join(want)})", where, qual)
-    _expect(len(nodes) == len(want),
+    mos4 = ptype in ("nmos", "pmos") and len(nodes) == 4     # with its bulk node
+    _expect(len(nodes) == len(want) or mos4,
             f"a {ptype} has {len(want)} nodes ({', '.join(want)}), not {len(nodes)}", where, qual)
     p.nodes = [canonical_net(str(n)) for n in nodes]
     if ptype in VALUE_TYPES:
@@ -863,8 +866,10 @@ class _Flattener:
                                   hint=f"choose a {want} model")
             params = dict(model.element_params(supply=self.supply_span()))
             params.update(p.params)
-            if kind in ("Q", "J"):
+            if kind in ("Q", "J", "M"):
                 params["TYPE"] = want
+        if kind == "M" and len(nodes) == 3:
+            nodes = nodes + (nodes[2],)          # bulk on the source, as a discrete part
         add(Element(q, kind, nodes, p.value if p.value is not None else 0.0, params, w))
         return lib
 
@@ -1008,6 +1013,8 @@ def _design_from_netlist(path: Path, in_source: str, out_node: str) -> Design:
             ptype = "pnp" if str(e.params.get("TYPE", "NPN")).upper() == "PNP" else "npn"
         if e.kind == "J":
             ptype = "pjfet" if str(e.params.get("TYPE", "NJF")).upper() == "PJF" else "njfet"
+        if e.kind == "M":
+            ptype = "pmos" if str(e.params.get("TYPE", "NMOS")).upper() == "PMOS" else "nmos"
         parts.append(Part(name=e.name, type=ptype, nodes=list(e.nodes),
                           value=e.value if e.kind in LINEAR_KINDS else None,
                           model=nl.element_models.get(e.name),
@@ -1212,8 +1219,10 @@ def _stage_from_netlist(raw: dict, name: str, design_path: Path, w: Where) -> St
         ports = [str(p).lower() for p in raw.get("ports", ["in", "out"])]
     parts = []
     for e in elems:
-        if e.kind in ("Q", "J", "D", "OPAMP", "OTA"):
+        if e.kind in ("Q", "J", "M", "D", "OPAMP", "OTA"):
             kind_type = {"D": "diode", "OPAMP": "opamp", "OTA": "ota"}.get(e.kind)
+            if e.kind == "M":
+                kind_type = "pmos" if e.params.get("TYPE") == "PMOS" else "nmos"
             if e.kind == "Q":
                 kind_type = "pnp" if e.params.get("TYPE") == "PNP" else "npn"
             if e.kind == "J":

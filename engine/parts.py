@@ -38,7 +38,7 @@ BUILTIN_PATH = Path(__file__).resolve().parent.parent / "presets" / "parts.toml"
 
 #: Model kind -> flat-circuit element kind.
 KINDS: dict[str, str] = {"D": "D", "NPN": "Q", "PNP": "Q", "NJF": "J", "PJF": "J",
-                         "OPAMP": "OPAMP", "OTA": "OTA"}
+                         "NMOS": "M", "PMOS": "M", "OPAMP": "OPAMP", "OTA": "OTA"}
 
 _MACRO_PARAMS = {
     "OPAMP": {"A0", "GBW", "ROUT", "VHEAD", "IQ", "RIN"},
@@ -53,7 +53,7 @@ _DEVICE_ALIAS = {"OPAMP": {"VHEAD": "VHR"}, "OTA": {}}
 
 
 def _device_defaults(ekind: str) -> set[str] | None:
-    mod = {"D": "diode", "Q": "bjt", "J": "jfet", "OPAMP": "opamp",
+    mod = {"D": "diode", "Q": "bjt", "J": "jfet", "M": "mosfet", "OPAMP": "opamp",
            "OTA": "ota"}[ekind]
     try:
         m = __import__(f"engine.devices.{mod}", fromlist=["DEFAULTS"])
@@ -98,7 +98,7 @@ class Model:
             h = self.params["VHEAD"]
             if known is None or {"VLO", "VHI"} <= known:
                 out["VLO"], out["VHI"] = h, max(supply - h, h + 0.1)
-        if ek in ("Q", "J"):
+        if ek in ("Q", "J", "M"):
             out["TYPE"] = self.kind
         out["MODEL"] = self.name
         return out
@@ -138,7 +138,7 @@ class PartsLibrary:
         k = kind.upper() if kind else None
         return sorted(m.name for m in self._models.values()
                       if k is None or m.kind == k or
-                      (k in ("Q", "J") and m.element_kind == k))
+                      (k in ("Q", "J", "M") and m.element_kind == k))
 
     def __contains__(self, name) -> bool:
         return self.find(name) is not None
@@ -160,10 +160,10 @@ class PartsLibrary:
             raise DesignError(f"'{joined}' is not a .model card", file=file, line=line,
                               hint=".model NAME D(IS=1e-14 N=1.8)")
         name, mtype = toks[1], toks[2].upper()
-        if mtype not in ("D", "NPN", "PNP", "NJF", "PJF"):
+        if mtype not in ("D", "NPN", "PNP", "NJF", "PJF", "NMOS", "PMOS"):
             raise DesignError(f"model type {mtype} is not supported", file=file,
                               line=line, part=name,
-                              hint="use D, NPN, PNP, NJF or PJF")
+                              hint="use D, NPN, PNP, NJF, PJF, NMOS or PMOS")
         rest = toks[3:]
         params: dict[str, float] = {}
         k = 0

@@ -23,7 +23,7 @@ from PyQt6.QtWidgets import (QButtonGroup, QComboBox, QDial, QFrame, QGridLayout
                              QHBoxLayout, QLabel, QLineEdit, QPushButton, QScrollArea,
                              QSizePolicy, QToolButton, QVBoxLayout, QWidget)
 
-from engine.design import taper_fraction
+from engine.design import DEVICE_TYPES, taper_fraction
 from engine.errors import SolderlessError
 from engine.values import (format_value, nearest_preferred, parse_tolerance,
                            parse_value, preferred_deviation, step_preferred)
@@ -35,7 +35,6 @@ TAPER_CHOICES = [("linear", "linear"), ("audio", "audio"),
                  ("reverse-audio", "reverse audio"), ("custom", "custom law")]
 NUDGE = 0.01            # Shift+arrow: 1 %
 ROT_STEP = 0.01         # arrow on a pot dial: 1 % of rotation
-DEVICE_TYPES = {"diode", "npn", "pnp", "njfet", "pjfet", "opamp", "ota"}
 
 
 def _set_prop(w, name, value):

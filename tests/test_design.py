@@ -350,3 +350,78 @@ def test_current_controlled_parts(tmp_path):
     with pytest.raises(DesignError) as ei:
         load_design(write(tmp_path, missing, "missing.toml"))
     assert "control" in str(ei.value) and "MIR" in str(ei.value)
+
+
+MOS_BOOST = textwrap.dedent("""\
+    [design]
+    name = "mosfet booster"
+    global_nets = ["vcc"]
+
+    [[design.part]]
+    name = "VCC"
+    type = "supply"
+    nodes = ["vcc", "0"]
+    value = "9"
+
+    [[stage]]
+    name = "boost"
+    [[stage.part]]
+    name = "C1"
+    type = "capacitor"
+    nodes = ["in", "g"]
+    value = "100n"
+    [[stage.part]]
+    name = "R1"
+    type = "resistor"
+    nodes = ["vcc", "g"]
+    value = "1M"
+    [[stage.part]]
+    name = "R2"
+    type = "resistor"
+    nodes = ["g", "0"]
+    value = "470k"
+    [[stage.part]]
+    name = "Q1"
+    type = "nmos"
+    nodes = ["d", "g", "s"]
+    model = "nmos-small-signal"
+    [[stage.part]]
+    name = "RD"
+    type = "resistor"
+    nodes = ["vcc", "d"]
+    value = "10k"
+    [[stage.part]]
+    name = "RS"
+    type = "resistor"
+    nodes = ["s", "0"]
+    value = "2.2k"
+    [[stage.part]]
+    name = "C2"
+    type = "capacitor"
+    nodes = ["d", "out"]
+    value = "1u"
+""")
+
+
+def test_mosfet_part_bias_point(tmp_path):
+    # gate at the divider 9*470k/1.47M; square law in saturation with the
+    # source resistor: Id = beta/2*(Vg - Id*RS - VTO)^2*(1 + LAMBDA*Vds),
+    # beta = KP*W/L (Shichman-Hodges), solved by scipy
+    from scipy.optimize import brentq
+    from engine.solver import Simulator
+    d = load_design(write(tmp_path, MOS_BOOST))
+    circ = d.flatten()
+    m = circ.element("boost.Q1")
+    assert m.kind == "M" and m.nodes[3] == m.nodes[2]      # bulk on the source
+    op = Simulator(circ, 48000.0).operating_point()
+    vg = 9 * 470e3 / 1.47e6
+    beta = 60e-6 * 2e-3 / 2e-6
+
+    def f(i):
+        vgst = vg - i * 2.2e3 - 2.0
+        vds = 9 - i * (10e3 + 2.2e3)
+        return beta / 2 * max(vgst, 0.0) ** 2 * (1 + 0.02 * vds) - i
+
+    i_d = brentq(f, 0.0, 9 / 12.2e3)
+    assert op.nets["boost.s"] == pytest.approx(i_d * 2.2e3, rel=1e-6)
+    assert op.devices["boost.Q1"]["region"] == "saturated"

@@ -3,7 +3,7 @@
 Sources: Shockley diode and Ebers-Moll/Gummel-Poon equations as documented for
 SPICE (see REFERENCES.md); Gray, Hurst, Lewis & Meyer, Analysis and Design of
 Analog Integrated Circuits, 5th ed. (OTA tanh law, from memory); Shichman &
-Hodges, IEEE JSSC 1968 (JFET square law); small-signal amplifier formulas are
+Hodges, IEEE JSSC 1968 (JFET and MOSFET square law); small-signal amplifier formulas are
 common practice (any electronics handbook).
 """
 import math
@@ -168,6 +168,30 @@ def test_jfet_square_law_saturation_and_linear():
         vgd = vgs - vds
         leak = 1e-14 * (math.exp(vgd / VT) - 1) if vgd > -3 * VT else -1e-14
         assert d["id"] == pytest.approx(expect - leak - 1e-12 * vgd, rel=1e-6)
+
+
+def test_mosfet_square_law_saturation_and_linear():
+    # Shichman-Hodges (level 1): beta = KP*W/L; Id = beta/2*(Vgs-VTO)^2*
+    # (1+LAMBDA*Vds) in saturation, beta*Vds*(Vgs-VTO-Vds/2)*(1+LAMBDA*Vds) in
+    # the linear region; the body diode (bulk = source, so Vbd = -Vds) takes
+    # IS*(exp(Vbd/VT)-1) + GMIN*Vbd out of the drain current
+    par = {"TYPE": "NMOS", "VTO": 1.5, "KP": 50e-6, "LAMBDA": 0.02, "W": 100e-6,
+           "L": 2e-6}
+    beta = 50e-6 * 100e-6 / 2e-6
+    for vgs, vds in ((2.5, 5.0), (4.0, 0.5), (1.0, 3.0)):
+        c = Circuit([E("Vg", "V", ("g", "0"), vgs), E("Vd", "V", ("d", "0"), vds),
+                     E("M1", "M", ("d", "g", "0", "0"), 0.0, par)], output=("d", "0"))
+        d = Simulator(c).operating_point().devices["M1"]
+        vgst = vgs - 1.5
+        if vgst <= 0:
+            expect, region = 0.0, "cut-off"
+        elif vgst <= vds:
+            expect, region = beta / 2 * vgst ** 2 * (1 + 0.02 * vds), "saturated"
+        else:
+            expect, region = beta * vds * (vgst - vds / 2) * (1 + 0.02 * vds), "linear"
+        diode = 1e-14 + 1e-12 * vds      # minus a reverse-biased body diode's current
+        assert d["region"] == region
+        assert d["id"] == pytest.approx(expect + diode, rel=1e-6, abs=1e-15)
 
 
 def test_pnp_mirrors_npn():

@@ -55,11 +55,11 @@ def test_element_params_fit_device_modules(lib):
     for name in lib.names():
         m = lib.get(name)
         p = m.element_params(supply=9.0)
-        mod = __import__(f"engine.devices.{ {'D': 'diode', 'Q': 'bjt', 'J': 'jfet', 'OPAMP': 'opamp', 'OTA': 'ota'}[m.element_kind] }",
-                         fromlist=["DEFAULTS"])
+        from engine.devices import REGISTRY
+        mod = REGISTRY[m.element_kind]
         el = Element(name, m.element_kind, ("a",) * 5, 0.0, p)
         devices.read_params(el, mod.DEFAULTS)   # raises on unknown names
-        if m.element_kind in ("Q", "J"):
+        if m.element_kind in ("Q", "J", "M"):
             assert p["TYPE"] == m.kind
 
 
@@ -126,8 +126,9 @@ def test_model_cards(lib, tmp_path):
                             file="user.lib", line=4)
     assert m.params == {"IS": 1e-9, "N": 1.9, "RS": 0.5, "CJO": 2e-12}
     assert lib2.get("mydiode") is m
-    with pytest.raises(DesignError, match=r"user.lib:7.*NMOS"):
-        lib2.add_model_card(".model M1 NMOS(VTO=1)", file="user.lib", line=7)
+    with pytest.raises(DesignError, match=r"user.lib:7.*VDMOS"):
+        lib2.add_model_card(".model M1 VDMOS(VTO=1)", file="user.lib", line=7)
+    assert lib2.add_model_card(".model M2 NMOS(VTO=1 KP=50u)").element_kind == "M"
     with pytest.raises(DesignError, match="BF"):
         lib2.add_model_card(".model Q9 NPN(BFF=100)", file="user.lib", line=8)
     with pytest.raises(DesignError, match="not a .model"):

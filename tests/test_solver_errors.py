@@ -87,8 +87,14 @@ def small_circuits(draw):
     nets = NETS + ["vcc"]
     n = draw(st.integers(2, 8))
     for k in range(n):
-        kind = draw(st.sampled_from(["R", "R", "C", "D", "Q", "E", "G", "F", "H"]))
-        if kind in ("F", "H"):
+        kind = draw(st.sampled_from(["R", "R", "C", "D", "Q", "M", "E", "G", "F", "H"]))
+        if kind == "M":
+            nodes = tuple(draw(st.sampled_from(nets)) for _ in range(4))
+            els.append(E(f"M{k}", "M", nodes, 0.0,
+                         {"TYPE": draw(st.sampled_from(["NMOS", "PMOS"])),
+                          "VTO": draw(st.sampled_from([1.5, -1.0, 0.0])), "KP": 1e-3,
+                          "GAMMA": draw(st.sampled_from([0.0, 0.5]))}))
+        elif kind in ("F", "H"):
             nodes = (draw(st.sampled_from(nets)), draw(st.sampled_from(nets)))
             els.append(E(f"{kind}{k}", kind, nodes, draw(st.sampled_from([-10.0, 0.5, 3.0])),
                          {"CONTROL": draw(st.sampled_from(["Vin", "Vcc", "Vnone"]))}))
@@ -112,7 +118,7 @@ def small_circuits(draw):
 @settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(small_circuits(), st.floats(0.01, 50.0))
 def test_random_circuits_run_finite_or_fail_cleanly(circ, amp):
-    # random R/C/diode/BJT/controlled-source networks: either a
+    # random R/C/diode/BJT/MOSFET/controlled-source networks: either a
     # SolderlessError or finite output
     try:
         sim = Simulator(circ)

@@ -183,8 +183,12 @@ def _err(text, **kw):
 
 
 def test_errors_name_file_line_card_and_reason():
-    m = _err("t\nR1 a 0 1k\nM1 d g s b NMOS\n")
-    assert "pedal.cir:3" in m and "M1 d g s b NMOS" in m and "MOSFETs are not supported" in m
+    m = _err("t\nR1 a 0 1k\nS1 a 0 c 0 SMOD\n")
+    assert "pedal.cir:3" in m and "S1 a 0 c 0 SMOD" in m and "switches (S) are not supported" in m
+    m = _err("t\nR1 a 0 1k\nM1 d g s b NOPE\n")
+    assert "pedal.cir:3" in m and "model 'NOPE' is not defined" in m
+    m = _err("t\nR1 a 0 1k\nM1 d g s b QX\n.model QX NPN(IS=1e-14)\n")
+    assert "NMOS or PMOS" in m
     m = _err("t\nR1 a 0 1k\nD1 a 0 NOPE\n")
     assert "pedal.cir:3" in m and "model 'NOPE' is not defined" in m
     m = _err("t\nX1 a b nosuch\n")

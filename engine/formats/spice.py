@@ -14,9 +14,11 @@ What is read (case-insensitive, as in SPICE):
   recorded but not used, ``SIN(VO VA FREQ TD THETA)``,
   ``PULSE(V1 V2 TD TR TF PW PER)``, ``PWL(t v ...)``), linear E and G in the
   four-node form, linear F and H (``F1 out+ out- VSENSE gain``: the current
-  of a V source controls them), D, Q (three nodes and a model; a substrate node or an area
-  factor is ignored with a warning), J;
-* ``.model NAME TYPE(params)`` for D, NPN, PNP, NJF and PJF; parameters
+  of a V source controls them), D, Q (three nodes and a model; a substrate
+  node or an area factor is ignored with a warning), J, M (four nodes, level
+  1; instance W, L and M);
+* ``.model NAME TYPE(params)`` for D, NPN, PNP, NJF, PJF, NMOS and PMOS
+  (another LEVEL is read as level 1, with a warning); parameters
   Solderless does not simulate (CJO, TT, ...) are kept in
   :attr:`Netlist.models` and reported in :attr:`Netlist.warnings`;
 * ``.subckt``/``.ends`` with X instances, flattened: element ``R1`` inside
@@ -70,13 +72,15 @@ __all__ = [
 # Device parameter names
 
 #: Model types read from ``.model`` cards, and the element kind they serve.
-MODEL_KIND = {"D": "D", "NPN": "Q", "PNP": "Q", "NJF": "J", "PJF": "J"}
+MODEL_KIND = {"D": "D", "NPN": "Q", "PNP": "Q", "NJF": "J", "PJF": "J", "NMOS": "M",
+              "PMOS": "M"}
 
 # Parameters the device modules simulate (fallback if they cannot be read).
 _SIM_FALLBACK = {
     "D": {"IS", "N", "RS"},
     "Q": {"IS", "BF", "BR", "NF", "NR", "VAF", "VAR"},
     "J": {"VTO", "BETA", "LAMBDA", "IS", "N"},
+    "M": {"VTO", "KP", "LAMBDA", "GAMMA", "PHI", "IS"},
 }
 
 # Standard SPICE model parameters (ngspice manual, device model tables);
@@ -110,6 +114,13 @@ _STANDARD = {
           "IS", "N", "B", "FC", "KF", "AF", "TNOM", "TCV", "VTOTC", "BEX",
           "BETATCE", "XTI", "EG", "LEVEL", "ISR", "NR", "ALPHA", "VK", "M",
           "MFG", "TYPE", "BV", "IBV", "VDSMAX", "VGSMAX", "VGDMAX", "RG"},
+    "M": {"LEVEL", "VTO", "VT0", "KP", "GAMMA", "PHI", "LAMBDA", "RD", "RS", "CBD",
+          "CBS", "IS", "PB", "CGSO", "CGDO", "CGBO", "RSH", "CJ", "MJ", "CJSW",
+          "MJSW", "JS", "TOX", "NSUB", "NSS", "NFS", "TPG", "XJ", "LD", "UO", "U0",
+          "UCRIT", "UEXP", "UTRA", "VMAX", "NEFF", "KF", "AF", "FC", "DELTA",
+          "THETA", "ETA", "KAPPA", "TNOM", "MFG", "TYPE", "N", "W", "L", "WD",
+          "RG", "RB", "BEX", "TCV", "XTI", "EG", "VDS", "VGS", "RON", "QG",
+          "MTRIODE", "KSUBTHRES", "BV", "IBV", "TT"},
 }
 # Aliases SPICE accepts for the same parameter.
 _ALIAS = {
@@ -117,12 +128,13 @@ _ALIAS = {
     "Q": {"VA": "VAF", "VB": "VAR", "IK": "IKF", "PE": "VJE", "ME": "MJE",
           "PC": "VJC", "MC": "MJC", "PS": "VJS", "MS": "MJS", "CCS": "CJS"},
     "J": {"VT0": "VTO"},
+    "M": {"VT0": "VTO"},
 }
 
 
 def _simulated(kind: str) -> set[str]:
     """Parameter names the device module for ``kind`` reads."""
-    mod = {"D": "diode", "Q": "bjt", "J": "jfet"}[kind]
+    mod = {"D": "diode", "Q": "bjt", "J": "jfet", "M": "mosfet"}[kind]
     try:
         m = __import__(f"engine.devices.{mod}", fromlist=["DEFAULTS"])
         return set(m.DEFAULTS)
@@ -307,7 +319,6 @@ _IGNORED_DOT = {
 #: Instance parameters whose value may be a comma list (``TC=tc1,tc2``).
 _LIST_KEYS = {"TC"}
 _UNSUPPORTED_ELEMENTS = {
-    "M": "MOSFETs are not supported; use a JFET (J) or BJT (Q) model",
     "B": "behavioural sources are not supported; use linear E/G sources",
     "K": "coupled inductors (K) are not supported",
     "T": "transmission lines are not supported",
@@ -812,7 +823,7 @@ class _Reader:
                 self.controlled(c, letter, name, net, scope)
             elif letter in "FH":
                 self.current_controlled(c, letter, name, net, scope, prefix)
-            elif letter in "DQJ":
+            elif letter in "DQJM":
                 self.device(c, letter, name, net, scope)
             elif letter == "X":
                 self.instance(c, name, net, scope, chain)
@@ -954,8 +965,8 @@ class _Reader:
 
     def device(self, c, letter, name, net, scope):
         pos, kv = self.kv(c.tokens[1:], c)
-        nn = {"D": 2, "Q": 3, "J": 3}[letter]
-        want = {"D": "D", "Q": "NPN or PNP", "J": "NJF or PJF"}[letter]
+        nn = {"D": 2, "Q": 3, "J": 3, "M": 4}[letter]
+        want = {"D": "D", "Q": "NPN or PNP", "J": "NJF or PJF", "M": "NMOS or PMOS"}[letter]
         if len(pos) < nn + 1:
             self.err(c, f"needs {nn} nodes and a model name",
                      f"{c.tokens[0]} " + " ".join(["node"] * nn) + " MODEL", name)
@@ -984,10 +995,15 @@ class _Reader:
             else:
                 self.value(tok, c, scope, "area factor", name)
                 self.warn(f"{c.file}:{c.line}: {name}: area factor {tok} is ignored")
-        for k in kv:
-            self.warn(f"{c.file}:{c.line}: {name}: instance parameter {k} is ignored")
+        inst: dict[str, float] = {}
+        for k, tok in kv.items():
+            if letter == "M" and k in ("W", "L", "M"):
+                inst[k] = self.value(tok, c, scope, k, name)
+            else:
+                self.warn(f"{c.file}:{c.line}: {name}: instance parameter {k} is ignored")
         params = self.device_params(model, kind)
-        if kind in ("Q", "J"):
+        params.update(inst)
+        if kind in ("Q", "J", "M"):
             params["TYPE"] = mtype
         params["MODEL"] = model.name
         self.element_models[name] = model.name
@@ -1316,7 +1332,7 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
                               file=f, line=ln, part=el.name,
                               hint="replace it by a transistor-level subcircuit "
                                    "to compare with a SPICE simulator")
-        if el.kind not in ("R", "C", "L", "V", "I", "E", "G", "F", "H", "D", "Q", "J"):
+        if el.kind not in ("R", "C", "L", "V", "I", "E", "G", "F", "H", "D", "Q", "J", "M"):
             raise DesignError(f"element kind '{el.kind}' cannot be written as SPICE",
                               file=f, line=ln, part=el.name)
         sname = _spice_name(el)
@@ -1361,12 +1377,19 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
             if kind == "J" and mtype not in ("NJF", "PJF"):
                 raise DesignError("a JFET needs params['TYPE'] NJF or PJF", file=f,
                                   line=ln, part=el.name)
+            if kind == "M" and mtype not in ("NMOS", "PMOS"):
+                raise DesignError("a MOSFET needs params['TYPE'] NMOS or PMOS", file=f,
+                                  line=ln, part=el.name)
             mname = "M_" + sname.replace(".", "_")
             sim = _simulated(kind)
+            inst = ("W", "L", "M") if kind == "M" else ()
             mp = " ".join(f"{k}={_fmt(float(v))}" for k, v in p.items()
-                          if k in sim)
+                          if k in sim and k not in inst)
+            if kind == "M":
+                mp = ("LEVEL=1 " + mp).strip()
             models.append(f".model {mname} {mtype}({mp})")
             s = f"{sname} {nodes} {mname}"
+            s += "".join(f" {k}={_fmt(float(p[k]))}" for k in inst if k in p)
         lines.append(s)
     lines.extend(models)
     lines.append(".end")

@@ -95,7 +95,7 @@ def _refresh_cache_stamp():
 
 _refresh_cache_stamp()
 
-from engine.devices import bjt, diode, jfet, opamp, ota  # noqa: E402
+from engine.devices import bjt, diode, jfet, mosfet, opamp, ota  # noqa: E402
 from engine.devices._common import VT  # noqa: E402
 
 #: Largest number of ports whose Jacobian blocks a low-rank update of the
@@ -270,6 +270,8 @@ def eval_one(c, par, pa, v, po, i, G):
         ota.evaluate(par, pa, v, po, i, G)
     elif c == 5:
         opamp.evaluate(par, pa, v, po, i, G)
+    elif c == 6:
+        mosfet.evaluate(par, pa, v, po, i, G)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
@@ -350,6 +352,8 @@ def limit_one(c, par, pa, vn, vo, po):
         ota.limit(par, pa, vn, vo, po)
     elif c == 5:
         opamp.limit(par, pa, vn, vo, po)
+    elif c == 6:
+        mosfet.limit(par, pa, vn, vo, po)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
