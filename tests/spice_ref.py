@@ -104,7 +104,8 @@ def circuit_cards(text: str) -> str:
             if s.startswith(".endc"):
                 in_control = False
             continue
-        if i > 0 and (s.startswith(".end") or s.startswith(".tran")
+        word = s.split()[0] if s.split() else ""
+        if i > 0 and (word == ".end" or s.startswith(".tran")
                       or s.startswith(".op") or s.startswith(".dc")
                       or s.startswith(".ac") or s.startswith(".options")
                       or s.startswith(".option")):

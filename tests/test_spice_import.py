@@ -197,8 +197,10 @@ def test_errors_name_file_line_card_and_reason():
     assert "pedal.cir:5" in m and "2 ports" in m
     m = _err("t\nV1 a 0 EXP(0 1 1m 1m 2m 2m)\n")
     assert "EXP" in m and "pedal.cir:2" in m
-    m = _err("t\nE1 a 0 POLY(1) b 0 0 1\n")
-    assert "linear four-node" in m
+    m = _err("t\nE1 a 0 POLY(1) b 0 0 1 0.5\n")
+    assert "above the first degree" in m
+    m = _err("t\nE1 a 0 VALUE={v(b)*2}\n")
+    assert "linear POLY" in m
     m = _err("t\nR1 a 0 4x7y\n")
     assert "pedal.cir:2" in m and "R1" in m
     m = _err("t\nR1 a 0 {rx*2}\n")
@@ -343,12 +345,36 @@ RL2 o2 0 1k
     assert "X1.VS F1" not in circuit_to_netlist(nl.circuit)
     assert re.search(r"^F\.X1\.F1 o1 0 V\.X1\.VS 2$", circuit_to_netlist(nl.circuit),
                      flags=re.M)
-    for card, why in (("F1 o 0 POLY(1) VS 0 2", "linear form"),
+    for card, why in (("F1 o 0 POLY(1) VS 0 2 1", "above the first degree"),
                       ("F1 o 0 R1 2", "not a voltage source"),
                       ("H1 o 0 VS", "controlling V source and a value")):
         with pytest.raises(DesignError) as ei:
             parse_netlist(f"t\nVS a 0 0\nR1 a 0 1k\nRO o 0 1k\n{card}\n")
         assert why in str(ei.value) and ":5" in str(ei.value)
+
+
+def test_linear_poly_sources_become_sums_of_plain_ones():
+    # POLY(n): out = p0 + p1*x1 + ... + pn*xn (SPICE2); E and H in series,
+    # G and F in parallel, p0 as a V or I source
+    nl = parse_netlist("t\nV1 a 0 1\nV2 b 0 2\nVS b s 0\nRS s 0 1k\n"
+                       "EG m 0 POLY(2) (a,0) (b,0) 0.1 0.5 0.25\nRM m 0 1k\n"
+                       "GX 0 g POLY(2) a 0 b 0 0 1m 0\nRG g 0 1k\n"
+                       "H1 h 0 POLY(1) VS 2k\nRH h 0 1k\n")
+    els = {e.name: e for e in nl.circuit.elements}
+    assert (els["EG.P1"].kind, els["EG.P1"].value, els["EG.P1"].nodes[2:]) == \
+        ("E", 0.5, ("a", "0"))
+    assert els["EG.P2"].nodes[:2] == (els["EG.P1"].nodes[1], els["EG.P0"].nodes[0])
+    assert (els["EG.P0"].kind, els["EG.P0"].value) == ("V", 0.1)
+    assert "GX.P2" not in els and els["GX.P1"].nodes == ("0", "g", "a", "0")
+    # one coefficient of a one-dimensional POLY is p1 (SPICE2 user's guide,
+    # from memory)
+    assert (els["H1.P1"].value, els["H1.P1"].params["CONTROL"]) == (2e3, "VS")
+    from engine.solver import Simulator
+    nl.circuit.output = ("m", "0")
+    op = Simulator(nl.circuit, 48000.0).operating_point()
+    assert op.nets["m"] == pytest.approx(0.1 + 0.5 * 1 + 0.25 * 2, rel=1e-9)
+    assert op.nets["g"] == pytest.approx(1e-3 * 1 * 1e3, rel=1e-9)
+    assert op.nets["h"] == pytest.approx(2e3 * 2e-3, rel=1e-9)
 
 
 def test_writer_round_trip():

@@ -14,7 +14,9 @@ What is read (case-insensitive, as in SPICE):
   recorded but not used, ``SIN(VO VA FREQ TD THETA)``,
   ``PULSE(V1 V2 TD TR TF PW PER)``, ``PWL(t v ...)``), linear E and G in the
   four-node form, linear F and H (``F1 out+ out- VSENSE gain``: the current
-  of a V source controls them), D, Q (three nodes and a model; a substrate
+  of a V source controls them), and all four in the linear ``POLY(n)`` form
+  (p0 and first-degree terms, as op-amp macromodels write them; expanded to
+  plain sources ``NAME.P1`` ...), D, Q (three nodes and a model; a substrate
   node or an area factor is ignored with a warning), J, M (four nodes, level
   1; instance W, L and M);
 * ``.model NAME TYPE(params)`` for D, NPN, PNP, NJF, PJF, NMOS and PMOS
@@ -931,37 +933,100 @@ class _Reader:
 
     def controlled(self, c, letter, name, net, scope):
         pos, kv = self.kv(c.tokens[1:], c)
-        if any(p.lower() in ("poly", "value", "table", "laplace", "vol", "cur")
-               for p in pos) or kv:
-            self.err(c, "only the linear four-node form is supported",
-                     f"{c.tokens[0]} out+ out- ctrl+ ctrl- gain", name)
+        form = f"{c.tokens[0]} out+ out- ctrl+ ctrl- gain"
+        if any(p.lower() in ("value", "table", "laplace", "vol", "cur") for p in pos) or kv:
+            self.err(c, "only the linear four-node form and linear POLY are supported",
+                     form, name)
+        if len(pos) > 2 and pos[2].lower() == "poly":
+            ctrls, coef = self.poly(c, pos, 2, name, scope, form)
+            self.expand_poly(c, letter, name, net(pos[0]), net(pos[1]),
+                             [(net(a), net(b)) for a, b in ctrls], coef)
+            return
         if len(pos) != 5:
-            self.err(c, "needs four nodes and a gain",
-                     f"{c.tokens[0]} out+ out- ctrl+ ctrl- gain", name)
+            self.err(c, "needs four nodes and a gain", form, name)
         g = self.value(pos[4], c, scope, "gain", name)
         self.add(Element(name, letter, tuple(net(p) for p in pos[:4]), g, {},
                          c.where), c)
 
     def current_controlled(self, c, letter, name, net, scope, prefix):
         """F (current gain) and H (transresistance), linear form: ``F1 out+
-        out- VSENSE gain``; the controlling V source is named as the card
-        names it, in the same subcircuit instance."""
+        out- VSENSE gain`` (or linear POLY); the controlling V source is named
+        as the card names it, in the same subcircuit instance."""
         pos, kv = self.kv(c.tokens[1:], c)
         form = f"{c.tokens[0]} out+ out- VNAME {'gain' if letter == 'F' else 'ohms'}"
-        if any(p.lower() in ("poly", "value", "table") for p in pos) or kv:
-            self.err(c, "only the linear form with one controlling source is supported",
-                     form, name)
+        if any(p.lower() in ("value", "table") for p in pos) or kv:
+            self.err(c, "only the linear form and linear POLY are supported", form, name)
+
+        def control(tok: str) -> str:
+            own = tok[2:] if len(tok) > 2 and tok[1] == "." else tok
+            if own[:1].upper() != "V":
+                self.err(c, f"'{tok}' is not a voltage source: the current through a V "
+                            "source controls it", form, name)
+            return (prefix + "." if prefix else "") + own.upper()
+
+        if len(pos) > 2 and pos[2].lower() == "poly":
+            ctrls, coef = self.poly(c, pos, 1, name, scope, form)
+            self.expand_poly(c, letter, name, net(pos[0]), net(pos[1]),
+                             [control(t) for (t,) in ctrls], coef)
+            return
         if len(pos) != 4:
             self.err(c, "needs two nodes, the controlling V source and a value", form, name)
-        ctl = pos[2]
-        own = ctl[2:] if len(ctl) > 2 and ctl[1] == "." else ctl
-        if own[:1].upper() != "V":
-            self.err(c, f"'{ctl}' is not a voltage source: the current through a V "
-                        "source controls it", form, name)
+        ctl = control(pos[2])
         g = self.value(pos[3], c, scope, "gain" if letter == "F" else "transresistance", name)
-        self.add(Element(name, letter, (net(pos[0]), net(pos[1])), g,
-                         {"CONTROL": (prefix + "." if prefix else "") + own.upper()},
+        self.add(Element(name, letter, (net(pos[0]), net(pos[1])), g, {"CONTROL": ctl},
                          c.where), c)
+
+    def poly(self, c, pos, per, name, scope, form):
+        """Controls and coefficients of a linear ``POLY(n)`` source: n
+        controls (node pairs, or V sources), then p0 p1 ... pn; terms of
+        higher degree must be zero.  A one-dimensional POLY with a single
+        coefficient means p1, as the SPICE2 user's guide has it (from memory;
+        ngspice-39 reads that coefficient as p0)."""
+        if len(pos) < 4:
+            self.err(c, "POLY needs its dimension: POLY(n)", form, name)
+        try:
+            nd = int(self.value(pos[3], c, scope, "POLY dimension", name))
+        except (TypeError, ValueError):
+            nd = 0
+        if nd < 1:
+            self.err(c, f"POLY dimension '{pos[3]}' is not a whole number >= 1", form, name)
+        body = pos[4:]
+        if len(body) < nd * per + 1:
+            self.err(c, f"POLY({nd}) needs {nd} control(s) and its coefficients", form, name)
+        ctrls = [tuple(body[k * per:(k + 1) * per]) for k in range(nd)]
+        coef = [self.value(t, c, scope, "POLY coefficient", name) for t in body[nd * per:]]
+        if nd == 1 and len(coef) == 1:
+            coef = [0.0, coef[0]]
+        coef += [0.0] * (nd + 1 - len(coef))
+        if any(x != 0.0 for x in coef[nd + 1:]):
+            self.err(c, "POLY terms above the first degree are not supported (a "
+                        "nonlinear controlled source)", "keep p0 and the linear "
+                        "coefficients; model the nonlinearity with devices", name)
+        return ctrls, coef[:nd + 1]
+
+    def expand_poly(self, c, letter, name, pos_net, neg_net, ctrls, coef):
+        """A linear POLY source as the sum of plain ones: E and H in series
+        (internal nodes ``<name>#pK``), G and F in parallel; the constant p0 as
+        a V (E, H) or I (G, F) source.  Element ``<name>.P<k>`` carries p_k."""
+        series = letter in "EH"
+        parts = [(k + 1, ctrl, g) for k, (ctrl, g) in enumerate(zip(ctrls, coef[1:]))
+                 if g != 0.0]
+        if coef[0] != 0.0 or not parts:
+            parts.append((0, None, coef[0]))
+        node = pos_net
+        for j, (k, ctrl, g) in enumerate(parts):
+            last = j == len(parts) - 1
+            nxt = neg_net if (last or not series) else f"{name.lower()}#p{k}"
+            a, b = (node, nxt) if series else (pos_net, neg_net)
+            el_name = f"{name}.P{k}"
+            if ctrl is None:
+                self.add(Element(el_name, "V" if series else "I", (a, b), g, {}, c.where), c)
+            elif letter in "EG":
+                self.add(Element(el_name, letter, (a, b, ctrl[0], ctrl[1]), g, {},
+                                 c.where), c)
+            else:
+                self.add(Element(el_name, letter, (a, b), g, {"CONTROL": ctrl}, c.where), c)
+            node = nxt
 
     def device(self, c, letter, name, net, scope):
         pos, kv = self.kv(c.tokens[1:], c)
