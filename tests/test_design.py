@@ -276,57 +276,28 @@ def test_netlist_design_saves_as_toml_that_uses_it(tmp_path):
     assert "../nets/rc.cir" in out.read_text()
 
 
-CONTROLLED = textwrap.dedent("""\
-    [design]
-    name = "current-controlled parts"
-    global_nets = ["vcc"]
+def one_stage(name: str, stage: str, parts: list[tuple]) -> str:
+    """A design file: a global 9 V supply VCC and one stage of ``parts``,
+    each (name, type, nodes, {other keys})."""
+    out = [f'[design]\nname = "{name}"\nglobal_nets = ["vcc"]\n',
+           '[[design.part]]\nname = "VCC"\ntype = "supply"\nnodes = ["vcc", "0"]\n'
+           'value = "9"\n', f'[[stage]]\nname = "{stage}"']
+    for pname, ptype, nodes, extra in parts:
+        keys = "".join(f'{k} = "{v}"\n' for k, v in extra.items())
+        out.append(f'[[stage.part]]\nname = "{pname}"\ntype = "{ptype}"\n'
+                   f'nodes = {list(nodes)!r}\n{keys}'.replace("'", '"'))
+    return "\n".join(out)
 
-    [[design.part]]
-    name = "VCC"
-    type = "supply"
-    nodes = ["vcc", "0"]
-    value = "9"
 
-    [[stage]]
-    name = "sense"
-    [[stage.part]]
-    name = "R1"
-    type = "resistor"
-    nodes = ["vcc", "s"]
-    value = "10k"
-    [[stage.part]]
-    name = "AMM"
-    type = "supply"
-    nodes = ["s", "0"]
-    value = "0"
-    [[stage.part]]
-    name = "MIR"
-    type = "cccs"
-    nodes = ["0", "m"]
-    value = "2"
-    control = "AMM"
-    [[stage.part]]
-    name = "RM"
-    type = "resistor"
-    nodes = ["m", "0"]
-    value = "1k"
-    [[stage.part]]
-    name = "TR"
-    type = "ccvs"
-    nodes = ["t", "0"]
-    value = "1k"
-    control = "AMM"
-    [[stage.part]]
-    name = "RT"
-    type = "resistor"
-    nodes = ["t", "out"]
-    value = "1k"
-    [[stage.part]]
-    name = "RIN"
-    type = "resistor"
-    nodes = ["in", "0"]
-    value = "100k"
-""")
+CONTROLLED = one_stage("current-controlled parts", "sense", [
+    ("R1", "resistor", ("vcc", "s"), {"value": "10k"}),
+    ("AMM", "supply", ("s", "0"), {"value": "0"}),
+    ("MIR", "cccs", ("0", "m"), {"value": "2", "control": "AMM"}),
+    ("RM", "resistor", ("m", "0"), {"value": "1k"}),
+    ("TR", "ccvs", ("t", "0"), {"value": "1k", "control": "AMM"}),
+    ("RT", "resistor", ("t", "out"), {"value": "1k"}),
+    ("RIN", "resistor", ("in", "0"), {"value": "100k"}),
+])
 
 
 def test_current_controlled_parts(tmp_path):
@@ -340,8 +311,7 @@ def test_current_controlled_parts(tmp_path):
     op = Simulator(circ, 48000.0).operating_point()
     assert op.nets["sense.m"] == pytest.approx(1.8, rel=1e-9)
     assert op.nets["sense.t"] == pytest.approx(0.9, rel=1e-9)
-    bad = CONTROLLED.replace('control = "AMM"\n[[stage.part]]\nname = "RM"',
-                             'control = "R1"\n[[stage.part]]\nname = "RM"')
+    bad = CONTROLLED.replace('value = "2"\ncontrol = "AMM"', 'value = "2"\ncontrol = "R1"')
     assert bad != CONTROLLED
     with pytest.raises(DesignError) as ei:
         Simulator(load_design(write(tmp_path, bad, "bad.toml")).flatten(), 48000.0)
@@ -352,55 +322,15 @@ def test_current_controlled_parts(tmp_path):
     assert "control" in str(ei.value) and "MIR" in str(ei.value)
 
 
-MOS_BOOST = textwrap.dedent("""\
-    [design]
-    name = "mosfet booster"
-    global_nets = ["vcc"]
-
-    [[design.part]]
-    name = "VCC"
-    type = "supply"
-    nodes = ["vcc", "0"]
-    value = "9"
-
-    [[stage]]
-    name = "boost"
-    [[stage.part]]
-    name = "C1"
-    type = "capacitor"
-    nodes = ["in", "g"]
-    value = "100n"
-    [[stage.part]]
-    name = "R1"
-    type = "resistor"
-    nodes = ["vcc", "g"]
-    value = "1M"
-    [[stage.part]]
-    name = "R2"
-    type = "resistor"
-    nodes = ["g", "0"]
-    value = "470k"
-    [[stage.part]]
-    name = "Q1"
-    type = "nmos"
-    nodes = ["d", "g", "s"]
-    model = "nmos-small-signal"
-    [[stage.part]]
-    name = "RD"
-    type = "resistor"
-    nodes = ["vcc", "d"]
-    value = "10k"
-    [[stage.part]]
-    name = "RS"
-    type = "resistor"
-    nodes = ["s", "0"]
-    value = "2.2k"
-    [[stage.part]]
-    name = "C2"
-    type = "capacitor"
-    nodes = ["d", "out"]
-    value = "1u"
-""")
+MOS_BOOST = one_stage("mosfet booster", "boost", [
+    ("C1", "capacitor", ("in", "g"), {"value": "100n"}),
+    ("R1", "resistor", ("vcc", "g"), {"value": "1M"}),
+    ("R2", "resistor", ("g", "0"), {"value": "470k"}),
+    ("Q1", "nmos", ("d", "g", "s"), {"model": "nmos-small-signal"}),
+    ("RD", "resistor", ("vcc", "d"), {"value": "10k"}),
+    ("RS", "resistor", ("s", "0"), {"value": "2.2k"}),
+    ("C2", "capacitor", ("d", "out"), {"value": "1u"}),
+])
 
 
 def test_mosfet_part_bias_point(tmp_path):
