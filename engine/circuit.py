@@ -51,9 +51,6 @@ KIND_NODES: dict[str, int] = {
     "D": 2, "Q": 3, "J": 3, "M": 4, "OPAMP": 5, "OTA": 5,
 }
 LINEAR_KINDS = {"R", "C", "L", "V", "I", "E", "G", "F", "H"}
-#: Current-controlled sources: params['CONTROL'] names the voltage source
-#: (kind V) whose current, from its p node through it to n, controls them.
-CURRENT_CONTROLLED = {"F", "H"}
 DEVICE_KINDS = {"D", "Q", "J", "M", "OPAMP", "OTA"}
 
 

@@ -280,7 +280,9 @@ def _read_part(raw: Any, where: Where, stage: str) -> Part:
             f"nodes must be a list of net names ({', '.join(want)})", where, qual)
     mos4 = ptype in ("nmos", "pmos") and len(nodes) == 4     # with its bulk node
     _expect(len(nodes) == len(want) or mos4,
-            f"a {ptype} has {len(want)} nodes ({', '.join(want)}), not {len(nodes)}", where, qual)
+            f"a {ptype} has {len(want)} nodes ({', '.join(want)}"
+            + (", or a 4th for the bulk" if ptype in ("nmos", "pmos") else "")
+            + f"), not {len(nodes)}", where, qual)
     p.nodes = [canonical_net(str(n)) for n in nodes]
     if ptype in VALUE_TYPES:
         _expect("value" in raw, f"a {ptype} needs a value", where, qual,
@@ -978,6 +980,19 @@ def load_design(source: str | os.PathLike, *, in_source: str = "VIN",
     return _design_from_toml(path)
 
 
+def _part_type(e: Element) -> str:
+    """The design part type of a flat element (a BJT, JFET or MOSFET by its
+    TYPE)."""
+    t = str((e.params or {}).get("TYPE", "")).upper()
+    if e.kind == "Q":
+        return "pnp" if t == "PNP" else "npn"
+    if e.kind == "J":
+        return "pjfet" if t == "PJF" else "njfet"
+    if e.kind == "M":
+        return "pmos" if t == "PMOS" else "nmos"
+    return KIND_TO_TYPE.get(e.kind, "resistor")
+
+
 def _design_from_netlist(path: Path, in_source: str, out_node: str) -> Design:
     from engine.formats.spice import load_netlist
     nl = load_netlist(path, in_source=in_source, out_node=out_node)
@@ -1008,14 +1023,7 @@ def _design_from_netlist(path: Path, in_source: str, out_node: str) -> Design:
     d.netlist = nl
     parts = []
     for e in circ.elements:
-        ptype = KIND_TO_TYPE.get(e.kind, "resistor")
-        if e.kind == "Q":
-            ptype = "pnp" if str(e.params.get("TYPE", "NPN")).upper() == "PNP" else "npn"
-        if e.kind == "J":
-            ptype = "pjfet" if str(e.params.get("TYPE", "NJF")).upper() == "PJF" else "njfet"
-        if e.kind == "M":
-            ptype = "pmos" if str(e.params.get("TYPE", "NMOS")).upper() == "PMOS" else "nmos"
-        parts.append(Part(name=e.name, type=ptype, nodes=list(e.nodes),
+        parts.append(Part(name=e.name, type=_part_type(e), nodes=list(e.nodes),
                           value=e.value if e.kind in LINEAR_KINDS else None,
                           model=nl.element_models.get(e.name),
                           control=(e.params or {}).get("CONTROL"),
@@ -1204,7 +1212,7 @@ def _stage_from_netlist(raw: dict, name: str, design_path: Path, w: Where) -> St
                               hint="subcircuits: " + ", ".join(nl.subckts))
         from engine.formats.spice import parse_netlist
         sc = subs[str(sub).upper()]
-        pins = [p.lower() for p in sc.pins]
+        pins = [p.lower() for p in sc.ports]
         ports = [str(p).lower() for p in raw.get("ports", pins)]
         _expect(len(ports) == len(pins), "ports must name each pin of the subcircuit", w, name)
         call = "X__STAGE " + " ".join(ports) + f" {sc.name}\n"
@@ -1214,24 +1222,20 @@ def _stage_from_netlist(raw: dict, name: str, design_path: Path, w: Where) -> St
             e.name = e.name.split(".", 1)[1]
             e.nodes = tuple(n.split(".", 1)[1] if n.startswith("x__stage.") else n
                             for n in e.nodes)
+            ctl = e.params.get("CONTROL", "")
+            if ctl.upper().startswith("X__STAGE."):
+                e.params["CONTROL"] = ctl.split(".", 1)[1]
     else:
         elems = nl.circuit.elements
         ports = [str(p).lower() for p in raw.get("ports", ["in", "out"])]
     parts = []
     for e in elems:
         if e.kind in ("Q", "J", "M", "D", "OPAMP", "OTA"):
-            kind_type = {"D": "diode", "OPAMP": "opamp", "OTA": "ota"}.get(e.kind)
-            if e.kind == "M":
-                kind_type = "pmos" if e.params.get("TYPE") == "PMOS" else "nmos"
-            if e.kind == "Q":
-                kind_type = "pnp" if e.params.get("TYPE") == "PNP" else "npn"
-            if e.kind == "J":
-                kind_type = "pjfet" if e.params.get("TYPE") == "PJF" else "njfet"
-            p = Part(name=e.name, type=kind_type, nodes=list(e.nodes), model="_inline",
+            p = Part(name=e.name, type=_part_type(e), nodes=list(e.nodes), model="_inline",
                      params=dict(e.params), where=e.where or w)
         else:
-            p = Part(name=e.name, type=KIND_TO_TYPE[e.kind], nodes=list(e.nodes),
-                     value=e.value, where=e.where or w)
+            p = Part(name=e.name, type=_part_type(e), nodes=list(e.nodes),
+                     value=e.value, control=e.params.get("CONTROL"), where=e.where or w)
             if e.kind == "V" and "wave" in e.params:
                 raise DesignError("a netlist used as a stage cannot hold a signal source "
                                   "(SIN/PULSE/PWL)", file=str(npath),

@@ -52,14 +52,10 @@ _MACRO_REQUIRED = {
 _DEVICE_ALIAS = {"OPAMP": {"VHEAD": "VHR"}, "OTA": {}}
 
 
-def _device_defaults(ekind: str) -> set[str] | None:
-    mod = {"D": "diode", "Q": "bjt", "J": "jfet", "M": "mosfet", "OPAMP": "opamp",
-           "OTA": "ota"}[ekind]
-    try:
-        m = __import__(f"engine.devices.{mod}", fromlist=["DEFAULTS"])
-        return set(m.DEFAULTS)
-    except Exception:  # device module not available: pass everything on
-        return None
+def _device_defaults(ekind: str) -> set[str]:
+    """Parameter names the device module for element kind ``ekind`` reads."""
+    from engine.devices import REGISTRY
+    return set(REGISTRY[ekind].DEFAULTS)
 
 
 @dataclass
@@ -92,11 +88,11 @@ class Model:
         out: dict[str, Any] = {}
         for k, v in self.params.items():
             key = alias.get(k, k)
-            if known is None or key in known:
+            if key in known:
                 out[key] = v
         if ek == "OTA" and supply is not None and "VHEAD" in self.params:
             h = self.params["VHEAD"]
-            if known is None or {"VLO", "VHI"} <= known:
+            if {"VLO", "VHI"} <= known:
                 out["VLO"], out["VHI"] = h, max(supply - h, h + 0.1)
         if ek in ("Q", "J", "M"):
             out["TYPE"] = self.kind

@@ -355,3 +355,27 @@ def test_mosfet_part_bias_point(tmp_path):
     i_d = brentq(f, 0.0, 9 / 12.2e3)
     assert op.nets["boost.s"] == pytest.approx(i_d * 2.2e3, rel=1e-6)
     assert op.devices["boost.Q1"]["region"] == "saturated"
+
+
+def test_netlist_stage_keeps_its_current_controlled_sources(tmp_path):
+    # an op-amp macromodel subcircuit (POLY, F and H inside) as a stage: its
+    # F/H parts still name their controlling sources, so the stage runs; as a
+    # unity-gain follower (out tied to the inverting input) the output follows
+    # a 1 V input to within the macromodel's offset (common practice)
+    import shutil
+    from pathlib import Path
+    from engine.solver import Simulator
+    src = Path(__file__).parent / "netlists" / "opamp_macromodel.cir"
+    shutil.copy(src, tmp_path / "op.cir")
+    text = one_stage("follower", "bias", [
+        ("VEE", "supply", ("vee", "0"), {"value": "-9"}),
+        ("VREF", "supply", ("out", "0"), {"value": "1"}),
+        ("RIN", "resistor", ("in", "0"), {"value": "100k"}),
+    ]).replace('global_nets = ["vcc"]', 'global_nets = ["vcc", "vee"]')
+    text += ('\n[[stage]]\nname = "amp"\nnetlist = "op.cir"\nsubckt = "OPMACRO"\n'
+             'ports = ["in", "out", "vcc", "vee", "out"]\n')
+    circ = load_design(write(tmp_path, text)).flatten()
+    f = [e for e in circ.elements if e.kind == "F"]
+    assert f and all(e.params["CONTROL"].startswith("amp.V") for e in f)
+    op = Simulator(circ, 48000.0).operating_point()
+    assert op.nets["amp.out"] == pytest.approx(1.0, abs=5e-3)

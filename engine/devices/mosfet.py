@@ -30,6 +30,7 @@ from numba import njit
 
 from engine.devices._common import (GMIN, VT, DeviceLayout, junction, pnjlim, polarity,
                                     read_params, vcrit)
+from engine.errors import DesignError
 
 KIND = "M"
 CODE = 6
@@ -51,7 +52,6 @@ def layout(el) -> DeviceLayout:
     leff = p["L"] - 2.0 * p["LD"]
     if not leff > 0:
         w = el.where
-        from engine.errors import DesignError
         raise DesignError(f"channel length L - 2*LD = {leff:g} m is not positive",
                           file=getattr(w, "file", None), line=getattr(w, "line", None),
                           part=el.name, hint="check L and LD")

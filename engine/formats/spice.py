@@ -77,14 +77,6 @@ __all__ = [
 MODEL_KIND = {"D": "D", "NPN": "Q", "PNP": "Q", "NJF": "J", "PJF": "J", "NMOS": "M",
               "PMOS": "M"}
 
-# Parameters the device modules simulate (fallback if they cannot be read).
-_SIM_FALLBACK = {
-    "D": {"IS", "N", "RS"},
-    "Q": {"IS", "BF", "BR", "NF", "NR", "VAF", "VAR"},
-    "J": {"VTO", "BETA", "LAMBDA", "IS", "N"},
-    "M": {"VTO", "KP", "LAMBDA", "GAMMA", "PHI", "IS"},
-}
-
 # Standard SPICE model parameters (ngspice manual, device model tables);
 # those we do not simulate are kept and reported, not refused.
 _STANDARD = {
@@ -136,12 +128,8 @@ _ALIAS = {
 
 def _simulated(kind: str) -> set[str]:
     """Parameter names the device module for ``kind`` reads."""
-    mod = {"D": "diode", "Q": "bjt", "J": "jfet", "M": "mosfet"}[kind]
-    try:
-        m = __import__(f"engine.devices.{mod}", fromlist=["DEFAULTS"])
-        return set(m.DEFAULTS)
-    except Exception:  # device module missing or broken: keep to the basics
-        return set(_SIM_FALLBACK[kind])
+    from engine.devices import REGISTRY
+    return set(REGISTRY[kind].DEFAULTS)
 
 
 # --------------------------------------------------------------------------
