@@ -144,7 +144,7 @@ def rest_control(design, op) -> float | None:
 
 
 #: Peak volts of the tone burst for the release measurement: a hard-picked
-#: note at the jack (tens of mV peak; REFERENCES.md, pickups, common practice).
+#: note at the jack (tens of mV peak; docs/references.md, pickups, common practice).
 RELEASE_BURST_V = 0.05
 
 

@@ -25,7 +25,7 @@ the jack: an EMF in series with the coil's resistance ``R`` and inductance
 ``L``, loaded by the coil's own capacitance plus the cable's, the guitar's
 volume and tone pots, and the pedal's input resistance. That second-order
 lowpass peaks near ``1/(2 pi sqrt(L C))`` (the loaded resonance, 2-5 kHz).
-The figures in :data:`PICKUPS` are common practice (REFERENCES.md), not
+The figures in :data:`PICKUPS` are common practice (docs/references.md), not
 measurements of any product. :attr:`Pickup.series_resistance` is the coil
 resistance for the design's input source; rendering already includes the
 resonance with a high-impedance (1 Mohm) pedal input, so adding the series
@@ -74,7 +74,7 @@ def string_fret_hz(string: int, fret: int) -> float:
 class Pickup:
     """A passive magnetic pickup with its cable and load (SI units).
 
-    Figures are common practice (REFERENCES.md, "Guitar pickups and pedals").
+    Figures are common practice (docs/references.md, "Guitar pickups and pedals").
 
     Attributes
     ----------
@@ -129,14 +129,14 @@ class Pickup:
 
 
 PICKUPS: dict[str, Pickup] = {
-    # common practice, REFERENCES.md: single coil 5-7 kohm, 2-3 H; controls
+    # common practice, docs/references.md: single coil 5-7 kohm, 2-3 H; controls
     # 250 kohm volume + 250 kohm tone; coil ~100 pF; cable ~100 pF/m.
     "single-coil": Pickup(inductance=2.5, resistance=6.0e3, coil_capacitance=100e-12,
                           cable_length=3.0, cable_capacitance_per_m=100e-12,
                           controls_resistance=125e3, load_resistance=1e6,
                           emf_peak=0.10,
                           description="passive single coil, 2.5 H, 6 kohm, 3 m cable"),
-    # common practice, REFERENCES.md: humbucker 7.5-16 kohm, 4-5 H; controls
+    # common practice, docs/references.md: humbucker 7.5-16 kohm, 4-5 H; controls
     # 500 kohm volume + 500 kohm tone.
     "humbucker": Pickup(inductance=4.5, resistance=9.0e3, coil_capacitance=100e-12,
                         cable_length=3.0, cable_capacitance_per_m=100e-12,
@@ -463,7 +463,7 @@ def render_phrase(name: str = "demo", fs: float = 48000.0, pickup: str = "single
                   seed: int = 0) -> np.ndarray:
     """Render phrase ``name`` (see :data:`PHRASES`) in volts at the guitar's jack.
 
-    Levels follow common practice for passive pickups (REFERENCES.md): single
+    Levels follow common practice for passive pickups (docs/references.md): single
     notes tens of mV peak, strummed chords 0.1-1 V peak.
     """
     if name not in _PHRASE_BUILDERS:

@@ -36,7 +36,7 @@ def test_release_time_of_a_first_order_recovery_is_its_time_constant(tau):
 
 def test_attack_ten_to_ninety_percent_is_about_2_2_time_constants():
     # 10-90 % rise of a first-order step = tau * ln 9 = 2.197 tau
-    # (REFERENCES.md, compressors; ln 9 from the exponential law).
+    # (docs/references.md, compressors; ln 9 from the exponential law).
     tau = 0.01
     a = math.exp(-1.0 / (tau * FS))
     y = signal.lfilter([1 - a], [1, -a], np.ones(int(0.2 * FS)))
@@ -51,7 +51,7 @@ def test_release_time_is_nan_without_a_step():
 
 
 def test_gain_reduction_from_control_follows_the_ota_law():
-    # OTA gain is proportional to gm = Iabc / 2VT (REFERENCES.md, bipolar OTA;
+    # OTA gain is proportional to gm = Iabc / 2VT (docs/references.md, bipolar OTA;
     # Gray et al., from memory): half the control current is -6.02 dB.
     gr = cp.gain_reduction_from_control(np.array([100e-6, 50e-6, 10e-6]), 100e-6)
     assert gr == pytest.approx([0.0, -6.0206, -20.0], abs=1e-3)

@@ -1,7 +1,7 @@
 """Device models against handbook formulas and the published model equations.
 
 Sources: Shockley diode and Ebers-Moll/Gummel-Poon equations as documented for
-SPICE (see REFERENCES.md); Gray, Hurst, Lewis & Meyer, Analysis and Design of
+SPICE (see docs/references.md); Gray, Hurst, Lewis & Meyer, Analysis and Design of
 Analog Integrated Circuits, 5th ed. (OTA tanh law, from memory); Shichman &
 Hodges, IEEE JSSC 1968 (JFET and MOSFET square law); small-signal amplifier formulas are
 common practice (any electronics handbook).
@@ -128,7 +128,7 @@ def test_ota_tanh_law(vd):
 
 
 def test_ota_small_signal_gm():
-    # gm = Iabc / (2 VT) ~ 19.3 * Iabc per volt (REFERENCES.md; from memory)
+    # gm = Iabc / (2 VT) ~ 19.3 * Iabc per volt (docs/references.md; from memory)
     for iabc in (1e-6, 10e-6, 100e-6):
         f, H, _ = ac_response(_ota(0.0, iabc, rl=100.0), [1000.0])
         rpar = 1 / (1 / 100.0 + 1 / 1e8)
@@ -139,7 +139,7 @@ def test_ota_small_signal_gm():
 @pytest.mark.parametrize("junctions", [1, 2])
 def test_ota_control_pin_junction_drops(junctions):
     # control pin ~one junction drop above vee, 0.54-0.66 V over 1-100 uA,
-    # about 60 mV per decade; two drops for a two-junction mirror (REFERENCES.md)
+    # about 60 mV per decade; two drops for a two-junction mirror (docs/references.md)
     vs = []
     for iabc in (1e-6, 10e-6, 100e-6):
         op = Simulator(_ota(0.0, iabc, junctions)).operating_point()

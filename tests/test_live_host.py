@@ -342,7 +342,7 @@ def _real(name, **kw):
 
 def test_gain_reduction_from_control_agrees_with_the_measured_one():
     # Feed-forward OTA compressor on a steady 1 kHz tone: with gain
-    # proportional to Iabc (gm = Iabc / 2VT, REFERENCES.md), the gain change
+    # proportional to Iabc (gm = Iabc / 2VT, docs/references.md), the gain change
     # read from the control current must equal the change of output level
     # against the small-signal gain, measured independently from the levels.
     h = _real("feedforward", source=ToneSource(1000.0, 0.3), block=128)
@@ -357,7 +357,7 @@ def test_real_ab_pair_is_loudness_matched():
     # Baseline compressor against a much louder booster: with matching, what
     # is heard from A and from B has the same BS.1770-4 integrated loudness.
     from engine.design import load_design
-    # 50 mV peak: a single note (REFERENCES.md, common practice); at 200 mV the
+    # 50 mV peak: a single note (docs/references.md, common practice); at 200 mV the
     # re-voiced compressor sits more than MAX_MATCH_DB below the booster and
     # the match is (deliberately) capped
     h = H.LiveHost(load_design("feedforward"), variant=load_design("booster"),

@@ -15,7 +15,7 @@ def _sine(freq, dbfs, seconds, fs=FS):
 
 
 def test_coefficients_reproduce_the_48k_table():
-    # ITU-R BS.1770-4 Annex 1, Tables 1 and 2 (values copied in REFERENCES.md)
+    # ITU-R BS.1770-4 Annex 1, Tables 1 and 2 (values copied in docs/references.md)
     sos = L.k_weighting(48000.0)
     np.testing.assert_allclose(sos[0, :3], L.TABLE_48K_SHELF_B, rtol=0, atol=1e-12)
     np.testing.assert_allclose(sos[0, 3:], L.TABLE_48K_SHELF_A, rtol=0, atol=1e-12)
@@ -53,7 +53,7 @@ def test_ebu_3341_stereo_sine(level):
 @pytest.mark.parametrize("fs", [44100.0, 48000.0])
 def test_agrees_with_pyloudnorm_on_gated_programme(fs):
     # pyloudnorm with filter_class="DeMan" uses the same K-weighting curve
-    # (REFERENCES.md); the signal has loud, quiet and silent parts so that
+    # (docs/references.md); the signal has loud, quiet and silent parts so that
     # both gates act.
     rng = np.random.default_rng(7)
     n = int(fs * 12)

@@ -111,7 +111,7 @@ def test_control_current_meter_equals_the_engines_own_probe():
 
 def test_gain_reduction_from_the_control_current():
     # For a gain cell with gain proportional to Iabc (bipolar OTA, gm = Iabc/2VT;
-    # REFERENCES.md), GR = 20 log10(I / I_quiescent). The stand-in's control is
+    # docs/references.md), GR = 20 log10(I / I_quiescent). The stand-in's control is
     # I_Q / (1 + env / 50 mV), quiescent I_Q = 20 uA.
     h = _host(source=ToneSource(1000.0, 0.5), block=64)
     h.run_offline(int(0.5 * FS / 64))
@@ -156,7 +156,7 @@ def test_session_figures_keep_extremes_after_the_display_has_fallen():
     va = ss["voices"]["A"]
     assert va["control_a_min"] == 2e-6 and va["control_a_max"] == 40e-6
     # gain of an OTA cell is proportional to its control current (gm = Iabc/2VT,
-    # REFERENCES.md): 2 uA against 20 uA quiescent is 20 log10(0.1) = -20 dB
+    # docs/references.md): 2 uA against 20 uA quiescent is 20 log10(0.1) = -20 dB
     assert va["gr_control_db_deepest"] == pytest.approx(-20.0, abs=1e-9)
     cpu = ss["cpu_load"]
     assert cpu["max"] == pytest.approx(0.9) and cpu["blocks"] == len(ctl)

@@ -14,7 +14,7 @@ from engine.formats.spice import circuit_to_netlist
 from engine.parts import KINDS, Model, PartsLibrary, load_library
 
 NGSPICE = shutil.which("ngspice")
-VT = constants.k * 300.15 / constants.e   # kT/q at TNOM 27 degC (REFERENCES.md)
+VT = constants.k * 300.15 / constants.e   # kT/q at TNOM 27 degC (docs/references.md)
 
 EXPECTED = {
     "npn-general": "NPN", "pnp-general": "PNP", "npn-low-noise-hi-gain": "NPN",
@@ -82,7 +82,7 @@ def test_diode_forward_voltage(lib, name, current, lo, hi):
 
 
 def test_ota_control_pin_voltage(lib):
-    # REFERENCES.md (bipolar OTA): control pin one junction drop above the
+    # docs/references.md (bipolar OTA): control pin one junction drop above the
     # negative supply, about 0.54-0.66 V over 1-100 uA, about 60 mV/decade;
     # two junctions for the second variant
     for name, nj in [("ota-bipolar", 1), ("ota-bipolar-2j", 2)]:

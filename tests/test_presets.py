@@ -154,8 +154,8 @@ def _parts_params(model: str) -> dict:
 def test_flagship_rest_control_current_matches_the_hand_calculation():
     # At rest the rectifiers are off, so the control current flows from the
     # supply through RREL and RCTL into the OTA's control pin, which sits one
-    # junction drop N*VT*ln(Iabc/IS) above ground (REFERENCES.md, bipolar OTA).
-    # VT = kT/q at 300.15 K from scipy.constants (REFERENCES.md, BJT).
+    # junction drop N*VT*ln(Iabc/IS) above ground (docs/references.md, bipolar OTA).
+    # VT = kT/q at 300.15 K from scipy.constants (docs/references.md, BJT).
     from scipy.constants import Boltzmann, elementary_charge
     d = load_design("flagship")
     vt = Boltzmann * 300.15 / elementary_charge
@@ -210,7 +210,7 @@ def static_curves():
 
 def _vt():
     from scipy.constants import Boltzmann, elementary_charge
-    return Boltzmann * 300.15 / elementary_charge       # REFERENCES.md, BJT (TNOM 27 C)
+    return Boltzmann * 300.15 / elementary_charge       # docs/references.md, BJT (TNOM 27 C)
 
 
 def _par(a, b):
@@ -236,7 +236,7 @@ def _sustain_fraction(d) -> float:
 def _jack_to_rectifier_gain(d, op) -> float:
     """Hand calculation of the small-signal gain at rest from the jack to the
     rectifier bases: attenuator RA2/(RA1+RA2); OTA gm = Iabc/(2 VT)
-    (REFERENCES.md, bipolar OTA) into RL || the make-up stage's input; the
+    (docs/references.md, bipolar OTA) into RL || the make-up stage's input; the
     make-up and detector amplifiers as common-emitter stages with gain
     R_load / (RE1 + 1/gm), 1/gm = VT/Ic (handbook); the sustain divider; the
     phase splitter taken as unity (equal collector and emitter resistors)."""
@@ -334,7 +334,7 @@ def _stated_range(notes: str, what: str) -> tuple[float, float]:
 def test_flagship_squashes_hard_notes_as_its_notes_say(phrase):
     # The design notes state the gain reduction at the default settings; the
     # measurement reads it from the control current (OTA gain proportional to
-    # Iabc, REFERENCES.md). "About": 1 dB either side of the stated range.
+    # Iabc, docs/references.md). "About": 1 dB either side of the stated range.
     d, gr = _phrase_gain_reduction("flagship", phrase)
     lo, hi = _stated_range(d.notes, "hard-picked single notes")
     for g in _deepest(gr, HARD_NOTES):
@@ -364,7 +364,7 @@ def test_sustain_sets_the_amount_of_compression(phrase):
 
 def test_feedforward_squashes_hard_notes_as_its_notes_say(phrase):
     # Gain reduction read from the control current (OTA gain proportional to
-    # Iabc, gm = Iabc / 2VT; REFERENCES.md, bipolar OTA). "About": 1 dB
+    # Iabc, gm = Iabc / 2VT; docs/references.md, bipolar OTA). "About": 1 dB
     # either side of the range the notes state.
     d, gr = _phrase_gain_reduction("feedforward", phrase)
     lo, hi = _stated_range(d.notes, "hard-picked single notes")
@@ -423,7 +423,7 @@ def test_feedforward_nothing_clips_on_the_phrase(phrase):
 
 def _ota_corner(d, iabc):
     """First-order OTA low-pass corner fc = gm * a / (2 pi CF), gm = Iabc / (2 VT)
-    (REFERENCES.md, bipolar OTA; Gray et al., from memory), a the attenuation."""
+    (docs/references.md, bipolar OTA; Gray et al., from memory), a the attenuation."""
     P = d.part
     a = P("filter.RA2").value / (P("filter.RA1").value + P("filter.RA2").value)
     return iabc / (2 * _vt()) * a / (2 * math.pi * P("filter.CF").value)
@@ -462,7 +462,7 @@ def test_envelope_filter_sweeps_the_range_its_notes_state(phrase):
     # Corner from the control current over the phrase (formula checked above):
     # soft notes leave it near the resting corner, hard-picked notes open it
     # to the top of the stated range; the OTA's differential input stays in
-    # its linear range (tens of mV; REFERENCES.md: 25 mV peak ~ 1.8 % THD).
+    # its linear range (tens of mV; docs/references.md: 25 mV peak ~ 1.8 % THD).
     d = load_design("envelope-filter")
     lo, hi = _stated_sweep(d.notes)
     assert lo <= 300.0 and hi >= 3000.0

@@ -142,7 +142,7 @@ def test_deterministic_with_seed():
 @pytest.mark.parametrize("name", sorted(PICKUPS))
 def test_pickup_resonance_where_lc_predicts(name):
     p = PICKUPS[name]
-    # Handbook: f = 1/(2 pi sqrt(L C)); common practice, REFERENCES.md:
+    # Handbook: f = 1/(2 pi sqrt(L C)); common practice, docs/references.md:
     # loaded resonance about 2-5 kHz (upper end included with rounding).
     f_lc = 1.0 / (2 * np.pi * np.sqrt(p.inductance * p.capacitance))
     assert p.resonance == pytest.approx(f_lc, rel=1e-12)
@@ -184,7 +184,7 @@ def test_pickup_spectrum_of_noise_peaks_at_resonance(name):
 
 
 def test_pickup_figures_are_common_practice():
-    # REFERENCES.md (common practice): single coil 5-7 kohm, 2-3 H;
+    # docs/references.md (common practice): single coil 5-7 kohm, 2-3 H;
     # humbucker 7.5-16 kohm, 4-5 H.
     sc, hb = PICKUPS["single-coil"], PICKUPS["humbucker"]
     assert 5e3 <= sc.series_resistance <= 7e3 and 2.0 <= sc.inductance <= 3.0
@@ -195,7 +195,7 @@ def test_pickup_figures_are_common_practice():
 @pytest.mark.parametrize("name", sorted(PICKUPS))
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_levels_at_the_jack(name, seed):
-    # Common practice, REFERENCES.md: single notes tens of mV peak; strummed
+    # Common practice, docs/references.md: single notes tens of mV peak; strummed
     # chords 100 mV - 1 V peak.
     notes = render_phrase("notes", pickup=name, seed=seed)
     assert 0.01 <= np.max(np.abs(notes)) < 0.1

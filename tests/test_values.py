@@ -1,5 +1,5 @@
 """Checks of engine.values against IEC 60062 (RKM marking), IEC 60063
-(preferred numbers, tables quoted in /work/shared/REFERENCES.md) and the
+(preferred numbers, tables quoted in docs/references.md) and the
 SPICE scale-factor rules (ngspice manual, "Numbers and scale factors")."""
 import math
 
@@ -12,7 +12,7 @@ from engine.values import (E_SERIES, format_value, nearest_preferred,
                            series_values, step_preferred)
 
 
-# IEC 60062 examples as listed in REFERENCES.md, plus SI-prefix forms
+# IEC 60062 examples as listed in docs/references.md, plus SI-prefix forms
 # (SI brochure prefixes; 'meg' is common practice from SPICE).
 @pytest.mark.parametrize("text, expected", [
     ("R47", 0.47), ("4R7", 4.7), ("470R", 470.0), ("4K7", 4.7e3),
@@ -77,7 +77,7 @@ def test_wrong_unit_is_named():
 @pytest.mark.parametrize("text, expected", [
     ("5%", 0.05), ("1 %", 0.01), ("\u00b110%", 0.10), ("0.05", 0.05),
     (0.05, 0.05),
-    # IEC 60062 tolerance letters (REFERENCES.md)
+    # IEC 60062 tolerance letters (docs/references.md)
     ("B", 0.001), ("C", 0.0025), ("D", 0.005), ("F", 0.01), ("G", 0.02),
     ("J", 0.05), ("K", 0.10), ("M", 0.20),
 ])
@@ -128,7 +128,7 @@ def test_round_trip_rounds_to_digits(x, d):
 
 
 def test_series_tables_match_iec60063():
-    # E12/E24/E96 lists as quoted from IEC 60063:2015 in REFERENCES.md
+    # E12/E24/E96 lists as quoted from IEC 60063:2015 in docs/references.md
     e12 = [1.0, 1.2, 1.5, 1.8, 2.2, 2.7, 3.3, 3.9, 4.7, 5.6, 6.8, 8.2]
     e24_extra = [1.1, 1.3, 1.6, 2.0, 2.4, 3.0, 3.6, 4.3, 5.1, 6.2, 7.5, 9.1]
     e96 = [int(v) / 100 for v in """100 102 105 107 110 113 115 118 121 124
@@ -147,7 +147,7 @@ def test_series_tables_match_iec60063():
                          ("E48", "E96"), ("E96", "E192")]:
         assert list(E_SERIES[coarse]) == list(E_SERIES[fine][::2])
     # E192: the rounded geometric series except 9.20 (from memory, as noted
-    # in REFERENCES.md)
+    # in docs/references.md)
     geo = [round(10 ** (i / 192), 2) for i in range(192)]
     diff = [(g, v) for g, v in zip(geo, E_SERIES["E192"]) if abs(g - v) > 1e-9]
     assert diff == [(9.19, 9.20)]
