@@ -206,35 +206,49 @@ class PartInfo:
 # -------------------------------------------------------------- file reading
 
 def _line_finder(text: str):
-    """Return f(name) -> 1-based line of the first ``name = "<name>"``."""
-    lines = text.splitlines()
+    """Return f(name, after=0) -> 1-based line of the first ``name = "<name>"``
+    below line ``after``.  The text is indexed once, so finding every part of
+    a design is linear in the file's size (rescanning the file for each part
+    made a 10 MB design take minutes)."""
+    import bisect
+    index: dict[str, list[int]] = {}
+    pat = re.compile(r'^[ \t]*name[ \t]*=[ \t]*(?:"([^"\n]*)"|\'([^\'\n]*)\')', re.M)
+    starts = [0]
+    for m in re.finditer(r"\n", text):
+        starts.append(m.end())
+    for m in pat.finditer(text):
+        nm = m.group(1) if m.group(1) is not None else m.group(2)
+        index.setdefault(nm, []).append(bisect.bisect_right(starts, m.start()))
 
     def find(name: str, after: int = 0) -> int | None:
-        pat = re.compile(r'^\s*name\s*=\s*["\']' + re.escape(name) + r'["\']')
-        for i in range(after, len(lines)):
-            if pat.match(lines[i]):
-                return i + 1
-        return None
+        lines = index.get(name)
+        if not lines:
+            return None
+        k = bisect.bisect_right(lines, after)
+        return lines[k] if k < len(lines) else None
     return find
 
 
 def _toml_load(path: Path) -> tuple[dict, str]:
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise DesignError("file not found", file=str(path)) from None
-    except UnicodeDecodeError:
-        raise DesignError("not a text file (expected UTF-8 TOML)", file=str(path)) from None
-    except OSError as exc:
-        raise DesignError(f"cannot read: {exc.strerror}", file=str(path)) from None
+    from engine.fileio import read_text
+    text = read_text(path, what="design file")
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         m = re.search(r"line (\d+)", str(exc))
-        raise DesignError(f"not valid TOML: {exc}", file=str(path),
+        raise DesignError(f"not valid TOML: {_cut(str(exc))}", file=str(path),
                           line=int(m.group(1)) if m else None,
                           hint="check quotes, brackets and '=' on that line") from None
+    except RecursionError:
+        raise DesignError("not a design: arrays or tables nest too deeply", file=str(path),
+                          hint="a design file nests tables a few levels at most") from None
     return data, text
+
+
+def _cut(text: str, n: int = 80) -> str:
+    """``text`` shortened to ``n`` characters for an error message."""
+    text = str(text)
+    return text if len(text) <= n else text[:n - 3] + "..."
 
 
 def _expect(cond: bool, msg: str, where: Where, part: str | None = None, hint=None):
@@ -415,6 +429,44 @@ class Design:
         self.netlist = None      # engine.formats.spice.Netlist for whole-netlist designs
         self._stage_docs: dict[str, Any] = {}
         self.dirty = False
+        self.check_warnings: list[str] = []   # the last flatten's circuit check
+
+    # The tomlkit document is parsed on first use (an edit, a save): tomlkit
+    # reads about 1 MB a second, ten times slower than tomllib, so a large
+    # design that is only rendered never pays for it.
+    _lazy_doc: tuple[str, list[str]] | None = None
+
+    def _materialise(self) -> None:
+        lazy, self._lazy_doc = self._lazy_doc, None
+        if lazy is None:
+            return
+        import tomlkit
+        text, names = lazy
+        self.__dict__["doc"] = doc = tomlkit.parse(text)
+        sdocs = doc.get("stage", [])
+        for i, name in enumerate(names):
+            self.__dict__["_stage_docs"].setdefault(name, sdocs[i])
+
+    @property
+    def doc(self):
+        if self._lazy_doc is not None:
+            self._materialise()
+        return self.__dict__.get("doc")
+
+    @doc.setter
+    def doc(self, value) -> None:
+        self._lazy_doc = None
+        self.__dict__["doc"] = value
+
+    @property
+    def _stage_docs(self) -> dict[str, Any]:
+        if self._lazy_doc is not None:
+            self._materialise()
+        return self.__dict__["_stage_docs"]
+
+    @_stage_docs.setter
+    def _stage_docs(self, value) -> None:
+        self.__dict__["_stage_docs"] = value
 
     # ------------------------------------------------------------ queries
     def stage(self, name: str) -> Stage:
@@ -668,24 +720,12 @@ class Design:
         return f"{q}({','.join(args)})"
 
 
-def atomic_write_text(target: str | os.PathLike, text: str) -> None:
-    """Write ``text`` to ``target`` atomically: a temporary file in the same
-    folder, flushed and synced, then renamed over the target."""
-    target = Path(target)
-    target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as f:
-            f.write(text)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, target)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
+def atomic_write_text(target: str | os.PathLike, text: str, **kw) -> Path:
+    """Write ``text`` to ``target`` atomically (see
+    :func:`engine.fileio.atomic_write`: temporary file beside the target,
+    synced, renamed; mode and links kept; missing folders are an error)."""
+    from engine.fileio import atomic_write
+    return atomic_write(target, text, **kw)
 
 
 class _UnionFind:
@@ -816,7 +856,13 @@ class _Flattener:
             add(Element("load", "R", (last_out, GROUND), d.load, {}, Where(self.file)))
         circ = Circuit(elements=elements, input_source=input_name, output=(last_out, GROUND),
                        title=d.name, where=Where(self.file))
-        validate_circuit(circ, self.file)
+        from engine import limits
+        if len(elements) > limits.MAX_ELEMENTS:
+            raise DesignError(f"the design has {len(elements)} parts; the limit is "
+                              f"{limits.MAX_ELEMENTS}", file=self.file)
+        # the check's warnings (a net with one connection) are kept for the
+        # front ends to show
+        d.check_warnings = validate_circuit(circ, self.file)
         return circ
 
     def supply_span(self) -> float:
@@ -1090,7 +1136,6 @@ def _design_from_toml(path: Path) -> Design:
         return _design_from_netlist_toml(path, data, tomlkit.parse(text))
     d = Design()
     d.path = path
-    d.doc = tomlkit.parse(text)
     head = data.get("design", {})
     _expect(isinstance(head, dict), "[design] must be a table", Where(file, 1))
     d.name = str(head.get("name", path.stem))
@@ -1126,7 +1171,7 @@ def _design_from_toml(path: Path) -> Design:
             Where(file), hint="see docs/design-format.md")
     seen = set()
     line = 0
-    sdocs = d.doc.get("stage", [])
+    stage_names: list[str] = []
     for i, raw in enumerate(stages_raw):
         name = raw.get("name")
         sline = finder(name, line) if isinstance(name, str) else None
@@ -1186,7 +1231,7 @@ def _design_from_toml(path: Path) -> Design:
             st = _read_stage_body(raw, name, w, finder)
         st.bypass = bool(raw.get("bypass", False))
         d.stages.append(st)
-        d._stage_docs[name] = sdocs[i]
+        stage_names.append(name)
     for raw in data.get("link", []):
         w = Where(file, None)
         _expect(isinstance(raw, dict) and "from" in raw and "to" in raw,
@@ -1197,6 +1242,7 @@ def _design_from_toml(path: Path) -> Design:
                 "a [[probe]] needs expr = \"v(stage.net)\" or similar", Where(file))
         d.probes.append(Probe(str(raw.get("name", raw["expr"])), str(raw["expr"]), Where(file)))
     d.meters = dict(data.get("meters", {}))
+    d._lazy_doc = (text, stage_names)
     return d
 
 
@@ -1216,7 +1262,8 @@ def _stage_from_netlist(raw: dict, name: str, design_path: Path, w: Where) -> St
         ports = [str(p).lower() for p in raw.get("ports", pins)]
         _expect(len(ports) == len(pins), "ports must name each pin of the subcircuit", w, name)
         call = "X__STAGE " + " ".join(ports) + f" {sc.name}\n"
-        nl2 = parse_netlist(npath.read_text() + "\n" + call, file=str(npath))
+        from engine.fileio import read_text
+        nl2 = parse_netlist(read_text(npath, what="netlist") + "\n" + call, file=str(npath))
         elems = [e for e in nl2.circuit.elements if e.name.upper().startswith("X__STAGE.")]
         for e in elems:
             e.name = e.name.split(".", 1)[1]

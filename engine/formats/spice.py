@@ -62,6 +62,7 @@ from typing import Any, Callable
 
 from engine.circuit import GROUND, Circuit, Element, Where, canonical_net
 from engine.errors import DesignError, ValueFormatError
+from engine import limits
 from engine.values import parse_value
 
 __all__ = [
@@ -156,7 +157,7 @@ _SCALED_NUM = re.compile(
 
 def evaluate_expression(text: str, params: dict[str, float],
                         funcs: dict[str, tuple[list[str], str]] | None = None,
-                        _depth: int = 0) -> float:
+                        _depth: int = 0, _steps: list | None = None) -> float:
     """Evaluate a SPICE parameter expression such as ``2*rload + 4.7k``.
 
     Numbers may carry SPICE scale factors; names are looked up
@@ -170,7 +171,12 @@ def evaluate_expression(text: str, params: dict[str, float],
     """
     if _depth > 32:
         raise ValueError("functions nest more than 32 deep (a .func that calls itself?)")
+    if _steps is None:
+        _steps = [0]
     funcs = funcs or {}
+    if len(text) > limits.MAX_EXPR_CHARS:
+        raise ValueError(f"the expression is {len(text)} characters long; the limit is "
+                         f"{limits.MAX_EXPR_CHARS}")
     src = text.strip()
     if src[:1] in "{'" and src[-1:] in "}'":
         src = src[1:-1]
@@ -179,11 +185,24 @@ def evaluate_expression(text: str, params: dict[str, float],
                           src)
     try:
         tree = ast.parse(src.strip(), mode="eval")
-    except SyntaxError:
+    except (SyntaxError, RecursionError, MemoryError, ValueError):
         raise ValueError(f"'{text}' is not an arithmetic expression") from None
+    # nesting depth, measured without recursion (a long '1+1+...' chain is
+    # a deep tree)
+    stack = [(tree, 0)]
+    while stack:
+        node, dep = stack.pop()
+        if dep > limits.MAX_EXPR_DEPTH:
+            raise ValueError(f"the expression nests more than {limits.MAX_EXPR_DEPTH} "
+                             "levels deep; split it with .param")
+        stack.extend((ch, dep + 1) for ch in ast.iter_child_nodes(node))
     low = {k.lower(): v for k, v in params.items()}
 
     def ev(node) -> float:
+        _steps[0] += 1
+        if _steps[0] > limits.MAX_EXPR_STEPS:
+            raise ValueError(f"evaluating it takes more than {limits.MAX_EXPR_STEPS} "
+                             "steps (functions that call each other many times over?)")
         if isinstance(node, ast.Expression):
             return ev(node.body)
         if isinstance(node, ast.Constant) and isinstance(node.value, (int, float)) \
@@ -211,7 +230,7 @@ def evaluate_expression(text: str, params: dict[str, float],
                                      f"argument(s), not {len(node.args)}")
                 inner = dict(low)
                 inner.update(zip(names, (ev(a) for a in node.args)))
-                return evaluate_expression(body, inner, funcs, _depth + 1)
+                return evaluate_expression(body, inner, funcs, _depth + 1, _steps)
             fn = _FUNCS.get(node.func.id.lower())
             if fn is None:
                 raise ValueError(f"unknown function '{node.func.id}'")
@@ -222,6 +241,8 @@ def evaluate_expression(text: str, params: dict[str, float],
         v = ev(tree)
     except (ZeroDivisionError, OverflowError, TypeError) as exc:
         raise ValueError(f"'{text}' cannot be evaluated ({exc})") from None
+    except RecursionError:
+        raise ValueError(f"'{text}' nests too deeply to evaluate") from None
     except ValueError as exc:
         if "math domain" in str(exc):
             raise ValueError(f"'{text}' cannot be evaluated (math domain)") from None
@@ -393,19 +414,29 @@ def _tokenize(text: str, where: Where) -> list[str]:
 
 
 def _read_file(path: str, where: Where | None) -> str:
-    try:
-        with open(path, "rb") as f:
-            raw = f.read()
-    except OSError as exc:
-        raise DesignError(f"cannot read netlist '{path}': {exc.strerror}",
-                          file=where.file if where else None,
-                          line=where.line if where else None,
-                          hint="check the path (relative paths start at the "
-                               "including file's folder)") from None
-    try:
-        return raw.decode("utf-8-sig")
-    except UnicodeDecodeError:
-        return raw.decode("latin-1")
+    """A netlist or model library's text: a regular file within the size
+    limit, in UTF-8 (with or without a byte-order mark), UTF-16/32 with one,
+    or Latin-1 (engine.fileio).  Errors name ``where`` (the .include card)
+    when given."""
+    from engine.fileio import read_text
+    return read_text(path, what="netlist", where=where)
+
+
+#: The first word of a card: an element name or a dot command.  A line of a
+#: file that is not a netlist (a password file's 'root:x:0:0:...', a binary)
+#: fails this, and the file is refused without quoting any of it.
+_CARD_WORD = re.compile(r"[.A-Za-z][\w.#$\-+\[\]<>!~@&|^%]*")
+
+
+def _not_a_netlist(file: str, ln: int, where: Where | None) -> DesignError:
+    if where is not None and where.file and where.file != file:
+        return DesignError(f"'{file}' does not look like a SPICE netlist (its line {ln} "
+                           "is not a card); none of it is shown", file=where.file,
+                           line=where.line, hint="include only netlists and model "
+                           "libraries")
+    return DesignError(f"does not look like a SPICE netlist (line {ln} is not a card); "
+                       "none of it is shown", file=file,
+                       hint="netlists start with a title line, then one card a line")
 
 
 def _lib_section(text: str, section: str, path: str, where: Where) -> str:
@@ -434,11 +465,14 @@ def _lib_section(text: str, section: str, path: str, where: Where) -> str:
 
 
 def _cards(text: str, file: str, *, has_title: bool, ignored: list,
-           depth: int = 0) -> tuple[str, list[Card]]:
-    """Logical cards of a netlist text, with ``.include`` spliced in."""
-    if depth > 20:
-        raise DesignError(".include nesting is deeper than 20 levels",
-                          file=file, hint="look for a file that includes itself")
+           depth: int = 0, origin: Where | None = None) -> tuple[str, list[Card]]:
+    """Logical cards of a netlist text, with ``.include`` spliced in.
+    ``origin`` is the card that included this file (None for the top)."""
+    if depth > limits.MAX_INCLUDE_DEPTH:
+        raise DesignError(f".include nesting is deeper than {limits.MAX_INCLUDE_DEPTH} "
+                          "levels", file=origin.file if origin else file,
+                          line=origin.line if origin else None,
+                          hint="look for a file that includes itself")
     lines = text.splitlines()
     title = ""
     start = 0
@@ -462,6 +496,8 @@ def _cards(text: str, file: str, *, has_title: bool, ignored: list,
             ln, prev = phys[-1]
             phys[-1] = (ln, prev + " " + st[1:].strip())
         else:
+            if not _CARD_WORD.match(st.split(None, 1)[0]):
+                raise _not_a_netlist(file, k + 1, origin)
             phys.append((k + 1, st))
     cards: list[Card] = []
     in_control = False
@@ -495,7 +531,7 @@ def _cards(text: str, file: str, *, has_title: bool, ignored: list,
                 if len(args) >= 2:
                     sub = _lib_section(sub, args[1], path, where)
                 _, more = _cards(sub, path, has_title=False, ignored=ignored,
-                                 depth=depth + 1)
+                                 depth=depth + 1, origin=where)
                 cards.extend(more)
                 continue
             if not args:
@@ -512,7 +548,7 @@ def _cards(text: str, file: str, *, has_title: bool, ignored: list,
             path = arg if os.path.isabs(arg) else os.path.join(base, arg)
             sub = _read_file(path, where)
             _, more = _cards(sub, path, has_title=False, ignored=ignored,
-                             depth=depth + 1)
+                             depth=depth + 1, origin=where)
             cards.extend(more)
             continue
         cards.append(Card(st, where, _tokenize(st, where)))
@@ -522,8 +558,12 @@ def _cards(text: str, file: str, *, has_title: bool, ignored: list,
 # --------------------------------------------------------------------------
 # Structure: subcircuit definitions, scopes
 
-def _split_defs(cards: list[Card]) -> tuple[list[Card], dict[str, Subckt]]:
+def _split_defs(cards: list[Card], level: int = 0) -> tuple[list[Card], dict[str, Subckt]]:
     """Separate ``.subckt`` definitions (recursively) from the other cards."""
+    if level > limits.MAX_SUBCKT_DEPTH and cards:
+        raise DesignError(f".subckt definitions nest more than {limits.MAX_SUBCKT_DEPTH} "
+                          "levels deep", file=cards[0].file, line=cards[0].line,
+                          hint="define subcircuits side by side instead")
     top: list[Card] = []
     defs: dict[str, Subckt] = {}
     i = 0
@@ -544,7 +584,7 @@ def _split_defs(cards: list[Card]) -> tuple[list[Card], dict[str, Subckt]]:
             if j >= len(cards):
                 raise DesignError(f"'{c.text}': .subckt without .ends", file=c.file,
                                   line=c.line, hint="close the definition with .ends")
-            body, inner = _split_defs(cards[i + 1:j])
+            body, inner = _split_defs(cards[i + 1:j], level + 1)
             sub = _subckt_header(c, body, inner)
             if sub.name in defs:
                 raise DesignError(f"subcircuit '{sub.name}' is defined twice",
@@ -620,10 +660,12 @@ class _Reader:
         self.names: dict[str, Where] = {}
         self.element_models: dict[str, str] = {}
         self._warned: set[str] = set()
+        self.expanded = 0
 
     # -- helpers ---------------------------------------------------------
     def err(self, card: Card, why: str, hint: str | None = None, part=None):
-        raise DesignError(f"'{card.text}': {why}", file=card.file, line=card.line,
+        text = card.text if len(card.text) <= 80 else card.text[:77] + "..."
+        raise DesignError(f"'{text}': {why}", file=card.file, line=card.line,
                           part=part, hint=hint)
 
     def warn(self, msg: str):
@@ -770,6 +812,11 @@ class _Reader:
 
     # -- elements ----------------------------------------------------------
     def add(self, el: Element, card: Card):
+        if len(self.elements) >= limits.MAX_ELEMENTS:
+            self.err(card, f"the circuit has more than {limits.MAX_ELEMENTS} elements "
+                     "after expanding subcircuits (the limit)",
+                     "look for subcircuits that call each other many times over",
+                     el.name)
         if el.name in self.names:
             first = self.names[el.name]
             self.err(card, f"element '{el.name}' is defined twice",
@@ -779,7 +826,18 @@ class _Reader:
 
     def flatten(self, cards: list[Card], scope: _Scope, prefix: str,
                 netmap: dict[str, str], chain: tuple[str, ...] = ()):
+        if len(chain) > limits.MAX_SUBCKT_DEPTH:
+            c = cards[0] if cards else None
+            raise DesignError(f"subcircuits nest more than {limits.MAX_SUBCKT_DEPTH} "
+                              f"levels deep ({' > '.join(chain[:3])} > ...)",
+                              file=c.file if c else None, line=c.line if c else None,
+                              part=prefix or None)
         for c in cards:
+            self.expanded += 1
+            if self.expanded > limits.MAX_EXPANDED_CARDS:
+                self.err(c, f"expanding the subcircuits takes more than "
+                         f"{limits.MAX_EXPANDED_CARDS} cards (the limit)",
+                         "look for subcircuits that call each other many times over")
             word = c.tokens[0]
             low = word.lower()
             if low.startswith("."):
@@ -1213,6 +1271,9 @@ def parse_netlist(text: str, *, file: str = "<text>", in_source: str = "VIN",
     """
     ignored: list = []
     warnings: list[str] = []
+    if len(text) > limits.MAX_TEXT_BYTES:
+        raise DesignError(f"the netlist is {len(text)} characters; the limit is "
+                          f"{limits.MAX_TEXT_BYTES}", file=file)
     title, cards = _cards(text, file, has_title=True, ignored=ignored)
     for c in cards:
         if c.tokens and c.tokens[0].lower() == ".title":
