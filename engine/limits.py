@@ -28,10 +28,13 @@ MAX_EXPANDED_CARDS = 200_000
 MAX_EXPR_CHARS = 4000
 MAX_EXPR_DEPTH = 100
 MAX_EXPR_STEPS = 200_000
-#: Simulation sample rate (Hz): telephone-band 8 kHz to 8x 96 kHz.
+#: Offline simulation sample rate (Hz): telephone-band 8 kHz to 384 kHz.
 MIN_RATE = 8000.0
-MAX_RATE = 768000.0
+MAX_RATE = 384000.0
 #: Points of an AC sweep.
 MAX_AC_POINTS = 100_000
 #: Length of audio generated or rendered from nothing (seconds).
 MAX_SECONDS = 3600.0
+#: Samples of one offline render (about 17 minutes at 48 kHz; each sample
+#: costs a few arrays of 8 bytes).
+MAX_RENDER_SAMPLES = 50_000_000

@@ -43,7 +43,6 @@ from __future__ import annotations
 
 import argparse
 import os
-import tempfile
 import zlib
 from dataclasses import dataclass
 from math import pi, sqrt
@@ -492,22 +491,9 @@ def write_wav(path, x_volts, fs: float, fs_volts: float = 1.0) -> int:
     x = np.nan_to_num(x, nan=0.0, posinf=1.0, neginf=-1.0)
     clipped = int(np.count_nonzero(np.abs(x) > 1.0))
     x = np.clip(x, -1.0, 1.0).astype(np.float32)
-    path = os.fspath(path)
-    folder = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(folder):
-        raise SolderlessError("folder does not exist", file=path,
-                              hint="create the folder or choose another --out path")
-    fd, tmp = tempfile.mkstemp(suffix=".wav", prefix=".source-", dir=folder)
-    os.close(fd)
-    try:
-        sf.write(tmp, x, int(round(fs)), subtype="FLOAT", format="WAV")
-        os.replace(tmp, path)
-    except OSError as e:
-        raise SolderlessError(f"cannot write the file: {e.strerror or e}", file=path,
-                              hint="check the folder is writable") from None
-    finally:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
+    from engine.fileio import atomic_write
+    atomic_write(path, lambda tmp: sf.write(tmp, x, int(round(fs)), subtype="FLOAT",
+                                            format="WAV"), suffix=".wav")
     return clipped
 
 
@@ -519,9 +505,10 @@ def add_source_arguments(parser: argparse.ArgumentParser) -> None:
                         help="what to play (default: demo)")
     parser.add_argument("--pickup", default="single-coil", choices=sorted(PICKUPS),
                         help="pickup model (default: single-coil)")
-    parser.add_argument("--fs", type=float, default=48000.0, help="sample rate, Hz")
-    parser.add_argument("--fs-volts", dest="fs_volts", type=float, default=1.0,
-                        help="volts at the jack that map to digital full scale")
+    from engine.cli import add_rate_option, number_in
+    add_rate_option(parser, 48000.0, "sample rate, Hz (default 48000)")
+    parser.add_argument("--fs-volts", dest="fs_volts", type=number_in(0, 1e4, "V", open_low=True),
+                        default=1.0, help="volts at the jack that map to digital full scale")
     parser.add_argument("--seed", type=int, default=0, help="take number (variation)")
     parser.add_argument("--force", action="store_true",
                         help="overwrite --out if it exists")
@@ -538,11 +525,14 @@ def cli_source(args: argparse.Namespace) -> int:
         raise SolderlessError("file exists and was left untouched", file=out,
                               hint="choose another --out name or add --force")
     pickup = _pickup(args.pickup)
-    x = render_phrase(args.phrase, fs=args.fs, pickup=args.pickup,
+    from engine.cli import resolve_aliases
+    resolve_aliases(args)
+    fs = args.rate
+    x = render_phrase(args.phrase, fs=fs, pickup=args.pickup,
                       seed=getattr(args, "seed", 0))
-    clipped = write_wav(out, x, args.fs, args.fs_volts)
+    clipped = write_wav(out, x, fs, args.fs_volts)
     peak = float(np.max(np.abs(x)))
-    print(f"wrote {out}: phrase '{args.phrase}', {x.size / args.fs:.2f} s at {args.fs:g} Hz, "
+    print(f"wrote {out}: phrase '{args.phrase}', {x.size / fs:.2f} s at {fs:g} Hz, "
           f"peak {peak * 1e3:.0f} mV ({20 * np.log10(max(peak, 1e-12) / args.fs_volts):.1f} dBFS)")
     print(f"pickup '{args.pickup}': set the design's input series resistance to "
           f"{pickup.series_resistance / 1e3:g}k (resonance {pickup.resonance / 1e3:.2f} kHz)")
