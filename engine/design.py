@@ -18,7 +18,6 @@ import difflib
 import math
 import os
 import re
-import tempfile
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -256,6 +255,25 @@ def _expect(cond: bool, msg: str, where: Where, part: str | None = None, hint=No
         raise DesignError(msg, file=where.file, line=where.line, part=part, hint=hint)
 
 
+def _table(raw: Any, key: str, where: Where, part: str | None = None) -> dict:
+    """``raw[key]`` as a table (an empty one when missing), or a DesignError
+    saying it must be a table."""
+    v = raw.get(key, {}) if isinstance(raw, dict) else {}
+    _expect(isinstance(v, dict), f"'{key}' must be a table (key = value pairs), not "
+            f"{type(v).__name__} {_cut(repr(v), 40)}", where, part,
+            hint="see docs/design-format.md")
+    return v
+
+
+def _tables(raw: Any, key: str, where: Where, part: str | None = None) -> list[dict]:
+    """``raw[key]`` as a list of tables ([[key]] entries), empty when missing."""
+    v = raw.get(key, []) if isinstance(raw, dict) else []
+    _expect(isinstance(v, list) and all(isinstance(x, dict) for x in v),
+            f"'{key}' must be a list of tables ([[{key}]] entries), not "
+            f"{_cut(repr(v), 40)}", where, part, hint="see docs/design-format.md")
+    return v
+
+
 def _read_part(raw: Any, where: Where, stage: str) -> Part:
     _expect(isinstance(raw, dict), "a part must be a table with name, type and nodes", where)
     name = raw.get("name")
@@ -391,7 +409,7 @@ def load_stage_template(name: str, where: Where | None = None) -> Stage:
         raise DesignError(f"no stage template '{name}' in presets/stages",
                           file=where.file, line=where.line,
                           hint=("did you mean " + ", ".join(close) + "?") if close else
-                          "see `solderless stages` for the library")
+                          "see `solderless designs` for the stage library")
     path = lib[name]
     data, text = _toml_load(path)
     body = data.get("stage")
@@ -1023,7 +1041,18 @@ def load_design(source: str | os.PathLike, *, in_source: str = "VIN",
         raise DesignError("is a folder, not a design file", file=str(path))
     if path.suffix.lower() in (".cir", ".sp", ".spice", ".net", ".ckt", ".txt"):
         return _design_from_netlist(path, in_source, out_node)
-    return _design_from_toml(path)
+    try:
+        return _design_from_toml(path)
+    except (TypeError, AttributeError, KeyError, ValueError, IndexError) as exc:
+        # a value of a type the reader did not check for: still the user's
+        # file, so a one-line answer, not a traceback
+        if isinstance(exc, SolderlessError):
+            raise
+        raise DesignError(f"a value in the design has the wrong type or form "
+                          f"({type(exc).__name__}: {_cut(str(exc), 80)})", file=str(path),
+                          hint="compare the file with docs/design-format.md") from None
+    except RecursionError:
+        raise DesignError("the design nests too deeply to read", file=str(path)) from None
 
 
 def _part_type(e: Element) -> str:
@@ -1105,10 +1134,11 @@ def _design_from_netlist_toml(path: Path, data: dict, doc) -> Design:
     d.path = path
     d.doc = doc
     d._stage_docs["netlist"] = doc["netlist"]
-    d.name = str(data.get("design", {}).get("name", d.name))
-    d.notes = str(data.get("design", {}).get("notes", ""))
+    head = _table(data, "design", w)
+    d.name = str(head.get("name", d.name))
+    d.notes = str(head.get("notes", ""))
     st = d.stages[0]
-    for pname, val in table.get("values", {}).items():
+    for pname, val in _table(table, "values", w).items():
         try:
             part = st.part(pname)
         except KeyError:
@@ -1118,6 +1148,15 @@ def _design_from_netlist_toml(path: Path, data: dict, doc) -> Design:
         if part.type in POSITIVE_TYPES and not part.value > 0:
             raise DesignError("value must be positive", file=str(path), part=pname)
     return d
+
+
+def _template_part(st: Stage, pname: str, w: Where, stage: str) -> Part:
+    try:
+        return st.part(pname)
+    except KeyError:
+        raise DesignError(f"template '{st.template}' has no part '{pname}'", file=w.file,
+                          line=w.line, part=f"{stage}.{pname}",
+                          hint="parts: " + ", ".join(p.name for p in st.parts)) from None
 
 
 def _read_link_end(text: Any, where: Where) -> tuple[str, str]:
@@ -1136,8 +1175,7 @@ def _design_from_toml(path: Path) -> Design:
         return _design_from_netlist_toml(path, data, tomlkit.parse(text))
     d = Design()
     d.path = path
-    head = data.get("design", {})
-    _expect(isinstance(head, dict), "[design] must be a table", Where(file, 1))
+    head = _table(data, "design", Where(file, 1))
     d.name = str(head.get("name", path.stem))
     d.notes = str(head.get("notes", ""))
     ov = head.get("oversample", 1)
@@ -1152,7 +1190,9 @@ def _design_from_toml(path: Path) -> Design:
     _expect(isinstance(gn, list), "global_nets must be a list of net names", Where(file))
     d.global_nets = [canonical_net(str(n)) for n in gn]
     # user model cards
-    cards = data.get("models", {}).get("cards", "")
+    cards = _table(data, "models", Where(file)).get("cards", "")
+    _expect(isinstance(cards, str), "[models] cards must be text (a multi-line string of "
+            ".model cards)", Where(file))
     if cards:
         base = None
         for i, line in enumerate(text.splitlines(), 1):
@@ -1162,13 +1202,14 @@ def _design_from_toml(path: Path) -> Design:
             if line.strip().lower().startswith(".model"):
                 d.models.setdefault("_cards", []).append(
                     (line.strip(), Where(file, (base or 0) + 2 + j if base else None)))
-    for raw in head.get("part", []):
+    for raw in _tables(head, "part", Where(file)):
         nm = raw.get("name") if isinstance(raw, dict) else None
         w = Where(file, finder(nm) if isinstance(nm, str) else None)
         d.parts_global.append(_read_part(raw, w, ""))
     stages_raw = data.get("stage", [])
-    _expect(isinstance(stages_raw, list) and stages_raw, "the design needs [[stage]] tables",
-            Where(file), hint="see docs/design-format.md")
+    _expect(isinstance(stages_raw, list) and stages_raw
+            and all(isinstance(x, dict) for x in stages_raw),
+            "the design needs [[stage]] tables", Where(file), hint="see docs/design-format.md")
     seen = set()
     line = 0
     stage_names: list[str] = []
@@ -1185,7 +1226,7 @@ def _design_from_toml(path: Path) -> Design:
             st = load_stage_template(str(raw["template"]), w)
             st.name, st.template = name, str(raw["template"])
             st.where = w
-            for pname, val in raw.get("values", {}).items():
+            for pname, val in _table(raw, "values", w, name).items():
                 try:
                     part = st.part(pname)
                 except KeyError:
@@ -1196,7 +1237,7 @@ def _design_from_toml(path: Path) -> Design:
                 if part.type in POSITIVE_TYPES and part.value <= 0:
                     raise DesignError("value must be positive", file=file, line=sline,
                                       part=f"{name}.{pname}")
-            for pname, rot in raw.get("rotations", {}).items():
+            for pname, rot in _table(raw, "rotations", w, name).items():
                 try:
                     part = st.part(pname)
                 except KeyError:
@@ -1205,12 +1246,17 @@ def _design_from_toml(path: Path) -> Design:
                 _expect(part.type == "pot" and isinstance(rot, (int, float)) and 0 <= rot <= 1,
                         "rotations must be numbers from 0 to 1 for pots", w, f"{name}.{pname}")
                 part.rotation = float(rot)
-            for pname, tap in raw.get("tapers", {}).items():
-                part = st.part(pname)
+            for pname, tap in _table(raw, "tapers", w, name).items():
+                part = _template_part(st, pname, w, name)
                 part.taper = _check_taper(tap, w, f"{name}.{pname}")
-            for pname, pos in raw.get("positions", {}).items():
-                st.part(pname).position = int(pos)
-            for pname, tol in raw.get("tolerances", {}).items():
+            for pname, pos in _table(raw, "positions", w, name).items():
+                part = _template_part(st, pname, w, name)
+                _expect(part.type == "switch" and isinstance(pos, int)
+                        and not isinstance(pos, bool) and 0 <= pos < len(part.positions),
+                        "positions are whole numbers that pick a switch position",
+                        w, f"{name}.{pname}")
+                part.position = pos
+            for pname, tol in _table(raw, "tolerances", w, name).items():
                 from engine.values import parse_tolerance
                 try:
                     st.part(pname).tolerance = parse_tolerance(
@@ -1218,7 +1264,7 @@ def _design_from_toml(path: Path) -> Design:
                 except KeyError:
                     raise DesignError(f"template '{st.template}' has no part '{pname}'",
                                       file=file, line=sline, part=f"{name}.{pname}") from None
-            for prt in raw.get("part", []):  # extra parts added to a template
+            for prt in _tables(raw, "part", w, name):  # extra parts added to a template
                 pw = Where(file, finder(prt.get("name", ""), line) or sline)
                 st.parts.append(_read_part(prt, pw, name))
             if "kind" in raw:
@@ -1232,16 +1278,16 @@ def _design_from_toml(path: Path) -> Design:
         st.bypass = bool(raw.get("bypass", False))
         d.stages.append(st)
         stage_names.append(name)
-    for raw in data.get("link", []):
+    for raw in _tables(data, "link", Where(file)):
         w = Where(file, None)
         _expect(isinstance(raw, dict) and "from" in raw and "to" in raw,
                 "a [[link]] needs from = \"stage.port\" and to = \"stage.port\"", w)
         d.links.append(Link(_read_link_end(raw["from"], w), _read_link_end(raw["to"], w), w))
-    for raw in data.get("probe", []):
+    for raw in _tables(data, "probe", Where(file)):
         _expect(isinstance(raw, dict) and "expr" in raw,
                 "a [[probe]] needs expr = \"v(stage.net)\" or similar", Where(file))
         d.probes.append(Probe(str(raw.get("name", raw["expr"])), str(raw["expr"]), Where(file)))
-    d.meters = dict(data.get("meters", {}))
+    d.meters = dict(_table(data, "meters", Where(file)))
     d._lazy_doc = (text, stage_names)
     return d
 

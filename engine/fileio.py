@@ -272,8 +272,15 @@ def atomic_write(target, data: bytes | str | Callable[[str], None], *,
         raise FileError(f"cannot write: {why}", file=shown, hint=hint) from None
     except Exception as exc:
         # a library writing by name reports a full disk or a bad path in its
-        # own exception type
-        raise FileError(f"cannot write: {exc}", file=shown,
+        # own exception type ("System error.")
+        why = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        try:
+            vfs = os.statvfs(str(real.parent))
+            if vfs.f_bavail * vfs.f_frsize < 256 * 1024:
+                why = os.strerror(28) + " (the disk is full)"
+        except OSError:
+            pass
+        raise FileError(f"cannot write: {why}", file=shown,
                         hint="any previous file is unchanged") from None
     finally:
         if tmp is not None:

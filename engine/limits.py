@@ -38,3 +38,5 @@ MAX_SECONDS = 3600.0
 #: Samples of one offline render (about 17 minutes at 48 kHz; each sample
 #: costs a few arrays of 8 bytes).
 MAX_RENDER_SAMPLES = 50_000_000
+#: One netlist card, continuation lines included (characters).
+MAX_CARD_CHARS = 100_000

@@ -479,7 +479,10 @@ def _cards(text: str, file: str, *, has_title: bool, ignored: list,
     if has_title and lines:
         title = lines[0].strip()
         start = 1
-    phys: list[tuple[int, str]] = []
+    # continuation lines are collected as lists and joined once (adding each
+    # to a growing string made a long card quadratic)
+    phys: list[tuple[int, list[str]]] = []
+    size = 0
     for k in range(start, len(lines)):
         s = lines[k]
         st = s.strip()
@@ -493,12 +496,20 @@ def _cards(text: str, file: str, *, has_title: bool, ignored: list,
                 raise DesignError("continuation line '+' with nothing to continue",
                                   file=file, line=k + 1,
                                   hint="join it to the card it belongs to")
-            ln, prev = phys[-1]
-            phys[-1] = (ln, prev + " " + st[1:].strip())
+            phys[-1][1].append(st[1:].strip())
+            size += len(st)
+            if size > limits.MAX_CARD_CHARS:
+                raise DesignError(f"a card continues over more than {limits.MAX_CARD_CHARS} "
+                                  "characters (the limit)", file=file, line=phys[-1][0])
         else:
-            if not _CARD_WORD.match(st.split(None, 1)[0]):
+            if not _CARD_WORD.fullmatch(st.split(None, 1)[0]):
                 raise _not_a_netlist(file, k + 1, origin)
-            phys.append((k + 1, st))
+            if len(st) > limits.MAX_CARD_CHARS:
+                raise DesignError(f"the line is {len(st)} characters long; the limit for a "
+                                  f"card is {limits.MAX_CARD_CHARS}", file=file, line=k + 1)
+            phys.append((k + 1, [st]))
+            size = len(st)
+    phys = [(ln, " ".join(bits)) for ln, bits in phys]
     cards: list[Card] = []
     in_control = False
     base = os.path.dirname(file) if file and not file.startswith("<") else os.getcwd()
