@@ -92,17 +92,29 @@ def sample_rate(text: str) -> float:
     return number_in(limits.MIN_RATE, limits.MAX_RATE, "Hz")(text)
 
 
+def live_check(name: str, fallback=None):
+    """An argparse type that applies the live path's own check
+    ``engine.live.limits.<name>`` (level, ceiling, rate: the ranges that keep
+    the sound card safe live there, in one place); where that module is
+    absent, ``fallback`` (default: any finite number)."""
+    def parse(text: str):
+        x = _number(text)
+        try:
+            import engine.live.limits as live_limits
+            check = getattr(live_limits, name)
+        except (ImportError, AttributeError):
+            return (fallback or finite_number)(text)
+        try:
+            return check(x)
+        except SolderlessError as exc:
+            raise argparse.ArgumentTypeError(
+                exc.message + (f" ({exc.hint})" if exc.hint else "")) from None
+    return parse
+
+
 def live_rate(text: str) -> float:
     """An argparse type for ``play --rate``: the live path's check."""
-    x = _number(text)
-    try:
-        from engine.live.limits import check_rate
-    except ImportError:
-        return sample_rate(text)
-    try:
-        return check_rate(x)
-    except SolderlessError as exc:
-        raise argparse.ArgumentTypeError(exc.message + (f" ({exc.hint})" if exc.hint else ""))
+    return live_check("check_rate", sample_rate)(text)
 
 
 def input_channel(text: str) -> int:

@@ -227,7 +227,8 @@ def test_odd_wavs_answer_cleanly(tmp_path_factory, kind, frames, channels, level
     import soundfile as sf
     tmp = tmp_path_factory.mktemp("wav")
     (tmp / "rc.cir").write_text(RC)
-    x = np.full((frames, channels), level) * np.sin(np.arange(frames) / 3.0)[:, None]
+    with np.errstate(invalid="ignore"):
+        x = np.full((frames, channels), level) * np.sin(np.arange(frames) / 3.0)[:, None]
     path = tmp / "in.wav"
     sf.write(path, x, 48000, subtype=kind)
     if truncate is not None:
@@ -535,3 +536,19 @@ def test_hints_name_only_commands_that_exist():
                                                     f.read_text())}
     missing = sorted((w, f) for w, f in named if w not in sub.choices)
     assert missing == [], missing
+
+
+@pytest.mark.parametrize("option,value", [
+    ("--level", "nan"), ("--ceiling", "inf"), ("--rate", "1e9"), ("--fs", "nan"),
+    ("--input-channel", "0"), ("--seconds", "nan"), ("--block", "1e9"),
+    ("--source", "tone:0:1"), ("--source", "{tmp}/fifo.inc"),
+])
+def test_play_refuses_bad_values_before_opening_audio(tmp_path, option, value):
+    """Values that could never play (or could send NaN or too much level to
+    the sound card) are refused with one line before any audio device opens."""
+    _files(tmp_path)
+    r = run_cli("play", "flagship", option, value.format(tmp=tmp_path), "--seconds", "0.1",
+                "--no-console") if option != "--seconds" else \
+        run_cli("play", "flagship", option, value, "--no-console")
+    check_clean(r)
+    assert r.returncode == 2

@@ -50,7 +50,7 @@ def add_play_arguments(p) -> None:
     p.add_argument("--input-device", metavar="DEV", help="input device (index or name part)")
     p.add_argument("--output-device", metavar="DEV", help="output device (index or name part)")
     # option values are checked at parse time (engine/cli.py types)
-    from engine.cli import (add_channel_option, add_rate_option, finite_number,
+    from engine.cli import (add_channel_option, add_rate_option, live_check,
                             seconds_arg, whole_in)
     add_channel_option(p, "input channel the instrument is on (1-based, default 1)")
     add_rate_option(p, 48000.0, "sample rate, Hz (default 48000)", live=True)
@@ -63,9 +63,10 @@ def add_play_arguments(p) -> None:
                         "(1.55V) or dBu of a full-scale sine (+3dBu, the default)")
     p.add_argument("--out-full-scale", metavar="LEVEL",
                    help="output calibration, same form (default +3dBu)")
-    p.add_argument("--level", type=finite_number, default=0.0, metavar="DB",
+    p.add_argument("--level", type=live_check("check_level_db"), default=0.0, metavar="DB",
                    help="output level, dB (default 0); playback starts silent and ramps up")
-    p.add_argument("--ceiling", type=finite_number, default=-6.0, metavar="DBFS",
+    p.add_argument("--ceiling", type=live_check("check_ceiling_dbfs"), default=-6.0,
+                   metavar="DBFS",
                    help="safety limiter ceiling, dBFS (default -6)")
     p.add_argument("--no-match", action="store_true",
                    help="A/B: do not match loudness (BS.1770-4)")
