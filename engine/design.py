@@ -738,6 +738,12 @@ class Design:
         return f"{q}({','.join(args)})"
 
 
+def file_mode_for(target: str | os.PathLike) -> int:
+    """Permission bits for a file written to ``target`` (engine.fileio)."""
+    from engine.fileio import file_mode_for as mode_for
+    return mode_for(target)
+
+
 def atomic_write_text(target: str | os.PathLike, text: str, **kw) -> Path:
     """Write ``text`` to ``target`` atomically (see
     :func:`engine.fileio.atomic_write`: temporary file beside the target,

@@ -185,6 +185,15 @@ def _umask() -> int:
     return old
 
 
+def file_mode_for(target) -> int:
+    """Permission bits a file written to ``target`` gets: those of the file
+    already there, else 0666 less the user's umask (as ``open`` gives)."""
+    try:
+        return stat.S_IMODE(os.stat(os.path.realpath(target)).st_mode)
+    except OSError:
+        return 0o666 & ~_umask()
+
+
 def _same_file(a, b) -> bool:
     try:
         return os.path.samefile(a, b)
@@ -227,12 +236,7 @@ def atomic_write(target, data: bytes | str | Callable[[str], None], *,
             raise FileError("is also the input; writing it would destroy the input "
                             "before it is read", file=shown,
                             hint="write to another file name")
-    try:
-        mode = stat.S_IMODE(os.stat(real).st_mode)
-    except FileNotFoundError:
-        mode = 0o666 & ~_umask()
-    except OSError as exc:
-        raise FileError(f"cannot write: {exc.strerror or exc}", file=shown) from None
+    mode = file_mode_for(real)
     tmp = None
     try:
         fd, tmp = tempfile.mkstemp(prefix=f".{real.name}.", suffix=suffix,
