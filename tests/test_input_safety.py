@@ -7,9 +7,11 @@ or one ``error:`` line, never a traceback.  SOLDERLESS_FUZZ_EXAMPLES sets how
 many cases each class draws (default 8: the machine running the suite is
 shared; 200 per class were run while writing this).
 
-The expectations are the project's own rules (TEAM rules: one-line errors,
-nothing lost) and POSIX file semantics (rename is atomic within a folder,
-chmod bits, symbolic links); the sane-value ranges are common practice.
+The expectations are the project's own rules (one-line errors naming file,
+line and part; nothing the user made is lost), POSIX file semantics and the
+Unicode byte-order marks (docs/references.md, "Files: POSIX rename and text
+encodings"); the sane-value ranges are common practice (docs/references.md,
+"Sane ranges of part values").
 """
 from __future__ import annotations
 
