@@ -1,12 +1,13 @@
-"""Time to read a large generated design file: reading must grow linearly
-with the file's size (issue 17: a 10 MB design took over 300 s because each
+"""Time to read a large generated design file and a parameter-heavy
+netlist: reading must grow linearly with the file's size (issue 17: a 10 MB design took over 300 s because each
 part rescanned the file for its line number).
 
 Each size runs in its own process (CPU time of ``load_design`` only).  With
 ``--old PATH`` the same files are also read by another checkout (for
 example the main branch before the change) for a before/after table.
 
-    python bench/bench_reading.py [--sizes 1,2,5,10] [--old ../main] [--timeout 600]
+    python bench/bench_reading.py [--sizes 1,2,5,10] [--params 25000,100000]
+                                  [--old ../main] [--timeout 600]
 
 Prints a table and writes bench/results/reading.json.
 """
@@ -30,6 +31,18 @@ from engine.design import load_design
 t = time.process_time()
 d = load_design(sys.argv[1])
 print(time.process_time() - t, sum(len(s.parts) for s in d.stages))
+"""
+#: A netlist of N chained .param cards (each value used the previous one):
+#: every value used to copy all parameters seen so far.
+CHILD_NETLIST = r"""
+import sys, time
+from engine.formats.spice import parse_netlist
+n = int(sys.argv[1])
+text = ("params\nVIN in 0 0\nR1 in 0 {p%d}\n" % (n - 1) + ".param p0=1\n"
+        + "".join(".param p%d={p%d+1}\n" % (k, k - 1) for k in range(1, n)) + ".end\n")
+t = time.process_time()
+parse_netlist(text)
+print(time.process_time() - t, len(text))
 """
 
 
@@ -58,10 +71,10 @@ def generate(path: Path, megabytes: float) -> int:
     return n
 
 
-def measure(checkout: Path, design: Path, timeout: float) -> float | None:
+def measure(checkout: Path, design, timeout: float, child: str = CHILD) -> float | None:
     env = dict(os.environ, PYTHONPATH=str(checkout))
     try:
-        r = subprocess.run([sys.executable, "-c", CHILD, str(design)], env=env,
+        r = subprocess.run([sys.executable, "-c", child, str(design)], env=env,
                            cwd=str(checkout),
                            capture_output=True, text=True, timeout=timeout)
     except subprocess.TimeoutExpired:
@@ -76,8 +89,18 @@ def main() -> None:
     ap.add_argument("--sizes", default="1,2,5,10", help="file sizes in MB")
     ap.add_argument("--old", help="another checkout to compare against")
     ap.add_argument("--timeout", type=float, default=600.0)
+    ap.add_argument("--params", default="25000,100000",
+                    help="netlists of this many chained .param cards")
     a = ap.parse_args()
     rows = []
+    nrows = []
+    for n in [int(x) for x in a.params.split(",") if x]:
+        new = measure(ROOT, n, a.timeout, CHILD_NETLIST)
+        old = measure(Path(a.old).resolve(), n, a.timeout, CHILD_NETLIST) if a.old else None
+        nrows.append({"params": n, "new_s": new, "old_s": old,
+                      "old_timed_out": bool(a.old) and old is None})
+        o = ("-" if not a.old else (f"> {a.timeout:.0f}" if old is None else f"{old:.2f}"))
+        print(f"netlist {n:7d} .param cards  new {new:7.2f} s  old {o} s", flush=True)
     with tempfile.TemporaryDirectory() as tmp:
         for mb in [float(x) for x in a.sizes.split(",")]:
             f = Path(tmp) / f"d{mb:g}.toml"
@@ -96,7 +119,9 @@ def main() -> None:
         "what": "CPU seconds of load_design on a generated design (inline-table parts)",
         "machine": platform.platform(), "python": platform.python_version(),
         "load": os.getloadavg(), "time": time.strftime("%Y-%m-%d %H:%M:%S"),
-        "old_checkout": bool(a.old), "rows": rows}, indent=1))
+        "old_checkout": bool(a.old), "rows": rows,
+        "netlist_what": "CPU seconds of parse_netlist on N chained .param cards",
+        "netlist_rows": nrows}, indent=1))
     print(f"wrote {out.relative_to(ROOT)}")
 
 

@@ -55,6 +55,7 @@ from __future__ import annotations
 
 import ast
 import math
+from collections import ChainMap
 import os
 import re
 from dataclasses import dataclass, field
@@ -196,7 +197,21 @@ def evaluate_expression(text: str, params: dict[str, float],
             raise ValueError(f"the expression nests more than {limits.MAX_EXPR_DEPTH} "
                              "levels deep; split it with .param")
         stack.extend((ch, dep + 1) for ch in ast.iter_child_nodes(node))
-    low = {k.lower(): v for k, v in params.items()}
+    # names are looked up directly (the reader stores them in lower case);
+    # a lower-cased copy of all parameters is made only when that misses, so
+    # an expression costs its own size, not the number of parameters
+    low: dict | None = None
+
+    def lookup(name: str):
+        nonlocal low
+        key = name.lower()
+        try:
+            return params[key]
+        except KeyError:
+            pass
+        if low is None:
+            low = {k.lower(): v for k, v in params.items()}
+        return low.get(key)
 
     def ev(node) -> float:
         _steps[0] += 1
@@ -210,8 +225,9 @@ def evaluate_expression(text: str, params: dict[str, float],
             return float(node.value)
         if isinstance(node, ast.Name):
             key = node.id.lower()
-            if key in low:
-                return float(low[key])
+            got = lookup(node.id)
+            if got is not None:
+                return float(got)
             if key in _CONSTS:
                 return _CONSTS[key]
             raise ValueError(f"unknown parameter '{node.id}'")
@@ -228,8 +244,7 @@ def evaluate_expression(text: str, params: dict[str, float],
                 if len(node.args) != len(names):
                     raise ValueError(f"function '{node.func.id}' takes {len(names)} "
                                      f"argument(s), not {len(node.args)}")
-                inner = dict(low)
-                inner.update(zip(names, (ev(a) for a in node.args)))
+                inner = ChainMap(dict(zip(names, (ev(a) for a in node.args))), params)
                 return evaluate_expression(body, inner, funcs, _depth + 1, _steps)
             fn = _FUNCS.get(node.func.id.lower())
             if fn is None:
@@ -1192,7 +1207,7 @@ class _Reader:
             if k.upper() in kv:
                 continue
             local[k] = self.value(tok, _Card_at(sub.where, f".subckt {sub.name}"),
-                                  _Scope({**scope_params(scope), **local}, {}, {}),
+                                  _Scope(dict(local), {}, {}, scope),
                                   f"parameter {k}", name)
         for k, tok in kv.items():
             if k.lower() not in sub.defaults:
@@ -1200,8 +1215,7 @@ class _Reader:
                          "declared: " + (", ".join(sub.defaults) or "none"), name)
             local[k.lower()] = self.value(tok, c, scope, f"parameter {k}", name)
         netmap = {p: net(n) for p, n in zip(sub.ports, nodes)}
-        inner_scope, cards = self.make_scope(sub.body, sub.subckts,
-                                             {**scope_params(scope), **local}, scope)
+        inner_scope, cards = self.make_scope(sub.body, sub.subckts, local, scope)
         self.flatten(cards, inner_scope, name, netmap, chain + (sname,))
 
 
@@ -1209,18 +1223,17 @@ def _Card_at(where: Where | None, text: str) -> Card:
     return Card(text, where or Where(), [])
 
 
-def _visible(scope: _Scope, attr: str) -> dict:
-    """Merge ``attr`` (params or funcs) of ``scope`` and its parents, inner
-    ones winning."""
+def _visible(scope: _Scope, attr: str) -> ChainMap:
+    """``attr`` (params or funcs) of ``scope`` and its parents as one
+    read-only view, inner ones winning (a view, not a copy: building a merged
+    dict for every value made reading quadratic in the number of
+    parameters)."""
     chain = []
     s: _Scope | None = scope
     while s is not None:
         chain.append(getattr(s, attr))
         s = s.parent
-    out: dict = {}
-    for d in reversed(chain):
-        out.update(d)
-    return out
+    return ChainMap(*chain)
 
 
 def scope_params(scope: _Scope) -> dict[str, float]:
