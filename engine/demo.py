@@ -5,7 +5,7 @@ What it does, in order:
 
 1. renders the synthetic guitar phrase ``demo`` (engine.synth) at the jack;
 2. runs it through the built-in flagship compressor and its two A/B variants
-   (slower release; linear sustain taper), recording the OTA's control
+   (slower release; linear threshold taper), recording the OTA's control
    current; writes the input and output WAVs (float, full scale stated);
 3. measures each design's static curve (steady 220 Hz tones at stepped
    levels, output against input level, dB), its release time after a loud
@@ -38,7 +38,7 @@ from engine.analysis import compression as cp
 from engine.errors import SolderlessError
 
 FLAGSHIP = "flagship"
-VARIANTS = ("flagship-slow-release", "flagship-linear-sustain")
+VARIANTS = ("flagship-slow-release", "flagship-linear-threshold")
 FS = 48000.0
 #: WAV full scale: a sample of 1.0 is this many volts.
 WAV_FULL_SCALE_V = 1.0
