@@ -193,7 +193,7 @@ def _steal_current(d, env: float) -> float:
     ``env`` on CT (hand calculation): the base node is fed from CT through
     RBQ, from the supply through RBP and returns through RBD; the emitter
     through REQ; Ic = IS exp(Vbe / VT) with Ib = Ic / BF (docs/references.md,
-    BJT, forward active, Early effect left out)."""
+    BJT and circuit formulas; forward active, Early effect left out)."""
     P = d.part
     vt, vcc = _vt(), P("VCC").value
     m = _parts_params(P("detector.Q2").model)
@@ -280,7 +280,7 @@ def _predicted_release(d, gr_start: float) -> float:
     """Release time (63 % recovery, time-constant convention: Giannoulis,
     Massberg & Reiss, JAES 2012; IEC 60050-351-45-36) predicted by hand.
     After the burst the pump diodes are off and CT discharges as a single RC
-    (handbook): through RELEASE + RRMIN to ground and through RBQ into the
+    (docs/references.md, circuit formulas): through RELEASE + RRMIN to ground and through RBQ into the
     base network RBP || RBD, so env(t) = e_inf + (e0 - e_inf) exp(-t / tau)
     with tau = CT x ((RELEASE + RRMIN) || (RBQ + RBP || RBD)). The starting
     envelope e0 is the one whose control current gives the measured
@@ -330,7 +330,7 @@ def test_release_knob_sets_the_release_time():
 def test_attack_knob_sets_the_attack_time():
     # Attack time by the 63 % convention (engine.demo.measure_attack;
     # Giannoulis et al. 2012). More ATTACK resistance charges CT more slowly
-    # (RC charging, handbook), so the attack is slower; the notes state the
+    # (RC charging; docs/references.md, circuit formulas), so the attack is slower; the notes state the
     # figure at the default setting (about 10 ms, 30 % either side).
     times = []
     for rot in (0.1, 0.5, 0.9):
@@ -347,7 +347,7 @@ def test_attack_knob_sets_the_attack_time():
 def _detector_gain(d) -> float:
     """Small-signal gain from the make-up output to the detector op-amp's
     output: the input divider RB / (RIN + RB) times the non-inverting gain
-    1 + RF / (THRESHOLD + RGMIN) (handbook op-amp formulas, CG a short at
+    1 + RF / (THRESHOLD + RGMIN) (docs/references.md, circuit formulas; CG a short at
     220 Hz: its reactance is under 40 Ohm)."""
     P = d.part
     div = P("detector.RB").value / (P("detector.RIN").value + P("detector.RB").value)
@@ -405,7 +405,7 @@ def test_flagship_knee_is_where_the_pump_reaches_the_transistor(control_curves):
     # Where the knee should be, by hand: 1 dB of reduction needs the envelope
     # e1 on CT (the transistor law above). The charge pump (clamp D1, then
     # D2 and ATTACK onto CT) lifts CT to twice the op-amp's peak output less
-    # two diode drops and the drop across ATTACK (handbook voltage doubler);
+    # two diode drops and the drop across ATTACK (docs/references.md, circuit formulas);
     # the small-signal Schottky diodes of presets/parts.toml drop 0.1-0.3 V
     # at microamps to a few hundred microamps, so CT needs a peak of
     # (e1 + 0.2 .. 0.9 V) / 2 at the op-amp's output. Peak at the op-amp =
@@ -432,7 +432,7 @@ def test_linear_threshold_variant_moves_the_threshold_by_the_detector_gain(contr
     # audio = 10 % at mid rotation, common practice), so less detector gain.
     # With the rest of the loop unchanged, the same control current needs the
     # same peak at the detector op-amp, so the threshold moves by the ratio
-    # of the two detector gains in dB (handbook non-inverting gain).
+    # of the two detector gains in dB (docs/references.md, circuit formulas).
     d0, d1 = load_design("flagship"), load_design("flagship-linear-threshold")
     assert d0.part("detector.THRESHOLD").rotation == d1.part("detector.THRESHOLD").rotation
     assert d1.part("detector.THRESHOLD").taper == "linear"
@@ -666,7 +666,7 @@ def _harmonics(y, f0, n=4):
 @pytest.mark.parametrize("amp", [0.03, 0.2])
 def test_octave_rectifier_has_the_spectrum_of_a_full_wave_rectified_sine(amp):
     # A full-wave rectified sine |sin wt| = 2/pi - (4/pi) sum cos(2k wt) / (4k^2 - 1)
-    # (handbook Fourier series): no fundamental, and the 4th harmonic 1/5 of
+    # (docs/references.md, circuit formulas): no fundamental, and the 4th harmonic 1/5 of
     # the 2nd (-14.0 dB). With BLEND fully to the octave side the output
     # follows that (the TONE corner lies far above 800 Hz at its default);
     # the precision rectifier removes the diode drops, so a soft tone
@@ -708,9 +708,9 @@ def test_overdrive_clips_asymmetrically_and_gain_sets_the_drive():
     # the negative ones at two (common practice: about 0.6-0.7 V per small
     # silicon diode at milliamps), so on a loud tone the negative peak at the
     # clipper is 1.6-2.2 times the positive one, and the second harmonic
-    # (absent from a symmetric clipper, handbook Fourier series of an odd
+    # (absent from a symmetric clipper, docs/references.md, circuit formulas: an odd
     # function) is present. GAIN sets the op-amp's gain 1 + (RFMIN + GAIN) / RG
-    # at mid frequencies (handbook non-inverting gain, CG's reactance counted).
+    # at mid frequencies (the same page: non-inverting gain, CG's reactance counted).
     d = load_design("overdrive")
     f0 = 1000.0
     t = np.arange(int(0.3 * FS)) / FS
@@ -847,8 +847,8 @@ value = "100k"
                                              ("47k", "100", "triode", "active"),
                                              ("2k2", "100k", "active", "triode")])
 def test_region_check_covers_jfets_and_mosfets(tmp_path, rd, rjd, m1, j1):
-    # Shichman-Hodges square law (README, Methods; the ngspice manual's JFET
-    # and level-1 MOSFET): a FET conducts in its saturation (pinch-off)
+    # Shichman-Hodges square law (docs/references.md, field-effect
+    # transistors): a FET conducts in its saturation (pinch-off)
     # region, the amplifier's, when Vds >= Vgs - VTO > 0, and in its triode
     # (ohmic) region when 0 < Vds < Vgs - VTO. A MOSFET common-source stage
     # with a small drain resistor sits in saturation, with a large one its
