@@ -870,3 +870,24 @@ def test_region_check_covers_jfets_and_mosfets(tmp_path, rd, rjd, m1, j1):
     problems = demo.transistor_problems(d, op)
     assert len(problems) == [m1, j1].count("triode")
     assert all("triode" in p for p in problems)
+
+
+@pytest.mark.parametrize("name, lu_lo, lu_hi", [("flagship", -1.0, 1.0),
+                                                ("flagship-slow-release", -1.0, 1.0),
+                                                ("flagship-linear-threshold", 4.0, 6.0)])
+def test_flagship_loudness_and_threshold_are_the_ones_the_notes_state(name, lu_lo, lu_hi, phrase):
+    # Integrated loudness (ITU-R BS.1770-4, docs/references.md) of the output
+    # against the input played straight through: the notes say the baseline
+    # and the slow variant are within about 1 LU of the bypassed signal and
+    # the linear-threshold variant about 5 LU louder. The threshold (1 dB
+    # below the small-signal gain on the static curve, Giannoulis et al.
+    # 2012) is the one the notes state, 1.5 dB either side (4 dB steps,
+    # interpolated).
+    d = load_design(name)
+    y, _, sim = demo.simulate(d, phrase, FS)
+    assert sim.stats["nonconverged"] == 0
+    assert lu_lo < demo.loudness(y, FS) - demo.loudness(phrase, FS) < lu_hi
+    m = re.search(r"[Tt]hreshold,? (?:is )?about (-\d+) dBV", " ".join(d.notes.split()))
+    assert m, "the notes state the threshold"
+    c = demo.measure_static(d, FS, np.arange(-64.0, -11.9, 4.0), hold=0.4, measure=0.1)
+    assert c.threshold_db(1.0) == pytest.approx(float(m.group(1)), abs=1.5)
