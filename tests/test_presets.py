@@ -891,3 +891,17 @@ def test_flagship_loudness_and_threshold_are_the_ones_the_notes_state(name, lu_l
     assert m, "the notes state the threshold"
     c = demo.measure_static(d, FS, np.arange(-64.0, -11.9, 4.0), hold=0.4, measure=0.1)
     assert c.threshold_db(1.0) == pytest.approx(float(m.group(1)), abs=1.5)
+
+
+@pytest.mark.parametrize("name", ["octave-up", "overdrive"])
+def test_octave_and_overdrive_match_the_bypassed_loudness_as_their_notes_say(name, phrase):
+    # "within about 1 LU of the bypassed signal" (ITU-R BS.1770-4 integrated
+    # loudness, docs/references.md), then the figure the notes give
+    d = load_design(name)
+    notes = " ".join(d.notes.split())
+    assert "within about 1 LU of the bypassed signal" in notes
+    stated = float(re.search(r"BS\.1770: ([-+]?\d+\.\d) LU", notes).group(1))
+    y, _, sim = demo.simulate(d, phrase, FS)
+    assert sim.stats["nonconverged"] == 0
+    diff = demo.loudness(y, FS) - demo.loudness(phrase, FS)
+    assert abs(diff) < 1.0 and diff == pytest.approx(stated, abs=0.2)
