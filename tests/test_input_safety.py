@@ -554,3 +554,15 @@ def test_play_refuses_bad_values_before_opening_audio(tmp_path, option, value):
         run_cli("play", "flagship", option, value, "--no-console")
     check_clean(r)
     assert r.returncode == 2
+
+
+@settings(max_examples=300, deadline=None, derandomize=True)
+@given(text=st.text(alphabet="RQ1a =(),.+-\t_x9", max_size=40))
+def test_fast_card_split_matches_the_character_scan(text):
+    """The regular-expression split used for plain cards gives the same
+    tokens as the character-by-character scan (the reader's own reference)."""
+    from engine.circuit import Where
+    from engine.formats.spice import _tokenize, _tokenize_chars
+    if "-(" in text:
+        return
+    assert _tokenize(text, Where()) == _tokenize_chars(text, Where())

@@ -54,6 +54,7 @@ description" and "Device models").
 from __future__ import annotations
 
 import ast
+import functools
 import math
 from collections import ChainMap
 import os
@@ -156,6 +157,26 @@ _SCALED_NUM = re.compile(
     re.IGNORECASE)
 
 
+@functools.lru_cache(maxsize=4096)
+def _parse_expression(src: str, text: str):
+    """The checked syntax tree of an expression (cached: a .func body is
+    parsed once, not at every call)."""
+    try:
+        tree = ast.parse(src, mode="eval")
+    except (SyntaxError, RecursionError, MemoryError, ValueError):
+        raise ValueError(f"'{text}' is not an arithmetic expression") from None
+    # nesting depth, measured without recursion (a long '1+1+...' chain is
+    # a deep tree)
+    stack = [(tree, 0)]
+    while stack:
+        node, dep = stack.pop()
+        if dep > limits.MAX_EXPR_DEPTH:
+            raise ValueError(f"the expression nests more than {limits.MAX_EXPR_DEPTH} "
+                             "levels deep; split it with .param")
+        stack.extend((ch, dep + 1) for ch in ast.iter_child_nodes(node))
+    return tree
+
+
 def evaluate_expression(text: str, params: dict[str, float],
                         funcs: dict[str, tuple[list[str], str]] | None = None,
                         _depth: int = 0, _steps: list | None = None) -> float:
@@ -184,19 +205,7 @@ def evaluate_expression(text: str, params: dict[str, float],
     src = src.replace("^", "**")
     src = _SCALED_NUM.sub(lambda m: repr(parse_value(m.group(0), spice=True)),
                           src)
-    try:
-        tree = ast.parse(src.strip(), mode="eval")
-    except (SyntaxError, RecursionError, MemoryError, ValueError):
-        raise ValueError(f"'{text}' is not an arithmetic expression") from None
-    # nesting depth, measured without recursion (a long '1+1+...' chain is
-    # a deep tree)
-    stack = [(tree, 0)]
-    while stack:
-        node, dep = stack.pop()
-        if dep > limits.MAX_EXPR_DEPTH:
-            raise ValueError(f"the expression nests more than {limits.MAX_EXPR_DEPTH} "
-                             "levels deep; split it with .param")
-        stack.extend((ch, dep + 1) for ch in ast.iter_child_nodes(node))
+    tree = _parse_expression(src.strip(), text)
     # names are looked up directly (the reader stores them in lower case);
     # a lower-cased copy of all parameters is made only when that misses, so
     # an expression costs its own size, not the number of parameters
@@ -373,9 +382,20 @@ def _strip_comment(s: str) -> str:
     return s.rstrip()
 
 
+_SIMPLE_TOKENS = re.compile(r"=|[^\s(),={']+")
+
+
 def _tokenize(text: str, where: Where) -> list[str]:
     """Split a card into tokens; parentheses and commas separate, '=' is a
     token of its own, ``{...}`` and ``'...'`` stay whole."""
+    if "{" not in text and "'" not in text and "-(" not in text:
+        # most cards: one regular expression does the same split
+        return _SIMPLE_TOKENS.findall(text)
+    return _tokenize_chars(text, where)
+
+
+def _tokenize_chars(text: str, where: Where) -> list[str]:
+    """:func:`_tokenize` character by character (any card)."""
     out: list[str] = []
     i, n = 0, len(text)
     while i < n:
