@@ -284,6 +284,12 @@ def build_parser() -> argparse.ArgumentParser:
               "render the built-in compressor and its variants and write a report")
     _optional(sub, "gui", "gui.app", "add_gui_arguments", "run_gui",
               "open the desktop workbench")
+    _optional(sub, "build", "engine.analysis.cli_build", "add_build_arguments", "run_build",
+              "write a build sheet, parts list, netlist and connection list")
+    _optional(sub, "montecarlo", "engine.analysis.cli_build", "add_montecarlo_arguments",
+              "run_montecarlo", "tolerance Monte Carlo: yield, spreads, sensitivity")
+    _optional(sub, "sweep", "engine.analysis.cli_build", "add_sweep_arguments", "run_sweep",
+              "sweep a part value (and a pot) and tabulate a figure")
     return ap
 
 

@@ -186,11 +186,12 @@ def group_lines(lines: list[PartLine]) -> list[dict]:
     for ln in lines:
         if ln.value is not None and ln.type in DEFAULT_TOLERANCE:
             key = (ln.type, ln.snapped_marked, ln.tolerance, ln.taper)
-            desc = ln.snapped_marked + (ln.unit if ln.unit not in ("Ω", "") else "")
+            desc = ln.snapped_marked
         else:
             key = (ln.type, ln.model or "", None, "")
             desc = ln.model or ""
         g = groups.setdefault(key, {"type": ln.type, "value": desc, "tolerance": ln.tolerance,
+                                    "si": _fmt(ln.snapped, ln.unit) if ln.snapped else "",
                                     "taper": ln.taper, "designators": []})
         g["designators"].append(ln.designator)
     rows = sorted(groups.values(), key=lambda g: (order.index(g["type"]) if g["type"] in order
@@ -377,7 +378,7 @@ def ratings(design, seconds: float = RATING_SECONDS, fs: float = 48000.0,
                     row["plus"] = "either (under 0.5 V at rest: use a bipolar part)"
                 else:
                     s = 1.0 if vdc > 0 else -1.0
-                    row["plus"] = design_pin(design, owner, 0 if s > 0 else 1)
+                    row["plus"] = "+ to " + design_pin(design, owner, 0 if s > 0 else 1)
                     row["reverse"] = float(max(0.0, -np.min(s * vt)))
                     if row["reverse"] > 0.0:
                         res["errors"].append(
@@ -386,8 +387,10 @@ def ratings(design, seconds: float = RATING_SECONDS, fs: float = 48000.0,
             res["capacitors"].append(row)
     # devices
     for el, mod, lay, po in net.devices:
+        m = lib.find(str(el.params.get("MODEL", "")))
         d = {"part": el.name, "kind": el.kind, "model": el.params.get("MODEL", ""),
-             "type": el.params.get("TYPE", el.kind), "op": op.devices.get(el.name, {})}
+             "type": el.params.get("TYPE", el.kind), "op": op.devices.get(el.name, {}),
+             "spread": dict(m.spread) if m is not None else {}}
         get = lambda q: trace.get(f"{q}({el.name})")  # noqa: E731
         if el.kind == "Q":
             vce, ic = get("vce"), get("ic")
@@ -446,13 +449,21 @@ def ratings(design, seconds: float = RATING_SECONDS, fs: float = 48000.0,
     return res
 
 
+def clock(rotation: float) -> str:
+    """A pot rotation as a clock position: 0 at 7 o'clock, 1 at 5 o'clock
+    over 300 degrees (common practice)."""
+    h = (7.0 + 10.0 * float(rotation)) % 12.0
+    hh = int(round(h)) % 12 or 12
+    return f"about {hh} o'clock"
+
+
 def design_pin(design, qualname: str, index: int) -> str:
     """The net name (in the design's terms) of a two-pin part's pin."""
     try:
         p = design.part(qualname)
     except SolderlessError:
         return "pin " + str(index + 1)
-    return f"{'a' if index == 0 else 'b'} ({p.nodes[index]})"
+    return f"net {p.nodes[index]}"
 
 
 # ---------------------------------------------------------------- connections
@@ -538,10 +549,10 @@ def build_report(design, seconds: float = RATING_SECONDS, timing: bool = True) -
 def parts_csv(rep: BuildReport) -> str:
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(["quantity", "type", "value", "tolerance", "taper", "designators"])
+    w.writerow(["quantity", "type", "marking", "value", "tolerance", "taper", "designators"])
     for g in rep.groups:
         tol = f"{g['tolerance'] * 100:g}%" if g["tolerance"] else ""
-        w.writerow([g["quantity"], g["type"], g["value"], tol, g["taper"],
+        w.writerow([g["quantity"], g["type"], g["value"], g["si"], tol, g["taper"],
                     " ".join(g["designators"])])
     return buf.getvalue()
 
@@ -599,8 +610,8 @@ def sheet_html(rep: BuildReport, files: dict[str, str] | None = None) -> str:
         parts.append("<h2>Warnings</h2><ul>"
                      + "".join(f"<li>{e(x)}</li>" for x in rep.warnings) + "</ul>")
     parts.append("<h2>Parts list</h2>")
-    parts.append(_table(["qty", "type", "value", "tolerance", "designators"],
-                        [[g["quantity"], g["type"], g["value"],
+    parts.append(_table(["qty", "type", "marking", "value", "tolerance", "designators"],
+                        [[g["quantity"], g["type"], g["value"], g["si"],
                           f"{g['tolerance'] * 100:g} %" if g["tolerance"] else "",
                           ", ".join(g["designators"])] for g in rep.groups]))
     parts.append(f"<p>Total parts: {sum(g['quantity'] for g in rep.groups)}.</p>")
@@ -622,8 +633,9 @@ def sheet_html(rep: BuildReport, files: dict[str, str] | None = None) -> str:
         parts.append("<h2>Pots</h2>")
         parts.append(_table(["part", "value", "taper", "rotation the designer settled on"],
                             [[p.designator, p.snapped_marked, p.taper,
-                              f"{p.rotation * 100:.0f} % (about {p.rotation * 300 / 30:.0f} "
-                              "o'clock from 7)" if p.rotation is not None else ""]
+                              f"{p.rotation * 100:.0f} % of the travel ({clock(p.rotation)} on "
+                              "a 300-degree pot from 7 o'clock)" if p.rotation is not None
+                              else ""]
                              for p in rep.pots]))
     parts.append(f"<h2>Ratings</h2><p>From the DC operating point plus a {rt['seconds']:.1f} s "
                  f"render of the synthetic guitar phrase (input peak "
@@ -655,7 +667,8 @@ def sheet_html(rep: BuildReport, files: dict[str, str] | None = None) -> str:
     for d in rt["devices"]:
         q = d["op"]
         if d["kind"] == "Q":
-            bf = ""
+            sp = d.get("spread", {}).get("BF")
+            bf = f" (this class: {sp[0]:g} to {sp[1]:g}, typical, from memory)" if sp else ""
             rows.append([d["part"], f"{d['type']} BJT ({d['model']})",
                          f"current gain at rest {q.get('beta', float('nan')):.0f}{bf}",
                          f"Vce up to {d['v_need']:.2f} V, Ic up to {_fmt(d['i_need'], 'A')}, "

@@ -146,10 +146,11 @@ def tolerance_draws(design) -> list[Draw]:
             continue
         tol = info.tolerance if info.tolerance is not None else DEFAULT_TOLERANCE[kind]
         if not 0.0 < tol < 1.0:
+            w = design.part(info.qualname).where
             raise DesignError(f"tolerance must lie between 0 and 100 % (exclusive), not "
                               f"{tol * 100:g} %", part=info.qualname,
-                              file=str(design.path) if design.path else None,
-                              hint="write e.g. tolerance = \"5%\"")
+                              file=w.file or (str(design.path) if design.path else None),
+                              line=w.line, hint="write e.g. tolerance = \"5%\"")
         q = info.qualname if info.stage else info.name
         if design.netlist is not None:
             q = info.name
