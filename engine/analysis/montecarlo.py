@@ -119,7 +119,8 @@ class TrialSpec:
                               hint="use uniform or normal (sigma = tolerance/3)")
         if not self.key:
             blob = pickle.dumps((self.design.to_toml() if self.design.doc is not None
-                                 else repr(self.design.flatten()), self.dist, self.control,
+                                 else repr(self.design.flatten()), self.seed, self.dist,
+                                 self.control,
                                  self.threshold, self.fs, self.render_seconds,
                                  self.device_spread))
             self.key = hashlib.sha1(blob).hexdigest()
@@ -235,6 +236,18 @@ class TrialRunner:
                 devparams.setdefault(dr.elements[0], {})[dr.label.split(":")[1]] = \
                     draws[dr.label]
         return values, devparams
+
+    def circuit_for(self, draws: dict[str, float]):
+        """The flat circuit with one trial's exact values and device
+        parameters (for writing a netlist of that trial)."""
+        values, devparams = self.apply(draws)
+        circ = self.spec.design.flatten()
+        for el in circ.elements:
+            if el.name in values:
+                el.value = values[el.name]
+            if el.name in devparams:
+                el.params = {**el.params, **devparams[el.name]}
+        return circ
 
     def _set_devices(self, devparams: dict[str, dict]) -> None:
         from engine.circuit import Element
