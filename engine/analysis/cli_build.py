@@ -191,10 +191,13 @@ def run_montecarlo(args) -> int:
     s = rep["summary"]
     print(f"Monte Carlo of {d.name}: {len(rr.results)} of {args.trials} trials "
           f"({rr.where}, seed {args.seed}, {args.dist})")
-    print(f"  yield {s['passed']}/{s['trials']} = {100 * s['yield']:.1f} % "
-          f"(gain within {limits.gain_db:g} dB, every device in its nominal region"
-          + "".join(f", {m} in [{lo:g}, {hi:g}]" for m, (lo, hi) in limits.extra.items())
-          + ")")
+    if not rr.results:
+        print("  no trial finished")
+    else:
+        print(f"  yield {s['passed']}/{s['trials']} = {100 * s['yield']:.1f} % "
+              f"(gain within {limits.gain_db:g} dB, every device in its nominal region"
+              + "".join(f", {m} in [{lo:g}, {hi:g}]" for m, (lo, hi) in limits.extra.items())
+              + ")")
     for m, st in s["stats"].items():
         print(f"  {m:<13} nominal {st['nominal']:.4g}  mean {st['mean']:.4g}  "
               f"sd {st['std']:.3g}  5..95 % {st['p05']:.4g}..{st['p95']:.4g}")

@@ -358,6 +358,10 @@ _WORKER_SPEC = None
 
 def _pool_init(spec_bytes: bytes) -> None:
     global _WORKER_SPEC
+    import signal
+    # Ctrl-C reaches the whole process group: only the parent handles it
+    # (it keeps the finished trials and stops the workers)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     _WORKER_SPEC = pickle.loads(spec_bytes)
 
 
@@ -412,7 +416,7 @@ def run_trials(spec: TrialSpec, indices, workers: int | None = 1, cluster=None,
         from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
         n = workers or os.cpu_count() or 1
         where = f"pool x{n}"
-        size = chunk or max(1, min(16, total // (4 * n) or 1))
+        size = chunk or max(1, min(4, total // (4 * n) or 1))
         ctx = mp.get_context(mp_context) if mp_context else None
         ex = ProcessPoolExecutor(max_workers=n, mp_context=ctx, initializer=_pool_init,
                                  initargs=(pickle.dumps(spec),))
@@ -430,14 +434,21 @@ def run_trials(spec: TrialSpec, indices, workers: int | None = 1, cluster=None,
         except KeyboardInterrupt:
             interrupted = True
         finally:
-            for f in pending:
-                f.cancel()
             if interrupted:
-                # keep what finished while we were stopping
+                # chunks not started are dropped; the few running ones (at
+                # most `size` trials each) finish and are kept
                 for f in pending:
-                    if f.done() and not f.cancelled() and f.exception() is None:
-                        results.extend(f.result())
-            ex.shutdown(wait=not interrupted, cancel_futures=True)
+                    f.cancel()
+                try:
+                    for f in pending:
+                        if not f.cancelled():
+                            try:
+                                results.extend(f.result())
+                            except Exception:  # noqa: BLE001 - a lost chunk is not kept
+                                pass
+                except KeyboardInterrupt:
+                    pass
+            ex.shutdown(wait=True, cancel_futures=True)
     results.sort(key=lambda r: r["index"])
     return RunResult(results, interrupted, total, where)
 
@@ -459,7 +470,7 @@ def _run_dask(spec, indices, cluster, results, tick, job, chunk, stop) -> bool:
     futs = []
     try:
         nworkers = max(1, len(client.scheduler_info().get("workers", {})))
-        size = chunk or max(1, min(16, len(indices) // (4 * nworkers) or 1))
+        size = chunk or max(1, min(4, len(indices) // (4 * nworkers) or 1))
         sfut = client.scatter(spec, broadcast=True)
         futs = [client.submit(run_chunk, sfut, c, job, pure=False)
                 for c in _chunks(indices, size)]
