@@ -363,3 +363,30 @@ def test_sensitivity_ranks_the_part_that_matters(tmp_path):
     s = MC.summary(rr.results, r.nominal_result, MC.Limits(), r.draws)
     sens = s["sensitivity"]["gain_db"]
     assert sens[0]["part"].endswith("R1") and sens[0]["share"] > 0.9
+
+
+@pytest.mark.parametrize("spread,needle", [
+    ('{ BF = [450, 150] }', "above high"),
+    ('{ BF = [150] }', "must be [low, high]"),
+    ('"wide"', "spread must be a table"),
+])
+def test_bad_spread_in_parts_library(tmp_path, spread, needle):
+    from engine.parts import load_library
+    p = tmp_path / "mine.toml"
+    p.write_text(f'[npn-mine]\nkind = "NPN"\nspread = {spread}\nBF = 200\n')
+    with pytest.raises(DesignError) as exc:
+        load_library([p])
+    assert needle in str(exc.value) and "mine.toml" in str(exc.value)
+
+
+def test_spread_reaches_the_device():
+    """A drawn current gain reaches the kernel's parameter vector: the
+    operating point's Ic/Ib follows it (Ebers-Moll forward gain BF in the
+    active region, docs/references.md)."""
+    d = load_design("booster")
+    r = MC.TrialRunner(MC.TrialSpec(d, seed=1, control=False))
+    lo = r.measure({}, {"boost.Q1": {"BF": 150.0}})
+    hi = r.measure({}, {"boost.Q1": {"BF": 450.0}})
+    op = r.sim.operating_point()  # the last state: BF 450
+    assert op.devices["boost.Q1"]["beta"] == pytest.approx(450.0, rel=0.05)
+    assert lo["nets"] != hi["nets"]

@@ -676,7 +676,11 @@ def sheet_html(rep: BuildReport, files: dict[str, str] | None = None) -> str:
                          f"Vceo >= {d['v_need'] * DEVICE_MARGIN:.1f} V, Ic >= "
                          f"{_fmt(d['i_need'] * DEVICE_MARGIN, 'A')}"])
         elif d["kind"] in ("J", "M"):
-            rows.append([d["part"], f"{d['type']} ({d['model']})", f"region {q.get('region')}",
+            sp = d.get("spread", {})
+            spt = "; ".join(f"{k} {a:g} to {b:g}" for k, (a, b) in sp.items())
+            rows.append([d["part"], f"{d['type']} ({d['model']})",
+                         f"region {q.get('region')}"
+                         + (f" (this class: {spt}, typical, from memory)" if spt else ""),
                          f"Vds up to {d['v_need']:.2f} V, Id up to {_fmt(d['i_need'], 'A')}",
                          f"Vds >= {d['v_need'] * DEVICE_MARGIN:.1f} V"])
         elif d["kind"] == "D":
