@@ -295,6 +295,10 @@ def test_cli_interrupted_montecarlo_writes_partial(tmp_path, monkeypatch, capsys
     (["montecarlo", "booster", "--trials", "2", "--tolerance", "boost.RC=150%"],
      "outside 0..100"),
     (["montecarlo", "booster", "--trials", "0"], "--trials"),
+    (["montecarlo", "booster", "--trials", "2", "--quick", "--cluster", "not an address"],
+     "cannot reach the Dask scheduler"),
+    (["sweep", "booster", "--part", "boost.CE", "--values", "1u", "--metric", "release"],
+     "needs a design with a control"),
     (["montecarlo", "booster", "--trials", "2", "--limit", "speed=1:2"], "unknown metric"),
 ])
 def test_bad_input_clear_errors(argv, needle, capsys, tmp_path):
@@ -350,6 +354,7 @@ def test_sweep_matches_direct_solve(tmp_path):
     assert rc == 0
     rows = list(csv.reader((tmp_path / "sweep.csv").open()))
     assert len(rows) == 1 + 4 and (tmp_path / "sweep.png").exists()
+    assert rows[0][:3] == ["value_si", "rotation", "gain_db"] and "zin" in rows[0]
 
 
 def test_sensitivity_ranks_the_part_that_matters(tmp_path):

@@ -308,10 +308,13 @@ def run_sweep(args) -> int:
     head = ["value"] + (["rotation"] if grid.pot else []) + [f"{args.metric} ({unit})"]
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(["value_si"] + (["rotation"] if grid.pot else []) + [args.metric])
+    # the chosen metric first, then every other figure the grid point measured
+    cols = [args.metric] + [m for m in METRICS if m != args.metric
+                            and any(m in r for r in rr.results)]
+    w.writerow(["value_si"] + (["rotation"] if grid.pot else []) + cols)
     for r in rr.results:
         w.writerow([f"{r['value']:.6g}"] + ([f"{r['rotation']:.6g}"] if grid.pot else [])
-                   + [_cell(r.get(args.metric, float("nan")))])
+                   + [_cell(r.get(m, float("nan"))) for m in cols])
     _write(out / "sweep.csv", buf.getvalue())
     if rr.results:
         plot(grid, rr.results, args.metric, unit, out / "sweep.png")
