@@ -395,3 +395,28 @@ def test_spread_reaches_the_device():
     op = r.sim.operating_point()  # the last state: BF 450
     assert op.devices["boost.Q1"]["beta"] == pytest.approx(450.0, rel=0.05)
     assert lo["nets"] != hi["nets"]
+
+
+REVERSE = """electrolytic across a 0.6 V source that also carries the signal
+VIN src 0 DC 0.6
+RS src b 100
+C1 b 0 1u
+R3 b out 1k
+R4 out 0 100k
+.end
+"""
+
+
+def test_electrolytic_reversal_is_an_error(tmp_path):
+    """An electrolytic with 0.6 V across it at rest and a 1 V peak signal
+    across it too reverses: an error on the sheet (docs/references.md,
+    building from a simulation). With 0.2 V peak it does not."""
+    d = _netlist_design(tmp_path, "rev", REVERSE)
+    loud = B.ratings(d, seconds=1.0, peak=1.0)
+    cap = next(c for c in loud["capacitors"] if c["part"].endswith("C1"))
+    assert cap["electrolytic"] and cap["v_dc"] == pytest.approx(0.6 * 101e3 / 101.1e3,
+                                                                rel=1e-6)
+    assert "net b" in cap["plus"]
+    assert any("reverses" in e for e in loud["errors"])
+    quiet = B.ratings(d, seconds=1.0, peak=0.2)
+    assert not quiet["errors"]

@@ -66,6 +66,9 @@ BATTERY_MAH = 575.0
 ADAPTER_FROM = 0.020
 #: Seconds of the synthetic phrase rendered for the ratings.
 RATING_SECONDS = 6.0
+#: The phrase is scaled to this peak at the jack for the ratings: a hot
+#: pickup's loudest strum (above 1 V; docs/references.md, common practice).
+RATING_PEAK_V = 1.0
 CAUTIONS = (
     "A simulation is not the hardware: build on a breadboard first, measure the "
     "bias points against this sheet, and listen before you box it.",
@@ -313,9 +316,10 @@ def _node_trace(net_names, traces, ops, node: str) -> np.ndarray | float:
 
 
 def ratings(design, seconds: float = RATING_SECONDS, fs: float = 48000.0,
-            phrase: str = "demo") -> dict:
+            phrase: str = "demo", peak: float = RATING_PEAK_V) -> dict:
     """Worst-case stresses from the operating point plus a render of the
-    synthetic phrase (``seconds`` long), with every net and device recorded."""
+    synthetic phrase (``seconds`` long, scaled to ``peak`` volts at the
+    jack), with every net and device recorded."""
     from engine.parts import load_library
     from engine.solver import Simulator
     from engine.synth import render_phrase
@@ -336,6 +340,8 @@ def ratings(design, seconds: float = RATING_SECONDS, fs: float = 48000.0,
     probes += [f"i({e.name})" for e in supplies]
     sim = Simulator(circ, fs=fs, oversample=design.oversample, probes=tuple(probes))
     x = render_phrase(phrase, fs=fs)[: int(seconds * fs)]
+    if x.size and np.max(np.abs(x)) > 0:
+        x = x * (peak / float(np.max(np.abs(x))))
     y, pdata = sim.run(x)
     trace = dict(zip(probes, pdata))
     vtr = {n: trace[f"v({n})"] for n in nets}
@@ -345,11 +351,19 @@ def ratings(design, seconds: float = RATING_SECONDS, fs: float = 48000.0,
            if x.size else 0.0, "op": op}
     elements = {e.name: e for e in circ.elements}
     lines = {ln.designator: ln for ln in part_lines(design)}
+    # element name -> designator (a netlist design's elements keep their own
+    # names; a pot is two elements)
+    owner_of = {}
+    for q, ln in lines.items():
+        base = q.split(".", 1)[1] if design.netlist is not None else q
+        owner_of[base] = q
+        if ln.type == "pot":
+            owner_of[base + ".a"] = owner_of[base + ".b"] = q
     for name, e in elements.items():
         if e.kind not in ("R", "C"):
             continue
-        owner = name[:-2] if name.endswith((".a", ".b")) and name[:-2] in lines else name
-        if owner not in lines:
+        owner = owner_of.get(name)
+        if owner is None:
             continue           # the jack's source resistance and the load
         va = _node_trace(nets, vtr, op.nets, e.nodes[0])
         vb = _node_trace(nets, vtr, op.nets, e.nodes[1])
@@ -521,7 +535,8 @@ class BuildReport:
         return self.snap_warnings + list(self.ratings.get("warnings", []))
 
 
-def build_report(design, seconds: float = RATING_SECONDS, timing: bool = True) -> BuildReport:
+def build_report(design, seconds: float = RATING_SECONDS, timing: bool = True,
+                 peak: float = RATING_PEAK_V) -> BuildReport:
     """Everything the build sheet shows (see the module docstring)."""
     from engine.formats.spice import circuit_to_netlist
     lines = part_lines(design)
@@ -535,7 +550,7 @@ def build_report(design, seconds: float = RATING_SECONDS, timing: bool = True) -
     moved = [ln.tolerance for ln in lines if ln.snapped is not None and abs(ln.snap_error) > 1e-9]
     limit = min(moved) if moved else 0.05
     rows, warns = compare_figures(nom, snap, limit)
-    rt = ratings(design, seconds=seconds)
+    rt = ratings(design, seconds=seconds, peak=peak)
     try:
         netlist = circuit_to_netlist(design.flatten(), title=design.name)
         note = ""
@@ -638,8 +653,8 @@ def sheet_html(rep: BuildReport, files: dict[str, str] | None = None) -> str:
                               else ""]
                              for p in rep.pots]))
     parts.append(f"<h2>Ratings</h2><p>From the DC operating point plus a {rt['seconds']:.1f} s "
-                 f"render of the synthetic guitar phrase (input peak "
-                 f"{rt['input_peak'] * 1e3:.0f} mV). Margins (common practice): a resistor "
+                 f"render of the synthetic guitar phrase scaled to "
+                 f"{rt['input_peak']:.2g} V peak at the jack (a hot pickup's loudest strum). Margins (common practice): a resistor "
                  f"dissipates at most {POWER_MARGIN * 100:.0f} % of its rating; a capacitor "
                  f"sees at most {VOLTAGE_MARGIN * 100:.0f} % of its rated voltage; choose "
                  f"semiconductors rated {DEVICE_MARGIN:g} x the needs listed.</p>")

@@ -57,6 +57,9 @@ def add_build_arguments(p: argparse.ArgumentParser) -> None:
                         "(default build-out)")
     p.add_argument("--seconds", type=float, default=6.0, metavar="S",
                    help="seconds of the synthetic phrase rendered for the ratings (default 6)")
+    p.add_argument("--input-peak", type=float, default=1.0, metavar="V",
+                   help="peak volts at the jack of the phrase used for the ratings "
+                        "(default 1.0: a hot pickup's loudest strum)")
     p.add_argument("--no-timing", action="store_true",
                    help="skip attack/release in the snapped-value comparison")
 
@@ -65,8 +68,11 @@ def run_build(args) -> int:
     from engine.analysis.build import build_report, write_build
     if not (args.seconds > 0 and math.isfinite(args.seconds)):
         raise DesignError(f"--seconds must be positive, not {args.seconds!r}")
+    if not (args.input_peak > 0 and math.isfinite(args.input_peak)):
+        raise DesignError(f"--input-peak must be positive volts, not {args.input_peak!r}")
     d = _load(args)
-    rep = build_report(d, seconds=args.seconds, timing=not args.no_timing)
+    rep = build_report(d, seconds=args.seconds, timing=not args.no_timing,
+                       peak=args.input_peak)
     files = write_build(rep, Path(args.out))
     for e in rep.errors:
         print(f"error (sheet): {e}", file=sys.stderr)
