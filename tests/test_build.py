@@ -233,7 +233,8 @@ def test_same_seed_serial_pool_and_dask():
     d = load_design("booster")
     spec = MC.TrialSpec(d, seed=5, control=False)
     serial = MC.run_trials(spec, range(6), workers=1)
-    pool = MC.run_trials(spec, range(6), workers=2, chunk=2)
+    # spawn: fresh interpreters, so the spec really travels by pickle
+    pool = MC.run_trials(spec, range(6), workers=2, chunk=2, mp_context="spawn")
     assert _key(serial) == _key(pool)
     distributed = pytest.importorskip("dask.distributed")
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
