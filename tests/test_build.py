@@ -296,6 +296,8 @@ def test_cli_interrupted_montecarlo_writes_partial(tmp_path, monkeypatch, capsys
     (["montecarlo", "booster", "--trials", "2", "--tolerance", "boost.RC=150%"],
      "outside 0..100"),
     (["montecarlo", "booster", "--trials", "0"], "--trials"),
+    (["montecarlo", "booster", "--seed", "-3"], "--seed"),
+    (["build", "booster", "--seconds", "0"], "--seconds"),
     (["montecarlo", "booster", "--trials", "2", "--quick", "--cluster", "not an address"],
      "cannot reach the Dask scheduler"),
     (["sweep", "booster", "--part", "boost.CE", "--values", "1u", "--metric", "release"],

@@ -180,6 +180,8 @@ def run_montecarlo(args) -> int:
     from engine.analysis.montecarlo import TrialSpec
     if args.trials < 1:
         raise DesignError(f"--trials must be 1 or more, not {args.trials}")
+    if args.seed < 0:
+        raise DesignError(f"--seed must be 0 or more, not {args.seed}")
     limits = _parse_limits(args.limit, args.gain_limit)
     d = _load(args)
     for it in args.tolerance:
