@@ -100,7 +100,7 @@ class BuildPanel(QWidget):
         d = self.get_design()
 
         def work():
-            from engine.analysis.build import build_report, sheet_html, write_build
+            from engine.analysis.build import build_report, write_build
             rep = build_report(d, seconds=3.0)
             out = self.folder / "sheet"
             write_build(rep, out)
