@@ -423,3 +423,26 @@ def test_electrolytic_reversal_is_an_error(tmp_path):
     assert any("reverses" in e for e in loud["errors"])
     quiet = B.ratings(d, seconds=1.0, peak=0.2)
     assert not quiet["errors"]
+
+
+HUNGRY = """a circuit that draws about 23 mA from 9 V
+VIN src 0 DC 0
+V1 vcc 0 DC 9
+RH vcc 0 390
+R1 src out 1k
+R2 out 0 10k
+.end
+"""
+
+
+def test_heavy_draw_suggests_an_adapter_with_the_mains_caution(tmp_path):
+    """9 V / 390 ohm = 23 mA, above the 20 mA a 9 V battery suits (common
+    practice, docs/references.md): the sheet suggests an adapter and names
+    local codes; battery life = capacity / current (docs/references.md)."""
+    d = _netlist_design(tmp_path, "hungry", HUNGRY)
+    rt = B.ratings(d, seconds=0.2)
+    assert rt["supply"]["rest"] == pytest.approx(9 / 390, rel=1e-6)
+    assert rt["supply"]["battery_hours"] == pytest.approx(0.575 / (9 / 390), rel=1e-3)
+    assert any("adapter" in w and "local codes" in w for w in rt["warnings"])
+    r = next(x for x in rt["resistors"] if x["part"] == "RH")
+    assert r["p_dc"] == pytest.approx(81 / 390) and r["rating"] == 0.5   # 0.21 W <= 50 %
