@@ -446,3 +446,20 @@ def test_heavy_draw_suggests_an_adapter_with_the_mains_caution(tmp_path):
     assert any("adapter" in w and "local codes" in w for w in rt["warnings"])
     r = next(x for x in rt["resistors"] if x["part"] == "RH")
     assert r["p_dc"] == pytest.approx(81 / 390) and r["rating"] == 0.5   # 0.21 W <= 50 %
+
+
+def test_yield_fails_a_trial_whose_transistor_leaves_its_region():
+    """A base resistor to ground of 10k instead of 220k starves the booster's
+    transistor (Vbe = 0.5 * 9 V * 10k/480k, far below a conducting
+    junction's 0.6 V: cut off, Ebers-Moll, docs/references.md): the trial
+    fails the region limit even with a gain limit too wide to matter."""
+    d = load_design("booster")
+    r = MC.TrialRunner(MC.TrialSpec(d, control=False))
+    wide = MC.Limits(gain_db=200.0)
+    ok = r.measure({"boost.RB2": 220e3}, {})
+    bad = r.measure({"boost.RB2": 10e3}, {})
+    bad["error"] = ok["error"] = ""
+    assert ok["in_region"] and MC.passes(ok, r.nominal_result, wide)
+    assert bad["regions"]["boost.Q1"] == "cut-off" and not bad["in_region"]
+    assert not MC.passes(bad, r.nominal_result, wide)
+    assert MC.passes(bad, r.nominal_result, MC.Limits(gain_db=200.0, regions=False))

@@ -6,9 +6,10 @@ value-edit path (``set_values``: new matrices, the same compiled kernel, no
 recompilation) and device parameters in place in the device parameter
 vector, then measures:
 
-* the DC operating point: every device's region (``in_region``: the same
-  region as at nominal values) and the smallest transistor headroom
-  (|Vce| - 0.3 V for a BJT, |Vds| for a FET; common practice);
+* the DC operating point: every device's region (``in_region``: every
+  transistor, op-amp and gain cell in the same region as at nominal
+  values) and the smallest transistor headroom (|Vce| - 0.3 V for a BJT,
+  |Vds| for a FET; common practice);
 * the small-signal gain and input impedance at 1 kHz
   (:func:`engine.solver.ac.ac_response`);
 * for designs with a control (``[meters] control``): the threshold (input
@@ -52,6 +53,9 @@ GAIN_LIMIT_DB = 1.0
 METRICS = {"gain_db": "dB", "zin": "Ω", "headroom": "V", "threshold_db": "dBV",
            "gr_ref_db": "dB", "attack": "s", "release": "s"}
 DISTRIBUTIONS = ("uniform", "normal")
+#: Devices whose region at rest must match the nominal design's for a trial
+#: to pass: transistors, op-amps and gain cells (diodes switch by design).
+REGION_KINDS = ("Q", "J", "M", "OPAMP", "OTA")
 
 
 def burst_timing(sim, fs: float, law: str = "linear", lead: float = 0.15,
@@ -183,6 +187,7 @@ class TrialRunner:
                 dr.elements = [e for e in dr.elements if e in self.nominal]
         self.draws = [dr for dr in self.draws if dr.elements]
         self.dev_index = {el.name: k for k, (el, _, _, _) in enumerate(self.net.devices)}
+        self.kinds = {el.name: el.kind for el, _, _, _ in self.net.devices}
         self.base_params = {el.name: dict(el.params) for el, _, _, _ in self.net.devices}
         self.base_par = [lay.par.copy() for _, _, lay, _ in self.net.devices]
         if spec.device_spread:
@@ -308,7 +313,9 @@ class TrialRunner:
                                    if spec.threshold else float("nan"))
         nom = self.nominal_result
         if nom is not None:
-            res["in_region"] = all(regions.get(k) == v for k, v in nom["regions"].items())
+            # transistors and gain cells (not diodes, which switch by design)
+            res["in_region"] = all(regions.get(k) == v for k, v in nom["regions"].items()
+                                   if self.kinds.get(k) in REGION_KINDS)
         else:
             res["in_region"] = True
         return res
