@@ -449,10 +449,11 @@ def test_heavy_draw_suggests_an_adapter_with_the_mains_caution(tmp_path):
 
 
 def test_yield_fails_a_trial_whose_transistor_leaves_its_region():
-    """A base resistor to ground of 10k instead of 220k starves the booster's
-    transistor (Vbe = 0.5 * 9 V * 10k/480k, far below a conducting
-    junction's 0.6 V: cut off, Ebers-Moll, docs/references.md): the trial
-    fails the region limit even with a gain limit too wide to matter."""
+    """A base resistor to ground of 10k instead of 220k against the 470k
+    collector-feedback resistor holds the booster's base below a conducting
+    junction's 0.6 V (at most 9 V * 10k/480k = 0.19 V): the transistor is cut
+    off and the trial fails the region limit even with a gain limit too wide
+    to matter."""
     d = load_design("booster")
     r = MC.TrialRunner(MC.TrialSpec(d, control=False))
     wide = MC.Limits(gain_db=200.0)
