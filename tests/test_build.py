@@ -215,6 +215,7 @@ def test_monte_carlo_draws_against_ngspice():
     for k in range(3):
         res = r.run(k)
         ref = run_op(circuit_cards(circuit_to_netlist(r.circuit_for(res["draws"]))))
+        assert ref, "ngspice returned no operating point"
         for net, v in res["nets"].items():
             if net.lower() in ref:
                 assert abs(ref[net.lower()] - v) < 1e-3, (k, net, ref[net.lower()], v)
@@ -464,3 +465,21 @@ def test_yield_fails_a_trial_whose_transistor_leaves_its_region():
     assert bad["regions"]["boost.Q1"] == "cut-off" and not bad["in_region"]
     assert not MC.passes(bad, r.nominal_result, wide)
     assert MC.passes(bad, r.nominal_result, MC.Limits(gain_db=200.0, regions=False))
+
+
+def test_cli_writes_trial_netlists(tmp_path):
+    """--netlists K writes the drawn values: a drawn resistor's value appears
+    in the netlist exactly as the trial used it."""
+    rc = main(["montecarlo", "booster", "--trials", "3", "--workers", "1", "--quick",
+               "--netlists", "2", "--out", str(tmp_path)])
+    assert rc == 0
+    rows = list(csv.DictReader((tmp_path / "trials.csv").open()))
+    from engine.formats.spice import parse_netlist
+    for k in (0, 1):
+        text = (tmp_path / f"trial-{k}.cir").read_text()
+        nl = parse_netlist(text)
+        el = {e.name: e for e in nl.circuit.elements}
+        rc_el = next(e for n, e in el.items() if n.upper().endswith("BOOST.RC"))
+        # the CSV keeps 9 significant digits of the draw
+        assert rc_el.value == pytest.approx(10e3 * (1 + float(rows[k]["boost.RC"])), rel=1e-8)
+    assert not (tmp_path / "trial-2.cir").exists()

@@ -152,6 +152,9 @@ def add_montecarlo_arguments(p: argparse.ArgumentParser) -> None:
                    help="keep transistor and diode parameters at their typical values")
     p.add_argument("--out", default="montecarlo-out", metavar="DIR",
                    help="folder for trials.csv, summary.json, report.html")
+    p.add_argument("--netlists", type=int, default=0, metavar="K",
+                   help="also write SPICE netlists of the first K trials with their drawn "
+                        "values (trial-<k>.cir), to check them in another simulator")
     _parallel_args(p)
 
 
@@ -196,6 +199,12 @@ def run_montecarlo(args) -> int:
     nominal = TrialRunner(spec)          # checks tolerances before any worker starts
     rr = _run(spec, range(args.trials), args, f"montecarlo {d.name}")
     rep = write_montecarlo(out, d, spec, nominal, rr, limits)
+    if args.netlists > 0:
+        from engine.formats.spice import circuit_to_netlist
+        for r in rr.results[:args.netlists]:
+            circ = nominal.circuit_for(r["draws"])
+            _write(out / f"trial-{r['index']}.cir",
+                   circuit_to_netlist(circ, title=f"{d.name}, trial {r['index']}"))
     s = rep["summary"]
     print(f"Monte Carlo of {d.name}: {len(rr.results)} of {args.trials} trials "
           f"({rr.where}, seed {args.seed}, {args.dist})")
