@@ -112,7 +112,11 @@ def taper_words(taper) -> str:
     return f"custom law (rotation->fraction of track: {pts})"
 
 
-def _fmt(x: float, unit: str = "", digits: int = 3) -> str:
+def _fmt(x: float, unit: str = "", digits: int = 3, floor: float = 0.0) -> str:
+    """Engineering notation; magnitudes below ``floor`` (solver round-off,
+    e.g. 1e-18 A through a resistor that carries no DC) are shown as 0."""
+    if floor and abs(x) < floor:
+        x = 0.0
     try:
         return format_value(x, unit=unit, style="eng", digits=digits)
     except (ValueError, OverflowError):
@@ -661,8 +665,8 @@ def sheet_html(rep: BuildReport, files: dict[str, str] | None = None) -> str:
     parts.append("<h3>Resistors</h3>")
     parts.append(_table(["part", "value", "DC current", "DC power", "worst-case power",
                          "rating"],
-                        [[r["part"], _rkm(r["R"]), _fmt(r["i_dc"], "A"), _fmt(r["p_dc"], "W"),
-                          _fmt(r["p_peak"], "W"),
+                        [[r["part"], _rkm(r["R"]), _fmt(abs(r["i_dc"]), "A", floor=1e-12),
+                          _fmt(r["p_dc"], "W", floor=1e-12), _fmt(r["p_peak"], "W", floor=1e-12),
                           f"{r['rating']:g} W" if r["rating"] else "over 5 W: redesign"]
                          for r in rt["resistors"]]))
     if "dissipation" in files:
