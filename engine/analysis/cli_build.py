@@ -99,6 +99,7 @@ def _parallel_args(p):
 
 
 def _progress(label: str, total: int):
+    """The CLI's progress bar on stderr (shown on a terminal only)."""
     from engine.cli import Progress
     pr = Progress(total, label, min_seconds=0.5)
     return pr, (lambda done, tot: pr.update(done))
