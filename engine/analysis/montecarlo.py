@@ -277,18 +277,24 @@ class TrialRunner:
     def measure(self, values: dict[str, float], devparams: dict[str, dict]) -> dict:
         """Set element values and device parameters and measure everything."""
         from engine.solver.ac import ac_response
+        from engine.solver.dcop import report, solve_dc
         sim = self.sim
         full = dict(self.nominal)
         full.update(values)
-        sim.set_values(full)
         self._set_devices(devparams)
-        # a cold start for every operating point: results do not depend on
-        # which trial ran before in this process
-        sim._dc = None
-        sim._dc_values = None
-        sim._op = None
+        if self.has_control:
+            # renders follow: the kernel's matrices for these values
+            sim.set_values(full)
+            # a cold start for every operating point: results do not depend
+            # on which trial ran before in this process
+            sim._dc = None
+            sim._dc_values = None
+            sim._op = None
+            op = sim.operating_point()
+        else:
+            # no render: the operating point alone, from the same cold start
+            op = report(self.net, solve_dc(self.net, full), full)
         res = {}
-        op = sim.operating_point()
         regions = {name: q.get("region", "") for name, q in op.devices.items()}
         res["regions"] = regions
         head = float("inf")
