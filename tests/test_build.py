@@ -22,6 +22,12 @@ from engine.cli import main
 from engine.design import builtin_designs, load_design
 from engine.errors import DesignError, SolderlessError
 
+from pathlib import Path
+
+#: our own one-transistor booster, part by part (stable part names)
+BOOSTER = Path(__file__).resolve().parent / "build_booster.toml"
+BOOSTER_ARG = str(BOOSTER)
+
 DIVIDER = """divider for the uncertainty check
 VIN src 0 DC 0
 R1 src out 10k
@@ -128,7 +134,7 @@ def test_resistor_dissipation_is_i2r_of_the_operating_point():
     """P = I^2 R = V^2 / R at the DC operating point; the rating holds it at
     no more than half (common practice)."""
     from engine.solver.dcop import operating_point
-    d = load_design("booster")
+    d = load_design(BOOSTER)
     rt = B.ratings(d, seconds=0.3)
     op = operating_point(d.flatten())
     circ = {e.name: e for e in d.flatten().elements}
@@ -185,7 +191,7 @@ def test_build_sheet_of_every_builtin(name, tmp_path):
 def test_snapped_values_resolve_and_warn(tmp_path):
     """A part off the series is snapped; the re-solve reports what moved and
     warns when a figure moves by more than the tolerance."""
-    d = load_design("booster")
+    d = load_design(BOOSTER)
     d.set_value("boost.RC", "11.9k")         # E24 neighbours 11k and 12k
     d.set_tolerance("boost.RC", "1%")        # but a 1 % part: E96 has 11.8k
     lines = {ln.designator: ln for ln in B.part_lines(d)}
@@ -209,7 +215,7 @@ def test_monte_carlo_draws_against_ngspice():
     from spice_ref import circuit_cards, require_ngspice, run_op
     from engine.formats.spice import circuit_to_netlist
     require_ngspice()
-    d = load_design("booster")
+    d = load_design(BOOSTER)
     r = MC.TrialRunner(MC.TrialSpec(d, seed=3, control=False))
     assert any(":BF" in dr.label for dr in r.draws)
     for k in range(3):
@@ -231,7 +237,7 @@ def _key(rr):
 def test_same_seed_serial_pool_and_dask():
     """Trial k draws from SeedSequence(seed, spawn_key=(k,)): the same
     results serially, in a process pool and on a Dask LocalCluster."""
-    d = load_design("booster")
+    d = load_design(BOOSTER)
     spec = MC.TrialSpec(d, seed=5, control=False)
     serial = MC.run_trials(spec, range(6), workers=1)
     # spawn: fresh interpreters, so the spec really travels by pickle
@@ -250,7 +256,7 @@ def test_same_seed_serial_pool_and_dask():
 # ---------------------------------------------------------------- bad input
 
 def test_interrupted_run_keeps_partial_results():
-    d = load_design("booster")
+    d = load_design(BOOSTER)
     spec = MC.TrialSpec(d, seed=1, control=False)
     stop = threading.Event()
 
@@ -275,7 +281,7 @@ def test_cli_interrupted_montecarlo_writes_partial(tmp_path, monkeypatch, capsys
             raise KeyboardInterrupt
         return real(self, index)
     monkeypatch.setattr(MC.TrialRunner, "run", run)
-    rc = main(["montecarlo", "booster", "--trials", "10", "--workers", "1", "--quick",
+    rc = main(["montecarlo", BOOSTER_ARG, "--trials", "10", "--workers", "1", "--quick",
                "--out", str(tmp_path)])
     assert rc == 130
     rows = list(csv.DictReader((tmp_path / "trials.csv").open()))
@@ -286,24 +292,24 @@ def test_cli_interrupted_montecarlo_writes_partial(tmp_path, monkeypatch, capsys
 
 
 @pytest.mark.parametrize("argv,needle", [
-    (["sweep", "booster", "--part", "boost.NOPE", "--values", "1u,2u"], "no part named"),
-    (["sweep", "booster", "--part", "boost.CE", "--values", ""], "empty value range"),
-    (["sweep", "booster", "--part", "boost.CE", "--values", "E12:5u..5u4"], "holds no E12"),
-    (["sweep", "booster", "--part", "boost.Q1", "--values", "1u"], "has no value"),
-    (["sweep", "booster", "--part", "boost.CE", "--values", "1u", "--pot", "level.LEVEL=0:1"],
+    (["sweep", BOOSTER_ARG, "--part", "boost.NOPE", "--values", "1u,2u"], "no part named"),
+    (["sweep", BOOSTER_ARG, "--part", "boost.CE", "--values", ""], "empty value range"),
+    (["sweep", BOOSTER_ARG, "--part", "boost.CE", "--values", "E12:5u..5u4"], "holds no E12"),
+    (["sweep", BOOSTER_ARG, "--part", "boost.Q1", "--values", "1u"], "has no value"),
+    (["sweep", BOOSTER_ARG, "--part", "boost.CE", "--values", "1u", "--pot", "level.LEVEL=0:1"],
      "cannot read pot range"),
-    (["montecarlo", "booster", "--trials", "2", "--tolerance", "boost.RC=0"],
+    (["montecarlo", BOOSTER_ARG, "--trials", "2", "--tolerance", "boost.RC=0"],
      "tolerance must lie between 0 and 100"),
-    (["montecarlo", "booster", "--trials", "2", "--tolerance", "boost.RC=150%"],
+    (["montecarlo", BOOSTER_ARG, "--trials", "2", "--tolerance", "boost.RC=150%"],
      "outside 0..100"),
-    (["montecarlo", "booster", "--trials", "0"], "--trials"),
-    (["montecarlo", "booster", "--seed", "-3"], "--seed"),
-    (["build", "booster", "--seconds", "0"], "--seconds"),
-    (["montecarlo", "booster", "--trials", "2", "--quick", "--cluster", "not an address"],
+    (["montecarlo", BOOSTER_ARG, "--trials", "0"], "--trials"),
+    (["montecarlo", BOOSTER_ARG, "--seed", "-3"], "--seed"),
+    (["build", BOOSTER_ARG, "--seconds", "0"], "--seconds"),
+    (["montecarlo", BOOSTER_ARG, "--trials", "2", "--quick", "--cluster", "not an address"],
      "cannot reach the Dask scheduler"),
-    (["sweep", "booster", "--part", "boost.CE", "--values", "1u", "--metric", "release"],
+    (["sweep", BOOSTER_ARG, "--part", "boost.CE", "--values", "1u", "--metric", "release"],
      "needs a design with a control"),
-    (["montecarlo", "booster", "--trials", "2", "--limit", "speed=1:2"], "unknown metric"),
+    (["montecarlo", BOOSTER_ARG, "--trials", "2", "--limit", "speed=1:2"], "unknown metric"),
 ])
 def test_bad_input_clear_errors(argv, needle, capsys, tmp_path):
     rc = main(argv + ["--out", str(tmp_path / "o")])
@@ -314,17 +320,17 @@ def test_bad_input_clear_errors(argv, needle, capsys, tmp_path):
 
 
 def test_zero_tolerance_in_design_file_names_file_and_line(tmp_path):
-    d = load_design("booster")
-    src = d.to_toml()
-    src = src.replace('template = "boosters/single-transistor"',
-                      'template = "boosters/single-transistor"\n'
-                      '[stage.tolerances]\nRC = "0%"', 1)
+    src = BOOSTER.read_text()
+    src = src.replace('value = "10k"\n', 'value = "10k"\ntolerance = "0%"\n', 1)
     p = tmp_path / "zero.toml"
     p.write_text(src)
     d2 = load_design(str(p))
     with pytest.raises(SolderlessError) as exc:
         MC.TrialRunner(MC.TrialSpec(d2, control=False))
-    assert "boost.RC" in str(exc.value) and "tolerance" in str(exc.value)
+    msg = str(exc.value)
+    assert "boost.RC" in msg and "tolerance" in msg and "zero.toml" in msg
+    line = src.splitlines().index('name = "RC"') + 1      # the part's table
+    assert f"zero.toml:{line}:" in msg
 
 
 # ---------------------------------------------------------------- sweeps
@@ -342,18 +348,18 @@ def test_value_ranges():
 def test_sweep_matches_direct_solve(tmp_path):
     """Each grid point equals a fresh solve of the design with that value."""
     from engine.solver import ac_response
-    d = load_design("booster")
+    d = load_design(BOOSTER)
     grid = make_grid(d, "boost.RE2", "E6:1k..2k2")
     from engine.analysis.sweep import SweepJob
     spec = MC.TrialSpec(d, control=False, device_spread=False)
     rr = MC.run_trials(spec, range(len(grid)), workers=1, job=SweepJob(grid))
     assert [r["value"] for r in rr.results] == pytest.approx([1e3, 1.5e3, 2.2e3])
     for r in rr.results:
-        dd = load_design("booster")
+        dd = load_design(BOOSTER)
         dd.set_value("boost.RE2", r["value"])
         _, H, _ = ac_response(dd.flatten(), [1000.0])
         assert r["gain_db"] == pytest.approx(20 * math.log10(abs(H[0])), abs=1e-9)
-    rc = main(["sweep", "booster", "--part", "boost.RE2", "--values", "1k,2k2", "--pot",
+    rc = main(["sweep", BOOSTER_ARG, "--part", "boost.RE2", "--values", "1k,2k2", "--pot",
                "level.LEVEL=0.2:0.8:2", "--workers", "1", "--quick", "--out", str(tmp_path)])
     assert rc == 0
     rows = list(csv.reader((tmp_path / "sweep.csv").open()))
@@ -392,7 +398,7 @@ def test_spread_reaches_the_device():
     """A drawn current gain reaches the kernel's parameter vector: the
     operating point's Ic/Ib follows it (Ebers-Moll forward gain BF in the
     active region, docs/references.md)."""
-    d = load_design("booster")
+    d = load_design(BOOSTER)
     r = MC.TrialRunner(MC.TrialSpec(d, seed=1, control=False))
     lo = r.measure({}, {"boost.Q1": {"BF": 150.0}})
     hi = r.measure({}, {"boost.Q1": {"BF": 450.0}})
@@ -455,7 +461,7 @@ def test_yield_fails_a_trial_whose_transistor_leaves_its_region():
     junction's 0.6 V (at most 9 V * 10k/480k = 0.19 V): the transistor is cut
     off and the trial fails the region limit even with a gain limit too wide
     to matter."""
-    d = load_design("booster")
+    d = load_design(BOOSTER)
     r = MC.TrialRunner(MC.TrialSpec(d, control=False))
     wide = MC.Limits(gain_db=200.0)
     ok = r.measure({"boost.RB2": 220e3}, {})
@@ -470,7 +476,7 @@ def test_yield_fails_a_trial_whose_transistor_leaves_its_region():
 def test_cli_writes_trial_netlists(tmp_path):
     """--netlists K writes the drawn values: a drawn resistor's value appears
     in the netlist exactly as the trial used it."""
-    rc = main(["montecarlo", "booster", "--trials", "3", "--workers", "1", "--quick",
+    rc = main(["montecarlo", BOOSTER_ARG, "--trials", "3", "--workers", "1", "--quick",
                "--netlists", "2", "--out", str(tmp_path)])
     assert rc == 0
     rows = list(csv.DictReader((tmp_path / "trials.csv").open()))

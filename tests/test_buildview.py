@@ -7,11 +7,15 @@ import pytest
 pytest.importorskip("PyQt6")
 pytestmark = pytest.mark.gui
 
+from pathlib import Path  # noqa: E402
+
+BOOSTER = Path(__file__).resolve().parent / "build_booster.toml"
+
 
 def test_build_view_sheet_and_yield(qtbot, artifacts):
     from engine.design import load_design
     from gui.buildview import BuildPanel
-    d = load_design("booster")
+    d = load_design(BOOSTER)
     w = BuildPanel(lambda: d.copy())
     qtbot.addWidget(w)
     w.resize(900, 700)
@@ -30,7 +34,7 @@ def test_build_view_sheet_and_yield(qtbot, artifacts):
 def test_workbench_has_build_tab(qtbot, tmp_path):
     from engine.design import load_design
     from gui.app import make_window
-    w = make_window(load_design("booster"), config=tmp_path / "cfg", recover="no")
+    w = make_window(load_design(BOOSTER), config=tmp_path / "cfg", recover="no")
     w.ask = lambda _q: "discard"
     qtbot.addWidget(w)
     names = [w.tabs.tabText(i) for i in range(w.tabs.count())]
