@@ -489,3 +489,19 @@ def test_cli_writes_trial_netlists(tmp_path):
         # the CSV keeps 9 significant digits of the draw
         assert rc_el.value == pytest.approx(10e3 * (1 + float(rows[k]["boost.RC"])), rel=1e-8)
     assert not (tmp_path / "trial-2.cir").exists()
+
+
+def test_release_sweep_follows_the_time_constant_capacitor():
+    """The built-in compressor's release is set by the detector's time-constant
+    capacitor (detector.CT): a first-order recovery's time constant is
+    R * C, so the 63 % release time grows in proportion to C (time-constant
+    convention, Giannoulis et al. 2012, docs/references.md). 22 uF needs a
+    longer tail than the default render: the runner extends it."""
+    from engine.analysis.sweep import SweepJob
+    d = load_design("flagship")
+    grid = make_grid(d, "detector.CT", "4u7,22u")
+    spec = MC.TrialSpec(d, threshold=False, device_spread=False)
+    rr = MC.run_trials(spec, range(len(grid)), workers=1, job=SweepJob(grid))
+    a, b = (r["release"] for r in rr.results)
+    assert math.isfinite(a) and math.isfinite(b)
+    assert b / a == pytest.approx(22 / 4.7, rel=0.05)

@@ -53,6 +53,8 @@ GAIN_LIMIT_DB = 1.0
 METRICS = {"gain_db": "dB", "zin": "Ω", "headroom": "V", "threshold_db": "dBV",
            "gr_ref_db": "dB", "attack": "s", "release": "s"}
 DISTRIBUTIONS = ("uniform", "normal")
+#: Longest tail (s) rendered after the burst to see a slow release.
+MAX_TAIL = 8.0
 #: Devices whose region at rest must match the nominal design's for a trial
 #: to pass: transistors, op-amps and gain cells (diodes switch by design).
 REGION_KINDS = ("Q", "J", "M", "OPAMP", "OTA")
@@ -72,7 +74,11 @@ def burst_timing(sim, fs: float, law: str = "linear", lead: float = 0.15,
         return float("nan"), float("nan"), float("nan")
     gr = cp.gain_reduction_from_control(ctl, rest, law)
     n = max(1, int(0.01 * fs))
-    grs = np.convolve(gr, np.ones(n) / n, mode="same")
+    # 10 ms moving average against the detector's ripple; the ends are
+    # padded with their own values (zero padding would fake a recovery at
+    # the end of the trace)
+    grs = np.convolve(np.pad(gr, (n // 2, n - 1 - n // 2), mode="edge"), np.ones(n) / n,
+                      mode="valid")
     i1 = int(t1 * fs)
     ref = float(np.mean(grs[i1 - int(0.05 * fs):i1 - n]))
     if ref > -0.1:          # no gain reduction at this level: no time constants
@@ -312,8 +318,14 @@ class TrialRunner:
         if self.has_control:
             spec = self.spec
             total = spec.render_seconds
+            tail = 0.5 * total
             a, r, g = burst_timing(sim, spec.fs, self.law, lead=0.15 * total,
-                                   burst=0.35 * total, tail=0.5 * total)
+                                   burst=0.35 * total, tail=tail)
+            # a release longer than the tail: render again with a longer one
+            while not math.isfinite(r) and g < -0.1 and tail < MAX_TAIL:
+                tail *= 4.0
+                a, r, g = burst_timing(sim, spec.fs, self.law, lead=0.15 * total,
+                                       burst=0.35 * total, tail=tail)
             res.update(attack=a, release=r, gr_ref_db=g)
             res["threshold_db"] = (stepped_threshold(sim, spec.fs, self.law)
                                    if spec.threshold else float("nan"))
