@@ -39,7 +39,8 @@ def _fmt(x, unit):
 
 
 def _db(x):
-    return "  -inf" if x is None or x <= -149 else f"{x:6.1f}"
+    from engine.live.meters import fmt_db
+    return fmt_db(x)
 
 
 def meter_line(m: dict) -> str:
@@ -55,6 +56,9 @@ def meter_line(m: dict) -> str:
         parts.append(f"GRm {vi['gr_measured_db']:5.1f} dB")
     if len(m["voices"]) > 1:
         parts.append(f"[{m.get('selected', 'A')}] match {m['loudness_offset_db']:+.1f} LU")
+    bad = [k for k in ("input", "output") if m[k].get("invalid")]
+    if bad:
+        parts.append("INVALID (NaN/inf) " + " and ".join(bad))
     parts.append(f"cpu {100 * m['cpu_load']:3.0f}%")
     if m["xruns"]:
         parts.append(f"xruns {m['xruns']}")
@@ -143,8 +147,10 @@ class Console:
             h.select(cmd.upper())
             self.say(f"hearing {cmd.upper()} (loudness offset {h.loudness_offset_db:+.1f} LU)")
         elif cmd == "level":
-            h.set_level_db(float(rest[0]))
-            self.say(f"output level {float(rest[0]):+.1f} dB")
+            from engine.live.limits import check_level_db
+            db = check_level_db(rest[0])
+            h.set_level_db(db)
+            self.say(f"output level {db:+.1f} dB")
         elif cmd == "meters":
             self.say(meter_line(h.meters()))
         elif cmd == "unmute":

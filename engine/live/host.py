@@ -301,6 +301,15 @@ class LiveHost:
                  level_db: float = 0.0, ceiling_dbfs: float = lim.DEFAULT_CEILING_DBFS,
                  loudness_match: bool = True, simulator_factory: Callable | None = None,
                  autosave: str | os.PathLike | bool | None = None, shared: bool = False):
+        from engine.live.limits import (check_ceiling_dbfs, check_full_scale_v,
+                                        check_level_db, check_rate)
+        fs = check_rate(fs)
+        level_db = check_level_db(level_db)
+        ceiling_dbfs = check_ceiling_dbfs(ceiling_dbfs)
+        if in_full_scale_v is not None:
+            in_full_scale_v = check_full_scale_v(in_full_scale_v, "input")
+        if out_full_scale_v is not None:
+            out_full_scale_v = check_full_scale_v(out_full_scale_v, "output")
         if not 16 <= int(block) <= MAX_BLOCK:
             raise AudioError(f"block size {block} is out of range",
                              hint=f"use 16 to {MAX_BLOCK} samples (64 or more at 48 kHz)")
@@ -478,8 +487,10 @@ class LiveHost:
             vb = self.voices[1] if len(self.voices) > 1 else va
             if self.loudness_match:
                 pa, pb = va.loud.power, vb.loud.power
-                if pa > LOUDNESS_GATE_POWER * self.out_fs_v ** 2 and \
-                        pb > LOUDNESS_GATE_POWER * self.out_fs_v ** 2:
+                gate = LOUDNESS_GATE_POWER * self.out_fs_v ** 2
+                # both finite: an infinite power (a file of inf samples) must
+                # not reach log10 as inf/inf or x/inf (log of zero)
+                if gate < pa < math.inf and gate < pb < math.inf:
                     off = 10.0 * math.log10(pa / pb)
                     off = max(-MAX_MATCH_DB, min(MAX_MATCH_DB, off))
                     self.offset_db = off
@@ -923,8 +934,12 @@ class LiveHost:
         self.prm[lim.P_AB_TARGET] = float(i)
 
     def set_level_db(self, db: float) -> None:
-        """Output level in dB (smoothed on the audio thread)."""
-        self.level_db = float(db)
+        """Output level in dB (smoothed on the audio thread). A non-finite or
+        out-of-range level raises AudioError and the level stays as it was
+        (:func:`engine.live.limits.check_level_db`)."""
+        from engine.live.limits import check_level_db
+        db = check_level_db(db)
+        self.level_db = db
         self.prm[lim.P_LEVEL] = 10.0 ** (db / 20.0) / self.out_fs_v
 
     @property
@@ -995,6 +1010,8 @@ class LiveHost:
         snap["blocks"] = self.blocks
         snap["selected"] = "AB"[self.selected]
         snap["guard"] = self.guard_reason
+        snap["guard_trips"] = int(self.st[lim.S_TRIPS])
+        snap["guard_rearms"] = int(self.st[lim.S_REARMS])
         snap["nonconverged"] = sum(int((getattr(v.sim, "stats", None) or {}).get("nonconverged", 0))
                                    for v in self.voices if v.sim is not None)
         return snap
