@@ -134,7 +134,15 @@ class Console:
             else:
                 r = float(rest[0])
             r = min(1.0, max(0.0, r)) if rest[0] in ("+", "-") else r
-            h.set_rotation(part, r).result(self.timeout)
+            if not 0.0 <= r <= 1.0:
+                raise SolderlessError(f"rotation must be from 0 to 1, not {rest[0]}")
+            fut = h.set_rotation(part, r)
+            if fut.done() and fut.exception() is not None:
+                raise fut.exception()
+            # the ramp runs in the background: the console answers at once,
+            # and a failure is reported when the ramp ends
+            fut.add_done_callback(lambda f, p=part: f.exception() is not None and
+                                  self.say(f"error: {p}: {f.exception()}"))
             self.say(f"{part} rotation {r:.2f}")
         elif cmd == "bypass":
             stage = rest[0]

@@ -13,10 +13,18 @@ Threads
   through the public methods runs here, in order: the design is changed, the
   simulator re-derives its matrices (``set_values``, lands at the next block
   boundary with the circuit state carried over) or, for a topology change, a
-  new simulator is built and swapped in with a short crossfade. Pot moves are
-  ramped over several blocks so they do not click. After each edit the design
-  is written to an autosave file (atomic write and rename), so no edit is lost
-  to a crash or a stream error.
+  new simulator is built and swapped in with a short crossfade. Value edits
+  of one part are coalesced (the latest value wins). An edit the simulator
+  refuses (a singular network) is undone in the design and the previous
+  values keep playing. After an edit, a circuit that had gone NaN or run
+  away is restarted from its operating point (the guard re-arms once the
+  output stays sane). The design is written to an autosave file (atomic
+  write and rename) at most every ``AUTOSAVE_MIN_S`` during a burst, and the
+  last of a burst always, so no edit is lost to a crash or a stream error.
+* **Ramp threads**: a pot turn ramps over several blocks so it does not
+  click; a short-lived thread per turn posts one step at a time to the
+  worker and waits between steps, so neither the caller nor other edits
+  wait for the ramp.
 * **Any other thread** (terminal, GUI): public methods; they post work and
   return a :class:`concurrent.futures.Future`, or read meters.
 
@@ -384,6 +392,14 @@ class LiveHost:
         self._built = False
         self._closing = False
         self._measure_dirty: set[int] = set()
+        self._coalesce: dict = {}
+        self._coalesce_lock = threading.Lock()
+        self._ramp_tokens: dict = {}
+        self._ramps_running: set = set()
+        self._autosave_dirty: set[int] = set()
+        self._autosave_lock = threading.Lock()
+        self._autosave_t = -1e9
+        self._recover_trips = 0
         self._measure_wake = threading.Event()
         self._measurer = threading.Thread(target=self._measure_loop,
                                           name="solderless-measure", daemon=True)
@@ -672,8 +688,16 @@ class LiveHost:
         return fut
 
     def flush(self, timeout: float = 30.0) -> None:
-        """Wait until every posted edit has run."""
-        self._post(lambda: None).result(timeout)
+        """Wait until every posted edit (and pot ramp) has run, and write the
+        autosaves still pending."""
+        t_end = time.perf_counter() + timeout
+        for f in list(self._ramps_running):
+            try:
+                f.result(max(0.1, t_end - time.perf_counter()))
+            except Exception:
+                pass
+        self._post(lambda: None).result(max(0.1, t_end - time.perf_counter()))
+        self._autosave_pending(force=True)
 
     def _wait_blocks(self, k: int = 1, timeout: float = 0.25) -> None:
         """Wait (worker) until ``k`` more blocks have been processed, so a ramp
@@ -700,19 +724,90 @@ class LiveHost:
 
     def _after_edit(self, vi: int) -> None:
         self.edits += 1
-        self._autosave(vi)
+        self._autosave_dirty.add(vi)
+        self._autosave_pending()
         self._measure_dirty.add(vi)
         self._measure_wake.set()
+        self._recover_if_muted()
+
+    AUTOSAVE_MIN_S = 0.25
+    """Autosaves are written at most this often during a burst of edits (the
+    last one of the burst is written by the measuring thread or by
+    :meth:`flush`); each write holds the GIL for a while."""
+
+    def _autosave_pending(self, force: bool = False) -> None:
+        """Write the autosaves of edited voices, unless one was written less
+        than ``AUTOSAVE_MIN_S`` ago (``force``: write now). Worker thread,
+        measuring thread or :meth:`flush`."""
+        with self._autosave_lock:
+            now = time.perf_counter()
+            if not self._autosave_dirty or (not force and
+                                            now - self._autosave_t < self.AUTOSAVE_MIN_S):
+                return
+            dirty, self._autosave_dirty = self._autosave_dirty, set()
+            self._autosave_t = now
+            for vi in sorted(dirty):
+                self._autosave(vi)
+
+    def _recover_if_muted(self) -> None:
+        """Worker thread, after an edit (and after a guard trip, see
+        :meth:`_measure_loop`): if the guard muted because the circuit went
+        NaN or ran away, rebuild each voice whose output is not sane from its
+        DC operating point at the current values and swap it in. The output
+        stage re-arms once the output has stayed sane for
+        ``limiter.REARM_S`` and ramps up from silence. A rebuild that fails
+        (no operating point) leaves the mute on and says why."""
+        if int(self.st[lim.S_GUARD]) not in (1, 2, 5) or not self._built:
+            return
+        self._recover_trips = int(self.st[lim.S_TRIPS])
+        for v in self.voices:
+            y = v.y[:self.block]
+            if np.all(np.isfinite(y)) and float(np.max(np.abs(y))) <= lim.RUNAWAY_V \
+                    and v.incoming is None:
+                continue
+            try:
+                sim = v.build()
+                v.warm(sim)
+            except SolderlessError as exc:
+                self.messages.put(f"{v.label}: output stays muted; the circuit has no "
+                                  f"operating point at these values ({exc})")
+                continue
+            if v.sim is None:
+                v.sim = sim
+                continue
+            self._wait_xfade(v)
+            v.xpos = 0.0
+            v.incoming = sim
+            self._wait_xfade(v)
+        self.messages.put("the circuit was restarted from its operating point; the "
+                          "output comes back (ramping up) once it stays sane")
+
+    def _wait_xfade(self, v: Voice) -> None:
+        """Wait (worker) until a swap in progress on ``v`` has finished."""
+        if v.incoming is None:
+            return
+        self._wait_blocks(int(lim.XFADE_S * self.fs / self.block) + 2, timeout=1.0)
+        if v.incoming is not None and time.perf_counter() - self._last_block_t > IDLE_S:
+            v.sim, v.incoming = v.incoming, None    # nothing is playing: swap now
 
     def _measure_loop(self) -> None:
         """Re-measure small-signal gain and quiescent control after edits, on
         its own thread so the edit queue never waits for it (debounced)."""
         while True:
-            self._measure_wake.wait()
+            woke = self._measure_wake.wait(0.5)
             if self._closing:
                 return
+            if not woke:
+                # a guard trip with no edit: try one restart per trip
+                if int(self.st[lim.S_GUARD]) in (1, 2, 5) and \
+                        int(self.st[lim.S_TRIPS]) != self._recover_trips and self._built:
+                    self._recover_trips = int(self.st[lim.S_TRIPS])
+                    self._post(self._recover_if_muted)
+                self._autosave_pending()
+                continue
             time.sleep(0.2)                 # let a burst of edits finish
             self._measure_wake.clear()
+            self._autosave_pending(force=True)
             dirty, self._measure_dirty = self._measure_dirty, set()
             for vi in sorted(dirty):
                 try:
@@ -758,23 +853,94 @@ class LiveHost:
         return i, self.voices[i]
 
     # ------------------------------------------------------------ edits (any thread)
-    def _post_part_edit(self, voice, edit) -> Future:
+    def _post_part_edit(self, voice, edit, part: str | None = None) -> Future:
         """Post an edit: ``edit(voice)`` (on the edit worker) changes the
         voice's design and returns (element changes, result); the changes
-        land at a block boundary with the state carried over."""
+        land at a block boundary with the state carried over. If the
+        simulator refuses the new values (a singular network), the part is
+        put back as it was, the previous values keep playing, and the error
+        names the part."""
         t_post = time.perf_counter()
 
         def job():
             i, v = self._voice(voice)
-            changes, result = edit(v)
-            self._apply(v, changes, t_post)
-            self._after_edit(i)
-            return result
+            return self._edit_part(i, v, edit, part, t_post)
         return self._post(job)
 
+    def _edit_part(self, i: int, v: Voice, edit, part: str | None, t_post) -> Any:
+        """Worker: run one part edit with the revert described above."""
+        before = self._part_state(v, part)
+        changes, result = edit(v)
+        try:
+            self._apply(v, changes, t_post)
+        except SolderlessError as exc:
+            self._restore_part(v, part, before)
+            raise DesignError(f"this value makes the circuit unsolvable ({exc.message}); "
+                              "the previous value keeps playing", part=part or exc.part,
+                              hint="choose another value") from None
+        self._after_edit(i)
+        return result
+
+    @staticmethod
+    def _part_state(v: Voice, part: str | None):
+        if part is None:
+            return None
+        for p in v.design.parts():
+            if p.qualname == part:
+                return (p.value, p.rotation if p.is_pot else None,
+                        getattr(p, "taper", None) if p.is_pot else None)
+        return None
+
+    @staticmethod
+    def _restore_part(v: Voice, part: str | None, before) -> None:
+        if before is None:
+            return
+        value, rotation, taper = before
+        if taper is not None and hasattr(v.design, "set_taper"):
+            v.design.set_taper(part, taper)
+        if value is not None:
+            v.design.set_value(part, value)
+        if rotation is not None:
+            v.design.set_rotation(part, rotation)
+
     def set_value(self, part: str, value: float, voice=None) -> Future:
-        """Change a part's value (re-derive, lands at a block boundary)."""
-        return self._post_part_edit(voice, lambda v: (v.design.set_value(part, value), value))
+        """Change a part's value (re-derive, lands at a block boundary).
+
+        Coalesced: while an edit of the same part waits in the queue, a new
+        value replaces it (the latest value wins, one re-derivation), and
+        every caller's future gets the value that landed."""
+        key = (self.edit_voice if voice is None else voice, part)
+        fut: Future = Future()
+        with self._coalesce_lock:
+            ent = self._coalesce.get(key)
+            if ent is not None:
+                ent[0] = value
+                ent[1].append(fut)
+                return fut
+            ent = [value, [fut]]
+            self._coalesce[key] = ent
+        t_post = time.perf_counter()
+
+        def job():
+            with self._coalesce_lock:
+                if self._coalesce.get(key) is ent:
+                    del self._coalesce[key]
+                val, futs = ent[0], list(ent[1])
+            try:
+                i, v = self._voice(voice)
+                r = self._edit_part(i, v, lambda v: (v.design.set_value(part, val), val),
+                                    part, t_post)
+            except BaseException as exc:
+                for f in futs:
+                    if not f.done():
+                        f.set_exception(exc)
+                return None
+            for f in futs:
+                if not f.done():
+                    f.set_result(r)
+            return r
+        self._post(job)
+        return fut
 
     def step_value(self, part: str, steps: int = 1, series: str | None = None,
                    voice=None) -> Future:
@@ -789,65 +955,98 @@ class LiveHost:
             ser = series or ("E12" if info.type == "capacitor" else "E24")
             new = step_preferred(info.value, ser, steps)
             return v.design.set_value(part, new), new
-        return self._post_part_edit(voice, edit)
+        return self._post_part_edit(voice, edit, part)
 
     def set_rotation(self, pot: str, rotation: float, voice=None,
                      ramp_s: float = 0.030) -> Future:
         """Turn a pot to ``rotation`` (0..1), ramping over ``ramp_s`` seconds
-        in block-sized steps so the move does not click."""
-        t_post = time.perf_counter()
+        in block-sized steps so the move does not click.
 
-        def job():
+        The ramp runs in the background: this returns at once, each step is
+        a short job on the edit worker (other edits interleave), and a newer
+        turn of the same pot takes over from wherever the ramp has got to.
+        The future's result is the rotation reached."""
+        fut: Future = Future()
+        try:
             i, v = self._voice(voice)
             info = self.part_info(pot, voice)
             if not info.is_pot:
                 raise DesignError("only a pot can be turned", part=pot,
                                   hint="use 'value' or 'up'/'down' for other parts")
-            r0 = float(info.rotation if info.rotation is not None else 0.5)
             r1 = float(rotation)
             if not 0.0 <= r1 <= 1.0:
                 raise DesignError(f"rotation must be from 0 to 1, not {rotation}", part=pot)
-            self._ramp_pot(v, pot, r0, r1, ramp_s, t_post)
-            self._after_edit(i)
-            return r1
-        return self._post(job)
+        except SolderlessError as exc:
+            fut.set_exception(exc)
+            return fut
+        key = (i, pot)
+        token = object()
+        self._ramp_tokens[key] = token
+        t_post = time.perf_counter()
+        self._ramps_running.add(fut)
 
-    def _ramp_pot(self, v: Voice, pot: str, r0: float, r1: float, ramp_s: float,
-                  t_post: float | None = None) -> None:
-        """Move a pot from ``r0`` to ``r1`` one block at a time (worker thread).
+        def run():
+            try:
+                fut.set_result(self._ramp_pot_bg(v, i, pot, r1, ramp_s, t_post,
+                                                 lambda: self._ramp_tokens.get(key) is token))
+            except BaseException as exc:
+                fut.set_exception(exc)
+            finally:
+                self._ramps_running.discard(fut)
+        threading.Thread(target=run, name="solderless-ramp", daemon=True).start()
+        return fut
 
-        Each step changes every element of the pot by at most ``MAX_POT_REL``
-        of the pot's total and the rotation by at most ``MAX_POT_STEP``; the steps are
-        spread over at least ``ramp_s`` seconds. The step is found by halving
-        (a taper can be steep near an end)."""
+    def _ramp_pot_bg(self, v: Voice, i: int, pot: str, r1: float, ramp_s: float,
+                     t_post: float, current: Callable[[], bool]) -> float:
+        """Ramp thread: post one step at a time to the worker, wait two
+        blocks between steps (a step handed over while a block runs may
+        miss it; the next one surely uses it), stop early when a newer
+        turn of the pot took over. Returns the rotation reached."""
+        def rot():
+            r = self.part_info(pot, "AB"[i]).rotation
+            return float(r if r is not None else 0.5)
+        r0 = self._post(rot).result(30)
         min_steps = max(1, int(math.ceil(ramp_s * self.fs / self.block)))
         max_dr = min(MAX_POT_STEP, abs(r1 - r0) / min_steps) if r1 != r0 else 0.0
-        prev = v.design.set_rotation(pot, r0)
         r = r0
-        for _ in range(MAX_RAMP_STEPS):
-            if r == r1:
+        for k in range(MAX_RAMP_STEPS + 1):
+            if r == r1 or not current():
                 break
-            dr = min(max_dr, abs(r1 - r))
-            while True:
-                rn = r1 if dr >= abs(r1 - r) else r + math.copysign(dr, r1 - r)
-                ch = v.design.set_rotation(pot, rn)
-                total = sum(abs(x) for x in ch.values()) or 1.0
-                worst = max((abs(ch[k] - prev[k]) / total for k in ch if k in prev),
-                            default=0.0)
-                if worst <= MAX_POT_REL or dr < 1e-6:
-                    break
-                dr *= 0.5
-            self._apply(v, ch, t_post)
-            t_post = None
-            prev, r = ch, rn
+            last = k == MAX_RAMP_STEPS      # step budget spent: land on the target
+            r = self._post(lambda tp=(t_post if k == 0 else None), last=last:
+                           self._ramp_step(v, pot, r1, max_dr, tp, last)).result(30)
             if r != r1:
-                # two blocks: the block running when this step was handed
-                # over may have started before it; the next one surely uses
-                # it. Waiting only one lets a late step replace this one
-                # unheard, doubling the step that reaches the output.
                 self._wait_blocks(2)
-        if r != r1:                     # step budget spent: land on the target
-            self._apply(v, v.design.set_rotation(pot, r1))
+        self._post(lambda: self._after_edit(i)).result(30)
+        return r
+
+    def _ramp_step(self, v: Voice, pot: str, r1: float, max_dr: float,
+                   t_post: float | None, last: bool) -> float:
+        """Worker: one step of a pot ramp from the pot's present rotation
+        towards ``r1`` (each element moves by at most ``MAX_POT_REL`` of the
+        pot's total, found by halving the step). Returns the new rotation."""
+        info = self.part_info(pot, v.label)
+        r = float(info.rotation if info.rotation is not None else 0.5)
+        prev = v.design.set_rotation(pot, r)
+        if last:
+            self._apply(v, v.design.set_rotation(pot, r1), t_post)
+            return r1
+        dr = min(max_dr, abs(r1 - r)) if max_dr > 0 else abs(r1 - r)
+        while True:
+            rn = r1 if dr >= abs(r1 - r) else r + math.copysign(dr, r1 - r)
+            ch = v.design.set_rotation(pot, rn)
+            total = sum(abs(x) for x in ch.values()) or 1.0
+            worst = max((abs(ch[k] - prev[k]) / total for k in ch if k in prev),
+                        default=0.0)
+            if worst <= MAX_POT_REL or dr < 1e-6:
+                break
+            dr *= 0.5
+        try:
+            self._apply(v, ch, t_post)
+        except SolderlessError:
+            v.design.set_rotation(pot, r)
+            raise
+        return rn
 
     def set_taper(self, pot: str, taper, voice=None) -> Future:
         """Change a pot's taper ("linear", "audio", "reverse-audio" or a table
@@ -857,7 +1056,7 @@ class LiveHost:
         def edit(v):
             changes = v.design.set_taper(pot, taper)
             return changes, v.design.part(pot).taper
-        return self._post_part_edit(voice, edit)
+        return self._post_part_edit(voice, edit, pot)
 
     def set_bypass(self, stage: str, on: bool, voice=None) -> Future:
         """Bypass a stage (or bring it back): rebuild the simulator and swap it

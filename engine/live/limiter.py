@@ -105,7 +105,17 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
     Returns the deepest limiter gain in the block (linear, <= 1).
     """
     ceiling = p[P_CEILING]
-    bad_ceiling = not (ceiling > 0.0 and ceiling <= 1.0)
+    if not (ceiling > 0.0 and ceiling <= 1.0):
+        # a corrupted ceiling: nothing can be trusted to the device
+        if st[S_GUARD] != 5.0:
+            st[S_TRIPS] += 1.0
+        st[S_GUARD] = 5.0
+        st[S_SANE] = 0.0
+        st[S_LEVEL] = 0.0
+        for i in range(n):
+            mixv[i] = 0.0
+            out[i] = 0.0
+        return 0.0
     gmin = 1.0
     for i in range(n):
         a = ya[i]
@@ -121,7 +131,7 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
             # muted by the circuit (or a bad sample): re-arm once it is sane
             if sane:
                 st[S_SANE] += 1.0
-                if st[S_SANE] >= p[P_REARM] and not bad_ceiling:
+                if st[S_SANE] >= p[P_REARM]:
                     st[S_GUARD] = 0.0
                     st[S_SANE] = 0.0
                     st[S_LEVEL] = 0.0       # ramp up again from silence
@@ -179,7 +189,7 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
         elif o < -ceiling:
             o = -ceiling
         # device guard: nothing non-finite or beyond the ceiling leaves here
-        if bad_ceiling or not (abs(o) <= ceiling):
+        if not (abs(o) <= ceiling):
             st[S_GUARD] = 5.0
             st[S_TRIPS] += 1.0
             st[S_SANE] = 0.0
@@ -196,10 +206,14 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
 @numba.njit(nogil=True, cache=True)
 def crossfade_into(y_old, y_new, n, pos, step):  # pragma: no cover - compiled
     """Linear fade from ``y_old`` to ``y_new`` written into ``y_new``; returns
-    the new position (1.0 when done). Used to swap a rebuilt circuit in."""
+    the new position (1.0 when done). Used to swap a rebuilt circuit in.
+    A non-finite old sample is left out (the new circuit alone), so a rebuilt
+    circuit can replace one that went NaN without carrying the NaN over."""
     for i in range(n):
         pos = min(1.0, pos + step)
-        y_new[i] = (1.0 - pos) * y_old[i] + pos * y_new[i]
+        o = y_old[i]
+        if np.isfinite(o):
+            y_new[i] = (1.0 - pos) * o + pos * y_new[i]
     return pos
 
 

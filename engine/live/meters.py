@@ -408,8 +408,10 @@ class MeterReader:
             "output": {
                 "peak_v": self.out.peak, "rms_v": self.out.rms,
                 "rms_dbu": vrms_to_dbu(self.out.rms),
-                "peak_dbfs": to_db(self.dac.peak),
-                "rms_dbfs": to_db(self.dac.rms * s2),
+                # NaN while the circuit's output is invalid, even though the
+                # device then gets silence from the guard: never a quiet floor
+                "peak_dbfs": math.nan if self.out.invalid else to_db(self.dac.peak),
+                "rms_dbfs": math.nan if self.out.invalid else to_db(self.dac.rms * s2),
                 "limiter_gr_db": 0.0 if f is None else float(f[C_LIMIT_GR]),
                 "limiter_gr_db_max": self.limit_gr_min,
                 "invalid": self.out.invalid or self.out_a.invalid or self.out_b.invalid
