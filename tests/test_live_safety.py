@@ -332,3 +332,142 @@ def test_guard_re_arms_after_a_runaway_edit_is_undone():
     tail = buf[-BLOCK * 50:, 0]
     assert np.max(np.abs(tail)) > 0.05                     # playing again
     assert np.all(np.isfinite(buf)) and np.max(np.abs(buf)) <= 10 ** (-6 / 20) + 1e-7
+
+
+# ------------------------------------------------------------ a paced run with an edit storm
+STORM = r"""
+import json, sys, time, warnings
+import numpy as np
+from engine.design import load_design
+from engine.errors import SolderlessError
+from engine.live.host import LiveHost
+from engine.live.console import Console
+from engine.live.source import ToneSource
+
+h = LiveHost(load_design("booster"), source=ToneSource(440.0, 0.1), block=128,
+             autosave=sys.argv[1])
+h.enable_tap(60.0)
+h.start_paced()
+said = []
+con = Console(h, say=said.append, timeout=30)
+
+def wait_for(cond, seconds):
+    t = time.time()
+    while not cond() and time.time() - t < seconds:
+        time.sleep(0.01)
+    return cond()
+
+wait_for(lambda: h.blocks > 200, 30)
+rng = np.random.default_rng(17)
+futs = []
+for k in range(400):                      # the storm: no waiting between edits
+    futs.append(h.set_value("boost.RC", float(rng.uniform(4.7e3, 22e3))))
+    futs.append(h.set_value("boost.RE1", float(rng.uniform(220.0, 1e3))))
+    if k % 50 == 0:
+        con.handle("meters")
+for f in futs:
+    f.result(60)
+# a value that makes the network singular: refused, the old one keeps playing
+refused, c1 = None, h.part_info("boost.C1").value
+for k in range(1, 40):
+    try:
+        c1 = h.set_value("boost.C1", 1e-7 * 10.0 ** k).result(60)
+    except SolderlessError as exc:
+        refused = str(exc)
+        break
+c1_after = h.part_info("boost.C1").value
+c1_sim = h.voices[0].sim.values["boost.C1"]
+h.set_value("boost.C1", 1e-7).result(60)
+# a 1 MV supply and its undo: the guard mutes, then re-arms by itself
+h.set_value("VCC", 1e6).result(60)
+tripped = wait_for(lambda: h.guard_reason != "", 20)
+h.set_value("VCC", 9.0).result(60)
+rearmed = wait_for(lambda: h.guard_reason == "", 30)
+# a pot turn runs in the background: the console answers meanwhile
+# (0.7 -> 0.1 at most 0.005 of travel per two blocks: 240 blocks of ramp)
+con.handle("pick level.LEVEL")
+con.handle("turn 0.1")
+con.handle("meters")
+meters_line = said[-1]
+rot_at_meters = h.part_info("level.LEVEL").rotation
+con.handle("turn 0.2")                    # takes over from wherever the ramp got to
+time.sleep(0.2)
+h.flush()
+h.flush()
+wait_for(lambda: h.guard_reason == "", 10)
+time.sleep(0.3)
+h.stop()
+m = h.meters()
+y = h.tapped()
+print(json.dumps({
+    "n": int(y.size), "finite": bool(np.all(np.isfinite(y))),
+    "peak": float(np.max(np.abs(y))), "tail_peak": float(np.max(np.abs(y[-4800:]))),
+    "refused": refused, "c1": c1, "c1_after": c1_after, "c1_sim": c1_sim,
+    "tripped": tripped, "rearmed": rearmed, "guard": h.guard_reason,
+    "trips": m["guard_trips"], "rearms": m["guard_rearms"], "rot_at_meters": rot_at_meters,
+    "meters_line": meters_line, "rot": h.part_info("level.LEVEL").rotation,
+    "rc": h.part_info("boost.RC").value, "last_rc": futs[-2].result(),
+    "sim_rc": h.voices[0].sim.values["boost.RC"],
+    "xruns": h.xruns, "error": repr(h.error), "said": said[-5:]}))
+h.close()
+"""
+
+
+def test_paced_edit_storm_stays_safe_and_recovers(tmp_path):
+    # Hundreds of value edits without waiting, a singular-making edit, a
+    # 1 MV supply and its undo, and a pot turn during a slow ramp, all while
+    # the booster plays paced at real time. Every sample for the device is
+    # finite and within the -6 dBFS ceiling; the guard trips on the supply
+    # and re-arms after the undo; the console answers 'meters' while a ramp
+    # runs; nothing (no RuntimeWarning) reaches stderr.
+    import json
+    import os
+    import subprocess
+    import sys
+    from pathlib import Path
+    root = Path(__file__).resolve().parent.parent
+    env = dict(os.environ, PYTHONPATH=str(root), XDG_CONFIG_HOME=str(tmp_path / "cfg"))
+    r = subprocess.run([sys.executable, "-c", STORM, str(tmp_path / "auto.toml")],
+                       cwd=root, env=env, capture_output=True, text=True, timeout=900)
+    assert r.returncode == 0, r.stderr[-3000:]
+    assert r.stderr.strip() == "", r.stderr[-3000:]
+    out = json.loads(r.stdout.strip().splitlines()[-1])
+    assert out["error"] == "None"
+    assert out["n"] > 48000 and out["finite"]
+    assert out["peak"] <= 10 ** (-6 / 20) + 1e-7
+    assert out["refused"] and "boost.C1" in out["refused"]
+    assert out["c1_after"] == out["c1"] == out["c1_sim"]  # the last accepted value plays
+    assert out["tripped"] and out["rearmed"] and out["guard"] == ""
+    assert out["trips"] >= 1 and out["rearms"] >= 1
+    assert out["tail_peak"] > 1e-3                      # sound is back
+    assert 0.1 < out["rot_at_meters"] <= 0.7            # answered before the ramp ended
+    assert out["meters_line"].startswith("in ")
+    assert out["rot"] == pytest.approx(0.2)             # the later turn won
+    assert out["rc"] == out["last_rc"] == out["sim_rc"]  # latest value landed
+    assert (tmp_path / "auto.toml").exists()
+
+
+@given(st.one_of(st.floats(allow_nan=True, allow_infinity=True),
+                 st.sampled_from([1e305, -1e305, 1e300, 5e-324])))
+def test_runaway_readings_raise_no_warning(cur):
+    # A runaway control current (a 1 MV supply) read by the meters: readings
+    # become inf/NaN quietly; no numpy RuntimeWarning reaches stderr.
+    import warnings
+    from engine.live.ring import FrameRing
+    ring = FrameRing(64, M.C_PROBES + 1)
+    r = M.MeterReader(ring, FS, BLOCK, 1.0, 1.0, ["iabc(x)"])
+    r.control_a = (0, 20e-6)
+    r.small_signal_gain_db[0] = 6.0
+    row = ring.next_row()
+    row[:] = 0.0
+    # the columns the audio thread fills from the circuit (peaks and powers
+    # are magnitudes); block count, xruns and guard are always counts
+    for c in (M.C_IN_PEAK, M.C_IN_MS, M.C_OUT_PEAK, M.C_OUT_MS, M.C_OUT_PEAK_A,
+              M.C_OUT_MS_A, M.C_LOUD_A):
+        row[c] = abs(cur)
+    row[M.C_PROBES] = cur
+    ring.commit()
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        snap = r.poll()
+        meter_line(snap)

@@ -164,6 +164,19 @@ def measure_small_signal(design, fs: float, oversample: int, block: int,
         sim = factory(circuit, fs, oversample, probes)
     except SolderlessError as exc:
         return None, None, str(exc)
+    # A runaway circuit (a 1 MV supply) overflows the sums below; the result
+    # is checked for finiteness instead of numpy printing a RuntimeWarning.
+    with np.errstate(over="ignore", invalid="ignore"):
+        gain_db, q = _measure(sim, fs, block, oversample, probes)
+    if gain_db is not None and not math.isfinite(gain_db):
+        return None, None, "the output is not finite at these values"
+    if q is not None and not math.isfinite(q):
+        q = None
+    return gain_db, q, None
+
+
+def _measure(sim, fs, block, oversample, probes):
+    """The loops of :func:`measure_small_signal`."""
     n = block
     x = np.zeros(n)
     y = np.zeros(n)
@@ -184,8 +197,9 @@ def measure_small_signal(design, fs: float, oversample: int, block: int,
         if b >= nt // 2:
             acc_in += float(np.dot(x, x))
             acc_out += float(np.dot(y, y))
-    gain_db = 10 * math.log10(acc_out / acc_in) if acc_out > 0 and acc_in > 0 else None
-    return gain_db, (float(np.mean(ctl)) if ctl else None), None
+    gain_db = 10 * math.log10(acc_out / acc_in) if acc_out > 0 and acc_in > 0 and \
+        math.isfinite(acc_out) else None
+    return gain_db, (float(np.mean(ctl)) if ctl else None)
 
 
 def scope_tail(ring: FrameRing, n: int) -> tuple[np.ndarray, np.ndarray]:

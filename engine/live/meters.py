@@ -249,7 +249,7 @@ class _Ballistics:
         """Windowed RMS (linear); NaN while :attr:`invalid`."""
         if self.invalid:
             return math.nan
-        return math.sqrt(sum(self.msq) / len(self.msq)) if self.msq else 0.0
+        return math.sqrt(max(0.0, sum(self.msq) / len(self.msq))) if self.msq else 0.0
 
     @property
     def peak(self) -> float:
@@ -257,7 +257,12 @@ class _Ballistics:
         :attr:`invalid`."""
         if self.invalid:
             return math.nan
-        return 10.0 ** (self.hold_db / 20.0) if self.hold_db > FLOOR_DB else 0.0
+        if self.hold_db <= FLOOR_DB:
+            return 0.0
+        try:
+            return 10.0 ** (self.hold_db / 20.0)
+        except OverflowError:       # a peak within a hair of the float maximum
+            return math.inf
 
 
 class MeterReader:
@@ -317,6 +322,10 @@ class MeterReader:
         frames, self.since, lost = self.ring.read_new(self.since)
         self.lost += lost
         for f in frames:
+            # Python floats: arithmetic on a runaway reading (1e300 A of
+            # control current times 1e6) gives inf quietly instead of a numpy
+            # overflow RuntimeWarning on stderr
+            f = f.tolist()
             self.frames_seen += 1
             self.inp.feed(f[C_IN_PEAK], f[C_IN_MS], self.dt)
             self.out.feed(f[C_OUT_PEAK], f[C_OUT_MS], self.dt)
