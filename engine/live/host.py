@@ -46,6 +46,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from engine.autosave import Autosaves, config_dir  # noqa: F401  one folder for every front end
 from engine.errors import AudioError, DesignError, SolderlessError
 from engine.live import limiter as lim
 from engine.live import meters as M
@@ -77,13 +78,6 @@ IDLE_S = 0.1
 def full_scale_peak_from_dbu(dbu: float) -> float:
     """Peak volts of a full-scale sine whose RMS is ``dbu`` dBu."""
     return M.dbu_to_vrms(dbu) * math.sqrt(2.0)
-
-
-def config_dir() -> Path:
-    """The user's config folder for Solderless (``$XDG_CONFIG_HOME`` or
-    ``~/.config``, then ``solderless``)."""
-    base = os.environ.get("XDG_CONFIG_HOME") or os.path.join(os.path.expanduser("~"), ".config")
-    return Path(base) / "solderless"
 
 
 CAUTION = ("Caution: a circuit can oscillate or jump in level; keep the monitor "
@@ -395,7 +389,8 @@ class LiveHost:
         elif autosave:
             self.autosave_path = Path(autosave)
         else:
-            self.autosave_path = config_dir() / "autosave" / f"{_stem(design)}.toml"
+            self.autosave_path = config_dir() / "autosave"
+        self._store = Autosaves(config_dir(), "console")
         self.meter = M.MeterReader(self.ring, self.fs, self.block, self.in_fs_v, self.out_fs_v,
                                    self.voices[0].probes,
                                    self.voices[1].probes if len(self.voices) > 1 else ())
@@ -829,18 +824,22 @@ class LiveHost:
                 except Exception as exc:  # a measurement must never stop playing
                     self.messages.put(f"could not re-measure the small-signal gain: {exc}")
 
+    def _autosave_key(self, vi: int) -> tuple[str, str]:
+        d = self.voices[vi].design
+        stem = _stem(d) + ("-B" if vi == 1 else "")
+        return Autosaves.key(getattr(d, "path", None), stem) + ("B" if vi == 1 else ""), stem
+
     def _autosave_target(self, vi: int) -> Path | None:
         """Autosave file of voice ``vi``: the given path for A (with ``-B``
-        added for B), or ``config_dir()/autosave/<design>.toml``."""
+        added for B), or this session's console autosave in
+        ``config_dir()/autosave`` (:mod:`engine.autosave`)."""
         if self.autosave_path is None:
             return None
         if not self._autosave_default:
             p = self.autosave_path
             return p if vi == 0 else p.with_name(p.stem + "-B" + p.suffix)
-        stem = _stem(self.voices[vi].design)
-        if vi == 1 and stem == _stem(self.voices[0].design):
-            stem += "-B"
-        return self.autosave_path.parent / f"{stem}.toml"
+        key, stem = self._autosave_key(vi)
+        return self._store.path_for(key, stem)
 
     def autosave_paths(self) -> list[str]:
         """Where each voice's edits are autosaved (empty if autosave is off)."""
@@ -853,9 +852,14 @@ class LiveHost:
             return
         d = self.voices[vi].design
         try:
-            from engine.design import atomic_write_text
-            path.parent.mkdir(parents=True, exist_ok=True)
-            atomic_write_text(path, d.to_toml())
+            if self._autosave_default:
+                key, stem = self._autosave_key(vi)
+                self._store.write(d.to_toml(), key=key, name=stem,
+                                  origin=getattr(d, "path", None))
+            else:
+                from engine.design import atomic_write_text
+                path.parent.mkdir(parents=True, exist_ok=True)
+                atomic_write_text(path, d.to_toml())
         except (SolderlessError, OSError) as exc:
             self.messages.put(f"autosave of {self.voices[vi].label} failed ({exc}); "
                               "save with 'save PATH'")
@@ -1099,7 +1103,14 @@ class LiveHost:
 
     def save(self, path: str | os.PathLike | None = None, voice=None) -> Future:
         """Save a design atomically (to its own file unless ``path`` is given).
-        Result: the path written."""
+        Result: the path written. Pot ramps still running finish first, so
+        a turn typed before 'save' is saved at its target."""
+        for f in list(self._ramps_running):
+            try:
+                f.result(30)
+            except Exception:
+                pass
+
         def job():
             i, v = self._voice(voice)
             target = path or getattr(v.design, "path", None)
