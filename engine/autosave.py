@@ -111,6 +111,9 @@ class Autosaves:
         self.folder.mkdir(parents=True, exist_ok=True)
         target = self.path_for(key, name)
         atomic_write_text(target, text)
+        for p in self._mine(key):       # the design was renamed: one file per design
+            if p != target:
+                self.remove(p)
         meta = {"front_end": self.front_end,
                 "origin": str(Path(origin).resolve()) if origin else None,
                 "name": str(name), "time": time.time(), "pid": self.pid,
@@ -118,10 +121,17 @@ class Autosaves:
         atomic_write_text(target.with_suffix(".json"), json.dumps(meta))
         return target
 
-    def clear(self, key: str, name: str) -> None:
+    def _mine(self, key: str) -> list[Path]:
+        """This session's files for ``key``, whatever name they were written under."""
+        if not self.folder.is_dir():
+            return []
+        return [p for p in self.folder.glob(f"{self.front_end}-*-{key}-{self.session}.toml")]
+
+    def clear(self, key: str, name: str | None = None) -> None:
         """Remove this session's autosave of a design (after a save, or a
-        clean exit)."""
-        self.remove(self.path_for(key, name))
+        clean exit), also one written before the design was renamed."""
+        for p in self._mine(key):
+            self.remove(p)
 
     @staticmethod
     def remove(path: Path) -> None:

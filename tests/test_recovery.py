@@ -94,6 +94,16 @@ def test_a_running_process_keeps_its_autosaves(tmp_path, design_file):
     assert len(Autosaves(tmp_path, "workbench").pending()) == 1
 
 
+def test_a_renamed_design_keeps_one_autosave_and_a_save_clears_it(tmp_path):
+    a = Autosaves(tmp_path, "workbench")
+    a.write("x = 1", key="k", name="old name")
+    a.write("x = 2", key="k", name="new name")
+    files = list(a.folder.glob("*.toml"))
+    assert len(files) == 1 and files[0].read_text() == "x = 2"
+    a.clear("k", "new name")
+    assert list(a.folder.iterdir()) == []
+
+
 def test_discard_sets_aside_and_is_not_offered_again(tmp_path):
     old = Autosaves(tmp_path, "workbench")
     f = old.write("x = 1", key="k", name="d")
