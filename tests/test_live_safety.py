@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from engine.errors import AudioError, SolderlessError
@@ -267,6 +267,40 @@ def test_a_wav_of_inf_samples_plays_on_and_the_meters_stay_honest(tmp_path):
     assert np.all(np.isfinite(buf)) and np.max(np.abs(buf)) <= 10 ** (-6 / 20) + 1e-7
     assert "NaN/inf samples set to 0" in h.source.label
     assert math.isfinite(m["input"]["peak_dbfs"])
+
+
+class _FixedLoudness:
+    """Stands in for a voice's running loudness meter with a given power."""
+
+    def __init__(self, power):
+        self.power = power
+
+    def process(self, y):
+        pass
+
+
+@given(any_number, any_number)
+@example(1.0, math.inf)          # A finite, B overflowed: A/B = 0, log10(0)
+@example(math.inf, math.inf)
+@settings(max_examples=60, deadline=None)
+def test_loudness_match_survives_any_powers(pa, pb):
+    # Whatever the two voices' loudness powers are (a file of inf samples
+    # makes them inf or NaN), the A/B loudness match neither ends the session
+    # nor puts a non-finite gain in; the device gets finite samples.
+    d, e = StandInDesign(), StandInDesign("b")
+    h = Recording(d, variant=e, simulator_factory=StandInSimulator, autosave=False,
+                  block=BLOCK, source=ToneSource(1000.0, 0.1), record_blocks=10)
+    try:
+        h.prepare()
+        h.voices[0].loud = _FixedLoudness(pa)
+        h.voices[1].loud = _FixedLoudness(pb)
+        buf = h.drive(10)
+    finally:
+        h.close()
+    assert h.error is None
+    assert math.isfinite(h.prm[lim.P_GA]) and math.isfinite(h.prm[lim.P_GB])
+    assert math.isfinite(h.offset_db)
+    assert np.all(np.isfinite(buf)) and np.max(np.abs(buf)) <= 10 ** (-6 / 20) + 1e-7
 
 
 # ------------------------------------------------------------ edits under load
