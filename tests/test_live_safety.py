@@ -4,10 +4,11 @@ the console; the samples handed to the device are always finite and at most
 the ceiling; meters never show NaN as silence; edits that would break the
 circuit are refused; the guard re-arms once the circuit is sane.
 
-The expectations are the safety rules themselves (DESIGN.md "Real-time
-rules": limiter ceiling, NaN/instability guard that mutes, start ramp) and
-the ranges of :mod:`engine.live.limits` (common practice for audio
-interfaces); nothing here is a reference value from another program.
+The expectations are the safety rules themselves (README "Cautions" and
+DEVELOPERS.md "Output safety": limiter ceiling, a guard that mutes on
+invalid or runaway output, start ramp; common practice) and the ranges of
+:mod:`engine.live.limits` (common practice for audio interfaces); nothing
+here is a reference value from another program.
 """
 import math
 

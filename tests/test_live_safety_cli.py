@@ -5,8 +5,9 @@ buffers the stream callback filled, exactly as PortAudio received them:
 nothing non-finite or above the ceiling may be there, and a bad value is a
 one-line error with exit status 2, never a traceback.
 
-Expectations: the safety rules of DESIGN.md (limiter ceiling, guard) and
-the ranges of engine/live/limits.py (common practice).
+Expectations: the safety rules in README "Cautions" and DEVELOPERS.md
+"Output safety" (limiter ceiling, guard; common practice) and the ranges of
+engine/live/limits.py (common practice).
 """
 import json
 import math
