@@ -506,3 +506,41 @@ def test_runaway_readings_raise_no_warning(cur):
         warnings.simplefilter("error")
         snap = r.poll()
         meter_line(snap)
+
+
+def test_a_circuit_that_goes_nan_by_itself_is_restarted_without_an_edit():
+    # The first simulator's state turns NaN after 30 blocks with no edit
+    # (a solver fault): the guard mutes at once; the host restarts the
+    # circuit from its operating point on its own, and the guard re-arms.
+    import time
+    made = []
+
+    class Faulty(StandInSimulator):
+        def __init__(self, *a, **kw):
+            super().__init__(*a, **kw)
+            self.calls = 0
+            made.append(self)
+
+        def process_into(self, x, y, probe_buf=None):
+            self.calls += 1
+            if self is made[0] and self.calls == 30:
+                self._st[0] = math.nan
+            return super().process_into(x, y, probe_buf)
+
+    h = _standin_host(Recording, simulator_factory=Faulty, record_blocks=20000)
+    tripped = False
+    try:
+        t = time.time()
+        while time.time() - t < 30:
+            h.drive(8)
+            tripped = tripped or h.guard_reason == M.GUARD_REASONS[1]
+            if tripped and h.guard_reason == "":
+                break
+            time.sleep(0.002)
+        m = h.meters()
+        buf = h.rec[:h.rec_pos]
+    finally:
+        h.close()
+    assert tripped and h.guard_reason == "" and m["guard_rearms"] >= 1
+    assert h.edits == 0 and len(made) >= 2 and h.voices[0].sim is not made[0]
+    assert np.all(np.isfinite(buf)) and np.max(np.abs(buf[-BLOCK * 8:])) > 0.0

@@ -409,6 +409,7 @@ class LiveHost:
         self._autosave_lock = threading.Lock()
         self._autosave_t = -1e9
         self._recover_trips = 0
+        self._auto_recover = True
         self._measure_wake = threading.Event()
         self._measurer = threading.Thread(target=self._measure_loop,
                                           name="solderless-measure", daemon=True)
@@ -733,6 +734,7 @@ class LiveHost:
 
     def _after_edit(self, vi: int) -> None:
         self.edits += 1
+        self._auto_recover = True
         self._autosave_dirty.add(vi)
         self._autosave_pending()
         self._measure_dirty.add(vi)
@@ -807,10 +809,13 @@ class LiveHost:
             if self._closing:
                 return
             if not woke:
-                # a guard trip with no edit: try one restart per trip
-                if int(self.st[lim.S_GUARD]) in (1, 2, 5) and \
+                # a guard trip with no edit: try one restart
+                # (at most once between edits, so a circuit that runs away
+                # at its values is not rebuilt over and over)
+                if int(self.st[lim.S_GUARD]) in (1, 2, 5) and self._auto_recover and \
                         int(self.st[lim.S_TRIPS]) != self._recover_trips and self._built:
                     self._recover_trips = int(self.st[lim.S_TRIPS])
+                    self._auto_recover = False
                     self._post(self._recover_if_muted)
                 self._autosave_pending()
                 continue
