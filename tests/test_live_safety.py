@@ -420,11 +420,11 @@ h.set_value("VCC", 9.0).result(60)
 rearmed = wait_for(lambda: h.guard_reason == "", 30)
 # a pot turn runs in the background: the console answers meanwhile
 # (0.7 -> 0.1 at most 0.005 of travel per two blocks: 240 blocks of ramp)
-con.handle("pick level.LEVEL")
+con.handle("pick output.VOLUME")
 con.handle("turn 0.1")
 con.handle("meters")
 meters_line = said[-1]
-rot_at_meters = h.part_info("level.LEVEL").rotation
+rot_at_meters = h.part_info("output.VOLUME").rotation
 con.handle("turn 0.2")                    # takes over from wherever the ramp got to
 time.sleep(0.2)
 h.flush()
@@ -440,7 +440,7 @@ print(json.dumps({
     "refused": refused, "c1": c1, "c1_after": c1_after, "c1_sim": c1_sim,
     "tripped": tripped, "rearmed": rearmed, "guard": h.guard_reason,
     "trips": m["guard_trips"], "rearms": m["guard_rearms"], "rot_at_meters": rot_at_meters,
-    "meters_line": meters_line, "rot": h.part_info("level.LEVEL").rotation,
+    "meters_line": meters_line, "rot": h.part_info("output.VOLUME").rotation,
     "rc": h.part_info("boost.RC").value, "last_rc": futs[-2].result(),
     "sim_rc": h.voices[0].sim.values["boost.RC"],
     "xruns": h.xruns, "error": repr(h.error), "said": said[-5:]}))
