@@ -39,7 +39,8 @@ def _fmt(x, unit):
 
 
 def _db(x):
-    return "  -inf" if x is None or x <= -149 else f"{x:6.1f}"
+    from engine.live.meters import fmt_db
+    return fmt_db(x)
 
 
 def meter_line(m: dict) -> str:
@@ -55,6 +56,9 @@ def meter_line(m: dict) -> str:
         parts.append(f"GRm {vi['gr_measured_db']:5.1f} dB")
     if len(m["voices"]) > 1:
         parts.append(f"[{m.get('selected', 'A')}] match {m['loudness_offset_db']:+.1f} LU")
+    bad = [k for k in ("input", "output") if m[k].get("invalid")]
+    if bad:
+        parts.append("INVALID (NaN/inf) " + " and ".join(bad))
     parts.append(f"cpu {100 * m['cpu_load']:3.0f}%")
     if m["xruns"]:
         parts.append(f"xruns {m['xruns']}")
@@ -130,7 +134,15 @@ class Console:
             else:
                 r = float(rest[0])
             r = min(1.0, max(0.0, r)) if rest[0] in ("+", "-") else r
-            h.set_rotation(part, r).result(self.timeout)
+            if not 0.0 <= r <= 1.0:
+                raise SolderlessError(f"rotation must be from 0 to 1, not {rest[0]}")
+            fut = h.set_rotation(part, r)
+            if fut.done() and fut.exception() is not None:
+                raise fut.exception()
+            # the ramp runs in the background: the console answers at once,
+            # and a failure is reported when the ramp ends
+            fut.add_done_callback(lambda f, p=part: f.exception() is not None and
+                                  self.say(f"error: {p}: {f.exception()}"))
             self.say(f"{part} rotation {r:.2f}")
         elif cmd == "bypass":
             stage = rest[0]
@@ -143,8 +155,10 @@ class Console:
             h.select(cmd.upper())
             self.say(f"hearing {cmd.upper()} (loudness offset {h.loudness_offset_db:+.1f} LU)")
         elif cmd == "level":
-            h.set_level_db(float(rest[0]))
-            self.say(f"output level {float(rest[0]):+.1f} dB")
+            from engine.live.limits import check_level_db
+            db = check_level_db(rest[0])
+            h.set_level_db(db)
+            self.say(f"output level {db:+.1f} dB")
         elif cmd == "meters":
             self.say(meter_line(h.meters()))
         elif cmd == "unmute":
