@@ -72,6 +72,7 @@ AUDIO_TAPER_BASE = 81.0  # (B**0.5 - 1)/(B - 1) = 0.1: 10 % at mid rotation
 POT_END_FRACTION = 1e-4  # residual end resistance (fraction of the track)
 POT_END_MIN = 1.0        # ohm
 JACK = "jack"
+NETLIST_STAGE = "netlist"   # the one stage of a design made from a whole netlist
 
 
 # --------------------------------------------------------------------- values
@@ -429,9 +430,26 @@ class Design:
     def _file(self) -> str | None:
         return str(self.path) if self.path else None
 
+    def _netlist_part(self, qualname: str) -> Part | None:
+        """A whole-netlist design's part by the name ``op`` prints (the
+        netlist's own element name, any case), or by the older
+        ``netlist.NAME`` spelling."""
+        name = qualname[len(NETLIST_STAGE) + 1:] if qualname.lower().startswith(
+            NETLIST_STAGE + ".") else qualname
+        for p in self.stages[0].parts if self.stages else []:
+            if p.name.upper() == name.upper():
+                return p
+        return None
+
     def part(self, qualname: str) -> Part:
-        """Find a part by ``stage.part`` (or a global part by its name)."""
-        if "." in qualname:
+        """Find a part by ``stage.part`` (or a global part by its name). A
+        design made from a whole netlist names its parts as the netlist (and
+        ``op``) does: ``RC``, ``Q1``."""
+        if self.netlist is not None:
+            p = self._netlist_part(qualname)
+            if p is not None:
+                return p
+        elif "." in qualname:
             sname, pname = qualname.split(".", 1)
             try:
                 st = self.stage(sname)
@@ -453,7 +471,7 @@ class Design:
         groups = [("", self.parts_global)] + [(s.name, s.parts) for s in self.stages]
         for sname, parts in groups:
             for p in parts:
-                q = f"{sname}.{p.name}" if sname else p.name
+                q = f"{sname}.{p.name}" if sname and self.netlist is None else p.name
                 out.append(PartInfo(
                     qualname=q, stage=sname, name=p.name, type=p.type, value=p.value,
                     unit=PART_TYPES[p.type][2], tolerance=p.tolerance,
@@ -477,6 +495,11 @@ class Design:
         a [stage.values] / [stage.rotations] override for template stages."""
         if self.doc is None:
             return None
+        if self.netlist is not None:
+            p = self._netlist_part(qualname)
+            if p is None:
+                return None
+            qualname = f"{NETLIST_STAGE}.{p.name}"
         if "." in qualname:
             sname, pname = qualname.split(".", 1)
             sdoc = self._stage_docs.get(sname)
@@ -512,6 +535,8 @@ class Design:
         return ra, rb
 
     def _element_values(self, qualname: str, part: Part) -> dict[str, float]:
+        if self.netlist is not None:
+            qualname = part.name         # the netlist's element, as op prints it
         if part.type == "pot":
             ra, rb = self.pot_resistances(part)
             return {f"{qualname}.a": ra, f"{qualname}.b": rb}
@@ -654,15 +679,27 @@ class Design:
         return _Flattener(self).run(resolve=name)
 
     def resolve_probe(self, expr: str) -> str:
-        """Rewrite a probe expression's net names to flat names."""
+        """Rewrite a probe expression's net names to flat names. A design's
+        own probe name (``[[probe]] name``) stands for its expression."""
+        for pr in self.probes:
+            if expr.strip().lower() == pr.name.strip().lower():
+                expr = pr.expr
+                break
         m = re.fullmatch(r"\s*([A-Za-z]+)\s*\((.*)\)\s*", expr)
         if not m:
             raise DesignError(f"probe '{expr}' is not of the form quantity(name)",
                               file=self._file(), hint="e.g. v(gain.out) or iabc(gain.U1)")
         q, args = m.group(1).lower(), [a.strip() for a in m.group(2).split(",")]
+        if self.netlist is not None:
+            # names as op prints them; the older 'netlist.' prefix is read too
+            args = [a[len(NETLIST_STAGE) + 1:] if a.lower().startswith(NETLIST_STAGE + ".")
+                    else a for a in args]
         if q == "v":
-            flat = _Flattener(self)
-            args = [flat.run(resolve=a) for a in args]
+            if self.netlist is not None:
+                args = [canonical_net(a) for a in args]
+            else:
+                flat = _Flattener(self)
+                args = [flat.run(resolve=a) for a in args]
         elif self.netlist is not None:
             args = [a.upper() for a in args]
         return f"{q}({','.join(args)})"

@@ -180,6 +180,42 @@ def measure_small_signal(design, fs: float, oversample: int, block: int,
     return gain_db, (float(np.mean(ctl)) if ctl else None), None
 
 
+def _part_undo(design, part: str):
+    """A function that puts ``part`` of ``design`` back as it is now (its
+    value, rotation and taper, and what the design file records for them),
+    or None if the design cannot say. Cheap: no copy of the design."""
+    try:
+        obj = design.part(part)
+    except Exception:
+        return None
+    fields = {k: getattr(obj, k) for k in ("value", "rotation", "taper")}
+    saved = []
+    for key in ("value", "rotation", "taper"):
+        try:
+            loc = design._part_doc(part, key)
+        except Exception:
+            loc = None
+        if loc is not None:
+            table, k = loc
+            saved.append((table, k, table.get(k, _MISSING)))
+    dirty = getattr(design, "dirty", False)
+
+    def undo():
+        for k, val in fields.items():
+            setattr(obj, k, val)
+        for table, k, val in saved:
+            if val is _MISSING:
+                if k in table:
+                    del table[k]
+            else:
+                table[k] = val
+        design.dirty = dirty
+    return undo
+
+
+_MISSING = object()
+
+
 def scope_tail(ring: FrameRing, n: int) -> tuple[np.ndarray, np.ndarray]:
     """The last ``n`` pairs of a scope ring as (input, output) arrays."""
     end = ring.written
@@ -747,7 +783,7 @@ class LiveHost:
         return i, self.voices[i]
 
     # ------------------------------------------------------------ edits (any thread)
-    def _post_part_edit(self, voice, edit) -> Future:
+    def _post_part_edit(self, voice, edit, part: str | None = None) -> Future:
         """Post an edit: ``edit(voice)`` (on the edit worker) changes the
         voice's design and returns (element changes, result); the changes
         land at a block boundary with the state carried over."""
@@ -755,15 +791,24 @@ class LiveHost:
 
         def job():
             i, v = self._voice(voice)
+            undo = _part_undo(v.design, part) if part else None
             changes, result = edit(v)
-            self._apply(v, changes, t_post)
+            try:
+                self._apply(v, changes, t_post)
+            except Exception:
+                # the running circuit did not take it: the design (and so a
+                # later save) must not keep an edit that was never heard
+                if undo is not None:
+                    undo()
+                raise
             self._after_edit(i)
             return result
         return self._post(job)
 
     def set_value(self, part: str, value: float, voice=None) -> Future:
         """Change a part's value (re-derive, lands at a block boundary)."""
-        return self._post_part_edit(voice, lambda v: (v.design.set_value(part, value), value))
+        return self._post_part_edit(voice, lambda v: (v.design.set_value(part, value), value),
+                                    part)
 
     def step_value(self, part: str, steps: int = 1, series: str | None = None,
                    voice=None) -> Future:
@@ -778,7 +823,7 @@ class LiveHost:
             ser = series or ("E12" if info.type == "capacitor" else "E24")
             new = step_preferred(info.value, ser, steps)
             return v.design.set_value(part, new), new
-        return self._post_part_edit(voice, edit)
+        return self._post_part_edit(voice, edit, part)
 
     def set_rotation(self, pot: str, rotation: float, voice=None,
                      ramp_s: float = 0.030) -> Future:
@@ -846,7 +891,7 @@ class LiveHost:
         def edit(v):
             changes = v.design.set_taper(pot, taper)
             return changes, v.design.part(pot).taper
-        return self._post_part_edit(voice, edit)
+        return self._post_part_edit(voice, edit, pot)
 
     def set_bypass(self, stage: str, on: bool, voice=None) -> Future:
         """Bypass a stage (or bring it back): rebuild the simulator and swap it
@@ -891,9 +936,19 @@ class LiveHost:
     def part_info(self, part: str, voice=None):
         """PartInfo of ``part`` in the edited (or given) voice."""
         _, v = self._voice(voice)
-        for p in v.design.parts():
+        infos = v.design.parts()
+        for p in infos:
             if p.qualname == part:
                 return p
+        if getattr(v.design, "netlist", None) is not None:
+            # a netlist design's parts answer to any case and to 'netlist.X'
+            try:
+                obj = v.design.part(part)
+            except SolderlessError:
+                obj = None
+            for p in infos:
+                if obj is not None and p.name == obj.name:
+                    return p
         names = [p.qualname for p in v.design.parts()]
         import difflib
         close = difflib.get_close_matches(part, names, n=3)
