@@ -72,6 +72,7 @@ AUDIO_TAPER_BASE = 81.0  # (B**0.5 - 1)/(B - 1) = 0.1: 10 % at mid rotation
 POT_END_FRACTION = 1e-4  # residual end resistance (fraction of the track)
 POT_END_MIN = 1.0        # ohm
 JACK = "jack"
+REST_SOURCE = "rest"        # holds a bypassed side branch's input at its DC level
 NETLIST_STAGE = "netlist"   # the one stage of a design made from a whole netlist
 
 
@@ -608,10 +609,30 @@ class Design:
         part.position = int(position)
         self._record(qualname, "position", int(position))
 
-    def set_bypass(self, stage: str, on: bool) -> None:
-        """Bypass a stage: its ``in`` and ``out`` are joined and its parts removed
-        (a topology change: rebuild the simulator)."""
+    def bypass_effect(self, stage: str) -> str:
+        """What bypassing ``stage`` does, in a designer's words."""
         st = self.stage(stage)
+        if "out" in st.ports:
+            return "signal passes from its in to its out; its parts are left out"
+        if "in" in st.ports:
+            return ("side branch: it hears no signal (its input is held at the DC level "
+                    "it has at rest), so what it drives sits at rest"
+                    + (" - the gain cell at its resting gain"
+                       if "detector" in (st.kind or "").lower() else ""))
+        return "carries no signal; it cannot be bypassed"
+
+    def set_bypass(self, stage: str, on: bool) -> None:
+        """Bypass a stage (a topology change: rebuild the simulator). A series
+        stage (in and out ports) has its ``in`` and ``out`` joined and its
+        parts removed; a side branch (an ``in`` port but no ``out``, such as
+        a detector) keeps its parts but hears no signal: its input is held at
+        its resting DC level, so what it drives (a gain cell's control) sits
+        at rest. A stage with neither port carries no signal and is refused."""
+        st = self.stage(stage)
+        if on and "in" not in st.ports and "out" not in st.ports:
+            raise DesignError(f"stage '{stage}' carries no signal (no in or out port), so "
+                              "it cannot be bypassed", file=self._file(), part=stage,
+                              hint="a supply or bias stage stays in the circuit")
         st.bypass = bool(on)
         self.dirty = True
         if self.doc is not None and stage in self._stage_docs:
@@ -762,15 +783,29 @@ class _Flattener:
     def run(self, resolve: str | None = None):
         d = self.d
         uf = _UnionFind()
-        active = [s for s in d.stages if not s.bypass]
-        # chain: out of each stage joins in of the next; a bypassed stage joins in and out
+        for st in d.stages:
+            if st.bypass and "in" not in st.ports and "out" not in st.ports:
+                raise DesignError(f"stage '{st.name}' carries no signal (no in or out "
+                                  "port), so it cannot be bypassed", file=self.file,
+                                  line=st.where.line, hint="take bypass off this stage")
+        # a bypassed side branch (an in port, no out port, e.g. a detector)
+        # keeps its parts but hears no signal: its input is held at the DC
+        # level the signal net has, so its effect sits at rest
+        resting = [s for s in d.stages if s.bypass and "out" not in s.ports]
+        active = [s for s in d.stages if not s.bypass or s in resting]
+        # chain: out of each stage joins in of the next; a bypassed series
+        # stage joins in and out
         prev_out = None
+        rest_of: dict[str, str] = {}
         for st in d.stages:
             in_net, out_net = self.local(st.name, "in"), self.local(st.name, "out")
             uf.add(in_net)
             if prev_out is not None and "in" in st.ports:
-                uf.union(prev_out, in_net)
-            if st.bypass:
+                if st in resting:
+                    rest_of[st.name] = prev_out
+                else:
+                    uf.union(prev_out, in_net)
+            if st.bypass and st not in resting:
                 uf.union(in_net, out_net)
             if "out" in st.ports:
                 prev_out = out_net
@@ -849,12 +884,40 @@ class _Flattener:
             input_name = JACK
         else:
             input_name = next(e.name for e in elements if e.params.get("_input"))
+        if rest_of:
+            levels = self.resting_levels(rest_of)
+            for sname, vdc in levels.items():
+                st = d.stage(sname)
+                add(Element(f"{sname}.{REST_SOURCE}", "V",
+                            (uf.find(self.local(sname, "in")), GROUND), vdc, {},
+                            st.where))
         if d.load and d.load > 0:
             add(Element("load", "R", (last_out, GROUND), d.load, {}, Where(self.file)))
         circ = Circuit(elements=elements, input_source=input_name, output=(last_out, GROUND),
                        title=d.name, where=Where(self.file))
         validate_circuit(circ, self.file)
         return circ
+
+    def resting_levels(self, rest_of: dict[str, str]) -> dict[str, float]:
+        """DC volts of the signal net each bypassed side branch listens to,
+        from the operating point of the design with those branches in."""
+        from engine.solver.dcop import operating_point
+        d = self.d
+        flags = {s.name: s.bypass for s in d.stages}
+        try:
+            for s in d.stages:
+                if s.name in rest_of:
+                    s.bypass = False
+            op = operating_point(_Flattener(d).run())
+            flat = _Flattener(d)
+            out = {}
+            for sname, net in rest_of.items():
+                rep = flat.run(resolve=net)
+                out[sname] = 0.0 if rep == GROUND else float(op.nets.get(rep, 0.0))
+            return out
+        finally:
+            for s in d.stages:
+                s.bypass = flags[s.name]
 
     def supply_span(self) -> float:
         """The largest DC supply in the design (V): an OTA's output compliance

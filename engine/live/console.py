@@ -12,7 +12,9 @@ Commands (``help`` prints them)::
     value V               set the picked part's value (4k7, 100n, 2.2u ...)
     turn R                turn the picked pot to R (0 to 1); 'turn +' / 'turn -'
                           nudges by 0.05
-    bypass STAGE          toggle bypass of a stage (rebuild + crossfade)
+    bypass STAGE          toggle bypass of a stage (rebuild + crossfade): a series
+                          stage passes in to out; a side branch (a detector) hears
+                          no signal, so the gain cell sits at its resting gain
     a / b                 hear (and edit) the baseline or the variant
     level DB              output level in dB
     meters                print the meters now
@@ -137,7 +139,10 @@ class Console:
             _, v = h._voice(None)
             cur = _bypassed(v.design, stage)
             t = h.set_bypass(stage, not cur).result(self.timeout)
-            self.say(f"stage {stage} {'bypassed' if not cur else 'back in'} "
+            what = ""
+            if not cur and hasattr(v.design, "bypass_effect"):
+                what = f": {v.design.bypass_effect(stage)}"
+            self.say(f"stage {stage} {'bypassed' if not cur else 'back in'}{what} "
                      f"(rebuilt in {1e3 * t:.0f} ms)")
         elif cmd in ("a", "b"):
             h.select(cmd.upper())
