@@ -42,13 +42,11 @@ VARIANTS = ("flagship-slow-release", "flagship-linear-sustain")
 FS = 48000.0
 #: WAV full scale: a sample of 1.0 is this many volts.
 WAV_FULL_SCALE_V = 1.0
-#: Vce below this with the base-emitter junction forward biased: saturated
-#: (common practice: a small-signal BJT saturates near 0.1-0.3 V).
-VCE_SAT = 0.3
-#: Collector current below this at rest: cut off (common practice).
-IC_OFF = 1e-6
+#: Saturation and cut-off thresholds: the shared classifier's
+#: (engine/analysis/regions.py, common practice for small-signal BJTs).
+from engine.analysis.regions import IC_OFF, VCE_SAT  # noqa: E402
 #: Part notes containing this phrase mark a device that is off at rest by design.
-OFF_BY_DESIGN = "off at rest"
+from engine.analysis.regions import OFF_BY_DESIGN  # noqa: E402
 
 STATIC_LEVELS_DB = np.arange(-64.0, 0.0 + 0.1, 4.0)
 STATIC_FREQ = 220.0
@@ -95,8 +93,8 @@ def _device_quantity(q: dict, *names: str) -> float | None:
 
 
 def transistor_check(design, op) -> list[dict]:
-    """Classify every BJT at the operating point: ``active``, ``saturated``
-    or ``off``; ``intended`` is True where the part's note says it is off at
+    """Classify every BJT at the operating point: ``active``, ``near
+    saturation``, ``saturated``, ``reverse`` or ``off``; ``intended`` is True where the part's note says it is off at
     rest by design. Saturation: Vce < 0.3 V with Vbe forward; off: |Ic| < 1 uA
     (common practice thresholds for small-signal transistors)."""
     rows = []
@@ -110,13 +108,11 @@ def transistor_check(design, op) -> list[dict]:
         ic = _device_quantity(q, "ic")
         vbe = _device_quantity(q, "vbe")
         vce = _device_quantity(q, "vce")
-        ic_s = sign * (ic or 0.0)
-        if ic_s < IC_OFF:
-            region = "off"
-        elif vce is not None and sign * vce < VCE_SAT and vbe is not None and sign * vbe > 0.5:
-            region = "saturated"
-        else:
-            region = "active"
+        # the one classifier op and the workbench use (engine.analysis.regions);
+        # its cut-off is called "off" here
+        from engine.analysis.regions import bjt_region
+        region = bjt_region(sign, ic or 0.0, vce if vce is not None else 10.0 * sign)
+        region = "off" if region == "cut-off" else region
         rows.append({"part": info.qualname, "type": info.type, "ic": ic, "vbe": vbe,
                      "vce": vce, "region": region,
                      "intended": OFF_BY_DESIGN in (info.note or "").lower()})
@@ -127,7 +123,8 @@ def transistor_problems(design, op) -> list[str]:
     """Transistors saturated, or off without a note saying so, at rest."""
     out = []
     for r in transistor_check(design, op):
-        if r["region"] == "saturated" or (r["region"] == "off" and not r["intended"]):
+        if r["region"] in ("saturated", "near saturation", "reverse") or (
+                r["region"] == "off" and not r["intended"]):
             out.append(f"{r['part']} is {r['region']} at rest "
                        f"(Ic {r['ic']:.3g} A, Vce {r['vce']:.3g} V)")
     return out

@@ -776,6 +776,8 @@ class _Flattener:
         self.d = d
         self.file = d._file()
         self.glob = set(d.global_nets) | {GROUND}
+        self.ratings: dict[str, dict[str, float]] = {}
+        self.off_by_design: set[str] = set()
 
     def local(self, stage: str, net: str) -> str:
         return net if net in self.glob else f"{stage}.{net}"
@@ -894,7 +896,8 @@ class _Flattener:
         if d.load and d.load > 0:
             add(Element("load", "R", (last_out, GROUND), d.load, {}, Where(self.file)))
         circ = Circuit(elements=elements, input_source=input_name, output=(last_out, GROUND),
-                       title=d.name, where=Where(self.file))
+                       title=d.name, where=Where(self.file), ratings=dict(self.ratings),
+                       off_by_design=set(self.off_by_design))
         validate_circuit(circ, self.file)
         return circ
 
@@ -968,6 +971,11 @@ class _Flattener:
                                   hint=f"choose a {want} model")
             params = dict(model.element_params(supply=self.supply_span()))
             params.update(p.params)
+            from engine.analysis.regions import OFF_BY_DESIGN, ratings_of
+            if ratings_of(model):
+                self.ratings[q] = ratings_of(model)
+            if OFF_BY_DESIGN in (p.note or "").lower():
+                self.off_by_design.add(q)
             if kind in ("Q", "J", "M"):
                 params["TYPE"] = want
         if kind == "M" and len(nodes) == 3:
