@@ -14,6 +14,7 @@ import time
 from pathlib import Path
 
 from engine.errors import DesignError, SolderlessError
+from engine.levels import FULL_SCALE_V, describe as describe_levels
 
 DEFAULT_DESIGN = "flagship"
 
@@ -136,6 +137,8 @@ def cmd_render(args) -> int:
     print(f"wrote {args.output}: {n / fs:.2f} s at {fs:g} Hz, oversample x{oversample}, "
           f"output peak {20 * math.log10(max(peak, 1e-12)):+.1f} dBFS "
           f"({peak * args.output_fs_volts:.3g} V)")
+    print(f"calibration: input {describe_levels(args.input_fs_volts)}; output "
+          f"{describe_levels(args.output_fs_volts)}")
     if st.get("nonconverged", 0):
         print(f"warning: {st['nonconverged']} samples did not converge (held at the last "
               "good solution); try --oversample 2 or more", file=sys.stderr)
@@ -233,7 +236,8 @@ def build_parser() -> argparse.ArgumentParser:
     ap = argparse.ArgumentParser(
         prog="solderless",
         description="Hear an analog circuit before you build it: simulate a chain of "
-                    "stages live or offline.")
+                    "stages live or offline.",
+        epilog=f"Level calibration (every command): {describe_levels()}, in and out.")
     sub = ap.add_subparsers(dest="command", metavar="COMMAND")
 
     p = sub.add_parser("render", help="run a WAV file through a design")
@@ -244,11 +248,13 @@ def build_parser() -> argparse.ArgumentParser:
                    "(default: the input file's; the input is resampled if different)")
     p.add_argument("--oversample", type=int, choices=(1, 2, 4, 8), default=None,
                    help="oversampling factor (default: the design's)")
-    p.add_argument("--input-fs-volts", type=float, default=1.0, metavar="V",
-                   help="volts at the input jack that a full-scale sample stands for "
-                        "(default 1.0)")
-    p.add_argument("--output-fs-volts", type=float, default=2.0, metavar="V",
-                   help="volts at the output jack written as full scale (default 2.0)")
+    p.add_argument("--input-fs-volts", type=float, default=FULL_SCALE_V, metavar="V",
+                   help="peak volts at the input jack that a full-scale sample stands "
+                        f"for (default {FULL_SCALE_V:.4g}: the calibration every command "
+                        "uses, engine/levels.py)")
+    p.add_argument("--output-fs-volts", type=float, default=FULL_SCALE_V, metavar="V",
+                   help="peak volts at the output jack written as full scale "
+                        f"(default {FULL_SCALE_V:.4g}, the same calibration)")
     p.add_argument("--channel", type=int, default=0, help="input channel to use (default 0)")
     p.add_argument("--probe", action="append", default=[], metavar="NAME",
                    help="record a probe, e.g. 'iabc(gain.U1)' or 'v(buffer.out)' (repeatable)")

@@ -40,8 +40,8 @@ from engine.errors import SolderlessError
 FLAGSHIP = "flagship"
 VARIANTS = ("flagship-slow-release", "flagship-linear-sustain")
 FS = 48000.0
-#: WAV full scale: a sample of 1.0 is this many volts.
-WAV_FULL_SCALE_V = 1.0
+#: WAV full scale: a sample of 1.0 is this many volts (engine/levels.py).
+from engine.levels import FULL_SCALE_V as WAV_FULL_SCALE_V  # noqa: E402
 #: Saturation and cut-off thresholds: the shared classifier's
 #: (engine/analysis/regions.py, common practice for small-signal BJTs).
 from engine.analysis.regions import IC_OFF, VCE_SAT  # noqa: E402

@@ -56,11 +56,13 @@ def add_play_arguments(p) -> None:
                    help="block size in samples (default 128; 64 for the lowest latency)")
     p.add_argument("--oversample", type=int, choices=(1, 2, 4, 8),
                    help="oversampling factor (default: the design's suggestion)")
+    from engine.levels import describe
     p.add_argument("--in-full-scale", metavar="LEVEL",
                    help="input calibration: peak volts at the jack for digital full scale "
-                        "(1.55V) or dBu of a full-scale sine (+3dBu, the default)")
+                        f"(1.55V) or dBu of a full-scale sine (+3dBu); default: {describe()}, "
+                        "as in every command")
     p.add_argument("--out-full-scale", metavar="LEVEL",
-                   help="output calibration, same form (default +3dBu)")
+                   help="output calibration, same form (default: the same)")
     p.add_argument("--level", type=float, default=0.0, metavar="DB",
                    help="output level, dB (default 0); playback starts silent and ramps up")
     p.add_argument("--ceiling", type=float, default=-6.0, metavar="DBFS",

@@ -45,7 +45,7 @@ from engine.live.loudness import RunningLoudness
 from engine.live.ring import FrameRing
 from engine.live.source import LiveInput, Source
 
-DEFAULT_FULL_SCALE_DBU = 3.0
+from engine.levels import FULL_SCALE_DBU as DEFAULT_FULL_SCALE_DBU  # noqa: E402  (engine/levels.py)
 """Default input and output calibration: a full-scale sine is +3 dBU
 (1.10 V RMS, 1.55 V peak) at the jack, a typical instrument-input full
 scale of an audio interface (common practice)."""
@@ -349,7 +349,7 @@ class LiveHost:
             raise AudioError(f"oversampling x{os_} is not offered", hint="use 1, 2, 4 or 8")
         self.oversample = os_
         self.source = source or LiveInput(0)
-        dflt = full_scale_peak_from_dbu(DEFAULT_FULL_SCALE_DBU)
+        from engine.levels import FULL_SCALE_V as dflt   # one calibration, every command
         self.in_fs_v = float(in_full_scale_v or dflt)
         self.out_fs_v = float(out_full_scale_v or dflt)
         self.level_db = float(level_db)
