@@ -160,8 +160,13 @@ def _print_summary(s: dict, say) -> None:
         if v["gr_measured_db"] is not None:
             bits.append(f"{v['gr_measured_db']:.1f} dB (measured)")
         if v["loudness_lkfs"] is not None:
-            bits.append(f"loudness {v['loudness_lkfs']:.1f} LKFS")
+            bits.append(f"loudness {v['loudness_lkfs']:.1f} LUFS")
         say("  ".join(bits))
+    if any(v["gr_control_db"] is not None or v["gr_measured_db"] is not None
+           for v in m["voices"].values()):
+        say("  (gain reduction from the control: the control against its resting value; "
+            "measured: output/input level against the resting small-signal gain; "
+            "both 0 dB at rest)")
     if len(m["voices"]) > 1:
         say(f"loudness match: A - B = {m['loudness_offset_db']:+.2f} LU applied")
     lat = s["latency"]

@@ -17,7 +17,7 @@ Commands (``help`` prints them)::
                           no signal, so the gain cell sits at its resting gain
     a / b                 hear (and edit) the baseline or the variant
     level DB              output level in dB
-    meters                print the meters now
+    meters                print the meters now (the first time with what each one means)
     unmute                clear a safety mute (output ramps up again)
     save [PATH]           save the design atomically (its own file by default)
     quit                  stop playing
@@ -44,6 +44,14 @@ def _db(x):
     return "  -inf" if x is None or x <= -149 else f"{x:6.1f}"
 
 
+METER_LEGEND = ("in/out: peak and RMS level, dBFS; ctl: the gain cell's control "
+                "current; GR: gain reduction from the control (control against its "
+                "resting value, 0 dB at rest); GRm: gain reduction measured (output/input "
+                "level against the resting small-signal gain at 1 kHz, 0 dB at rest); "
+                "LUFS: loudness (ITU-R BS.1770-4, 3 s); cpu: share of the block period. "
+                "ctl, GR and GRm show only for a design with a control ([meters] control).")
+
+
 def meter_line(m: dict) -> str:
     """One line summary of a meter snapshot (for the terminal)."""
     vi = m["voices"].get(m.get("selected", "A")) or m["voices"].get("A", {})
@@ -55,6 +63,8 @@ def meter_line(m: dict) -> str:
         parts.append(f"GR {vi['gr_control_db']:5.1f} dB")
     if vi.get("gr_measured_db") is not None:
         parts.append(f"GRm {vi['gr_measured_db']:5.1f} dB")
+    if vi.get("loudness_lkfs") is not None:
+        parts.append(f"{vi['loudness_lkfs']:5.1f} LUFS")
     if len(m["voices"]) > 1:
         parts.append(f"[{m.get('selected', 'A')}] match {m['loudness_offset_db']:+.1f} LU")
     parts.append(f"cpu {100 * m['cpu_load']:3.0f}%")
@@ -73,6 +83,7 @@ class Console:
         self.say = say
         self.picked: str | None = None
         self.timeout = timeout
+        self._legend_shown = False
 
     def _need_pick(self) -> str:
         if self.picked is None:
@@ -152,6 +163,9 @@ class Console:
             self.say(f"output level {float(rest[0]):+.1f} dB")
         elif cmd == "meters":
             self.say(meter_line(h.meters()))
+            if not self._legend_shown:
+                self.say(METER_LEGEND)
+                self._legend_shown = True
         elif cmd == "unmute":
             h.unmute()
             self.say("unmuted; output ramps up from silence")

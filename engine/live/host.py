@@ -50,7 +50,7 @@ from engine.levels import FULL_SCALE_DBU as DEFAULT_FULL_SCALE_DBU  # noqa: E402
 (1.10 V RMS, 1.55 V peak) at the jack, a typical instrument-input full
 scale of an audio interface (common practice)."""
 
-LOUDNESS_GATE_POWER = 10 ** ((-70.0 + 0.691) / 10)   # -70 LKFS absolute gate
+LOUDNESS_GATE_POWER = 10 ** ((-70.0 + 0.691) / 10)   # -70 LUFS absolute gate
 MAX_MATCH_DB = 24.0
 MAX_BLOCK = 4096
 MAX_POT_STEP = 0.005
@@ -146,8 +146,10 @@ def _probes_for(design) -> tuple[list[str], int | None]:
 
 def measure_small_signal(design, fs: float, oversample: int, block: int,
                          control_probe: str | None, factory: Callable):
-    """Small-signal gain at 1 kHz (10 mV peak; RMS ratio over the settled
-    second half of 0.5 s) and the quiescent value of the control probe (mean
+    """Small-signal gain at 1 kHz (1 mV peak, small enough that a
+    compressor's detector stays at rest, so the gain-reduction meter reads
+    0 dB at rest; RMS ratio over the settled second half of 0.5 s) and the
+    quiescent value of the control probe (mean
     over the last third of 0.3 s of silence), on a simulator of its own.
     Returns ``(gain_db or None, quiescent or None, problem or None)``."""
     try:
@@ -166,7 +168,7 @@ def measure_small_signal(design, fs: float, oversample: int, block: int,
         k = sim.process_into(x, y, pb)
         if pb is not None and b >= t_sil * 2 // 3 and k:
             ctl.append(float(pb[0, :k].mean()))
-    f, amp = 1000.0, 0.01
+    f, amp = 1000.0, 0.001
     nt = int(0.5 * fs / n)
     acc_in = acc_out = 0.0
     for b in range(nt):
