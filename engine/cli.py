@@ -28,6 +28,9 @@ def _load(args):
     nl = getattr(d, "netlist", None)
     for w in (nl.warnings if nl is not None else []):
         print(f"warning: {w}", file=sys.stderr)
+    if d.netlist is None and d.stages:
+        for w in d.dangling_probes():
+            print(f"warning: {w}", file=sys.stderr)
     return d
 
 
@@ -107,7 +110,19 @@ def cmd_render(args) -> int:
         raise DesignError("--input-fs-volts and --output-fs-volts must be positive")
     volts = x * args.input_fs_volts
     oversample = args.oversample or d.oversample
-    probes = [d.resolve_probe(p) for p in args.probe]
+    names = list(args.probe)
+    if args.probes_csv and not names:
+        # the design's own probes (its [[probe]] tables and its control)
+        names = [p.expr for p in d.probes]
+        ctl = d.control_probe()
+        if ctl and ctl not in names:
+            names.insert(0, ctl)
+        if not names:
+            raise DesignError("--probes-csv: the design declares no probes",
+                              file=d._file(), hint="add --probe NAME, e.g. --probe 'v(out)'")
+        dangling = {e for e, _ in d.dangling_probe_list()}
+        names = [n for n in names if n not in dangling]
+    probes = [d.resolve_probe(p) for p in names]
     circ = d.flatten()
     from engine.solver import Simulator
     sim = Simulator(circ, fs=fs, oversample=oversample, probes=tuple(probes))
@@ -148,11 +163,16 @@ def cmd_render(args) -> int:
                   file=sys.stderr)
         else:
             t = np.arange(n) / fs
-            header = "time_s," + ",".join(args.probe)
+            header = "time_s," + ",".join(_csv_field(n) for n in names)
             np.savetxt(args.probes_csv, np.column_stack([t, pdata.T]), delimiter=",",
                        header=header, comments="", fmt="%.9g")
             print(f"wrote {args.probes_csv}: {len(probes)} probe(s)")
     return 0
+
+
+def _csv_field(text: str) -> str:
+    """A CSV header field (RFC 4180: quoted when it holds a comma or quote)."""
+    return '"' + text.replace('"', '""') + '"' if any(c in text for c in ',"') else text
 
 
 # ------------------------------------------------------------------ op / ac
@@ -259,7 +279,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--probe", action="append", default=[], metavar="NAME",
                    help="record a probe, e.g. 'iabc(gain.U1)' or 'v(buffer.out)' (repeatable)")
     p.add_argument("--probes-csv", metavar="FILE", help="write probes as CSV "
-                   "(time in seconds, then each probe in SI units)")
+                   "(time in seconds, then each probe in SI units); without --probe, "
+                   "the design's own probes ([[probe]] and [meters] control)")
     p.add_argument("--keep-latency", action="store_true",
                    help="do not remove the oversampling filters' fixed delay")
     p.set_defaults(func=cmd_render)

@@ -487,6 +487,44 @@ class Design:
     def probe_exprs(self) -> list[str]:
         return [p.expr for p in self.probes]
 
+    def dangling_probes(self) -> list[str]:
+        """Warnings for declared probes (``[[probe]]`` and ``[meters]
+        control``) that the circuit as it stands can no longer measure, e.g.
+        after a stage was bypassed, removed or renamed."""
+        return [w for _, w in self.dangling_probe_list()]
+
+    def dangling_probe_list(self) -> list[tuple[str, str]]:
+        """``(expression, warning)`` of each dangling declared probe."""
+        out = []
+        exprs = [(p.name, p.expr) for p in self.probes]
+        if self.control_probe():
+            exprs.append(("meters.control", self.control_probe()))
+        try:
+            circ = self.flatten()
+        except SolderlessError:
+            return out
+        names = {e.name for e in circ.elements}
+        nets = set(circ.nets())
+        for label, expr in exprs:
+            try:
+                flat = self.resolve_probe(expr)
+            except SolderlessError as exc:
+                out.append((expr, f"probe '{label}' ({expr}) is left dangling: "
+                                  f"{exc.message}"))
+                continue
+            m = re.fullmatch(r"([a-z]+)\((.*)\)", flat)
+            if not m:
+                continue
+            q, args = m.group(1), [a for a in m.group(2).split(",") if a]
+            gone = [a for a in args if (a not in nets and a.lower() not in
+                                        {n.lower() for n in nets} and a != GROUND)] \
+                if q == "v" else [a for a in args if a not in names]
+            if gone:
+                out.append((expr, f"probe '{label}' ({expr}) is left dangling: the circuit "
+                                  f"has no {'net' if q == 'v' else 'part'} {', '.join(gone)} "
+                                  "now"))
+        return out
+
     def copy(self) -> "Design":
         return copy.deepcopy(self)
 

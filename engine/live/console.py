@@ -155,6 +155,9 @@ class Console:
                 what = f": {v.design.bypass_effect(stage)}"
             self.say(f"stage {stage} {'bypassed' if not cur else 'back in'}{what} "
                      f"(rebuilt in {1e3 * t:.0f} ms)")
+            if hasattr(v.design, "dangling_probes"):
+                for w in v.design.dangling_probes():
+                    self.say(f"warning: {w}")
         elif cmd in ("a", "b"):
             h.select(cmd.upper())
             self.say(f"hearing {cmd.upper()} (loudness offset {h.loudness_offset_db:+.1f} LU)")
