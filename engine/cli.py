@@ -226,7 +226,8 @@ def cmd_ac(args) -> int:
                    comments="", fmt="%.9g")
         print(f"wrote {args.csv}: {len(f)} points")
         return 0
-    print(f"Small-signal response of {d.name} (input jack to output)")
+    print(f"Small-signal response of {d.name} (input jack to output; gain in dB, phase in "
+          "degrees, Zin: input impedance at the jack, ohm)")
     print(f"{'freq':>10} {'gain dB':>9} {'phase':>8} {'Zin':>12}")
     step = max(1, len(f) // 25)
     for i in range(0, len(f), step):
@@ -234,16 +235,52 @@ def cmd_ac(args) -> int:
     return 0
 
 
+def _sentences(text: str) -> list[str]:
+    import re
+    flat = " ".join(text.split())
+    return [t for t in re.split(r"(?<=[.!?])\s+(?=[A-Z0-9(])", flat) if t]
+
+
+def _leading_comment(path) -> str:
+    try:
+        first = Path(path).read_text(encoding="utf-8").splitlines()[0]
+    except (OSError, IndexError, UnicodeDecodeError):
+        return ""
+    return first.lstrip("#").strip() if first.startswith("#") else ""
+
+
 def cmd_designs(args) -> int:
+    import shutil
+    import textwrap
     from engine.design import builtin_designs, stage_library, load_design
+    files = builtin_designs()
+    width = max(60, min(shutil.get_terminal_size((100, 24)).columns, 120))
     print("Built-in designs:")
-    for name in builtin_designs():
+    loaded = {}
+    for name in files:
         try:
-            d = load_design(name)
-            first = (d.notes.strip().splitlines() or [""])[0]
-            print(f"  {name:<24} {d.name} — {first[:70]}")
+            loaded[name] = load_design(name)
         except SolderlessError as exc:
-            print(f"  {name:<24} (cannot load: {exc})")
+            loaded[name] = exc
+    for name in files:
+        d = loaded[name]
+        if isinstance(d, SolderlessError):
+            print(f"  {name:<24} (cannot load: {d})")
+            continue
+        sents = _sentences(d.notes)
+        # a variant (NAME-something of a design NAME) says what it changes,
+        # not the base's description again
+        base = max((k for k in files if name.startswith(k + "-")), key=len, default=None)
+        if base is not None and not isinstance(loaded.get(base), SolderlessError):
+            seen = set(_sentences(loaded[base].notes))
+            own = [t for t in sents if t not in seen]
+            what = own[0] if own else (_leading_comment(files[name]) or "same notes as the base")
+            blurb = f"{d.name}: variant of {base}. {what}"
+        else:
+            blurb = f"{d.name}: {sents[0] if sents else ''}"
+        text = textwrap.fill(blurb, width=width - 2, initial_indent=f"  {name:<24} ",
+                             subsequent_indent=" " * 27)
+        print(text)
     print("\nStage library:")
     for name in stage_library():
         print(f"  {name}")
@@ -290,12 +327,18 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(func=cmd_op)
 
+    from engine.solver.ac import DEFAULT_FMAX_HZ, DEFAULT_FMIN_HZ, DEFAULT_POINTS
     p = sub.add_parser("ac", help="small-signal frequency response and input impedance")
     _add_design_arg(p, nargs="?")
-    p.add_argument("--fmin", type=float, default=10.0)
-    p.add_argument("--fmax", type=float, default=20000.0)
-    p.add_argument("--points", type=int, default=200)
-    p.add_argument("--csv", metavar="FILE", help="write the response as CSV")
+    p.add_argument("--fmin", type=float, default=DEFAULT_FMIN_HZ, metavar="HZ",
+                   help=f"lowest frequency, Hz (default {DEFAULT_FMIN_HZ:g}; the workbench "
+                        "uses the same range)")
+    p.add_argument("--fmax", type=float, default=DEFAULT_FMAX_HZ, metavar="HZ",
+                   help=f"highest frequency, Hz (default {DEFAULT_FMAX_HZ:g})")
+    p.add_argument("--points", type=int, default=DEFAULT_POINTS, metavar="N",
+                   help=f"number of log-spaced frequencies (default {DEFAULT_POINTS})")
+    p.add_argument("--csv", metavar="FILE", help="write the response as CSV (freq_hz, "
+                   "gain_db, phase_deg, zin_ohm, zin_phase_deg)")
     p.set_defaults(func=cmd_ac)
 
     p = sub.add_parser("designs", help="list built-in designs and the stage library")

@@ -416,6 +416,7 @@ class Design:
         self.doc = None          # tomlkit document, or None for netlist designs
         self.netlist = None      # engine.formats.spice.Netlist for whole-netlist designs
         self._stage_docs: dict[str, Any] = {}
+        self._netlist_models: dict[str, str] = {}   # netlist part -> library model
         self.dirty = False
 
     # ------------------------------------------------------------ queries
@@ -549,7 +550,8 @@ class Design:
                     if raw.get("name") == pname:
                         return raw, key
             table = {"value": "values", "rotation": "rotations", "taper": "tapers",
-                     "position": "positions", "tolerance": "tolerances"}[key]
+                     "position": "positions", "tolerance": "tolerances",
+                     "model": "models"}[key]
             import tomlkit
             if table not in sdoc:
                 sdoc[table] = tomlkit.table()
@@ -637,6 +639,32 @@ class Design:
         part.tolerance = tol
         self._record(qualname, "tolerance", f"{tol * 100:g}%")
 
+    def set_model(self, qualname: str, model: str) -> None:
+        """Give a device part another model from the parts library (or the
+        design's [models]), e.g. swap clipping diodes or a transistor. A
+        change of device parameters: rebuild the simulator. The design file
+        records it as the part's ``model`` (a ``[stage.models]`` override for
+        a template stage, ``[netlist.models]`` for a netlist design)."""
+        part = self.part(qualname)
+        if part.type not in DEVICE_TYPES:
+            raise DesignError(f"a {part.type} has no device model", part=qualname,
+                              file=self._file(), hint="use 'value' for passive parts")
+        lib = _parts_library(self)
+        try:
+            m = lib.get(model)
+        except SolderlessError as exc:
+            raise DesignError(exc.message, part=qualname, file=self._file(),
+                              hint=exc.hint) from None
+        want = MODEL_KIND[part.type]
+        if str(m.kind).upper() != want:
+            raise DesignError(f"model '{m.name}' is a {m.kind} model, but this part is a "
+                              f"{part.type}", part=qualname, file=self._file(),
+                              hint="models of this kind: " + ", ".join(models_of_kind(self, want)))
+        part.model = m.name
+        if self.netlist is not None:
+            self._netlist_models[part.name] = m.name
+        self._record(qualname, "model", m.name)
+
     def set_position(self, qualname: str, position: int) -> None:
         """Move a selector switch (a topology change: rebuild the simulator)."""
         part = self.part(qualname)
@@ -677,6 +705,64 @@ class Design:
             self._stage_docs[stage]["bypass"] = bool(on)
 
     # ------------------------------------------------------------ save
+    def differences_from(self, base: "Design") -> list[str]:
+        """What differs from ``base``, part by part, in a builder's words:
+        values, pot rotations and tapers, device models, bypassed stages."""
+        out = []
+        mine = {p.qualname: p for p in self.parts()}
+        for p in base.parts():
+            q = mine.get(p.qualname)
+            if q is None:
+                out.append(f"{p.qualname} removed")
+                continue
+            if p.value != q.value and q.value is not None:
+                out.append(f"{p.qualname} {_format_value(p.value or 0.0, p.unit)} -> "
+                           f"{_format_value(q.value, q.unit)}")
+            if p.is_pot and p.rotation != q.rotation:
+                out.append(f"{p.qualname} rotation {p.rotation:.2f} -> {q.rotation:.2f}")
+            if p.is_pot and p.taper != q.taper:
+                out.append(f"{p.qualname} taper {p.taper} -> {q.taper}")
+            if p.model != q.model:
+                out.append(f"{p.qualname} model {p.model} -> {q.model}")
+        for s in self.stages:
+            try:
+                b = base.stage(s.name).bypass
+            except DesignError:
+                continue
+            if b != s.bypass:
+                out.append(f"stage {s.name} {'bypassed' if s.bypass else 'back in'}")
+        return out
+
+    def become_variant(self, target: str | os.PathLike) -> None:
+        """Before saving as a new file: give the design its own name (the
+        base's name with the new file's name) and notes that say what it is
+        a variant of and what differs, so an A/B of base and variant never
+        shows the same name twice and the builder reads the changes."""
+        target = Path(target)
+        base_name = self.name
+        base_file = self.path.name if self.path else "an unsaved design"
+        diffs: list[str] = []
+        if self.path is not None:
+            try:
+                kw = {}
+                if self.netlist is not None:
+                    kw = {"in_source": str(self.doc["netlist"].get("in_source", "VIN")),
+                          "out_node": str(self.doc["netlist"].get("out_node", "out"))}
+                diffs = self.differences_from(load_design(self.path, **kw))
+            except SolderlessError:
+                diffs = []
+        self.name = f"{base_name} ({target.stem})"
+        self.notes = (f"Variant of {base_name} ({base_file}), saved as {target.name}. "
+                      + ("Changes: " + "; ".join(diffs) + "." if diffs else
+                         "No part changed from the base."))
+        if self.doc is not None:
+            import tomlkit
+            if "design" not in self.doc:
+                self.doc["design"] = tomlkit.table()
+            self.doc["design"]["name"] = self.name
+            self.doc["design"]["notes"] = self.notes
+        self.dirty = True
+
     def to_toml(self, target: Path | None = None) -> str:
         """The design file's text. A design made from a whole netlist is
         written as a small design file that names the netlist (relative to
@@ -726,9 +812,19 @@ class Design:
         for st in self.stages:
             for p in st.parts:
                 vals.update(self._element_values(p.name, p))
+        lib = _parts_library(self) if self._netlist_models else None
         for e in circ.elements:
             if e.name in vals and vals[e.name] is not None:
                 e.value = vals[e.name]
+            if e.name in self._netlist_models:
+                m = lib.get(self._netlist_models[e.name])
+                params = dict(m.element_params())
+                if e.kind in ("Q", "J", "M"):
+                    params["TYPE"] = str(m.kind).upper()
+                e.params = params
+                from engine.analysis.regions import ratings_of
+                if ratings_of(m):
+                    circ.ratings[e.name] = ratings_of(m)
         return circ
 
     def resolve_net(self, name: str) -> str:
@@ -764,6 +860,25 @@ class Design:
         return f"{q}({','.join(args)})"
 
 
+def file_mode_for(target: str | os.PathLike) -> int:
+    """Permission bits for a file written to ``target``: those of the file
+    already there, else 0666 less the user's umask (as ``open`` would)."""
+    try:
+        return os.stat(target).st_mode & 0o777
+    except OSError:
+        pass
+    try:
+        with open("/proc/self/status", encoding="ascii") as f:
+            for line in f:
+                if line.startswith("Umask:"):
+                    return 0o666 & ~int(line.split()[1], 8)
+    except (OSError, ValueError):
+        pass
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return 0o666 & ~mask
+
+
 def atomic_write_text(target: str | os.PathLike, text: str) -> None:
     """Write ``text`` to ``target`` atomically: a temporary file in the same
     folder, flushed and synced, then renamed over the target."""
@@ -771,6 +886,9 @@ def atomic_write_text(target: str | os.PathLike, text: str) -> None:
     target.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
     try:
+        # mkstemp makes 0600; the file gets the mode an ordinary write gives
+        # (the user's umask), or keeps the mode of the file it replaces
+        os.fchmod(fd, file_mode_for(target))
         with os.fdopen(fd, "w", encoding="utf-8") as f:
             f.write(text)
             f.flush()
@@ -1022,6 +1140,11 @@ class _Flattener:
         return lib
 
 
+def models_of_kind(d: Design, kind: str) -> list[str]:
+    """Names of the library models of one kind (D, NPN, PNP, NJF ...)."""
+    return sorted(_parts_library(d).names(kind))
+
+
 def _parts_library(d: Design):
     from engine.parts import load_library
     lib = load_library()
@@ -1217,6 +1340,17 @@ def _design_from_netlist_toml(path: Path, data: dict, doc) -> Design:
         part.value = _parse_value(val, file=str(path), part=pname)
         if part.type in POSITIVE_TYPES and not part.value > 0:
             raise DesignError("value must be positive", file=str(path), part=pname)
+    for pname, mname in table.get("models", {}).items():
+        try:
+            st.part(pname)
+        except KeyError:
+            raise DesignError(f"the netlist has no part '{pname}'", file=str(path),
+                              part=pname) from None
+        try:
+            d.set_model(pname, str(mname))
+        except DesignError as exc:
+            raise DesignError(exc.message, file=str(path), part=pname, hint=exc.hint) from None
+    d.dirty = False
     return d
 
 
@@ -1311,6 +1445,16 @@ def _design_from_toml(path: Path) -> Design:
                 part.taper = _check_taper(tap, w, f"{name}.{pname}")
             for pname, pos in raw.get("positions", {}).items():
                 st.part(pname).position = int(pos)
+            for pname, mname in raw.get("models", {}).items():
+                try:
+                    part = st.part(pname)
+                except KeyError:
+                    raise DesignError(f"template '{st.template}' has no part '{pname}'",
+                                      file=file, line=sline, part=f"{name}.{pname}") from None
+                _expect(part.type in DEVICE_TYPES and isinstance(mname, str),
+                        f"[stage.models] {pname}: only a device part takes a model name",
+                        Where(file, sline), f"{name}.{pname}")
+                part.model = str(mname)
             for pname, tol in raw.get("tolerances", {}).items():
                 from engine.values import parse_tolerance
                 try:

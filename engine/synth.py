@@ -502,6 +502,8 @@ def write_wav(path, x_volts, fs: float, fs_volts: float | None = None) -> int:
         raise SolderlessError("folder does not exist", file=path,
                               hint="create the folder or choose another --out path")
     fd, tmp = tempfile.mkstemp(suffix=".wav", prefix=".source-", dir=folder)
+    from engine.design import file_mode_for
+    os.fchmod(fd, file_mode_for(path))      # the user's umask, not mkstemp's 0600
     os.close(fd)
     try:
         sf.write(tmp, x, int(round(fs)), subtype="FLOAT", format="WAV")

@@ -88,6 +88,9 @@ def run_devices(args) -> int:
     if getattr(args, "json", False):
         print(json.dumps(devs, indent=1))
         return 0
+    if devs:
+        print("marks: '<' the default input device, '>' the default output device; "
+              "use the index or part of the name with --input-device / --output-device")
     for d in devs:
         mark = ("<" if d["default_input"] else " ") + (">" if d["default_output"] else " ")
         print(f"{mark} {d['index']:3d}  {d['name']}  ({d['host_api']}, "
@@ -266,12 +269,12 @@ def run_play(args) -> int:
         m = host.meters()
         s = _summary(host, m, wall)
         host.close()
+    written = host.autosaved_paths()        # the files autosave really wrote
     if problem:
         err(f"stopped: {problem}. Your design and its edits are kept"
-            + (f" (autosave: {', '.join(host.autosave_paths())})"
-               if host.edits and host.autosave_paths() else ""))
-    elif host.edits and host.autosave_paths():
-        err(f"{host.edits} edit(s) this session; a copy is in {', '.join(host.autosave_paths())}"
+            + (f" (autosave: {', '.join(written)})" if host.edits and written else ""))
+    elif host.edits and written:
+        err(f"{host.edits} edit(s) this session; a copy is in {', '.join(written)}"
             " ('save' writes the design itself)")
     if args.seconds is not None or args.json:
         if args.json:

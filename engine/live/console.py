@@ -10,8 +10,17 @@ Commands (``help`` prints them)::
     pick PART             choose the part the next commands act on
     up [N] / down [N]     step the picked part N places through its E-series
     value V               set the picked part's value (4k7, 100n, 2.2u ...)
+    up/down on a pot      steps through E3 (1, 2.2, 4.7 per decade): the values
+                          pots are made in
     turn R                turn the picked pot to R (0 to 1); 'turn +' / 'turn -'
                           nudges by 0.05
+    taper LAW             the picked pot's taper: linear, audio, reverse, or
+                          custom R:F,R:F,... (rotation:fraction points, 0..1)
+    model NAME            give the picked device part another library model
+                          (swap diodes or a transistor); 'model' alone lists
+                          the models of its kind
+    times                 attack and release (63 % of the gain-reduction step);
+                          refreshed by itself after each edit
     bypass STAGE          toggle bypass of a stage (rebuild + crossfade): a series
                           stage passes in to out; a side branch (a detector) hears
                           no signal, so the gain cell sits at its resting gain
@@ -28,6 +37,10 @@ import math
 from typing import Callable
 
 from engine.errors import SolderlessError
+
+EDITS = {"up", "down", "value", "turn", "taper", "model", "bypass"}
+TAPER_WORDS = {"linear": "linear", "lin": "linear", "audio": "audio", "log": "audio",
+               "reverse": "reverse-audio", "reverse-audio": "reverse-audio"}
 
 HELP = __doc__.split("::", 1)[1].rstrip()
 
@@ -84,6 +97,25 @@ class Console:
         self.picked: str | None = None
         self.timeout = timeout
         self._legend_shown = False
+        self._times_gen = 0
+
+    def _refresh_times(self) -> None:
+        """After an edit, measure attack and release again on a copy of the
+        design, on a helper thread, and print them when done (only for a
+        design that declares a control)."""
+        import copy
+        import threading
+        try:
+            _, v = self.host._voice(None)
+        except SolderlessError:
+            return
+        d = v.design
+        if not (hasattr(d, "control_probe") and d.control_probe()):
+            return
+        self._times_gen += 1
+        threading.Thread(target=_refresh_times_job,
+                         args=(self, copy.deepcopy(d), self._times_gen, self.host.fs),
+                         daemon=True, name="solderless-times").start()
 
     def _need_pick(self) -> str:
         if self.picked is None:
@@ -97,7 +129,10 @@ class Console:
             return True
         cmd, rest = words[0].lower(), words[1:]
         try:
-            return self._run(cmd, rest)
+            go_on = self._run(cmd, rest)
+            if cmd in EDITS:
+                self._refresh_times()
+            return go_on
         except SolderlessError as exc:
             self.say(f"error: {exc}")
         except (ValueError, IndexError) as exc:
@@ -145,6 +180,47 @@ class Console:
             r = min(1.0, max(0.0, r)) if rest[0] in ("+", "-") else r
             h.set_rotation(part, r).result(self.timeout)
             self.say(f"{part} rotation {r:.2f}")
+        elif cmd == "taper":
+            part = self._need_pick()
+            if not h.part_info(part).is_pot:
+                raise SolderlessError("only a pot has a taper", part=part)
+            law = rest[0].lower()
+            if law == "custom":
+                pts = [[float(a) for a in p.split(":")] for p in "".join(rest[1:]).split(",")
+                       if p]
+                if any(len(p) != 2 for p in pts):
+                    raise ValueError("write custom points as rotation:fraction, e.g. "
+                                     "custom 0:0,0.5:0.15,1:1")
+                taper = pts
+            elif law in TAPER_WORDS:
+                taper = TAPER_WORDS[law]
+            else:
+                raise SolderlessError(f"unknown taper '{rest[0]}'",
+                                      hint="linear, audio, reverse or custom R:F,R:F,...")
+            got = h.set_taper(part, taper).result(self.timeout)
+            info = h.part_info(part)
+            from engine.design import taper_fraction
+            self.say(f"{part} taper {got if isinstance(got, str) else 'custom'}: at rotation "
+                     f"{info.rotation:.2f} the wiper sits at "
+                     f"{100 * taper_fraction(info.taper, info.rotation):.1f} % of the track")
+        elif cmd == "model":
+            part = self._need_pick()
+            _, v = h._voice(None)
+            info = h.part_info(part)
+            if not rest:
+                from engine.design import MODEL_KIND, models_of_kind
+                kind = MODEL_KIND.get(info.type)
+                if kind is None:
+                    raise SolderlessError(f"a {info.type} has no device model", part=part)
+                self.say(f"{part} is {info.model}; models of its kind: "
+                         + ", ".join(models_of_kind(v.design, kind)))
+            else:
+                got = h.set_model(part, rest[0]).result(self.timeout)
+                self.say(f"{part} model {got} (rebuilt)")
+        elif cmd == "times":
+            from engine.analysis.timing import attack_release, describe
+            _, v = h._voice(None)
+            self.say(describe(attack_release(v.design, fs=h.fs)))
         elif cmd == "bypass":
             stage = rest[0]
             _, v = h._voice(None)
@@ -178,6 +254,16 @@ class Console:
         else:
             self.say(f"unknown command '{cmd}'; type 'help'")
         return True
+
+
+def _refresh_times_job(console, design, gen, fs):
+    from engine.analysis.timing import attack_release, describe
+    try:
+        line = describe(attack_release(design, fs=fs))
+    except Exception as exc:            # a readout must never stop the session
+        line = f"attack/release: could not measure ({exc})"
+    if gen == console._times_gen:       # a newer edit supersedes this one
+        console.say("times: " + line)
 
 
 def _bypassed(design, stage: str) -> bool:

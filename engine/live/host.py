@@ -61,6 +61,9 @@ of the pot's whole resistance (so a divider's ratio moves at most 0.5 % of
 full scale per block, whatever the taper): keeps the gain step per block well
 under a 220 Hz sine's own sample-to-sample change (2 sin(pi 220 / 48000) =
 2.9 % of its peak)."""
+POT_SERIES = "E3"
+"""Pots step through 1, 2.2, 4.7 per decade: the values pots are commonly
+made in (common practice, from memory), not E12/E24 resistor values."""
 MAX_RAMP_STEPS = 2000
 IDLE_S = 0.1
 """A ramp stops waiting for blocks when none has run for this long."""
@@ -216,6 +219,30 @@ def _part_undo(design, part: str):
 
 
 _MISSING = object()
+
+
+def _part_model_undo(design, part: str):
+    """A function that puts back ``part``'s model (and its record)."""
+    obj = design.part(part)
+    model = obj.model
+    nl = dict(getattr(design, "_netlist_models", {}) or {})
+    loc = design._part_doc(part, "model") if getattr(design, "doc", None) is not None else None
+    saved = None if loc is None else (loc[0], loc[1], loc[0].get(loc[1], _MISSING))
+    dirty = design.dirty
+
+    def undo():
+        obj.model = model
+        if hasattr(design, "_netlist_models"):
+            design._netlist_models = nl
+        if saved is not None:
+            table, k, val = saved
+            if val is _MISSING:
+                if k in table:
+                    del table[k]
+            else:
+                table[k] = val
+        design.dirty = dirty
+    return undo
 
 
 def scope_tail(ring: FrameRing, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -397,6 +424,7 @@ class LiveHost:
         self.tap_pos = 0
         # autosave
         self._autosave_default = autosave is None or autosave is True
+        self._autosaved: set[str] = set()
         if autosave is False:
             self.autosave_path = None
         elif autosave:
@@ -760,6 +788,10 @@ class LiveHost:
             stem += "-B"
         return self.autosave_path.parent / f"{stem}.toml"
 
+    def autosaved_paths(self) -> list[str]:
+        """The autosave files actually written this session."""
+        return sorted(self._autosaved)
+
     def autosave_paths(self) -> list[str]:
         """Where each voice's edits are autosaved (empty if autosave is off)."""
         return [str(p) for p in (self._autosave_target(i) for i in range(len(self.voices)))
@@ -774,6 +806,7 @@ class LiveHost:
             from engine.design import atomic_write_text
             path.parent.mkdir(parents=True, exist_ok=True)
             atomic_write_text(path, d.to_toml())
+            self._autosaved.add(str(path))
         except (SolderlessError, OSError) as exc:
             self.messages.put(f"autosave of {self.voices[vi].label} failed ({exc}); "
                               "save with 'save PATH'")
@@ -815,14 +848,17 @@ class LiveHost:
     def step_value(self, part: str, steps: int = 1, series: str | None = None,
                    voice=None) -> Future:
         """Step a part's value ``steps`` places through an E-series (IEC
-        60063; default E24, or E12 for capacitors). Result: the new value."""
+        60063; default E24 for resistors, E12 for capacitors, and E3 - 1,
+        2.2, 4.7 per decade - for pots, the values pots are commonly made in,
+        from memory). Result: the new value."""
         from engine.values import step_preferred
 
         def edit(v):
             info = self.part_info(part, voice)
             if info.value is None or not info.value > 0:
                 raise DesignError("this part has no positive value to step", part=part)
-            ser = series or ("E12" if info.type == "capacitor" else "E24")
+            ser = series or POT_SERIES if info.type == "pot" else \
+                series or ("E12" if info.type == "capacitor" else "E24")
             new = step_preferred(info.value, ser, steps)
             return v.design.set_value(part, new), new
         return self._post_part_edit(voice, edit, part)
@@ -920,6 +956,31 @@ class LiveHost:
             return v.build_time_s
         return self._post(job)
 
+    def set_model(self, part: str, model: str, voice=None) -> Future:
+        """Give a device part another library model (swap clipping diodes, a
+        transistor ...): rebuild the simulator and crossfade to it, as a
+        bypass does. Result: the model name as stored."""
+        def job():
+            i, v = self._voice(voice)
+            old = v.design.part(part).model
+            undo = _part_model_undo(v.design, part)
+            v.design.set_model(part, model)
+            try:
+                sim = v.build()
+            except SolderlessError:
+                undo()
+                raise
+            v.warm(sim)
+            if v.sim is None:
+                v.sim = sim
+            else:
+                v.xpos = 0.0
+                v.incoming = sim
+                self._wait_blocks(int(lim.XFADE_S * self.fs / self.block) + 2, timeout=1.0)
+            self._after_edit(i)
+            return v.design.part(part).model if old is not None else model
+        return self._post(job)
+
     def save(self, path: str | os.PathLike | None = None, voice=None) -> Future:
         """Save a design atomically (to its own file unless ``path`` is given).
         Result: the path written."""
@@ -931,6 +992,10 @@ class LiveHost:
                 target = Path.cwd() / Path(target).name
             if target is None:
                 target = Path.cwd() / f"{_stem(v.design)}.toml"
+            old = getattr(v.design, "path", None)
+            if hasattr(v.design, "become_variant") and (
+                    old is None or Path(target).resolve() != Path(old).resolve()):
+                v.design.become_variant(target)      # its own name and notes
             return v.design.save(target)
         return self._post(job)
 
