@@ -26,6 +26,8 @@ Commands (``help`` prints them)::
                           no signal, so the gain cell sits at its resting gain
     a / b                 hear (and edit) the baseline or the variant
     level DB              output level in dB
+    wait S                let S seconds of audio play before the next command
+                          (for scripted sessions)
     meters                print the meters now (the first time with what each one means)
     unmute                clear a safety mute (output ramps up again)
     save [PATH]           save the design atomically (its own file by default)
@@ -137,6 +139,9 @@ class Console:
             self.say(f"error: {exc}")
         except (ValueError, IndexError) as exc:
             self.say(f"error: cannot read '{line.strip()}' ({exc}); type 'help'")
+        except Exception as exc:        # a bug must not end the session: say it, go on
+            self.say(f"error: '{line.strip()}' failed ({type(exc).__name__}: {exc}); "
+                     "playing goes on")
         return True
 
     def _run(self, cmd: str, rest: list[str]) -> bool:
@@ -153,11 +158,18 @@ class Console:
                 extra = f"  rotation {p.rotation:.2f}" if p.is_pot else ""
                 mark = "*" if p.qualname == self.picked else " "
                 self.say(f"{mark} {p.qualname:<22} {_fmt(p.value, p.unit):>12}{extra}")
+            for p in v.design.parts():
+                if p.value is None and p.model:
+                    mark = "*" if p.qualname == self.picked else " "
+                    self.say(f"{mark} {p.qualname:<22} {p.type} model {p.model}")
         elif cmd == "pick":
             info = h.part_info(rest[0])
             self.picked = info.qualname
             extra = f", rotation {info.rotation:.2f}" if info.is_pot else ""
-            self.say(f"picked {info.qualname} = {_fmt(info.value, info.unit)}{extra}")
+            if info.value is None:          # a device: it has a model, not a value
+                self.say(f"picked {info.qualname} ({info.type}, model {info.model})")
+            else:
+                self.say(f"picked {info.qualname} = {_fmt(info.value, info.unit)}{extra}")
         elif cmd in ("up", "down"):
             part = self._need_pick()
             n = int(rest[0]) if rest else 1
@@ -240,6 +252,16 @@ class Console:
         elif cmd == "level":
             h.set_level_db(float(rest[0]))
             self.say(f"output level {float(rest[0]):+.1f} dB")
+        elif cmd == "wait":
+            import time
+            secs = float(rest[0])
+            if not 0 <= secs <= 600:
+                raise SolderlessError(f"wait {rest[0]}: give 0 to 600 seconds")
+            goal = h.blocks + int(math.ceil(secs * h.fs / h.block))
+            t_end = time.monotonic() + 10 * secs + 30
+            while h.blocks < goal and time.monotonic() < t_end and h.error is None:
+                time.sleep(0.01)
+                h.meters()              # keep the meter ring drained
         elif cmd == "meters":
             self.say(meter_line(h.meters()))
             if not self._legend_shown:
