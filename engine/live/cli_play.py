@@ -204,7 +204,13 @@ def run_play(args) -> int:
                     level_db=args.level, ceiling_dbfs=args.ceiling,
                     loudness_match=not args.no_match)
     caution_once(err)
-    err(f"building {', '.join(getattr(v.design, 'name', '?') for v in host.voices)} ...")
+    names = [str(getattr(v.design, "name", "?")) for v in host.voices]
+    if len(names) == 2 and names[0] == names[1]:
+        # two files with one name: tell the sides apart by their files
+        from pathlib import Path
+        names = [f"{n} ({Path(getattr(v.design, 'path', '') or v.label).name})"
+                 for n, v in zip(names, host.voices)]
+    err(f"building {', '.join(names)} ...")
     host.prepare()
     err(f"input calibration: full scale {host.in_fs_v:.3g} V peak "
         f"({M.vrms_to_dbu(host.in_fs_v / math.sqrt(2)):+.1f} dBu sine); source: {source.label}")
