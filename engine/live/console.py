@@ -279,7 +279,11 @@ class Console:
 
 
 def _refresh_times_job(console, design, gen, fs):
+    import time
     from engine.analysis.timing import attack_release, describe
+    time.sleep(0.3)                     # a burst of edits (up, up, up) measures once
+    if gen != console._times_gen:
+        return
     try:
         line = describe(attack_release(design, fs=fs))
     except Exception as exc:            # a readout must never stop the session
