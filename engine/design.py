@@ -974,6 +974,13 @@ class _Flattener:
                     raise DesignError(f"stage '{s}' has no port '{port}'", file=self.file,
                                       line=ln.where.line,
                                       hint="its ports are " + ", ".join(st.ports))
+            # a bypassed side branch's input listens to nothing: held at rest
+            rest_end = [(e, o) for e, o in ((ln.a, ln.b), (ln.b, ln.a))
+                        if e[1] == "in" and any(r.name == e[0] for r in resting)]
+            if rest_end:
+                (s, _), other = rest_end[0]
+                rest_of[s] = self.local(other[0], other[1])
+                continue
             uf.union(self.local(ln.a[0], ln.a[1]), self.local(ln.b[0], ln.b[1]))
         if resolve is not None:
             name = canonical_net(resolve)
