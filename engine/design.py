@@ -530,9 +530,10 @@ class Design:
         return copy.deepcopy(self)
 
     # ------------------------------------------------------------ edits
-    def _part_doc(self, qualname: str, key: str):
+    def _part_doc(self, qualname: str, key: str, create: bool = True):
         """Return the tomlkit table where ``key`` of this part is stored, creating
-        a [stage.values] / [stage.rotations] override for template stages."""
+        a [stage.values] / [stage.rotations] override for template stages
+        (unless ``create`` is False: then None where it does not exist)."""
         if self.doc is None:
             return None
         if self.netlist is not None:
@@ -554,6 +555,8 @@ class Design:
                      "model": "models"}[key]
             import tomlkit
             if table not in sdoc:
+                if not create:
+                    return None
                 sdoc[table] = tomlkit.table()
             return sdoc[table], pname
         for raw in self.doc.get("design", {}).get("part", []):

@@ -194,10 +194,11 @@ def _part_undo(design, part: str):
     except Exception:
         return None
     fields = {k: getattr(obj, k) for k in ("value", "rotation", "taper")}
+    keys = ("value", "rotation", "taper")
     saved = []
-    for key in ("value", "rotation", "taper"):
-        try:
-            loc = design._part_doc(part, key)
+    for key in keys:
+        try:        # look, without creating a table the edit may not need
+            loc = design._part_doc(part, key, create=False)
         except Exception:
             loc = None
         if loc is not None:
@@ -214,6 +215,15 @@ def _part_undo(design, part: str):
                     del table[k]
             else:
                 table[k] = val
+        for key in keys:            # an override table the failed edit created
+            try:
+                loc = design._part_doc(part, key, create=False)
+            except Exception:
+                loc = None
+            if loc is not None and not any(t is loc[0] for t, _, _ in saved):
+                table, k = loc
+                if k in table and k != key:
+                    del table[k]
         design.dirty = dirty
     return undo
 
