@@ -116,3 +116,17 @@ def test_ac_options_have_help_units_and_the_workbench_range():
     a = ap.parse_args(["ac"])
     f = default_frequencies()
     assert (a.fmin, a.fmax) == (DEFAULT_FMIN_HZ, DEFAULT_FMAX_HZ) == (f[0], f[-1])
+
+
+def test_the_autosave_message_names_the_files_really_written(tmp_path):
+    # only B is edited: only B's autosave file is written and named
+    h = H.LiveHost(load_design("booster"), variant=load_design("booster"),
+                   source=ToneSource(440.0, 0.01), block=256,
+                   autosave=tmp_path / "auto" / "mine.toml")
+    h.prepare()
+    h.select("B")
+    h.set_value("boost.C1", 220e-9).result(30)
+    assert h.autosaved_paths() == [str(tmp_path / "auto" / "mine-B.toml")]
+    assert (tmp_path / "auto" / "mine-B.toml").exists()
+    assert not (tmp_path / "auto" / "mine.toml").exists()
+    h.close()
