@@ -202,6 +202,12 @@ def cmd_op(args) -> int:
             else:
                 items.append(f"{k}={v}")
         print(f"  {name:<20} " + "  ".join(items))
+    if op.devices:
+        from engine.analysis import regions as R
+        print(f"  (regions: a BJT is active, near saturation below Vce "
+              f"{R.VCE_SAT + R.MARGIN:g} V, saturated below {R.VCE_SAT:g} V, cut-off under "
+              f"Ic {R.IC_OFF * 1e6:g} uA; a FET amplifies when saturated; a diode is "
+              f"forward from {R.DIODE_ON * 1e6:g} uA; ratings from the parts library)")
     if op.warnings:
         print("\nWarnings")
         for w in op.warnings:
