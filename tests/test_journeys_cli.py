@@ -72,9 +72,10 @@ def _field(line, label, unit):
 
 
 def _times(err):
-    """(attack ms, release ms) of each attack/release line, in order."""
+    """(attack ms, release ms) of each answer to 'times', in order (the
+    refreshes after edits print 'times: ...' whenever they finish)."""
     return [(float(a), float(r)) for a, r in
-            re.findall(r"attack (\d+) ms, release (\d+) ms", err)]
+            re.findall(r"^attack (\d+) ms, release (\d+) ms", err, re.M)]
 
 
 # ---------------------------------------------------------------- designer
@@ -118,7 +119,8 @@ def test_designer_auditions_detector_and_taper_on_the_compressor(null_env, tmp_p
     assert "GR: gain reduction from the control" in err     # explained once
     # attack and release follow the capacitor: a bigger CS, a slower release
     t = _times(err)
-    assert len(t) >= 2
+    assert len(t) == 2
+    assert re.search(r"^times: attack \d+ ms", err, re.M)   # refreshed after the edits
     (a0, r0), (a1, r1) = t[0], t[1]
     assert r1 > 1.2 * r0
     # the taper changed the wiper position, and the level pot is heard
