@@ -27,18 +27,18 @@ def test_taper_command_sets_each_law(booster_host):
     h = booster_host
     said = []
     con = Console(h, say=said.append)
-    con.handle("pick level.LEVEL")
+    con.handle("pick output.VOLUME")
     con.handle("turn 0.5")
     for word, law in (("linear", "linear"), ("audio", "audio"), ("reverse", "reverse-audio")):
         con.handle(f"taper {word}")
-        assert h.part_info("level.LEVEL").taper == law
+        assert h.part_info("output.VOLUME").taper == law
     # linear: half the track at half rotation; audio: 10 % (the audio taper's
     # definition in docs/design-format.md, common practice); reverse: 90 %
     assert taper_fraction("linear", 0.5) == pytest.approx(0.5)
     assert taper_fraction("audio", 0.5) == pytest.approx(0.1, abs=1e-9)
     assert "wiper sits at 90.0 % of the track" in said[-1]
     con.handle("taper custom 0:0,0.5:0.3,1:1")
-    assert h.part_info("level.LEVEL").taper == [[0.0, 0.0], [0.5, 0.3], [1.0, 1.0]]
+    assert h.part_info("output.VOLUME").taper == [[0.0, 0.0], [0.5, 0.3], [1.0, 1.0]]
     assert "wiper sits at 30.0 % of the track" in said[-1]
     con.handle("taper sideways")
     assert said[-1].startswith("error: unknown taper")
@@ -51,13 +51,13 @@ def test_pots_step_through_e3(booster_host):
     h = booster_host
     said = []
     con = Console(h, say=said.append)
-    con.handle("pick level.LEVEL")            # 100k
+    con.handle("pick output.VOLUME")            # 100k
     con.handle("up")
-    assert h.part_info("level.LEVEL").value == pytest.approx(220e3)    # E3: 1, 2.2, 4.7
+    assert h.part_info("output.VOLUME").value == pytest.approx(220e3)    # E3: 1, 2.2, 4.7
     con.handle("up")
-    assert h.part_info("level.LEVEL").value == pytest.approx(470e3)
+    assert h.part_info("output.VOLUME").value == pytest.approx(470e3)
     con.handle("down 3")
-    assert h.part_info("level.LEVEL").value == pytest.approx(47e3)
+    assert h.part_info("output.VOLUME").value == pytest.approx(47e3)
 
 
 def test_model_override_in_the_design_file(tmp_path):

@@ -26,9 +26,9 @@ ROOT = Path(__file__).resolve().parent.parent
 pytestmark = pytest.mark.audio
 
 # names in the built-in designs (TEAM.md lists the new compressor's names)
-DETECTOR_CAP = "detector.CS"       # the detector's time-constant capacitor
-SENSITIVITY = "detector.SUSTAIN"   # the detector's sensitivity pot
-LEVEL_POT = "level.LEVEL"          # the output level pot
+DETECTOR_CAP = "detector.CT"       # the detector's time-constant capacitor
+SENSITIVITY = "detector.THRESHOLD"  # the detector's threshold pot
+LEVEL_POT = "output.VOLUME"        # the output volume pot
 
 ASOUNDRC = "pcm.!default {\n    type null\n}\n"
 METER = re.compile(r"out\s+(-?[\d.]+|-inf) pk\s+(-?[\d.]+|-inf) rms dBFS")
@@ -145,8 +145,8 @@ def test_player_swaps_models_ab_matches_and_saves_both(null_env, tmp_path):
     script = [
         "wait 1",
         "a", "pick clip.D1", "model", "model diode-germanium",
-        "pick clip.D2", "model diode-germanium",
-        "pick tone.TONE", "turn 0.8",
+        "pick clip.D2", "model diode-germanium", "pick clip.D3", "model diode-germanium",
+        "pick tone.TILT", "turn 0.8",
         "b", "pick boost.Q1", "model npn-low-noise-hi-gain",
         "wait 4", "meters",
         f"save {mine_b}",
@@ -165,8 +165,8 @@ def test_player_swaps_models_ab_matches_and_saves_both(null_env, tmp_path):
     # both saved, complete, named apart, and reopen as they were saved
     a, b = load_design(mine_a), load_design(mine_b)
     assert a.name != b.name and a.name != load_design("overdrive").name
-    assert a.part("clip.D1").model == a.part("clip.D2").model == "diode-germanium"
-    assert a.part("tone.TONE").rotation == pytest.approx(0.8)
+    assert {a.part(f"clip.D{k}").model for k in (1, 2, 3)} == {"diode-germanium"}
+    assert a.part("tone.TILT").rotation == pytest.approx(0.8)
     assert b.part("boost.Q1").model == "npn-low-noise-hi-gain"
     for d, p in ((a, mine_a), (b, mine_b)):
         again = tmp_path / f"again-{p.name}"
