@@ -114,9 +114,10 @@ def transistor_check(design, op) -> list[dict]:
     linear (ohmic) region (Vds below Vgs - Vto: the FET acts as a
     resistor); ``off`` when cut off or |Id| < 1 uA (the square-law
     regions, docs/references.md; the engine's device ``region``). Keys
-    ``id``, ``vgs``, ``vds``; ``near cut-off`` / ``near triode`` when the
-    shared classifier finds it within 0.5 V of either edge (op warns about
-    both). ``ic``, ``vbe`` and ``vce`` carry the same
+    ``id``, ``vgs``, ``vds``; ``edge`` is ``near cut-off`` / ``near
+    linear`` when the shared classifier finds an active FET within 0.5 V of
+    either edge (op reports that region and warns). ``ic``, ``vbe`` and
+    ``vce`` carry the same
     figures so one table shows every kind.
     """
     rows = []
@@ -148,13 +149,14 @@ def transistor_check(design, op) -> list[dict]:
             region = "off"
         elif dev_region == "linear":
             region = "triode"
-        elif dev_region in ("near cut-off", "near linear"):
-            region = "near cut-off" if dev_region == "near cut-off" else "near triode"
         else:
             region = "active"
         rows.append({"part": info.qualname, "type": info.type, "id": i_d, "vgs": vgs,
                      "vds": vds, "ic": i_d, "vbe": vgs, "vce": vds, "region": region,
-                     "intended": intended})
+                     "intended": intended,
+                     # within 0.5 V of an edge of the active region (op warns)
+                     "edge": dev_region if dev_region in ("near cut-off", "near linear")
+                     else None})
     return rows
 
 
