@@ -370,8 +370,9 @@ def test_sweep_matches_direct_solve(tmp_path):
 def test_sensitivity_ranks_the_part_that_matters(tmp_path):
     """Divider with a 10 % R1 and a 1 % R2: R1 drives the gain spread."""
     d = _netlist_design(tmp_path, "divider", DIVIDER)
-    d.set_tolerance("netlist.R1", "10%")
-    d.set_tolerance("netlist.R2", "1%")
+    q = {i.name: i.qualname for i in d.parts()}
+    d.set_tolerance(q["R1"], "10%")
+    d.set_tolerance(q["R2"], "1%")
     spec = MC.TrialSpec(d, seed=2, control=False)
     rr = MC.run_trials(spec, range(60), workers=1)
     r = MC.runner_for(spec)

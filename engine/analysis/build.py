@@ -358,8 +358,9 @@ def ratings(design, seconds: float = RATING_SECONDS, fs: float = 48000.0,
     # element name -> designator (a netlist design's elements keep their own
     # names; a pot is two elements)
     owner_of = {}
+    names = {i.qualname: i.name for i in design.parts()}
     for q, ln in lines.items():
-        base = q.split(".", 1)[1] if design.netlist is not None else q
+        base = names[q] if design.netlist is not None else q
         owner_of[base] = q
         if ln.type == "pot":
             owner_of[base + ".a"] = owner_of[base + ".b"] = q

@@ -54,12 +54,12 @@ from engine.live.loudness import RunningLoudness
 from engine.live.ring import FrameRing
 from engine.live.source import LiveInput, Source
 
-DEFAULT_FULL_SCALE_DBU = 3.0
+from engine.levels import FULL_SCALE_DBU as DEFAULT_FULL_SCALE_DBU  # noqa: E402  (engine/levels.py)
 """Default input and output calibration: a full-scale sine is +3 dBU
 (1.10 V RMS, 1.55 V peak) at the jack, a typical instrument-input full
 scale of an audio interface (common practice)."""
 
-LOUDNESS_GATE_POWER = 10 ** ((-70.0 + 0.691) / 10)   # -70 LKFS absolute gate
+LOUDNESS_GATE_POWER = 10 ** ((-70.0 + 0.691) / 10)   # -70 LUFS absolute gate
 MAX_MATCH_DB = 24.0
 MAX_BLOCK = 4096
 MAX_POT_STEP = 0.005
@@ -70,6 +70,9 @@ of the pot's whole resistance (so a divider's ratio moves at most 0.5 % of
 full scale per block, whatever the taper): keeps the gain step per block well
 under a 220 Hz sine's own sample-to-sample change (2 sin(pi 220 / 48000) =
 2.9 % of its peak)."""
+POT_SERIES = "E3"
+"""Pots step through 1, 2.2, 4.7 per decade: the values pots are commonly
+made in (common practice, from memory), not E12/E24 resistor values."""
 MAX_RAMP_STEPS = 2000
 IDLE_S = 0.1
 """A ramp stops waiting for blocks when none has run for this long."""
@@ -148,8 +151,10 @@ def _probes_for(design) -> tuple[list[str], int | None]:
 
 def measure_small_signal(design, fs: float, oversample: int, block: int,
                          control_probe: str | None, factory: Callable):
-    """Small-signal gain at 1 kHz (10 mV peak; RMS ratio over the settled
-    second half of 0.5 s) and the quiescent value of the control probe (mean
+    """Small-signal gain at 1 kHz (1 mV peak, small enough that a
+    compressor's detector stays at rest, so the gain-reduction meter reads
+    0 dB at rest; RMS ratio over the settled second half of 0.5 s) and the
+    quiescent value of the control probe (mean
     over the last third of 0.3 s of silence), on a simulator of its own.
     Returns ``(gain_db or None, quiescent or None, problem or None)``."""
     try:
@@ -181,7 +186,7 @@ def _measure(sim, fs, block, oversample, probes):
         k = sim.process_into(x, y, pb)
         if pb is not None and b >= t_sil * 2 // 3 and k:
             ctl.append(float(pb[0, :k].mean()))
-    f, amp = 1000.0, 0.01
+    f, amp = 1000.0, 0.001
     nt = int(0.5 * fs / n)
     acc_in = acc_out = 0.0
     for b in range(nt):
@@ -194,6 +199,76 @@ def _measure(sim, fs, block, oversample, probes):
     gain_db = 10 * math.log10(acc_out / acc_in) if acc_out > 0 and acc_in > 0 and \
         math.isfinite(acc_out) else None
     return gain_db, (float(np.mean(ctl)) if ctl else None)
+
+
+def _part_undo(design, part: str):
+    """A function that puts ``part`` of ``design`` back as it is now (its
+    value, rotation and taper, and what the design file records for them),
+    or None if the design cannot say. Cheap: no copy of the design."""
+    try:
+        obj = design.part(part)
+    except Exception:
+        return None
+    fields = {k: getattr(obj, k) for k in ("value", "rotation", "taper")}
+    keys = ("value", "rotation", "taper")
+    saved = []
+    for key in keys:
+        try:        # look, without creating a table the edit may not need
+            loc = design._part_doc(part, key, create=False)
+        except Exception:
+            loc = None
+        if loc is not None:
+            table, k = loc
+            saved.append((table, k, table.get(k, _MISSING)))
+    dirty = getattr(design, "dirty", False)
+
+    def undo():
+        for k, val in fields.items():
+            setattr(obj, k, val)
+        for table, k, val in saved:
+            if val is _MISSING:
+                if k in table:
+                    del table[k]
+            else:
+                table[k] = val
+        for key in keys:            # an override table the failed edit created
+            try:
+                loc = design._part_doc(part, key, create=False)
+            except Exception:
+                loc = None
+            if loc is not None and not any(t is loc[0] for t, _, _ in saved):
+                table, k = loc
+                if k in table and k != key:
+                    del table[k]
+        design.dirty = dirty
+    return undo
+
+
+_MISSING = object()
+
+
+def _part_model_undo(design, part: str):
+    """A function that puts back ``part``'s model (and its record)."""
+    obj = design.part(part)
+    model = obj.model
+    nl = dict(getattr(design, "_netlist_models", {}) or {})
+    loc = design._part_doc(part, "model") if getattr(design, "doc", None) is not None else None
+    saved = None if loc is None else (loc[0], loc[1], loc[0].get(loc[1], _MISSING))
+    dirty = design.dirty
+
+    def undo():
+        obj.model = model
+        if hasattr(design, "_netlist_models"):
+            design._netlist_models = nl
+        if saved is not None:
+            table, k, val = saved
+            if val is _MISSING:
+                if k in table:
+                    del table[k]
+            else:
+                table[k] = val
+        design.dirty = dirty
+    return undo
 
 
 def scope_tail(ring: FrameRing, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -338,7 +413,7 @@ class LiveHost:
             raise AudioError(f"oversampling x{os_} is not offered", hint="use 1, 2, 4 or 8")
         self.oversample = os_
         self.source = source or LiveInput(0)
-        dflt = full_scale_peak_from_dbu(DEFAULT_FULL_SCALE_DBU)
+        from engine.levels import FULL_SCALE_V as dflt   # one calibration, every command
         self.in_fs_v = float(in_full_scale_v or dflt)
         self.out_fs_v = float(out_full_scale_v or dflt)
         self.level_db = float(level_db)
@@ -384,6 +459,7 @@ class LiveHost:
         self.tap_pos = 0
         # autosave
         self._autosave_default = autosave is None or autosave is True
+        self._autosaved: set[str] = set()
         if autosave is False:
             self.autosave_path = None
         elif autosave:
@@ -846,6 +922,10 @@ class LiveHost:
         key, stem = self._autosave_key(vi)
         return self._store.path_for(key, stem)
 
+    def autosaved_paths(self) -> list[str]:
+        """The autosave files actually written this session."""
+        return sorted(self._autosaved)
+
     def autosave_paths(self) -> list[str]:
         """Where each voice's edits are autosaved (empty if autosave is off)."""
         return [str(p) for p in (self._autosave_target(i) for i in range(len(self.voices)))
@@ -861,10 +941,12 @@ class LiveHost:
                 key, stem = self._autosave_key(vi)
                 self._store.write(d.to_toml(), key=key, name=stem,
                                   origin=getattr(d, "path", None))
+                self._autosaved.add(str(path))
             else:
                 from engine.design import atomic_write_text
                 path.parent.mkdir(parents=True, exist_ok=True)
                 atomic_write_text(path, d.to_toml())
+                self._autosaved.add(str(path))
         except (SolderlessError, OSError) as exc:
             self.messages.put(f"autosave of {self.voices[vi].label} failed ({exc}); "
                               "save with 'save PATH'")
@@ -891,40 +973,25 @@ class LiveHost:
         return self._post(job)
 
     def _edit_part(self, i: int, v: Voice, edit, part: str | None, t_post) -> Any:
-        """Worker: run one part edit with the revert described above."""
-        before = self._part_state(v, part)
+        """Worker: run one part edit with the revert described above: if the
+        running circuit does not take it, the design (and so a later save)
+        must not keep an edit that was never heard."""
+        undo = _part_undo(v.design, part) if part else None
         changes, result = edit(v)
         try:
             self._apply(v, changes, t_post)
         except SolderlessError as exc:
-            self._restore_part(v, part, before)
+            if undo is not None:
+                undo()
             raise DesignError(f"this value makes the circuit unsolvable ({exc.message}); "
                               "the previous value keeps playing", part=part or exc.part,
                               hint="choose another value") from None
+        except Exception:
+            if undo is not None:
+                undo()
+            raise
         self._after_edit(i)
         return result
-
-    @staticmethod
-    def _part_state(v: Voice, part: str | None):
-        if part is None:
-            return None
-        for p in v.design.parts():
-            if p.qualname == part:
-                return (p.value, p.rotation if p.is_pot else None,
-                        getattr(p, "taper", None) if p.is_pot else None)
-        return None
-
-    @staticmethod
-    def _restore_part(v: Voice, part: str | None, before) -> None:
-        if before is None:
-            return
-        value, rotation, taper = before
-        if taper is not None and hasattr(v.design, "set_taper"):
-            v.design.set_taper(part, taper)
-        if value is not None:
-            v.design.set_value(part, value)
-        if rotation is not None:
-            v.design.set_rotation(part, rotation)
 
     def set_value(self, part: str, value: float, voice=None) -> Future:
         """Change a part's value (re-derive, lands at a block boundary).
@@ -968,14 +1035,17 @@ class LiveHost:
     def step_value(self, part: str, steps: int = 1, series: str | None = None,
                    voice=None) -> Future:
         """Step a part's value ``steps`` places through an E-series (IEC
-        60063; default E24, or E12 for capacitors). Result: the new value."""
+        60063; default E24 for resistors, E12 for capacitors, and E3 - 1,
+        2.2, 4.7 per decade - for pots, the values pots are commonly made in,
+        from memory). Result: the new value."""
         from engine.values import step_preferred
 
         def edit(v):
             info = self.part_info(part, voice)
             if info.value is None or not info.value > 0:
                 raise DesignError("this part has no positive value to step", part=part)
-            ser = series or ("E12" if info.type == "capacitor" else "E24")
+            ser = series or POT_SERIES if info.type == "pot" else \
+                series or ("E12" if info.type == "capacitor" else "E24")
             new = step_preferred(info.value, ser, steps)
             return v.design.set_value(part, new), new
         return self._post_part_edit(voice, edit, part)
@@ -1106,6 +1176,31 @@ class LiveHost:
             return v.build_time_s
         return self._post(job)
 
+    def set_model(self, part: str, model: str, voice=None) -> Future:
+        """Give a device part another library model (swap clipping diodes, a
+        transistor ...): rebuild the simulator and crossfade to it, as a
+        bypass does. Result: the model name as stored."""
+        def job():
+            i, v = self._voice(voice)
+            old = v.design.part(part).model
+            undo = _part_model_undo(v.design, part)
+            v.design.set_model(part, model)
+            try:
+                sim = v.build()
+            except SolderlessError:
+                undo()
+                raise
+            v.warm(sim)
+            if v.sim is None:
+                v.sim = sim
+            else:
+                v.xpos = 0.0
+                v.incoming = sim
+                self._wait_blocks(int(lim.XFADE_S * self.fs / self.block) + 2, timeout=1.0)
+            self._after_edit(i)
+            return v.design.part(part).model if old is not None else model
+        return self._post(job)
+
     def save(self, path: str | os.PathLike | None = None, voice=None) -> Future:
         """Save a design atomically (to its own file unless ``path`` is given).
         Result: the path written. Pot ramps still running finish first, so
@@ -1124,6 +1219,10 @@ class LiveHost:
                 target = Path.cwd() / Path(target).name
             if target is None:
                 target = Path.cwd() / f"{_stem(v.design)}.toml"
+            old = getattr(v.design, "path", None)
+            if hasattr(v.design, "become_variant") and (
+                    old is None or Path(target).resolve() != Path(old).resolve()):
+                v.design.become_variant(target)      # its own name and notes
             return v.design.save(target)
         return self._post(job)
 
@@ -1131,9 +1230,19 @@ class LiveHost:
     def part_info(self, part: str, voice=None):
         """PartInfo of ``part`` in the edited (or given) voice."""
         _, v = self._voice(voice)
-        for p in v.design.parts():
+        infos = v.design.parts()
+        for p in infos:
             if p.qualname == part:
                 return p
+        if getattr(v.design, "netlist", None) is not None:
+            # a netlist design's parts answer to any case and to 'netlist.X'
+            try:
+                obj = v.design.part(part)
+            except SolderlessError:
+                obj = None
+            for p in infos:
+                if obj is not None and p.name == obj.name:
+                    return p
         names = [p.qualname for p in v.design.parts()]
         import difflib
         close = difflib.get_close_matches(part, names, n=3)

@@ -382,7 +382,17 @@ class MeterReader:
         return out
 
     def _gr(self, voice: int) -> tuple[float | None, float | None, float | None]:
+        """(control, gain reduction from the control, measured gain
+        reduction). Only a design that declares a control (``[meters]
+        control``) has them: a booster has no gain reduction to show. Both
+        read 0 dB at rest: the control against its resting value, the
+        measured one against the small-signal gain at the resting control;
+        the measured one is capped at 0 dB (a level above the resting gain
+        is the signal's spectrum against the 1 kHz reference, not a gain
+        reduction)."""
         ctl = self.control_a if voice == 0 else self.control_b
+        if ctl is None:
+            return None, None, None
         gr_ctl = None
         cur = None
         hist = self.control_hist[voice]
@@ -396,7 +406,7 @@ class MeterReader:
         out = self.out_a if voice == 0 else self.out_b
         rin, rout = self.inp.rms, out.rms
         if g is not None and rin > 1e-6 and rout > 0:
-            gr_meas = 20.0 * math.log10(rout / rin) - g
+            gr_meas = min(0.0, 20.0 * math.log10(rout / rin) - g)
         return cur, gr_ctl, gr_meas
 
     def snapshot(self) -> dict:
