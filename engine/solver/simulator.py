@@ -223,9 +223,17 @@ class Simulator:
         from engine.solver.oversample import Resampler
         self._rs = Resampler(self.oversample, self.block_max, self.fs)
         self.latency_samples = float(self._rs.latency)
-        #: probes are read inside the kernel, behind the upsampling filter
-        #: only: half the round trip (each filter delays by half of it)
-        self.probe_latency_samples = 0.5 * self.latency_samples
+        # Probes are read inside the kernel, behind the upsampling filter
+        # only, which delays by half the round trip: latency*L/2 kernel
+        # samples.  A probe frame is taken at the kernel sample whose phase
+        # makes that delay a whole number of outer samples (for an odd
+        # latency, half an outer sample after the sample's own instant), so
+        # the frames line up with the audio exactly.
+        L = self.oversample
+        dk = int(round(self.latency_samples * L / 2))
+        self._probe_phase = dk % L
+        #: delay of probe frames behind the input, whole outer samples
+        self.probe_latency_samples = float((dk - self._probe_phase) // L)
         self._T = 1.0 / (self.fs * self.oversample)
         out_a, out_b = circuit.output
         rows = [make_probe(net, f"v({out_a},{out_b})")]
@@ -311,6 +319,7 @@ class Simulator:
         self._ws[10, 2] = self.tolerance
         self._ws[10, 3] = K.RELTOL * self.tolerance / K.ERR_TOL
         self._cnt[:] = 0
+        self._cnt[K.C_PHASE] = (self._pdec - self._probe_phase) % self._pdec
         self._model = m
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i[:n]
                           + m.Vy[0] @ dc.v)
