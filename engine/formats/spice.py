@@ -313,8 +313,6 @@ _UNSUPPORTED_ELEMENTS = {
     "T": "transmission lines are not supported",
     "O": "transmission lines are not supported",
     "U": "transmission lines are not supported",
-    "S": "switches (S) are not supported; use a resistor of the on or off value",
-    "W": "switches (W) are not supported; use a resistor of the on or off value",
     "A": "code-model (A) devices are not supported",
     "Z": "MESFETs are not supported; use a JFET (J) model",
     "N": "device-level (N) simulation is not supported",
@@ -816,6 +814,8 @@ class _Reader:
                 self.current_controlled(c, letter, name, net, scope, prefix)
             elif letter in "DQJM":
                 self.device(c, letter, name, net, scope)
+            elif letter in "SW":
+                self.switch(c, letter, name, net, scope, prefix)
             elif letter == "X":
                 self.instance(c, name, net, scope, chain)
             elif letter in _UNSUPPORTED_ELEMENTS:
@@ -1082,6 +1082,65 @@ class _Reader:
                          c.where), c)
         self.add(Element(f"{name}.R", "R", (x, GROUND), 1.0, {}, c.where), c)
         self.add(Element(f"{name}.E", "E", (a, b, x, GROUND), 1.0, {}, c.where), c)
+
+    def switch(self, c, letter, name, net, scope, prefix):
+        """``S n+ n- nc+ nc- MODEL [ON|OFF]`` (``.model SW``: VT, VH, RON,
+        ROFF) and ``W n+ n- VCTRL MODEL [ON|OFF]`` (``.model CSW``: IT, IH,
+        RON, ROFF), as the ngspice manual's "Switches" chapter has them; a
+        W senses its source's current through an H source ``<name>.H`` (of
+        1/(|IT| + IH) ohm, thresholds scaled alike) into the internal node
+        ``<name>#i``."""
+        pos, kv = self.kv(c.tokens[1:], c)
+        nn = 4 if letter == "S" else 3
+        form = (f"{c.tokens[0]} n+ n- nc+ nc- MODEL [ON|OFF]" if letter == "S" else
+                f"{c.tokens[0]} n+ n- VCTRL MODEL [ON|OFF]")
+        state = 0.0
+        if len(pos) == nn + 2 and pos[-1].lower() in ("on", "off"):
+            state = 1.0 if pos[-1].lower() == "on" else 0.0
+            pos = pos[:-1]
+        if len(pos) != nn + 1 or kv:
+            self.err(c, "needs its nodes, " + ("the controlling V source, " if letter == "W"
+                                               else "") + "a model and ON or OFF", form, name)
+        want = "SW" if letter == "S" else "CSW"
+        model = self.model(pos[nn], c, scope, name)
+        if model is None:
+            self.err(c, f"model '{pos[nn]}' is not defined",
+                     f"add a .model {pos[nn]} {want}(VT=... VH=... RON=... ROFF=...)", name)
+        if model.type.upper() != want:
+            self.err(c, f"model '{model.name}' is of type {model.type}, a {letter} switch "
+                        f"needs a {want} model", part=name)
+        names = {"VT": "VT", "VH": "VH", "RON": "RON", "ROFF": "ROFF"} if letter == "S" \
+            else {"IT": "VT", "IH": "VH", "RON": "RON", "ROFF": "ROFF"}
+        params: dict[str, Any] = {"STATE": state, "MODEL": model.name}
+        where = f"{model.where.file}:{model.where.line}: " if model.where else ""
+        for k, v in model.params.items():
+            if k in names:
+                params[names[k]] = v
+            else:
+                self.warn(f"{where}model {model.name}: {k} is not simulated and is ignored")
+        if params.get("VH", 0.0) < 0:
+            self.err(c, f"model '{model.name}': a negative hysteresis is not supported",
+                     "give VH (IH) >= 0", name)
+        self.element_models[name] = model.name
+        a, b = net(pos[0]), net(pos[1])
+        if letter == "S":
+            self.add(Element(name, "SW", (a, b, net(pos[2]), net(pos[3])), 0.0, params,
+                             c.where), c)
+            return
+        own = pos[2][2:] if len(pos[2]) > 2 and pos[2][1] == "." else pos[2]
+        if own[:1].upper() != "V":
+            self.err(c, f"'{pos[2]}' is not a voltage source: the current through a V "
+                        "source controls it", form, name)
+        ctl = (prefix + "." if prefix else "") + own.upper()
+        x = f"{name.lower()}#i"
+        # the transresistance scales the thresholds to about a volt, so the
+        # sensed voltage moves well above the kernel's bypass step
+        span = abs(params.get("VT", 0.0)) + params.get("VH", 0.0)
+        k = 1.0 / span if span > 0 else 1e3
+        params["VT"] = params.get("VT", 0.0) * k
+        params["VH"] = params.get("VH", 0.0) * k
+        self.add(Element(f"{name}.H", "H", (x, GROUND), k, {"CONTROL": ctl}, c.where), c)
+        self.add(Element(name, "SW", (a, b, x, GROUND), 0.0, params, c.where), c)
 
     def current_controlled(self, c, letter, name, net, scope, prefix):
         """F (current gain) and H (transresistance), linear form: ``F1 out+
@@ -1548,7 +1607,7 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
                               hint="replace it by a transistor-level subcircuit "
                                    "to compare with a SPICE simulator")
         if el.kind not in ("R", "C", "L", "V", "I", "E", "G", "F", "H", "D", "Q", "J", "M",
-                           "BEHAV"):
+                           "BEHAV", "SW"):
             raise DesignError(f"element kind '{el.kind}' cannot be written as SPICE",
                               file=f, line=ln, part=el.name)
         sname = _spice_name(el)
@@ -1578,6 +1637,12 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
                 s += f" {kind}(" + " ".join(_fmt(v) for v in vals) + ")"
         elif el.kind in ("E", "G"):
             s = f"{sname} {nodes} {_fmt(el.value)}"
+        elif el.kind == "SW":
+            mname = "M_" + sname.replace(".", "_")
+            mp = " ".join(f"{k}={_fmt(float(p[k]))}" for k in ("VT", "VH", "RON", "ROFF")
+                          if k in p)
+            models.append(f".model {mname} SW({mp})")
+            s = f"{sname} {nodes} {mname}" + (" ON" if float(p.get("STATE", 0)) > 0.5 else "")
         elif el.kind == "BEHAV":
             from engine.devices import behav
             tree = behav.map_nets(behav.parse(str(p.get("EXPR", ""))), node)

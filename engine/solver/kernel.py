@@ -95,7 +95,7 @@ def _refresh_cache_stamp():
 
 _refresh_cache_stamp()
 
-from engine.devices import behav, bjt, diode, jfet, mosfet, opamp, ota  # noqa: E402
+from engine.devices import behav, bjt, diode, jfet, mosfet, opamp, ota, switch  # noqa: E402
 from engine.devices._common import VT  # noqa: E402
 
 #: Largest number of ports whose Jacobian blocks a low-rank update of the
@@ -274,6 +274,8 @@ def eval_one(c, par, pa, v, po, i, G):
         mosfet.evaluate(par, pa, v, po, i, G)
     elif c == 9:
         behav.evaluate(par, pa, v, po, i, G)
+    elif c == 10:
+        switch.evaluate(par, pa, v, po, i, G)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
