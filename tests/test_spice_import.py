@@ -184,7 +184,9 @@ def _err(text, **kw):
 
 def test_errors_name_file_line_card_and_reason():
     m = _err("t\nR1 a 0 1k\nS1 a 0 c 0 SMOD\n")
-    assert "pedal.cir:3" in m and "S1 a 0 c 0 SMOD" in m and "switches (S) are not supported" in m
+    assert "pedal.cir:3" in m and "S1 a 0 c 0 SMOD" in m and "model 'SMOD' is not defined" in m
+    m = _err("t\nR1 a 0 1k\nK1 L1 L2 0.9\n")
+    assert "pedal.cir:3" in m and "coupled inductors (K) are not supported" in m
     m = _err("t\nR1 a 0 1k\nM1 d g s b NOPE\n")
     assert "pedal.cir:3" in m and "model 'NOPE' is not defined" in m
     m = _err("t\nR1 a 0 1k\nM1 d g s b QX\n.model QX NPN(IS=1e-14)\n")

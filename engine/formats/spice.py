@@ -1066,6 +1066,17 @@ class _Reader:
                      "remove them", name)
         if expr[:1] == "'" and expr[-1:] == "'":
             expr = expr[1:-1]
+        if expr[:1] == "{" and expr[-1:] == "}" and expr.count("{") == 1:
+            expr = expr[1:-1]
+        # '{gain}*v(in)': a braced parameter expression inside is its value
+        # (ngspice substitutes those before it reads the expression)
+        for m in list(re.finditer(r"\{([^{}]*)\}", expr))[::-1]:
+            try:
+                val = evaluate_expression(m.group(1), scope_params(scope), scope_funcs(scope))
+            except ValueError as exc:
+                self.err(c, f"expression: {exc}", "a braced part must be a .param "
+                         "expression", name)
+            expr = expr[:m.start()] + f"({val!r})" + expr[m.end():]
         try:
             tree = behav.parse(expr, scope_params(scope), net)
         except behav.ExprError as exc:
