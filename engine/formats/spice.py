@@ -19,6 +19,13 @@ What is read (case-insensitive, as in SPICE):
   plain sources ``NAME.P1`` ...), D, Q (three nodes and a model; a substrate
   node or an area factor is ignored with a warning), J, M (four nodes, level
   1; instance W, L and M);
+* ``sin(`` and ``sine(``, ``dc=``/``ac=`` on sources, ``r=``/``c=``/``l=``
+  and ``m=`` on R, C, L; R and C cards naming an R or C ``.model``
+  (:meth:`_Reader.model_value`);
+* behavioural sources: B ``V=``/``I=``, E/G ``VALUE=`` (``vol=``/``cur=``)
+  and ``TABLE`` (:meth:`_Reader.behavioural`, :mod:`engine.devices.behav`);
+* switches: S with ``.model SW`` and W with ``.model CSW``, ON/OFF
+  (:meth:`_Reader.switch`, :mod:`engine.devices.switch`);
 * ``.model NAME TYPE(params)`` for D, NPN, PNP, NJF, PJF, NMOS and PMOS
   (another LEVEL is read as level 1, with a warning); parameters
   Solderless does not simulate (CJO, TT, ...) are kept in
@@ -822,7 +829,7 @@ class _Reader:
                 self.err(c, _UNSUPPORTED_ELEMENTS[letter], part=name)
             else:
                 self.err(c, f"'{word}' is not a SPICE element name",
-                         "element names start with R, C, L, V, I, E, G, F, H, D, Q, J or X",
+                         "element names start with R, C, L, V, I, E, G, F, H, B, S, W, D, Q, J, M or X",
                          part=name)
 
     def passive(self, c, letter, name, net, scope):
