@@ -184,7 +184,9 @@ def _err(text, **kw):
 
 def test_errors_name_file_line_card_and_reason():
     m = _err("t\nR1 a 0 1k\nS1 a 0 c 0 SMOD\n")
-    assert "pedal.cir:3" in m and "S1 a 0 c 0 SMOD" in m and "switches (S) are not supported" in m
+    assert "pedal.cir:3" in m and "S1 a 0 c 0 SMOD" in m and "model 'SMOD' is not defined" in m
+    m = _err("t\nR1 a 0 1k\nK1 L1 L2 0.9\n")
+    assert "pedal.cir:3" in m and "coupled inductors (K) are not supported" in m
     m = _err("t\nR1 a 0 1k\nM1 d g s b NOPE\n")
     assert "pedal.cir:3" in m and "model 'NOPE' is not defined" in m
     m = _err("t\nR1 a 0 1k\nM1 d g s b QX\n.model QX NPN(IS=1e-14)\n")
@@ -199,8 +201,12 @@ def test_errors_name_file_line_card_and_reason():
     assert "EXP" in m and "pedal.cir:2" in m
     m = _err("t\nE1 a 0 POLY(1) b 0 0 1 0.5\n")
     assert "above the first degree" in m
-    m = _err("t\nE1 a 0 VALUE={v(b)*2}\n")
-    assert "linear POLY" in m
+    m = _err("t\nE1 a 0 LAPLACE {v(b)} = {1/(1+s)}\n")
+    assert "linear POLY" in m and "pedal.cir:2" in m
+    m = _err("t\nE1 a 0 VALUE={v(b)*nope(2)}\n")
+    assert "pedal.cir:2" in m and "unknown function 'nope'" in m
+    m = _err("t\nB1 a 0 V=i(V1)*2\n")
+    assert "pedal.cir:2" in m and "branch current" in m
     m = _err("t\nR1 a 0 4x7y\n")
     assert "pedal.cir:2" in m and "R1" in m
     m = _err("t\nR1 a 0 {rx*2}\n")

@@ -153,6 +153,32 @@ def make_probe(net: Network, text: str) -> ProbeRow:
                       hint="probe a transistor, diode, JFET, OTA or op-amp by its name")
 
 
+def source_rate_warnings(net: Network, step: float) -> list[str]:
+    """Warnings for waveform sources the simulation step cannot carry: a SIN
+    at or above the kernel's Nyquist frequency 1/(2*step) folds back
+    (aliases) to a lower frequency, a PULSE repeating in under two steps
+    is not a pulse train any more.  The input source is not played from its
+    waveform and is not checked."""
+    out = []
+    nyq = 0.5 / step
+    for k, el in enumerate(net.sources):
+        if k == net.input_index:
+            continue
+        kind, par = source_wave(el)
+        where = el.where
+        at = (f"{where.file}:{where.line}: " if where and where.file and where.line
+              else "")
+        if kind == 1 and abs(par[2]) >= nyq:
+            out.append(f"{at}source {el.name}: SIN frequency {par[2]:g} Hz is at or above "
+                       f"the simulation's Nyquist frequency {nyq:g} Hz and aliases; raise "
+                       "the sample rate or the oversampling")
+        elif kind == 2 and 0 < par[6] < 2.0 * step:
+            out.append(f"{at}source {el.name}: PULSE period {par[6]:g} s is shorter than two "
+                       f"simulation steps ({2 * step:g} s) and aliases; raise the sample "
+                       "rate or the oversampling")
+    return out
+
+
 class Simulator:
     """Real-time simulation of a flat circuit.
 
@@ -172,7 +198,10 @@ class Simulator:
         relative tolerance (kernel RELTOL, 1e-6 of the port voltage) scales
         with it.
 
-    The simulation starts at the DC operating point (no thump).
+    The simulation starts at the DC operating point (no thump), solved with
+    every source at its t = 0 value (the input source at its DC value), as
+    ngspice starts a transient.  ``warnings`` lists waveform sources above
+    the simulation's Nyquist frequency (:func:`source_rate_warnings`).
     """
 
     def __init__(self, circuit: Circuit, fs: float = 48000.0, oversample: int = 1,
@@ -194,6 +223,17 @@ class Simulator:
         from engine.solver.oversample import Resampler
         self._rs = Resampler(self.oversample, self.block_max, self.fs)
         self.latency_samples = float(self._rs.latency)
+        # Probes are read inside the kernel, behind the upsampling filter
+        # only, which delays by half the round trip: latency*L/2 kernel
+        # samples.  A probe frame is taken at the kernel sample whose phase
+        # makes that delay a whole number of outer samples (for an odd
+        # latency, half an outer sample after the sample's own instant), so
+        # the frames line up with the audio exactly.
+        L = self.oversample
+        dk = int(round(self.latency_samples * L / 2))
+        self._probe_phase = dk % L
+        #: delay of probe frames behind the input, whole outer samples
+        self.probe_latency_samples = float((dk - self._probe_phase) // L)
         self._T = 1.0 / (self.fs * self.oversample)
         out_a, out_b = circuit.output
         rows = [make_probe(net, f"v({out_a},{out_b})")]
@@ -209,11 +249,12 @@ class Simulator:
         self._run = K.run_block_small if 0 < net.np_ <= K.SMALL_PORTS else K.run_block
         skind, spars = [], []
         for k, el in enumerate(net.sources):
-            kd, par = source_wave(el)
+            kd, par = source_wave(el, self._T)
             if k == net.input_index:
                 kd, par = 0, np.zeros(0)
             skind.append(kd)
             spars.append(par)
+        self.warnings = source_rate_warnings(net, self._T)
         self._skind = np.array(skind, dtype=np.int64)
         self._sptr = np.zeros(len(spars) + 1, dtype=np.int64)
         self._sptr[1:] = np.cumsum([p.size for p in spars]) if spars else []
@@ -278,6 +319,7 @@ class Simulator:
         self._ws[10, 2] = self.tolerance
         self._ws[10, 3] = K.RELTOL * self.tolerance / K.ERR_TOL
         self._cnt[:] = 0
+        self._cnt[K.C_PHASE] = (self._pdec - self._probe_phase) % self._pdec
         self._model = m
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i[:n]
                           + m.Vy[0] @ dc.v)
