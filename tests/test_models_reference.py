@@ -289,3 +289,27 @@ def test_design_temperature_field(tmp_path):
     bad.write_text(src.read_text().replace("temperature = 55", "temperature = 900"))
     with pytest.raises(DesignError, match="out of range"):
         load_design(bad)
+
+
+def test_live_host_changes_the_temperature_like_a_part_value():
+    """The live edit path: ``set_value("temperature", t)`` on a playing
+    host re-derives the devices; the operating point is then the one of
+    the design saved at that temperature."""
+    from engine.design import load_design
+    from engine.live import host as H
+    h = H.LiveHost(load_design("booster"), autosave=False, block=128)
+    h.run_offline(4)
+    h.set_value("temperature", 60.0).result(10)
+    h.run_offline(4)
+    sim = h.voices[0].sim
+    assert sim.temperature == 60.0
+    hot = load_design("booster")
+    hot.temperature = 60.0
+    from engine.solver import Simulator
+    ref = Simulator(hot.flatten(), 48000.0).operating_point().nets
+    cold = Simulator(load_design("booster").flatten(), 48000.0).operating_point().nets
+    ours = sim.operating_point().nets
+    moved = max(abs(ref[k] - cold[k]) for k in ref)
+    assert moved > 1e-3                                   # the bias does move
+    assert max(abs(ours[k] - ref[k]) for k in ref) < 1e-6
+    h.close()

@@ -209,6 +209,7 @@ def evaluate(par, pa, v, po, i, G):
     rbf = par[pa + 10]
     rbr = par[pa + 11]
     hi = par[pa + 14] != 0.0 or par[pa + 15] != 0.0
+    q1 = 1.0
     if hi:
         ict, dict_dvbe, dict_dvbc, qb, dqbdve, dqbdvc = _gummel_poon(
             par, pa, vbe, vbc, cbe, gbe, cbc, gbc)
@@ -220,9 +221,7 @@ def evaluate(par, pa, v, po, i, G):
         ict = (cbe - cbc) * q1
         dict_dvbe = gbe * q1 - (cbe - cbc) * par[pa + 7]
         dict_dvbc = -gbc * q1 - (cbe - cbc) * par[pa + 6]
-        qb = 1.0 / q1
-        dqbdve = qb * qb * par[pa + 7]
-        dqbdvc = qb * qb * par[pa + 6]
+        qb = dqbdve = dqbdvc = 0.0  # only the base-resistance port needs them
     # leakage (recombination) currents ISE/NE, ISC/NC, with GMIN
     cben = GMIN * vbe
     gben = GMIN
@@ -262,6 +261,10 @@ def evaluate(par, pa, v, po, i, G):
             drb_dvbe = drb * dib_dvbe
             drb_dvbc = drb * dib_dvbc
         else:
+            if not hi:
+                qb = 1.0 / q1
+                dqbdve = qb * qb * par[pa + 7]
+                dqbdvc = qb * qb * par[pa + 6]
             rqb = 1.0 / qb
             rbb = rbm + rbpi * rqb
             drb_dvbe = -rbpi * rqb * rqb * dqbdve

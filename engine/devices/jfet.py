@@ -70,6 +70,8 @@ def layout(el, temp=None) -> DeviceLayout:
         raise DesignError("model parameter PB must differ from VTO (B's doping tail "
                           "divides by PB - VTO)", file=getattr(w, "file", None),
                           line=getattr(w, "line", None), part=el.name)
+    if p["B"] == 1.0 and any(str(k).upper() == "PB" for k in (el.params or {})):
+        notes.append(("PB", _CAP))  # with B = 1 only the capacitances use it
     pol = polarity(el, ("NJF", "PJF"))
     d, g, s = el.nodes
     stamps, internal = [], []
