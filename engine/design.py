@@ -681,6 +681,8 @@ class Design:
         for e in circ.elements:
             if e.name in vals and vals[e.name] is not None:
                 e.value = vals[e.name]
+        if self.temperature is not None:
+            circ.temperature = self.temperature
         return circ
 
     def resolve_net(self, name: str) -> str:
@@ -1057,6 +1059,7 @@ def _design_from_netlist(path: Path, in_source: str, out_node: str) -> Design:
     d.path = path
     d.name = nl.title or path.stem
     d.netlist = nl
+    d.temperature = circ.temperature  # .temp / .options temp=
     parts = []
     for e in circ.elements:
         parts.append(Part(name=e.name, type=_part_type(e), nodes=list(e.nodes),

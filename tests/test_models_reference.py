@@ -313,3 +313,13 @@ def test_live_host_changes_the_temperature_like_a_part_value():
     assert moved > 1e-3                                   # the bias does move
     assert max(abs(ours[k] - ref[k]) for k in ref) < 1e-6
     h.close()
+
+
+def test_netlist_design_keeps_and_changes_its_temperature():
+    """A whole netlist opened as a design keeps its ``.temp`` and can be
+    changed like a part value."""
+    from engine.design import load_design
+    d = load_design(str(S.NETLIST_DIR / "ge_stage.cir"))
+    assert d.temperature == 45.0 and d.flatten().temperature == 45.0
+    d.set_value("temperature", 10)
+    assert d.flatten().temperature == 10.0
