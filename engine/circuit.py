@@ -102,6 +102,16 @@ class Circuit:
     ratings: dict = field(default_factory=dict)
     #: devices whose design note says they are off at rest by design (reports)
     off_by_design: set = field(default_factory=set)
+    #: circuit temperature in degrees Celsius (None: 27, the SPICE default);
+    #: device models derive IS, BF ... at it from their TNOM
+    temperature: float | None = None
+    #: start-up state as SPICE's ``.nodeset`` (net -> volts: a first guess
+    #: held while the operating point is first solved, then released) and
+    #: ``.ic`` (net -> volts: held while the render's starting point is
+    #: solved, released when it starts); devices with params['OFF'] start
+    #: with their junctions off
+    nodeset: dict[str, float] = field(default_factory=dict)
+    ic: dict[str, float] = field(default_factory=dict)
 
     def element(self, name: str) -> Element:
         for e in self.elements:
@@ -119,4 +129,5 @@ class Circuit:
         return list(seen)
 
     def copy(self) -> "Circuit":
-        return replace(self, elements=[e.copy() for e in self.elements])
+        return replace(self, elements=[e.copy() for e in self.elements],
+                       nodeset=dict(self.nodeset), ic=dict(self.ic))

@@ -624,6 +624,11 @@ class _Reader:
         self.names: dict[str, Where] = {}
         self.element_models: dict[str, str] = {}
         self._warned: set[str] = set()
+        # start-up state and temperature cards (top level)
+        self.temperature: float | None = None
+        self.tnom: float | None = None
+        self.ic: dict[str, float] = {}
+        self.nodeset: dict[str, float] = {}
 
     # -- helpers ---------------------------------------------------------
     def err(self, card: Card, why: str, hint: str | None = None, part=None):
@@ -787,6 +792,9 @@ class _Reader:
             word = c.tokens[0]
             low = word.lower()
             if low.startswith("."):
+                if low in (".temp", ".options", ".option", ".opt", ".ic", ".nodeset"):
+                    self.setting(c, low, scope, prefix, netmap)
+                    continue
                 if low in _IGNORED_DOT:
                     self.ignored.append((c.line, c.text))
                     continue
@@ -831,6 +839,44 @@ class _Reader:
                 self.err(c, f"'{word}' is not a SPICE element name",
                          "element names start with R, C, L, V, I, E, G, F, H, B, S, W, D, Q, J, M or X",
                          part=name)
+
+    def setting(self, c, low, scope, prefix, netmap):
+        """``.temp T``, ``.options temp=T tnom=T`` (the rest of .options is
+        read by the analysis, not the circuit), ``.ic v(n)=V``,
+        ``.nodeset v(n)=V`` (ngspice manual: the circuit temperature, the
+        models' default nominal temperature, and the start-up state)."""
+        text = c.text
+        if low == ".temp":
+            vals = text.split()[1:]
+            if not vals:
+                self.err(c, ".temp needs a temperature in degrees Celsius", ".temp 50")
+            self.temperature = self.value(vals[0].strip(","), c, scope, "temperature")
+            if len(vals) > 1:
+                self.warn(f"{c.file}:{c.line}: .temp lists several temperatures; "
+                          f"the first ({self.temperature:g} degC) is simulated")
+            return
+        if low in (".options", ".option", ".opt"):
+            self.ignored.append((c.line, c.text))
+            for m in re.finditer(r"\b(temp|tnom)\s*=\s*([^\s,]+)", text, flags=re.I):
+                v = self.value(m.group(2), c, scope, m.group(1).lower())
+                if m.group(1).lower() == "temp":
+                    self.temperature = v
+                else:
+                    self.tnom = v
+            return
+        pairs = re.findall(r"\bv\(\s*([^)\s,]+)\s*\)\s*=\s*([^\s)]+)", text, flags=re.I)
+        if not pairs:
+            self.err(c, f"{low} needs node voltages", f"{low} v(out)=4.5")
+        target = self.ic if low == ".ic" else self.nodeset
+        for node, val in pairs:
+            n = canonical_net(node.lower())
+            if n == GROUND:
+                continue
+            if n in netmap:
+                n = netmap[n]
+            elif prefix:
+                n = prefix.lower() + "." + n
+            target[n] = self.value(val, c, scope, f"{low} value")
 
     def passive(self, c, letter, name, net, scope):
         """R, C, L; R and C may name an R or C ``.model`` (ngspice manual,
@@ -1265,10 +1311,12 @@ class _Reader:
             self.err(c, f"model '{model.name}' is of type {mtype}, a {letter} "
                      f"element needs {want}", part=name)
         extra = pos[mi + 1:]
+        off = False
         for tok in extra:
             if tok.lower() == "off":
-                self.warn(f"{c.file}:{c.line}: {name}: OFF is ignored "
-                          "(the operating point is always solved)")
+                if letter == "M":
+                    self.warn(f"{c.file}:{c.line}: {name}: OFF is ignored for a MOSFET")
+                off = True
             else:
                 self.value(tok, c, scope, "area factor", name)
                 self.warn(f"{c.file}:{c.line}: {name}: area factor {tok} is ignored")
@@ -1283,13 +1331,18 @@ class _Reader:
         if kind in ("Q", "J", "M"):
             params["TYPE"] = mtype
         params["MODEL"] = model.name
+        if off and letter != "M":
+            params["OFF"] = 1.0
         self.element_models[name] = model.name
         self.add(Element(name, letter, tuple(net(p) for p in pos[:nn]), 0.0,
                          params, c.where), c)
 
     def device_params(self, model: SpiceModel, kind: str) -> dict[str, Any]:
+        from engine.devices import REGISTRY
+        mod = REGISTRY[kind]
         sim = _simulated(kind)
-        alias = _ALIAS[kind]
+        ign = getattr(mod, "IGNORED", {})
+        alias = {**_ALIAS[kind], **getattr(mod, "ALIASES", {})}
         out: dict[str, Any] = {}
         where = f"{model.where.file}:{model.where.line}: " if model.where else ""
         for k, v in model.params.items():
@@ -1300,6 +1353,9 @@ class _Reader:
                 if key == "LEVEL" and v != 1:
                     self.warn(f"{where}model {model.name}: LEVEL={v:g} is read "
                               "as the basic level-1 model")
+            elif key in ign:
+                self.warn(f"{where}model {model.name}: {k} is not simulated and is "
+                          f"ignored; it affects the {ign[key]}")
             elif key in _STANDARD[kind] or k in _STANDARD[kind]:
                 self.warn(f"{where}model {model.name}: {k} is not simulated "
                           "and is ignored")
@@ -1451,7 +1507,19 @@ def parse_netlist(text: str, *, file: str = "<text>", in_source: str = "VIN",
     reader = _Reader(library, ignored, warnings)
     scope, rest = reader.make_scope(top, defs, {}, None)
     reader.flatten(rest, scope, "", {})
-    circuit = Circuit(reader.elements, title=title, where=Where(file, 1))
+    circuit = Circuit(reader.elements, title=title, where=Where(file, 1),
+                      temperature=reader.temperature, nodeset=dict(reader.nodeset),
+                      ic=dict(reader.ic))
+    if reader.tnom is not None:
+        # '.options tnom=': the nominal temperature of models that give none
+        for el in circuit.elements:
+            if el.kind in ("D", "Q", "J") and "TNOM" not in el.params:
+                el.params["TNOM"] = reader.tnom
+    for what, table in (("ic", circuit.ic), ("nodeset", circuit.nodeset)):
+        for n in table:
+            if n not in circuit.nets():
+                reader.err(_Card_at(Where(file, None), f".{what}"),
+                           f".{what}: no net named '{n}'", part=f".{what}")
     names = {e.name.upper(): e.name for e in reader.elements}
     src = names.get(in_source.upper()) if in_source else None
     if src is not None and circuit.element(src).kind == "V":
@@ -1709,8 +1777,16 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
                 mp = ("LEVEL=1 " + mp).strip()
             models.append(f".model {mname} {mtype}({mp})")
             s = f"{sname} {nodes} {mname}"
+            if p.get("OFF"):
+                s += " OFF"
             s += "".join(f" {k}={_fmt(float(p[k]))}" for k in inst if k in p)
         lines.append(s)
     lines.extend(models)
+    if circuit.temperature is not None:
+        lines.append(f".temp {_fmt(float(circuit.temperature))}")
+    for what, table in (("nodeset", circuit.nodeset), ("ic", circuit.ic)):
+        if table:
+            lines.append(f".{what} " + " ".join(f"v({node(n)})={_fmt(float(v))}"
+                                                for n, v in table.items()))
     lines.append(".end")
     return "\n".join(lines) + "\n"

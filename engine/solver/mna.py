@@ -108,7 +108,10 @@ class Network:
         for el in els:
             if el.kind in REGISTRY:
                 mod = REGISTRY[el.kind]
-                lay = mod.layout(el)
+                if getattr(mod, "TEMPERATURE", False):
+                    lay = mod.layout(el, temp=circuit.temperature)
+                else:
+                    lay = mod.layout(el)
                 for n in lay.internal:
                     node(n)
                 self.devices.append((el, mod, lay, len(self.ports)))

@@ -20,6 +20,10 @@ from engine.solver.dcop import OperatingPoint, report, solve_dc
 from engine.solver.mna import VALUE_KINDS, Network, device_arrays, source_wave
 from engine.solver.statespace import Model, ProbeRow, derive, padded
 
+#: Key of a live change that sets the circuit temperature (degrees Celsius)
+#: instead of an element value: ``sim.set_values({TEMPERATURE_KEY: 45.0})``.
+TEMPERATURE_KEY = "@temperature"
+
 _PROBE_RE = re.compile(r"^\s*([A-Za-z]+)\s*\((.*)\)\s*$")
 _UNITS = {"v": "V", "i": "A", "ic": "A", "ib": "A", "ie": "A", "id": "A", "ig": "A",
           "vbe": "V", "vce": "V", "vgs": "V", "vds": "V", "vd": "V", "iabc": "A",
@@ -245,6 +249,9 @@ class Simulator:
         self._lock = threading.Lock()
         self._values = dict(net.values)
         self._arr = device_arrays(net)
+        self._arr_next = self._arr
+        #: circuit temperature, degrees Celsius (None: 27)
+        self.temperature = circuit.temperature
         # one or two nonlinear ports: the lean path (same state and counters)
         self._run = K.run_block_small if 0 < net.np_ <= K.SMALL_PORTS else K.run_block
         skind, spars = [], []
@@ -302,6 +309,10 @@ class Simulator:
             self._dc_values = dict(m.values)
             self._op = None
         dc = self._dc
+        if getattr(net.circuit, "ic", None):
+            # a render starts from the operating point with the .ic nets
+            # held (ngspice's transient operating point)
+            dc = solve_dc(net, m.values, initial=True)
         r = net.state_read_rows() @ dc.w
         self._x[:] = m.g * r  # capacitor: Gc*v with zero current; inductor: RL*i
         self._xp[:] = self._x
@@ -321,6 +332,7 @@ class Simulator:
         self._cnt[:] = 0
         self._cnt[K.C_PHASE] = (self._pdec - self._probe_phase) % self._pdec
         self._model = m
+        self._arr = self._arr_next
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i[:n]
                           + m.Vy[0] @ dc.v)
         self._rs.reset()
@@ -348,7 +360,10 @@ class Simulator:
         currents and inductor currents carried over.
         """
         net = self.net
+        changes = dict(changes)
         with self._lock:
+            if TEMPERATURE_KEY in changes:
+                self._set_temperature(changes.pop(TEMPERATURE_KEY))
             new = dict(self._values)
             for name, val in changes.items():
                 el = net.elements.get(name)
@@ -361,8 +376,33 @@ class Simulator:
             self._values = new
             self._next = model
 
+    def _set_temperature(self, temp_c) -> None:
+        """Re-derive every device's parameters at a new circuit temperature
+        (degrees Celsius); the audio thread takes them at its next block."""
+        net = self.net
+        t = float(temp_c)
+        if not -100.0 <= t <= 250.0:
+            raise DesignError(f"temperature {t:g} degC is out of range (-100 to 250)",
+                              part="temperature")
+        devs = []
+        for el, mod, lay, po in net.devices:
+            if getattr(mod, "TEMPERATURE", False):
+                new = mod.layout(el, temp=t)
+                if new.ports != lay.ports or new.par.size != lay.par.size:
+                    raise DesignError("a temperature change moved a device's ports",
+                                      part=el.name)
+                lay = new
+            devs.append((el, mod, lay, po))
+        net.devices = devs
+        self.temperature = t
+        self._arr_next = device_arrays(net)
+        self._dc_values = None  # the operating point moved
+
     # ------------------------------------------------------------ audio thread
     def _swap(self):
+        a = self._arr_next
+        if a is not self._arr:
+            self._arr = a
         m = self._next
         if m is not self._model:
             K.convert_states(self._x, self._xp, self._model.g, m.g, m.a, m.b)
