@@ -15,6 +15,7 @@ import time
 from pathlib import Path
 
 from engine.errors import DesignError, SolderlessError
+from engine.levels import FULL_SCALE_V, describe as describe_levels
 
 DEFAULT_DESIGN = "flagship"
 
@@ -172,6 +173,9 @@ def _load(args):
     nl = getattr(d, "netlist", None)
     for w in (nl.warnings if nl is not None else []):
         warn(w)
+    if d.netlist is None and d.stages:
+        for w in d.dangling_probes():
+            warn(w)
     return d
 
 
@@ -323,10 +327,24 @@ def cmd_render(args) -> int:
         x = resample_poly(x, fr.numerator, fr.denominator)
     volts = x * args.input_fs_volts
     oversample = args.oversample or d.oversample
-    probes = [d.resolve_probe(p) for p in args.probe]
+    names = list(args.probe)
+    if args.probes_csv and not names:
+        # the design's own probes (its [[probe]] tables and its control)
+        names = [p.expr for p in d.probes]
+        ctl = d.control_probe()
+        if ctl and ctl not in names:
+            names.insert(0, ctl)
+        if not names:
+            raise DesignError("--probes-csv: the design declares no probes",
+                              file=d._file(), hint="add --probe NAME, e.g. --probe 'v(out)'")
+        dangling = {e for e, _ in d.dangling_probe_list()}
+        names = [n for n in names if n not in dangling]
+    probes = [d.resolve_probe(p) for p in names]
     circ = _flatten(d)
     from engine.solver import Simulator
     sim = Simulator(circ, fs=fs, oversample=oversample, probes=tuple(probes))
+    for w in sim.warnings:
+        print(f"warning: {w}", file=sys.stderr)
     n = len(volts)
     y = np.empty(n)
     pdata = np.empty((len(probes), n)) if probes else None
@@ -359,6 +377,8 @@ def cmd_render(args) -> int:
     print(f"wrote {args.output}: {n / fs:.2f} s at {fs:g} Hz, oversample x{oversample}, "
           f"output peak {20 * math.log10(max(peak, 1e-12)):+.1f} dBFS "
           f"({peak * args.output_fs_volts:.3g} V)")
+    print(f"calibration: input {describe_levels(args.input_fs_volts)}; output "
+          f"{describe_levels(args.output_fs_volts)}")
     if st.get("nonconverged", 0):
         print(f"warning: {st['nonconverged']} samples did not converge (held at the last "
               "good solution); try --oversample 2 or more", file=sys.stderr)
@@ -367,12 +387,36 @@ def cmd_render(args) -> int:
             print("note: --probe given without --probes-csv; probe data not written",
                   file=sys.stderr)
         else:
+            pdata = align_probes(pdata, sim.probe_latency_samples,
+                                 0.0 if not args.keep_latency else float(lat))
             t = np.arange(n) / fs
-            header = "time_s," + ",".join(args.probe)
+            header = "time_s," + ",".join(_csv_field(n) for n in names)
             _write_csv(args.probes_csv, header, np.column_stack([t, pdata.T]),
                        inputs=[inp])
             print(f"wrote {args.probes_csv}: {len(probes)} probe(s)")
     return 0
+
+
+def _csv_field(text: str) -> str:
+    """A CSV header field (RFC 4180: quoted when it holds a comma or quote)."""
+    return '"' + text.replace('"', '""') + '"' if any(c in text for c in ',"') else text
+
+
+def align_probes(pdata, probe_delay: float, audio_delay: float):
+    """Shift probe rows (n_probes, n) so row k describes the circuit at the
+    instant audio sample k left it: probes are taken inside the oversampled
+    kernel, behind the upsampler only (``probe_delay`` samples), while the
+    written audio is ``audio_delay`` samples late (0 once the round-trip
+    latency is removed).  Rows shifted past the end repeat the last value."""
+    import numpy as np
+    d = int(round(probe_delay - audio_delay))
+    if d == 0 or pdata.shape[1] == 0:
+        return pdata
+    if d > 0:
+        d = min(d, pdata.shape[1])
+        return np.concatenate([pdata[:, d:], np.repeat(pdata[:, -1:], d, axis=1)], axis=1)
+    d = min(-d, pdata.shape[1])
+    return np.concatenate([np.repeat(pdata[:, :1], d, axis=1), pdata[:, :-d]], axis=1)
 
 
 # ------------------------------------------------------------------ op / ac
@@ -402,6 +446,12 @@ def cmd_op(args) -> int:
             else:
                 items.append(f"{k}={v}")
         print(f"  {name:<20} " + "  ".join(items))
+    if op.devices:
+        from engine.analysis import regions as R
+        print(f"  (regions: a BJT is active, near saturation below Vce "
+              f"{R.VCE_SAT + R.MARGIN:g} V, saturated below {R.VCE_SAT:g} V, cut-off under "
+              f"Ic {R.IC_OFF * 1e6:g} uA; a FET amplifies when saturated; a diode is "
+              f"forward from {R.DIODE_ON * 1e6:g} uA; ratings from the parts library)")
     if op.warnings:
         print("\nWarnings")
         for w in op.warnings:
@@ -430,7 +480,8 @@ def cmd_ac(args) -> int:
                    inputs=[args.design])
         print(f"wrote {args.csv}: {len(f)} points")
         return 0
-    print(f"Small-signal response of {d.name} (input jack to output)")
+    print(f"Small-signal response of {d.name} (input jack to output; gain in dB, phase in "
+          "degrees, Zin: input impedance at the jack, ohm)")
     print(f"{'freq':>10} {'gain dB':>9} {'phase':>8} {'Zin':>12}")
     step = max(1, len(f) // 25)
     for i in range(0, len(f), step):
@@ -438,16 +489,52 @@ def cmd_ac(args) -> int:
     return 0
 
 
+def _sentences(text: str) -> list[str]:
+    import re
+    flat = " ".join(text.split())
+    return [t for t in re.split(r"(?<=[.!?])\s+(?=[A-Z0-9(])", flat) if t]
+
+
+def _leading_comment(path) -> str:
+    try:
+        first = Path(path).read_text(encoding="utf-8").splitlines()[0]
+    except (OSError, IndexError, UnicodeDecodeError):
+        return ""
+    return first.lstrip("#").strip() if first.startswith("#") else ""
+
+
 def cmd_designs(args) -> int:
+    import shutil
+    import textwrap
     from engine.design import builtin_designs, stage_library, load_design
+    files = builtin_designs()
+    width = max(60, min(shutil.get_terminal_size((100, 24)).columns, 120))
     print("Built-in designs:")
-    for name in builtin_designs():
+    loaded = {}
+    for name in files:
         try:
-            d = load_design(name)
-            first = (d.notes.strip().splitlines() or [""])[0]
-            print(f"  {name:<24} {d.name} — {first[:70]}")
+            loaded[name] = load_design(name)
         except SolderlessError as exc:
-            print(f"  {name:<24} (cannot load: {exc})")
+            loaded[name] = exc
+    for name in files:
+        d = loaded[name]
+        if isinstance(d, SolderlessError):
+            print(f"  {name:<24} (cannot load: {d})")
+            continue
+        sents = _sentences(d.notes)
+        # a variant (NAME-something of a design NAME) says what it changes,
+        # not the base's description again
+        base = max((k for k in files if name.startswith(k + "-")), key=len, default=None)
+        if base is not None and not isinstance(loaded.get(base), SolderlessError):
+            seen = set(_sentences(loaded[base].notes))
+            own = [t for t in sents if t not in seen]
+            what = own[0] if own else (_leading_comment(files[name]) or "same notes as the base")
+            blurb = f"{d.name}: variant of {base}. {what}"
+        else:
+            blurb = f"{d.name}: {sents[0] if sents else ''}"
+        text = textwrap.fill(blurb, width=width - 2, initial_indent=f"  {name:<24} ",
+                             subsequent_indent=" " * 27)
+        print(text)
     print("\nStage library:")
     for name in stage_library():
         print(f"  {name}")
@@ -461,7 +548,8 @@ def build_parser() -> argparse.ArgumentParser:
     ap = OptionParser(
         prog="solderless",
         description="Hear an analog circuit before you build it: simulate a chain of "
-                    "stages live or offline.")
+                    "stages live or offline.",
+        epilog=f"Level calibration (every command): {describe_levels()}, in and out.")
     sub = ap.add_subparsers(dest="command", metavar="COMMAND")
 
     p = sub.add_parser("render", help="run a WAV file through a design")
@@ -473,17 +561,20 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--oversample", type=int, choices=(1, 2, 4, 8), default=None,
                    help="oversampling factor (default: the design's)")
     p.add_argument("--input-fs-volts", type=number_in(0, 1e4, "V", open_low=True),
-                   default=1.0, metavar="V",
-                   help="volts at the input jack that a full-scale sample stands for "
-                        "(default 1.0)")
+                   default=FULL_SCALE_V, metavar="V",
+                   help="peak volts at the input jack that a full-scale sample stands "
+                        f"for (default {FULL_SCALE_V:.4g}: the calibration every command "
+                        "uses, engine/levels.py)")
     p.add_argument("--output-fs-volts", type=number_in(0, 1e4, "V", open_low=True),
-                   default=2.0, metavar="V",
-                   help="volts at the output jack written as full scale (default 2.0)")
+                   default=FULL_SCALE_V, metavar="V",
+                   help="peak volts at the output jack written as full scale "
+                        f"(default {FULL_SCALE_V:.4g}, the same calibration)")
     add_channel_option(p)
     p.add_argument("--probe", action="append", default=[], metavar="NAME",
                    help="record a probe, e.g. 'iabc(gain.U1)' or 'v(buffer.out)' (repeatable)")
     p.add_argument("--probes-csv", metavar="FILE", help="write probes as CSV "
-                   "(time in seconds, then each probe in SI units)")
+                   "(time in seconds, then each probe in SI units); without --probe, "
+                   "the design's own probes ([[probe]] and [meters] control)")
     p.add_argument("--keep-latency", action="store_true",
                    help="do not remove the oversampling filters' fixed delay")
     p.set_defaults(func=cmd_render)
@@ -493,16 +584,22 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(func=cmd_op)
 
+    from engine.solver.ac import DEFAULT_FMAX_HZ, DEFAULT_FMIN_HZ, DEFAULT_POINTS
     p = sub.add_parser("ac", help="small-signal frequency response and input impedance")
     _add_design_arg(p, nargs="?")
-    p.add_argument("--fmin", type=number_in(0, 1e9, "Hz", open_low=True), default=10.0,
-                   metavar="HZ", help="lowest frequency (default 10)")
-    p.add_argument("--fmax", type=number_in(0, 1e9, "Hz", open_low=True), default=20000.0,
-                   metavar="HZ", help="highest frequency (default 20000)")
+    p.add_argument("--fmin", type=number_in(0, 1e9, "Hz", open_low=True),
+                   default=DEFAULT_FMIN_HZ, metavar="HZ",
+                   help=f"lowest frequency, Hz (default {DEFAULT_FMIN_HZ:g}; the workbench "
+                        "uses the same range)")
+    p.add_argument("--fmax", type=number_in(0, 1e9, "Hz", open_low=True),
+                   default=DEFAULT_FMAX_HZ, metavar="HZ",
+                   help=f"highest frequency, Hz (default {DEFAULT_FMAX_HZ:g})")
     p.add_argument("--points", type=whole_in(2, limits.MAX_AC_POINTS, "points"),
-                   default=200, metavar="N",
-                   help=f"frequencies, log-spaced (default 200, at most {limits.MAX_AC_POINTS})")
-    p.add_argument("--csv", metavar="FILE", help="write the response as CSV")
+                   default=DEFAULT_POINTS, metavar="N",
+                   help=f"number of log-spaced frequencies (default {DEFAULT_POINTS}, at "
+                        f"most {limits.MAX_AC_POINTS})")
+    p.add_argument("--csv", metavar="FILE", help="write the response as CSV (freq_hz, "
+                   "gain_db, phase_deg, zin_ohm, zin_phase_deg)")
     p.set_defaults(func=cmd_ac)
 
     p = sub.add_parser("designs", help="list built-in designs and the stage library")
@@ -518,6 +615,12 @@ def build_parser() -> argparse.ArgumentParser:
               "render the built-in compressor and its variants and write a report")
     _optional(sub, "gui", "gui.app", "add_gui_arguments", "run_gui",
               "open the desktop workbench")
+    _optional(sub, "build", "engine.analysis.cli_build", "add_build_arguments", "run_build",
+              "write a build sheet, parts list, netlist and connection list")
+    _optional(sub, "montecarlo", "engine.analysis.cli_build", "add_montecarlo_arguments",
+              "run_montecarlo", "tolerance Monte Carlo: yield, spreads, sensitivity")
+    _optional(sub, "sweep", "engine.analysis.cli_build", "add_sweep_arguments", "run_sweep",
+              "sweep a part value (and a pot) and tabulate a figure")
     return ap
 
 

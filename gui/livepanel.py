@@ -43,10 +43,13 @@ class BarMeter(QWidget):
         self.from_top = from_top
         self.value: float | None = None
         self.hold: float | None = None
+        self.invalid = False
         self.setMinimumSize(70, 180)
         self.setSizePolicy(QSizePolicy.Policy.Preferred, QSizePolicy.Policy.Expanding)
 
     def set_value(self, v: float | None, hold: float | None = None) -> None:
+        # NaN/inf is shown as such, never as an empty (quiet-looking) meter
+        self.invalid = v is not None and not math.isfinite(v)
         self.value = None if v is None or not math.isfinite(v) else float(v)
         self.hold = None if hold is None or not math.isfinite(hold) else float(hold)
         self.update()
@@ -89,7 +92,7 @@ class BarMeter(QWidget):
         f2 = QFont(theme.MONO)
         f2.setPointSize(9)
         p.setFont(f2)
-        txt = "—" if self.value is None else f"{self.value:.1f}"
+        txt = "NaN" if self.invalid else "—" if self.value is None else f"{self.value:.1f}"
         p.drawText(QRectF(0, bot + 3, w, 18), Qt.AlignmentFlag.AlignCenter,
                    f"{txt} {self.unit}")
         p.end()
