@@ -734,6 +734,9 @@ class LiveHost:
         self.stop()
         self._jobs.put(None)
         self._worker.join(timeout=5)
+        # the last edits of a burst may still wait for the throttled autosave
+        # (the measuring thread can be busy): write them before closing
+        self._autosave_pending(force=True)
         self._closing = True
         self._measure_wake.set()
         for r in (self.ring, self.scope):
