@@ -45,6 +45,25 @@ NETLIST_FILTER = "SPICE netlists (*.cir *.sp *.spice *.net *.ckt *.txt)"
 DESIGN_FILTER = "Solderless designs (*.toml)"
 
 
+def is_builtin_path(path) -> bool:
+    """True for a file under the built-in presets folder (read-only)."""
+    from engine.design import PRESETS
+    try:
+        return Path(path).resolve().is_relative_to(PRESETS.resolve())
+    except (OSError, ValueError):
+        return False
+
+
+def has_control(design) -> bool:
+    """Whether a design declares a gain-cell control (its meters' ``control``)."""
+    return bool((getattr(design, "meters", None) or {}).get("control"))
+
+
+def _file_stem(name: str) -> str:
+    stem = "".join(c if c.isalnum() or c in "-_" else "-" for c in str(name)).strip("-")
+    return stem or "design"
+
+
 class NoticeBar(QFrame):
     """A strip of dismissable notices at the top of the window."""
 
@@ -111,11 +130,13 @@ class MainWindow(QMainWindow):
         self.live_driver = "device"      # "paced": no sound card (benches, tests)
         self._live_variant = False
         self.ask: Callable[[str], str] | None = None
+        self.ask_path: Callable[[Path], str | os.PathLike | None] | None = None
         self.last_preview = None
         self.last_op = None
         self.last_ac = None
         self.last_ab = None
         self.problems: list[tuple[str, str]] = []
+        self.blind = False
         self.setWindowTitle("Solderless workbench")
         self.resize(1480, 940)
         self._build()
@@ -310,6 +331,8 @@ class MainWindow(QMainWindow):
         self.compare.ab_requested.connect(self.start_ab)
         self.compare.hear.connect(self.hear)
         self.compare.recall.connect(self._recall)
+        self.compare.can_trial = self._trial_ready
+        self.compare.trial_changed.connect(self._set_blind)
         self.meter_timer = QTimer(self)
         # a coarse timer may stretch 30 ms by 5 %; the frame rate is a target
         self.meter_timer.setTimerType(Qt.TimerType.PreciseTimer)
@@ -355,6 +378,7 @@ class MainWindow(QMainWindow):
 
     def _replaced(self) -> None:
         d = self.wb.design
+        self.live.set_has_control(has_control(d))
         self.title.setText(d.name)
         self.file_lab.setText(f"  {d.path}" if d.path else "  (not saved)")
         if self.chain.selected:
@@ -563,11 +587,27 @@ class MainWindow(QMainWindow):
         if not self.settings.data.get("recent"):
             self.recent_menu.addAction("(none)").setEnabled(False)
 
+    def user_designs_dir(self) -> Path:
+        """Where the workbench offers to save new designs and copies of
+        built-in ones: ``designs`` in the user's Solderless folder."""
+        return self.config / "designs"
+
     def save(self, path: str | os.PathLike | None = None) -> bool:
-        """Save atomically (to the design's own file unless ``path`` is given)."""
+        """Save atomically (to the design's own file unless ``path`` is given).
+        A built-in design (under presets/) is read-only: Save becomes Save as,
+        offered in the user's designs folder."""
         d = self.wb.design
         target = Path(path) if path else d.path
-        if d.doc is None or target is None or target.suffix.lower() != ".toml":
+        if target is not None and is_builtin_path(target):
+            if path is None:
+                self.say(f"'{d.name}' is a built-in design and stays as it is: "
+                         "save your version under a new name")
+                return self.save_as_dialog()
+            self.notices.add(f"Not saved: {target} is a built-in design (read-only). "
+                             "Choose a file of your own (File > Save as).", "bad")
+            return False
+        if (d.doc is None and getattr(d, "netlist", None) is None) or target is None \
+                or target.suffix.lower() != ".toml":
             if path is None:
                 return self.save_as_dialog()
             self.say("a design is saved as a .toml file")
@@ -585,14 +625,33 @@ class MainWindow(QMainWindow):
         self.say(f"saved {target}")
         return True
 
+    def _suggest_path(self) -> Path:
+        d = self.wb.design
+        folder = self.user_designs_dir()
+        stem = Path(d.path).stem if d.path else _file_stem(d.name)
+        cand = folder / f"{stem}.toml"
+        k = 2
+        while cand.exists():
+            cand = folder / f"{stem}-{k}.toml"
+            k += 1
+        return cand
+
     def save_as_dialog(self) -> bool:
-        if self.wb.design.doc is None:
-            self.say("a design imported from a netlist cannot be written as a design "
-                     "file yet; use Import netlist as stage in a .toml design")
-            return False
-        fn, _ = QFileDialog.getSaveFileName(self, "Save design as", "", DESIGN_FILTER)
+        """Ask for a file name (``ask_path(suggested)`` when set, for tests),
+        starting in the user's designs folder, and save there."""
+        suggested = self._suggest_path()
+        try:
+            suggested.parent.mkdir(parents=True, exist_ok=True)
+        except OSError:
+            pass
+        if self.ask_path is not None:
+            fn = self.ask_path(suggested)
+        else:
+            fn, _ = QFileDialog.getSaveFileName(self, "Save design as", str(suggested),
+                                                DESIGN_FILTER)
         if not fn:
             return False
+        fn = str(fn)
         if not fn.endswith(".toml"):
             fn += ".toml"
         return self.save(fn)
@@ -696,12 +755,39 @@ class MainWindow(QMainWindow):
     def stop_live(self) -> None:
         self.meter_timer.stop() if hasattr(self, "meter_timer") else None
         h, self.host = self.host, None
+        if hasattr(self, "compare") and self.compare.trial is not None \
+                and not self.compare.trial.done and self.blind:
+            self.compare.end_trial("playback stopped: trial ended")
         if h is not None:
             h.close()
+        if hasattr(self, "live"):
+            self.live.stopped()
         if hasattr(self, "live"):
             self.live.run_btn.blockSignals(True)
             self.live.run_btn.setChecked(False)
             self.live.run_btn.blockSignals(False)
+
+    def _trial_ready(self) -> str:
+        """'' when a blind trial may start (A and B both playing), else why not."""
+        h = self.host
+        if h is None or not self._live_variant:
+            return "A and B are not playing (Compare: Run A and B)"
+        if not h.ready:
+            return "the live host is still starting"
+        if h.n_voices < 2:
+            return "only one side is playing"
+        return ""
+
+    def _set_blind(self, on: bool) -> None:
+        """Enter or leave blind mode: nothing on screen may tell A from B."""
+        self.blind = on
+        self.live.set_blind(on)
+        self.compare.show_offset(None, hidden=on)
+        if on:
+            self.statusBar().showMessage("blind trial running: meters, traces and scope "
+                                         "are hidden until it ends")
+        else:
+            self.statusBar().clearMessage()
 
     def _poll_meters(self) -> None:
         """Meter timer: read meters and scope from the host's shared rings
@@ -716,14 +802,20 @@ class MainWindow(QMainWindow):
                 self._live_refused(err)
             return
         snap = h.meters()
-        self.live.show_live(snap)
-        self.live.redraw_live(h.fs, h.block)
-        self.live.show_scope(*h.scope_latest(self.live.scope_points(h.info["scope"]["rate"])))
-        if h.n_voices > 1:
-            self.compare.show_offset(snap.get("loudness_offset_db"))
+        if self.blind:
+            self.live.show_blind(snap)
+        else:
+            self.live.show_live(snap)
+            self.live.redraw_live(h.fs, h.block)
+            self.live.show_scope(*h.scope_latest(
+                self.live.scope_points(h.info["scope"]["rate"])))
+            if h.n_voices > 1:
+                self.compare.show_offset(snap.get("loudness_offset_db"))
         h.poll_state()
         while not h.messages.empty():
-            self.say(h.messages.get())
+            m = h.messages.get()
+            if not self.blind:          # a voice's message would name the side
+                self.say(m)
         if h.error is not None:
             self.say(f"playback stopped: {h.error}")
             self.stop_live()
