@@ -375,6 +375,9 @@ class LiveHost:
         self._built = False
         self._closing = False
         self._measure_dirty: set[int] = set()
+        #: re-measure small-signal gain and quiescent control after edits here;
+        #: a host in a process of its own leaves that to its parent
+        self.measure_after_edits = True
         self._measure_wake = threading.Event()
         self._measurer = threading.Thread(target=self._measure_loop,
                                           name="solderless-measure", daemon=True)
@@ -690,8 +693,22 @@ class LiveHost:
     def _after_edit(self, vi: int) -> None:
         self.edits += 1
         self._autosave(vi)
-        self._measure_dirty.add(vi)
-        self._measure_wake.set()
+        if self.measure_after_edits:
+            self._measure_dirty.add(vi)
+            self._measure_wake.set()
+
+    def set_measurement(self, vi: int, gain_db: float | None, quiescent: float | None) -> None:
+        """Take a small-signal gain and quiescent control value measured
+        elsewhere (a front end's process, see engine.live.remote) for voice
+        ``vi``."""
+        v = self.voices[vi]
+        if gain_db is not None:
+            self.meter.small_signal_gain_db[vi] = gain_db
+        if quiescent is not None and v.control_index is not None:
+            if vi == 0:
+                self.meter.control_a = (v.control_index, quiescent)
+            else:
+                self.meter.control_b = (v.control_index, quiescent)
 
     def _measure_loop(self) -> None:
         """Re-measure small-signal gain and quiescent control after edits, on
