@@ -230,7 +230,7 @@ class SnapshotPanel(QWidget):
                       f"{MIN_LISTEN_S:g} s before answering.")
         bll = QVBoxLayout(bl)
         self.rounds = QSpinBox()
-        self.rounds.setRange(4, 40)
+        self.rounds.setRange(4, 100)
         self.rounds.setValue(10)
         self.start_trial = QPushButton("Start trial")
         self.start_trial.setToolTip("needs A and B playing (Run A and B first)")

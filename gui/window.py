@@ -834,7 +834,7 @@ class MainWindow(QMainWindow):
         """Play A and B together (the host matches loudness and crossfades)."""
         da = self.compare.design_of(a)
         db = self.compare.design_of(b)
-        if not self.live.run_btn.isEnabled():
+        if not self.live.run_btn.isEnabled() and self.live_driver != "paced":
             self.analyser.request_ab(da, db)
             self.say("no audio device: A and B are compared offline (loudness match only)")
             return

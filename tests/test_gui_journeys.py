@@ -167,3 +167,166 @@ def test_silent_and_degenerate_signals_draw_without_errors(win, qtbot):
     # the axes keep at least +-1 mV (SCOPE_MIN_V)
     vr = lp.scope.getViewBox().viewRange()
     assert vr[0][1] - vr[0][0] >= 2e-3 * 0.99
+
+
+# ------------------------------------------------------------ the blind trial
+
+def _divider_with_control(tmp_path) -> Path:
+    """The divider bench declaring its bias voltage as a 'control', so the
+    control meter has something that differs between A and B."""
+    p = tmp_path / "divider-ctl.toml"
+    p.write_text(DIVIDER.read_text() + '\n[meters]\ncontrol = "v(amp.b)"\n'
+                 'control_law = "linear"\n')
+    return p
+
+
+def _visible_texts(w) -> dict[str, str]:
+    """Everything a user can read in the window: texts of labels, buttons
+    (and whether they are pressed), fields, lists, readouts, meters, tooltips,
+    the window title and the status bar."""
+    from gui.livepanel import BarMeter, Readout
+    out = {"window title": w.windowTitle(), "status bar": w.statusBar().currentMessage()}
+    for i, wd in enumerate(w.findChildren(__import__("PyQt6.QtWidgets", fromlist=["x"]).QWidget)):
+        if wd.isHidden():                # hidden on purpose (another tab still counts)
+            continue
+        key = f"{type(wd).__name__}#{wd.objectName() or i}"
+        if isinstance(wd, QLabel):
+            out[key] = wd.text()
+        elif isinstance(wd, QAbstractButton):
+            out[key] = f"{wd.text()} pressed={wd.isChecked()} enabled={wd.isEnabled()}"
+        elif isinstance(wd, QLineEdit):
+            out[key] = wd.text()
+        elif isinstance(wd, QComboBox):
+            out[key] = wd.currentText()
+        elif isinstance(wd, Readout):
+            out[key] = wd.text()
+        elif isinstance(wd, BarMeter):
+            out[key] = wd.text()
+            out[key + " value"] = "" if wd.value is None else f"{wd.value:.2f}"
+        if wd.toolTip():
+            out[key + " tip"] = wd.toolTip()
+    return out
+
+
+def _leaks(rounds: list[tuple[str, dict]], alpha: float = 1e-3) -> list[str]:
+    """Features that predict the hidden side better than guessing. Two
+    predictors per feature: the text names a side on its own ('A' or 'B' as a
+    word), and a value-to-side rule learned on even rounds and scored on odd
+    rounds (numbers split at the even rounds' median). A count of correct
+    predictions above the one-sided binomial bound (p = 1/2, Bonferroni over
+    features; scipy.stats.binom) is a leak."""
+    import re
+    from scipy.stats import binom
+    keys = sorted({k for _, f in rounds for k in f})
+    a = alpha / max(1, 2 * len(keys))
+    bad = []
+    for k in keys:
+        vals = [f.get(k, "") for _, f in rounds]
+        hid = [h for h, _ in rounds]
+        # 1) a side named in the text
+        hits = 0
+        for v, h in zip(vals, hid):
+            toks = set(re.findall(r"\b[AB]\b", v))
+            if len(toks) == 1 and toks == {h}:
+                hits += 1
+        if hits > binom.ppf(1 - a, len(vals), 0.5):
+            bad.append(f"{k}: names the hidden side {hits}/{len(vals)}")
+        # 2) a rule learned on even rounds, scored on odd rounds
+        tr = list(zip(vals[0::2], hid[0::2]))
+        te = list(zip(vals[1::2], hid[1::2]))
+        try:
+            nums = [float(v) for v in vals]
+        except ValueError:
+            nums = None
+        if nums is not None:
+            med = float(np.median(nums[0::2]))
+            above = [h for v, h in zip(nums[0::2], hid[0::2]) if v > med]
+            side_hi = "A" if above.count("A") >= above.count("B") else "B"
+            side_lo = "B" if side_hi == "A" else "A"
+            hits = sum((side_hi if v > med else side_lo) == h
+                       for v, h in zip(nums[1::2], hid[1::2]))
+        else:
+            rule = {}
+            for v, h in tr:
+                rule.setdefault(v, []).append(h)
+            rule = {v: max("AB", key=hs.count) for v, hs in rule.items()}
+            hits = sum(rule.get(v) == h for v, h in te)
+        if hits > binom.ppf(1 - a, len(te), 0.5):
+            bad.append(f"{k}: predicts the hidden side {hits}/{len(te)} ({vals[:4]})")
+    return bad
+
+
+def test_blind_trial_shows_nothing_that_predicts_the_hidden_side(qtbot, tmp_path):
+    from scipy.stats import binomtest
+    w = _window(qtbot, tmp_path, load_design(_divider_with_control(tmp_path)))
+    try:
+        said = []
+        orig = w.say
+        w.say = lambda text: (said.append(text), orig(text))
+        w.tabs.setCurrentWidget(w.compare)
+        # refused while nothing plays
+        assert not w.compare.begin_trial()
+        assert "not playing" in w.compare.result.text()
+        # A: the bench as it is; B: another bias and the level pot lower (its
+        # control, output level and scope differ from A's)
+        w.wb.take_snapshot("base", "")
+        w.wb.set_value("amp.R2", 22e3)
+        w.wb.set_rotation("level.VOL", 0.1)
+        w.wb.take_snapshot("mod", "")
+        w.compare.refresh()
+        w.live.source.setCurrentIndex(w.live.source.findData("tone:1000:0.1"))
+        w.live_driver = "paced"
+        w.start_ab("base", "mod")
+        assert w.wait_live(300)
+        # outside a trial the two sides do read differently (what must be hidden)
+        reads = {}
+        for side in "AB":
+            w.hear(side)
+            qtbot.wait(700)
+            reads[side] = w.live.m_ctl.value
+        assert reads["A"] is not None and reads["B"] is not None
+        assert abs(reads["A"] - reads["B"]) > 0.1 * abs(reads["A"])
+        assert w.live.state.value == "LIVE B"
+        n = 60
+        w.compare.rounds.setValue(n)
+        w.compare.min_listen_s = 0.25
+        assert w.compare.begin_trial()
+        # no answer before X has been heard
+        assert not w.compare.answer("A")
+        assert "listen to X first" in w.compare.result.text()
+        rng = random.Random(7)
+        rounds = []
+        for r in range(n):
+            hidden = w.compare.trial.hidden
+            if rng.random() < 0.5:               # sometimes hear a reference first
+                (w.compare.trial_a if rng.random() < 0.5 else w.compare.trial_b).click()
+                qtbot.wait(60)
+            w.compare.play_x.click()
+            qtbot.wait(330)
+            rounds.append((hidden, _visible_texts(w)))
+            assert w.compare.answer(rng.choice("AB"))
+        t = w.compare.trial
+        assert t.done and [e.hidden for e in t.log] == [h for h, _ in rounds]
+        # the hidden side was random (about half each)
+        assert binomtest([h for h, _ in rounds].count("A"), n, 0.5).pvalue > 1e-3
+        # the check itself finds a leak when there is one
+        planted = [(h, {**f, "planted": f"playing {h}"}) for h, f in rounds]
+        assert any(b.startswith("planted") for b in _leaks(planted))
+        assert _leaks(rounds) == []
+        # the log: one row per round, score and p from the binomial test
+        out = tmp_path / "trial.csv"
+        w.compare.export_log(out)
+        rows = out.read_text().splitlines()
+        assert rows[0] == "time,round,hidden,answer,correct,listened_s"
+        body = [r.split(",") for r in rows[1:n + 1]]
+        assert [b[2] for b in body] == [h for h, _ in rounds]
+        assert all(float(b[5]) >= 0.25 for b in body)
+        assert f"score,{t.score} of {n}" in rows
+        p = binomtest(t.score, n, 0.5, alternative="greater").pvalue
+        assert float(rows[-1].split(",")[1]) == pytest.approx(p, rel=1e-5)
+        # after the trial the readings come back
+        assert not w.blind
+        qtbot.wait(300)
+        assert w.live.m_ctl.value is not None
+    finally:
+        w.close()
