@@ -369,6 +369,14 @@ class LivePanel(QWidget):
         mcol = QVBoxLayout()
         mcol.addLayout(ml, 1)
         mcol.addWidget(self.meter_legend)
+        self.dyn = QLabel("attack —   release —")
+        self.dyn.setProperty("role", "read")
+        self.dyn.setToolTip(
+            "attack and release of the design, measured offline after each edit as the demo "
+            "measures them: a 220 Hz tone burst; attack = time for the gain reduction to "
+            "cover 63 % (1 - 1/e) of its step after the burst starts, release = time to "
+            "recover 63 % after it ends")
+        mcol.addWidget(self.dyn)
         mcol.addWidget(self.blind_note)
         mbox.setLayout(mcol)
         self.has_control = True
@@ -632,9 +640,20 @@ class LivePanel(QWidget):
         self.has_control = bool(on)
         self.m_ctl.setVisible(self.has_control)
         self.m_gr.setVisible(self.has_control)
+        self.dyn.setVisible(self.has_control)
         self.traces.set_visible_rows(
             ["gain reduction", "control current", "probe"] if self.has_control else ["probe"])
         self._legend()
+
+    def show_dynamics(self, r) -> None:
+        """Attack and release readouts (a :class:`gui.preview.Dynamics` or None)."""
+        def ms(v):
+            return "—" if v is None else (f"{v * 1e3:.1f} ms" if v < 0.1 else
+                                          f"{v * 1e3:.0f} ms")
+        if r is None:
+            self.dyn.setText("attack —   release —")
+            return
+        self.dyn.setText(f"attack (63 %) {ms(r.attack_s)}   release (63 %) {ms(r.release_s)}")
 
     def set_blind(self, on: bool) -> None:
         """Blind trial: hide every reading that differs between A and B

@@ -15,7 +15,8 @@ from pathlib import Path
 
 from PyQt6.QtCore import Qt, QTimer, pyqtSignal
 from PyQt6.QtGui import QColor
-from PyQt6.QtWidgets import (QButtonGroup, QComboBox, QFileDialog, QGridLayout, QGroupBox, QHBoxLayout, QHeaderView,
+import numpy as np
+from PyQt6.QtWidgets import (QButtonGroup, QComboBox, QFileDialog, QTabWidget, QGridLayout, QGroupBox, QHBoxLayout, QHeaderView,
                              QLabel, QLineEdit, QListWidget, QListWidgetItem, QPushButton,
                              QSpinBox, QTableWidget, QTableWidgetItem, QVBoxLayout, QWidget)
 
@@ -155,6 +156,7 @@ class SnapshotPanel(QWidget):
     hear = pyqtSignal(str)
     recall = pyqtSignal(str)
     trial_changed = pyqtSignal(bool)
+    overlay_requested = pyqtSignal(str, str)
 
     def __init__(self, wb: Workbench, message=print, parent=None):
         super().__init__(parent)
@@ -165,8 +167,10 @@ class SnapshotPanel(QWidget):
         self.ask_path: Callable[[], str | None] | None = None
         self.min_listen_s = MIN_LISTEN_S
         self.clock: Callable[[], float] = time.monotonic
-        lay = QHBoxLayout(self)
-        lay.setContentsMargins(4, 4, 4, 4)
+        outer = QVBoxLayout(self)
+        outer.setContentsMargins(4, 4, 4, 4)
+        lay = QHBoxLayout()
+        outer.addLayout(lay, 3)
         # keep
         keep = QGroupBox("KEPT VERSIONS")
         kl = QVBoxLayout(keep)
@@ -271,6 +275,43 @@ class SnapshotPanel(QWidget):
         bll.addWidget(self.result, 1)
         bll.addWidget(self.export_btn)
         lay.addWidget(bl, 1)
+        # overlay
+        ov = QGroupBox("OVERLAY — A AGAINST B")
+        ovl = QVBoxLayout(ov)
+        orow = QHBoxLayout()
+        self.overlay_btn = QPushButton("Overlay A and B")
+        self.overlay_btn.setToolTip("frequency response and input impedance (small-signal "
+                                    "analysis), gain reduction and control current through "
+                                    "a tone burst, of A and B on the same axes")
+        self.overlay_note = QLabel("A: solid amber line, B: dashed cyan line")
+        self.overlay_note.setProperty("role", "dim")
+        orow.addWidget(self.overlay_btn)
+        orow.addWidget(self.overlay_note, 1)
+        ovl.addLayout(orow)
+        self.overlay_tabs = QTabWidget()
+        self.overlay_plots = {}
+        import pyqtgraph as pg
+        for key, title, left, logx, logy in (
+                ("gain", "frequency response", "gain (dB)", True, False),
+                ("zin", "input impedance", "input impedance (Ω)", True, True),
+                ("gr", "gain reduction", "gain reduction (dB)", False, False),
+                ("ctl", "control", "control", False, False)):
+            pw = pg.PlotWidget()
+            pw.setLogMode(x=logx, y=logy)
+            pw.showGrid(x=True, y=True, alpha=0.25)
+            pw.setLabel("left", left)
+            pw.setLabel("bottom", "frequency (Hz)" if logx else "time (s)")
+            for ax in ("left", "bottom"):
+                pw.getAxis(ax).enableAutoSIPrefix(False)
+            pw.addLegend(offset=(-10, 10))
+            pw.setMinimumHeight(150)
+            self.overlay_plots[key] = pw
+            self.overlay_tabs.addTab(pw, title)
+        ovl.addWidget(self.overlay_tabs, 1)
+        outer.addWidget(ov, 2)
+        self.overlay = None
+        self.overlay_btn.clicked.connect(
+            lambda: self.overlay_requested.emit(self.a.currentText(), self.b.currentText()))
         self.listen_timer = QTimer(self)
         self.listen_timer.timeout.connect(self._show_heard)
         self.trial_a.clicked.connect(lambda: self._trial_hear("A"))
@@ -365,6 +406,39 @@ class SnapshotPanel(QWidget):
         self.hear_a.setChecked(which == "A")
         self.hear_b.setChecked(which == "B")
         self.hear.emit(which)
+
+    def show_overlay(self, result) -> None:
+        """Draw A and B (two :class:`gui.preview.Traces`) on the overlay plots:
+        A solid amber, B dashed cyan, each named in the legend."""
+        import pyqtgraph as pg
+        self.overlay = result
+        pens = (pg.mkPen(theme.SET, width=2),
+                pg.mkPen(theme.READ, width=2, style=Qt.PenStyle.DashLine))
+        for pw in self.overlay_plots.values():
+            pw.clear()
+            if pw.plotItem.legend is not None:
+                pw.plotItem.legend.clear()
+        has_dyn = False
+        for side, tr, pen in zip("AB", result, pens):
+            label = f"{side}: {tr.name}"
+            if tr.ac is not None:
+                mag = np.abs(tr.ac.H)
+                self.overlay_plots["gain"].plot(
+                    tr.ac.f, 20 * np.log10(np.maximum(mag, 1e-12)), pen=pen, name=label)
+                self.overlay_plots["zin"].plot(tr.ac.f, np.maximum(np.abs(tr.ac.zin), 1e-3),
+                                               pen=pen, name=label)
+            if tr.t is not None:
+                has_dyn = True
+                self.overlay_plots["gr"].plot(tr.t, tr.gr_db, pen=pen, name=label)
+                self.overlay_plots["ctl"].plot(tr.t, tr.control, pen=pen, name=label)
+                self.overlay_plots["ctl"].setLabel("left", f"control ({tr.control_unit})")
+        for key in ("gr", "ctl"):
+            i = self.overlay_tabs.indexOf(self.overlay_plots[key])
+            self.overlay_tabs.setTabEnabled(i, has_dyn)
+            self.overlay_tabs.setTabToolTip(
+                i, "" if has_dyn else "neither design declares a gain-cell control")
+        self.overlay_note.setText(f"A: {result[0].name} (solid amber)   "
+                                  f"B: {result[1].name} (dashed cyan)")
 
     def show_offset(self, db: float | None, hidden: bool = False) -> None:
         if hidden:

@@ -135,6 +135,8 @@ class MainWindow(QMainWindow):
         self.last_op = None
         self.last_ac = None
         self.last_ab = None
+        self.last_overlay = None
+        self.last_dyn = None
         self.problems: list[tuple[str, str]] = []
         self.blind = False
         self.setWindowTitle("Solderless workbench")
@@ -192,6 +194,7 @@ class MainWindow(QMainWindow):
         lower.setSizes([500, 960])
         split.addWidget(lower)
         split.setSizes([200, 720])
+        self.vsplit = split
         v.addWidget(split, 1)
         self.setCentralWidget(central)
         self.statusBar().showMessage("ready")
@@ -331,6 +334,9 @@ class MainWindow(QMainWindow):
         self.compare.ab_requested.connect(self.start_ab)
         self.compare.hear.connect(self.hear)
         self.compare.recall.connect(self._recall)
+        self.compare.overlay_requested.connect(self.request_overlay)
+        self.analyser.overlay_ready.connect(self._overlay_ready)
+        self.analyser.dyn_ready.connect(self._dyn_ready)
         self.compare.can_trial = self._trial_ready
         self.compare.trial_changed.connect(self._set_blind)
         self.meter_timer = QTimer(self)
@@ -380,7 +386,11 @@ class MainWindow(QMainWindow):
         d = self.wb.design
         self.live.set_has_control(has_control(d))
         self.title.setText(d.name)
-        self.file_lab.setText(f"  {d.path}" if d.path else "  (not saved)")
+        if d.path and is_builtin_path(d.path):
+            self.file_lab.setText(f"  built-in design '{Path(d.path).stem}' (read-only: "
+                                  "Save writes a copy to your designs folder)")
+        else:
+            self.file_lab.setText(f"  {d.path}" if d.path else "  (not saved)")
         if self.chain.selected:
             self.parts.stage = self.chain.selected
         self.schedule_refresh()
@@ -766,6 +776,23 @@ class MainWindow(QMainWindow):
             self.live.run_btn.blockSignals(True)
             self.live.run_btn.setChecked(False)
             self.live.run_btn.blockSignals(False)
+
+    def request_overlay(self, a: str, b: str) -> int:
+        """Compute A's and B's curves for the overlay (worker thread)."""
+        try:
+            da, db = self.compare.design_of(a), self.compare.design_of(b)
+        except SolderlessError as exc:
+            self.say(str(exc))
+            return 0
+        return self.analyser.request_overlay(da, db, (a, b))
+
+    def _overlay_ready(self, g, result) -> None:
+        self.last_overlay = result
+        self.compare.show_overlay(result)
+
+    def _dyn_ready(self, g, r) -> None:
+        self.last_dyn = r
+        self.live.show_dynamics(r)
 
     def _trial_ready(self) -> str:
         """'' when a blind trial may start (A and B both playing), else why not."""
