@@ -285,6 +285,8 @@ class LivePanel(QWidget):
     level_changed = pyqtSignal(float)
     mute_changed = pyqtSignal(bool)
     source_changed = pyqtSignal(str)
+    midi_connect = pyqtSignal()
+    midi_learn = pyqtSignal(bool)
 
     def __init__(self, parent=None):
         super().__init__(parent)
@@ -329,6 +331,20 @@ class LivePanel(QWidget):
         g.addWidget(QLabel("level"), 3, 0)
         g.addWidget(self.level, 3, 1, 1, 2)
         g.addWidget(self.level_lab, 3, 3)
+        self.midi_btn = QPushButton("MIDI knobs…")
+        self.midi_btn.setToolTip("connect a MIDI controller: its knobs turn the design's pots")
+        self.learn_btn = QPushButton("Learn")
+        self.learn_btn.setCheckable(True)
+        self.learn_btn.setEnabled(False)
+        self.learn_btn.setToolTip("learn: turn a pot in the workbench, then turn a knob on "
+                                  "the controller")
+        self.midi_lab = QLabel("no controller")
+        self.midi_lab.setProperty("role", "dim")
+        g.addWidget(self.midi_btn, 4, 0, 1, 2)
+        g.addWidget(self.learn_btn, 4, 2)
+        g.addWidget(self.midi_lab, 4, 3)
+        self.midi_btn.clicked.connect(self.midi_connect)
+        self.learn_btn.toggled.connect(self.midi_learn)
         self.preview_btn.clicked.connect(self.preview_requested)
         self.run_btn.toggled.connect(lambda on: (self.start_requested if on
                                                  else self.stop_requested).emit())

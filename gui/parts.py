@@ -33,6 +33,34 @@ from gui.model import Workbench, taper_text
 SERIES = ("E12", "E24", "E96")
 TAPER_CHOICES = [("linear", "linear"), ("audio", "audio"),
                  ("reverse-audio", "reverse audio"), ("custom", "custom law")]
+POT_DECADE = (1.0, 2.0, 2.5, 5.0)
+"""Track values potentiometers are made in, per decade: 1k, 2k, 2.5k (25k,
+250k), 5k ... (common practice); stepping a pot's track walks these."""
+POT_RANGE = (100.0, 5e6)
+
+
+def pot_values() -> list[float]:
+    """Every track value from POT_RANGE, ascending (POT_DECADE per decade)."""
+    out = []
+    dec = POT_RANGE[0]
+    while dec <= POT_RANGE[1]:
+        out += [round(m * dec, 6) for m in POT_DECADE if m * dec <= POT_RANGE[1] * 1.0001]
+        dec *= 10
+    return out
+
+
+def step_pot_value(value: float, steps: int) -> float:
+    """The track value ``steps`` places up (or down) the list of values pots
+    are made in; a value between two goes to the next one in that direction."""
+    vals = pot_values()
+    import bisect
+    if steps > 0:
+        i = bisect.bisect_right(vals, value * (1 + 1e-9)) + steps - 1
+    else:
+        i = bisect.bisect_left(vals, value * (1 - 1e-9)) + steps
+    return vals[min(max(i, 0), len(vals) - 1)]
+
+
 NUDGE = 0.01            # Shift+arrow: 1 %
 ROT_STEP = 0.01         # arrow on a pot dial: 1 % of rotation
 
@@ -362,7 +390,9 @@ class PotRow(PartRow):
         self.dial.valueChanged.connect(self._turned)
         self.total.committed.connect(lambda v: self.guard(self.wb.set_value, self.q, v))
         self.total.stepped.connect(lambda s: self.guard(
-            self.wb.set_value, self.q, step_preferred(self.info().value, "E12", s)))
+            self.wb.set_value, self.q, step_pot_value(self.info().value, s)))
+        self.total.setToolTip("track value; Up/Down steps through the values pots are made "
+                              "in (1k, 2k, 2.5k, 5k, 10k ...)")
         self.taper.activated.connect(self._taper_chosen)
         self.plot.law_edited.connect(lambda pts: self.guard(self.wb.set_taper, self.q, pts))
         self._quiet = False

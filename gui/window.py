@@ -28,6 +28,7 @@ from gui import theme
 from gui.chain import ChainView
 from gui.inspect import InspectPanel
 from gui.livepanel import LivePanel
+from gui.midi import MidiKnobs, knob_map, open_input, set_knob_map
 from gui.model import Autosave, Settings, Workbench, config_dir
 from gui.parts import PartsPanel
 from gui.preview import Analyser, make_source
@@ -335,6 +336,14 @@ class MainWindow(QMainWindow):
         self.compare.hear.connect(self.hear)
         self.compare.recall.connect(self._recall)
         self.compare.overlay_requested.connect(self.request_overlay)
+        self.midi = MidiKnobs(lambda pot, r: self.wb.set_rotation(pot, r), self._remember_knobs,
+                              self)
+        self.midi.message.connect(self.say)
+        self.midi.learned.connect(lambda *_a: self._midi_learned())
+        self.live.midi_connect.connect(self.connect_midi)
+        self.live.midi_learn.connect(self.midi.learn)
+        self.wb.edited.connect(lambda kind, q, _v: self.midi.pot_turned(q)
+                               if kind == "rotation" else None)
         self.analyser.overlay_ready.connect(self._overlay_ready)
         self.analyser.dyn_ready.connect(self._dyn_ready)
         self.compare.can_trial = self._trial_ready
@@ -384,6 +393,12 @@ class MainWindow(QMainWindow):
 
     def _replaced(self) -> None:
         d = self.wb.design
+        try:
+            self.midi.set_mapping(knob_map(d))
+        except SolderlessError as exc:
+            self.midi.set_mapping({})
+            self.notices.add(f"MIDI knob mappings ignored: {exc}", "warn")
+        self._midi_label()
         self.live.set_has_control(has_control(d))
         self.title.setText(d.name)
         if d.path and is_builtin_path(d.path):
@@ -403,6 +418,10 @@ class MainWindow(QMainWindow):
         self.undo_btn.setToolTip(f"Undo {self.wb.undo_text()} (Ctrl+Z)")
         self.redo_btn.setToolTip(f"Redo {self.wb.redo_text()} (Ctrl+Shift+Z)")
         d = self.wb.design
+        try:                         # an undone knob mapping is undone here too
+            self.midi.set_mapping(knob_map(d))
+        except SolderlessError:
+            pass
         self.title.setText(d.name + ("  •" if self.wb.dirty else ""))
         self.setWindowTitle(f"{d.name}{' *' if self.wb.dirty else ''} — Solderless workbench")
 
@@ -702,6 +721,7 @@ class MainWindow(QMainWindow):
         for t in (self.refresh_timer, self.autosave_timer, self.meter_timer):
             t.stop()
         self.analyser.shutdown()
+        self.midi.detach()
         self.autosave.clear(self.wb.design)
         e.accept()
 
@@ -793,6 +813,44 @@ class MainWindow(QMainWindow):
     def _dyn_ready(self, g, r) -> None:
         self.last_dyn = r
         self.live.show_dynamics(r)
+
+    # ------------------------------------------------------------ MIDI knobs
+    def connect_midi(self, port=None) -> bool:
+        """Read knobs from ``port`` (a mido port or stand-in), or open the
+        first MIDI input; a missing MIDI system is a message, not a failure."""
+        if port is None:
+            try:
+                port = open_input()
+            except SolderlessError as exc:
+                self.live.midi_lab.setText("MIDI unavailable")
+                self.live.midi_lab.setToolTip(str(exc))
+                self.notices.add(f"MIDI knobs: {exc}", "warn")
+                self.say(str(exc))
+                return False
+        self.midi.attach(port)
+        self.live.learn_btn.setEnabled(True)
+        self._midi_label(getattr(port, "name", "MIDI controller"))
+        return True
+
+    def _midi_label(self, name: str | None = None) -> None:
+        if name:
+            self._midi_port_name = name
+        n = len(self.midi.mapping)
+        name = getattr(self, "_midi_port_name", "")
+        self.live.midi_lab.setText(f"{name}: {n} knob{'s' if n != 1 else ''}" if name
+                                   else f"{n} knob{'s' if n != 1 else ''} mapped")
+        self.live.midi_lab.setToolTip("\n".join(f"CC {cc} (channel {ch}) → {pot}"
+                                                for (ch, cc), pot in self.midi.mapping.items())
+                                      or "no knob mapped yet: use Learn")
+
+    def _remember_knobs(self, mapping: dict) -> None:
+        self._guard(self.wb._apply, "map MIDI knobs", lambda d: set_knob_map(d, mapping))
+
+    def _midi_learned(self) -> None:
+        self.live.learn_btn.blockSignals(True)
+        self.live.learn_btn.setChecked(False)
+        self.live.learn_btn.blockSignals(False)
+        self._midi_label()
 
     def _trial_ready(self) -> str:
         """'' when a blind trial may start (A and B both playing), else why not."""

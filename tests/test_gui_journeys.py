@@ -330,3 +330,82 @@ def test_blind_trial_shows_nothing_that_predicts_the_hidden_side(qtbot, tmp_path
         assert w.live.m_ctl.value is not None
     finally:
         w.close()
+
+
+# ------------------------------------------------------------ MIDI knobs
+
+class StandInPort:
+    """Stands in for a mido input port: messages queued by the test come out
+    of iter_pending() like a controller's."""
+    name = "stand-in controller"
+
+    def __init__(self):
+        self.queue = []
+        self.closed = False
+
+    def send_cc(self, channel0, control, value):
+        import mido
+        self.queue.append(mido.Message("control_change", channel=channel0, control=control,
+                                       value=value))
+
+    def iter_pending(self):
+        q, self.queue = self.queue, []
+        yield from q
+
+    def close(self):
+        self.closed = True
+
+
+def test_midi_knob_learn_turns_a_pot_through_its_taper_and_is_saved(win, qtbot, tmp_path):
+    pytest.importorskip("mido")
+    from engine.design import taper_fraction
+    from gui.midi import knob_map
+    port = StandInPort()
+    assert win.connect_midi(port)
+    win.wb.set_taper("level.VOL", "audio")
+    # learn: press Learn, turn the pot in the workbench, then turn a knob
+    win.live.learn_btn.setChecked(True)
+    win.wb.set_rotation("level.VOL", 0.6)
+    port.send_cc(2, 21, 10)                          # channel 3, CC 21
+    assert _wait(qtbot, lambda: not win.midi.learning, 5)
+    assert win.midi.mapping == {(3, 21): "level.VOL"}
+    assert not win.live.learn_btn.isChecked()
+    assert "1 knob" in win.live.midi_lab.text()
+    # the learning message only mapped: the pot stayed where the mouse left it
+    assert win.wb.design.part("level.VOL").rotation == pytest.approx(0.6)
+    # a sweep of the knob: the last position of the burst wins, 64/127 of the
+    # rotation, and the pot's audio taper applies to it as to the dial
+    for v in (20, 40, 64):
+        port.send_cc(2, 21, v)
+    port.send_cc(0, 21, 127)                        # another channel: not mapped
+    assert _wait(qtbot, lambda: win.wb.design.part("level.VOL").rotation
+                 == pytest.approx(64 / 127), 5)
+    ra, rb = win.wb.design.pot_resistances(win.wb.design.part("level.VOL"))
+    assert ra == pytest.approx(10e3 * taper_fraction("audio", 64 / 127), rel=1e-9)
+    # (exponential law, base 81: docs/design-format.md; at 64/127 about 9.9 %)
+    assert ra / 10e3 == pytest.approx((81 ** (64 / 127) - 1) / 80, rel=1e-9)
+    # the mapping is saved with the design and read back
+    target = tmp_path / "with-knob.toml"
+    assert win.save(target)
+    assert "[[midi.knob]]" in target.read_text()
+    assert knob_map(load_design(target)) == {(3, 21): "level.VOL"}
+    win.midi.detach()
+    assert port.closed
+
+
+def test_missing_midi_system_is_a_message_not_a_crash(win, monkeypatch):
+    import gui.window as gw
+    from gui.midi import MidiUnavailable
+
+    def no_midi(*_a, **_k):
+        raise MidiUnavailable("no MIDI system is available (test)")
+    monkeypatch.setattr(gw, "open_input", no_midi)
+    assert not win.connect_midi()
+    assert win.live.midi_lab.text() == "MIDI unavailable"
+    assert any("MIDI knobs: no MIDI system" in t for t in win.notices.texts())
+    # and the real backend on a machine without a MIDI system says why, too
+    from gui import midi
+    try:
+        midi.open_input()
+    except MidiUnavailable as exc:
+        assert str(exc)
