@@ -516,6 +516,16 @@ class Workbench(QObject):
         return self._part_edit(f"taper of {qualname}", f"taper:{qualname}", "taper",
                                qualname, lambda d: d.set_taper(qualname, taper))
 
+    def set_model(self, qualname: str, model: str) -> dict[str, float]:
+        """Give a device part another library model (a rebuild when playing)."""
+        def fn(d):
+            if not hasattr(d, "set_model"):
+                raise EditRejected("changing a part's model is not available in this build")
+            d.set_model(qualname, model)
+            return {}
+        return self._part_edit(f"model of {qualname}", f"model:{qualname}", "model",
+                               qualname, fn)
+
     def set_tolerance(self, qualname: str, tol: float | None) -> None:
         self._apply(f"tolerance of {qualname}", lambda d: set_tolerance(d, qualname, tol))
         self.part_changed.emit(qualname)

@@ -33,32 +33,14 @@ from gui.model import Workbench, taper_text
 SERIES = ("E12", "E24", "E96")
 TAPER_CHOICES = [("linear", "linear"), ("audio", "audio"),
                  ("reverse-audio", "reverse audio"), ("custom", "custom law")]
-POT_DECADE = (1.0, 2.0, 2.5, 5.0)
-"""Track values potentiometers are made in, per decade: 1k, 2k, 2.5k (25k,
-250k), 5k ... (common practice); stepping a pot's track walks these."""
-POT_RANGE = (100.0, 5e6)
-
-
-def pot_values() -> list[float]:
-    """Every track value from POT_RANGE, ascending (POT_DECADE per decade)."""
-    out = []
-    dec = POT_RANGE[0]
-    while dec <= POT_RANGE[1]:
-        out += [round(m * dec, 6) for m in POT_DECADE if m * dec <= POT_RANGE[1] * 1.0001]
-        dec *= 10
-    return out
+POT_SERIES = "E3"
+"""Pots are made in E3 values (1, 2.2, 4.7 per decade: 10k, 22k, 47k ...;
+common practice); stepping a pot's track walks them, as the console does."""
 
 
 def step_pot_value(value: float, steps: int) -> float:
-    """The track value ``steps`` places up (or down) the list of values pots
-    are made in; a value between two goes to the next one in that direction."""
-    vals = pot_values()
-    import bisect
-    if steps > 0:
-        i = bisect.bisect_right(vals, value * (1 + 1e-9)) + steps - 1
-    else:
-        i = bisect.bisect_left(vals, value * (1 - 1e-9)) + steps
-    return vals[min(max(i, 0), len(vals) - 1)]
+    """The track value ``steps`` places up (or down) the E3 series."""
+    return step_preferred(value, POT_SERIES, steps)
 
 
 NUDGE = 0.01            # Shift+arrow: 1 %
@@ -392,7 +374,7 @@ class PotRow(PartRow):
         self.total.stepped.connect(lambda s: self.guard(
             self.wb.set_value, self.q, step_pot_value(self.info().value, s)))
         self.total.setToolTip("track value; Up/Down steps through the values pots are made "
-                              "in (1k, 2k, 2.5k, 5k, 10k ...)")
+                              "in (E3: 10k, 22k, 47k, 100k ...)")
         self.taper.activated.connect(self._taper_chosen)
         self.plot.law_edited.connect(lambda pts: self.guard(self.wb.set_taper, self.q, pts))
         self._quiet = False
@@ -458,14 +440,41 @@ class SwitchRow(PartRow):
             b.setChecked(True)
 
 
+def device_models(design, part_type: str) -> list[str]:
+    """Library models a device part may take (empty when the engine cannot
+    swap models)."""
+    try:
+        from engine.design import MODEL_KIND, models_of_kind
+    except ImportError:
+        return []
+    if not hasattr(design, "set_model") or part_type not in MODEL_KIND:
+        return []
+    try:
+        return list(models_of_kind(design, MODEL_KIND[part_type]))
+    except SolderlessError:
+        return []
+
+
 class DeviceRow(PartRow):
-    """A semiconductor or macromodel: its model, shown for reference."""
+    """A semiconductor or macromodel: its model (a choice of the library's
+    models of the same kind, e.g. to swap clipping diodes or a transistor)."""
 
     def __init__(self, wb, q, parent=None):
         super().__init__(wb, q, parent)
         info = self.info()
-        m = QLabel(f"model {info.model or '—'}")
-        m.setProperty("role", "read")
+        self.models = device_models(wb.design, info.type)
+        if self.models:
+            self.model = QComboBox()
+            self.model.addItems(self.models)
+            self.model.setToolTip("the part's device model (parts library); choosing another "
+                                  "rebuilds the circuit with it")
+            self.model.activated.connect(
+                lambda _i: self.guard(self.wb.set_model, self.q, self.model.currentText()))
+            m = self.model
+        else:
+            m = QLabel(f"model {info.model or '—'}")
+            m.setProperty("role", "read")
+            self.model = None
         params = self.part().params
         p = QLabel("  ".join(f"{k}={v:g}" for k, v in params.items()
                              if isinstance(v, (int, float)))[:90])
@@ -473,6 +482,16 @@ class DeviceRow(PartRow):
         self.grid.addWidget(m, 0, 1)
         self.grid.addWidget(p, 1, 1)
         self.grid.setColumnStretch(1, 1)
+        self.refresh()
+
+    def refresh(self) -> None:
+        if self.model is not None:
+            cur = self.part().model
+            self.model.blockSignals(True)
+            if self.model.findText(cur) < 0:
+                self.model.addItem(cur)
+            self.model.setCurrentText(cur)
+            self.model.blockSignals(False)
 
 
 def make_row(wb: Workbench, info) -> PartRow:

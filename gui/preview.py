@@ -192,10 +192,11 @@ def frequency_response(design, freqs: np.ndarray | None = None) -> ACResult:
 
 @dataclass
 class Dynamics:
-    """Attack and release times of a design with a gain-cell control, as the
-    demo measures them (:func:`engine.demo.measure_attack`,
-    :func:`engine.demo.measure_release`: a 220 Hz tone burst, the time for
-    the gain reduction to cover 63 % of its step)."""
+    """Attack and release times of a design with a gain-cell control, by the
+    demo's 63 % convention (a 220 Hz tone burst; the time for the gain
+    reduction to cover 63 % of its step), from the engine
+    (``engine.analysis.timing.attack_release`` where present, else the
+    demo's ``measure_release``)."""
     attack_s: float | None
     release_s: float | None
 
@@ -204,14 +205,16 @@ def dynamics(design, fs: float = FS) -> Dynamics | None:
     """Attack and release of ``design`` (None without a control)."""
     if not (getattr(design, "meters", None) or {}).get("control"):
         return None
-    from engine import demo
-    rel = demo.measure_release(design, fs)[0]
-    measure_attack = getattr(demo, "measure_attack", None)
-    att = measure_attack(design, fs)[0] if measure_attack is not None else None
 
     def ok(v):
         return None if v is None or not math.isfinite(v) else float(v)
-    return Dynamics(ok(att), ok(rel))
+    try:
+        from engine.analysis.timing import attack_release
+    except ImportError:
+        from engine import demo
+        return Dynamics(None, ok(demo.measure_release(design, fs)[0]))
+    r = attack_release(design, fs)
+    return Dynamics(ok(r.get("attack_s")), ok(r.get("release_s")))
 
 
 @dataclass

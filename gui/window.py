@@ -485,7 +485,11 @@ class MainWindow(QMainWindow):
         if h is None:
             return
         name = {"value": "set_value", "rotation": "set_rotation",
-                "taper": "set_taper"}.get(kind)
+                "taper": "set_taper", "model": "set_model"}.get(kind)
+        from engine.live.remote import ALLOWED
+        if name == "set_model" and name not in ALLOWED:
+            self._structure_changed()          # this host cannot swap models: restart
+            return
         if name is not None:
             h.post_reported(name, q, value)      # answered later; failures in messages
 

@@ -43,7 +43,7 @@ ALLOWED = {"start", "start_paced", "stop", "set_value", "step_value", "set_rotat
 EXTRA = {"parts", "state", "meter_setup", "set_source", "edit_landings", "host_meters",
          "element_values", "designs", "set_measurement"}
 #: Edits after which the parent re-measures the small-signal gain.
-EDITS = {"set_value", "step_value", "set_rotation", "set_taper", "set_bypass"}
+EDITS = {"set_value", "step_value", "set_rotation", "set_taper", "set_bypass", "set_model"}
 MEASURE_SETTLE_S = 0.2
 """Quiet time after the last edit before the parent re-measures."""
 SWITCH_INTERVAL_S = 0.0002
