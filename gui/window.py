@@ -143,6 +143,11 @@ class MainWindow(QMainWindow):
         self.setWindowTitle("Solderless workbench")
         self.resize(1480, 940)
         self._build()
+        i = self.live.source.findData(source)
+        if i >= 0:                          # live playback starts from the same source
+            self.live.source.blockSignals(True)
+            self.live.source.setCurrentIndex(i)
+            self.live.source.blockSignals(False)
         self._actions()
         self._wire()
         if self.settings.problem:

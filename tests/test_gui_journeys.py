@@ -40,6 +40,9 @@ def _window(qtbot, tmp_path, design, **kw):
     qtbot.addWidget(w)
     w.resize(1480, 940)
     w.show()
+    w.said = []
+    orig = w.say
+    w.say = lambda text: (w.said.append(text), orig(text))
     assert w.wait_idle(240)
     return w
 
@@ -47,10 +50,6 @@ def _window(qtbot, tmp_path, design, **kw):
 @pytest.fixture
 def win(qtbot, tmp_path, design_file):
     w = _window(qtbot, tmp_path, load_design(design_file))
-    said = []
-    w.said = said
-    orig = w.say
-    w.say = lambda text: (said.append(text), orig(text))
     yield w
     w.ask = lambda _q: "discard"
     w.close()
@@ -260,9 +259,6 @@ def test_blind_trial_shows_nothing_that_predicts_the_hidden_side(qtbot, tmp_path
     from scipy.stats import binomtest
     w = _window(qtbot, tmp_path, load_design(_divider_with_control(tmp_path)))
     try:
-        said = []
-        orig = w.say
-        w.say = lambda text: (said.append(text), orig(text))
         w.tabs.setCurrentWidget(w.compare)
         # refused while nothing plays
         assert not w.compare.begin_trial()
@@ -409,3 +405,175 @@ def test_missing_midi_system_is_a_message_not_a_crash(win, monkeypatch):
         midi.open_input()
     except MidiUnavailable as exc:
         assert str(exc)
+
+
+# ------------------------------------------------------------ the three journeys
+
+#: IEC 60063 E12 (docs/references.md): the steps of one decade.
+E12 = (1.0, 1.2, 1.5, 1.8, 2.2, 2.7, 3.3, 3.9, 4.7, 5.6, 6.8, 8.2)
+
+
+def _e12_up(value, steps):
+    exp = math.floor(math.log10(value) + 1e-9)
+    m = value / 10 ** exp
+    i = min(range(len(E12)), key=lambda k: abs(E12[k] - m)) + steps
+    return E12[i % 12] * 10 ** (exp + i // 12)
+
+
+def _reverse_audio(r):
+    """Reverse audio taper (docs/design-format.md): the mirror image of the
+    exponential audio law with base 81."""
+    return 1 - (81 ** (1 - r) - 1) / 80
+
+
+def test_journey_designer_tunes_the_builtin_compressor(qtbot, tmp_path):
+    builtin = PRESETS / "designs" / "flagship.toml"
+    before = builtin.read_bytes()
+    w = _window(qtbot, tmp_path, "flagship", source="synth:notes")
+    d = w.wb.design
+    det = d.stage("detector")
+    names = {p.name for p in det.parts}
+    # the detector's time-constant capacitor and threshold pot
+    cap = "detector.CT" if "RELEASE" in names else "detector.CS"
+    pot = "detector.THRESHOLD" if "THRESHOLD" in names else "detector.SUSTAIN"
+    try:
+        assert w.live.m_gr.isVisibleTo(w) and w.live.dyn.isVisibleTo(w)
+        rel0 = w.last_dyn.release_s
+        assert rel0 is not None and "release (63 %)" in w.live.dyn.text()
+        w.live.source.setCurrentIndex(w.live.source.findData("synth:notes"))
+        w.live_driver = "paced"
+        assert w.start_live() and w.wait_live(300)
+        h = w.host
+        # control current and gain reduction while playing: the resting
+        # control the host measured agrees with the DC operating point's
+        # OTA bias current (two engine paths: settled transient vs DC solve)
+        op_iabc = next(r[3] for r in w.last_op.rows if r[1] == "gain.U1" and r[2] == "iabc")
+        assert _wait(qtbot, lambda: h.meter.control_a is not None)
+        assert h.meter.control_a[1] == pytest.approx(op_iabc, rel=0.03)
+        assert _wait(qtbot, lambda: w.live.m_ctl.value is not None
+                     and w.live.m_gr.value is not None, 30)
+        qtbot.wait(1500)
+        assert 0 < w.live.m_ctl.value <= 1e6 * op_iabc * 1.05
+        assert w.live.m_gr.value <= 0.0
+        # step the time-constant capacitor two places up the E12 series
+        w.chain.select("detector")
+        row = w.parts.rows[cap]
+        row.series.setCurrentText("E12")
+        c0 = d.part(cap).value
+        row.up.click()
+        row.up.click()
+        c2 = w.wb.design.part(cap).value
+        assert c2 == pytest.approx(_e12_up(c0, 2), rel=1e-9)
+        h.call("flush")
+        assert h.call("element_values")[cap] == pytest.approx(c2, rel=1e-12)
+        # the release readout follows: the recovery is a discharge of that
+        # capacitor, so its time scales with C (first-order RC: tau = R C;
+        # common practice), within the other capacitors' share
+        assert _wait(qtbot, lambda: w.last_dyn is not None and w.last_dyn.release_s != rel0,
+                     180)
+        assert w.last_dyn.release_s / rel0 == pytest.approx(c2 / c0, rel=0.15)
+        assert f"{w.last_dyn.release_s * 1e3:.0f} ms" in w.live.dyn.text()
+        # the threshold pot: reverse-audio taper, then turned to 30 %
+        prow = w.parts.rows[pot]
+        i = prow.taper.findData("reverse-audio")
+        prow.taper.setCurrentIndex(i)
+        prow.taper.activated.emit(i)
+        prow = w.parts.rows[pot]
+        prow.dial.setValue(300)
+        total = w.wb.design.part(pot).value
+        h.call("flush")
+        vals = h.call("element_values")
+        assert vals[f"{pot}.a"] == pytest.approx(total * _reverse_audio(0.3), rel=1e-6)
+        assert not [m for m in w.said if "re-measure" in m or "could not" in m]
+        # save as a new design: the built-in stays as it was
+        target = tmp_path / "my-compressor.toml"
+        w.ask_path = lambda _s: target
+        assert w.save()
+        assert builtin.read_bytes() == before
+        back = load_design(target)
+        assert back.part(cap).value == pytest.approx(c2, rel=1e-12)
+        assert back.part(pot).taper == "reverse-audio"
+        assert back.part(pot).rotation == pytest.approx(0.3)
+    finally:
+        w.close()
+
+
+def _same_design(a, b) -> list:
+    from gui.model import differences
+    return differences(a, b)
+
+
+def test_journey_player_voices_overdrive_and_booster_for_a_builder(qtbot, tmp_path):
+    from engine.design import Design
+    can_swap = hasattr(Design, "set_model")
+    w = _window(qtbot, tmp_path, "overdrive", source="tone:1000:0.1")
+    try:
+        # a design without a gain cell shows no control or gain-reduction meter
+        assert not w.live.m_gr.isVisibleTo(w) and not w.live.m_ctl.isVisibleTo(w)
+        assert "gain red." not in w.live.meter_legend.text()
+        w.wb.take_snapshot("stock", "as built-in")
+        # voicing: darker tone (the tone pot and its capacitor), other diodes
+        w.chain.select("tone")
+        w.wb.set_rotation("tone.TONE", 0.25)
+        w.parts.rows["tone.CT"].series.setCurrentText("E12")
+        w.parts.rows["tone.CT"].up.click()
+        assert w.wb.design.part("tone.CT").value == pytest.approx(5.6e-9, rel=1e-9)
+        if can_swap:
+            w.chain.select("clip")
+            row = w.parts.rows["clip.D1"]
+            others = [m for m in row.models if m != w.wb.design.part("clip.D1").model]
+            assert others, "the parts library offers another diode"
+            row.model.setCurrentText(others[0])
+            row.model.activated.emit(row.model.currentIndex())
+            assert w.wb.design.part("clip.D1").model == others[0]
+        w.wb.take_snapshot("voiced", "darker, other diodes")
+        w.compare.refresh()
+        # the two versions differ exactly in what was changed
+        diffs = {(x.what, x.field) for x in _same_design(
+            w.wb.snapshot("stock").design, w.wb.snapshot("voiced").design)}
+        assert ("tone.TONE", "rotation") in diffs and ("tone.CT", "value") in diffs
+        # A/B loudness-matched: the output meters of A and B read alike
+        w.live_driver = "paced"
+        w.start_ab("stock", "voiced")
+        assert w.wait_live(300)
+        outs = {}
+        for side in "AB":
+            w.hear(side)
+            qtbot.wait(2500)
+            outs[side] = w.live.m_out.value
+        assert "LU (A − B)" in w.compare.match.text()
+        assert outs["A"] is not None and abs(outs["A"] - outs["B"]) < 1.5
+        w.stop_live()
+        # save both versions for the builder; each reopens identically
+        files = {}
+        for name in ("stock", "voiced"):
+            w.wb.recall_snapshot(name)
+            files[name] = tmp_path / f"overdrive-{name}.toml"
+            w.ask_path = lambda _s, f=files[name]: f
+            assert w.save_as_dialog()                  # File > Save as
+            assert w.wb.design.path == files[name]
+        for name, f in files.items():
+            back = load_design(f)
+            assert _same_design(back, w.wb.snapshot(name).design) == []
+        assert load_design(files["voiced"]).part("tone.CT").value == pytest.approx(5.6e-9)
+    finally:
+        w.close()
+    # the booster: no gain reduction meter (it has no gain cell), its
+    # transistor swapped by model, saved and reopened identically
+    w = _window(qtbot, tmp_path, "booster", source="tone:1000:0.1")
+    try:
+        assert not w.live.m_gr.isVisibleTo(w)
+        assert not w.live.dyn.isVisibleTo(w)
+        if can_swap:
+            w.chain.select("boost")
+            row = w.parts.rows["boost.Q1"]
+            other = [m for m in row.models if m != w.wb.design.part("boost.Q1").model][0]
+            row.model.setCurrentText(other)
+            row.model.activated.emit(row.model.currentIndex())
+        w.wb.set_rotation(next(p.qualname for p in w.wb.design.parts() if p.type == "pot"), 0.8)
+        f = tmp_path / "booster-mine.toml"
+        w.ask_path = lambda _s: f
+        assert w.save()
+        assert _same_design(load_design(f), w.wb.design) == []
+    finally:
+        w.close()
