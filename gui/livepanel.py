@@ -19,7 +19,7 @@ from collections import deque
 import numpy as np
 from PyQt6.QtCore import QRectF, Qt, pyqtSignal
 from PyQt6.QtGui import QColor, QFont, QPainter, QPen
-from PyQt6.QtWidgets import (QComboBox, QGridLayout, QGroupBox, QHBoxLayout, QLabel,
+from PyQt6.QtWidgets import (QComboBox, QGridLayout, QGroupBox, QHBoxLayout, QLabel, QLineEdit,
                              QPushButton, QSizePolicy, QSlider, QVBoxLayout, QWidget)
 
 from gui import theme
@@ -286,6 +286,7 @@ class LivePanel(QWidget):
     mute_changed = pyqtSignal(bool)
     source_changed = pyqtSignal(str)
     midi_connect = pyqtSignal()
+    probe_requested = pyqtSignal(str)
     midi_learn = pyqtSignal(bool)
 
     def __init__(self, parent=None):
@@ -411,7 +412,17 @@ class LivePanel(QWidget):
         self.probe_pick = QComboBox()
         self.probe_pick.setToolTip("the probe shown in the last trace: a net's voltage (V) "
                                    "or a device current (A, drawn in µA)")
-        tl.addWidget(self.probe_pick)
+        prow = QHBoxLayout()
+        prow.addWidget(self.probe_pick, 2)
+        self.probe_add = QLineEdit()
+        self.probe_add.setPlaceholderText("add probe: v(out), ic(Q1) … Enter")
+        self.probe_add.setToolTip("probe any net or device by the names in the Inside tab's "
+                                  "operating point: v(net), v(net1,net2), i(part), ic(Q), "
+                                  "vce(Q), id(D) …")
+        prow.addWidget(self.probe_add, 1)
+        tl.addLayout(prow)
+        self.probe_add.returnPressed.connect(
+            lambda: self.probe_requested.emit(self.probe_add.text()))
         # scope
         sbox = QGroupBox("SCOPE — OUT AGAINST IN")
         sl = QVBoxLayout(sbox)
@@ -441,6 +452,7 @@ class LivePanel(QWidget):
         self.hist_t: deque = deque(maxlen=4000)
         self.last_preview = None
         self._live_probe = None
+        self.want_probe: str | None = None     # a probe just added: show it
         self._ranges: dict = {}
         self.probe_pick.currentTextChanged.connect(lambda _t: self._redraw_probe())
 
@@ -493,7 +505,9 @@ class LivePanel(QWidget):
         self.probe_pick.blockSignals(True)
         self.probe_pick.clear()
         self.probe_pick.addItems(probes + ["input level", "output level"])
-        if keep in probes + ["input level", "output level"]:
+        if self.want_probe in probes:
+            self.probe_pick.setCurrentText(self.want_probe)
+        elif keep in probes + ["input level", "output level"]:
             self.probe_pick.setCurrentText(keep)
         elif len(probes) > 1:
             self.probe_pick.setCurrentIndex(1)
@@ -559,6 +573,8 @@ class LivePanel(QWidget):
         probes = va.get("probes", {})
         if self.probe_pick.count() == 0 and probes:
             self.probe_pick.addItems(list(probes))
+            if self.want_probe in probes:
+                self.probe_pick.setCurrentText(self.want_probe)
             pk = self.probe_pick.currentText()
         unit = va.get("probe_units", {}).get(pk, "")
         val = probes.get(pk, np.nan)
@@ -709,6 +725,10 @@ class LivePanel(QWidget):
         self.latency.set("—")
 
     def clear_live(self) -> None:
+        self.probe_pick.blockSignals(True)
+        self.probe_pick.clear()              # the host's probes fill it again
+        self.probe_pick.blockSignals(False)
+        self._live_probe = None
         self.hist.clear()
         self.hist_t.clear()
         self._ranges = {}

@@ -346,6 +346,7 @@ class MainWindow(QMainWindow):
         self.midi.message.connect(self.say)
         self.midi.learned.connect(lambda *_a: self._midi_learned())
         self.live.midi_connect.connect(self.connect_midi)
+        self.live.probe_requested.connect(self.add_probe)
         self.live.midi_learn.connect(self.midi.learn)
         self.wb.edited.connect(lambda kind, q, _v: self.midi.pot_turned(q)
                                if kind == "rotation" else None)
@@ -822,6 +823,15 @@ class MainWindow(QMainWindow):
     def _dyn_ready(self, g, r) -> None:
         self.last_dyn = r
         self.live.show_dynamics(r)
+
+    def add_probe(self, expr: str) -> str | None:
+        """Add a probe and show it in the probe trace (a rebuild when live)."""
+        name = self._guard(self.wb.add_probe, expr)
+        if name:
+            self.live.probe_add.clear()
+            self.live.want_probe = name
+            self.say(f"probe {name} added")
+        return name
 
     # ------------------------------------------------------------ MIDI knobs
     def connect_midi(self, port=None) -> bool:

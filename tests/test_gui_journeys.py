@@ -577,3 +577,99 @@ def test_journey_player_voices_overdrive_and_booster_for_a_builder(qtbot, tmp_pa
         assert _same_design(load_design(f), w.wb.design) == []
     finally:
         w.close()
+
+
+#: A common-emitter stage written by the engineer (our own values). Bias by
+#: hand (common practice): Vb = 9 * 22k / 122k = 1.62 V, Ie ~ 0.97 mA; with
+#: CE bypassing RE the mid-band gain is about -(RC || RL) / re.
+CE_AMP = """common-emitter stage under test
+VCC vcc 0 9
+VIN src 0 0
+RS src in 1k
+C1 in b 1u
+R1 vcc b 100k
+R2 b 0 22k
+Q1 c b e QGEN
+RC vcc c 4.7k
+RE e 0 1k
+CE e 0 47u
+C2 c out 1u
+RL out 0 100k
+.model QGEN NPN(IS=1e-14 BF=200)
+.end
+"""
+
+
+def test_journey_engineer_compares_a_netlist_modification(qtbot, tmp_path):
+    net = tmp_path / "ce-amp.cir"
+    net.write_text(CE_AMP)
+    if "Q1" not in {p.qualname for p in load_design(net).parts()}:
+        pytest.skip("netlist parts are not named as op prints them yet (engine side of "
+                    "issue 16)")
+    w = _window(qtbot, tmp_path, load_design(net), source="tone:1000:0.01")
+    try:
+        # the names the operating point shows are the names to probe and edit
+        rows = w.last_op.rows
+        assert any(r[0] == "net" and r[1] == "out" for r in rows)
+        ic_op = next(r[3] for r in rows if r[1] == "Q1" and r[2].lower() == "ic")
+        # bias by hand: Ie = (Vb - Vbe) / RE with Vb from the divider (loaded by
+        # the base current), about 0.9 mA; within 15 %
+        assert ic_op == pytest.approx((9 * 22 / 122 - 0.65) / 1e3, rel=0.15)
+        for expr in ("v(out)", "ic(Q1)"):
+            w.live.probe_add.setText(expr)
+            w.live.probe_add.returnPressed.emit()
+        assert [p.expr for p in w.wb.design.probes][-2:] == ["v(out)", "ic(Q1)"]
+        assert w.wait_idle(240)
+        s = w.last_preview.series
+        # a 10 mV tone barely moves the bias: the probe's mean is the op's Ic
+        assert np.nanmean(s["ic(Q1)"]) == pytest.approx(ic_op, rel=0.02)
+        w.live.probe_pick.setCurrentText("ic(Q1)")
+        assert "ic(Q1)" in w.live.traces.labels["probe"] and "µA" in w.live.traces.labels["probe"]
+        # a bad probe name is refused with a message, nothing added
+        n = len(w.wb.design.probes)
+        w.live.probe_add.setText("v(nowhere)")
+        w.live.probe_add.returnPressed.emit()
+        assert len(w.wb.design.probes) == n and "nowhere" in w.statusBar().currentMessage()
+        w.wb.take_snapshot("baseline", "")
+        # the modification, live: RC 4.7k -> 2.2k (gain ~ RC || RL)
+        w.live_driver = "paced"
+        assert w.start_live() and w.wait_live(300)
+        h = w.host
+        qtbot.wait(1500)
+        out0 = w.live.m_out.value
+        w.wb.set_value("RC", 2.2e3)
+        h.call("flush")
+        assert h.call("element_values")["RC"] == 2.2e3
+        qtbot.wait(2500)
+        par = lambda a, b: a * b / (a + b)
+        want = 20 * math.log10(par(2.2e3, 100e3) / par(4.7e3, 100e3))
+        assert w.live.m_out.value - out0 == pytest.approx(want, abs=1.0)
+        w.wb.take_snapshot("mod", "RC 2.2k")
+        w.compare.refresh()
+        # overlay baseline against the modification
+        w.request_overlay("baseline", "mod")
+        assert w.wait_idle(240)
+        a, b = w.last_overlay
+        k = int(np.argmin(np.abs(a.ac.f - 1000.0)))
+        dg = 20 * math.log10(abs(b.ac.H[k]) / abs(a.ac.H[k]))
+        assert dg == pytest.approx(want, abs=0.5)
+        # RC barely touches the input impedance (the base sees RE's reflection)
+        assert abs(b.ac.zin[k]) == pytest.approx(abs(a.ac.zin[k]), rel=0.05)
+        for key in ("gain", "zin"):
+            assert len(w.compare.overlay_plots[key].plotItem.listDataItems()) == 2
+        # a blind trial between them, and its log
+        w.start_ab("baseline", "mod")
+        assert w.wait_live(300)
+        w.compare.min_listen_s = 0.2
+        w.compare.rounds.setValue(4)
+        assert w.compare.begin_trial()
+        for _ in range(4):
+            w.compare.play_x.click()
+            qtbot.wait(300)
+            assert w.compare.answer("A")
+        out = tmp_path / "trial.csv"
+        w.ask_path = None
+        w.compare.export_log(out)
+        assert len(out.read_text().splitlines()) == 1 + 4 + 1 + 4
+    finally:
+        w.close()
