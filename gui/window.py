@@ -144,10 +144,12 @@ class MainWindow(QMainWindow):
         self.resize(1480, 940)
         self._build()
         i = self.live.source.findData(source)
-        if i >= 0:                          # live playback starts from the same source
-            self.live.source.blockSignals(True)
-            self.live.source.setCurrentIndex(i)
-            self.live.source.blockSignals(False)
+        self.live.source.blockSignals(True)
+        if i < 0:                           # a source given by name: offer it too
+            self.live.source.addItem(source, source)
+            i = self.live.source.count() - 1
+        self.live.source.setCurrentIndex(i)  # live playback starts from the same source
+        self.live.source.blockSignals(False)
         self._actions()
         self._wire()
         if self.settings.problem:
