@@ -54,9 +54,16 @@ class StageBlock(QGraphicsRectItem):
         title.setFont(f)
         title.setBrush(QColor(theme.TEXT))
         title.setPos(30, 4)
-        kind = QGraphicsSimpleTextItem((st.kind or "stage")[:24], self)
+        kind = QGraphicsSimpleTextItem("", self)
         kind.setBrush(QColor(theme.DIM))
         kind.setFont(QFont("", 8))
+        # elided to the block's width (with a tooltip), never cut mid-word
+        from PyQt6.QtGui import QFontMetricsF
+        full = st.kind or "stage"
+        kind.setText(QFontMetricsF(kind.font()).elidedText(full, Qt.TextElideMode.ElideRight,
+                                                           BW - 16))
+        if kind.text() != full:
+            kind.setToolTip(full)
         kind.setPos(8, 28)
         nparts = QGraphicsSimpleTextItem(f"{len(st.parts)} parts", self)
         nparts.setBrush(QColor(theme.DIM))
@@ -192,7 +199,7 @@ class ChainView(QGraphicsView):
         self.setSceneRect(self.scene_.itemsBoundingRect().adjusted(-10, -10, 20, 10))
         # tall enough for the row of side branches without scrolling
         self.setMinimumHeight(min(int(self.sceneRect().height()) + 6,
-                                  int(SIDE_Y + BH + 20)))
+                                  int(SIDE_Y + BH + 36)))
 
     def _jack(self, text, x, y, left=False):
         it = QGraphicsSimpleTextItem(text)

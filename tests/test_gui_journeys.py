@@ -512,12 +512,17 @@ def test_journey_player_voices_overdrive_and_booster_for_a_builder(qtbot, tmp_pa
         assert not w.live.m_gr.isVisibleTo(w) and not w.live.m_ctl.isVisibleTo(w)
         assert "gain red." not in w.live.meter_legend.text()
         w.wb.take_snapshot("stock", "as built-in")
-        # voicing: darker tone (the tone pot and its capacitor), other diodes
+        # voicing: the tone pot and a tone capacitor, other diodes
+        tone = w.wb.design.stage("tone")
+        tpot = "tone." + next(p.name for p in tone.parts if p.type == "pot")
+        tcap = "tone." + next(p.name for p in tone.parts
+                              if p.type == "capacitor" and p.name != "C1")
         w.chain.select("tone")
-        w.wb.set_rotation("tone.TONE", 0.25)
-        w.parts.rows["tone.CT"].series.setCurrentText("E12")
-        w.parts.rows["tone.CT"].up.click()
-        assert w.wb.design.part("tone.CT").value == pytest.approx(5.6e-9, rel=1e-9)
+        w.wb.set_rotation(tpot, 0.25)
+        c0 = w.wb.design.part(tcap).value
+        w.parts.rows[tcap].series.setCurrentText("E12")
+        w.parts.rows[tcap].up.click()
+        assert w.wb.design.part(tcap).value == pytest.approx(_e12_up(c0, 1), rel=1e-9)
         if can_swap:
             w.chain.select("clip")
             row = w.parts.rows["clip.D1"]
@@ -531,7 +536,7 @@ def test_journey_player_voices_overdrive_and_booster_for_a_builder(qtbot, tmp_pa
         # the two versions differ exactly in what was changed
         diffs = {(x.what, x.field) for x in _same_design(
             w.wb.snapshot("stock").design, w.wb.snapshot("voiced").design)}
-        assert ("tone.TONE", "rotation") in diffs and ("tone.CT", "value") in diffs
+        assert (tpot, "rotation") in diffs and (tcap, "value") in diffs
         # A/B loudness-matched: the output meters of A and B read alike
         w.live_driver = "paced"
         w.start_ab("stock", "voiced")
@@ -555,7 +560,7 @@ def test_journey_player_voices_overdrive_and_booster_for_a_builder(qtbot, tmp_pa
         for name, f in files.items():
             back = load_design(f)
             assert _same_design(back, w.wb.snapshot(name).design) == []
-        assert load_design(files["voiced"]).part("tone.CT").value == pytest.approx(5.6e-9)
+        assert load_design(files["voiced"]).part(tcap).value == pytest.approx(_e12_up(c0, 1))
     finally:
         w.close()
     # the booster: no gain reduction meter (it has no gain cell), its
