@@ -679,3 +679,16 @@ def test_journey_engineer_compares_a_netlist_modification(qtbot, tmp_path):
         assert len(out.read_text().splitlines()) == 1 + 4 + 1 + 4
     finally:
         w.close()
+
+
+def test_bad_knob_mapping_in_a_design_is_explained_and_ignored(qtbot, tmp_path):
+    p = tmp_path / "divider-knob.toml"
+    p.write_text(DIVIDER.read_text() + '\n[[midi.knob]]\npot = "level.NOPE"\nchannel = 1\n'
+                 'cc = 7\n')
+    w = _window(qtbot, tmp_path, load_design(p))
+    try:
+        assert w.midi.mapping == {}
+        msg = [t for t in w.notices.texts() if "MIDI knob mappings ignored" in t]
+        assert msg and "level.NOPE" in msg[0] and "level.VOL" in msg[0]
+    finally:
+        w.close()
