@@ -179,7 +179,7 @@ class StripChart(QWidget):
         fm = p.fontMetrics()
         # the label column is as wide as the longest label (never cut short)
         widest = max([fm.horizontalAdvance(self.labels.get(k, k)) for k, _, _ in rows]
-                     + [fm.horizontalAdvance(self.x_label), 60])
+                     + [fm.horizontalAdvance(self.x_label) + 22, 60])
         left, right, top, bottom = min(widest + 12, max(w // 3, 78)), 8, 4, 20
         n = max(len(rows), 1)
         rh = (h - top - bottom) / n
@@ -234,7 +234,8 @@ class StripChart(QWidget):
             p.drawText(QRectF(px - 20, h - bottom + 3, 40, 14), Qt.AlignmentFlag.AlignCenter,
                        f"{xv:g}")
             k += 1
-        p.drawText(QRectF(0, h - bottom + 3, left - 6, 14), Qt.AlignmentFlag.AlignRight,
+        # clear of the first tick's number, which is centred on the left edge
+        p.drawText(QRectF(0, h - bottom + 3, left - 24, 14), Qt.AlignmentFlag.AlignRight,
                    self.x_label)
         p.end()
 
@@ -378,11 +379,6 @@ class LivePanel(QWidget):
         self.meter_legend = QLabel()
         self.meter_legend.setWordWrap(True)
         self.meter_legend.setProperty("role", "dim")
-        self.blind_note = QLabel("Blind trial: output meter, control, gain reduction, "
-                                 "traces and scope are hidden until it ends.")
-        self.blind_note.setWordWrap(True)
-        self.blind_note.setProperty("role", "read")
-        self.blind_note.hide()
         mcol = QVBoxLayout()
         mcol.addLayout(ml, 1)
         mcol.addWidget(self.meter_legend)
@@ -394,7 +390,6 @@ class LivePanel(QWidget):
             "cover 63 % (1 - 1/e) of its step after the burst starts, release = time to "
             "recover 63 % after it ends")
         mcol.addWidget(self.dyn)
-        mcol.addWidget(self.blind_note)
         mbox.setLayout(mcol)
         self.has_control = True
         self.blind = False
@@ -659,6 +654,10 @@ class LivePanel(QWidget):
                     self.scope.setYRange(-r, r, padding=0)
 
     def _legend(self) -> None:
+        if self.blind:
+            self.meter_legend.setText("Blind trial: the output meter, control, gain "
+                                      "reduction, traces and scope are hidden until it ends.")
+            return
         parts = ["input / output: RMS level in dBFS (bar) and peak (mark)"]
         if self.has_control:
             parts.append("control: the gain cell's control current, µA")
@@ -692,7 +691,7 @@ class LivePanel(QWidget):
         (output, control, gain reduction, CPU, traces, scope); keep the input
         meter (the same source feeds both), xruns and latency."""
         self.blind = bool(on)
-        self.blind_note.setVisible(self.blind)
+        self._legend()
         for m in (self.m_out, self.m_ctl, self.m_gr):
             m.blank = "hidden" if self.blind else "—"
             m.set_value(None)
