@@ -319,6 +319,27 @@ class Analyser(QObject):
                          ac if dyn is None else dyn)
         return g
 
+    def request_dyn(self, design) -> int:
+        """Queue the attack and release readouts alone (while playing live,
+        after edits have settled)."""
+        if self.closed:
+            return 0
+        self.pending += 1
+        self.busy_changed.emit(True)
+        d = design.copy()
+        g = self.generation
+
+        def job():
+            try:
+                if g == self.generation:
+                    self._run("attack and release", lambda: dynamics(d), self.dyn_ready, g)
+            finally:
+                self.pending -= 1
+                if self.pending == 0:
+                    self.busy_changed.emit(False)
+        self.pool.submit(job)
+        return g
+
     def request_overlay(self, a, b, names=("A", "B")) -> int:
         """Queue the A/B overlay curves of designs ``a`` and ``b``."""
         if self.closed:

@@ -36,6 +36,11 @@ from gui.snapshots import CURRENT, SnapshotPanel
 
 AUTOSAVE_MS = 15000
 REFRESH_DEBOUNCE_MS = 300
+DYN_DEBOUNCE_MS = 1500
+"""While playing live, attack and release are measured again only after the
+edits have paused this long: the measurement simulates 2.6 s of audio in
+this process and would take frames from the meters during a knob sweep
+(bench/bench_gui.py: 17 instead of 27 frames per second)."""
 METER_MS = 30          # about 33 frames per second (target: at least 30)
 CAUTION_TEXT = ("Listening levels: a circuit can oscillate or jump in level. Start with "
                 "the monitor volume low and raise it slowly; output passes a safety "
@@ -326,6 +331,9 @@ class MainWindow(QMainWindow):
         self.refresh_timer = QTimer(self)
         self.refresh_timer.setSingleShot(True)
         self.refresh_timer.timeout.connect(self.refresh_analysis)
+        self.dyn_timer = QTimer(self)
+        self.dyn_timer.setSingleShot(True)
+        self.dyn_timer.timeout.connect(lambda: self.analyser.request_dyn(self.wb.design))
         self.analyser.preview_ready.connect(self._preview_ready)
         self.analyser.op_ready.connect(self._op_ready)
         self.analyser.ac_ready.connect(self._ac_ready)
@@ -442,7 +450,10 @@ class MainWindow(QMainWindow):
         self.refresh_timer.stop()
         if not self.wb.design.stages:
             return 0
-        return self.analyser.request(self.wb.design, preview=self.host is None)
+        live = self.host is not None
+        if live:
+            self.dyn_timer.start(DYN_DEBOUNCE_MS)
+        return self.analyser.request(self.wb.design, preview=not live, dyn=not live)
 
     def preview(self) -> int:
         return self.analyser.request(self.wb.design, op=False, ac=False, preview=True)
@@ -475,7 +486,8 @@ class MainWindow(QMainWindow):
         loop = QEventLoop()
         while time.monotonic() < t_end:
             loop.processEvents(QEventLoop.ProcessEventsFlag.AllEvents, 50)
-            if self.analyser.pending == 0 and not self.refresh_timer.isActive():
+            if self.analyser.pending == 0 and not self.refresh_timer.isActive() \
+                    and not self.dyn_timer.isActive():
                 loop.processEvents(QEventLoop.ProcessEventsFlag.AllEvents, 50)
                 return True
             time.sleep(0.01)
@@ -730,7 +742,7 @@ class MainWindow(QMainWindow):
             e.ignore()
             return
         self.stop_live()
-        for t in (self.refresh_timer, self.autosave_timer, self.meter_timer):
+        for t in (self.refresh_timer, self.autosave_timer, self.meter_timer, self.dyn_timer):
             t.stop()
         self.analyser.shutdown()
         self.midi.detach()
