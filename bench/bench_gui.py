@@ -107,7 +107,7 @@ def main(argv=None) -> int:
     edits: list[float] = []
     parts = [p.qualname for p in win.wb.design.parts()
              if p.type in ("resistor", "capacitor") and p.value]
-    target = "detector.RREL" if "detector.RREL" in parts else parts[0]
+    target = "detector.CT" if "detector.CT" in parts else parts[0]
     n_before = len(h.call("edit_landings"))
 
     def do_edit():

@@ -5,14 +5,16 @@ What it does, in order:
 
 1. renders the synthetic guitar phrase ``demo`` (engine.synth) at the jack;
 2. runs it through the built-in flagship compressor and its two A/B variants
-   (slower release; linear sustain taper), recording the OTA's control
-   current; writes the input and output WAVs (float, full scale stated);
+   (slower release; linear threshold taper), recording the OTA's control
+   current, and reads the deepest gain reduction on each group of notes;
+   writes the input and output WAVs (float, full scale stated);
 3. measures each design's static curve (steady 220 Hz tones at stepped
-   levels, output against input level, dB), its release time after a loud
-   tone burst (time for the gain reduction to recover by 63 % = 1 - 1/e of
-   its step; Giannoulis, Massberg & Reiss, JAES 2012; IEC 60050-351-45-36),
-   and its integrated loudness (ITU-R BS.1770-4, engine.live.loudness), from
-   which the loudness-matched level difference between variants follows;
+   levels, output against input level, dB), its attack and release times
+   around a tone burst (time for the gain reduction to cover 63 % = 1 - 1/e
+   of its step; Giannoulis, Massberg & Reiss, JAES 2012; IEC
+   60050-351-45-36), and its integrated loudness (ITU-R BS.1770-4,
+   engine.live.loudness) against the bypassed input, from which the
+   loudness-matched level difference between variants follows;
 4. writes ``report.html`` with PNG plots (matplotlib, Agg backend) and the
    operating point table, and prints where everything is.
 
@@ -38,7 +40,7 @@ from engine.analysis import compression as cp
 from engine.errors import SolderlessError
 
 FLAGSHIP = "flagship"
-VARIANTS = ("flagship-slow-release", "flagship-linear-sustain")
+VARIANTS = ("flagship-slow-release", "flagship-linear-threshold")
 FS = 48000.0
 #: WAV full scale: a sample of 1.0 is this many volts.
 WAV_FULL_SCALE_V = 1.0
@@ -94,42 +96,79 @@ def _device_quantity(q: dict, *names: str) -> float | None:
     return None
 
 
+#: Transistor part types the region check covers.
+BJT_TYPES = ("npn", "pnp")
+FET_TYPES = ("njfet", "pjfet", "nmos", "pmos")
+
+
 def transistor_check(design, op) -> list[dict]:
-    """Classify every BJT at the operating point: ``active``, ``saturated``
-    or ``off``; ``intended`` is True where the part's note says it is off at
-    rest by design. Saturation: Vce < 0.3 V with Vbe forward; off: |Ic| < 1 uA
-    (common practice thresholds for small-signal transistors)."""
+    """Classify every transistor at the operating point; ``intended`` is
+    True where the part's note says it is off at rest by design.
+
+    BJTs: ``active``, ``saturated`` or ``off``. Saturation: Vce < 0.3 V with
+    Vbe forward; off: |Ic| < 1 uA (common practice thresholds for
+    small-signal transistors). Keys ``ic``, ``vbe``, ``vce``.
+
+    JFETs and MOSFETs: ``active`` in the FET's saturation (pinch-off)
+    region, the one an amplifier or follower uses; ``triode`` in its
+    linear (ohmic) region (Vds below Vgs - Vto: the FET acts as a
+    resistor); ``off`` when cut off or |Id| < 1 uA (the square-law
+    regions, docs/references.md; the engine's device ``region``). Keys
+    ``id``, ``vgs``, ``vds``; ``ic``, ``vbe`` and ``vce`` carry the same
+    figures so one table shows every kind.
+    """
     rows = []
     for info in design.parts():
-        if info.type not in ("npn", "pnp"):
+        if info.type not in BJT_TYPES + FET_TYPES:
             continue
         q = op.devices.get(info.qualname)
         if q is None:
             continue
-        sign = 1.0 if info.type == "npn" else -1.0
-        ic = _device_quantity(q, "ic")
-        vbe = _device_quantity(q, "vbe")
-        vce = _device_quantity(q, "vce")
-        ic_s = sign * (ic or 0.0)
-        if ic_s < IC_OFF:
+        intended = OFF_BY_DESIGN in (info.note or "").lower()
+        if info.type in BJT_TYPES:
+            sign = 1.0 if info.type == "npn" else -1.0
+            ic = _device_quantity(q, "ic")
+            vbe = _device_quantity(q, "vbe")
+            vce = _device_quantity(q, "vce")
+            ic_s = sign * (ic or 0.0)
+            if ic_s < IC_OFF:
+                region = "off"
+            elif vce is not None and sign * vce < VCE_SAT and vbe is not None and sign * vbe > 0.5:
+                region = "saturated"
+            else:
+                region = "active"
+            rows.append({"part": info.qualname, "type": info.type, "ic": ic, "vbe": vbe,
+                         "vce": vce, "region": region, "intended": intended})
+            continue
+        i_d = _device_quantity(q, "id")
+        vgs = _device_quantity(q, "vgs")
+        vds = _device_quantity(q, "vds")
+        dev_region = q.get("region") if isinstance(q.get("region"), str) else None
+        if dev_region == "cut-off" or abs(i_d or 0.0) < IC_OFF:
             region = "off"
-        elif vce is not None and sign * vce < VCE_SAT and vbe is not None and sign * vbe > 0.5:
-            region = "saturated"
+        elif dev_region == "linear":
+            region = "triode"
         else:
             region = "active"
-        rows.append({"part": info.qualname, "type": info.type, "ic": ic, "vbe": vbe,
-                     "vce": vce, "region": region,
-                     "intended": OFF_BY_DESIGN in (info.note or "").lower()})
+        rows.append({"part": info.qualname, "type": info.type, "id": i_d, "vgs": vgs,
+                     "vds": vds, "ic": i_d, "vbe": vgs, "vce": vds, "region": region,
+                     "intended": intended})
     return rows
 
 
 def transistor_problems(design, op) -> list[str]:
-    """Transistors saturated, or off without a note saying so, at rest."""
+    """Transistors saturated (BJT) or in the triode region (FET), or off
+    without a note saying so, at rest."""
     out = []
     for r in transistor_check(design, op):
-        if r["region"] == "saturated" or (r["region"] == "off" and not r["intended"]):
-            out.append(f"{r['part']} is {r['region']} at rest "
-                       f"(Ic {r['ic']:.3g} A, Vce {r['vce']:.3g} V)")
+        if r["region"] in ("saturated", "triode") or (r["region"] == "off"
+                                                      and not r["intended"]):
+            if r["type"] in BJT_TYPES:
+                out.append(f"{r['part']} is {r['region']} at rest "
+                           f"(Ic {r['ic']:.3g} A, Vce {r['vce']:.3g} V)")
+            else:
+                out.append(f"{r['part']} is {r['region']} at rest "
+                           f"(Id {r['id'] or 0.0:.3g} A, Vds {r['vds'] or 0.0:.3g} V)")
     return out
 
 
@@ -148,12 +187,11 @@ def rest_control(design, op) -> float | None:
 RELEASE_BURST_V = 0.05
 
 
-def measure_release(design, fs: float = FS, amplitude: float = RELEASE_BURST_V,
-                    burst: float = 0.6, tail: float = 2.0, smooth: float = 0.02):
-    """Release time (s) after a tone burst (220 Hz, ``amplitude`` volts peak), from the control current:
-    the time for the gain reduction to recover by 63 % (1 - 1/e) of its step
-    (Giannoulis et al., JAES 2012). Returns (release time, times, GR trace in
-    dB, burst end time)."""
+def burst_response(design, fs: float = FS, amplitude: float = RELEASE_BURST_V,
+                   burst: float = 0.6, tail: float = 2.0, smooth: float = 0.02):
+    """Gain reduction (dB, from the control current, smoothed over ``smooth``
+    seconds) around a 220 Hz tone burst of ``amplitude`` volts peak. Returns
+    (times, GR trace, burst start, burst end, solver statistics)."""
     x, t0, t1 = cp.tone_burst(fs, 220.0, amplitude, lead=0.2, burst=burst, tail=tail)
     expr = design.control_probe()
     _, pr, sim = simulate(design, x, fs, probes=(expr,))
@@ -162,8 +200,48 @@ def measure_release(design, fs: float = FS, amplitude: float = RELEASE_BURST_V,
     gr = cp.gain_reduction_from_control(ctl, rest, design.meters.get("control_law", "linear"))
     n = max(1, int(smooth * fs))
     grs = np.convolve(gr, np.ones(n) / n, mode="same")
+    return np.arange(x.size) / fs, grs, t0, t1, sim.stats
+
+
+def measure_release(design, fs: float = FS, amplitude: float = RELEASE_BURST_V,
+                    burst: float = 0.6, tail: float = 2.0, smooth: float = 0.02):
+    """Release time (s) after a tone burst (220 Hz, ``amplitude`` volts peak), from the control current:
+    the time for the gain reduction to recover by 63 % (1 - 1/e) of its step
+    (Giannoulis et al., JAES 2012). Returns (release time, times, GR trace in
+    dB, burst end time, solver statistics)."""
+    t, grs, _, t1, stats = burst_response(design, fs, amplitude, burst, tail, smooth)
     rt = cp.release_time(grs, fs, start=t1, final=0.0)
-    return rt, np.arange(x.size) / fs, grs, t1, sim.stats
+    return rt, t, grs, t1, stats
+
+
+def measure_attack(design, fs: float = FS, amplitude: float = RELEASE_BURST_V,
+                   burst: float = 0.6, smooth: float = 0.002):
+    """Attack time (s) at the onset of the same tone burst: the time for the
+    gain reduction to cover 63 % of its step towards its level at the end of
+    the burst (time-constant convention, Giannoulis et al., JAES 2012). A
+    shorter smoothing window than the release's keeps the fast attack
+    visible. Returns (attack time, times, GR trace, burst start, statistics)."""
+    t, grs, t0, _, stats = burst_response(design, fs, amplitude, burst, 0.2, smooth)
+    at = cp.attack_time(grs, fs, start=t0, settle=burst)
+    return at, t, grs, t0, stats
+
+
+#: Onsets (s) of the note groups of the demo phrase (engine.synth._phrase_demo).
+PHRASE_GROUPS = {"soft notes": (0.0, 0.45, 0.9), "hard notes": (1.5, 1.9, 2.3),
+                 "strummed chord": (3.0,), "palm-muted chugs": (4.6, 4.8, 5.0, 5.2, 5.4, 5.6)}
+
+
+def phrase_gain_reduction(gr: np.ndarray, fs: float = FS, window: float = 0.3) -> dict:
+    """Deepest gain reduction (dB, positive) within ``window`` seconds of
+    each onset of each group of the demo phrase: {group: [dB per onset]}
+    (onsets beyond the trace are left out)."""
+    out = {}
+    for name, onsets in PHRASE_GROUPS.items():
+        vals = [float(-gr[int(t * fs):int((t + window) * fs)].min())
+                for t in onsets if int(t * fs) < gr.size]
+        if vals:
+            out[name] = vals
+    return out
 
 
 def measure_static(design, fs: float = FS, levels_db=STATIC_LEVELS_DB,
@@ -284,18 +362,29 @@ def _op_table(design, op) -> str:
 
 
 def _write_report(out: Path, fs: float, x, runs, curves, releases, louds, files,
-                  wavs, elapsed) -> Path:
+                  wavs, elapsed, attacks=None, bypass_lufs=None) -> Path:
     base = runs[0]
+    attacks = attacks or [(float("nan"),)] * len(runs)
     tr = []
-    for r, c, rel, lu in zip(runs, curves, releases, louds):
+    gtr = []
+    for r, at in zip(runs, attacks):
+        groups = phrase_gain_reduction(r.extra["gr"], fs) if "gr" in r.extra else {}
+        cells = "".join(
+            f"<td>{min(groups[g]):.1f} to {max(groups[g]):.1f}</td>" if g in groups
+            else "<td>-</td>" for g in PHRASE_GROUPS)
+        gtr.append(f"<tr><td>{html.escape(r.title)}</td>{cells}</tr>")
+    for r, c, rel, lu, at in zip(runs, curves, releases, louds, attacks):
         try:
             slope = c.slope(c.threshold_db(1.0) + 6.0)
         except (ValueError, TypeError):
             slope = float("nan")
         diff = lu - louds[0]
+        byp = lu - bypass_lufs if bypass_lufs is not None else float("nan")
         tr.append(f"<tr><td>{html.escape(r.title)}</td><td>{c.threshold_db(1.0):.1f}</td>"
-                  f"<td>{slope:.2f}</td><td>{rel[0] * 1e3:.0f}</td><td>{lu:.1f}</td>"
+                  f"<td>{slope:.2f}</td><td>{at[0] * 1e3:.1f}</td><td>{rel[0] * 1e3:.0f}</td>"
+                  f"<td>{lu:.1f}</td><td>{byp:+.1f}</td>"
                   f"<td>{diff:+.1f}</td><td>{-diff:+.1f}</td></tr>")
+    gheads = "".join(f"<th>{html.escape(g)} (dB)</th>" for g in PHRASE_GROUPS)
     wav_list = "".join(f"<li><a href='{html.escape(w)}'>{html.escape(w)}</a> "
                        f"{html.escape(d)}</li>" for w, d in wavs)
     imgs = {k: f"<img src='{v}' alt='{k}'>" for k, v in files.items()}
@@ -306,20 +395,26 @@ table{{border-collapse:collapse;font-size:90%}}td,th{{border:1px solid #ccc;padd
 img{{max-width:100%}}</style></head><body>
 <h1>Solderless demo: {html.escape(base.title)} and its variants</h1>
 <p>A synthetic guitar phrase ({len(x) / fs:.1f} s, single-coil pickup, at the jack)
-rendered through the built-in feedback OTA compressor and two variants for A/B.
+rendered through the built-in feedback OTA compressor with a parallel blend, and two variants
+for A/B.
 Rendered in {elapsed:.1f} s. WAV files are 32-bit float at {fs:g} Hz; full scale
 (1.0) is {WAV_FULL_SCALE_V:g} V.</p>
 <ul>{wav_list}</ul>
 <h2>Summary</h2>
 <table><tr><th>design</th><th>threshold (dBV, 1 dB GR)</th><th>slope above threshold + 6 dB</th>
-<th>release time (ms, 63 %)</th><th>integrated loudness (LUFS)</th>
-<th>level vs baseline (LU)</th><th>gain to loudness-match (dB)</th></tr>{''.join(tr)}</table>
+<th>attack time (ms, 63 %)</th><th>release time (ms, 63 %)</th><th>integrated loudness (LUFS)</th>
+<th>level vs bypass (LU)</th><th>level vs baseline (LU)</th><th>gain to loudness-match (dB)</th></tr>{''.join(tr)}</table>
+<p>Deepest gain reduction on the phrase's notes (within 0.3 s of each onset, from the control
+current):</p>
+<table><tr><th>design</th>{gheads}</tr>{''.join(gtr)}</table>
 <p>Threshold: input level where the gain has dropped by 1 dB. Slope: output dB per input dB
 (1 = no compression; 1/ratio above threshold; Giannoulis, Massberg &amp; Reiss, JAES 2012).
-Release time: time for the gain reduction to recover by 63 % (1 &minus; 1/e) of its step after a
-{RELEASE_BURST_V * 1e3:g} mV peak burst ends (time-constant convention; IEC 60050-351-45-36). Loudness: ITU-R BS.1770-4
-integrated loudness of the output WAV; the last column is the gain that would play the variant at
-the baseline's loudness.</p>
+Attack time: time for the gain reduction to cover 63 % of its step after a
+{RELEASE_BURST_V * 1e3:g} mV peak 220 Hz burst starts; release time: time for it to recover by 63 % (1 &minus; 1/e)
+of its step after the burst ends (time-constant convention; IEC 60050-351-45-36). Loudness: ITU-R BS.1770-4
+integrated loudness of the output WAV; "level vs bypass" compares it with the input played straight
+through ({bypass_lufs if bypass_lufs is not None else float("nan"):.1f} LUFS); the last column is the gain
+that would play the variant at the baseline's loudness.</p>
 <h2>Input and output waveforms</h2>{imgs['waveforms']}
 <h2>Control current and gain reduction</h2>
 <p>Gain reduction from the control current: the OTA's gain is proportional to Iabc, so
@@ -393,20 +488,26 @@ def run_demo(out_dir: str | os.PathLike = "demo-out", seconds: float | None = No
               for r in runs]
     releases = [measure_release(r.extra["design"], fs, tail=1.0 if quick else 2.0)
                 for r in runs]
+    attacks = [measure_attack(r.extra["design"], fs) for r in runs]
     louds = [loudness(r.y, fs) for r in runs]
+    bypass_lufs = loudness(x, fs)
     files = _plots(out, fs, x, runs, curves, releases)
     elapsed = time.perf_counter() - t_start
-    path = _write_report(out, fs, x, runs, curves, releases, louds, files, wavs, elapsed)
+    path = _write_report(out, fs, x, runs, curves, releases, louds, files, wavs, elapsed,
+                         attacks, bypass_lufs)
     summary = {
         "fs": fs, "seconds": len(x) / fs, "wav_full_scale_volts": WAV_FULL_SCALE_V,
+        "bypass_loudness_lufs": bypass_lufs,
         "designs": [{
             "name": r.name, "title": r.title,
             "threshold_dbv": c.threshold_db(1.0),
             "static_input_dbv": c.input_db.tolist(), "static_output_dbv": c.output_db.tolist(),
-            "release_time_s": rel[0], "integrated_loudness_lufs": lu,
-            "level_vs_baseline_lu": lu - louds[0],
+            "attack_time_s": at[0], "release_time_s": rel[0], "integrated_loudness_lufs": lu,
+            "level_vs_baseline_lu": lu - louds[0], "level_vs_bypass_lu": lu - bypass_lufs,
+            "phrase_gain_reduction_db": (phrase_gain_reduction(r.extra["gr"], fs)
+                                         if "gr" in r.extra else {}),
             "nonconverged": int(r.stats.get("nonconverged", 0)),
-        } for r, c, rel, lu in zip(runs, curves, releases, louds)],
+        } for r, c, rel, lu, at in zip(runs, curves, releases, louds, attacks)],
     }
     (out / "summary.json").write_text(json.dumps(summary, indent=2, default=float))
     if verbose:
@@ -418,9 +519,10 @@ def run_demo(out_dir: str | os.PathLike = "demo-out", seconds: float | None = No
             print(f"  {out / k}")
         print(f"  {out / 'summary.json'}")
         print(f"report: {path}")
-        for r, rel, lu in zip(runs, releases, louds):
-            print(f"  {r.title:<36} release {rel[0] * 1e3:6.0f} ms   "
-                  f"loudness {lu:6.1f} LUFS ({lu - louds[0]:+.1f} LU vs baseline)")
+        for r, rel, at, lu in zip(runs, releases, attacks, louds):
+            print(f"  {r.title:<36} attack {at[0] * 1e3:5.1f} ms  release {rel[0] * 1e3:6.0f} ms  "
+                  f"loudness {lu:6.1f} LUFS ({lu - bypass_lufs:+.1f} LU vs bypass, "
+                  f"{lu - louds[0]:+.1f} vs baseline)")
         print("Listen live: `solderless play flagship` (audio interface or synthetic guitar), "
               "or `solderless gui flagship` for the workbench. Start with the volume low.")
     return path

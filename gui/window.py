@@ -116,6 +116,23 @@ class NoticeBar(QFrame):
         return [b.text for b in self.notices]
 
 
+def design_location(path) -> str:
+    """Where a design lives, for the header: a built-in design by its name
+    (never the folder it was installed in), a user's file with the home
+    folder written as ~, or "(not saved)"."""
+    if not path:
+        return "(not saved)"
+    p = Path(path)
+    try:
+        rp = p.resolve()
+        for name, f in builtin_designs().items():
+            if Path(f).resolve() == rp:
+                return f"built-in design: {name}"
+        return "~/" + str(rp.relative_to(Path.home().resolve()))
+    except (OSError, ValueError):
+        return str(p)
+
+
 class MainWindow(QMainWindow):
     """The workbench. ``ask`` may be replaced (tests) by a function
     ``ask(question) -> 'save' | 'discard' | 'cancel'``."""
@@ -417,11 +434,7 @@ class MainWindow(QMainWindow):
         self._midi_label()
         self.live.set_has_control(has_control(d))
         self.title.setText(d.name)
-        if d.path and is_builtin_path(d.path):
-            self.file_lab.setText(f"  built-in design '{Path(d.path).stem}' (read-only: "
-                                  "Save writes a copy to your designs folder)")
-        else:
-            self.file_lab.setText(f"  {d.path}" if d.path else "  (not saved)")
+        self.file_lab.setText(f"  {design_location(d.path)}")
         if self.chain.selected:
             self.parts.stage = self.chain.selected
         self.schedule_refresh()

@@ -33,14 +33,17 @@ def test_report_exists_with_every_picture(demo_run):
     for word in ("Operating point", "LUFS", "63 %", "solderless play flagship",
                  "solderless gui flagship", "full scale"):
         assert word in text
-    # the operating point table lists the detector's rectifiers as off by design
-    assert "detector.Q2" in text and "off (by design)" in text
+    # the operating point table lists the detector's transistor and its pump
+    # diodes; the summary has the attack and release times and the bypass level
+    assert "detector.Q2" in text and "detector.D2" in text
+    for word in ("attack time", "release time", "level vs bypass", "hard notes"):
+        assert word in text
 
 
 def test_wavs_hold_the_rendered_signals(demo_run):
     out, _ = demo_run
     names = ["input.wav", "flagship.wav", "flagship-slow-release.wav",
-             "flagship-linear-sustain.wav"]
+             "flagship-linear-threshold.wav"]
     for n in names:
         x, fs = sf.read(out / n)
         assert fs == 48000 and x.size == 96000
@@ -55,7 +58,7 @@ def test_summary_numbers(demo_run):
     out, _ = demo_run
     s = json.loads((out / "summary.json").read_text())
     assert [d["name"] for d in s["designs"]] == ["flagship", "flagship-slow-release",
-                                                  "flagship-linear-sustain"]
+                                                  "flagship-linear-threshold"]
     for d in s["designs"]:
         assert d["nonconverged"] == 0
         assert np.isfinite(d["integrated_loudness_lufs"])
@@ -64,12 +67,23 @@ def test_summary_numbers(demo_run):
     # loudness difference is the difference of BS.1770 integrated loudness
     assert lin["level_vs_baseline_lu"] == pytest.approx(
         lin["integrated_loudness_lufs"] - base["integrated_loudness_lufs"])
-    # time-constant convention (63 %): the slow variant recovers later
+    assert lin["level_vs_bypass_lu"] == pytest.approx(
+        lin["integrated_loudness_lufs"] - s["bypass_loudness_lufs"])
+    # time-constant convention (63 %): the slow variant recovers later, and
+    # its bigger capacitor also fills later (a slower attack)
     assert slow["release_time_s"] > 2.0 * base["release_time_s"]
-    # static curve shows compression: the output rises less than the input
-    dx = base["static_input_dbv"][-1] - base["static_input_dbv"][0]
-    dy = base["static_output_dbv"][-1] - base["static_output_dbv"][0]
-    assert dy < 0.6 * dx
+    assert slow["attack_time_s"] > base["attack_time_s"] > 0.0
+    # the linear-threshold variant compresses less: a higher threshold and
+    # less reduction on the hard notes (the phrase's first 2 s hold them)
+    assert lin["threshold_dbv"] > base["threshold_dbv"] + 5.0
+    assert max(lin["phrase_gain_reduction_db"]["hard notes"]) < \
+        min(base["phrase_gain_reduction_db"]["hard notes"])
+    # static curve shows compression: somewhere above the threshold the
+    # output rises by under half a dB per dB (a parallel compressor keeps
+    # part of the dry signal, so the curve as a whole stays steeper)
+    x, y = np.array(base["static_input_dbv"]), np.array(base["static_output_dbv"])
+    assert np.min(np.diff(y) / np.diff(x)) < 0.5
+    assert y[-1] - y[0] < 0.85 * (x[-1] - x[0])
 
 
 def test_loudness_uses_bs1770():
@@ -83,21 +97,35 @@ def test_loudness_uses_bs1770():
 def test_transistor_check_classifies_regions():
     # thresholds: Vce < 0.3 V with Vbe forward = saturated; Ic < 1 uA = off
     # (common practice for small-signal transistors)
+    # FETs: the device's own region (saturation = the amplifier's region,
+    # here "active"; linear = "triode"; cut-off = "off"), Shichman-Hodges
     parts = [SimpleNamespace(qualname="s.QA", type="npn", note=""),
              SimpleNamespace(qualname="s.QB", type="npn", note="rectifier (off at rest)"),
              SimpleNamespace(qualname="s.QC", type="pnp", note=""),
-             SimpleNamespace(qualname="s.QD", type="npn", note="")]
+             SimpleNamespace(qualname="s.QD", type="npn", note=""),
+             SimpleNamespace(qualname="s.JA", type="njfet", note=""),
+             SimpleNamespace(qualname="s.JB", type="pjfet", note=""),
+             SimpleNamespace(qualname="s.MA", type="nmos", note=""),
+             SimpleNamespace(qualname="s.MB", type="pmos", note="switch, off at rest")]
     design = SimpleNamespace(parts=lambda: parts)
     op = SimpleNamespace(devices={
         "s.QA": {"ic": 1e-3, "vbe": 0.65, "vce": 0.1},
         "s.QB": {"ic": 1e-9, "vbe": 0.3, "vce": 5.0},
         "s.QC": {"ic": -5e-4, "vbe": -0.62, "vce": -4.0},
-        "s.QD": {"ic": 1e-8, "vbe": 0.2, "vce": 9.0}})
+        "s.QD": {"ic": 1e-8, "vbe": 0.2, "vce": 9.0},
+        "s.JA": {"id": 5e-4, "vgs": -0.4, "vds": 4.0, "region": "saturated"},
+        "s.JB": {"id": -2e-3, "vgs": 0.5, "vds": -0.1, "region": "linear"},
+        "s.MA": {"id": 1e-3, "vgs": 3.0, "vds": 0.2, "region": "linear"},
+        "s.MB": {"id": 0.0, "vgs": 0.0, "vds": -9.0, "region": "cut-off"}})
     regions = {r["part"]: (r["region"], r["intended"]) for r in demo.transistor_check(design, op)}
     assert regions == {"s.QA": ("saturated", False), "s.QB": ("off", True),
-                       "s.QC": ("active", False), "s.QD": ("off", False)}
+                       "s.QC": ("active", False), "s.QD": ("off", False),
+                       "s.JA": ("active", False), "s.JB": ("triode", False),
+                       "s.MA": ("triode", False), "s.MB": ("off", True)}
     probs = demo.transistor_problems(design, op)
-    assert len(probs) == 2 and "s.QA" in probs[0] and "s.QD" in probs[1]
+    assert len(probs) == 4
+    assert [p.split()[0] for p in probs] == ["s.QA", "s.QD", "s.JB", "s.MA"]
+    assert "Vds" in probs[2] and "Vce" in probs[0]
 
 
 def test_cli_arguments_and_user_mistakes(tmp_path):

@@ -343,7 +343,25 @@ def test_flagship_screenshot(qtbot, tmp_path, artifacts):
     w.show()
     screenshot(w, artifacts / "gui_flagship.png")
     assert w.last_preview is not None and w.last_op is not None
+    # the header names a built-in design, never the folder it is installed in
+    assert w.file_lab.text().strip() == "built-in design: flagship"
+    assert str(Path(__file__).resolve().parent.parent) not in w.file_lab.text()
     w.close()
+
+
+def test_header_names_files_without_machine_paths(tmp_path):
+    from gui.window import design_location
+    from engine.design import builtin_designs
+    assert design_location(builtin_designs()["octave-up"]) == "built-in design: octave-up"
+    assert design_location(None) == "(not saved)"
+    mine = Path.home() / "solderless-header-check.toml"
+    assert design_location(mine) == "~/solderless-header-check.toml"
+    other = tmp_path / "x.toml"
+    home = Path.home().resolve()
+    if other.resolve().is_relative_to(home):
+        assert design_location(other) == "~/" + str(other.resolve().relative_to(home))
+    else:
+        assert design_location(other) == str(other)
 
 
 def test_offline_ab_matches_loudness(win):

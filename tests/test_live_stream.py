@@ -65,8 +65,8 @@ h = LiveHost(d, source=ToneSource(440.0, 0.2), block=64, autosave=False)
 h.start()
 wait_blocks(h, int(2.0 * 48000 / 64))
 m1 = h.meters()
-lvl0 = h.part_info("level.LEVEL").rotation
-h.set_rotation("level.LEVEL", 0.3).result(120)
+lvl0 = h.part_info("output.VOLUME").rotation
+h.set_rotation("output.VOLUME", 0.3).result(120)
 wait_blocks(h, int(1.0 * 48000 / 64))
 m2 = h.meters()
 active = h.stream.active
@@ -130,7 +130,7 @@ def run(sweep):
     h.start()
     wait_blocks(h, int(2.0 * 48000 / 64))
     if sweep:
-        h.set_rotation("level.LEVEL", 0.4).result(120)
+        h.set_rotation("output.VOLUME", 0.4).result(120)
     while h.tap_pos + 64 <= h.tap.shape[0] and h.error is None:
         time.sleep(0.01)
     h.stop()
@@ -188,7 +188,7 @@ def test_devices_lists_what_portaudio_sees(null_home):
 def test_cli_terminal_commands_edit_and_save(null_home, tmp_path):
     home, env = null_home
     target = tmp_path / "mine.toml"
-    cmds = f"pick boost.C1\nup\npick level.LEVEL\nturn 0.5\nbypass boost\nsave {target}\n"
+    cmds = f"pick boost.C1\nup\npick output.VOLUME\nturn 0.5\nbypass boost\nsave {target}\n"
     r = subprocess.run([sys.executable, "-m", "engine.cli", "play", "booster",
                         "--source", "tone:1k:50m", "--seconds", "4", "--json"],
                        cwd=ROOT, env=env, input=cmds, capture_output=True, text=True,
@@ -201,7 +201,7 @@ def test_cli_terminal_commands_edit_and_save(null_home, tmp_path):
     parts = {p.qualname: p for p in d.parts()}
     # 100n stepped up once through E12 (IEC 60063) is 120n
     assert parts["boost.C1"].value == pytest.approx(120e-9)
-    assert parts["level.LEVEL"].rotation == pytest.approx(0.5)
+    assert parts["output.VOLUME"].rotation == pytest.approx(0.5)
     assert d.stage("boost").bypass is True
     # every edit was also autosaved under the config folder
     auto = home / ".config" / "solderless" / "autosave" / "booster.toml"
