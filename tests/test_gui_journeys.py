@@ -431,11 +431,8 @@ def test_journey_designer_tunes_the_builtin_compressor(qtbot, tmp_path):
     before = builtin.read_bytes()
     w = _window(qtbot, tmp_path, "flagship", source="synth:notes")
     d = w.wb.design
-    det = d.stage("detector")
-    names = {p.name for p in det.parts}
     # the detector's time-constant capacitor and threshold pot
-    cap = "detector.CT" if "RELEASE" in names else "detector.CS"
-    pot = "detector.THRESHOLD" if "THRESHOLD" in names else "detector.SUSTAIN"
+    cap, pot = "detector.CT", "detector.THRESHOLD"
     try:
         assert w.live.m_gr.isVisibleTo(w) and w.live.dyn.isVisibleTo(w)
         rel0 = w.last_dyn.release_s
