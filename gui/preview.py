@@ -212,7 +212,9 @@ def dynamics(design, fs: float = FS) -> Dynamics | None:
         from engine.analysis.timing import attack_release
     except ImportError:
         from engine import demo
-        return Dynamics(None, ok(demo.measure_release(design, fs)[0]))
+        att = getattr(demo, "measure_attack", None)
+        return Dynamics(ok(att(design, fs)[0]) if att is not None else None,
+                        ok(demo.measure_release(design, fs)[0]))
     r = attack_release(design, fs)
     return Dynamics(ok(r.get("attack_s")), ok(r.get("release_s")))
 

@@ -304,6 +304,9 @@ class SnapshotPanel(QWidget):
             for ax in ("left", "bottom"):
                 pw.getAxis(ax).enableAutoSIPrefix(False)
             pw.addLegend(offset=(-10, 10))
+            if logx:
+                from gui.inspect import frequency_ticks
+                frequency_ticks(pw)
             pw.setMinimumHeight(150)
             self.overlay_plots[key] = pw
             self.overlay_tabs.addTab(pw, title)

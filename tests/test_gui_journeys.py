@@ -435,8 +435,9 @@ def test_journey_designer_tunes_the_builtin_compressor(qtbot, tmp_path):
     cap, pot = "detector.CT", "detector.THRESHOLD"
     try:
         assert w.live.m_gr.isVisibleTo(w) and w.live.dyn.isVisibleTo(w)
-        rel0 = w.last_dyn.release_s
-        assert rel0 is not None and "release (63 %)" in w.live.dyn.text()
+        rel0, att0 = w.last_dyn.release_s, w.last_dyn.attack_s
+        assert rel0 is not None and att0 is not None
+        assert f"attack (63 %) {att0 * 1e3:.1f} ms" in w.live.dyn.text()
         w.live.source.setCurrentIndex(w.live.source.findData("synth:notes"))
         w.live_driver = "paced"
         assert w.start_live() and w.wait_live(300)
@@ -470,6 +471,8 @@ def test_journey_designer_tunes_the_builtin_compressor(qtbot, tmp_path):
                      180)
         assert w.last_dyn.release_s / rel0 == pytest.approx(c2 / c0, rel=0.15)
         assert f"{w.last_dyn.release_s * 1e3:.0f} ms" in w.live.dyn.text()
+        # the attack charges the same capacitor: it lengthens too
+        assert w.last_dyn.attack_s > att0
         # the threshold pot: reverse-audio taper, then turned to 30 %
         prow = w.parts.rows[pot]
         i = prow.taper.findData("reverse-audio")
