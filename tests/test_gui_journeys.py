@@ -692,3 +692,34 @@ def test_bad_knob_mapping_in_a_design_is_explained_and_ignored(qtbot, tmp_path):
         assert msg and "level.NOPE" in msg[0] and "level.VOL" in msg[0]
     finally:
         w.close()
+
+
+def test_labels_side_branches_and_pot_steps(win, qtbot, tmp_path):
+    # the probe trace names its probe and unit (the divider declares v(amp.b))
+    win.live.probe_pick.setCurrentText("v(amp.b)")
+    assert win.live.traces.labels["probe"] == "v(amp.b) (V)"
+    # a pot's track steps through E3 (1, 2.2, 4.7 per decade; IEC 60063)
+    win.chain.select("level")
+    row = win.parts.rows["level.VOL"]
+    row.total.stepped.emit(+1)
+    assert win.wb.design.part("level.VOL").value == pytest.approx(22e3)
+    row = win.parts.rows["level.VOL"]
+    row.total.stepped.emit(-2)
+    assert win.wb.design.part("level.VOL").value == pytest.approx(4.7e3)
+    # the built-in compressor: its detector (no out port) and bias network sit
+    # below the signal line, every in-line stage on it
+    w = _window(qtbot, tmp_path, "flagship")
+    try:
+        blocks = w.chain.blocks
+        line_y = blocks["buffer"].pos().y()
+        for name, st in ((s.name, s) for s in w.wb.design.stages):
+            if "out" in st.ports:
+                assert blocks[name].pos().y() == line_y, name
+            else:
+                assert blocks[name].pos().y() > line_y + blocks[name].rect().height(), name
+        assert w.chain.side == {"detector", "bias"}
+        # the meters say what they are
+        assert "gain reduction" in w.live.m_gr.toolTip()
+        assert "gain red.: gain reduction" in w.live.meter_legend.text()
+    finally:
+        w.close()
