@@ -723,3 +723,37 @@ def test_labels_side_branches_and_pot_steps(win, qtbot, tmp_path):
         assert "gain red.: gain reduction" in w.live.meter_legend.text()
     finally:
         w.close()
+
+
+@pytest.mark.audio
+def test_workbench_plays_through_portaudio_on_the_alsa_null_device(win, qtbot, tmp_path,
+                                                                 monkeypatch):
+    # the live host process opens real PortAudio; its HOME's .asoundrc points
+    # ALSA's default device at the null plugin (as tests/test_live_stream.py;
+    # unpaced, so nothing here counts wall-clock time)
+    home = tmp_path / "home"
+    home.mkdir()
+    (home / ".asoundrc").write_text("pcm.!default {\n    type null\n}\n")
+    monkeypatch.setenv("HOME", str(home))
+    monkeypatch.delenv("AUDIODEV", raising=False)
+    win.live_driver = "device"
+    assert win.start_live()
+    if not win.wait_live(300):
+        pytest.skip(f"no PortAudio stream on the ALSA null device: "
+                    f"{[m for m in win.said][-1:]}")
+    h = win.host
+    try:
+        win.live.m_in.set_value(None)          # not the offline preview's reading
+        win._poll_meters()
+        # the 1 kHz, 100 mV peak tone reaches the input meter (full scale
+        # 1.548 V peak, an AES17 RMS reading: 20 log10(0.1 / 1.548))
+        assert _wait(qtbot, lambda: win.live.m_in.value is not None, 60)
+        assert _wait(qtbot, lambda: win.live.m_in.value == pytest.approx(
+            20 * math.log10(0.1 / 1.5482), abs=0.5), 60)
+        win.wb.set_value("amp.R2", 100e3)
+        h.call("flush")
+        assert h.call("element_values")["amp.R2"] == 100e3
+        assert win.live.state.value.startswith("LIVE")
+    finally:
+        win.stop_live()
+    assert win.live.state.value == "stopped" and win.live.m_in.value is None
