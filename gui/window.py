@@ -368,8 +368,7 @@ class MainWindow(QMainWindow):
         self.compare.hear.connect(self.hear)
         self.compare.recall.connect(self._recall)
         self.compare.overlay_requested.connect(self.request_overlay)
-        self.midi = MidiKnobs(lambda pot, r: self.wb.set_rotation(pot, r), self._remember_knobs,
-                              self)
+        self.midi = MidiKnobs(self._knob_turn, self._remember_knobs, self)
         self.midi.message.connect(self.say)
         self.midi.learned.connect(lambda *_a: self._midi_learned())
         self.live.midi_connect.connect(self.connect_midi)
@@ -889,6 +888,10 @@ class MainWindow(QMainWindow):
                                                 for (ch, cc), pot in self.midi.mapping.items())
                                       or "no knob mapped yet: use Learn")
 
+    def _knob_turn(self, pot: str, rotation: float) -> None:
+        if not self.blind:                  # no edits during a blind trial
+            self.wb.set_rotation(pot, rotation)
+
     def _remember_knobs(self, mapping: dict) -> None:
         self._guard(self.wb._apply, "map MIDI knobs", lambda d: set_knob_map(d, mapping))
 
@@ -913,6 +916,14 @@ class MainWindow(QMainWindow):
         """Enter or leave blind mode: nothing on screen may tell A from B."""
         self.blind = on
         self.live.set_blind(on)
+        # no edits during a trial: the live host applies an edit to the side
+        # being heard, which would tell X apart (and the parts list would show it)
+        for w in (self.parts, self.chain, self.chain_bar, self.undo_btn, self.redo_btn):
+            w.setEnabled(not on)
+        for a in (self.undo_act, self.redo_act):
+            a.setEnabled(not on)
+        if not on:
+            self._history()
         self.compare.show_offset(None, hidden=on)
         if on:
             self.statusBar().showMessage("blind trial running: meters, traces and scope "

@@ -287,6 +287,9 @@ def test_blind_trial_shows_nothing_that_predicts_the_hidden_side(qtbot, tmp_path
         w.compare.rounds.setValue(n)
         w.compare.min_listen_s = 0.25
         assert w.compare.begin_trial()
+        # no edits while it runs (the host would apply them to the side heard)
+        assert not w.parts.isEnabled() and not w.chain.isEnabled()
+        assert not w.undo_act.isEnabled()
         # no answer before X has been heard
         assert not w.compare.answer("A")
         assert "listen to X first" in w.compare.result.text()
@@ -320,8 +323,8 @@ def test_blind_trial_shows_nothing_that_predicts_the_hidden_side(qtbot, tmp_path
         assert f"score,{t.score} of {n}" in rows
         p = binomtest(t.score, n, 0.5, alternative="greater").pvalue
         assert float(rows[-1].split(",")[1]) == pytest.approx(p, rel=1e-5)
-        # after the trial the readings come back
-        assert not w.blind
+        # after the trial the readings and the editing come back
+        assert not w.blind and w.parts.isEnabled() and w.undo_act.isEnabled()
         qtbot.wait(300)
         assert w.live.m_ctl.value is not None
     finally:
