@@ -94,6 +94,11 @@ class Circuit:
     output: tuple[str, str] = ("out", GROUND)
     title: str = ""
     where: Where | None = None
+    #: {device element: {rating name: limit}} from the parts library
+    #: (engine.analysis.regions.RATING_NAMES); for reports only
+    ratings: dict = field(default_factory=dict)
+    #: devices whose design note says they are off at rest by design (reports)
+    off_by_design: set = field(default_factory=set)
 
     def element(self, name: str) -> Element:
         for e in self.elements:

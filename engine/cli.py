@@ -14,6 +14,7 @@ import time
 from pathlib import Path
 
 from engine.errors import DesignError, SolderlessError
+from engine.levels import FULL_SCALE_V, describe as describe_levels
 
 DEFAULT_DESIGN = "flagship"
 
@@ -27,6 +28,9 @@ def _load(args):
     nl = getattr(d, "netlist", None)
     for w in (nl.warnings if nl is not None else []):
         print(f"warning: {w}", file=sys.stderr)
+    if d.netlist is None and d.stages:
+        for w in d.dangling_probes():
+            print(f"warning: {w}", file=sys.stderr)
     return d
 
 
@@ -106,7 +110,19 @@ def cmd_render(args) -> int:
         raise DesignError("--input-fs-volts and --output-fs-volts must be positive")
     volts = x * args.input_fs_volts
     oversample = args.oversample or d.oversample
-    probes = [d.resolve_probe(p) for p in args.probe]
+    names = list(args.probe)
+    if args.probes_csv and not names:
+        # the design's own probes (its [[probe]] tables and its control)
+        names = [p.expr for p in d.probes]
+        ctl = d.control_probe()
+        if ctl and ctl not in names:
+            names.insert(0, ctl)
+        if not names:
+            raise DesignError("--probes-csv: the design declares no probes",
+                              file=d._file(), hint="add --probe NAME, e.g. --probe 'v(out)'")
+        dangling = {e for e, _ in d.dangling_probe_list()}
+        names = [n for n in names if n not in dangling]
+    probes = [d.resolve_probe(p) for p in names]
     circ = d.flatten()
     from engine.solver import Simulator
     sim = Simulator(circ, fs=fs, oversample=oversample, probes=tuple(probes))
@@ -136,6 +152,8 @@ def cmd_render(args) -> int:
     print(f"wrote {args.output}: {n / fs:.2f} s at {fs:g} Hz, oversample x{oversample}, "
           f"output peak {20 * math.log10(max(peak, 1e-12)):+.1f} dBFS "
           f"({peak * args.output_fs_volts:.3g} V)")
+    print(f"calibration: input {describe_levels(args.input_fs_volts)}; output "
+          f"{describe_levels(args.output_fs_volts)}")
     if st.get("nonconverged", 0):
         print(f"warning: {st['nonconverged']} samples did not converge (held at the last "
               "good solution); try --oversample 2 or more", file=sys.stderr)
@@ -145,11 +163,16 @@ def cmd_render(args) -> int:
                   file=sys.stderr)
         else:
             t = np.arange(n) / fs
-            header = "time_s," + ",".join(args.probe)
+            header = "time_s," + ",".join(_csv_field(n) for n in names)
             np.savetxt(args.probes_csv, np.column_stack([t, pdata.T]), delimiter=",",
                        header=header, comments="", fmt="%.9g")
             print(f"wrote {args.probes_csv}: {len(probes)} probe(s)")
     return 0
+
+
+def _csv_field(text: str) -> str:
+    """A CSV header field (RFC 4180: quoted when it holds a comma or quote)."""
+    return '"' + text.replace('"', '""') + '"' if any(c in text for c in ',"') else text
 
 
 # ------------------------------------------------------------------ op / ac
@@ -179,6 +202,12 @@ def cmd_op(args) -> int:
             else:
                 items.append(f"{k}={v}")
         print(f"  {name:<20} " + "  ".join(items))
+    if op.devices:
+        from engine.analysis import regions as R
+        print(f"  (regions: a BJT is active, near saturation below Vce "
+              f"{R.VCE_SAT + R.MARGIN:g} V, saturated below {R.VCE_SAT:g} V, cut-off under "
+              f"Ic {R.IC_OFF * 1e6:g} uA; a FET amplifies when saturated; a diode is "
+              f"forward from {R.DIODE_ON * 1e6:g} uA; ratings from the parts library)")
     if op.warnings:
         print("\nWarnings")
         for w in op.warnings:
@@ -203,7 +232,8 @@ def cmd_ac(args) -> int:
                    comments="", fmt="%.9g")
         print(f"wrote {args.csv}: {len(f)} points")
         return 0
-    print(f"Small-signal response of {d.name} (input jack to output)")
+    print(f"Small-signal response of {d.name} (input jack to output; gain in dB, phase in "
+          "degrees, Zin: input impedance at the jack, ohm)")
     print(f"{'freq':>10} {'gain dB':>9} {'phase':>8} {'Zin':>12}")
     step = max(1, len(f) // 25)
     for i in range(0, len(f), step):
@@ -211,16 +241,52 @@ def cmd_ac(args) -> int:
     return 0
 
 
+def _sentences(text: str) -> list[str]:
+    import re
+    flat = " ".join(text.split())
+    return [t for t in re.split(r"(?<=[.!?])\s+(?=[A-Z0-9(])", flat) if t]
+
+
+def _leading_comment(path) -> str:
+    try:
+        first = Path(path).read_text(encoding="utf-8").splitlines()[0]
+    except (OSError, IndexError, UnicodeDecodeError):
+        return ""
+    return first.lstrip("#").strip() if first.startswith("#") else ""
+
+
 def cmd_designs(args) -> int:
+    import shutil
+    import textwrap
     from engine.design import builtin_designs, stage_library, load_design
+    files = builtin_designs()
+    width = max(60, min(shutil.get_terminal_size((100, 24)).columns, 120))
     print("Built-in designs:")
-    for name in builtin_designs():
+    loaded = {}
+    for name in files:
         try:
-            d = load_design(name)
-            first = (d.notes.strip().splitlines() or [""])[0]
-            print(f"  {name:<24} {d.name} — {first[:70]}")
+            loaded[name] = load_design(name)
         except SolderlessError as exc:
-            print(f"  {name:<24} (cannot load: {exc})")
+            loaded[name] = exc
+    for name in files:
+        d = loaded[name]
+        if isinstance(d, SolderlessError):
+            print(f"  {name:<24} (cannot load: {d})")
+            continue
+        sents = _sentences(d.notes)
+        # a variant (NAME-something of a design NAME) says what it changes,
+        # not the base's description again
+        base = max((k for k in files if name.startswith(k + "-")), key=len, default=None)
+        if base is not None and not isinstance(loaded.get(base), SolderlessError):
+            seen = set(_sentences(loaded[base].notes))
+            own = [t for t in sents if t not in seen]
+            what = own[0] if own else (_leading_comment(files[name]) or "same notes as the base")
+            blurb = f"{d.name}: variant of {base}. {what}"
+        else:
+            blurb = f"{d.name}: {sents[0] if sents else ''}"
+        text = textwrap.fill(blurb, width=width - 2, initial_indent=f"  {name:<24} ",
+                             subsequent_indent=" " * 27)
+        print(text)
     print("\nStage library:")
     for name in stage_library():
         print(f"  {name}")
@@ -233,7 +299,8 @@ def build_parser() -> argparse.ArgumentParser:
     ap = argparse.ArgumentParser(
         prog="solderless",
         description="Hear an analog circuit before you build it: simulate a chain of "
-                    "stages live or offline.")
+                    "stages live or offline.",
+        epilog=f"Level calibration (every command): {describe_levels()}, in and out.")
     sub = ap.add_subparsers(dest="command", metavar="COMMAND")
 
     p = sub.add_parser("render", help="run a WAV file through a design")
@@ -244,16 +311,19 @@ def build_parser() -> argparse.ArgumentParser:
                    "(default: the input file's; the input is resampled if different)")
     p.add_argument("--oversample", type=int, choices=(1, 2, 4, 8), default=None,
                    help="oversampling factor (default: the design's)")
-    p.add_argument("--input-fs-volts", type=float, default=1.0, metavar="V",
-                   help="volts at the input jack that a full-scale sample stands for "
-                        "(default 1.0)")
-    p.add_argument("--output-fs-volts", type=float, default=2.0, metavar="V",
-                   help="volts at the output jack written as full scale (default 2.0)")
+    p.add_argument("--input-fs-volts", type=float, default=FULL_SCALE_V, metavar="V",
+                   help="peak volts at the input jack that a full-scale sample stands "
+                        f"for (default {FULL_SCALE_V:.4g}: the calibration every command "
+                        "uses, engine/levels.py)")
+    p.add_argument("--output-fs-volts", type=float, default=FULL_SCALE_V, metavar="V",
+                   help="peak volts at the output jack written as full scale "
+                        f"(default {FULL_SCALE_V:.4g}, the same calibration)")
     p.add_argument("--channel", type=int, default=0, help="input channel to use (default 0)")
     p.add_argument("--probe", action="append", default=[], metavar="NAME",
                    help="record a probe, e.g. 'iabc(gain.U1)' or 'v(buffer.out)' (repeatable)")
     p.add_argument("--probes-csv", metavar="FILE", help="write probes as CSV "
-                   "(time in seconds, then each probe in SI units)")
+                   "(time in seconds, then each probe in SI units); without --probe, "
+                   "the design's own probes ([[probe]] and [meters] control)")
     p.add_argument("--keep-latency", action="store_true",
                    help="do not remove the oversampling filters' fixed delay")
     p.set_defaults(func=cmd_render)
@@ -263,12 +333,18 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(func=cmd_op)
 
+    from engine.solver.ac import DEFAULT_FMAX_HZ, DEFAULT_FMIN_HZ, DEFAULT_POINTS
     p = sub.add_parser("ac", help="small-signal frequency response and input impedance")
     _add_design_arg(p, nargs="?")
-    p.add_argument("--fmin", type=float, default=10.0)
-    p.add_argument("--fmax", type=float, default=20000.0)
-    p.add_argument("--points", type=int, default=200)
-    p.add_argument("--csv", metavar="FILE", help="write the response as CSV")
+    p.add_argument("--fmin", type=float, default=DEFAULT_FMIN_HZ, metavar="HZ",
+                   help=f"lowest frequency, Hz (default {DEFAULT_FMIN_HZ:g}; the workbench "
+                        "uses the same range)")
+    p.add_argument("--fmax", type=float, default=DEFAULT_FMAX_HZ, metavar="HZ",
+                   help=f"highest frequency, Hz (default {DEFAULT_FMAX_HZ:g})")
+    p.add_argument("--points", type=int, default=DEFAULT_POINTS, metavar="N",
+                   help=f"number of log-spaced frequencies (default {DEFAULT_POINTS})")
+    p.add_argument("--csv", metavar="FILE", help="write the response as CSV (freq_hz, "
+                   "gain_db, phase_deg, zin_ohm, zin_phase_deg)")
     p.set_defaults(func=cmd_ac)
 
     p = sub.add_parser("designs", help="list built-in designs and the stage library")

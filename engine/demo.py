@@ -42,15 +42,13 @@ from engine.errors import SolderlessError
 FLAGSHIP = "flagship"
 VARIANTS = ("flagship-slow-release", "flagship-linear-threshold")
 FS = 48000.0
-#: WAV full scale: a sample of 1.0 is this many volts.
-WAV_FULL_SCALE_V = 1.0
-#: Vce below this with the base-emitter junction forward biased: saturated
-#: (common practice: a small-signal BJT saturates near 0.1-0.3 V).
-VCE_SAT = 0.3
-#: Collector current below this at rest: cut off (common practice).
-IC_OFF = 1e-6
+#: WAV full scale: a sample of 1.0 is this many volts (engine/levels.py).
+from engine.levels import FULL_SCALE_V as WAV_FULL_SCALE_V  # noqa: E402
+#: Saturation and cut-off thresholds: the shared classifier's
+#: (engine/analysis/regions.py, common practice for small-signal BJTs).
+from engine.analysis.regions import IC_OFF, VCE_SAT  # noqa: E402
 #: Part notes containing this phrase mark a device that is off at rest by design.
-OFF_BY_DESIGN = "off at rest"
+from engine.analysis.regions import OFF_BY_DESIGN  # noqa: E402
 
 STATIC_LEVELS_DB = np.arange(-64.0, 0.0 + 0.1, 4.0)
 STATIC_FREQ = 220.0
@@ -105,16 +103,21 @@ def transistor_check(design, op) -> list[dict]:
     """Classify every transistor at the operating point; ``intended`` is
     True where the part's note says it is off at rest by design.
 
-    BJTs: ``active``, ``saturated`` or ``off``. Saturation: Vce < 0.3 V with
-    Vbe forward; off: |Ic| < 1 uA (common practice thresholds for
-    small-signal transistors). Keys ``ic``, ``vbe``, ``vce``.
+    BJTs: ``active``, ``near saturation``, ``saturated``, ``reverse`` or
+    ``off``, by the one classifier op and the workbench use
+    (engine/analysis/regions.py): saturated under Vce 0.3 V, near saturation
+    within 0.5 V above that, off under |Ic| 1 uA (common practice thresholds
+    for small-signal transistors). Keys ``ic``, ``vbe``, ``vce``.
 
     JFETs and MOSFETs: ``active`` in the FET's saturation (pinch-off)
     region, the one an amplifier or follower uses; ``triode`` in its
     linear (ohmic) region (Vds below Vgs - Vto: the FET acts as a
     resistor); ``off`` when cut off or |Id| < 1 uA (the square-law
     regions, docs/references.md; the engine's device ``region``). Keys
-    ``id``, ``vgs``, ``vds``; ``ic``, ``vbe`` and ``vce`` carry the same
+    ``id``, ``vgs``, ``vds``; ``edge`` is ``near cut-off`` / ``near
+    linear`` when the shared classifier finds an active FET within 0.5 V of
+    either edge (op reports that region and warns). ``ic``, ``vbe`` and
+    ``vce`` carry the same
     figures so one table shows every kind.
     """
     rows = []
@@ -130,20 +133,18 @@ def transistor_check(design, op) -> list[dict]:
             ic = _device_quantity(q, "ic")
             vbe = _device_quantity(q, "vbe")
             vce = _device_quantity(q, "vce")
-            ic_s = sign * (ic or 0.0)
-            if ic_s < IC_OFF:
-                region = "off"
-            elif vce is not None and sign * vce < VCE_SAT and vbe is not None and sign * vbe > 0.5:
-                region = "saturated"
-            else:
-                region = "active"
+            # the one classifier op and the workbench use; its cut-off is "off" here
+            from engine.analysis.regions import bjt_region
+            region = bjt_region(sign, ic or 0.0, vce if vce is not None else 10.0 * sign)
+            region = "off" if region == "cut-off" else region
             rows.append({"part": info.qualname, "type": info.type, "ic": ic, "vbe": vbe,
                          "vce": vce, "region": region, "intended": intended})
             continue
         i_d = _device_quantity(q, "id")
         vgs = _device_quantity(q, "vgs")
         vds = _device_quantity(q, "vds")
-        dev_region = q.get("region") if isinstance(q.get("region"), str) else None
+        dev_region = q.get("region").split(" (")[0] if isinstance(q.get("region"), str) \
+            else None
         if dev_region == "cut-off" or abs(i_d or 0.0) < IC_OFF:
             region = "off"
         elif dev_region == "linear":
@@ -152,7 +153,10 @@ def transistor_check(design, op) -> list[dict]:
             region = "active"
         rows.append({"part": info.qualname, "type": info.type, "id": i_d, "vgs": vgs,
                      "vds": vds, "ic": i_d, "vbe": vgs, "vce": vds, "region": region,
-                     "intended": intended})
+                     "intended": intended,
+                     # within 0.5 V of an edge of the active region (op warns)
+                     "edge": dev_region if dev_region in ("near cut-off", "near linear")
+                     else None})
     return rows
 
 
@@ -161,8 +165,8 @@ def transistor_problems(design, op) -> list[str]:
     without a note saying so, at rest."""
     out = []
     for r in transistor_check(design, op):
-        if r["region"] in ("saturated", "triode") or (r["region"] == "off"
-                                                      and not r["intended"]):
+        if r["region"] in ("saturated", "near saturation", "reverse", "triode") or (
+                r["region"] == "off" and not r["intended"]):
             if r["type"] in BJT_TYPES:
                 out.append(f"{r['part']} is {r['region']} at rest "
                            f"(Ic {r['ic']:.3g} A, Vce {r['vce']:.3g} V)")

@@ -72,6 +72,8 @@ AUDIO_TAPER_BASE = 81.0  # (B**0.5 - 1)/(B - 1) = 0.1: 10 % at mid rotation
 POT_END_FRACTION = 1e-4  # residual end resistance (fraction of the track)
 POT_END_MIN = 1.0        # ohm
 JACK = "jack"
+REST_SOURCE = "rest"        # holds a bypassed side branch's input at its DC level
+NETLIST_STAGE = "netlist"   # the one stage of a design made from a whole netlist
 
 
 # --------------------------------------------------------------------- values
@@ -414,6 +416,7 @@ class Design:
         self.doc = None          # tomlkit document, or None for netlist designs
         self.netlist = None      # engine.formats.spice.Netlist for whole-netlist designs
         self._stage_docs: dict[str, Any] = {}
+        self._netlist_models: dict[str, str] = {}   # netlist part -> library model
         self.dirty = False
 
     # ------------------------------------------------------------ queries
@@ -429,9 +432,26 @@ class Design:
     def _file(self) -> str | None:
         return str(self.path) if self.path else None
 
+    def _netlist_part(self, qualname: str) -> Part | None:
+        """A whole-netlist design's part by the name ``op`` prints (the
+        netlist's own element name, any case), or by the older
+        ``netlist.NAME`` spelling."""
+        name = qualname[len(NETLIST_STAGE) + 1:] if qualname.lower().startswith(
+            NETLIST_STAGE + ".") else qualname
+        for p in self.stages[0].parts if self.stages else []:
+            if p.name.upper() == name.upper():
+                return p
+        return None
+
     def part(self, qualname: str) -> Part:
-        """Find a part by ``stage.part`` (or a global part by its name)."""
-        if "." in qualname:
+        """Find a part by ``stage.part`` (or a global part by its name). A
+        design made from a whole netlist names its parts as the netlist (and
+        ``op``) does: ``RC``, ``Q1``."""
+        if self.netlist is not None:
+            p = self._netlist_part(qualname)
+            if p is not None:
+                return p
+        elif "." in qualname:
             sname, pname = qualname.split(".", 1)
             try:
                 st = self.stage(sname)
@@ -453,7 +473,7 @@ class Design:
         groups = [("", self.parts_global)] + [(s.name, s.parts) for s in self.stages]
         for sname, parts in groups:
             for p in parts:
-                q = f"{sname}.{p.name}" if sname else p.name
+                q = f"{sname}.{p.name}" if sname and self.netlist is None else p.name
                 out.append(PartInfo(
                     qualname=q, stage=sname, name=p.name, type=p.type, value=p.value,
                     unit=PART_TYPES[p.type][2], tolerance=p.tolerance,
@@ -468,15 +488,59 @@ class Design:
     def probe_exprs(self) -> list[str]:
         return [p.expr for p in self.probes]
 
+    def dangling_probes(self) -> list[str]:
+        """Warnings for declared probes (``[[probe]]`` and ``[meters]
+        control``) that the circuit as it stands can no longer measure, e.g.
+        after a stage was bypassed, removed or renamed."""
+        return [w for _, w in self.dangling_probe_list()]
+
+    def dangling_probe_list(self) -> list[tuple[str, str]]:
+        """``(expression, warning)`` of each dangling declared probe."""
+        out = []
+        exprs = [(p.name, p.expr) for p in self.probes]
+        if self.control_probe():
+            exprs.append(("meters.control", self.control_probe()))
+        try:
+            circ = self.flatten()
+        except SolderlessError:
+            return out
+        names = {e.name for e in circ.elements}
+        nets = set(circ.nets())
+        for label, expr in exprs:
+            try:
+                flat = self.resolve_probe(expr)
+            except SolderlessError as exc:
+                out.append((expr, f"probe '{label}' ({expr}) is left dangling: "
+                                  f"{exc.message}"))
+                continue
+            m = re.fullmatch(r"([a-z]+)\((.*)\)", flat)
+            if not m:
+                continue
+            q, args = m.group(1), [a for a in m.group(2).split(",") if a]
+            gone = [a for a in args if (a not in nets and a.lower() not in
+                                        {n.lower() for n in nets} and a != GROUND)] \
+                if q == "v" else [a for a in args if a not in names]
+            if gone:
+                out.append((expr, f"probe '{label}' ({expr}) is left dangling: the circuit "
+                                  f"has no {'net' if q == 'v' else 'part'} {', '.join(gone)} "
+                                  "now"))
+        return out
+
     def copy(self) -> "Design":
         return copy.deepcopy(self)
 
     # ------------------------------------------------------------ edits
-    def _part_doc(self, qualname: str, key: str):
+    def _part_doc(self, qualname: str, key: str, create: bool = True):
         """Return the tomlkit table where ``key`` of this part is stored, creating
-        a [stage.values] / [stage.rotations] override for template stages."""
+        a [stage.values] / [stage.rotations] override for template stages
+        (unless ``create`` is False: then None where it does not exist)."""
         if self.doc is None:
             return None
+        if self.netlist is not None:
+            p = self._netlist_part(qualname)
+            if p is None:
+                return None
+            qualname = f"{NETLIST_STAGE}.{p.name}"
         if "." in qualname:
             sname, pname = qualname.split(".", 1)
             sdoc = self._stage_docs.get(sname)
@@ -487,9 +551,12 @@ class Design:
                     if raw.get("name") == pname:
                         return raw, key
             table = {"value": "values", "rotation": "rotations", "taper": "tapers",
-                     "position": "positions", "tolerance": "tolerances"}[key]
+                     "position": "positions", "tolerance": "tolerances",
+                     "model": "models"}[key]
             import tomlkit
             if table not in sdoc:
+                if not create:
+                    return None
                 sdoc[table] = tomlkit.table()
             return sdoc[table], pname
         for raw in self.doc.get("design", {}).get("part", []):
@@ -512,6 +579,8 @@ class Design:
         return ra, rb
 
     def _element_values(self, qualname: str, part: Part) -> dict[str, float]:
+        if self.netlist is not None:
+            qualname = part.name         # the netlist's element, as op prints it
         if part.type == "pot":
             ra, rb = self.pot_resistances(part)
             return {f"{qualname}.a": ra, f"{qualname}.b": rb}
@@ -573,6 +642,32 @@ class Design:
         part.tolerance = tol
         self._record(qualname, "tolerance", f"{tol * 100:g}%")
 
+    def set_model(self, qualname: str, model: str) -> None:
+        """Give a device part another model from the parts library (or the
+        design's [models]), e.g. swap clipping diodes or a transistor. A
+        change of device parameters: rebuild the simulator. The design file
+        records it as the part's ``model`` (a ``[stage.models]`` override for
+        a template stage, ``[netlist.models]`` for a netlist design)."""
+        part = self.part(qualname)
+        if part.type not in DEVICE_TYPES:
+            raise DesignError(f"a {part.type} has no device model", part=qualname,
+                              file=self._file(), hint="use 'value' for passive parts")
+        lib = _parts_library(self)
+        try:
+            m = lib.get(model)
+        except SolderlessError as exc:
+            raise DesignError(exc.message, part=qualname, file=self._file(),
+                              hint=exc.hint) from None
+        want = MODEL_KIND[part.type]
+        if str(m.kind).upper() != want:
+            raise DesignError(f"model '{m.name}' is a {m.kind} model, but this part is a "
+                              f"{part.type}", part=qualname, file=self._file(),
+                              hint="models of this kind: " + ", ".join(models_of_kind(self, want)))
+        part.model = m.name
+        if self.netlist is not None:
+            self._netlist_models[part.name] = m.name
+        self._record(qualname, "model", m.name)
+
     def set_position(self, qualname: str, position: int) -> None:
         """Move a selector switch (a topology change: rebuild the simulator)."""
         part = self.part(qualname)
@@ -583,16 +678,94 @@ class Design:
         part.position = int(position)
         self._record(qualname, "position", int(position))
 
-    def set_bypass(self, stage: str, on: bool) -> None:
-        """Bypass a stage: its ``in`` and ``out`` are joined and its parts removed
-        (a topology change: rebuild the simulator)."""
+    def bypass_effect(self, stage: str) -> str:
+        """What bypassing ``stage`` does, in a designer's words."""
         st = self.stage(stage)
+        if "out" in st.ports:
+            return "signal passes from its in to its out; its parts are left out"
+        if "in" in st.ports:
+            return ("side branch: it hears no signal (its input is held at the DC level "
+                    "it has at rest), so what it drives sits at rest"
+                    + (" - the gain cell at its resting gain"
+                       if "detector" in (st.kind or "").lower() else ""))
+        return "carries no signal; it cannot be bypassed"
+
+    def set_bypass(self, stage: str, on: bool) -> None:
+        """Bypass a stage (a topology change: rebuild the simulator). A series
+        stage (in and out ports) has its ``in`` and ``out`` joined and its
+        parts removed; a side branch (an ``in`` port but no ``out``, such as
+        a detector) keeps its parts but hears no signal: its input is held at
+        its resting DC level, so what it drives (a gain cell's control) sits
+        at rest. A stage with neither port carries no signal and is refused."""
+        st = self.stage(stage)
+        if on and "in" not in st.ports and "out" not in st.ports:
+            raise DesignError(f"stage '{stage}' carries no signal (no in or out port), so "
+                              "it cannot be bypassed", file=self._file(), part=stage,
+                              hint="a supply or bias stage stays in the circuit")
         st.bypass = bool(on)
         self.dirty = True
         if self.doc is not None and stage in self._stage_docs:
             self._stage_docs[stage]["bypass"] = bool(on)
 
     # ------------------------------------------------------------ save
+    def differences_from(self, base: "Design") -> list[str]:
+        """What differs from ``base``, part by part, in a builder's words:
+        values, pot rotations and tapers, device models, bypassed stages."""
+        out = []
+        mine = {p.qualname: p for p in self.parts()}
+        for p in base.parts():
+            q = mine.get(p.qualname)
+            if q is None:
+                out.append(f"{p.qualname} removed")
+                continue
+            if p.value != q.value and q.value is not None:
+                out.append(f"{p.qualname} {_format_value(p.value or 0.0, p.unit)} -> "
+                           f"{_format_value(q.value, q.unit)}")
+            if p.is_pot and p.rotation != q.rotation:
+                out.append(f"{p.qualname} rotation {p.rotation:.2f} -> {q.rotation:.2f}")
+            if p.is_pot and p.taper != q.taper:
+                out.append(f"{p.qualname} taper {p.taper} -> {q.taper}")
+            if p.model != q.model:
+                out.append(f"{p.qualname} model {p.model} -> {q.model}")
+        for s in self.stages:
+            try:
+                b = base.stage(s.name).bypass
+            except DesignError:
+                continue
+            if b != s.bypass:
+                out.append(f"stage {s.name} {'bypassed' if s.bypass else 'back in'}")
+        return out
+
+    def become_variant(self, target: str | os.PathLike) -> None:
+        """Before saving as a new file: give the design its own name (the
+        base's name with the new file's name) and notes that say what it is
+        a variant of and what differs, so an A/B of base and variant never
+        shows the same name twice and the builder reads the changes."""
+        target = Path(target)
+        base_name = self.name
+        base_file = self.path.name if self.path else "an unsaved design"
+        diffs: list[str] = []
+        if self.path is not None:
+            try:
+                kw = {}
+                if self.netlist is not None:
+                    kw = {"in_source": str(self.doc["netlist"].get("in_source", "VIN")),
+                          "out_node": str(self.doc["netlist"].get("out_node", "out"))}
+                diffs = self.differences_from(load_design(self.path, **kw))
+            except SolderlessError:
+                diffs = []
+        self.name = f"{base_name} ({target.stem})"
+        self.notes = (f"Variant of {base_name} ({base_file}), saved as {target.name}. "
+                      + ("Changes: " + "; ".join(diffs) + "." if diffs else
+                         "No part changed from the base."))
+        if self.doc is not None:
+            import tomlkit
+            if "design" not in self.doc:
+                self.doc["design"] = tomlkit.table()
+            self.doc["design"]["name"] = self.name
+            self.doc["design"]["notes"] = self.notes
+        self.dirty = True
+
     def to_toml(self, target: Path | None = None) -> str:
         """The design file's text. A design made from a whole netlist is
         written as a small design file that names the netlist (relative to
@@ -642,9 +815,19 @@ class Design:
         for st in self.stages:
             for p in st.parts:
                 vals.update(self._element_values(p.name, p))
+        lib = _parts_library(self) if self._netlist_models else None
         for e in circ.elements:
             if e.name in vals and vals[e.name] is not None:
                 e.value = vals[e.name]
+            if e.name in self._netlist_models:
+                m = lib.get(self._netlist_models[e.name])
+                params = dict(m.element_params())
+                if e.kind in ("Q", "J", "M"):
+                    params["TYPE"] = str(m.kind).upper()
+                e.params = params
+                from engine.analysis.regions import ratings_of
+                if ratings_of(m):
+                    circ.ratings[e.name] = ratings_of(m)
         return circ
 
     def resolve_net(self, name: str) -> str:
@@ -654,18 +837,49 @@ class Design:
         return _Flattener(self).run(resolve=name)
 
     def resolve_probe(self, expr: str) -> str:
-        """Rewrite a probe expression's net names to flat names."""
+        """Rewrite a probe expression's net names to flat names. A design's
+        own probe name (``[[probe]] name``) stands for its expression."""
+        for pr in self.probes:
+            if expr.strip().lower() == pr.name.strip().lower():
+                expr = pr.expr
+                break
         m = re.fullmatch(r"\s*([A-Za-z]+)\s*\((.*)\)\s*", expr)
         if not m:
             raise DesignError(f"probe '{expr}' is not of the form quantity(name)",
                               file=self._file(), hint="e.g. v(gain.out) or iabc(gain.U1)")
         q, args = m.group(1).lower(), [a.strip() for a in m.group(2).split(",")]
+        if self.netlist is not None:
+            # names as op prints them; the older 'netlist.' prefix is read too
+            args = [a[len(NETLIST_STAGE) + 1:] if a.lower().startswith(NETLIST_STAGE + ".")
+                    else a for a in args]
         if q == "v":
-            flat = _Flattener(self)
-            args = [flat.run(resolve=a) for a in args]
+            if self.netlist is not None:
+                args = [canonical_net(a) for a in args]
+            else:
+                flat = _Flattener(self)
+                args = [flat.run(resolve=a) for a in args]
         elif self.netlist is not None:
             args = [a.upper() for a in args]
         return f"{q}({','.join(args)})"
+
+
+def file_mode_for(target: str | os.PathLike) -> int:
+    """Permission bits for a file written to ``target``: those of the file
+    already there, else 0666 less the user's umask (as ``open`` would)."""
+    try:
+        return os.stat(target).st_mode & 0o777
+    except OSError:
+        pass
+    try:
+        with open("/proc/self/status", encoding="ascii") as f:
+            for line in f:
+                if line.startswith("Umask:"):
+                    return 0o666 & ~int(line.split()[1], 8)
+    except (OSError, ValueError):
+        pass
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return 0o666 & ~mask
 
 
 def atomic_write_text(target: str | os.PathLike, text: str) -> None:
@@ -675,6 +889,9 @@ def atomic_write_text(target: str | os.PathLike, text: str) -> None:
     target.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
     try:
+        # mkstemp makes 0600; the file gets the mode an ordinary write gives
+        # (the user's umask), or keeps the mode of the file it replaces
+        os.fchmod(fd, file_mode_for(target))
         with os.fdopen(fd, "w", encoding="utf-8") as f:
             f.write(text)
             f.flush()
@@ -718,6 +935,8 @@ class _Flattener:
         self.d = d
         self.file = d._file()
         self.glob = set(d.global_nets) | {GROUND}
+        self.ratings: dict[str, dict[str, float]] = {}
+        self.off_by_design: set[str] = set()
 
     def local(self, stage: str, net: str) -> str:
         return net if net in self.glob else f"{stage}.{net}"
@@ -725,15 +944,29 @@ class _Flattener:
     def run(self, resolve: str | None = None):
         d = self.d
         uf = _UnionFind()
-        active = [s for s in d.stages if not s.bypass]
-        # chain: out of each stage joins in of the next; a bypassed stage joins in and out
+        for st in d.stages:
+            if st.bypass and "in" not in st.ports and "out" not in st.ports:
+                raise DesignError(f"stage '{st.name}' carries no signal (no in or out "
+                                  "port), so it cannot be bypassed", file=self.file,
+                                  line=st.where.line, hint="take bypass off this stage")
+        # a bypassed side branch (an in port, no out port, e.g. a detector)
+        # keeps its parts but hears no signal: its input is held at the DC
+        # level the signal net has, so its effect sits at rest
+        resting = [s for s in d.stages if s.bypass and "out" not in s.ports]
+        active = [s for s in d.stages if not s.bypass or s in resting]
+        # chain: out of each stage joins in of the next; a bypassed series
+        # stage joins in and out
         prev_out = None
+        rest_of: dict[str, str] = {}
         for st in d.stages:
             in_net, out_net = self.local(st.name, "in"), self.local(st.name, "out")
             uf.add(in_net)
             if prev_out is not None and "in" in st.ports:
-                uf.union(prev_out, in_net)
-            if st.bypass:
+                if st in resting:
+                    rest_of[st.name] = prev_out
+                else:
+                    uf.union(prev_out, in_net)
+            if st.bypass and st not in resting:
                 uf.union(in_net, out_net)
             if "out" in st.ports:
                 prev_out = out_net
@@ -744,6 +977,13 @@ class _Flattener:
                     raise DesignError(f"stage '{s}' has no port '{port}'", file=self.file,
                                       line=ln.where.line,
                                       hint="its ports are " + ", ".join(st.ports))
+            # a bypassed side branch's input listens to nothing: held at rest
+            rest_end = [(e, o) for e, o in ((ln.a, ln.b), (ln.b, ln.a))
+                        if e[1] == "in" and any(r.name == e[0] for r in resting)]
+            if rest_end:
+                (s, _), other = rest_end[0]
+                rest_of[s] = self.local(other[0], other[1])
+                continue
             uf.union(self.local(ln.a[0], ln.a[1]), self.local(ln.b[0], ln.b[1]))
         if resolve is not None:
             name = canonical_net(resolve)
@@ -812,12 +1052,41 @@ class _Flattener:
             input_name = JACK
         else:
             input_name = next(e.name for e in elements if e.params.get("_input"))
+        if rest_of:
+            levels = self.resting_levels(rest_of)
+            for sname, vdc in levels.items():
+                st = d.stage(sname)
+                add(Element(f"{sname}.{REST_SOURCE}", "V",
+                            (uf.find(self.local(sname, "in")), GROUND), vdc, {},
+                            st.where))
         if d.load and d.load > 0:
             add(Element("load", "R", (last_out, GROUND), d.load, {}, Where(self.file)))
         circ = Circuit(elements=elements, input_source=input_name, output=(last_out, GROUND),
-                       title=d.name, where=Where(self.file))
+                       title=d.name, where=Where(self.file), ratings=dict(self.ratings),
+                       off_by_design=set(self.off_by_design))
         validate_circuit(circ, self.file)
         return circ
+
+    def resting_levels(self, rest_of: dict[str, str]) -> dict[str, float]:
+        """DC volts of the signal net each bypassed side branch listens to,
+        from the operating point of the design with those branches in."""
+        from engine.solver.dcop import operating_point
+        d = self.d
+        flags = {s.name: s.bypass for s in d.stages}
+        try:
+            for s in d.stages:
+                if s.name in rest_of:
+                    s.bypass = False
+            op = operating_point(_Flattener(d).run())
+            flat = _Flattener(d)
+            out = {}
+            for sname, net in rest_of.items():
+                rep = flat.run(resolve=net)
+                out[sname] = 0.0 if rep == GROUND else float(op.nets.get(rep, 0.0))
+            return out
+        finally:
+            for s in d.stages:
+                s.bypass = flags[s.name]
 
     def supply_span(self) -> float:
         """The largest DC supply in the design (V): an OTA's output compliance
@@ -868,12 +1137,22 @@ class _Flattener:
                                   hint=f"choose a {want} model")
             params = dict(model.element_params(supply=self.supply_span()))
             params.update(p.params)
+            from engine.analysis.regions import OFF_BY_DESIGN, ratings_of
+            if ratings_of(model):
+                self.ratings[q] = ratings_of(model)
+            if OFF_BY_DESIGN in (p.note or "").lower():
+                self.off_by_design.add(q)
             if kind in ("Q", "J", "M"):
                 params["TYPE"] = want
         if kind == "M" and len(nodes) == 3:
             nodes = nodes + (nodes[2],)          # bulk on the source, as a discrete part
         add(Element(q, kind, nodes, p.value if p.value is not None else 0.0, params, w))
         return lib
+
+
+def models_of_kind(d: Design, kind: str) -> list[str]:
+    """Names of the library models of one kind (D, NPN, PNP, NJF ...)."""
+    return sorted(_parts_library(d).names(kind))
 
 
 def _parts_library(d: Design):
@@ -1071,6 +1350,17 @@ def _design_from_netlist_toml(path: Path, data: dict, doc) -> Design:
         part.value = _parse_value(val, file=str(path), part=pname)
         if part.type in POSITIVE_TYPES and not part.value > 0:
             raise DesignError("value must be positive", file=str(path), part=pname)
+    for pname, mname in table.get("models", {}).items():
+        try:
+            st.part(pname)
+        except KeyError:
+            raise DesignError(f"the netlist has no part '{pname}'", file=str(path),
+                              part=pname) from None
+        try:
+            d.set_model(pname, str(mname))
+        except DesignError as exc:
+            raise DesignError(exc.message, file=str(path), part=pname, hint=exc.hint) from None
+    d.dirty = False
     return d
 
 
@@ -1165,6 +1455,16 @@ def _design_from_toml(path: Path) -> Design:
                 part.taper = _check_taper(tap, w, f"{name}.{pname}")
             for pname, pos in raw.get("positions", {}).items():
                 st.part(pname).position = int(pos)
+            for pname, mname in raw.get("models", {}).items():
+                try:
+                    part = st.part(pname)
+                except KeyError:
+                    raise DesignError(f"template '{st.template}' has no part '{pname}'",
+                                      file=file, line=sline, part=f"{name}.{pname}") from None
+                _expect(part.type in DEVICE_TYPES and isinstance(mname, str),
+                        f"[stage.models] {pname}: only a device part takes a model name",
+                        Where(file, sline), f"{name}.{pname}")
+                part.model = str(mname)
             for pname, tol in raw.get("tolerances", {}).items():
                 from engine.values import parse_tolerance
                 try:

@@ -475,8 +475,9 @@ def render_phrase(name: str = "demo", fs: float = 48000.0, pickup: str = "single
 
 
 # -------------------------------------------------------------------- files
-def write_wav(path, x_volts, fs: float, fs_volts: float = 1.0) -> int:
-    """Write ``x_volts`` as a mono float32 WAV where 1.0 (full scale) = ``fs_volts`` V.
+def write_wav(path, x_volts, fs: float, fs_volts: float | None = None) -> int:
+    """Write ``x_volts`` as a mono float32 WAV where 1.0 (full scale) = ``fs_volts`` V
+    (default: the calibration every command uses, ``engine.levels.FULL_SCALE_V``).
 
     Samples beyond full scale are clipped to +/-1.0 so that any reader is
     safe; the number of clipped samples is returned. The file is written to a
@@ -485,6 +486,9 @@ def write_wav(path, x_volts, fs: float, fs_volts: float = 1.0) -> int:
     """
     import soundfile as sf
 
+    if fs_volts is None:
+        from engine.levels import FULL_SCALE_V
+        fs_volts = FULL_SCALE_V
     if not (fs_volts > 0.0):
         raise SolderlessError(f"full-scale voltage {fs_volts!r} must be positive",
                               part="source", hint="e.g. --fs-volts 1.0")
@@ -498,6 +502,8 @@ def write_wav(path, x_volts, fs: float, fs_volts: float = 1.0) -> int:
         raise SolderlessError("folder does not exist", file=path,
                               hint="create the folder or choose another --out path")
     fd, tmp = tempfile.mkstemp(suffix=".wav", prefix=".source-", dir=folder)
+    from engine.design import file_mode_for
+    os.fchmod(fd, file_mode_for(path))      # the user's umask, not mkstemp's 0600
     os.close(fd)
     try:
         sf.write(tmp, x, int(round(fs)), subtype="FLOAT", format="WAV")
@@ -520,8 +526,11 @@ def add_source_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--pickup", default="single-coil", choices=sorted(PICKUPS),
                         help="pickup model (default: single-coil)")
     parser.add_argument("--fs", type=float, default=48000.0, help="sample rate, Hz")
-    parser.add_argument("--fs-volts", dest="fs_volts", type=float, default=1.0,
-                        help="volts at the jack that map to digital full scale")
+    from engine.levels import FULL_SCALE_V
+    parser.add_argument("--fs-volts", dest="fs_volts", type=float, default=FULL_SCALE_V,
+                        help="peak volts at the jack that map to digital full scale "
+                             f"(default {FULL_SCALE_V:.4g}, the calibration every command "
+                             "uses)")
     parser.add_argument("--seed", type=int, default=0, help="take number (variation)")
     parser.add_argument("--force", action="store_true",
                         help="overwrite --out if it exists")
@@ -544,6 +553,8 @@ def cli_source(args: argparse.Namespace) -> int:
     peak = float(np.max(np.abs(x)))
     print(f"wrote {out}: phrase '{args.phrase}', {x.size / args.fs:.2f} s at {args.fs:g} Hz, "
           f"peak {peak * 1e3:.0f} mV ({20 * np.log10(max(peak, 1e-12) / args.fs_volts):.1f} dBFS)")
+    from engine.levels import describe
+    print(f"calibration: {describe(args.fs_volts)}")
     print(f"pickup '{args.pickup}': set the design's input series resistance to "
           f"{pickup.series_resistance / 1e3:g}k (resonance {pickup.resonance / 1e3:.2f} kHz)")
     if clipped:

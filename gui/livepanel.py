@@ -65,15 +65,22 @@ class BarMeter(QWidget):
         self.value: float | None = None
         self.hold: float | None = None
         self.blank = "—"                 # text shown when there is no value
+        self.invalid = False
         self.setMinimumSize(70, 180)
         self.setSizePolicy(QSizePolicy.Policy.Preferred, QSizePolicy.Policy.Expanding)
 
+    def _readout(self) -> str:
+        v = ("NaN" if self.invalid else self.blank if self.value is None
+             else f"{self.value:.1f}")
+        return f"{v} {self.unit}"
+
     def text(self) -> str:
         """What the meter shows as text (title and readout)."""
-        v = self.blank if self.value is None else f"{self.value:.1f}"
-        return f"{self.title} {v} {self.unit}"
+        return f"{self.title} {self._readout()}"
 
     def set_value(self, v: float | None, hold: float | None = None) -> None:
+        # NaN/inf is shown as such, never as an empty (quiet-looking) meter
+        self.invalid = v is not None and not math.isfinite(v)
         self.value = None if v is None or not math.isfinite(v) else float(v)
         self.hold = None if hold is None or not math.isfinite(hold) else float(hold)
         self.update()
@@ -116,8 +123,8 @@ class BarMeter(QWidget):
         f2 = QFont(theme.MONO)
         f2.setPointSize(9)
         p.setFont(f2)
-        txt = (self.blank if self.value is None else f"{self.value:.1f}") + f" {self.unit}"
-        p.drawText(QRectF(0, bot + 3, w, 18), Qt.AlignmentFlag.AlignCenter, txt)
+        p.drawText(QRectF(0, bot + 3, w, 18), Qt.AlignmentFlag.AlignCenter,
+                   self._readout())
         p.end()
 
 

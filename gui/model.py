@@ -11,7 +11,6 @@ rebuild). No numerics here.
 from __future__ import annotations
 
 import copy
-import hashlib
 import json
 import os
 import re
@@ -24,6 +23,7 @@ from PyQt6.QtCore import QObject, pyqtSignal
 
 from engine.design import (Design, Link, atomic_write_text, load_design,
                            load_stage_template)
+from engine.autosave import Autosaves, config_dir  # noqa: F401  one scheme, one folder
 from engine.errors import DesignError, SolderlessError
 from engine.values import format_value
 
@@ -649,16 +649,6 @@ def _same_structure(a: Design, b: Design) -> bool:
 
 # ------------------------------------------------------------ files and settings
 
-def config_dir() -> Path:
-    """Where the workbench keeps settings and autosaves
-    (``$SOLDERLESS_CONFIG_DIR`` or ``~/.config/solderless``)."""
-    env = os.environ.get("SOLDERLESS_CONFIG_DIR")
-    if env:
-        return Path(env)
-    base = os.environ.get("XDG_CONFIG_HOME") or str(Path.home() / ".config")
-    return Path(base) / "solderless"
-
-
 class Settings:
     """A small JSON settings file (recent files, first-use caution shown)."""
 
@@ -693,62 +683,59 @@ class Recovered:
     design: Design | None
     origin: str | None
     message: str
+    path: Path | None = None
 
 
 class Autosave:
-    """Periodic copies of unsaved work, for recovery after a crash.
+    """Periodic copies of unsaved work, for recovery after a crash, in the
+    one autosave scheme of :mod:`engine.autosave` (front end "workbench").
 
-    Each open design has one autosave file ``<key>.toml`` and a sidecar
-    ``<key>.json`` naming the original file. A clean exit or a save removes
-    them; at start-up a leftover one is offered for recovery. A file that
-    cannot be read is moved aside to ``<name>.unreadable`` and reported, never
-    a reason not to start.
+    A clean exit or a save removes this session's copy. At start-up the
+    copies left by sessions that no longer run are offered; reading one
+    changes nothing on disk, so it stays on offer until the user opens it
+    (:meth:`adopted`, once it is autosaved again in this session) or
+    discards it (:meth:`discard`). A file that cannot be read is moved aside
+    to ``<name>.unreadable`` and reported, never a reason not to start.
     """
 
     def __init__(self, folder: Path):
-        self.folder = Path(folder) / "autosave"
+        self.store = Autosaves(folder, "workbench")
+        self.folder = self.store.folder
 
     def _key(self, d: Design) -> str:
-        src = str(d.path.resolve()) if d.path else f"untitled-{id(d)}"
-        return hashlib.sha1(src.encode()).hexdigest()[:12]
+        return self.store.key(d.path, f"untitled-{id(d)}")
 
     def write(self, d: Design) -> Path | None:
         """Write the design's current text; return the file (None if the
         design cannot be written as TOML, e.g. a whole-netlist design)."""
         if d.doc is None:
             return None
-        key = self._key(d)
-        text = d.to_toml()
-        self.folder.mkdir(parents=True, exist_ok=True)
-        target = self.folder / f"{key}.toml"
-        atomic_write_text(target, text)
-        meta = {"origin": str(d.path.resolve()) if d.path else None, "name": d.name,
-                "time": time.time()}
-        atomic_write_text(self.folder / f"{key}.json", json.dumps(meta))
-        return target
+        return self.store.write(d.to_toml(), key=self._key(d), name=d.name, origin=d.path)
 
     def clear(self, d: Design) -> None:
-        key = self._key(d)
-        for ext in (".toml", ".json"):
-            try:
-                (self.folder / f"{key}{ext}").unlink()
-            except OSError:
-                pass
+        self.store.clear(self._key(d), d.name)
 
     def pending(self) -> list[Path]:
-        if not self.folder.is_dir():
-            return []
-        return sorted(self.folder.glob("*.toml"), key=lambda p: p.stat().st_mtime,
-                      reverse=True)
+        """Workbench autosaves of sessions that no longer run, newest first
+        (the console's copies and running sessions' files are left out)."""
+        return [e.path for e in self.store.pending()]
+
+    def discard(self, path: Path) -> Path | None:
+        """The user declined: keep the file aside as ``.discarded``."""
+        return self.store.discard(path)
+
+    def adopted(self, path: Path) -> None:
+        """The recovered design is autosaved in this session: drop the old file."""
+        self.store.adopted(path)
 
     def recover(self, path: Path) -> Recovered:
-        """Load one autosave. Never raises for a damaged file: it is moved
-        aside and the message says what happened."""
+        """Load one autosave without consuming it. Never raises for a
+        damaged file: it is moved aside and the message says what happened."""
         meta_path = path.with_suffix(".json")
         origin = None
         try:
             meta = json.loads(meta_path.read_text(encoding="utf-8"))
-            origin = meta.get("origin")
+            origin = meta.get("origin") if isinstance(meta, dict) else None
         except (OSError, ValueError):
             pass
         try:
@@ -775,11 +762,6 @@ class Autosave:
         if origin:
             d.path = Path(origin)
         d.dirty = True
-        try:
-            os.replace(path, path.with_name(path.name + ".recovered"))
-            meta_path.unlink(missing_ok=True)
-        except OSError:
-            pass
         return Recovered(d, origin, f"Recovered unsaved work on '{d.name}'"
                          + (f" (from {origin})" if origin else "")
-                         + ". Save it to keep it.")
+                         + ". Save it to keep it.", path)

@@ -174,7 +174,8 @@ def frequency_response(design, freqs: np.ndarray | None = None) -> ACResult:
     """Small-signal response from the input jack to the output and the input
     impedance, from the engine's AC analysis."""
     if freqs is None:
-        freqs = np.geomspace(10.0, 40e3, 200)
+        from engine.solver.ac import default_frequencies   # the CLI's range too
+        freqs = default_frequencies()
     fn = None
     for mod, name in (("engine.solver", "ac_response"), ("engine.solver.ac", "ac_response"),
                       ("engine.analysis", "ac_response"), ("engine.analysis.ac", "ac_response")):

@@ -731,6 +731,12 @@ class MainWindow(QMainWindow):
             return None
 
     def _check_autosaves(self, policy: str) -> None:
+        """Offer autosaves left by workbench sessions that no longer run.
+        ``policy``: "ask" (a notice with Open / Discard; ignoring it keeps
+        the offer for next time), "yes" (open the newest), "no" (a scripted
+        run such as --screenshot: do not even look)."""
+        if policy == "no":
+            return
         for path in self.autosave.pending():
             rec = self.autosave.recover(path)
             if rec.design is None:
@@ -738,16 +744,27 @@ class MainWindow(QMainWindow):
                 continue
             if policy == "yes":
                 self._adopt(rec)
-            elif policy == "ask":
+                policy = "ask"           # the others stay on offer
+            else:
                 self.notices.add(rec.message.replace(" Save it to keep it.", "")
                                  + " Open it now?", "info",
-                                 buttons=[("Open recovered", lambda r=rec: self._adopt(r))])
+                                 buttons=[("Open recovered", lambda r=rec: self._adopt(r)),
+                                          ("Discard", lambda r=rec: self._discard(r))])
 
     def _adopt(self, rec) -> None:
         self.set_design(rec.design)
         self.wb.generation += 1          # recovered work is unsaved work
         self._history()
         self.say(rec.message)
+        # the old file goes only once the work is autosaved in this session
+        if rec.path is not None and self.autosave_now() is not None:
+            self.autosave.adopted(rec.path)
+
+    def _discard(self, rec) -> None:
+        if rec.path is not None:
+            aside = self.autosave.discard(rec.path)
+            self.say(f"recovered work discarded (kept as {aside})" if aside else
+                     "the autosave could not be moved aside")
 
     def closeEvent(self, e) -> None:
         if not self.may_discard():

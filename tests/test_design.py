@@ -354,7 +354,10 @@ def test_mosfet_part_bias_point(tmp_path):
 
     i_d = brentq(f, 0.0, 9 / 12.2e3)
     assert op.nets["boost.s"] == pytest.approx(i_d * 2.2e3, rel=1e-6)
-    assert op.devices["boost.Q1"]["region"] == "saturated"
+    # saturation (the amplifying region), reported as near cut-off when the
+    # gate overdrive is under 0.5 V (engine/analysis/regions.py)
+    vgst = vg - i_d * 2.2e3 - 2.0
+    assert op.devices["boost.Q1"]["region"] == ("near cut-off" if vgst < 0.5 else "saturated")
 
 
 def test_netlist_stage_keeps_its_current_controlled_sources(tmp_path):

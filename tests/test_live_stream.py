@@ -204,8 +204,11 @@ def test_cli_terminal_commands_edit_and_save(null_home, tmp_path):
     assert parts["output.VOLUME"].rotation == pytest.approx(0.5)
     assert d.stage("boost").bypass is True
     # every edit was also autosaved under the config folder
-    auto = home / ".config" / "solderless" / "autosave" / "booster.toml"
-    assert auto.exists() and "bypass = true" in auto.read_text()
+    # (this session's console autosave, told apart from the workbench's)
+    autos = list((home / ".config" / "solderless" / "autosave").glob("console-booster-*.toml"))
+    assert len(autos) == 1 and "bypass = true" in autos[0].read_text()
+    meta = json.loads(autos[0].with_suffix(".json").read_text())
+    assert meta["front_end"] == "console" and meta["name"] == "booster"
 
 
 def test_cli_live_input_duplex(null_home):

@@ -254,8 +254,11 @@ def test_cli_source_writes_and_protects_existing(tmp_path, capsys):
                             "--pickup", "humbucker", "--fs", "44100")) == 0
     y, fs = sf.read(out)
     assert fs == 44100
-    np.testing.assert_allclose(y, render_phrase("mutes", 44100.0, "humbucker").astype(np.float32),
-                               atol=1e-7)
+    # samples are volts over the one calibration (engine/levels.py)
+    from engine.levels import FULL_SCALE_V
+    np.testing.assert_allclose(
+        y, (render_phrase("mutes", 44100.0, "humbucker") / FULL_SCALE_V).astype(np.float32),
+        atol=1e-7)
     assert "9k" in capsys.readouterr().out  # series resistance advice
     out.write_bytes(b"user data")
     with pytest.raises(SolderlessError, match="--force"):

@@ -86,7 +86,7 @@ _STANDARD = {
           "CJP", "CJSW", "PHP", "MJSW", "AREA", "PJ", "LEVEL", "IBVL",
           "TBV1", "TBV2", "TT1", "TT2", "TM1", "TM2", "CTA", "CTP", "TPB",
           "TPHP", "TLEV", "TLEVC", "XTI", "GAP1", "GAP2", "EGAP", "VP",
-          "IAVE", "IPK", "VPK", "MFG", "TYPE", "BVJ", "DSKIP"},
+          "IAVE", "IPK", "VPK", "MFG", "TYPE", "BVJ", "DSKIP", "PDMAX"},
     "Q": {"IS", "BF", "NF", "VAF", "VA", "IKF", "IK", "ISE", "NE", "BR",
           "NR", "VAR", "VB", "IKR", "ISC", "NC", "RB", "IRB", "RBM", "RE",
           "RC", "CJE", "VJE", "PE", "MJE", "ME", "TF", "XTF", "VTF", "ITF",
@@ -107,14 +107,14 @@ _STANDARD = {
     "J": {"VTO", "VT0", "BETA", "LAMBDA", "RD", "RS", "CGS", "CGD", "PB",
           "IS", "N", "B", "FC", "KF", "AF", "TNOM", "TCV", "VTOTC", "BEX",
           "BETATCE", "XTI", "EG", "LEVEL", "ISR", "NR", "ALPHA", "VK", "M",
-          "MFG", "TYPE", "BV", "IBV", "VDSMAX", "VGSMAX", "VGDMAX", "RG"},
+          "MFG", "TYPE", "BV", "IBV", "VDSMAX", "VGSMAX", "VGDMAX", "RG", "PDMAX"},
     "M": {"LEVEL", "VTO", "VT0", "KP", "GAMMA", "PHI", "LAMBDA", "RD", "RS", "CBD",
           "CBS", "IS", "PB", "CGSO", "CGDO", "CGBO", "RSH", "CJ", "MJ", "CJSW",
           "MJSW", "JS", "TOX", "NSUB", "NSS", "NFS", "TPG", "XJ", "LD", "UO", "U0",
           "UCRIT", "UEXP", "UTRA", "VMAX", "NEFF", "KF", "AF", "FC", "DELTA",
           "THETA", "ETA", "KAPPA", "TNOM", "MFG", "TYPE", "N", "W", "L", "WD",
           "RG", "RB", "BEX", "TCV", "XTI", "EG", "VDS", "VGS", "RON", "QG",
-          "MTRIODE", "KSUBTHRES", "BV", "IBV", "TT"},
+          "MTRIODE", "KSUBTHRES", "BV", "IBV", "TT", "VDSMAX", "IDMAX", "PDMAX"},
 }
 # Aliases SPICE accepts for the same parameter.
 _ALIAS = {

@@ -56,11 +56,13 @@ def add_play_arguments(p) -> None:
                    help="block size in samples (default 128; 64 for the lowest latency)")
     p.add_argument("--oversample", type=int, choices=(1, 2, 4, 8),
                    help="oversampling factor (default: the design's suggestion)")
+    from engine.levels import describe
     p.add_argument("--in-full-scale", metavar="LEVEL",
                    help="input calibration: peak volts at the jack for digital full scale "
-                        "(1.55V) or dBu of a full-scale sine (+3dBu, the default)")
+                        f"(1.55V) or dBu of a full-scale sine (+3dBu); default: {describe()}, "
+                        "as in every command")
     p.add_argument("--out-full-scale", metavar="LEVEL",
-                   help="output calibration, same form (default +3dBu)")
+                   help="output calibration, same form (default: the same)")
     p.add_argument("--level", type=float, default=0.0, metavar="DB",
                    help="output level, dB (default 0); playback starts silent and ramps up")
     p.add_argument("--ceiling", type=float, default=-6.0, metavar="DBFS",
@@ -86,6 +88,9 @@ def run_devices(args) -> int:
     if getattr(args, "json", False):
         print(json.dumps(devs, indent=1))
         return 0
+    if devs:
+        print("marks: '<' the default input device, '>' the default output device; "
+              "use the index or part of the name with --input-device / --output-device")
     for d in devs:
         mark = ("<" if d["default_input"] else " ") + (">" if d["default_output"] else " ")
         print(f"{mark} {d['index']:3d}  {d['name']}  ({d['host_api']}, "
@@ -158,8 +163,13 @@ def _print_summary(s: dict, say) -> None:
         if v["gr_measured_db"] is not None:
             bits.append(f"{v['gr_measured_db']:.1f} dB (measured)")
         if v["loudness_lkfs"] is not None:
-            bits.append(f"loudness {v['loudness_lkfs']:.1f} LKFS")
+            bits.append(f"loudness {v['loudness_lkfs']:.1f} LUFS")
         say("  ".join(bits))
+    if any(v["gr_control_db"] is not None or v["gr_measured_db"] is not None
+           for v in m["voices"].values()):
+        say("  (gain reduction from the control: the control against its resting value; "
+            "measured: output/input level against the resting small-signal gain; "
+            "both 0 dB at rest)")
     if len(m["voices"]) > 1:
         say(f"loudness match: A - B = {m['loudness_offset_db']:+.2f} LU applied")
     lat = s["latency"]
@@ -194,7 +204,13 @@ def run_play(args) -> int:
                     level_db=args.level, ceiling_dbfs=args.ceiling,
                     loudness_match=not args.no_match)
     caution_once(err)
-    err(f"building {', '.join(getattr(v.design, 'name', '?') for v in host.voices)} ...")
+    names = [str(getattr(v.design, "name", "?")) for v in host.voices]
+    if len(names) == 2 and names[0] == names[1]:
+        # two files with one name: tell the sides apart by their files
+        from pathlib import Path
+        names = [f"{n} ({Path(getattr(v.design, 'path', '') or v.label).name})"
+                 for n, v in zip(names, host.voices)]
+    err(f"building {', '.join(names)} ...")
     host.prepare()
     err(f"input calibration: full scale {host.in_fs_v:.3g} V peak "
         f"({M.vrms_to_dbu(host.in_fs_v / math.sqrt(2)):+.1f} dBu sine); source: {source.label}")
@@ -259,12 +275,12 @@ def run_play(args) -> int:
         m = host.meters()
         s = _summary(host, m, wall)
         host.close()
+    written = host.autosaved_paths()        # the files autosave really wrote
     if problem:
         err(f"stopped: {problem}. Your design and its edits are kept"
-            + (f" (autosave: {', '.join(host.autosave_paths())})"
-               if host.edits and host.autosave_paths() else ""))
-    elif host.edits and host.autosave_paths():
-        err(f"{host.edits} edit(s) this session; a copy is in {', '.join(host.autosave_paths())}"
+            + (f" (autosave: {', '.join(written)})" if host.edits and written else ""))
+    elif host.edits and written:
+        err(f"{host.edits} edit(s) this session; a copy is in {', '.join(written)}"
             " ('save' writes the design itself)")
     if args.seconds is not None or args.json:
         if args.json:

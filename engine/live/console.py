@@ -10,12 +10,25 @@ Commands (``help`` prints them)::
     pick PART             choose the part the next commands act on
     up [N] / down [N]     step the picked part N places through its E-series
     value V               set the picked part's value (4k7, 100n, 2.2u ...)
+    up/down on a pot      steps through E3 (1, 2.2, 4.7 per decade): the values
+                          pots are made in
     turn R                turn the picked pot to R (0 to 1); 'turn +' / 'turn -'
                           nudges by 0.05
-    bypass STAGE          toggle bypass of a stage (rebuild + crossfade)
+    taper LAW             the picked pot's taper: linear, audio, reverse, or
+                          custom R:F,R:F,... (rotation:fraction points, 0..1)
+    model NAME            give the picked device part another library model
+                          (swap diodes or a transistor); 'model' alone lists
+                          the models of its kind
+    times                 attack and release (63 % of the gain-reduction step);
+                          refreshed by itself after each edit
+    bypass STAGE          toggle bypass of a stage (rebuild + crossfade): a series
+                          stage passes in to out; a side branch (a detector) hears
+                          no signal, so the gain cell sits at its resting gain
     a / b                 hear (and edit) the baseline or the variant
     level DB              output level in dB
-    meters                print the meters now
+    wait S                let S seconds of audio play before the next command
+                          (for scripted sessions)
+    meters                print the meters now (the first time with what each one means)
     unmute                clear a safety mute (output ramps up again)
     save [PATH]           save the design atomically (its own file by default)
     quit                  stop playing
@@ -26,6 +39,10 @@ import math
 from typing import Callable
 
 from engine.errors import SolderlessError
+
+EDITS = {"up", "down", "value", "turn", "taper", "model", "bypass"}
+TAPER_WORDS = {"linear": "linear", "lin": "linear", "audio": "audio", "log": "audio",
+               "reverse": "reverse-audio", "reverse-audio": "reverse-audio"}
 
 HELP = __doc__.split("::", 1)[1].rstrip()
 
@@ -39,7 +56,16 @@ def _fmt(x, unit):
 
 
 def _db(x):
-    return "  -inf" if x is None or x <= -149 else f"{x:6.1f}"
+    from engine.live.meters import fmt_db
+    return fmt_db(x)
+
+
+METER_LEGEND = ("in/out: peak and RMS level, dBFS; ctl: the gain cell's control "
+                "current; GR: gain reduction from the control (control against its "
+                "resting value, 0 dB at rest); GRm: gain reduction measured (output/input "
+                "level against the resting small-signal gain at 1 kHz, 0 dB at rest); "
+                "LUFS: loudness (ITU-R BS.1770-4, 3 s); cpu: share of the block period. "
+                "ctl, GR and GRm show only for a design with a control ([meters] control).")
 
 
 def meter_line(m: dict) -> str:
@@ -53,8 +79,13 @@ def meter_line(m: dict) -> str:
         parts.append(f"GR {vi['gr_control_db']:5.1f} dB")
     if vi.get("gr_measured_db") is not None:
         parts.append(f"GRm {vi['gr_measured_db']:5.1f} dB")
+    if vi.get("loudness_lkfs") is not None:
+        parts.append(f"{vi['loudness_lkfs']:5.1f} LUFS")
     if len(m["voices"]) > 1:
         parts.append(f"[{m.get('selected', 'A')}] match {m['loudness_offset_db']:+.1f} LU")
+    bad = [k for k in ("input", "output") if m[k].get("invalid")]
+    if bad:
+        parts.append("INVALID (NaN/inf) " + " and ".join(bad))
     parts.append(f"cpu {100 * m['cpu_load']:3.0f}%")
     if m["xruns"]:
         parts.append(f"xruns {m['xruns']}")
@@ -71,6 +102,26 @@ class Console:
         self.say = say
         self.picked: str | None = None
         self.timeout = timeout
+        self._legend_shown = False
+        self._times_gen = 0
+
+    def _refresh_times(self) -> None:
+        """After an edit, measure attack and release again on a copy of the
+        design, on a helper thread, and print them when done (only for a
+        design that declares a control)."""
+        import copy
+        import threading
+        try:
+            _, v = self.host._voice(None)
+        except SolderlessError:
+            return
+        d = v.design
+        if not (hasattr(d, "control_probe") and d.control_probe()):
+            return
+        self._times_gen += 1
+        threading.Thread(target=_refresh_times_job,
+                         args=(self, copy.deepcopy(d), self._times_gen, self.host.fs),
+                         daemon=True, name="solderless-times").start()
 
     def _need_pick(self) -> str:
         if self.picked is None:
@@ -84,11 +135,17 @@ class Console:
             return True
         cmd, rest = words[0].lower(), words[1:]
         try:
-            return self._run(cmd, rest)
+            go_on = self._run(cmd, rest)
+            if cmd in EDITS:
+                self._refresh_times()
+            return go_on
         except SolderlessError as exc:
             self.say(f"error: {exc}")
         except (ValueError, IndexError) as exc:
             self.say(f"error: cannot read '{line.strip()}' ({exc}); type 'help'")
+        except Exception as exc:        # a bug must not end the session: say it, go on
+            self.say(f"error: '{line.strip()}' failed ({type(exc).__name__}: {exc}); "
+                     "playing goes on")
         return True
 
     def _run(self, cmd: str, rest: list[str]) -> bool:
@@ -105,11 +162,18 @@ class Console:
                 extra = f"  rotation {p.rotation:.2f}" if p.is_pot else ""
                 mark = "*" if p.qualname == self.picked else " "
                 self.say(f"{mark} {p.qualname:<22} {_fmt(p.value, p.unit):>12}{extra}")
+            for p in v.design.parts():
+                if p.value is None and p.model:
+                    mark = "*" if p.qualname == self.picked else " "
+                    self.say(f"{mark} {p.qualname:<22} {p.type} model {p.model}")
         elif cmd == "pick":
             info = h.part_info(rest[0])
             self.picked = info.qualname
             extra = f", rotation {info.rotation:.2f}" if info.is_pot else ""
-            self.say(f"picked {info.qualname} = {_fmt(info.value, info.unit)}{extra}")
+            if info.value is None:          # a device: it has a model, not a value
+                self.say(f"picked {info.qualname} ({info.type}, model {info.model})")
+            else:
+                self.say(f"picked {info.qualname} = {_fmt(info.value, info.unit)}{extra}")
         elif cmd in ("up", "down"):
             part = self._need_pick()
             n = int(rest[0]) if rest else 1
@@ -130,23 +194,93 @@ class Console:
             else:
                 r = float(rest[0])
             r = min(1.0, max(0.0, r)) if rest[0] in ("+", "-") else r
-            h.set_rotation(part, r).result(self.timeout)
+            if not 0.0 <= r <= 1.0:
+                raise SolderlessError(f"rotation must be from 0 to 1, not {rest[0]}")
+            fut = h.set_rotation(part, r)
+            if fut.done() and fut.exception() is not None:
+                raise fut.exception()
+            # the ramp runs in the background: the console answers at once,
+            # and a failure is reported when the ramp ends
+            fut.add_done_callback(lambda f, p=part: f.exception() is not None and
+                                  self.say(f"error: {p}: {f.exception()}"))
             self.say(f"{part} rotation {r:.2f}")
+        elif cmd == "taper":
+            part = self._need_pick()
+            if not h.part_info(part).is_pot:
+                raise SolderlessError("only a pot has a taper", part=part)
+            law = rest[0].lower()
+            if law == "custom":
+                pts = [[float(a) for a in p.split(":")] for p in "".join(rest[1:]).split(",")
+                       if p]
+                if any(len(p) != 2 for p in pts):
+                    raise ValueError("write custom points as rotation:fraction, e.g. "
+                                     "custom 0:0,0.5:0.15,1:1")
+                taper = pts
+            elif law in TAPER_WORDS:
+                taper = TAPER_WORDS[law]
+            else:
+                raise SolderlessError(f"unknown taper '{rest[0]}'",
+                                      hint="linear, audio, reverse or custom R:F,R:F,...")
+            got = h.set_taper(part, taper).result(self.timeout)
+            info = h.part_info(part)
+            from engine.design import taper_fraction
+            self.say(f"{part} taper {got if isinstance(got, str) else 'custom'}: at rotation "
+                     f"{info.rotation:.2f} the wiper sits at "
+                     f"{100 * taper_fraction(info.taper, info.rotation):.1f} % of the track")
+        elif cmd == "model":
+            part = self._need_pick()
+            _, v = h._voice(None)
+            info = h.part_info(part)
+            if not rest:
+                from engine.design import MODEL_KIND, models_of_kind
+                kind = MODEL_KIND.get(info.type)
+                if kind is None:
+                    raise SolderlessError(f"a {info.type} has no device model", part=part)
+                self.say(f"{part} is {info.model}; models of its kind: "
+                         + ", ".join(models_of_kind(v.design, kind)))
+            else:
+                got = h.set_model(part, rest[0]).result(self.timeout)
+                self.say(f"{part} model {got} (rebuilt)")
+        elif cmd == "times":
+            from engine.analysis.timing import attack_release, describe
+            _, v = h._voice(None)
+            self.say(describe(attack_release(v.design, fs=h.fs)))
         elif cmd == "bypass":
             stage = rest[0]
             _, v = h._voice(None)
             cur = _bypassed(v.design, stage)
             t = h.set_bypass(stage, not cur).result(self.timeout)
-            self.say(f"stage {stage} {'bypassed' if not cur else 'back in'} "
+            what = ""
+            if not cur and hasattr(v.design, "bypass_effect"):
+                what = f": {v.design.bypass_effect(stage)}"
+            self.say(f"stage {stage} {'bypassed' if not cur else 'back in'}{what} "
                      f"(rebuilt in {1e3 * t:.0f} ms)")
+            if hasattr(v.design, "dangling_probes"):
+                for w in v.design.dangling_probes():
+                    self.say(f"warning: {w}")
         elif cmd in ("a", "b"):
             h.select(cmd.upper())
             self.say(f"hearing {cmd.upper()} (loudness offset {h.loudness_offset_db:+.1f} LU)")
         elif cmd == "level":
-            h.set_level_db(float(rest[0]))
-            self.say(f"output level {float(rest[0]):+.1f} dB")
+            from engine.live.limits import check_level_db
+            db = check_level_db(rest[0])
+            h.set_level_db(db)
+            self.say(f"output level {db:+.1f} dB")
+        elif cmd == "wait":
+            import time
+            secs = float(rest[0])
+            if not 0 <= secs <= 600:
+                raise SolderlessError(f"wait {rest[0]}: give 0 to 600 seconds")
+            goal = h.blocks + int(math.ceil(secs * h.fs / h.block))
+            t_end = time.monotonic() + 10 * secs + 30
+            while h.blocks < goal and time.monotonic() < t_end and h.error is None:
+                time.sleep(0.01)
+                h.meters()              # keep the meter ring drained
         elif cmd == "meters":
             self.say(meter_line(h.meters()))
+            if not self._legend_shown:
+                self.say(METER_LEGEND)
+                self._legend_shown = True
         elif cmd == "unmute":
             h.unmute()
             self.say("unmuted; output ramps up from silence")
@@ -156,6 +290,20 @@ class Console:
         else:
             self.say(f"unknown command '{cmd}'; type 'help'")
         return True
+
+
+def _refresh_times_job(console, design, gen, fs):
+    import time
+    from engine.analysis.timing import attack_release, describe
+    time.sleep(0.3)                     # a burst of edits (up, up, up) measures once
+    if gen != console._times_gen:
+        return
+    try:
+        line = describe(attack_release(design, fs=fs))
+    except Exception as exc:            # a readout must never stop the session
+        line = f"attack/release: could not measure ({exc})"
+    if gen == console._times_gen:       # a newer edit supersedes this one
+        console.say("times: " + line)
 
 
 def _bypassed(design, stage: str) -> bool:

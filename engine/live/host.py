@@ -13,10 +13,18 @@ Threads
   through the public methods runs here, in order: the design is changed, the
   simulator re-derives its matrices (``set_values``, lands at the next block
   boundary with the circuit state carried over) or, for a topology change, a
-  new simulator is built and swapped in with a short crossfade. Pot moves are
-  ramped over several blocks so they do not click. After each edit the design
-  is written to an autosave file (atomic write and rename), so no edit is lost
-  to a crash or a stream error.
+  new simulator is built and swapped in with a short crossfade. Value edits
+  of one part are coalesced (the latest value wins). An edit the simulator
+  refuses (a singular network) is undone in the design and the previous
+  values keep playing. After an edit, a circuit that had gone NaN or run
+  away is restarted from its operating point (the guard re-arms once the
+  output stays sane). The design is written to an autosave file (atomic
+  write and rename) at most every ``AUTOSAVE_MIN_S`` during a burst, and the
+  last of a burst always, so no edit is lost to a crash or a stream error.
+* **Ramp threads**: a pot turn ramps over several blocks so it does not
+  click; a short-lived thread per turn posts one step at a time to the
+  worker and waits between steps, so neither the caller nor other edits
+  wait for the ramp.
 * **Any other thread** (terminal, GUI): public methods; they post work and
   return a :class:`concurrent.futures.Future`, or read meters.
 
@@ -38,6 +46,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from engine.autosave import Autosaves, config_dir  # noqa: F401  one folder for every front end
 from engine.errors import AudioError, DesignError, SolderlessError
 from engine.live import limiter as lim
 from engine.live import meters as M
@@ -45,12 +54,12 @@ from engine.live.loudness import RunningLoudness
 from engine.live.ring import FrameRing
 from engine.live.source import LiveInput, Source
 
-DEFAULT_FULL_SCALE_DBU = 3.0
+from engine.levels import FULL_SCALE_DBU as DEFAULT_FULL_SCALE_DBU  # noqa: E402  (engine/levels.py)
 """Default input and output calibration: a full-scale sine is +3 dBU
 (1.10 V RMS, 1.55 V peak) at the jack, a typical instrument-input full
 scale of an audio interface (common practice)."""
 
-LOUDNESS_GATE_POWER = 10 ** ((-70.0 + 0.691) / 10)   # -70 LKFS absolute gate
+LOUDNESS_GATE_POWER = 10 ** ((-70.0 + 0.691) / 10)   # -70 LUFS absolute gate
 MAX_MATCH_DB = 24.0
 MAX_BLOCK = 4096
 MAX_POT_STEP = 0.005
@@ -61,6 +70,9 @@ of the pot's whole resistance (so a divider's ratio moves at most 0.5 % of
 full scale per block, whatever the taper): keeps the gain step per block well
 under a 220 Hz sine's own sample-to-sample change (2 sin(pi 220 / 48000) =
 2.9 % of its peak)."""
+POT_SERIES = "E3"
+"""Pots step through 1, 2.2, 4.7 per decade: the values pots are commonly
+made in (common practice, from memory), not E12/E24 resistor values."""
 MAX_RAMP_STEPS = 2000
 IDLE_S = 0.1
 """A ramp stops waiting for blocks when none has run for this long."""
@@ -69,13 +81,6 @@ IDLE_S = 0.1
 def full_scale_peak_from_dbu(dbu: float) -> float:
     """Peak volts of a full-scale sine whose RMS is ``dbu`` dBu."""
     return M.dbu_to_vrms(dbu) * math.sqrt(2.0)
-
-
-def config_dir() -> Path:
-    """The user's config folder for Solderless (``$XDG_CONFIG_HOME`` or
-    ``~/.config``, then ``solderless``)."""
-    base = os.environ.get("XDG_CONFIG_HOME") or os.path.join(os.path.expanduser("~"), ".config")
-    return Path(base) / "solderless"
 
 
 CAUTION = ("Caution: a circuit can oscillate or jump in level; keep the monitor "
@@ -146,8 +151,10 @@ def _probes_for(design) -> tuple[list[str], int | None]:
 
 def measure_small_signal(design, fs: float, oversample: int, block: int,
                          control_probe: str | None, factory: Callable):
-    """Small-signal gain at 1 kHz (10 mV peak; RMS ratio over the settled
-    second half of 0.5 s) and the quiescent value of the control probe (mean
+    """Small-signal gain at 1 kHz (1 mV peak, small enough that a
+    compressor's detector stays at rest, so the gain-reduction meter reads
+    0 dB at rest; RMS ratio over the settled second half of 0.5 s) and the
+    quiescent value of the control probe (mean
     over the last third of 0.3 s of silence), on a simulator of its own.
     Returns ``(gain_db or None, quiescent or None, problem or None)``."""
     try:
@@ -156,6 +163,19 @@ def measure_small_signal(design, fs: float, oversample: int, block: int,
         sim = factory(circuit, fs, oversample, probes)
     except SolderlessError as exc:
         return None, None, str(exc)
+    # A runaway circuit (a 1 MV supply) overflows the sums below; the result
+    # is checked for finiteness instead of numpy printing a RuntimeWarning.
+    with np.errstate(over="ignore", invalid="ignore"):
+        gain_db, q = _measure(sim, fs, block, oversample, probes)
+    if gain_db is not None and not math.isfinite(gain_db):
+        return None, None, "the output is not finite at these values"
+    if q is not None and not math.isfinite(q):
+        q = None
+    return gain_db, q, None
+
+
+def _measure(sim, fs, block, oversample, probes):
+    """The loops of :func:`measure_small_signal`."""
     n = block
     x = np.zeros(n)
     y = np.zeros(n)
@@ -166,7 +186,7 @@ def measure_small_signal(design, fs: float, oversample: int, block: int,
         k = sim.process_into(x, y, pb)
         if pb is not None and b >= t_sil * 2 // 3 and k:
             ctl.append(float(pb[0, :k].mean()))
-    f, amp = 1000.0, 0.01
+    f, amp = 1000.0, 0.001
     nt = int(0.5 * fs / n)
     acc_in = acc_out = 0.0
     for b in range(nt):
@@ -176,8 +196,79 @@ def measure_small_signal(design, fs: float, oversample: int, block: int,
         if b >= nt // 2:
             acc_in += float(np.dot(x, x))
             acc_out += float(np.dot(y, y))
-    gain_db = 10 * math.log10(acc_out / acc_in) if acc_out > 0 and acc_in > 0 else None
-    return gain_db, (float(np.mean(ctl)) if ctl else None), None
+    gain_db = 10 * math.log10(acc_out / acc_in) if acc_out > 0 and acc_in > 0 and \
+        math.isfinite(acc_out) else None
+    return gain_db, (float(np.mean(ctl)) if ctl else None)
+
+
+def _part_undo(design, part: str):
+    """A function that puts ``part`` of ``design`` back as it is now (its
+    value, rotation and taper, and what the design file records for them),
+    or None if the design cannot say. Cheap: no copy of the design."""
+    try:
+        obj = design.part(part)
+    except Exception:
+        return None
+    fields = {k: getattr(obj, k) for k in ("value", "rotation", "taper")}
+    keys = ("value", "rotation", "taper")
+    saved = []
+    for key in keys:
+        try:        # look, without creating a table the edit may not need
+            loc = design._part_doc(part, key, create=False)
+        except Exception:
+            loc = None
+        if loc is not None:
+            table, k = loc
+            saved.append((table, k, table.get(k, _MISSING)))
+    dirty = getattr(design, "dirty", False)
+
+    def undo():
+        for k, val in fields.items():
+            setattr(obj, k, val)
+        for table, k, val in saved:
+            if val is _MISSING:
+                if k in table:
+                    del table[k]
+            else:
+                table[k] = val
+        for key in keys:            # an override table the failed edit created
+            try:
+                loc = design._part_doc(part, key, create=False)
+            except Exception:
+                loc = None
+            if loc is not None and not any(t is loc[0] for t, _, _ in saved):
+                table, k = loc
+                if k in table and k != key:
+                    del table[k]
+        design.dirty = dirty
+    return undo
+
+
+_MISSING = object()
+
+
+def _part_model_undo(design, part: str):
+    """A function that puts back ``part``'s model (and its record)."""
+    obj = design.part(part)
+    model = obj.model
+    nl = dict(getattr(design, "_netlist_models", {}) or {})
+    loc = design._part_doc(part, "model") if getattr(design, "doc", None) is not None else None
+    saved = None if loc is None else (loc[0], loc[1], loc[0].get(loc[1], _MISSING))
+    dirty = design.dirty
+
+    def undo():
+        obj.model = model
+        if hasattr(design, "_netlist_models"):
+            design._netlist_models = nl
+        if saved is not None:
+            table, k, val = saved
+            if val is _MISSING:
+                if k in table:
+                    del table[k]
+            else:
+                table[k] = val
+        design.dirty = dirty
+    return undo
 
 
 def scope_tail(ring: FrameRing, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -301,6 +392,15 @@ class LiveHost:
                  level_db: float = 0.0, ceiling_dbfs: float = lim.DEFAULT_CEILING_DBFS,
                  loudness_match: bool = True, simulator_factory: Callable | None = None,
                  autosave: str | os.PathLike | bool | None = None, shared: bool = False):
+        from engine.live.limits import (check_ceiling_dbfs, check_full_scale_v,
+                                        check_level_db, check_rate)
+        fs = check_rate(fs)
+        level_db = check_level_db(level_db)
+        ceiling_dbfs = check_ceiling_dbfs(ceiling_dbfs)
+        if in_full_scale_v is not None:
+            in_full_scale_v = check_full_scale_v(in_full_scale_v, "input")
+        if out_full_scale_v is not None:
+            out_full_scale_v = check_full_scale_v(out_full_scale_v, "output")
         if not 16 <= int(block) <= MAX_BLOCK:
             raise AudioError(f"block size {block} is out of range",
                              hint=f"use 16 to {MAX_BLOCK} samples (64 or more at 48 kHz)")
@@ -313,7 +413,7 @@ class LiveHost:
             raise AudioError(f"oversampling x{os_} is not offered", hint="use 1, 2, 4 or 8")
         self.oversample = os_
         self.source = source or LiveInput(0)
-        dflt = full_scale_peak_from_dbu(DEFAULT_FULL_SCALE_DBU)
+        from engine.levels import FULL_SCALE_V as dflt   # one calibration, every command
         self.in_fs_v = float(in_full_scale_v or dflt)
         self.out_fs_v = float(out_full_scale_v or dflt)
         self.level_db = float(level_db)
@@ -359,12 +459,14 @@ class LiveHost:
         self.tap_pos = 0
         # autosave
         self._autosave_default = autosave is None or autosave is True
+        self._autosaved: set[str] = set()
         if autosave is False:
             self.autosave_path = None
         elif autosave:
             self.autosave_path = Path(autosave)
         else:
-            self.autosave_path = config_dir() / "autosave" / f"{_stem(design)}.toml"
+            self.autosave_path = config_dir() / "autosave"
+        self._store = Autosaves(config_dir(), "console")
         self.meter = M.MeterReader(self.ring, self.fs, self.block, self.in_fs_v, self.out_fs_v,
                                    self.voices[0].probes,
                                    self.voices[1].probes if len(self.voices) > 1 else ())
@@ -377,7 +479,17 @@ class LiveHost:
         self._measure_dirty: set[int] = set()
         #: re-measure small-signal gain and quiescent control after edits here;
         #: a host in a process of its own leaves that to its parent
+        #: (engine.live.remote), which hands the figures over (set_measurement)
         self.measure_after_edits = True
+        self._coalesce: dict = {}
+        self._coalesce_lock = threading.Lock()
+        self._ramp_tokens: dict = {}
+        self._ramps_running: set = set()
+        self._autosave_dirty: set[int] = set()
+        self._autosave_lock = threading.Lock()
+        self._autosave_t = -1e9
+        self._recover_trips = 0
+        self._auto_recover = True
         self._measure_wake = threading.Event()
         self._measurer = threading.Thread(target=self._measure_loop,
                                           name="solderless-measure", daemon=True)
@@ -481,8 +593,10 @@ class LiveHost:
             vb = self.voices[1] if len(self.voices) > 1 else va
             if self.loudness_match:
                 pa, pb = va.loud.power, vb.loud.power
-                if pa > LOUDNESS_GATE_POWER * self.out_fs_v ** 2 and \
-                        pb > LOUDNESS_GATE_POWER * self.out_fs_v ** 2:
+                gate = LOUDNESS_GATE_POWER * self.out_fs_v ** 2
+                # both finite: an infinite power (a file of inf samples) must
+                # not reach log10 as inf/inf or x/inf (log of zero)
+                if gate < pa < math.inf and gate < pb < math.inf:
                     off = 10.0 * math.log10(pa / pb)
                     off = max(-MAX_MATCH_DB, min(MAX_MATCH_DB, off))
                     self.offset_db = off
@@ -664,8 +778,16 @@ class LiveHost:
         return fut
 
     def flush(self, timeout: float = 30.0) -> None:
-        """Wait until every posted edit has run."""
-        self._post(lambda: None).result(timeout)
+        """Wait until every posted edit (and pot ramp) has run, and write the
+        autosaves still pending."""
+        t_end = time.perf_counter() + timeout
+        for f in list(self._ramps_running):
+            try:
+                f.result(max(0.1, t_end - time.perf_counter()))
+            except Exception:
+                pass
+        self._post(lambda: None).result(max(0.1, t_end - time.perf_counter()))
+        self._autosave_pending(force=True)
 
     def _wait_blocks(self, k: int = 1, timeout: float = 0.25) -> None:
         """Wait (worker) until ``k`` more blocks have been processed, so a ramp
@@ -692,10 +814,12 @@ class LiveHost:
 
     def _after_edit(self, vi: int) -> None:
         self.edits += 1
-        self._autosave(vi)
-        if self.measure_after_edits:
-            self._measure_dirty.add(vi)
-            self._measure_wake.set()
+        self._auto_recover = True
+        self._autosave_dirty.add(vi)
+        self._autosave_pending()
+        self._measure_dirty.add(vi)
+        self._measure_wake.set()
+        self._recover_if_muted()
 
     def set_measurement(self, vi: int, gain_db: float | None, quiescent: float | None) -> None:
         """Take a small-signal gain and quiescent control value measured
@@ -710,34 +834,116 @@ class LiveHost:
             else:
                 self.meter.control_b = (v.control_index, quiescent)
 
+    AUTOSAVE_MIN_S = 0.25
+    """Autosaves are written at most this often during a burst of edits (the
+    last one of the burst is written by the measuring thread or by
+    :meth:`flush`); each write holds the GIL for a while."""
+
+    def _autosave_pending(self, force: bool = False) -> None:
+        """Write the autosaves of edited voices, unless one was written less
+        than ``AUTOSAVE_MIN_S`` ago (``force``: write now). Worker thread,
+        measuring thread or :meth:`flush`."""
+        with self._autosave_lock:
+            now = time.perf_counter()
+            if not self._autosave_dirty or (not force and
+                                            now - self._autosave_t < self.AUTOSAVE_MIN_S):
+                return
+            dirty, self._autosave_dirty = self._autosave_dirty, set()
+            self._autosave_t = now
+            for vi in sorted(dirty):
+                self._autosave(vi)
+
+    def _recover_if_muted(self) -> None:
+        """Worker thread, after an edit (and after a guard trip, see
+        :meth:`_measure_loop`): if the guard muted because the circuit went
+        NaN or ran away, rebuild each voice whose output is not sane from its
+        DC operating point at the current values and swap it in. The output
+        stage re-arms once the output has stayed sane for
+        ``limiter.REARM_S`` and ramps up from silence. A rebuild that fails
+        (no operating point) leaves the mute on and says why."""
+        if int(self.st[lim.S_GUARD]) not in (1, 2, 5) or not self._built:
+            return
+        self._recover_trips = int(self.st[lim.S_TRIPS])
+        for v in self.voices:
+            y = v.y[:self.block]
+            if np.all(np.isfinite(y)) and float(np.max(np.abs(y))) <= lim.RUNAWAY_V \
+                    and v.incoming is None:
+                continue
+            try:
+                sim = v.build()
+                v.warm(sim)
+            except SolderlessError as exc:
+                self.messages.put(f"{v.label}: output stays muted; the circuit has no "
+                                  f"operating point at these values ({exc})")
+                continue
+            if v.sim is None:
+                v.sim = sim
+                continue
+            self._wait_xfade(v)
+            v.xpos = 0.0
+            v.incoming = sim
+            self._wait_xfade(v)
+        self.messages.put("the circuit was restarted from its operating point; the "
+                          "output comes back (ramping up) once it stays sane")
+
+    def _wait_xfade(self, v: Voice) -> None:
+        """Wait (worker) until a swap in progress on ``v`` has finished."""
+        if v.incoming is None:
+            return
+        self._wait_blocks(int(lim.XFADE_S * self.fs / self.block) + 2, timeout=1.0)
+        if v.incoming is not None and time.perf_counter() - self._last_block_t > IDLE_S:
+            v.sim, v.incoming = v.incoming, None    # nothing is playing: swap now
+
     def _measure_loop(self) -> None:
         """Re-measure small-signal gain and quiescent control after edits, on
         its own thread so the edit queue never waits for it (debounced)."""
         while True:
-            self._measure_wake.wait()
+            woke = self._measure_wake.wait(0.5)
             if self._closing:
                 return
+            if not woke:
+                # a guard trip with no edit: try one restart
+                # (at most once between edits, so a circuit that runs away
+                # at its values is not rebuilt over and over)
+                if int(self.st[lim.S_GUARD]) in (1, 2, 5) and self._auto_recover and \
+                        int(self.st[lim.S_TRIPS]) != self._recover_trips and self._built:
+                    self._recover_trips = int(self.st[lim.S_TRIPS])
+                    self._auto_recover = False
+                    self._post(self._recover_if_muted)
+                self._autosave_pending()
+                continue
             time.sleep(0.2)                 # let a burst of edits finish
             self._measure_wake.clear()
+            self._autosave_pending(force=True)
             dirty, self._measure_dirty = self._measure_dirty, set()
+            if not self.measure_after_edits:
+                dirty = set()
             for vi in sorted(dirty):
                 try:
                     self._measure_voice(vi)
                 except Exception as exc:  # a measurement must never stop playing
                     self.messages.put(f"could not re-measure the small-signal gain: {exc}")
 
+    def _autosave_key(self, vi: int) -> tuple[str, str]:
+        d = self.voices[vi].design
+        stem = _stem(d) + ("-B" if vi == 1 else "")
+        return Autosaves.key(getattr(d, "path", None), stem) + ("B" if vi == 1 else ""), stem
+
     def _autosave_target(self, vi: int) -> Path | None:
         """Autosave file of voice ``vi``: the given path for A (with ``-B``
-        added for B), or ``config_dir()/autosave/<design>.toml``."""
+        added for B), or this session's console autosave in
+        ``config_dir()/autosave`` (:mod:`engine.autosave`)."""
         if self.autosave_path is None:
             return None
         if not self._autosave_default:
             p = self.autosave_path
             return p if vi == 0 else p.with_name(p.stem + "-B" + p.suffix)
-        stem = _stem(self.voices[vi].design)
-        if vi == 1 and stem == _stem(self.voices[0].design):
-            stem += "-B"
-        return self.autosave_path.parent / f"{stem}.toml"
+        key, stem = self._autosave_key(vi)
+        return self._store.path_for(key, stem)
+
+    def autosaved_paths(self) -> list[str]:
+        """The autosave files actually written this session."""
+        return sorted(self._autosaved)
 
     def autosave_paths(self) -> list[str]:
         """Where each voice's edits are autosaved (empty if autosave is off)."""
@@ -750,9 +956,16 @@ class LiveHost:
             return
         d = self.voices[vi].design
         try:
-            from engine.design import atomic_write_text
-            path.parent.mkdir(parents=True, exist_ok=True)
-            atomic_write_text(path, d.to_toml())
+            if self._autosave_default:
+                key, stem = self._autosave_key(vi)
+                self._store.write(d.to_toml(), key=key, name=stem,
+                                  origin=getattr(d, "path", None))
+                self._autosaved.add(str(path))
+            else:
+                from engine.design import atomic_write_text
+                path.parent.mkdir(parents=True, exist_ok=True)
+                atomic_write_text(path, d.to_toml())
+                self._autosaved.add(str(path))
         except (SolderlessError, OSError) as exc:
             self.messages.put(f"autosave of {self.voices[vi].label} failed ({exc}); "
                               "save with 'save PATH'")
@@ -764,96 +977,188 @@ class LiveHost:
         return i, self.voices[i]
 
     # ------------------------------------------------------------ edits (any thread)
-    def _post_part_edit(self, voice, edit) -> Future:
+    def _post_part_edit(self, voice, edit, part: str | None = None) -> Future:
         """Post an edit: ``edit(voice)`` (on the edit worker) changes the
         voice's design and returns (element changes, result); the changes
-        land at a block boundary with the state carried over."""
+        land at a block boundary with the state carried over. If the
+        simulator refuses the new values (a singular network), the part is
+        put back as it was, the previous values keep playing, and the error
+        names the part."""
         t_post = time.perf_counter()
 
         def job():
             i, v = self._voice(voice)
-            changes, result = edit(v)
-            self._apply(v, changes, t_post)
-            self._after_edit(i)
-            return result
+            return self._edit_part(i, v, edit, part, t_post)
         return self._post(job)
 
+    def _edit_part(self, i: int, v: Voice, edit, part: str | None, t_post) -> Any:
+        """Worker: run one part edit with the revert described above: if the
+        running circuit does not take it, the design (and so a later save)
+        must not keep an edit that was never heard."""
+        undo = _part_undo(v.design, part) if part else None
+        changes, result = edit(v)
+        try:
+            self._apply(v, changes, t_post)
+        except SolderlessError as exc:
+            if undo is not None:
+                undo()
+            raise DesignError(f"this value makes the circuit unsolvable ({exc.message}); "
+                              "the previous value keeps playing", part=part or exc.part,
+                              hint="choose another value") from None
+        except Exception:
+            if undo is not None:
+                undo()
+            raise
+        self._after_edit(i)
+        return result
+
     def set_value(self, part: str, value: float, voice=None) -> Future:
-        """Change a part's value (re-derive, lands at a block boundary)."""
-        return self._post_part_edit(voice, lambda v: (v.design.set_value(part, value), value))
+        """Change a part's value (re-derive, lands at a block boundary).
+
+        Coalesced: while an edit of the same part waits in the queue, a new
+        value replaces it (the latest value wins, one re-derivation), and
+        every caller's future gets the value that landed."""
+        key = (self.edit_voice if voice is None else voice, part)
+        fut: Future = Future()
+        with self._coalesce_lock:
+            ent = self._coalesce.get(key)
+            if ent is not None:
+                ent[0] = value
+                ent[1].append(fut)
+                return fut
+            ent = [value, [fut]]
+            self._coalesce[key] = ent
+        t_post = time.perf_counter()
+
+        def job():
+            with self._coalesce_lock:
+                if self._coalesce.get(key) is ent:
+                    del self._coalesce[key]
+                val, futs = ent[0], list(ent[1])
+            try:
+                i, v = self._voice(voice)
+                r = self._edit_part(i, v, lambda v: (v.design.set_value(part, val), val),
+                                    part, t_post)
+            except BaseException as exc:
+                for f in futs:
+                    if not f.done():
+                        f.set_exception(exc)
+                return None
+            for f in futs:
+                if not f.done():
+                    f.set_result(r)
+            return r
+        self._post(job)
+        return fut
 
     def step_value(self, part: str, steps: int = 1, series: str | None = None,
                    voice=None) -> Future:
         """Step a part's value ``steps`` places through an E-series (IEC
-        60063; default E24, or E12 for capacitors). Result: the new value."""
+        60063; default E24 for resistors, E12 for capacitors, and E3 - 1,
+        2.2, 4.7 per decade - for pots, the values pots are commonly made in,
+        from memory). Result: the new value."""
         from engine.values import step_preferred
 
         def edit(v):
             info = self.part_info(part, voice)
             if info.value is None or not info.value > 0:
                 raise DesignError("this part has no positive value to step", part=part)
-            ser = series or ("E12" if info.type == "capacitor" else "E24")
+            ser = series or POT_SERIES if info.type == "pot" else \
+                series or ("E12" if info.type == "capacitor" else "E24")
             new = step_preferred(info.value, ser, steps)
             return v.design.set_value(part, new), new
-        return self._post_part_edit(voice, edit)
+        return self._post_part_edit(voice, edit, part)
 
     def set_rotation(self, pot: str, rotation: float, voice=None,
                      ramp_s: float = 0.030) -> Future:
         """Turn a pot to ``rotation`` (0..1), ramping over ``ramp_s`` seconds
-        in block-sized steps so the move does not click."""
-        t_post = time.perf_counter()
+        in block-sized steps so the move does not click.
 
-        def job():
+        The ramp runs in the background: this returns at once, each step is
+        a short job on the edit worker (other edits interleave), and a newer
+        turn of the same pot takes over from wherever the ramp has got to.
+        The future's result is the rotation reached."""
+        fut: Future = Future()
+        try:
             i, v = self._voice(voice)
             info = self.part_info(pot, voice)
             if not info.is_pot:
                 raise DesignError("only a pot can be turned", part=pot,
                                   hint="use 'value' or 'up'/'down' for other parts")
-            r0 = float(info.rotation if info.rotation is not None else 0.5)
             r1 = float(rotation)
             if not 0.0 <= r1 <= 1.0:
                 raise DesignError(f"rotation must be from 0 to 1, not {rotation}", part=pot)
-            self._ramp_pot(v, pot, r0, r1, ramp_s, t_post)
-            self._after_edit(i)
-            return r1
-        return self._post(job)
+        except SolderlessError as exc:
+            fut.set_exception(exc)
+            return fut
+        key = (i, pot)
+        token = object()
+        self._ramp_tokens[key] = token
+        t_post = time.perf_counter()
+        self._ramps_running.add(fut)
 
-    def _ramp_pot(self, v: Voice, pot: str, r0: float, r1: float, ramp_s: float,
-                  t_post: float | None = None) -> None:
-        """Move a pot from ``r0`` to ``r1`` one block at a time (worker thread).
+        def run():
+            try:
+                fut.set_result(self._ramp_pot_bg(v, i, pot, r1, ramp_s, t_post,
+                                                 lambda: self._ramp_tokens.get(key) is token))
+            except BaseException as exc:
+                fut.set_exception(exc)
+            finally:
+                self._ramps_running.discard(fut)
+        threading.Thread(target=run, name="solderless-ramp", daemon=True).start()
+        return fut
 
-        Each step changes every element of the pot by at most ``MAX_POT_REL``
-        of the pot's total and the rotation by at most ``MAX_POT_STEP``; the steps are
-        spread over at least ``ramp_s`` seconds. The step is found by halving
-        (a taper can be steep near an end)."""
+    def _ramp_pot_bg(self, v: Voice, i: int, pot: str, r1: float, ramp_s: float,
+                     t_post: float, current: Callable[[], bool]) -> float:
+        """Ramp thread: post one step at a time to the worker, wait two
+        blocks between steps (a step handed over while a block runs may
+        miss it; the next one surely uses it), stop early when a newer
+        turn of the pot took over. Returns the rotation reached."""
+        def rot():
+            r = self.part_info(pot, "AB"[i]).rotation
+            return float(r if r is not None else 0.5)
+        r0 = self._post(rot).result(30)
         min_steps = max(1, int(math.ceil(ramp_s * self.fs / self.block)))
         max_dr = min(MAX_POT_STEP, abs(r1 - r0) / min_steps) if r1 != r0 else 0.0
-        prev = v.design.set_rotation(pot, r0)
         r = r0
-        for _ in range(MAX_RAMP_STEPS):
-            if r == r1:
+        for k in range(MAX_RAMP_STEPS + 1):
+            if r == r1 or not current():
                 break
-            dr = min(max_dr, abs(r1 - r))
-            while True:
-                rn = r1 if dr >= abs(r1 - r) else r + math.copysign(dr, r1 - r)
-                ch = v.design.set_rotation(pot, rn)
-                total = sum(abs(x) for x in ch.values()) or 1.0
-                worst = max((abs(ch[k] - prev[k]) / total for k in ch if k in prev),
-                            default=0.0)
-                if worst <= MAX_POT_REL or dr < 1e-6:
-                    break
-                dr *= 0.5
-            self._apply(v, ch, t_post)
-            t_post = None
-            prev, r = ch, rn
+            last = k == MAX_RAMP_STEPS      # step budget spent: land on the target
+            r = self._post(lambda tp=(t_post if k == 0 else None), last=last:
+                           self._ramp_step(v, pot, r1, max_dr, tp, last)).result(30)
             if r != r1:
-                # two blocks: the block running when this step was handed
-                # over may have started before it; the next one surely uses
-                # it. Waiting only one lets a late step replace this one
-                # unheard, doubling the step that reaches the output.
                 self._wait_blocks(2)
-        if r != r1:                     # step budget spent: land on the target
-            self._apply(v, v.design.set_rotation(pot, r1))
+        self._post(lambda: self._after_edit(i)).result(30)
+        return r
+
+    def _ramp_step(self, v: Voice, pot: str, r1: float, max_dr: float,
+                   t_post: float | None, last: bool) -> float:
+        """Worker: one step of a pot ramp from the pot's present rotation
+        towards ``r1`` (each element moves by at most ``MAX_POT_REL`` of the
+        pot's total, found by halving the step). Returns the new rotation."""
+        info = self.part_info(pot, v.label)
+        r = float(info.rotation if info.rotation is not None else 0.5)
+        prev = v.design.set_rotation(pot, r)
+        if last:
+            self._apply(v, v.design.set_rotation(pot, r1), t_post)
+            return r1
+        dr = min(max_dr, abs(r1 - r)) if max_dr > 0 else abs(r1 - r)
+        while True:
+            rn = r1 if dr >= abs(r1 - r) else r + math.copysign(dr, r1 - r)
+            ch = v.design.set_rotation(pot, rn)
+            total = sum(abs(x) for x in ch.values()) or 1.0
+            worst = max((abs(ch[k] - prev[k]) / total for k in ch if k in prev),
+                        default=0.0)
+            if worst <= MAX_POT_REL or dr < 1e-6:
+                break
+            dr *= 0.5
+        try:
+            self._apply(v, ch, t_post)
+        except SolderlessError:
+            v.design.set_rotation(pot, r)
+            raise
+        return rn
 
     def set_taper(self, pot: str, taper, voice=None) -> Future:
         """Change a pot's taper ("linear", "audio", "reverse-audio" or a table
@@ -863,7 +1168,7 @@ class LiveHost:
         def edit(v):
             changes = v.design.set_taper(pot, taper)
             return changes, v.design.part(pot).taper
-        return self._post_part_edit(voice, edit)
+        return self._post_part_edit(voice, edit, pot)
 
     def set_bypass(self, stage: str, on: bool, voice=None) -> Future:
         """Bypass a stage (or bring it back): rebuild the simulator and swap it
@@ -890,9 +1195,41 @@ class LiveHost:
             return v.build_time_s
         return self._post(job)
 
+    def set_model(self, part: str, model: str, voice=None) -> Future:
+        """Give a device part another library model (swap clipping diodes, a
+        transistor ...): rebuild the simulator and crossfade to it, as a
+        bypass does. Result: the model name as stored."""
+        def job():
+            i, v = self._voice(voice)
+            old = v.design.part(part).model
+            undo = _part_model_undo(v.design, part)
+            v.design.set_model(part, model)
+            try:
+                sim = v.build()
+            except SolderlessError:
+                undo()
+                raise
+            v.warm(sim)
+            if v.sim is None:
+                v.sim = sim
+            else:
+                v.xpos = 0.0
+                v.incoming = sim
+                self._wait_blocks(int(lim.XFADE_S * self.fs / self.block) + 2, timeout=1.0)
+            self._after_edit(i)
+            return v.design.part(part).model if old is not None else model
+        return self._post(job)
+
     def save(self, path: str | os.PathLike | None = None, voice=None) -> Future:
         """Save a design atomically (to its own file unless ``path`` is given).
-        Result: the path written."""
+        Result: the path written. Pot ramps still running finish first, so
+        a turn typed before 'save' is saved at its target."""
+        for f in list(self._ramps_running):
+            try:
+                f.result(30)
+            except Exception:
+                pass
+
         def job():
             i, v = self._voice(voice)
             target = path or getattr(v.design, "path", None)
@@ -901,6 +1238,10 @@ class LiveHost:
                 target = Path.cwd() / Path(target).name
             if target is None:
                 target = Path.cwd() / f"{_stem(v.design)}.toml"
+            old = getattr(v.design, "path", None)
+            if hasattr(v.design, "become_variant") and (
+                    old is None or Path(target).resolve() != Path(old).resolve()):
+                v.design.become_variant(target)      # its own name and notes
             return v.design.save(target)
         return self._post(job)
 
@@ -908,9 +1249,19 @@ class LiveHost:
     def part_info(self, part: str, voice=None):
         """PartInfo of ``part`` in the edited (or given) voice."""
         _, v = self._voice(voice)
-        for p in v.design.parts():
+        infos = v.design.parts()
+        for p in infos:
             if p.qualname == part:
                 return p
+        if getattr(v.design, "netlist", None) is not None:
+            # a netlist design's parts answer to any case and to 'netlist.X'
+            try:
+                obj = v.design.part(part)
+            except SolderlessError:
+                obj = None
+            for p in infos:
+                if obj is not None and p.name == obj.name:
+                    return p
         names = [p.qualname for p in v.design.parts()]
         import difflib
         close = difflib.get_close_matches(part, names, n=3)
@@ -940,8 +1291,12 @@ class LiveHost:
         self.prm[lim.P_AB_TARGET] = float(i)
 
     def set_level_db(self, db: float) -> None:
-        """Output level in dB (smoothed on the audio thread)."""
-        self.level_db = float(db)
+        """Output level in dB (smoothed on the audio thread). A non-finite or
+        out-of-range level raises AudioError and the level stays as it was
+        (:func:`engine.live.limits.check_level_db`)."""
+        from engine.live.limits import check_level_db
+        db = check_level_db(db)
+        self.level_db = db
         self.prm[lim.P_LEVEL] = 10.0 ** (db / 20.0) / self.out_fs_v
 
     @property
@@ -1012,6 +1367,8 @@ class LiveHost:
         snap["blocks"] = self.blocks
         snap["selected"] = "AB"[self.selected]
         snap["guard"] = self.guard_reason
+        snap["guard_trips"] = int(self.st[lim.S_TRIPS])
+        snap["guard_rearms"] = int(self.st[lim.S_REARMS])
         snap["nonconverged"] = sum(int((getattr(v.sim, "stats", None) or {}).get("nonconverged", 0))
                                    for v in self.voices if v.sim is not None)
         return snap

@@ -5,8 +5,11 @@ Per sample, in this order:
 
 1. **Guard** on the circuit's output volts: NaN/inf (reason 1) or a magnitude
    above the runaway limit (reason 2, default 100 V: no pedal on 9-18 V rails
-   can put that out; common practice) mutes at once and latches until
-   :func:`reset_guard`.
+   can put that out; common practice) mutes at once. While muted for reason
+   1, 2 or 5 the guard watches the circuit: once both voices' outputs have
+   been finite and inside the runaway limit for ``REARM_S`` it re-arms by
+   itself, and the output ramps up from silence (start-up ramp). Reason 3
+   latches until :func:`reset_guard` (the user's ``unmute``).
 2. **Mix** A and B with a linear crossfade (the two signals are correlated, so
    a linear fade keeps the level; common practice), each scaled by its
    loudness-match gain (smoothed with a one-pole, ~50 ms).
@@ -20,6 +23,11 @@ Per sample, in this order:
 5. **Limiter**: instant attack (gain never above ceiling / |x|, so the output
    cannot exceed the ceiling), exponential release (time constant
    ``RELEASE_S``). A final clamp at the ceiling is kept as a second line.
+6. **Device guard**: the sample about to go to the sound card must be finite
+   and within the ceiling, and the ceiling itself must be in (0, 1]; anything
+   else (a corrupted level or ceiling parameter, NaN through the mix) mutes
+   with reason 5 instead of reaching the device. So every sample the host
+   hands to the device is finite and at most the ceiling, by construction.
 
 All state lives in float64 arrays owned by the host; nothing is allocated.
 """
@@ -37,14 +45,17 @@ FULL_SCALE_HOLD_S = 1.0
 RUNAWAY_V = 100.0
 DEFAULT_CEILING_DBFS = -6.0
 XFADE_S = 0.020
+REARM_S = 0.5
+"""Sane circuit output needed before a guard mute (reasons 1, 2, 5) re-arms."""
 
 # state slots
-S_LEVEL, S_AB, S_LIM, S_MS, S_FS_RUN, S_GUARD, S_GA, S_GB = range(8)
-N_STATE = 8
+S_LEVEL, S_AB, S_LIM, S_MS, S_FS_RUN, S_GUARD, S_GA, S_GB, S_SANE, S_REARMS, \
+    S_TRIPS = range(11)
+N_STATE = 11
 # parameter slots
 (P_LEVEL, P_LEVEL_COEF, P_AB_TARGET, P_AB_STEP, P_CEILING, P_REL_COEF,
- P_RUNAWAY, P_FS_LIMIT, P_MS_COEF, P_GA, P_GB, P_GAIN_COEF) = range(12)
-N_PARAMS = 12
+ P_RUNAWAY, P_FS_LIMIT, P_MS_COEF, P_GA, P_GB, P_GAIN_COEF, P_REARM) = range(13)
+N_PARAMS = 13
 
 
 def make_state() -> np.ndarray:
@@ -59,7 +70,13 @@ def make_state() -> np.ndarray:
 def make_params(fs: float, out_full_scale_v: float, level_db: float = 0.0,
                 ceiling_dbfs: float = DEFAULT_CEILING_DBFS,
                 runaway_v: float = RUNAWAY_V) -> np.ndarray:
-    """Parameter vector for :func:`output_stage` (see module docstring)."""
+    """Parameter vector for :func:`output_stage` (see module docstring).
+    Level and ceiling are checked (:mod:`engine.live.limits`): a non-finite
+    or out-of-range value raises AudioError."""
+    from engine.live.limits import check_ceiling_dbfs, check_level_db, check_rate
+    fs = check_rate(fs)
+    level_db = check_level_db(level_db)
+    ceiling_dbfs = check_ceiling_dbfs(ceiling_dbfs)
     p = np.zeros(N_PARAMS)
     p[P_LEVEL] = 10.0 ** (level_db / 20.0) / out_full_scale_v
     p[P_LEVEL_COEF] = 1.0 - math.exp(-1.0 / (LEVEL_TAU_S * fs))
@@ -73,6 +90,7 @@ def make_params(fs: float, out_full_scale_v: float, level_db: float = 0.0,
     p[P_GA] = 1.0
     p[P_GB] = 1.0
     p[P_GAIN_COEF] = 1.0 - math.exp(-1.0 / (GAIN_TAU_S * fs))
+    p[P_REARM] = REARM_S * fs
     return p
 
 
@@ -87,15 +105,42 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
     Returns the deepest limiter gain in the block (linear, <= 1).
     """
     ceiling = p[P_CEILING]
+    if not (ceiling > 0.0 and ceiling <= 1.0):
+        # a corrupted ceiling: nothing can be trusted to the device
+        if st[S_GUARD] != 5.0:
+            st[S_TRIPS] += 1.0
+        st[S_GUARD] = 5.0
+        st[S_SANE] = 0.0
+        st[S_LEVEL] = 0.0
+        for i in range(n):
+            mixv[i] = 0.0
+            out[i] = 0.0
+        return 0.0
     gmin = 1.0
     for i in range(n):
         a = ya[i]
         b = yb[i]
-        if st[S_GUARD] == 0.0:
-            if not (np.isfinite(a) and np.isfinite(b)):
-                st[S_GUARD] = 1.0
-            elif abs(a) > p[P_RUNAWAY] or abs(b) > p[P_RUNAWAY]:
-                st[S_GUARD] = 2.0
+        sane = np.isfinite(a) and np.isfinite(b) and abs(a) <= p[P_RUNAWAY] \
+            and abs(b) <= p[P_RUNAWAY]
+        g0 = st[S_GUARD]
+        if g0 == 0.0 and not sane:
+            st[S_GUARD] = 1.0 if not (np.isfinite(a) and np.isfinite(b)) else 2.0
+            st[S_TRIPS] += 1.0
+            st[S_SANE] = 0.0
+        elif g0 == 1.0 or g0 == 2.0 or g0 == 5.0:
+            # muted by the circuit (or a bad sample): re-arm once it is sane
+            if sane:
+                st[S_SANE] += 1.0
+                if st[S_SANE] >= p[P_REARM]:
+                    st[S_GUARD] = 0.0
+                    st[S_SANE] = 0.0
+                    st[S_LEVEL] = 0.0       # ramp up again from silence
+                    st[S_MS] = 0.0
+                    st[S_FS_RUN] = 0.0
+                    st[S_LIM] = 1.0
+                    st[S_REARMS] += 1.0
+            else:
+                st[S_SANE] = 0.0
         if st[S_GUARD] != 0.0:
             mixv[i] = 0.0
             out[i] = 0.0
@@ -122,6 +167,7 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
             st[S_FS_RUN] += 1.0
             if st[S_FS_RUN] > p[P_FS_LIMIT]:
                 st[S_GUARD] = 3.0
+                st[S_TRIPS] += 1.0
                 out[i] = 0.0
                 continue
         else:
@@ -132,6 +178,8 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
         mag = abs(s)
         if mag * g > ceiling:
             g = ceiling / mag
+        if not (g >= 0.0 and g <= 1.0):     # NaN or inf through level or mix
+            g = 0.0
         st[S_LIM] = g
         if g < gmin:
             gmin = g
@@ -140,6 +188,17 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
             o = ceiling
         elif o < -ceiling:
             o = -ceiling
+        # device guard: nothing non-finite or beyond the ceiling leaves here
+        if not (abs(o) <= ceiling):
+            st[S_GUARD] = 5.0
+            st[S_TRIPS] += 1.0
+            st[S_SANE] = 0.0
+            st[S_LEVEL] = 0.0
+            st[S_MS] = 0.0
+            st[S_LIM] = 1.0
+            mixv[i] = 0.0
+            out[i] = 0.0
+            continue
         out[i] = o
     return gmin
 
@@ -147,10 +206,14 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
 @numba.njit(nogil=True, cache=True)
 def crossfade_into(y_old, y_new, n, pos, step):  # pragma: no cover - compiled
     """Linear fade from ``y_old`` to ``y_new`` written into ``y_new``; returns
-    the new position (1.0 when done). Used to swap a rebuilt circuit in."""
+    the new position (1.0 when done). Used to swap a rebuilt circuit in.
+    A non-finite old sample is left out (the new circuit alone), so a rebuilt
+    circuit can replace one that went NaN without carrying the NaN over."""
     for i in range(n):
         pos = min(1.0, pos + step)
-        y_new[i] = (1.0 - pos) * y_old[i] + pos * y_new[i]
+        o = y_old[i]
+        if np.isfinite(o):
+            y_new[i] = (1.0 - pos) * o + pos * y_new[i]
     return pos
 
 
@@ -160,4 +223,5 @@ def reset_guard(st: np.ndarray) -> None:
     st[S_MS] = 0.0
     st[S_FS_RUN] = 0.0
     st[S_LIM] = 1.0
+    st[S_SANE] = 0.0
     st[S_GUARD] = 0.0

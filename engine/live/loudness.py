@@ -19,7 +19,7 @@ table itself, to rounding.
 
 Gated integrated loudness (BS.1770-4 Annex 1): mean square of the K-weighted
 signal over 400 ms blocks with 75 % overlap, L = -0.691 + 10 log10(sum G_i z_i),
-absolute gate -70 LKFS, then a relative gate 10 LU below the loudness of the
+absolute gate -70 LUFS, then a relative gate 10 LU below the loudness of the
 blocks that passed the absolute gate.
 
 The running meter (:class:`RunningLoudness`) keeps K-filter state across
@@ -129,7 +129,7 @@ def block_powers(x: np.ndarray, fs: float) -> np.ndarray:
 
 def integrated_loudness(x: np.ndarray, fs: float,
                         weights: tuple[float, ...] | None = None) -> float:
-    """Gated integrated loudness in LKFS (= LUFS) per ITU-R BS.1770-4.
+    """Gated integrated loudness in LUFS (LKFS in the standard's words) per ITU-R BS.1770-4.
 
     x : full-scale-relative samples, shape (n,) or (n, channels) in the
     channel order L, R, C, Ls, Rs. Returns -inf for silence or a signal
@@ -179,7 +179,7 @@ def _k_power_block(x, sos, zi, avg, alpha):  # pragma: no cover - compiled
 
 
 class RunningLoudness:
-    """Running K-weighted loudness of one mono stream (LKFS, ungated).
+    """Running K-weighted loudness of one mono stream (LUFS, ungated).
 
     ``process(block)`` runs on the audio thread (compiled, no allocation);
     ``lkfs`` may be read from any thread. The average is a one-pole integrator
@@ -212,6 +212,6 @@ class RunningLoudness:
 
     @property
     def lkfs(self) -> float:
-        """Current loudness, LKFS; -inf while silent."""
+        """Current loudness, LUFS; -inf while silent."""
         p = self.avg[0]
         return -0.691 + 10.0 * math.log10(p) if p > 1e-20 else float("-inf")

@@ -52,7 +52,16 @@ GUARD_REASONS = {
     1: "the circuit output became NaN or infinite",
     2: "the circuit output ran away beyond the runaway limit",
     3: "the output sat at full scale for too long",
+    4: "the audio callback failed",
+    5: "a sample for the sound card was not finite or above the ceiling",
 }
+
+
+def _max_nan(a: float, b: float) -> float:
+    """max() that keeps a NaN once seen (Python's max drops it by order)."""
+    if a != a or b != b:
+        return math.nan
+    return max(a, b)
 
 
 def dbu_to_vrms(dbu: float) -> float:
@@ -61,26 +70,51 @@ def dbu_to_vrms(dbu: float) -> float:
 
 
 def vrms_to_dbu(v: float) -> float:
-    """Level in dBu of ``v`` volts RMS."""
-    return 20.0 * math.log10(v / DBU_REF_VRMS) if v > 0 else FLOOR_DB
+    """Level in dBu of ``v`` volts RMS (NaN for NaN, inf for inf)."""
+    return to_db(v / DBU_REF_VRMS)
 
 
 def to_db(x: float) -> float:
-    """20 log10(x), floored at ``FLOOR_DB`` for zero or negative input."""
+    """20 log10(x), floored at ``FLOOR_DB`` for zero or negative input. NaN
+    stays NaN and infinity stays infinity: a meter never shows an invalid
+    signal as silence."""
+    if x != x:
+        return math.nan
+    if x == math.inf:
+        return math.inf
     return 20.0 * math.log10(x) if x > 1e-300 else FLOOR_DB
+
+
+def fmt_db(x, width: int = 6, floor: float = -149.0) -> str:
+    """A dB reading for the terminal: ``NaN`` for an invalid signal,
+    ``+inf`` for an infinite one, ``-inf`` at the floor."""
+    if x is not None and x != x:
+        return "NaN".rjust(width)
+    if x == math.inf:
+        return "+inf".rjust(width)
+    if x is None or x <= floor:
+        return "-inf".rjust(width)
+    return f"{x:{width}.1f}"
 
 
 @numba.njit(nogil=True, cache=True)
 def peak_ms(x, n):  # pragma: no cover - compiled
-    """Peak absolute value and mean square of ``x[:n]``."""
+    """Peak absolute value and mean square of ``x[:n]``. A NaN sample makes
+    both NaN (an infinite one, both infinite), so the meters show it."""
     pk = 0.0
     acc = 0.0
+    bad = False
     for i in range(n):
         v = x[i]
+        if v != v:
+            bad = True
+            continue
         a = abs(v)
         if a > pk:
             pk = a
         acc += v * v
+    if bad:
+        return np.nan, np.nan
     return pk, acc / max(n, 1)
 
 
@@ -148,6 +182,7 @@ class _Session:
         self.ctl_max: list[float | None] = [None, None]
         self.cpu = np.zeros(1 << 16)
         self.n_cpu = 0
+        self.invalid_blocks: dict[str, int] = {}
 
     def feed_cpu(self, c: float) -> None:
         self.cpu[self.n_cpu % self.cpu.shape[0]] = c
@@ -183,10 +218,18 @@ class _Ballistics:
         self.hold_db = FLOOR_DB
         self.age = 0.0
         self.last_peak = 0.0
+        self.invalid_age = math.inf     # seconds since the last NaN/inf block
 
     def feed(self, peak: float, ms: float, dt: float) -> None:
-        self.msq.append(ms)
         self.last_peak = peak
+        if not (math.isfinite(peak) and math.isfinite(ms)):
+            # an invalid block: shown as such for the hold time, kept out of
+            # the running figures so they recover once the signal is valid
+            self.invalid_age = 0.0
+            self.msq.append(0.0)
+            return
+        self.invalid_age += dt
+        self.msq.append(ms)
         p_db = to_db(peak)
         if p_db >= self.hold_db:
             self.hold_db = p_db
@@ -197,13 +240,29 @@ class _Ballistics:
                 self.hold_db = max(p_db, self.hold_db - PEAK_FALL_DB_PER_S * dt)
 
     @property
+    def invalid(self) -> bool:
+        """True while a NaN or infinite block is within the peak hold time."""
+        return self.invalid_age <= PEAK_HOLD_S
+
+    @property
     def rms(self) -> float:
-        return math.sqrt(sum(self.msq) / len(self.msq)) if self.msq else 0.0
+        """Windowed RMS (linear); NaN while :attr:`invalid`."""
+        if self.invalid:
+            return math.nan
+        return math.sqrt(max(0.0, sum(self.msq) / len(self.msq))) if self.msq else 0.0
 
     @property
     def peak(self) -> float:
-        """Displayed peak (linear), with hold and fall applied."""
-        return 10.0 ** (self.hold_db / 20.0) if self.hold_db > FLOOR_DB else 0.0
+        """Displayed peak (linear), with hold and fall applied; NaN while
+        :attr:`invalid`."""
+        if self.invalid:
+            return math.nan
+        if self.hold_db <= FLOOR_DB:
+            return 0.0
+        try:
+            return 10.0 ** (self.hold_db / 20.0)
+        except OverflowError:       # a peak within a hair of the float maximum
+            return math.inf
 
 
 class MeterReader:
@@ -263,6 +322,10 @@ class MeterReader:
         frames, self.since, lost = self.ring.read_new(self.since)
         self.lost += lost
         for f in frames:
+            # Python floats: arithmetic on a runaway reading (1e300 A of
+            # control current times 1e6) gives inf quietly instead of a numpy
+            # overflow RuntimeWarning on stderr
+            f = f.tolist()
             self.frames_seen += 1
             self.inp.feed(f[C_IN_PEAK], f[C_IN_MS], self.dt)
             self.out.feed(f[C_OUT_PEAK], f[C_OUT_MS], self.dt)
@@ -273,9 +336,13 @@ class MeterReader:
             self.cpu_sum += f[C_CPU]
             self.limit_gr_min = min(self.limit_gr_min, f[C_LIMIT_GR])
             ss = self.session
-            ss.in_peak = max(ss.in_peak, f[C_IN_PEAK])
-            ss.out_peak = max(ss.out_peak, f[C_OUT_PEAK])
-            ss.dac_peak = max(ss.dac_peak, f[C_DAC_PEAK])
+            ss.in_peak = _max_nan(ss.in_peak, f[C_IN_PEAK])
+            ss.out_peak = _max_nan(ss.out_peak, f[C_OUT_PEAK])
+            ss.dac_peak = _max_nan(ss.dac_peak, f[C_DAC_PEAK])
+            for c, k in ((C_IN_PEAK, "input"), (C_OUT_PEAK_A, "output"),
+                         (C_OUT_PEAK_B, "output"), (C_DAC_PEAK, "device")):
+                if not math.isfinite(f[c]):
+                    ss.invalid_blocks[k] = ss.invalid_blocks.get(k, 0) + 1
             ss.feed_cpu(f[C_CPU])
             for v, ctl, off in ((0, self.control_a, 0),
                                 (1, self.control_b, len(self.names_a))):
@@ -302,6 +369,7 @@ class MeterReader:
             "output_peak_dbfs": to_db(ss.dac_peak),
             "xruns": 0 if f is None else int(f[C_XRUNS]),
             "cpu_load": ss.cpu_stats(),
+            "invalid_blocks": dict(ss.invalid_blocks),
             "voices": {},
         }
         for v in (0, 1):
@@ -314,7 +382,17 @@ class MeterReader:
         return out
 
     def _gr(self, voice: int) -> tuple[float | None, float | None, float | None]:
+        """(control, gain reduction from the control, measured gain
+        reduction). Only a design that declares a control (``[meters]
+        control``) has them: a booster has no gain reduction to show. Both
+        read 0 dB at rest: the control against its resting value, the
+        measured one against the small-signal gain at the resting control;
+        the measured one is capped at 0 dB (a level above the resting gain
+        is the signal's spectrum against the 1 kHz reference, not a gain
+        reduction)."""
         ctl = self.control_a if voice == 0 else self.control_b
+        if ctl is None:
+            return None, None, None
         gr_ctl = None
         cur = None
         hist = self.control_hist[voice]
@@ -328,7 +406,7 @@ class MeterReader:
         out = self.out_a if voice == 0 else self.out_b
         rin, rout = self.inp.rms, out.rms
         if g is not None and rin > 1e-6 and rout > 0:
-            gr_meas = 20.0 * math.log10(rout / rin) - g
+            gr_meas = min(0.0, 20.0 * math.log10(rout / rin) - g)
         return cur, gr_ctl, gr_meas
 
     def snapshot(self) -> dict:
@@ -344,14 +422,19 @@ class MeterReader:
                 "peak_dbfs": to_db(self.inp.peak / self.in_fs_v),
                 "rms_dbfs": to_db(self.inp.rms * s2 / self.in_fs_v),
                 "rms_dbu": vrms_to_dbu(self.inp.rms),
+                "invalid": self.inp.invalid,
             },
             "output": {
                 "peak_v": self.out.peak, "rms_v": self.out.rms,
                 "rms_dbu": vrms_to_dbu(self.out.rms),
-                "peak_dbfs": to_db(self.dac.peak),
-                "rms_dbfs": to_db(self.dac.rms * s2),
+                # NaN while the circuit's output is invalid, even though the
+                # device then gets silence from the guard: never a quiet floor
+                "peak_dbfs": math.nan if self.out.invalid else to_db(self.dac.peak),
+                "rms_dbfs": math.nan if self.out.invalid else to_db(self.dac.rms * s2),
                 "limiter_gr_db": 0.0 if f is None else float(f[C_LIMIT_GR]),
                 "limiter_gr_db_max": self.limit_gr_min,
+                "invalid": self.out.invalid or self.out_a.invalid or self.out_b.invalid
+                or self.dac.invalid,
             },
             "cpu_load": 0.0 if f is None else float(f[C_CPU]),
             "cpu_load_max": self.cpu_max,

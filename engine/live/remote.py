@@ -37,7 +37,7 @@ from engine.errors import AudioError, SolderlessError
 #: Methods of LiveHost a HostProcess may call; those returning a Future are
 #: answered when the Future is done (edits land through the child's mailbox).
 ALLOWED = {"start", "start_paced", "stop", "set_value", "step_value", "set_rotation",
-           "set_taper", "set_bypass", "save", "select", "set_level_db", "unmute",
+           "set_taper", "set_bypass", "set_model", "save", "select", "set_level_db", "unmute",
            "latency", "part_info", "prepare", "flush"}
 #: Requests served by the child loop itself.
 EXTRA = {"parts", "state", "meter_setup", "set_source", "edit_landings", "host_meters",

@@ -118,6 +118,10 @@ class WavLoop(LoopSource):
             raise AudioError("the audio file is empty", file=self.path)
         ch = min(self.channel, data.shape[1] - 1)
         x = data[:, ch]
+        bad = ~np.isfinite(x)
+        if bad.any():   # NaN/inf samples: silence them (a converter cannot make them)
+            x = np.where(bad, 0.0, x)
+            self.label += f" ({int(bad.sum())} NaN/inf samples set to 0)"
         if int(rate) != int(fs):
             g = math.gcd(int(rate), int(fs))
             x = resample_poly(x, int(fs) // g, int(rate) // g)

@@ -20,6 +20,18 @@ from engine.errors import DesignError
 from engine.solver.dcop import solve_dc
 from engine.solver.mna import Network
 
+#: The frequency range ``solderless ac`` and the workbench use by default:
+#: 10 Hz to 40 kHz (the audio band and an octave above it, where a stage
+#: that peaks or rings shows), log-spaced.
+DEFAULT_FMIN_HZ = 10.0
+DEFAULT_FMAX_HZ = 40e3
+DEFAULT_POINTS = 200
+
+
+def default_frequencies() -> np.ndarray:
+    """The default frequency grid (Hz): DEFAULT_POINTS log-spaced points."""
+    return np.geomspace(DEFAULT_FMIN_HZ, DEFAULT_FMAX_HZ, DEFAULT_POINTS)
+
 
 def ac_response(circuit: Circuit | Network, freqs, values: dict | None = None):
     """Frequency response from the input source to the output, and Zin.

@@ -122,7 +122,7 @@ class OperatingPoint:
         the first node).
     devices : {device: {quantity: value, "region": str}}.
     warnings : human-readable warnings (saturated/cut-off transistors,
-        device outputs within 0.3 V of a supply rail).
+        device outputs within 0.3 V of a supply rail, ratings exceeded).
     """
     nets: dict[str, float]
     devices: dict[str, dict]
@@ -165,6 +165,8 @@ def report(net: Network, sol: DCSolution, values: dict[str, float]) -> Operating
                 rails[a] = vnet(a)
             elif a == GROUND and b != GROUND:
                 rails[b] = vnet(b)
+    from engine.analysis import regions as R
+    ratings = getattr(net.circuit, "ratings", None) or {}
     devices, warnings = {}, []
     for el, mod, lay, po in net.devices:
         n = len(lay.ports)
@@ -173,27 +175,26 @@ def report(net: Network, sol: DCSolution, values: dict[str, float]) -> Operating
         d = {}
         for q, (ci, cv) in lay.probes.items():
             d[q] = float(sum(c * i[k] for k, c in ci.items()) + sum(c * v[k] for k, c in cv.items()))
-        d["region"] = mod.region(lay.par, v, i)
         Gb = sol.G[po:po + n, po:po + n]
         if el.kind == "Q":
             d["gm"] = float(Gb[1, 0])
             d["beta"] = d["ic"] / d["ib"] if d["ib"] != 0 else float("nan")
-            if d["region"] in ("saturated", "cut-off"):
-                warnings.append(f"{el.name}: transistor is {d['region']} at the operating point")
             out_net = el.nodes[0]
         elif el.kind == "J":
             d["gm"] = float(Gb[1, 0])
-            if d["region"] == "cut-off":
-                warnings.append(f"{el.name}: JFET is cut off at the operating point")
             out_net = el.nodes[0]
         elif el.kind in ("OPAMP", "OTA"):
             out_net = el.nodes[2]
-            if el.kind == "OPAMP" and d["region"] != "linear":
-                warnings.append(f"{el.name}: op-amp output is {d['region']} at the operating point")
-            if el.kind == "OTA" and d["region"] != "on":
-                warnings.append(f"{el.name}: OTA is {d['region']} at the operating point")
         else:
             out_net = None
+        # one classifier for op, the workbench and the demo (regions.py)
+        d["region"] = R.classify(el.kind, d, el.params or {}, mod.region(lay.par, v, i),
+                                 float(lay.par[1]) if el.kind in ("J", "M") else None)
+        off = el.name in (getattr(net.circuit, "off_by_design", None) or ())
+        if off and d["region"] in ("cut-off", "off"):
+            d["region"] += " (by design)"
+        warnings += R.warnings_for(el.name, el.kind, d, d["region"].split(" (")[0],
+                                   ratings.get(el.name), off)
         devices[el.name] = d
         if out_net is not None and canonical_net(out_net) not in rails \
                 and canonical_net(out_net) != GROUND:
