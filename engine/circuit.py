@@ -34,6 +34,9 @@ M      (d, g, s, b)                   params: MOSFET model (level 1) with W, L,
                                       params['TYPE'] NMOS|PMOS
 OPAMP  (inp, inn, out, vcc, vee)      params: macromodel (A0, GBW, ...)
 OTA    (inp, inn, out, abc, vee)      params: macromodel (JUNCTIONS, IS, ...)
+BEHAV  (p, n)                         current SIGN*f flows p -> through it -> n;
+                                      params EXPR (f of v(a,b) ...), SIGN
+SW     (p, n, cp, cn)                 switch: params RON, ROFF, VT, VH, STATE
 ====== ============================== =========================================
 
 The ground net is ``"0"``; :func:`canonical_net` maps ``gnd``/``GND`` to it.
@@ -48,10 +51,10 @@ GROUND_ALIASES = {"0", "gnd", "ground"}
 
 KIND_NODES: dict[str, int] = {
     "R": 2, "C": 2, "L": 2, "V": 2, "I": 2, "E": 4, "G": 4, "F": 2, "H": 2,
-    "D": 2, "Q": 3, "J": 3, "M": 4, "OPAMP": 5, "OTA": 5,
+    "D": 2, "Q": 3, "J": 3, "M": 4, "OPAMP": 5, "OTA": 5, "BEHAV": 2, "SW": 4,
 }
 LINEAR_KINDS = {"R", "C", "L", "V", "I", "E", "G", "F", "H"}
-DEVICE_KINDS = {"D", "Q", "J", "M", "OPAMP", "OTA"}
+DEVICE_KINDS = {"D", "Q", "J", "M", "OPAMP", "OTA", "BEHAV", "SW"}
 
 
 def canonical_net(name: str) -> str:
@@ -99,6 +102,16 @@ class Circuit:
     ratings: dict = field(default_factory=dict)
     #: devices whose design note says they are off at rest by design (reports)
     off_by_design: set = field(default_factory=set)
+    #: circuit temperature in degrees Celsius (None: 27, the SPICE default);
+    #: device models derive IS, BF ... at it from their TNOM
+    temperature: float | None = None
+    #: start-up state as SPICE's ``.nodeset`` (net -> volts: a first guess
+    #: held while the operating point is first solved, then released) and
+    #: ``.ic`` (net -> volts: held while the render's starting point is
+    #: solved, released when it starts); devices with params['OFF'] start
+    #: with their junctions off
+    nodeset: dict[str, float] = field(default_factory=dict)
+    ic: dict[str, float] = field(default_factory=dict)
 
     def element(self, name: str) -> Element:
         for e in self.elements:
@@ -116,4 +129,5 @@ class Circuit:
         return list(seen)
 
     def copy(self) -> "Circuit":
-        return replace(self, elements=[e.copy() for e in self.elements])
+        return replace(self, elements=[e.copy() for e in self.elements],
+                       nodeset=dict(self.nodeset), ic=dict(self.ic))

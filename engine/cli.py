@@ -126,6 +126,8 @@ def cmd_render(args) -> int:
     circ = d.flatten()
     from engine.solver import Simulator
     sim = Simulator(circ, fs=fs, oversample=oversample, probes=tuple(probes))
+    for w in sim.warnings:
+        print(f"warning: {w}", file=sys.stderr)
     n = len(volts)
     y = np.empty(n)
     pdata = np.empty((len(probes), n)) if probes else None
@@ -162,6 +164,8 @@ def cmd_render(args) -> int:
             print("note: --probe given without --probes-csv; probe data not written",
                   file=sys.stderr)
         else:
+            pdata = align_probes(pdata, sim.probe_latency_samples,
+                                 0.0 if not args.keep_latency else float(lat))
             t = np.arange(n) / fs
             header = "time_s," + ",".join(_csv_field(n) for n in names)
             np.savetxt(args.probes_csv, np.column_stack([t, pdata.T]), delimiter=",",
@@ -173,6 +177,23 @@ def cmd_render(args) -> int:
 def _csv_field(text: str) -> str:
     """A CSV header field (RFC 4180: quoted when it holds a comma or quote)."""
     return '"' + text.replace('"', '""') + '"' if any(c in text for c in ',"') else text
+
+
+def align_probes(pdata, probe_delay: float, audio_delay: float):
+    """Shift probe rows (n_probes, n) so row k describes the circuit at the
+    instant audio sample k left it: probes are taken inside the oversampled
+    kernel, behind the upsampler only (``probe_delay`` samples), while the
+    written audio is ``audio_delay`` samples late (0 once the round-trip
+    latency is removed).  Rows shifted past the end repeat the last value."""
+    import numpy as np
+    d = int(round(probe_delay - audio_delay))
+    if d == 0 or pdata.shape[1] == 0:
+        return pdata
+    if d > 0:
+        d = min(d, pdata.shape[1])
+        return np.concatenate([pdata[:, d:], np.repeat(pdata[:, -1:], d, axis=1)], axis=1)
+    d = min(-d, pdata.shape[1])
+    return np.concatenate([np.repeat(pdata[:, :1], d, axis=1), pdata[:, :-d]], axis=1)
 
 
 # ------------------------------------------------------------------ op / ac
@@ -360,6 +381,12 @@ def build_parser() -> argparse.ArgumentParser:
               "render the built-in compressor and its variants and write a report")
     _optional(sub, "gui", "gui.app", "add_gui_arguments", "run_gui",
               "open the desktop workbench")
+    _optional(sub, "build", "engine.analysis.cli_build", "add_build_arguments", "run_build",
+              "write a build sheet, parts list, netlist and connection list")
+    _optional(sub, "montecarlo", "engine.analysis.cli_build", "add_montecarlo_arguments",
+              "run_montecarlo", "tolerance Monte Carlo: yield, spreads, sensitivity")
+    _optional(sub, "sweep", "engine.analysis.cli_build", "add_sweep_arguments", "run_sweep",
+              "sweep a part value (and a pot) and tabulate a figure")
     return ap
 
 

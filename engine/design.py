@@ -370,6 +370,21 @@ def builtin_designs() -> dict[str, Path]:
     return {f.stem: f for f in sorted(DESIGN_LIBRARY.glob("*.toml"))}
 
 
+def _temperature(value, file, where) -> float:
+    """A circuit temperature in degrees Celsius (-100 to 250)."""
+    try:
+        t = float(value)
+    except (TypeError, ValueError):
+        raise DesignError(f"temperature must be a number of degrees Celsius, not {value!r}",
+                          file=file, line=getattr(where, "line", None),
+                          part="design.temperature", hint="temperature = 45") from None
+    if not -100.0 <= t <= 250.0:
+        raise DesignError(f"temperature {t:g} degC is out of range (-100 to 250)",
+                          file=file, line=getattr(where, "line", None),
+                          part="design.temperature")
+    return t
+
+
 def load_stage_template(name: str, where: Where | None = None) -> Stage:
     """Load a stage template from the stage library by ``group/name``."""
     lib = stage_library()
@@ -405,6 +420,8 @@ class Design:
         self.oversample = 1
         self.source_impedance = 1e3
         self.load = 1e6
+        #: circuit temperature, degrees Celsius (None: 27, the SPICE default)
+        self.temperature: float | None = None
         self.global_nets: list[str] = []
         self.parts_global: list[Part] = []
         self.stages: list[Stage] = []
@@ -587,7 +604,11 @@ class Design:
         return {qualname: part.value}
 
     def set_value(self, qualname: str, value: float | str) -> dict[str, float]:
-        """Change a part's value; return the element value changes for the solver."""
+        """Change a part's value; return the element value changes for the solver.
+        ``temperature`` (the design's circuit temperature, degrees Celsius)
+        is changed the same way."""
+        if qualname == "temperature":
+            return self.set_temperature(value)
         part = self.part(qualname)
         if part.type not in VALUE_TYPES:
             raise DesignError(f"a {part.type} has no value to change", part=qualname,
@@ -599,6 +620,21 @@ class Design:
         part.value = v
         self._record(qualname, "value", _format_value(v, ""))
         return self._element_values(qualname, part)
+
+    def set_temperature(self, value: float | str) -> dict[str, float]:
+        """Change the circuit temperature (degrees Celsius); return the live
+        change for the solver (it re-derives the device parameters)."""
+        from engine.solver.simulator import TEMPERATURE_KEY
+        t = _temperature(value, self._file(), None)
+        self.temperature = t
+        if self.doc is not None:
+            head = self.doc.get("design")
+            if head is None:
+                import tomlkit
+                head = tomlkit.table()
+                self.doc["design"] = head
+            head["temperature"] = t
+        return {TEMPERATURE_KEY: t}
 
     def set_rotation(self, qualname: str, rotation: float) -> dict[str, float]:
         """Turn a pot (0 = fully towards end ``a``, 1 = towards ``b``)."""
@@ -828,6 +864,8 @@ class Design:
                 from engine.analysis.regions import ratings_of
                 if ratings_of(m):
                     circ.ratings[e.name] = ratings_of(m)
+        if self.temperature is not None:
+            circ.temperature = self.temperature
         return circ
 
     def resolve_net(self, name: str) -> str:
@@ -1063,7 +1101,8 @@ class _Flattener:
             add(Element("load", "R", (last_out, GROUND), d.load, {}, Where(self.file)))
         circ = Circuit(elements=elements, input_source=input_name, output=(last_out, GROUND),
                        title=d.name, where=Where(self.file), ratings=dict(self.ratings),
-                       off_by_design=set(self.off_by_design))
+                       off_by_design=set(self.off_by_design),
+                       temperature=d.temperature)
         validate_circuit(circ, self.file)
         return circ
 
@@ -1300,6 +1339,7 @@ def _design_from_netlist(path: Path, in_source: str, out_node: str) -> Design:
     d.path = path
     d.name = nl.title or path.stem
     d.netlist = nl
+    d.temperature = circ.temperature  # .temp / .options temp=
     parts = []
     for e in circ.elements:
         parts.append(Part(name=e.name, type=_part_type(e), nodes=list(e.nodes),
@@ -1393,6 +1433,8 @@ def _design_from_toml(path: Path) -> Design:
                                           part="design.source_impedance")
     if "load" in head:
         d.load = _parse_value(head["load"], file=file, part="design.load")
+    if "temperature" in head:
+        d.temperature = _temperature(head["temperature"], file, Where(file))
     gn = head.get("global_nets", [])
     _expect(isinstance(gn, list), "global_nets must be a list of net names", Where(file))
     d.global_nets = [canonical_net(str(n)) for n in gn]

@@ -68,6 +68,10 @@ class Model:
     note: str = ""
     source: str | None = None
     line: int | None = None
+    #: parameter -> (low, high): the spread between parts of this class
+    #: (``spread`` table in the library; typical values, from memory), used
+    #: by the tolerance Monte Carlo (engine.analysis.montecarlo).
+    spread: dict[str, tuple[float, float]] = field(default_factory=dict)
 
     @property
     def element_kind(self) -> str:
@@ -246,12 +250,35 @@ def _load_toml(path: str) -> list[Model]:
         kind = str(entry["kind"]).upper()
         note = str(entry.get("note", ""))
         params: dict[str, float] = {}
+        spread: dict[str, tuple[float, float]] = {}
         for k, v in entry.items():
             if k in ("kind", "note"):
                 continue
+            if k == "spread":
+                spread = _read_spread(v, path, line, name)
+                continue
             params[k.upper()] = parse_value(v, file=path, line=line,
                                             part=f"{name}.{k}")
-        out.append(Model(name, kind, params, note, path, line))
+        out.append(Model(name, kind, params, note, path, line, spread))
+    return out
+
+
+def _read_spread(raw, path, line, name) -> dict[str, tuple[float, float]]:
+    """``spread = { BF = [150, 450] }``: each parameter's low and high value."""
+    if not isinstance(raw, dict):
+        raise DesignError("spread must be a table of parameter = [low, high]", file=path,
+                          line=line, part=name, hint="e.g. spread = { BF = [150, 450] }")
+    out = {}
+    for k, v in raw.items():
+        if not isinstance(v, list) or len(v) != 2:
+            raise DesignError(f"spread of {k} must be [low, high]", file=path, line=line,
+                              part=name)
+        lo = parse_value(v[0], file=path, line=line, part=f"{name}.spread.{k}")
+        hi = parse_value(v[1], file=path, line=line, part=f"{name}.spread.{k}")
+        if not lo <= hi:
+            raise DesignError(f"spread of {k}: low {lo:g} is above high {hi:g}",
+                              file=path, line=line, part=name)
+        out[k.upper()] = (lo, hi)
     return out
 
 

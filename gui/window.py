@@ -220,6 +220,9 @@ class MainWindow(QMainWindow):
         self.tabs.addTab(self.live, "Live")
         self.tabs.addTab(self.inspect, "Inside")
         self.tabs.addTab(self.compare, "Compare")
+        from gui.buildview import BuildPanel
+        self.build_view = BuildPanel(lambda: self.wb.design.copy())
+        self.tabs.addTab(self.build_view, "Build")
         lower.addWidget(self.tabs)
         lower.setSizes([500, 960])
         split.addWidget(lower)

@@ -139,6 +139,15 @@ def parse_ascii_raw(text: str) -> list[RawPlot]:
             parts = ln.split()
             names.append(parts[1].lower())
         tok = values.split()
+        if re.search(r"^Flags:.*complex", head, flags=re.M | re.I):
+            # complex data (an AC plot): each value is 're,im'
+            tok = tok[: npts * (nvar + 1)]
+            arr = np.array([complex(*(float(x) for x in t.split(","))) if "," in t
+                            else complex(float(t)) for t in tok])
+            arr = arr.reshape(npts, nvar + 1)[:, 1:]
+            plots.append(RawPlot(pname, {n: arr[:, k].copy()
+                                         for k, n in enumerate(names)}))
+            continue
         arr = np.array(tok[: npts * (nvar + 1)], dtype=float)
         arr = arr.reshape(npts, nvar + 1)[:, 1:]
         plots.append(RawPlot(pname, {n: arr[:, k].copy()
@@ -190,12 +199,13 @@ def run_ngspice(cards: str, control: str, options: str = OPTIONS,
 def run_op(cards: str, options: str = OPTIONS) -> dict[str, float]:
     """DC operating point: node voltages keyed by net name, branch currents
     keyed ``i(<source>)`` (all names lower case). Internal device nodes
-    (names with ``#``) are left out."""
+    (names with ``#``, and the ``<source>_int<k>`` nodes ngspice-39 adds
+    when it rewrites E/G VALUE and TABLE sources) are left out."""
     res = run_ngspice(cards, "op\nwrite out.raw all", options)
     vecs = res.plots[0].vectors
     out: dict[str, float] = {}
     for name, v in vecs.items():
-        if "#" in name:
+        if "#" in name or re.search(r"_int\d+\)?$", name):
             continue
         m = re.fullmatch(r"v\((.*)\)", name)
         out[m.group(1) if m else name] = float(v[0])
@@ -256,6 +266,16 @@ def run_tran(cards: str, step: float, stop: float, *, fixed_step: bool = True,
         raw[key] = arr[keep]
         v[key] = CubicSpline(rt, arr[keep])(t)
     return TranResult(t, v, rt, raw, res.wall_time)
+
+
+def run_ac(cards: str, node: str, f_start: float, f_stop: float,
+           per_decade: int = 10) -> tuple[np.ndarray, np.ndarray]:
+    """Small-signal AC analysis (``ac dec``): (frequencies, complex v(node)).
+    The netlist's input source must carry ``AC 1``."""
+    res = run_ngspice(cards, f"ac dec {per_decade} {f_start:.12g} {f_stop:.12g}\n"
+                             f"write out.raw v({node})")
+    vecs = res.plots[0].vectors
+    return vecs["frequency"].real, vecs[f"v({node.lower()})"]
 
 
 def run_dc_sweep(cards: str, source: str, start: float, stop: float,

@@ -29,6 +29,7 @@ def test_taper_command_sets_each_law(booster_host):
     con = Console(h, say=said.append)
     con.handle("pick output.VOLUME")
     con.handle("turn 0.5")
+    h.flush()               # the pot ramps in the background; let it arrive
     for word, law in (("linear", "linear"), ("audio", "audio"), ("reverse", "reverse-audio")):
         con.handle(f"taper {word}")
         assert h.part_info("output.VOLUME").taper == law

@@ -14,10 +14,10 @@ call sites spelled out to compile one kernel for all devices).
 """
 from __future__ import annotations
 
-from engine.devices import bjt, diode, jfet, mosfet, opamp, ota
+from engine.devices import behav, bjt, diode, jfet, mosfet, opamp, ota, switch
 from engine.devices._common import GMIN, TNOM, VT
 
-REGISTRY = {m.KIND: m for m in (diode, bjt, jfet, ota, opamp, mosfet)}
+REGISTRY = {m.KIND: m for m in (diode, bjt, jfet, ota, opamp, mosfet, behav, switch)}
 BY_CODE = {m.CODE: m for m in REGISTRY.values()}
 
 __all__ = ["REGISTRY", "BY_CODE", "VT", "GMIN", "TNOM"]

@@ -21,10 +21,25 @@ from scipy import constants
 
 from engine.errors import DesignError
 
-#: Nominal device temperature, K (27 degC, the SPICE default TNOM).
+#: Nominal device temperature, K (27 degC, the SPICE default TNOM and
+#: circuit temperature).
 TNOM = 300.15
-#: Thermal voltage k*T/q at TNOM, volts (scipy.constants, CODATA 2018).
+#: 0 degC in kelvin.
+KELVIN = 273.15
+#: k/q, volts per kelvin (scipy.constants, CODATA 2018).
+K_OVER_Q = constants.k / constants.e
+#: Thermal voltage k*T/q at TNOM, volts.
 VT = constants.k * TNOM / constants.e
+
+
+def circuit_temp(temp_c) -> float:
+    """Circuit temperature in kelvin from degrees Celsius (None: 27 degC)."""
+    return TNOM if temp_c is None else float(temp_c) + KELVIN
+
+
+def model_tnom(p: dict) -> float:
+    """A model card's TNOM (degrees Celsius in the card) in kelvin."""
+    return float(p.get("TNOM", TNOM - KELVIN)) + KELVIN
 #: Conductance SPICE places across every junction, siemens.
 GMIN = 1e-12
 #: Exponent beyond which exp() is continued linearly (keeps values finite).
@@ -131,22 +146,36 @@ class DeviceLayout:
     stamps: list[tuple] = field(default_factory=list)
     probes: dict[str, tuple[dict[int, float], dict[int, float]]] = field(default_factory=dict)
     quiet_step: float = 0.0
+    #: standard model parameters given but not simulated: [(name, what it affects)]
+    ignored: list[tuple[str, str]] = field(default_factory=list)
 
 
 def read_params(el, defaults: dict[str, float], *, positive=(), nonneg=(),
-                allowed_extra=("TYPE", "MODEL", "LEVEL")) -> dict[str, float]:
+                allowed_extra=("TYPE", "MODEL", "LEVEL", "OFF"), ignored=None,
+                aliases=None, notes=None) -> dict[str, float]:
     """Merge element params over defaults, validating names and values.
 
     Unknown parameter names and out-of-range values raise DesignError naming
-    the part and where it was written.
+    the part and where it was written.  ``ignored`` maps standard parameter
+    names the device does not simulate to what they affect; such a
+    parameter is accepted and appended to ``notes`` as (name, effect), so
+    the operating-point report can name it.  ``aliases`` maps other spellings
+    SPICE accepts to the name in ``defaults``.
     """
     out = dict(defaults)
     where = el.where
     f = getattr(where, "file", None) if where else None
     ln = getattr(where, "line", None) if where else None
+    ignored = ignored or {}
+    aliases = aliases or {}
     for key, val in (el.params or {}).items():
         k = str(key).upper()
+        k = aliases.get(k, k)
         if k in allowed_extra:
+            continue
+        if k not in defaults and k in ignored:
+            if notes is not None:
+                notes.append((k, ignored[k]))
             continue
         if k not in defaults:
             raise DesignError(f"unknown model parameter {key!r} for a {el.kind} device",
@@ -183,3 +212,18 @@ def polarity(el, names: tuple[str, str]) -> float:
     raise DesignError(f"TYPE must be {names[0]} or {names[1]}, got {t!r}",
                       file=getattr(w, "file", None), line=getattr(w, "line", None),
                       part=el.name)
+
+
+def ignored_note(el, notes: list[tuple[str, str]]) -> list[tuple[str, str]]:
+    """Group ignored parameters by what they affect: [(names, effect)]."""
+    by: dict[str, list[str]] = {}
+    for name, effect in notes:
+        by.setdefault(effect, [])
+        if name not in by[effect]:
+            by[effect].append(name)
+    return [(", ".join(v), k) for k, v in by.items()]
+
+
+def temp_factors(temp_k: float, tnom_k: float):
+    """(vt at temp, ln(T/TNOM), T/TNOM - 1) for the SPICE temperature laws."""
+    return constants.k * temp_k / constants.e, math.log(temp_k / tnom_k), temp_k / tnom_k - 1.0

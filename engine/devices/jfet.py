@@ -1,5 +1,10 @@
 """Junction FET: Shichman-Hodges square law with SPICE ``.model NJF/PJF``
-parameters (VTO, BETA, LAMBDA, IS, N, RD, RS), as ngspice level 1 with B=1.
+parameters (VTO, BETA, LAMBDA, IS, N, RD, RS), as ngspice level 1, with
+ngspice's doping-tail parameter B (Sydney University modification, A. E.
+Parker and D. J. Skellern, 1989; B = 1 is the square law below; the form is
+jfetload.c's: bfac = (1 - B)/(PB - VTO), saturated
+Id = BETA*Vgst**2*(B + bfac*Vgst)*(1 + LAMBDA*Vds), linear
+Id = BETA*Vds*(Vds*(bfac*Vds - B) + Vgst*(2B + 3bfac*(Vgst - Vds)))*(1 + LAMBDA*Vds)).
 
 Ports: 0 = (G, S'), current = gate current; 1 = (D', S'), current = drain
 current.  Channel (normal mode, Vds >= 0, Vgst = Vgs - VTO):
@@ -12,23 +17,61 @@ Reference: H. Shichman, D. A. Hodges, IEEE JSSC 3(3), 1968.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 from numba import njit
 
-from engine.devices._common import (GMIN, VT, DeviceLayout, junction, limit_two_junctions,
-                                    polarity, read_params, vcrit)
+from engine.devices._common import (GMIN, DeviceLayout, circuit_temp, junction,
+                                    limit_two_junctions, model_tnom, polarity, read_params,
+                                    temp_factors, vcrit)
+from engine.errors import DesignError
 
 KIND = "J"
 CODE = 3
 NPORTS = 2
+#: the layout takes the circuit temperature (degrees Celsius)
+TEMPERATURE = True
+#: simulated parameters and their defaults (ngspice manual, JFET level 1)
 DEFAULTS = {"VTO": -2.0, "BETA": 1e-4, "LAMBDA": 0.0, "IS": 1e-14, "N": 1.0,
-            "RD": 0.0, "RS": 0.0, "B": 1.0, "CGS": 0.0, "CGD": 0.0, "PB": 1.0}
-# par: 0 pol, 1 VTO, 2 BETA, 3 LAMBDA, 4 IS, 5 vte, 6 vcrit
+            "RD": 0.0, "RS": 0.0, "B": 1.0, "PB": 1.0, "TNOM": 27.0}
+_CAP = "gate junction capacitance (high-frequency roll-off, Miller effect)"
+_TEMPCO = "temperature coefficient (drift away from TNOM)"
+#: standard parameters that are read but not simulated, and what they affect
+IGNORED = {
+    "CGS": _CAP, "CGD": _CAP, "FC": _CAP,
+    "KF": "flicker noise", "AF": "flicker noise", "NLEV": "noise model",
+    "GDSNOI": "channel noise",
+    "TCV": _TEMPCO, "VTOTC": _TEMPCO, "BEX": _TEMPCO, "BETATCE": _TEMPCO,
+    "XTI": _TEMPCO, "EG": _TEMPCO,
+    "ISR": "gate recombination current", "NR": "gate recombination current",
+    "ALPHA": "gate impact ionisation", "VK": "gate impact ionisation",
+    "M": "gate junction grading", "RG": "gate resistance", "MFG": "label only",
+    "BV": "gate breakdown", "IBV": "gate breakdown",
+    "VDSMAX": "rating only", "VGSMAX": "rating only", "VGDMAX": "rating only",
+}
+#: other spellings SPICE accepts
+ALIASES = {"VT0": "VTO"}
+#: every standard parameter of the model card (simulated or not)
+STANDARD = set(DEFAULTS) | set(IGNORED)
+# par: 0 pol, 1 VTO, 2 BETA, 3 LAMBDA, 4 IS(T), 5 vte, 6 vcrit, 7 1/vte, 8 B,
+# 9 (1 - B)/(PB - VTO)
 
 
-def layout(el) -> DeviceLayout:
-    """Validate the model and describe ports, internal nodes and stamps."""
-    p = read_params(el, DEFAULTS, positive=("BETA", "IS", "N"), nonneg=("LAMBDA", "RD", "RS"))
+def layout(el, temp=None) -> DeviceLayout:
+    """Validate the model and describe ports, internal nodes and stamps;
+    ``temp`` is the circuit temperature in degrees Celsius (None: 27)."""
+    notes: list = []
+    p = read_params(el, DEFAULTS, positive=("BETA", "IS", "N"),
+                    nonneg=("LAMBDA", "RD", "RS", "B"),
+                    ignored=IGNORED, aliases=ALIASES, notes=notes)
+    if p["PB"] == p["VTO"]:
+        w = el.where
+        raise DesignError("model parameter PB must differ from VTO (B's doping tail "
+                          "divides by PB - VTO)", file=getattr(w, "file", None),
+                          line=getattr(w, "line", None), part=el.name)
+    if p["B"] == 1.0 and any(str(k).upper() == "PB" for k in (el.params or {})):
+        notes.append(("PB", _CAP))  # with B = 1 only the capacitances use it
     pol = polarity(el, ("NJF", "PJF"))
     d, g, s = el.nodes
     stamps, internal = [], []
@@ -40,27 +83,37 @@ def layout(el) -> DeviceLayout:
         internal.append(f"{el.name}#s")
         stamps.append(("R", s, internal[-1], p["RS"]))
         s = internal[-1]
-    vte = p["N"] * VT
-    par = np.array([pol, p["VTO"], p["BETA"], p["LAMBDA"], p["IS"], vte, vcrit(vte, p["IS"]),
-                    1.0 / vte])
+    # temperature (ngspice jfettemp.c): IS(T) = IS*exp((T/TNOM - 1)*1.11/VT)
+    vt, _, ratio1 = temp_factors(circuit_temp(temp), model_tnom(p))
+    isat = p["IS"] * math.exp(ratio1 * 1.11 / vt)
+    vte = p["N"] * vt
+    bfac = (1.0 - p["B"]) / (p["PB"] - p["VTO"])
+    par = np.array([pol, p["VTO"], p["BETA"], p["LAMBDA"], isat, vte, vcrit(vte, isat),
+                    1.0 / vte, p["B"], bfac])
     return DeviceLayout(CODE, [(g, s), (d, s)], par, internal, stamps,
                         probes={"ig": ({0: 1.0}, {}), "id": ({1: 1.0}, {}),
                                 "vgs": ({}, {0: 1.0}), "vds": ({}, {1: 1.0})},
-                        quiet_step=vte)  # as the BJT: Vgd moves by <= 2 steps
+                        quiet_step=vte,  # as the BJT: Vgd moves by <= 2 steps
+                        ignored=notes)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
-def _channel(vgs, vds, vto, beta, lam):
-    """Square-law channel current for vds >= 0: (Id, dId/dVgs, dId/dVds)."""
+def _channel(vgs, vds, vto, beta, lam, b, bfac):
+    """Channel current for vds >= 0: (Id, dId/dVgs, dId/dVds), ngspice's
+    level 1 with the doping-tail parameter B (jfetload.c; B = 1, bfac = 0
+    is the square law)."""
     vgst = vgs - vto
     if vgst <= 0.0:
         return 0.0, 0.0, 0.0
-    lf = 1.0 + lam * vds
-    if vgst > vds:
-        base = vds * (2.0 * vgst - vds)
-        return beta * base * lf, beta * 2.0 * vds * lf, beta * (2.0 * vgst - 2.0 * vds) * lf + beta * base * lam
-    base = vgst * vgst
-    return beta * base * lf, beta * 2.0 * vgst * lf, beta * base * lam
+    betap = beta * (1.0 + lam * vds)
+    if vgst >= vds:
+        apart = 2.0 * b + 3.0 * bfac * (vgst - vds)
+        cpart = vds * (vds * (bfac * vds - b) + vgst * apart)
+        return (betap * cpart, betap * vds * (apart + 3.0 * bfac * vgst),
+                betap * (vgst - vds) * apart + beta * lam * cpart)
+    bf = vgst * bfac
+    cpart = vgst * vgst * (b + bf)
+    return betap * cpart, betap * vgst * (2.0 * b + 3.0 * bf), lam * beta * cpart
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
@@ -77,11 +130,13 @@ def evaluate(par, pa, v, po, i, G):
     igd += GMIN * vgd
     ggd += GMIN
     if vds >= 0.0:
-        idc, gm, gds = _channel(vgs, vds, par[pa + 1], par[pa + 2], par[pa + 3])
+        idc, gm, gds = _channel(vgs, vds, par[pa + 1], par[pa + 2], par[pa + 3],
+                                 par[pa + 8], par[pa + 9])
         d_vgs = gm
         d_vds = gds
     else:
-        f, gm, gds = _channel(vgd, -vds, par[pa + 1], par[pa + 2], par[pa + 3])
+        f, gm, gds = _channel(vgd, -vds, par[pa + 1], par[pa + 2], par[pa + 3],
+                             par[pa + 8], par[pa + 9])
         idc = -f
         d_vgs = -gm
         d_vds = gm + gds

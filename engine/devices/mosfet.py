@@ -39,14 +39,52 @@ NPORTS = 2  # 3 when the bulk is not the source
 DEFAULTS = {"VTO": 0.0, "KP": 2e-5, "LAMBDA": 0.0, "GAMMA": 0.0, "PHI": 0.6,
             "IS": 1e-14, "LD": 0.0, "RD": 0.0, "RS": 0.0, "W": 100e-6, "L": 100e-6,
             "M": 1.0}
+#: the layout takes the circuit temperature (degrees Celsius)
+TEMPERATURE = True
+_CAP = "gate and junction capacitances (high-frequency roll-off, Miller effect)"
+_PROC = ("process parameter (ngspice derives KP, VTO, GAMMA or PHI from it when "
+         "they are not given: give them directly)")
+#: standard level-1 parameters that are read but not simulated, and what they affect
+IGNORED = {
+    "CBD": _CAP, "CBS": _CAP, "PB": _CAP, "CGSO": _CAP, "CGDO": _CAP, "CGBO": _CAP,
+    "CJ": _CAP, "MJ": _CAP, "CJSW": _CAP, "MJSW": _CAP, "FC": _CAP,
+    "RSH": "drain and source sheet resistance (give RD and RS)",
+    "JS": "bulk junction current density (give IS)",
+    "TOX": _PROC, "NSUB": _PROC, "NSS": _PROC, "TPG": _PROC, "UO": _PROC,
+    "NFS": "subthreshold conduction (level 2/3)", "XJ": "level 2/3 geometry",
+    "UCRIT": "mobility degradation (level 2)", "UEXP": "mobility degradation (level 2)",
+    "UTRA": "mobility degradation (level 2)", "VMAX": "velocity saturation (level 2/3)",
+    "NEFF": "level 2 channel charge", "DELTA": "narrow-width effect (level 2/3)",
+    "THETA": "mobility modulation (level 3)", "ETA": "drain-induced barrier lowering (level 3)",
+    "KAPPA": "saturation field (level 3)",
+    "KF": "flicker noise", "AF": "flicker noise", "TNOM": "temperature law (not simulated "
+    "for the MOSFET: parameters are taken as given)", "MFG": "label only",
+    "WD": "width reduction", "RG": "gate resistance", "RB": "bulk resistance",
+    "BEX": "temperature coefficient", "TCV": "temperature coefficient",
+    "XTI": "temperature coefficient", "EG": "temperature coefficient",
+    "N": "subthreshold slope", "BV": "drain breakdown", "IBV": "drain breakdown",
+    "TT": "body diode transit time", "VDS": "rating only", "VGS": "rating only",
+    "RON": "rating only", "QG": "rating only",
+}
+#: other spellings SPICE accepts
+ALIASES = {"VT0": "VTO", "U0": "UO"}
+#: every standard parameter of the model card (simulated or not)
+STANDARD = set(DEFAULTS) | set(IGNORED)
 # par: 0 pol, 1 pol*VTO, 2 beta, 3 LAMBDA, 4 GAMMA, 5 PHI, 6 sqrt(PHI), 7 IS,
 # 8 VT, 9 vcrit, 10 1/VT, 11 bulk port (1) or bulk = source (0)
 
 
-def layout(el) -> DeviceLayout:
-    """Validate the model and describe ports, internal nodes and stamps."""
+def layout(el, temp=None) -> DeviceLayout:
+    """Validate the model and describe ports, internal nodes and stamps.
+    The level-1 temperature laws are not simulated: at a circuit
+    temperature ``temp`` other than 27 degC the layout notes that."""
+    notes: list = []
     p = read_params(el, DEFAULTS, positive=("KP", "PHI", "IS", "W", "L", "M"),
-                    nonneg=("LAMBDA", "GAMMA", "LD", "RD", "RS"))
+                    nonneg=("LAMBDA", "GAMMA", "LD", "RD", "RS"),
+                    ignored=IGNORED, aliases=ALIASES, notes=notes)
+    if temp is not None and float(temp) != 27.0:
+        notes.append(("temperature", "circuit temperature (the MOSFET's parameters are "
+                                     "taken at their nominal temperature)"))
     pol = polarity(el, ("NMOS", "PMOS"))
     d, g, s, b = el.nodes
     leff = p["L"] - 2.0 * p["LD"]
@@ -75,7 +113,7 @@ def layout(el) -> DeviceLayout:
                     0.0 if bulk_is_source else 1.0])
     probes = {"id": ({1: 1.0}, {}), "vgs": ({}, {0: 1.0}), "vds": ({}, {1: 1.0})}
     return DeviceLayout(CODE, ports, par, internal, stamps, probes=probes,
-                        quiet_step=VT)
+                        quiet_step=VT, ignored=notes)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)

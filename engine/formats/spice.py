@@ -19,6 +19,13 @@ What is read (case-insensitive, as in SPICE):
   plain sources ``NAME.P1`` ...), D, Q (three nodes and a model; a substrate
   node or an area factor is ignored with a warning), J, M (four nodes, level
   1; instance W, L and M);
+* ``sin(`` and ``sine(``, ``dc=``/``ac=`` on sources, ``r=``/``c=``/``l=``
+  and ``m=`` on R, C, L; R and C cards naming an R or C ``.model``
+  (:meth:`_Reader.model_value`);
+* behavioural sources: B ``V=``/``I=``, E/G ``VALUE=`` (``vol=``/``cur=``)
+  and ``TABLE`` (:meth:`_Reader.behavioural`, :mod:`engine.devices.behav`);
+* switches: S with ``.model SW`` and W with ``.model CSW``, ON/OFF
+  (:meth:`_Reader.switch`, :mod:`engine.devices.switch`);
 * ``.model NAME TYPE(params)`` for D, NPN, PNP, NJF, PJF, NMOS and PMOS
   (another LEVEL is read as level 1, with a warning); parameters
   Solderless does not simulate (CJO, TT, ...) are kept in
@@ -309,13 +316,10 @@ _IGNORED_DOT = {
 #: Instance parameters whose value may be a comma list (``TC=tc1,tc2``).
 _LIST_KEYS = {"TC"}
 _UNSUPPORTED_ELEMENTS = {
-    "B": "behavioural sources are not supported; use linear E/G sources",
     "K": "coupled inductors (K) are not supported",
     "T": "transmission lines are not supported",
     "O": "transmission lines are not supported",
     "U": "transmission lines are not supported",
-    "S": "switches (S) are not supported; use a resistor of the on or off value",
-    "W": "switches (W) are not supported; use a resistor of the on or off value",
     "A": "code-model (A) devices are not supported",
     "Z": "MESFETs are not supported; use a JFET (J) model",
     "N": "device-level (N) simulation is not supported",
@@ -620,6 +624,11 @@ class _Reader:
         self.names: dict[str, Where] = {}
         self.element_models: dict[str, str] = {}
         self._warned: set[str] = set()
+        # start-up state and temperature cards (top level)
+        self.temperature: float | None = None
+        self.tnom: float | None = None
+        self.ic: dict[str, float] = {}
+        self.nodeset: dict[str, float] = {}
 
     # -- helpers ---------------------------------------------------------
     def err(self, card: Card, why: str, hint: str | None = None, part=None):
@@ -783,6 +792,9 @@ class _Reader:
             word = c.tokens[0]
             low = word.lower()
             if low.startswith("."):
+                if low in (".temp", ".options", ".option", ".opt", ".ic", ".nodeset"):
+                    self.setting(c, low, scope, prefix, netmap)
+                    continue
                 if low in _IGNORED_DOT:
                     self.ignored.append((c.line, c.text))
                     continue
@@ -809,34 +821,118 @@ class _Reader:
                 self.passive(c, letter, name, net, scope)
             elif letter in "VI":
                 self.source(c, letter, name, net, scope)
+            elif letter == "B":
+                self.behavioural(c, letter, name, net, scope)
             elif letter in "EG":
                 self.controlled(c, letter, name, net, scope)
             elif letter in "FH":
                 self.current_controlled(c, letter, name, net, scope, prefix)
             elif letter in "DQJM":
                 self.device(c, letter, name, net, scope)
+            elif letter in "SW":
+                self.switch(c, letter, name, net, scope, prefix)
             elif letter == "X":
                 self.instance(c, name, net, scope, chain)
             elif letter in _UNSUPPORTED_ELEMENTS:
                 self.err(c, _UNSUPPORTED_ELEMENTS[letter], part=name)
             else:
                 self.err(c, f"'{word}' is not a SPICE element name",
-                         "element names start with R, C, L, V, I, E, G, F, H, D, Q, J or X",
+                         "element names start with R, C, L, V, I, E, G, F, H, B, S, W, D, Q, J, M or X",
                          part=name)
 
+    def setting(self, c, low, scope, prefix, netmap):
+        """``.temp T``, ``.options temp=T tnom=T`` (the rest of .options is
+        read by the analysis, not the circuit), ``.ic v(n)=V``,
+        ``.nodeset v(n)=V`` (ngspice manual: the circuit temperature, the
+        models' default nominal temperature, and the start-up state)."""
+        text = c.text
+        if low == ".temp":
+            vals = text.split()[1:]
+            if not vals:
+                self.err(c, ".temp needs a temperature in degrees Celsius", ".temp 50")
+            self.temperature = self.value(vals[0].strip(","), c, scope, "temperature")
+            if len(vals) > 1:
+                self.warn(f"{c.file}:{c.line}: .temp lists several temperatures; "
+                          f"the first ({self.temperature:g} degC) is simulated")
+            return
+        if low in (".options", ".option", ".opt"):
+            self.ignored.append((c.line, c.text))
+            for m in re.finditer(r"\b(temp|tnom)\s*=\s*([^\s,]+)", text, flags=re.I):
+                v = self.value(m.group(2), c, scope, m.group(1).lower())
+                if m.group(1).lower() == "temp":
+                    self.temperature = v
+                else:
+                    self.tnom = v
+            return
+        pairs = re.findall(r"\bv\(\s*([^)\s,]+)\s*\)\s*=\s*([^\s)]+)", text, flags=re.I)
+        if not pairs:
+            self.err(c, f"{low} needs node voltages", f"{low} v(out)=4.5")
+        target = self.ic if low == ".ic" else self.nodeset
+        for node, val in pairs:
+            n = canonical_net(node.lower())
+            if n == GROUND:
+                continue
+            if n in netmap:
+                n = netmap[n]
+            elif prefix:
+                n = prefix.lower() + "." + n
+            target[n] = self.value(val, c, scope, f"{low} value")
+
     def passive(self, c, letter, name, net, scope):
+        """R, C, L; R and C may name an R or C ``.model`` (ngspice manual,
+        "Semiconductor Resistors" / "Semiconductor Capacitors"): a value on
+        the card wins; without one, the model's R (CAP) or the geometry
+        (RSH, L, W, DEFW, NARROW, SHORT; CJ, CJSW, DI, THICK) gives it, with
+        the effective sizes ngspice-39 uses (checked with its ``show``)."""
         pos, kv = self.kv(c.tokens[1:], c)
         what = {"R": "resistance", "C": "capacitance", "L": "inductance"}[letter]
         key = {"R": "R", "C": "C", "L": "L"}[letter]
         if len(pos) == 2 and key in kv:
             pos.append(kv.pop(key))
-        if len(pos) < 3:
+        model = None
+        if letter in "RC" and len(pos) in (3, 4) and not _is_number_like(pos[-1]) \
+                and pos[-1].lower() not in scope_params(scope):
+            model = self.model(pos[-1], c, scope, name)
+            if model is None and len(pos) == 4:
+                self.err(c, f"model '{pos[-1]}' is not defined",
+                         f"add a .model {pos[-1]} {letter}(...) card", name)
+            if model is not None:
+                want = {"R": ("R", "RES"), "C": ("C", "CAP")}[letter]
+                if model.type.upper() not in want:
+                    self.err(c, f"model '{model.name}' is of type {model.type}, "
+                                f"a {letter} element needs a {want[0]} model", part=name)
+                pos = pos[:-1]
+        if len(pos) < 2 or (len(pos) < 3 and model is None):
             self.err(c, f"needs two nodes and a {what}",
                      f"{c.tokens[0]} node1 node2 value", name)
         if len(pos) > 3:
             self.err(c, f"'{pos[3]}': semiconductor {what} models are not "
                      f"supported", f"give the {what} as a number", name)
-        v = self.value(pos[2], c, scope, what, name)
+        geo = {}
+        for k in ("L", "W"):
+            if model is not None and k in kv:
+                geo[k] = self.value(kv.pop(k), c, scope, f"{k} (size)", name)
+        if len(pos) == 3:
+            v = self.value(pos[2], c, scope, what, name)
+        else:
+            v = self.model_value(c, letter, name, model, geo)
+        if model is not None:
+            self.element_models[name] = model.name
+            used = {"R": {"R", "RES", "RSH", "DEFW", "NARROW", "SHORT"},
+                    "C": {"CAP", "CJ", "CJSW", "DEFW", "NARROW", "SHORT", "DI",
+                          "THICK"}}[letter]
+            why = {"TC1": "temperature coefficient, no effect at 27 degC",
+                   "TC2": "temperature coefficient, no effect at 27 degC",
+                   "TCE": "temperature coefficient, no effect at 27 degC",
+                   "TNOM": "no effect at 27 degC", "KF": "noise", "AF": "noise",
+                   "WF": "noise", "LF": "noise", "EF": "noise", "BV_MAX": "rating",
+                   "DEFL": "default length"}
+            where = f"{model.where.file}:{model.where.line}: " if model.where else ""
+            for k in model.params:
+                if k not in used or len(pos) == 3:
+                    self.warn(f"{where}model {model.name}: {k} is ignored"
+                              + (f" ({why[k]})" if k in why else
+                                 " (the card gives the value)" if k in used else ""))
         if letter == "R" and v == 0:
             self.err(c, "a resistance of zero cannot be simulated",
                      "join the two nets or use a small value such as 1m", name)
@@ -852,8 +948,41 @@ class _Reader:
         self.add(Element(name, letter, (net(pos[0]), net(pos[1])), v, params,
                          c.where), c)
 
+    def model_value(self, c, letter, name, model, geo) -> float:
+        """Resistance or capacitance of an R/C card without a value, from its
+        model: R = RSH*(L - 2*SHORT)/(W - 2*NARROW); C = CJ*(L - SHORT)*
+        (W - NARROW) + 2*CJSW*((L - SHORT) + (W - NARROW)), CJ = DI*eps0/THICK
+        when THICK is given; W defaults to DEFW (10 um).  The effective sizes
+        are ngspice-39's, read back with its ``show`` command."""
+        mp = model.params
+        direct = mp.get("R", mp.get("RES")) if letter == "R" else mp.get("CAP")
+        if direct is not None:
+            return direct
+        if "L" not in geo:
+            self.err(c, f"model '{model.name}' has no {'R' if letter == 'R' else 'CAP'} "
+                        "value and the card gives no length L", f"{c.tokens[0]} a b "
+                        f"{model.name} L=10u W=1u, or a value on the card", name)
+        w = geo.get("W", mp.get("DEFW", 10e-6))
+        ln, nar, sho = geo["L"], mp.get("NARROW", 0.0), mp.get("SHORT", 0.0)
+        if letter == "R":
+            le, we = ln - 2.0 * sho, w - 2.0 * nar
+            if not ("RSH" in mp and le > 0 and we > 0 and mp["RSH"] > 0):
+                self.err(c, f"model '{model.name}': RSH and the effective sizes "
+                            f"(L - 2*SHORT = {le:g}, W - 2*NARROW = {we:g}) must be > 0",
+                         part=name)
+            return mp["RSH"] * le / we
+        le, we = ln - sho, w - nar
+        cj = mp.get("CJ", 0.0)
+        if "THICK" in mp and mp["THICK"] > 0:
+            cj = mp.get("DI", 3.9) * 8.8541878128e-12 / mp["THICK"]
+        v = cj * le * we + 2.0 * mp.get("CJSW", 0.0) * (le + we)
+        if not (le > 0 and we > 0 and v > 0):
+            self.err(c, f"model '{model.name}' gives no capacitance for these sizes "
+                        f"(L - SHORT = {le:g}, W - NARROW = {we:g})", part=name)
+        return v
+
     def source(self, c, letter, name, net, scope):
-        toks = c.tokens[1:]
+        toks = list(c.tokens[1:])
         if len(toks) < 2:
             self.err(c, "needs two nodes", f"{c.tokens[0]} plus minus DC 1", name)
         nodes = (net(toks[0]), net(toks[1]))
@@ -861,9 +990,12 @@ class _Reader:
         dc = None
         params: dict[str, Any] = {}
         k = 0
-        funcs = ("sin", "pulse", "pwl")
+        funcs = ("sin", "sine", "pulse", "pwl")
         while k < len(rest):
             w = rest[k].lower()
+            # 'dc=5', 'ac=1' (the name=value form ngspice also reads)
+            if w in ("dc", "ac") and k + 1 < len(rest) and rest[k + 1] == "=":
+                del rest[k + 1]
             if w == "dc":
                 if k + 1 >= len(rest):
                     self.err(c, "DC needs a value", part=name)
@@ -884,7 +1016,8 @@ class _Reader:
                 while k < len(rest) and _is_number_like(rest[k]):
                     vals.append(self.value(rest[k], c, scope, f"{w.upper()} value", name))
                     k += 1
-                params["wave"] = (w.upper(), self.check_wave(c, name, w.upper(), vals))
+                fn = "SIN" if w == "sine" else w.upper()  # ngspice reads sine( as sin(
+                params["wave"] = (fn, self.check_wave(c, name, fn, vals))
             elif w in ("exp", "sffm", "am", "trnoise", "trrandom", "external",
                        "distof1", "distof2", "port"):
                 self.err(c, f"the {w.upper()} source function is not supported",
@@ -920,9 +1053,12 @@ class _Reader:
         return vals
 
     def controlled(self, c, letter, name, net, scope):
+        if any(t.lower() in ("value", "table", "vol", "cur") for t in c.tokens[3:5]):
+            self.behavioural(c, letter, name, net, scope)
+            return
         pos, kv = self.kv(c.tokens[1:], c)
         form = f"{c.tokens[0]} out+ out- ctrl+ ctrl- gain"
-        if any(p.lower() in ("value", "table", "laplace", "vol", "cur") for p in pos) or kv:
+        if any(p.lower() in ("laplace",) for p in pos) or kv:
             self.err(c, "only the linear four-node form and linear POLY are supported",
                      form, name)
         if len(pos) > 2 and pos[2].lower() == "poly":
@@ -935,6 +1071,140 @@ class _Reader:
         g = self.value(pos[4], c, scope, "gain", name)
         self.add(Element(name, letter, tuple(net(p) for p in pos[:4]), g, {},
                          c.where), c)
+
+    def behavioural(self, c, letter, name, net, scope):
+        """Nonlinear sources: ``B n+ n- V=expr`` / ``I=expr``, ``E``/``G n+ n-
+        VALUE={expr}`` (also ``vol=``/``cur=``), ``E``/``G n+ n- TABLE {expr} =
+        (x0, y0) (x1, y1) ...`` (ngspice manual, "Non-linear Dependent Sources"
+        and "E/G source ... VALUE, TABLE").  A current becomes a BEHAV element;
+        a voltage a BEHAV element driving an internal node ``<name>#x``
+        through 1 ohm (``<name>.R``), copied to the output by a unity E
+        source ``<name>.E``.  Node names in the expression are the card's, as
+        in the subcircuit it sits in."""
+        from engine.devices import behav
+        text = c.text.strip()
+        m = re.match(r"^\S+\s+(\S+)\s+(\S+)\s+(.*)$", text, flags=re.S)
+        form = {"B": f"{c.tokens[0]} out+ out- V={{expression}} (or I=...)",
+                "E": f"{c.tokens[0]} out+ out- VALUE={{expression}}",
+                "G": f"{c.tokens[0]} out+ out- VALUE={{expression}}"}[letter]
+        if not m:
+            self.err(c, "needs two nodes and an expression", form, name)
+        pnode, nnode, rest = m.groups()
+        mk = re.match(r"^(v|i|value|vol|cur)\s*=\s*(.+)$", rest, flags=re.I | re.S)
+        mt = re.match(r"^table\s*(\{[^}]*\}|'[^']*'|\S+)\s*=?\s*(.+)$", rest,
+                      flags=re.I | re.S)
+        voltage = letter == "E"
+        if letter == "B" and mk and mk.group(1).lower() in ("v", "i"):
+            voltage = mk.group(1).lower() == "v"
+            expr = mk.group(2)
+        elif letter in "EG" and mk and mk.group(1).lower() in ("value", "vol", "cur"):
+            expr = mk.group(2)
+        elif letter in "EG" and mt:
+            pts_text = mt.group(2)
+            toks = [t for t in re.split(r"[\s(),]+", pts_text) if t and t != "="]
+            if len(toks) < 2 or len(toks) % 2:
+                self.err(c, "TABLE needs (x, y) pairs", f"{c.tokens[0]} out 0 TABLE "
+                         "{v(in)} = (-1, -1) (1, 1)", name)
+            vals = [self.value(t, c, scope, "TABLE point", name) for t in toks]
+            inner = mt.group(1)
+            if inner[:1] in "{'":
+                inner = inner[1:-1]
+            expr = "table(" + inner + ", " + ", ".join(repr(v) for v in vals) + ")"
+        else:
+            self.err(c, "needs V= or I= (B), VALUE= or TABLE (E, G)", form, name)
+        expr = expr.strip()
+        # trailing instance parameters are not read (and would be misread)
+        if re.search(r"\s(tc1|tc2|temp|dtemp|m)\s*=", expr, flags=re.I):
+            self.err(c, "instance parameters after the expression are not supported",
+                     "remove them", name)
+        if expr[:1] == "'" and expr[-1:] == "'":
+            expr = expr[1:-1]
+        if expr[:1] == "{" and expr[-1:] == "}" and expr.count("{") == 1:
+            expr = expr[1:-1]
+        # '{gain}*v(in)': a braced parameter expression inside is its value
+        # (ngspice substitutes those before it reads the expression)
+        for m in list(re.finditer(r"\{([^{}]*)\}", expr))[::-1]:
+            try:
+                val = evaluate_expression(m.group(1), scope_params(scope), scope_funcs(scope))
+            except ValueError as exc:
+                self.err(c, f"expression: {exc}", "a braced part must be a .param "
+                         "expression", name)
+            expr = expr[:m.start()] + f"({val!r})" + expr[m.end():]
+        try:
+            tree = behav.parse(expr, scope_params(scope), net)
+        except behav.ExprError as exc:
+            self.err(c, f"expression: {exc}", "use v(node), numbers, .param names and "
+                     "the functions " + ", ".join(behav.FUNCTIONS), name)
+        canon = behav.to_text(tree)
+        a, b = net(pnode), net(nnode)
+        if not voltage:
+            self.add(Element(name, "BEHAV", (a, b), 0.0, {"EXPR": canon, "SIGN": 1.0},
+                             c.where), c)
+            return
+        x = f"{name.lower()}#x"
+        self.add(Element(name, "BEHAV", (x, GROUND), 0.0, {"EXPR": canon, "SIGN": -1.0},
+                         c.where), c)
+        self.add(Element(f"{name}.R", "R", (x, GROUND), 1.0, {}, c.where), c)
+        self.add(Element(f"{name}.E", "E", (a, b, x, GROUND), 1.0, {}, c.where), c)
+
+    def switch(self, c, letter, name, net, scope, prefix):
+        """``S n+ n- nc+ nc- MODEL [ON|OFF]`` (``.model SW``: VT, VH, RON,
+        ROFF) and ``W n+ n- VCTRL MODEL [ON|OFF]`` (``.model CSW``: IT, IH,
+        RON, ROFF), as the ngspice manual's "Switches" chapter has them; a
+        W senses its source's current through an H source ``<name>.H`` (of
+        1/(|IT| + IH) ohm, thresholds scaled alike) into the internal node
+        ``<name>#i``."""
+        pos, kv = self.kv(c.tokens[1:], c)
+        nn = 4 if letter == "S" else 3
+        form = (f"{c.tokens[0]} n+ n- nc+ nc- MODEL [ON|OFF]" if letter == "S" else
+                f"{c.tokens[0]} n+ n- VCTRL MODEL [ON|OFF]")
+        state = 0.0
+        if len(pos) == nn + 2 and pos[-1].lower() in ("on", "off"):
+            state = 1.0 if pos[-1].lower() == "on" else 0.0
+            pos = pos[:-1]
+        if len(pos) != nn + 1 or kv:
+            self.err(c, "needs its nodes, " + ("the controlling V source, " if letter == "W"
+                                               else "") + "a model and ON or OFF", form, name)
+        want = "SW" if letter == "S" else "CSW"
+        model = self.model(pos[nn], c, scope, name)
+        if model is None:
+            self.err(c, f"model '{pos[nn]}' is not defined",
+                     f"add a .model {pos[nn]} {want}(VT=... VH=... RON=... ROFF=...)", name)
+        if model.type.upper() != want:
+            self.err(c, f"model '{model.name}' is of type {model.type}, a {letter} switch "
+                        f"needs a {want} model", part=name)
+        names = {"VT": "VT", "VH": "VH", "RON": "RON", "ROFF": "ROFF"} if letter == "S" \
+            else {"IT": "VT", "IH": "VH", "RON": "RON", "ROFF": "ROFF"}
+        params: dict[str, Any] = {"STATE": state, "MODEL": model.name}
+        where = f"{model.where.file}:{model.where.line}: " if model.where else ""
+        for k, v in model.params.items():
+            if k in names:
+                params[names[k]] = v
+            else:
+                self.warn(f"{where}model {model.name}: {k} is not simulated and is ignored")
+        if params.get("VH", 0.0) < 0:
+            self.err(c, f"model '{model.name}': a negative hysteresis is not supported",
+                     "give VH (IH) >= 0", name)
+        self.element_models[name] = model.name
+        a, b = net(pos[0]), net(pos[1])
+        if letter == "S":
+            self.add(Element(name, "SW", (a, b, net(pos[2]), net(pos[3])), 0.0, params,
+                             c.where), c)
+            return
+        own = pos[2][2:] if len(pos[2]) > 2 and pos[2][1] == "." else pos[2]
+        if own[:1].upper() != "V":
+            self.err(c, f"'{pos[2]}' is not a voltage source: the current through a V "
+                        "source controls it", form, name)
+        ctl = (prefix + "." if prefix else "") + own.upper()
+        x = f"{name.lower()}#i"
+        # the transresistance scales the thresholds to about a volt, so the
+        # sensed voltage moves well above the kernel's bypass step
+        span = abs(params.get("VT", 0.0)) + params.get("VH", 0.0)
+        k = 1.0 / span if span > 0 else 1e3
+        params["VT"] = params.get("VT", 0.0) * k
+        params["VH"] = params.get("VH", 0.0) * k
+        self.add(Element(f"{name}.H", "H", (x, GROUND), k, {"CONTROL": ctl}, c.where), c)
+        self.add(Element(name, "SW", (a, b, x, GROUND), 0.0, params, c.where), c)
 
     def current_controlled(self, c, letter, name, net, scope, prefix):
         """F (current gain) and H (transresistance), linear form: ``F1 out+
@@ -1041,10 +1311,12 @@ class _Reader:
             self.err(c, f"model '{model.name}' is of type {mtype}, a {letter} "
                      f"element needs {want}", part=name)
         extra = pos[mi + 1:]
+        off = False
         for tok in extra:
             if tok.lower() == "off":
-                self.warn(f"{c.file}:{c.line}: {name}: OFF is ignored "
-                          "(the operating point is always solved)")
+                if letter == "M":
+                    self.warn(f"{c.file}:{c.line}: {name}: OFF is ignored for a MOSFET")
+                off = True
             else:
                 self.value(tok, c, scope, "area factor", name)
                 self.warn(f"{c.file}:{c.line}: {name}: area factor {tok} is ignored")
@@ -1059,13 +1331,18 @@ class _Reader:
         if kind in ("Q", "J", "M"):
             params["TYPE"] = mtype
         params["MODEL"] = model.name
+        if off and letter != "M":
+            params["OFF"] = 1.0
         self.element_models[name] = model.name
         self.add(Element(name, letter, tuple(net(p) for p in pos[:nn]), 0.0,
                          params, c.where), c)
 
     def device_params(self, model: SpiceModel, kind: str) -> dict[str, Any]:
+        from engine.devices import REGISTRY
+        mod = REGISTRY[kind]
         sim = _simulated(kind)
-        alias = _ALIAS[kind]
+        ign = getattr(mod, "IGNORED", {})
+        alias = {**_ALIAS[kind], **getattr(mod, "ALIASES", {})}
         out: dict[str, Any] = {}
         where = f"{model.where.file}:{model.where.line}: " if model.where else ""
         for k, v in model.params.items():
@@ -1076,6 +1353,9 @@ class _Reader:
                 if key == "LEVEL" and v != 1:
                     self.warn(f"{where}model {model.name}: LEVEL={v:g} is read "
                               "as the basic level-1 model")
+            elif key in ign:
+                self.warn(f"{where}model {model.name}: {k} is not simulated and is "
+                          f"ignored; it affects the {ign[key]}")
             elif key in _STANDARD[kind] or k in _STANDARD[kind]:
                 self.warn(f"{where}model {model.name}: {k} is not simulated "
                           "and is ignored")
@@ -1227,7 +1507,19 @@ def parse_netlist(text: str, *, file: str = "<text>", in_source: str = "VIN",
     reader = _Reader(library, ignored, warnings)
     scope, rest = reader.make_scope(top, defs, {}, None)
     reader.flatten(rest, scope, "", {})
-    circuit = Circuit(reader.elements, title=title, where=Where(file, 1))
+    circuit = Circuit(reader.elements, title=title, where=Where(file, 1),
+                      temperature=reader.temperature, nodeset=dict(reader.nodeset),
+                      ic=dict(reader.ic))
+    if reader.tnom is not None:
+        # '.options tnom=': the nominal temperature of models that give none
+        for el in circuit.elements:
+            if el.kind in ("D", "Q", "J") and "TNOM" not in el.params:
+                el.params["TNOM"] = reader.tnom
+    for what, table in (("ic", circuit.ic), ("nodeset", circuit.nodeset)):
+        for n in table:
+            if n not in circuit.nets():
+                reader.err(_Card_at(Where(file, None), f".{what}"),
+                           f".{what}: no net named '{n}'", part=f".{what}")
     names = {e.name.upper(): e.name for e in reader.elements}
     src = names.get(in_source.upper()) if in_source else None
     if src is not None and circuit.element(src).kind == "V":
@@ -1377,15 +1669,31 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
             lines.append(f"* net {safe} is '{n}'")
         return renamed[low]
 
+    # a voltage-output behavioural source (BEHAV into '<name>#x' across
+    # '<name>.R', copied out by '<name>.E') is written back as one B V= card
+    by_name = {e.name: e for e in circuit.elements}
+    bvolt: dict[str, Element] = {}
+    for el in circuit.elements:
+        r, e = by_name.get(f"{el.name}.R"), by_name.get(f"{el.name}.E")
+        if el.kind == "BEHAV" and float((el.params or {}).get("SIGN", 1.0)) < 0 \
+                and r is not None and e is not None and r.kind == "R" and r.value == 1.0 \
+                and e.kind == "E" and e.value == 1.0 and tuple(e.nodes[2:]) == el.nodes \
+                and tuple(r.nodes) == el.nodes:
+            bvolt[el.name] = e
+    skip = {f"{n}.{k}" for n in bvolt for k in ("R", "E")}
+
     for el in circuit.elements:
         w = el.where
         f, ln = (w.file, w.line) if w else (None, None)
+        if el.name in skip:
+            continue
         if el.kind in ("OPAMP", "OTA"):
             raise DesignError(f"{el.kind} macromodels cannot be written as SPICE",
                               file=f, line=ln, part=el.name,
                               hint="replace it by a transistor-level subcircuit "
                                    "to compare with a SPICE simulator")
-        if el.kind not in ("R", "C", "L", "V", "I", "E", "G", "F", "H", "D", "Q", "J", "M"):
+        if el.kind not in ("R", "C", "L", "V", "I", "E", "G", "F", "H", "D", "Q", "J", "M",
+                           "BEHAV", "SW"):
             raise DesignError(f"element kind '{el.kind}' cannot be written as SPICE",
                               file=f, line=ln, part=el.name)
         sname = _spice_name(el)
@@ -1396,7 +1704,8 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
         used_names[sname] = el.name
         if sname not in (el.name.upper(), f"{el.kind[0]}.{el.name}".upper()):
             lines.append(f"* {sname} is '{el.name}'")
-        nodes = " ".join(node(n) for n in el.nodes)
+        nodes = " ".join(node(n) for n in (bvolt[el.name].nodes[:2] if el.name in bvolt
+                                          else el.nodes))
         p = el.params or {}
         if el.kind in ("R", "C", "L"):
             s = f"{sname} {nodes} {_fmt(el.value)}"
@@ -1414,6 +1723,32 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
                 s += f" {kind}(" + " ".join(_fmt(v) for v in vals) + ")"
         elif el.kind in ("E", "G"):
             s = f"{sname} {nodes} {_fmt(el.value)}"
+        elif el.kind == "SW":
+            mname = "M_" + sname.replace(".", "_")
+            mp = " ".join(f"{k}={_fmt(float(p[k]))}" for k in ("VT", "VH", "RON", "ROFF")
+                          if k in p)
+            models.append(f".model {mname} SW({mp})")
+            s = f"{sname} {nodes} {mname}" + (" ON" if float(p.get("STATE", 0)) > 0.5 else "")
+        elif el.kind == "BEHAV":
+            from engine.devices import behav
+            tree = behav.map_nets(behav.parse(str(p.get("EXPR", ""))), node)
+            body = behav.to_text(tree, spice=True)
+            if tree[0] == "call" and tree[1] == "table" and \
+                    float(p.get("SIGN", 1.0)) * (-1.0 if el.name in bvolt else 1.0) > 0:
+                # a table as a TABLE card, which ngspice reads its own way
+                # (corners rounded: see engine/devices/behav.py)
+                pts = [a[1] for a in tree[2][1:]]
+                own = sname[2:] if sname[1:2] == "." else sname
+                s = (("E." if el.name in bvolt else "G.") + own
+                     + f" {nodes} TABLE {{{behav.to_text(tree[2][0], spice=True)}}} = "
+                     + " ".join(f"({_fmt(pts[k])}, {_fmt(pts[k + 1])})"
+                                for k in range(0, len(pts), 2)))
+            elif el.name in bvolt:
+                s = f"{sname} {nodes} V = {body}"
+            else:
+                if float(p.get("SIGN", 1.0)) < 0:
+                    body = f"-({body})"
+                s = f"{sname} {nodes} I = {body}"
         elif el.kind in ("F", "H"):
             try:
                 ctl = circuit.element(str(p.get("CONTROL", "")))
@@ -1442,8 +1777,16 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
                 mp = ("LEVEL=1 " + mp).strip()
             models.append(f".model {mname} {mtype}({mp})")
             s = f"{sname} {nodes} {mname}"
+            if p.get("OFF"):
+                s += " OFF"
             s += "".join(f" {k}={_fmt(float(p[k]))}" for k in inst if k in p)
         lines.append(s)
     lines.extend(models)
+    if circuit.temperature is not None:
+        lines.append(f".temp {_fmt(float(circuit.temperature))}")
+    for what, table in (("nodeset", circuit.nodeset), ("ic", circuit.ic)):
+        if table:
+            lines.append(f".{what} " + " ".join(f"v({node(n)})={_fmt(float(v))}"
+                                                for n, v in table.items()))
     lines.append(".end")
     return "\n".join(lines) + "\n"

@@ -95,7 +95,7 @@ def _refresh_cache_stamp():
 
 _refresh_cache_stamp()
 
-from engine.devices import bjt, diode, jfet, mosfet, opamp, ota  # noqa: E402
+from engine.devices import behav, bjt, diode, jfet, mosfet, opamp, ota, switch  # noqa: E402
 from engine.devices._common import VT  # noqa: E402
 
 #: Largest number of ports whose Jacobian blocks a low-rank update of the
@@ -211,7 +211,7 @@ def wave_value(kind, par, t):
         return vo + va * math.exp(-tt * th) * math.sin(2.0 * math.pi * f * tt + phr)
     if kind == 2:  # PULSE(V1 V2 TD TR TF PW PER)
         v1, v2, td, tr, tf, pw, per = par[0], par[1], par[2], par[3], par[4], par[5], par[6]
-        if t < td:
+        if t <= td:  # V1 up to and at TD, the rise starts there (as ngspice)
             return v1
         tt = t - td
         if per > 0.0 and per < 1e300:
@@ -272,6 +272,10 @@ def eval_one(c, par, pa, v, po, i, G):
         opamp.evaluate(par, pa, v, po, i, G)
     elif c == 6:
         mosfet.evaluate(par, pa, v, po, i, G)
+    elif c == 9:
+        behav.evaluate(par, pa, v, po, i, G)
+    elif c == 10:
+        switch.evaluate(par, pa, v, po, i, G)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")

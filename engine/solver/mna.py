@@ -108,7 +108,10 @@ class Network:
         for el in els:
             if el.kind in REGISTRY:
                 mod = REGISTRY[el.kind]
-                lay = mod.layout(el)
+                if getattr(mod, "TEMPERATURE", False):
+                    lay = mod.layout(el, temp=circuit.temperature)
+                else:
+                    lay = mod.layout(el)
                 for n in lay.internal:
                     node(n)
                 self.devices.append((el, mod, lay, len(self.ports)))
@@ -402,7 +405,9 @@ class Network:
         u = np.zeros(self.nu)
         for k, el in enumerate(self.sources):
             kind, par = source_wave(el)
-            if kind == 0:
+            # the input source plays its DC value plus the input samples
+            # (its waveform is not played), so it starts from its DC value
+            if kind == 0 or k == self.input_index:
                 u[k] = values[el.name]
             else:
                 u[k] = wave_value(kind, par, t)
@@ -414,8 +419,14 @@ _WAVE_DEFAULTS = {"SIN": [0.0, 0.0, 0.0, 0.0, 0.0, 0.0],
                   "PULSE": [0.0, 0.0, 0.0, 0.0, 0.0, math.inf, math.inf]}
 
 
-def source_wave(el) -> tuple[int, np.ndarray]:
-    """Waveform code and parameter vector of a V/I element (0: DC)."""
+def source_wave(el, step: float | None = None) -> tuple[int, np.ndarray]:
+    """Waveform code and parameter vector of a V/I element (0: DC).
+
+    A PULSE with TR or TF of zero (or left out) rises or falls over one
+    simulation ``step`` when that is given, as ngspice-39 uses its TSTEP
+    there (checked: PULSE(0 1 0 0 ...) with ``tran 10u`` reads 2e-4 V at
+    2 ns); at t = 0 such a pulse is at V1, so the operating point and the
+    first rendered sample agree."""
     w = (el.params or {}).get("wave")
     if not w:
         return 0, np.zeros(0)
@@ -436,6 +447,10 @@ def source_wave(el) -> tuple[int, np.ndarray]:
             raise DesignError(f"too many {kind} parameters", part=el.name, **_where(el))
         d[:len(vals)] = vals
         vals = d
+        if kind == "PULSE" and step is not None:
+            for k in (3, 4):
+                if not vals[k] > 0:
+                    vals[k] = float(step)
     return WAVE_CODES[kind], np.array(vals, dtype=np.float64)
 
 

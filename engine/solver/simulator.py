@@ -20,6 +20,10 @@ from engine.solver.dcop import OperatingPoint, report, solve_dc
 from engine.solver.mna import VALUE_KINDS, Network, device_arrays, source_wave
 from engine.solver.statespace import Model, ProbeRow, derive, padded
 
+#: Key of a live change that sets the circuit temperature (degrees Celsius)
+#: instead of an element value: ``sim.set_values({TEMPERATURE_KEY: 45.0})``.
+TEMPERATURE_KEY = "@temperature"
+
 _PROBE_RE = re.compile(r"^\s*([A-Za-z]+)\s*\((.*)\)\s*$")
 _UNITS = {"v": "V", "i": "A", "ic": "A", "ib": "A", "ie": "A", "id": "A", "ig": "A",
           "vbe": "V", "vce": "V", "vgs": "V", "vds": "V", "vd": "V", "iabc": "A",
@@ -153,6 +157,32 @@ def make_probe(net: Network, text: str) -> ProbeRow:
                       hint="probe a transistor, diode, JFET, OTA or op-amp by its name")
 
 
+def source_rate_warnings(net: Network, step: float) -> list[str]:
+    """Warnings for waveform sources the simulation step cannot carry: a SIN
+    at or above the kernel's Nyquist frequency 1/(2*step) folds back
+    (aliases) to a lower frequency, a PULSE repeating in under two steps
+    is not a pulse train any more.  The input source is not played from its
+    waveform and is not checked."""
+    out = []
+    nyq = 0.5 / step
+    for k, el in enumerate(net.sources):
+        if k == net.input_index:
+            continue
+        kind, par = source_wave(el)
+        where = el.where
+        at = (f"{where.file}:{where.line}: " if where and where.file and where.line
+              else "")
+        if kind == 1 and abs(par[2]) >= nyq:
+            out.append(f"{at}source {el.name}: SIN frequency {par[2]:g} Hz is at or above "
+                       f"the simulation's Nyquist frequency {nyq:g} Hz and aliases; raise "
+                       "the sample rate or the oversampling")
+        elif kind == 2 and 0 < par[6] < 2.0 * step:
+            out.append(f"{at}source {el.name}: PULSE period {par[6]:g} s is shorter than two "
+                       f"simulation steps ({2 * step:g} s) and aliases; raise the sample "
+                       "rate or the oversampling")
+    return out
+
+
 class Simulator:
     """Real-time simulation of a flat circuit.
 
@@ -172,7 +202,10 @@ class Simulator:
         relative tolerance (kernel RELTOL, 1e-6 of the port voltage) scales
         with it.
 
-    The simulation starts at the DC operating point (no thump).
+    The simulation starts at the DC operating point (no thump), solved with
+    every source at its t = 0 value (the input source at its DC value), as
+    ngspice starts a transient.  ``warnings`` lists waveform sources above
+    the simulation's Nyquist frequency (:func:`source_rate_warnings`).
     """
 
     def __init__(self, circuit: Circuit, fs: float = 48000.0, oversample: int = 1,
@@ -194,6 +227,17 @@ class Simulator:
         from engine.solver.oversample import Resampler
         self._rs = Resampler(self.oversample, self.block_max, self.fs)
         self.latency_samples = float(self._rs.latency)
+        # Probes are read inside the kernel, behind the upsampling filter
+        # only, which delays by half the round trip: latency*L/2 kernel
+        # samples.  A probe frame is taken at the kernel sample whose phase
+        # makes that delay a whole number of outer samples (for an odd
+        # latency, half an outer sample after the sample's own instant), so
+        # the frames line up with the audio exactly.
+        L = self.oversample
+        dk = int(round(self.latency_samples * L / 2))
+        self._probe_phase = dk % L
+        #: delay of probe frames behind the input, whole outer samples
+        self.probe_latency_samples = float((dk - self._probe_phase) // L)
         self._T = 1.0 / (self.fs * self.oversample)
         out_a, out_b = circuit.output
         rows = [make_probe(net, f"v({out_a},{out_b})")]
@@ -205,15 +249,19 @@ class Simulator:
         self._lock = threading.Lock()
         self._values = dict(net.values)
         self._arr = device_arrays(net)
+        self._arr_next = self._arr
+        #: circuit temperature, degrees Celsius (None: 27)
+        self.temperature = circuit.temperature
         # one or two nonlinear ports: the lean path (same state and counters)
         self._run = K.run_block_small if 0 < net.np_ <= K.SMALL_PORTS else K.run_block
         skind, spars = [], []
         for k, el in enumerate(net.sources):
-            kd, par = source_wave(el)
+            kd, par = source_wave(el, self._T)
             if k == net.input_index:
                 kd, par = 0, np.zeros(0)
             skind.append(kd)
             spars.append(par)
+        self.warnings = source_rate_warnings(net, self._T)
         self._skind = np.array(skind, dtype=np.int64)
         self._sptr = np.zeros(len(spars) + 1, dtype=np.int64)
         self._sptr[1:] = np.cumsum([p.size for p in spars]) if spars else []
@@ -261,6 +309,10 @@ class Simulator:
             self._dc_values = dict(m.values)
             self._op = None
         dc = self._dc
+        if getattr(net.circuit, "ic", None):
+            # a render starts from the operating point with the .ic nets
+            # held (ngspice's transient operating point)
+            dc = solve_dc(net, m.values, initial=True)
         r = net.state_read_rows() @ dc.w
         self._x[:] = m.g * r  # capacitor: Gc*v with zero current; inductor: RL*i
         self._xp[:] = self._x
@@ -278,7 +330,9 @@ class Simulator:
         self._ws[10, 2] = self.tolerance
         self._ws[10, 3] = K.RELTOL * self.tolerance / K.ERR_TOL
         self._cnt[:] = 0
+        self._cnt[K.C_PHASE] = (self._pdec - self._probe_phase) % self._pdec
         self._model = m
+        self._arr = self._arr_next
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i[:n]
                           + m.Vy[0] @ dc.v)
         self._rs.reset()
@@ -306,7 +360,10 @@ class Simulator:
         currents and inductor currents carried over.
         """
         net = self.net
+        changes = dict(changes)
         with self._lock:
+            if TEMPERATURE_KEY in changes:
+                self._set_temperature(changes.pop(TEMPERATURE_KEY))
             new = dict(self._values)
             for name, val in changes.items():
                 el = net.elements.get(name)
@@ -319,8 +376,33 @@ class Simulator:
             self._values = new
             self._next = model
 
+    def _set_temperature(self, temp_c) -> None:
+        """Re-derive every device's parameters at a new circuit temperature
+        (degrees Celsius); the audio thread takes them at its next block."""
+        net = self.net
+        t = float(temp_c)
+        if not -100.0 <= t <= 250.0:
+            raise DesignError(f"temperature {t:g} degC is out of range (-100 to 250)",
+                              part="temperature")
+        devs = []
+        for el, mod, lay, po in net.devices:
+            if getattr(mod, "TEMPERATURE", False):
+                new = mod.layout(el, temp=t)
+                if new.ports != lay.ports or new.par.size != lay.par.size:
+                    raise DesignError("a temperature change moved a device's ports",
+                                      part=el.name)
+                lay = new
+            devs.append((el, mod, lay, po))
+        net.devices = devs
+        self.temperature = t
+        self._arr_next = device_arrays(net)
+        self._dc_values = None  # the operating point moved
+
     # ------------------------------------------------------------ audio thread
     def _swap(self):
+        a = self._arr_next
+        if a is not self._arr:
+            self._arr = a
         m = self._next
         if m is not self._model:
             K.convert_states(self._x, self._xp, self._model.g, m.g, m.a, m.b)
