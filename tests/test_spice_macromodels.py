@@ -146,6 +146,20 @@ def test_builtin_design_operating_point_matches_ngspice(name, version):
     assert worst < 1e-3, f"{name}: {worst * 1e3:.3f} mV"
 
 
+def test_ota_law_ignores_the_circuit_temperature_in_the_written_netlist(version):
+    # at 60 degC the transistors and diodes follow ngspice's temperature
+    # laws (docs/references.md) and the OTA law does not (ota.py): the
+    # written diode's EG = XTI = 0 and N at 60 degC keep it so, every net
+    # within 1 mV of ours
+    from engine.solver.dcop import operating_point
+    circ = load_design("flagship").flatten()
+    circ.temperature = 60.0
+    text = circuit_to_netlist(circ)
+    assert ".temp 60" in text and "EG=0 XTI=0" in text
+    worst, missing = _compare(operating_point(circ).nets, S.run_op(S.circuit_cards(text)))
+    assert not missing and worst < 1e-3, (worst, missing, version)
+
+
 def test_flagship_small_sine_matches_ngspice_at_the_same_step(version):
     from engine.solver import Simulator
     fs, dur, amp, f0 = 48000.0, 0.02, 0.05, 1000.0
