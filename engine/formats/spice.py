@@ -1644,9 +1644,10 @@ def _macromodel_subckt(el: Element, temperature, subckts: dict) -> str:
     adding its text to ``subckts`` (keyed by kind and parameters) if new.
 
     OTA (engine/devices/ota.py), pins inp inn out abc vee: the control
-    junction(s) as one ngspice diode of emission coefficient JUNCTIONS*N (the
-    same Shockley law, reverse approximation and GMIN as the engine, with
-    ngspice's junction limiting for convergence); the output current
+    junction(s) as one ngspice diode whose N times ngspice's thermal voltage
+    is JUNCTIONS*N*VT (the same Shockley law, reverse approximation and GMIN
+    as the engine, with ngspice's junction limiting for convergence); the
+    output current
     ``max(Ij, 0)*tanh(Vd/(2VT))*s(Vo)`` as a B source, Ij recomputed from the
     control voltage with the engine's exponential, s the same soft compliance
     (the side chosen by the sign of Vd); ROUT and RIN as resistors.
