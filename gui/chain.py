@@ -20,6 +20,8 @@ from gui.model import Workbench
 BW, BH, GAP = 150.0, 84.0, 46.0
 PORT_R = 5.5
 X0, Y0 = 20.0, 24.0
+SIDE_Y = Y0 + BH + 40.0
+"""Top of the row of side-branch stages (below the signal line)."""
 
 
 class PortItem(QGraphicsEllipseItem):
@@ -52,9 +54,16 @@ class StageBlock(QGraphicsRectItem):
         title.setFont(f)
         title.setBrush(QColor(theme.TEXT))
         title.setPos(30, 4)
-        kind = QGraphicsSimpleTextItem((st.kind or "stage")[:24], self)
+        kind = QGraphicsSimpleTextItem("", self)
         kind.setBrush(QColor(theme.DIM))
         kind.setFont(QFont("", 8))
+        # elided to the block's width (with a tooltip), never cut mid-word
+        from PyQt6.QtGui import QFontMetricsF
+        full = st.kind or "stage"
+        kind.setText(QFontMetricsF(kind.font()).elidedText(full, Qt.TextElideMode.ElideRight,
+                                                           BW - 16))
+        if kind.text() != full:
+            kind.setToolTip(full)
         kind.setPos(8, 28)
         nparts = QGraphicsSimpleTextItem(f"{len(st.parts)} parts", self)
         nparts.setBrush(QColor(theme.DIM))
@@ -113,6 +122,7 @@ class ChainView(QGraphicsView):
         self.setBackgroundBrush(QBrush(QColor(theme.INSET)))
         self.setAlignment(Qt.AlignmentFlag.AlignLeft | Qt.AlignmentFlag.AlignTop)
         self.setMinimumHeight(int(BH + 2 * Y0 + 70))
+        self.side: set[str] = set()
         self.setFocusPolicy(Qt.FocusPolicy.StrongFocus)
         self.blocks: dict[str, StageBlock] = {}
         self.link_items: list[tuple[QGraphicsPathItem, int]] = []
@@ -129,24 +139,40 @@ class ChainView(QGraphicsView):
         self.link_items = []
         self._rubber = None
         d = self.wb.design
+        # stages on the signal line (with an out port) in one row; side
+        # branches (no out port: a detector, a bias network) in a row below,
+        # under the point of the line they hang from
+        col = 0
+        side_at: dict[int, int] = {}
+        self.side: set[str] = set()
         for i, st in enumerate(d.stages):
             b = StageBlock(st, i)
-            b.setPos(X0 + i * (BW + GAP), Y0)
+            if "out" in st.ports:
+                b.setPos(X0 + col * (BW + GAP), Y0)
+                col += 1
+            else:
+                k = side_at.get(col, 0)
+                side_at[col] = k + 1
+                x = X0 + max(col - 0.5, 0.0) * (BW + GAP) + k * (BW + GAP / 2)
+                b.setPos(x, SIDE_Y)
+                b.setToolTip(f"{st.name}: a side branch (no out port), fed from the "
+                             "signal line, not in series with it")
+                self.side.add(st.name)
             self.scene_.addItem(b)
             self.blocks[st.name] = b
         # jacks
         self._jack("IN", X0 - 14, Y0 + BH / 2, left=True)
-        n = len(d.stages)
-        self._jack("OUT", X0 + n * (BW + GAP) - GAP + 14, Y0 + BH / 2)
-        # the signal path
+        self._jack("OUT", X0 + col * (BW + GAP) - GAP + 14, Y0 + BH / 2)
+        # the signal path, and taps down to side branches with an input
         pen = QPen(QColor(theme.DIM), 2)
+        tap = QPen(QColor(theme.DIM), 1.6, Qt.PenStyle.DotLine)
         prev = None
         for st in d.stages:
             b = self.blocks[st.name]
             if prev is not None and "in" in b.ports:
                 a = prev.mapToScene(QPointF(BW, BH / 2))
                 c = b.ports["in"].scenePos()
-                self._arrow(a, c, pen)
+                self._arrow(a, c, pen if st.name not in self.side else tap)
             if "out" in st.ports:
                 prev = b
         # links
@@ -171,6 +197,9 @@ class ChainView(QGraphicsView):
             self.selected = d.stages[0].name if d.stages else None
         self._show_selection()
         self.setSceneRect(self.scene_.itemsBoundingRect().adjusted(-10, -10, 20, 10))
+        # tall enough for the row of side branches without scrolling
+        self.setMinimumHeight(min(int(self.sceneRect().height()) + 6,
+                                  int(SIDE_Y + BH + 36)))
 
     def _jack(self, text, x, y, left=False):
         it = QGraphicsSimpleTextItem(text)

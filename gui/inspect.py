@@ -14,6 +14,19 @@ from engine.values import format_value
 from gui import theme
 
 
+def frequency_ticks(plot) -> None:
+    """Readable ticks on a log frequency axis: 10, 20, 50, 100 ... 20k Hz
+    (pyqtgraph's own minor labels run into each other on a narrow plot)."""
+    major, minor = [], []
+    for dec in (1, 10, 100, 1000, 10000):
+        for m in (1, 2, 5):
+            v = m * dec
+            if 10 <= v <= 50000:
+                label = f"{v // 1000}k" if v >= 1000 else f"{v}"
+                (major if m == 1 else minor).append((float(np.log10(v)), label))
+    plot.getAxis("bottom").setTicks([major, minor])
+
+
 def _fmt(v, unit: str) -> str:
     if isinstance(v, str):
         return v
@@ -69,6 +82,8 @@ class InspectPanel(QWidget):
             for ax in ("left", "bottom"):
                 w.getAxis(ax).enableAutoSIPrefix(False)
         self.zin.setLabel("left", "input impedance (Ω)")
+        frequency_ticks(self.gain)
+        frequency_ticks(self.zin)
         self.zin.setLabel("bottom", "frequency (Hz)")
         self.ac_status = QLabel("")
         self.ac_status.setProperty("role", "dim")

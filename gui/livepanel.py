@@ -19,7 +19,7 @@ from collections import deque
 import numpy as np
 from PyQt6.QtCore import QRectF, Qt, pyqtSignal
 from PyQt6.QtGui import QColor, QFont, QPainter, QPen
-from PyQt6.QtWidgets import (QComboBox, QGridLayout, QGroupBox, QHBoxLayout, QLabel,
+from PyQt6.QtWidgets import (QComboBox, QGridLayout, QGroupBox, QHBoxLayout, QLabel, QLineEdit,
                              QPushButton, QSizePolicy, QSlider, QVBoxLayout, QWidget)
 
 from gui import theme
@@ -29,6 +29,27 @@ TRACE_SECONDS = 5.0
 SCOPE_LIVE_S = 0.05
 """The live scope shows the last 50 ms of input and output (a few cycles of
 a low guitar note)."""
+SCOPE_MIN_V = 1e-3
+"""Smallest half-range of the scope axes (1 mV): a silent input or output
+keeps readable axes instead of shrinking to nothing."""
+METER_HELP = {
+    "input": ("input level: the signal at the input jack, RMS bar and peak mark, in dB "
+              "relative to the converter's full scale (dBFS)"),
+    "output": ("output level: what goes to the speakers after the output level control "
+               "and the safety limiter, RMS bar and peak mark, dBFS"),
+    "control": ("control current: the gain cell's control signal (the current the design "
+                "names as its control, e.g. an OTA's bias current), µA"),
+    "gain red.": ("gain reduction: how far the gain cell has turned the signal down from "
+                  "its gain at rest, dB (0 dB = no reduction; more negative = more "
+                  "compression). Read from the control current through the cell's law, "
+                  "or measured as output level minus input level minus the small-signal "
+                  "gain when no law is given"),
+}
+
+
+def probe_label(name: str, unit: str) -> str:
+    """A probe trace's label: its name and unit, e.g. ``v(out) (V)``."""
+    return f"{name} ({unit})" if unit else name
 
 
 class BarMeter(QWidget):
@@ -43,9 +64,19 @@ class BarMeter(QWidget):
         self.from_top = from_top
         self.value: float | None = None
         self.hold: float | None = None
+        self.blank = "—"                 # text shown when there is no value
         self.invalid = False
         self.setMinimumSize(70, 180)
         self.setSizePolicy(QSizePolicy.Policy.Preferred, QSizePolicy.Policy.Expanding)
+
+    def _readout(self) -> str:
+        v = ("NaN" if self.invalid else self.blank if self.value is None
+             else f"{self.value:.1f}")
+        return f"{v} {self.unit}"
+
+    def text(self) -> str:
+        """What the meter shows as text (title and readout)."""
+        return f"{self.title} {self._readout()}"
 
     def set_value(self, v: float | None, hold: float | None = None) -> None:
         # NaN/inf is shown as such, never as an empty (quiet-looking) meter
@@ -92,9 +123,8 @@ class BarMeter(QWidget):
         f2 = QFont(theme.MONO)
         f2.setPointSize(9)
         p.setFont(f2)
-        txt = "NaN" if self.invalid else "—" if self.value is None else f"{self.value:.1f}"
         p.drawText(QRectF(0, bot + 3, w, 18), Qt.AlignmentFlag.AlignCenter,
-                   f"{txt} {self.unit}")
+                   self._readout())
         p.end()
 
 
@@ -112,6 +142,7 @@ class StripChart(QWidget):
         self.data: dict[str, tuple] = {}
         self.yr: dict[str, tuple[float, float]] = {k: (0.0, 1.0) for k, _, _ in self.rows}
         self.labels = {k: lab for k, lab, _ in self.rows}
+        self.hidden: set[str] = set()
         self.xr = (0.0, 1.0)
         self.x_label = "time (s)"
         self.setMinimumHeight(180)
@@ -131,19 +162,36 @@ class StripChart(QWidget):
             self.labels[key] = label
         self.update()
 
+    def set_visible_rows(self, keys) -> None:
+        """Show only the traces in ``keys`` (others are hidden)."""
+        self.hidden = {k for k, _, _ in self.rows if k not in set(keys)}
+        self.update()
+
+    def clear(self) -> None:
+        self.data.clear()
+        self.update()
+
+    def visible_rows(self):
+        return [r for r in self.rows if r[0] not in self.hidden]
+
     def paintEvent(self, _e):
         from PyQt6.QtGui import QTransform
         import pyqtgraph as pg
         p = QPainter(self)
         w, h = self.width(), self.height()
-        left, right, top, bottom = 78, 8, 4, 20
-        n = len(self.rows)
-        rh = (h - top - bottom) / n
-        x0, x1 = self.xr
         f = QFont()
         f.setPointSize(8)
         p.setFont(f)
-        for i, (key, _lab, colour) in enumerate(self.rows):
+        rows = self.visible_rows()
+        fm = p.fontMetrics()
+        # the label column is as wide as the longest label (never cut short)
+        widest = max([fm.horizontalAdvance(self.labels.get(k, k)) for k, _, _ in rows]
+                     + [fm.horizontalAdvance(self.x_label) + 22, 60])
+        left, right, top, bottom = min(widest + 12, max(w // 3, 78)), 8, 4, 20
+        n = max(len(rows), 1)
+        rh = (h - top - bottom) / n
+        x0, x1 = self.xr
+        for i, (key, _lab, colour) in enumerate(rows):
             r = QRectF(left, top + i * rh + 2, w - left - right, rh - 4)
             p.fillRect(r, QColor(theme.INSET))
             p.setPen(QPen(QColor(theme.RULE), 1))
@@ -156,7 +204,9 @@ class StripChart(QWidget):
                        f"{y0:.3g}")
             p.setPen(QColor(colour))
             p.drawText(QRectF(2, r.center().y() - 8, left - 6, 16),
-                       Qt.AlignmentFlag.AlignRight, self.labels.get(key, key)[:12])
+                       Qt.AlignmentFlag.AlignRight,
+                       fm.elidedText(self.labels.get(key, key), Qt.TextElideMode.ElideMiddle,
+                                     left - 6))
             if y0 < 0 < y1:
                 yz = r.bottom() - (0 - y0) / (y1 - y0) * r.height()
                 p.setPen(QPen(QColor(theme.RULE), 1, Qt.PenStyle.DotLine))
@@ -179,6 +229,9 @@ class StripChart(QWidget):
         # time axis
         p.setPen(QColor(theme.DIM))
         span = x1 - x0
+        if not (span > 0 and math.isfinite(span)):
+            p.end()
+            return
         step = 0.5 if span <= 3 else 1.0
         k = math.ceil(x0 / step)
         while k * step <= x1 + 1e-9:
@@ -188,7 +241,8 @@ class StripChart(QWidget):
             p.drawText(QRectF(px - 20, h - bottom + 3, 40, 14), Qt.AlignmentFlag.AlignCenter,
                        f"{xv:g}")
             k += 1
-        p.drawText(QRectF(0, h - bottom + 3, left - 6, 14), Qt.AlignmentFlag.AlignRight,
+        # clear of the first tick's number, which is centred on the left edge
+        p.drawText(QRectF(0, h - bottom + 3, left - 24, 14), Qt.AlignmentFlag.AlignRight,
                    self.x_label)
         p.end()
 
@@ -239,6 +293,9 @@ class LivePanel(QWidget):
     level_changed = pyqtSignal(float)
     mute_changed = pyqtSignal(bool)
     source_changed = pyqtSignal(str)
+    midi_connect = pyqtSignal()
+    probe_requested = pyqtSignal(str)
+    midi_learn = pyqtSignal(bool)
 
     def __init__(self, parent=None):
         super().__init__(parent)
@@ -283,6 +340,20 @@ class LivePanel(QWidget):
         g.addWidget(QLabel("level"), 3, 0)
         g.addWidget(self.level, 3, 1, 1, 2)
         g.addWidget(self.level_lab, 3, 3)
+        self.midi_btn = QPushButton("MIDI knobs…")
+        self.midi_btn.setToolTip("connect a MIDI controller: its knobs turn the design's pots")
+        self.learn_btn = QPushButton("Learn")
+        self.learn_btn.setCheckable(True)
+        self.learn_btn.setEnabled(False)
+        self.learn_btn.setToolTip("learn: turn a pot in the workbench, then turn a knob on "
+                                  "the controller")
+        self.midi_lab = QLabel("no controller")
+        self.midi_lab.setProperty("role", "dim")
+        g.addWidget(self.midi_btn, 4, 0, 1, 2)
+        g.addWidget(self.learn_btn, 4, 2)
+        g.addWidget(self.midi_lab, 4, 3)
+        self.midi_btn.clicked.connect(self.midi_connect)
+        self.learn_btn.toggled.connect(self.midi_learn)
         self.preview_btn.clicked.connect(self.preview_requested)
         self.run_btn.toggled.connect(lambda on: (self.start_requested if on
                                                  else self.stop_requested).emit())
@@ -303,24 +374,57 @@ class LivePanel(QWidget):
         st.addStretch(1)
         # meters
         mbox = QGroupBox("METERS")
-        ml = QHBoxLayout(mbox)
+        ml = QHBoxLayout()
         self.m_in = BarMeter("input", "dBFS", -60, 0, (-60, -40, -20, -10, 0), theme.GOOD)
         self.m_out = BarMeter("output", "dBFS", -60, 0, (-60, -40, -20, -10, 0), theme.GOOD)
         self.m_ctl = BarMeter("control", "µA", 0, 100, (0, 25, 50, 75, 100), theme.READ)
         self.m_gr = BarMeter("gain red.", "dB", -30, 0, (-30, -20, -10, -5, 0), theme.SET,
                              from_top=True)
         for m in (self.m_in, self.m_out, self.m_ctl, self.m_gr):
+            m.setToolTip(METER_HELP[m.title])
             ml.addWidget(m)
+        self.meter_legend = QLabel()
+        self.meter_legend.setWordWrap(True)
+        self.meter_legend.setProperty("role", "dim")
+        mcol = QVBoxLayout()
+        mcol.addLayout(ml, 1)
+        mcol.addWidget(self.meter_legend)
+        self.dyn = QLabel("attack —   release —")
+        self.dyn.setProperty("role", "read")
+        self.dyn.setToolTip(
+            "attack and release of the design, measured offline after each edit as the demo "
+            "measures them: a 220 Hz tone burst; attack = time for the gain reduction to "
+            "cover 63 % (1 - 1/e) of its step after the burst starts, release = time to "
+            "recover 63 % after it ends")
+        mcol.addWidget(self.dyn)
+        mbox.setLayout(mcol)
+        self.has_control = True
+        self.blind = False
+        self._legend()
         # traces
         tbox = QGroupBox("TRACES — LAST SECONDS")
         tl = QVBoxLayout(tbox)
-        self.traces = StripChart([("gain reduction", "GR dB", theme.SET),
-                                  ("control current", "ctl µA", theme.READ),
+        self.traces = StripChart([("gain reduction", "gain reduction (dB)", theme.SET),
+                                  ("control current", "control current (µA)", theme.READ),
                                   ("probe", "probe", theme.TRACE_COLOURS[2])])
+        self.traces.setToolTip(f"{METER_HELP['gain red.']}\n{METER_HELP['control']}\n"
+                               "the last trace is the probe chosen below (its name and unit "
+                               "on the left)")
         tl.addWidget(self.traces)
         self.probe_pick = QComboBox()
-        self.probe_pick.setToolTip("probe shown in the third trace")
-        tl.addWidget(self.probe_pick)
+        self.probe_pick.setToolTip("the probe shown in the last trace: a net's voltage (V) "
+                                   "or a device current (A, drawn in µA)")
+        prow = QHBoxLayout()
+        prow.addWidget(self.probe_pick, 2)
+        self.probe_add = QLineEdit()
+        self.probe_add.setPlaceholderText("add probe: v(out), ic(Q1) … Enter")
+        self.probe_add.setToolTip("probe any net or device by the names in the Inside tab's "
+                                  "operating point: v(net), v(net1,net2), i(part), ic(Q), "
+                                  "vce(Q), id(D) …")
+        prow.addWidget(self.probe_add, 1)
+        tl.addLayout(prow)
+        self.probe_add.returnPressed.connect(
+            lambda: self.probe_requested.emit(self.probe_add.text()))
         # scope
         sbox = QGroupBox("SCOPE — OUT AGAINST IN")
         sl = QVBoxLayout(sbox)
@@ -349,6 +453,8 @@ class LivePanel(QWidget):
         self.hist: dict[str, deque] = {}
         self.hist_t: deque = deque(maxlen=4000)
         self.last_preview = None
+        self._live_probe = None
+        self.want_probe: str | None = None     # a probe just added: show it
         self._ranges: dict = {}
         self.probe_pick.currentTextChanged.connect(lambda _t: self._redraw_probe())
 
@@ -401,7 +507,9 @@ class LivePanel(QWidget):
         self.probe_pick.blockSignals(True)
         self.probe_pick.clear()
         self.probe_pick.addItems(probes + ["input level", "output level"])
-        if keep in probes + ["input level", "output level"]:
+        if self.want_probe in probes:
+            self.probe_pick.setCurrentText(self.want_probe)
+        elif keep in probes + ["input level", "output level"]:
             self.probe_pick.setCurrentText(keep)
         elif len(probes) > 1:
             self.probe_pick.setCurrentIndex(1)
@@ -423,7 +531,7 @@ class LivePanel(QWidget):
         if unit == "A":
             data, unit = data * 1e6, "µA"
         self.traces.set_trace("probe", r.t, data, self._fit("probe", data),
-                              label=f"{key}")
+                              label=probe_label(key, unit))
 
     def _fit(self, key: str, data) -> None:
         """Y range of a trace: gain reduction always shows at least 0 to -6 dB;
@@ -463,15 +571,27 @@ class LivePanel(QWidget):
         if gr is None:
             gr = va.get("gr_measured_db")
         self.m_gr.set_value(None if gr is None else min(gr, 0.0))
-        t = snap.get("blocks", 0)
-        self.hist_t.append(t)
-        for key, v in (("gain reduction", gr), ("control current", va.get("control_ua"))):
-            self.hist.setdefault(key, deque(maxlen=4000)).append(np.nan if v is None else v)
         pk = self.probe_pick.currentText()
         probes = va.get("probes", {})
         if self.probe_pick.count() == 0 and probes:
             self.probe_pick.addItems(list(probes))
-        self.hist.setdefault("probe", deque(maxlen=4000)).append(probes.get(pk, np.nan))
+            if self.want_probe in probes:
+                self.probe_pick.setCurrentText(self.want_probe)
+            pk = self.probe_pick.currentText()
+        unit = va.get("probe_units", {}).get(pk, "")
+        val = probes.get(pk, np.nan)
+        if unit == "A" and val is not None:
+            val, unit = val * 1e6, "µA"
+        if pk != self._live_probe:          # another probe: its trace starts afresh
+            self._live_probe = pk
+            self.hist_t.clear()
+            self.hist.clear()
+            self._ranges.pop("probe", None)
+            self.traces.labels["probe"] = probe_label(pk, unit)
+        self.hist_t.append(snap.get("blocks", 0))
+        for key, v in (("gain reduction", gr), ("control current", va.get("control_ua")),
+                       ("probe", val)):
+            self.hist.setdefault(key, deque(maxlen=4000)).append(np.nan if v is None else v)
         lat = snap.get("latency", {})
         self.cpu.set(f"{100 * snap.get('cpu_load', 0):.0f} %  max "
                      f"{100 * snap.get('cpu_load_max', 0):.0f} %",
@@ -486,9 +606,9 @@ class LivePanel(QWidget):
         """Redraw the scrolling traces from the live history (GUI timer).
         Time runs as "seconds ago" on a fixed axis and the y ranges move only
         when the data leaves them, so the axes are not re-rendered every frame."""
-        if not self.hist_t:
+        if not self.hist_t or not fs > 0 or not block > 0:
             return
-        t = np.asarray(self.hist_t, dtype=float) * block / fs
+        t = np.asarray(self.hist_t, dtype=float) * (block / fs)
         t = t - t[-1]
         keep = t >= -TRACE_SECONDS
         for key in ("gain reduction", "control current", "probe"):
@@ -519,15 +639,20 @@ class LivePanel(QWidget):
 
     def show_scope(self, x, y) -> None:
         """Draw output against input from the live scope capture (volts)."""
-        if len(x) < 2:
+        x = np.asarray(x, dtype=float)
+        y = np.asarray(y, dtype=float)
+        if len(x) < 2 or len(x) != len(y):
             return
-        self.scope_curve.setData(x, y)
+        self.scope_curve.setData(x, y, connect="finite")
         # fixed ranges that move only when the data leaves them or shrinks to
-        # a quarter, so the axes are not re-rendered every frame
+        # a quarter, so the axes are not re-rendered every frame; never below
+        # SCOPE_MIN_V (silence or denormal values would give the axis a zero
+        # tick spacing, and pyqtgraph's axis divides by it)
         for key, d in (("scope x", x), ("scope y", y)):
-            m = float(np.max(np.abs(d))) if len(d) else 0.0
+            d = d[np.isfinite(d)]
+            m = max(float(np.max(np.abs(d))) if len(d) else 0.0, SCOPE_MIN_V / 1.25)
             cur = self._ranges.get(key)
-            if m > 0 and (cur is None or m > cur or m < 0.25 * cur):
+            if cur is None or m > cur or m < 0.25 * cur:
                 r = 1.25 * m
                 self._ranges[key] = r
                 if key == "scope x":
@@ -535,7 +660,81 @@ class LivePanel(QWidget):
                 else:
                     self.scope.setYRange(-r, r, padding=0)
 
+    def _legend(self) -> None:
+        if self.blind:
+            self.meter_legend.setText("Blind trial: the output meter, control, gain "
+                                      "reduction, traces and scope are hidden until it ends.")
+            return
+        parts = ["input / output: RMS level in dBFS (bar) and peak (mark)"]
+        if self.has_control:
+            parts.append("control: the gain cell's control current, µA")
+            parts.append("gain red.: gain reduction, dB below the resting gain "
+                         "(0 dB = none)")
+        self.meter_legend.setText(";  ".join(parts))
+
+    def set_has_control(self, on: bool) -> None:
+        """Show the control and gain-reduction meters and traces only for a
+        design that declares a control (a gain cell)."""
+        self.has_control = bool(on)
+        self.m_ctl.setVisible(self.has_control)
+        self.m_gr.setVisible(self.has_control)
+        self.dyn.setVisible(self.has_control)
+        self.traces.set_visible_rows(
+            ["gain reduction", "control current", "probe"] if self.has_control else ["probe"])
+        self._legend()
+
+    def show_dynamics(self, r) -> None:
+        """Attack and release readouts (a :class:`gui.preview.Dynamics` or None)."""
+        def ms(v):
+            return "—" if v is None else (f"{v * 1e3:.1f} ms" if v < 0.1 else
+                                          f"{v * 1e3:.0f} ms")
+        if r is None:
+            self.dyn.setText("attack —   release —")
+            return
+        self.dyn.setText(f"attack (63 %) {ms(r.attack_s)}   release (63 %) {ms(r.release_s)}")
+
+    def set_blind(self, on: bool) -> None:
+        """Blind trial: hide every reading that differs between A and B
+        (output, control, gain reduction, CPU, traces, scope); keep the input
+        meter (the same source feeds both), xruns and latency."""
+        self.blind = bool(on)
+        self._legend()
+        for m in (self.m_out, self.m_ctl, self.m_gr):
+            m.blank = "hidden" if self.blind else "—"
+            m.set_value(None)
+        if self.blind:
+            self.traces.clear()
+            self.scope_curve.setData([], [])
+            self.cpu.set("hidden")
+            self.state.set("LIVE (blind trial)")
+        self.hist.clear()
+        self.hist_t.clear()
+
+    def show_blind(self, snap: dict) -> None:
+        """A meter frame during a blind trial: only what is the same for A and B."""
+        self.m_in.set_value(snap["input"]["rms_dbfs"], snap["input"]["peak_dbfs"])
+        self.xruns.set(str(snap.get("xruns", 0)), bad=snap.get("xruns", 0) > 0)
+        self.latency.set(f"{1e3 * snap.get('latency', {}).get('total_s', 0):.1f} ms")
+        self.state.set("LIVE (blind trial)" +
+                       (f"  muted: {snap['guard']}" if snap.get("guard") else ""),
+                       bad=bool(snap.get("guard")))
+
+    def stopped(self) -> None:
+        """Playback ended: say so and blank the live readings (they no longer
+        move, so they must not look live)."""
+        self.set_blind(False)
+        for m in (self.m_in, self.m_out, self.m_ctl, self.m_gr):
+            m.set_value(None)
+        self.state.set("stopped")
+        self.cpu.set("—")
+        self.xruns.set("—")
+        self.latency.set("—")
+
     def clear_live(self) -> None:
+        self.probe_pick.blockSignals(True)
+        self.probe_pick.clear()              # the host's probes fill it again
+        self.probe_pick.blockSignals(False)
+        self._live_probe = None
         self.hist.clear()
         self.hist_t.clear()
         self._ranges = {}

@@ -516,6 +516,16 @@ class Workbench(QObject):
         return self._part_edit(f"taper of {qualname}", f"taper:{qualname}", "taper",
                                qualname, lambda d: d.set_taper(qualname, taper))
 
+    def set_model(self, qualname: str, model: str) -> dict[str, float]:
+        """Give a device part another library model (a rebuild when playing)."""
+        def fn(d):
+            if not hasattr(d, "set_model"):
+                raise EditRejected("changing a part's model is not available in this build")
+            d.set_model(qualname, model)
+            return {}
+        return self._part_edit(f"model of {qualname}", f"model:{qualname}", "model",
+                               qualname, fn)
+
     def set_tolerance(self, qualname: str, tol: float | None) -> None:
         self._apply(f"tolerance of {qualname}", lambda d: set_tolerance(d, qualname, tol))
         self.part_changed.emit(qualname)
@@ -531,6 +541,36 @@ class Workbench(QObject):
         self.design_replaced.emit()
         self.structure_changed.emit()
         return r
+
+    def add_probe(self, expr: str, name: str | None = None) -> str:
+        """Add a probe (``v(net)``, ``i(part)``, ``ic(Q)`` ... under the names
+        the operating point shows); checked against the circuit first, kept
+        in the design file's ``[[probe]]`` list. Returns its name."""
+        import tomlkit
+        from engine.design import Probe
+        from engine.solver import Simulator
+        expr = expr.strip()
+        label = (name or expr).strip()
+        if not expr:
+            raise EditRejected("a probe needs an expression, e.g. v(out) or ic(Q1)")
+        if any(p.name == label or p.expr == expr for p in self.design.probes):
+            raise EditRejected(f"there is already a probe '{label}'")
+
+        def fn(d):
+            flat = d.resolve_probe(expr)
+            Simulator(d.flatten(), fs=48000.0, probes=(flat,))      # refuses unknown names
+            d.probes.append(Probe(label, expr))
+            if d.doc is not None:
+                aot = d.doc.get("probe")
+                if aot is None:
+                    aot = tomlkit.aot()
+                t = tomlkit.table()
+                t["name"] = label
+                t["expr"] = expr
+                aot.append(t)
+                d.doc["probe"] = aot
+        self._structural(f"probe {label}", fn)
+        return label
 
     def set_bypass(self, stage: str, on: bool) -> None:
         self._structural(f"{'bypass' if on else 'engage'} {stage}",

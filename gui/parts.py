@@ -33,6 +33,16 @@ from gui.model import Workbench, taper_text
 SERIES = ("E12", "E24", "E96")
 TAPER_CHOICES = [("linear", "linear"), ("audio", "audio"),
                  ("reverse-audio", "reverse audio"), ("custom", "custom law")]
+POT_SERIES = "E3"
+"""Pots are made in E3 values (1, 2.2, 4.7 per decade: 10k, 22k, 47k ...;
+common practice); stepping a pot's track walks them, as the console does."""
+
+
+def step_pot_value(value: float, steps: int) -> float:
+    """The track value ``steps`` places up (or down) the E3 series."""
+    return step_preferred(value, POT_SERIES, steps)
+
+
 NUDGE = 0.01            # Shift+arrow: 1 %
 ROT_STEP = 0.01         # arrow on a pot dial: 1 % of rotation
 
@@ -362,7 +372,9 @@ class PotRow(PartRow):
         self.dial.valueChanged.connect(self._turned)
         self.total.committed.connect(lambda v: self.guard(self.wb.set_value, self.q, v))
         self.total.stepped.connect(lambda s: self.guard(
-            self.wb.set_value, self.q, step_preferred(self.info().value, "E12", s)))
+            self.wb.set_value, self.q, step_pot_value(self.info().value, s)))
+        self.total.setToolTip("track value; Up/Down steps through the values pots are made "
+                              "in (E3: 10k, 22k, 47k, 100k ...)")
         self.taper.activated.connect(self._taper_chosen)
         self.plot.law_edited.connect(lambda pts: self.guard(self.wb.set_taper, self.q, pts))
         self._quiet = False
@@ -428,14 +440,41 @@ class SwitchRow(PartRow):
             b.setChecked(True)
 
 
+def device_models(design, part_type: str) -> list[str]:
+    """Library models a device part may take (empty when the engine cannot
+    swap models)."""
+    try:
+        from engine.design import MODEL_KIND, models_of_kind
+    except ImportError:
+        return []
+    if not hasattr(design, "set_model") or part_type not in MODEL_KIND:
+        return []
+    try:
+        return list(models_of_kind(design, MODEL_KIND[part_type]))
+    except SolderlessError:
+        return []
+
+
 class DeviceRow(PartRow):
-    """A semiconductor or macromodel: its model, shown for reference."""
+    """A semiconductor or macromodel: its model (a choice of the library's
+    models of the same kind, e.g. to swap clipping diodes or a transistor)."""
 
     def __init__(self, wb, q, parent=None):
         super().__init__(wb, q, parent)
         info = self.info()
-        m = QLabel(f"model {info.model or '—'}")
-        m.setProperty("role", "read")
+        self.models = device_models(wb.design, info.type)
+        if self.models:
+            self.model = QComboBox()
+            self.model.addItems(self.models)
+            self.model.setToolTip("the part's device model (parts library); choosing another "
+                                  "rebuilds the circuit with it")
+            self.model.activated.connect(
+                lambda _i: self.guard(self.wb.set_model, self.q, self.model.currentText()))
+            m = self.model
+        else:
+            m = QLabel(f"model {info.model or '—'}")
+            m.setProperty("role", "read")
+            self.model = None
         params = self.part().params
         p = QLabel("  ".join(f"{k}={v:g}" for k, v in params.items()
                              if isinstance(v, (int, float)))[:90])
@@ -443,6 +482,16 @@ class DeviceRow(PartRow):
         self.grid.addWidget(m, 0, 1)
         self.grid.addWidget(p, 1, 1)
         self.grid.setColumnStretch(1, 1)
+        self.refresh()
+
+    def refresh(self) -> None:
+        if self.model is not None:
+            cur = self.part().model
+            self.model.blockSignals(True)
+            if self.model.findText(cur) < 0:
+                self.model.addItem(cur)
+            self.model.setCurrentText(cur)
+            self.model.blockSignals(False)
 
 
 def make_row(wb: Workbench, info) -> PartRow:

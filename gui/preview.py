@@ -192,6 +192,74 @@ def frequency_response(design, freqs: np.ndarray | None = None) -> ACResult:
 
 
 @dataclass
+class Dynamics:
+    """Attack and release times of a design with a gain-cell control, by the
+    demo's 63 % convention (a 220 Hz tone burst; the time for the gain
+    reduction to cover 63 % of its step), from the engine
+    (``engine.analysis.timing.attack_release`` where present, else the
+    demo's ``measure_release``)."""
+    attack_s: float | None
+    release_s: float | None
+
+
+def dynamics(design, fs: float = FS) -> Dynamics | None:
+    """Attack and release of ``design`` (None without a control)."""
+    if not (getattr(design, "meters", None) or {}).get("control"):
+        return None
+
+    def ok(v):
+        return None if v is None or not math.isfinite(v) else float(v)
+    try:
+        from engine.analysis.timing import attack_release
+    except ImportError:
+        from engine import demo
+        att = getattr(demo, "measure_attack", None)
+        return Dynamics(ok(att(design, fs)[0]) if att is not None else None,
+                        ok(demo.measure_release(design, fs)[0]))
+    r = attack_release(design, fs)
+    return Dynamics(ok(r.get("attack_s")), ok(r.get("release_s")))
+
+
+@dataclass
+class Traces:
+    """One design's curves for an A/B overlay: frequency response and input
+    impedance (AC analysis), and gain reduction and control against time
+    through a tone burst (None without a control)."""
+    name: str
+    ac: "ACResult | None"
+    t: np.ndarray | None = None
+    gr_db: np.ndarray | None = None
+    control: np.ndarray | None = None
+    control_unit: str = ""
+    burst: tuple[float, float] = (0.0, 0.0)
+
+
+def overlay_traces(design, name: str, fs: float = FS) -> Traces:
+    """Curves of ``design`` for an overlay (see :class:`Traces`); the burst
+    is the demo's release burst (``engine.demo.RELEASE_BURST_V`` at 220 Hz)."""
+    from engine import demo
+    from engine.analysis import compression as cp
+    tr = Traces(name, frequency_response(design))
+    expr = (getattr(design, "meters", None) or {}).get("control")
+    if expr:
+        x, t0, t1 = cp.tone_burst(fs, 220.0, demo.RELEASE_BURST_V, lead=0.2, burst=0.6,
+                                  tail=1.5)
+        _, pr, _ = demo.simulate(design, x, fs, probes=(expr,))
+        ctl = np.asarray(pr[expr], dtype=float)
+        rest = float(np.median(ctl[: int(0.15 * fs)]))
+        gr = cp.gain_reduction_from_control(ctl, rest,
+                                            design.meters.get("control_law", "linear"))
+        step = max(1, int(fs / 2000))              # 0.5 ms points are plenty to draw
+        tr.t = np.arange(x.size)[::step] / fs
+        tr.gr_db = np.asarray(gr)[::step]
+        unit = "A" if expr.lower().startswith("i") else "V"
+        tr.control, tr.control_unit = (ctl[::step] * 1e6, "µA") if unit == "A" \
+            else (ctl[::step], "V")
+        tr.burst = (t0, t1)
+    return tr
+
+
+@dataclass
 class ABResult:
     """An offline A/B run: the live host's loudness offset (A minus B, LU)
     and each voice's loudness and output level at the end."""
@@ -224,6 +292,8 @@ class Analyser(QObject):
     op_ready = pyqtSignal(int, object)
     ac_ready = pyqtSignal(int, object)
     ab_ready = pyqtSignal(int, object)
+    dyn_ready = pyqtSignal(int, object)
+    overlay_ready = pyqtSignal(int, object)
     failed = pyqtSignal(str, str)
     busy_changed = pyqtSignal(bool)
 
@@ -237,8 +307,10 @@ class Analyser(QObject):
         self.seconds = PREVIEW_SECONDS
         self.closed = False
 
-    def request(self, design, *, preview: bool = True, op: bool = True, ac: bool = True) -> int:
-        """Queue work on a copy of ``design``; returns the generation number."""
+    def request(self, design, *, preview: bool = True, op: bool = True, ac: bool = True,
+                dyn: bool | None = None) -> int:
+        """Queue work on a copy of ``design``; returns the generation number.
+        ``dyn`` (attack and release) defaults to ``ac``."""
         if self.closed:
             return 0
         self.generation += 1
@@ -246,7 +318,50 @@ class Analyser(QObject):
         d = design.copy()
         self.pending += 1
         self.busy_changed.emit(True)
-        self.pool.submit(self._job, g, d, preview, op, ac, self.source, self.seconds)
+        self.pool.submit(self._job, g, d, preview, op, ac, self.source, self.seconds,
+                         ac if dyn is None else dyn)
+        return g
+
+    def request_dyn(self, design) -> int:
+        """Queue the attack and release readouts alone (while playing live,
+        after edits have settled)."""
+        if self.closed:
+            return 0
+        self.pending += 1
+        self.busy_changed.emit(True)
+        d = design.copy()
+        g = self.generation
+
+        def job():
+            try:
+                if g == self.generation:
+                    self._run("attack and release", lambda: dynamics(d), self.dyn_ready, g)
+            finally:
+                self.pending -= 1
+                if self.pending == 0:
+                    self.busy_changed.emit(False)
+        self.pool.submit(job)
+        return g
+
+    def request_overlay(self, a, b, names=("A", "B")) -> int:
+        """Queue the A/B overlay curves of designs ``a`` and ``b``."""
+        if self.closed:
+            return 0
+        self.pending += 1
+        self.busy_changed.emit(True)
+        a, b = a.copy(), b.copy()
+        g = self.generation
+
+        def job():
+            try:
+                self._run("overlay", lambda: (overlay_traces(a, names[0]),
+                                              overlay_traces(b, names[1])),
+                          self.overlay_ready, g)
+            finally:
+                self.pending -= 1
+                if self.pending == 0:
+                    self.busy_changed.emit(False)
+        self.pool.submit(job)
         return g
 
     def request_ab(self, a, b) -> int:
@@ -270,7 +385,7 @@ class Analyser(QObject):
         self.pool.submit(job)
         return g
 
-    def _job(self, g, d, preview, op, ac, source, seconds):
+    def _job(self, g, d, preview, op, ac, source, seconds, dyn=False):
         try:
             if g != self.generation:
                 return
@@ -284,6 +399,8 @@ class Analyser(QObject):
                 self._run("preview", lambda: run_preview(d, source, seconds,
                                                          factory=self.factory),
                           self.preview_ready, g)
+            if dyn and g == self.generation:
+                self._run("attack and release", lambda: dynamics(d), self.dyn_ready, g)
         finally:
             self.pending -= 1
             if self.pending == 0:

@@ -28,6 +28,7 @@ from gui import theme
 from gui.chain import ChainView
 from gui.inspect import InspectPanel
 from gui.livepanel import LivePanel
+from gui.midi import MidiKnobs, knob_map, open_input, set_knob_map
 from gui.model import Autosave, Settings, Workbench, config_dir
 from gui.parts import PartsPanel
 from gui.preview import Analyser, make_source
@@ -35,6 +36,11 @@ from gui.snapshots import CURRENT, SnapshotPanel
 
 AUTOSAVE_MS = 15000
 REFRESH_DEBOUNCE_MS = 300
+DYN_DEBOUNCE_MS = 1500
+"""While playing live, attack and release are measured again only after the
+edits have paused this long: the measurement simulates 2.6 s of audio in
+this process and would take frames from the meters during a knob sweep
+(bench/bench_gui.py: 17 instead of 27 frames per second)."""
 METER_MS = 30          # about 33 frames per second (target: at least 30)
 CAUTION_TEXT = ("Listening levels: a circuit can oscillate or jump in level. Start with "
                 "the monitor volume low and raise it slowly; output passes a safety "
@@ -43,6 +49,25 @@ CAUTION_TEXT = ("Listening levels: a circuit can oscillate or jump in level. Sta
                 "40 hours a week).")
 NETLIST_FILTER = "SPICE netlists (*.cir *.sp *.spice *.net *.ckt *.txt)"
 DESIGN_FILTER = "Solderless designs (*.toml)"
+
+
+def is_builtin_path(path) -> bool:
+    """True for a file under the built-in presets folder (read-only)."""
+    from engine.design import PRESETS
+    try:
+        return Path(path).resolve().is_relative_to(PRESETS.resolve())
+    except (OSError, ValueError):
+        return False
+
+
+def has_control(design) -> bool:
+    """Whether a design declares a gain-cell control (its meters' ``control``)."""
+    return bool((getattr(design, "meters", None) or {}).get("control"))
+
+
+def _file_stem(name: str) -> str:
+    stem = "".join(c if c.isalnum() or c in "-_" else "-" for c in str(name)).strip("-")
+    return stem or "design"
 
 
 class NoticeBar(QFrame):
@@ -128,14 +153,25 @@ class MainWindow(QMainWindow):
         self.live_driver = "device"      # "paced": no sound card (benches, tests)
         self._live_variant = False
         self.ask: Callable[[str], str] | None = None
+        self.ask_path: Callable[[Path], str | os.PathLike | None] | None = None
         self.last_preview = None
         self.last_op = None
         self.last_ac = None
         self.last_ab = None
+        self.last_overlay = None
+        self.last_dyn = None
         self.problems: list[tuple[str, str]] = []
+        self.blind = False
         self.setWindowTitle("Solderless workbench")
         self.resize(1480, 940)
         self._build()
+        i = self.live.source.findData(source)
+        self.live.source.blockSignals(True)
+        if i < 0:                           # a source given by name: offer it too
+            self.live.source.addItem(source, source)
+            i = self.live.source.count() - 1
+        self.live.source.setCurrentIndex(i)  # live playback starts from the same source
+        self.live.source.blockSignals(False)
         self._actions()
         self._wire()
         if self.settings.problem:
@@ -191,6 +227,7 @@ class MainWindow(QMainWindow):
         lower.setSizes([500, 960])
         split.addWidget(lower)
         split.setSizes([200, 720])
+        self.vsplit = split
         v.addWidget(split, 1)
         self.setCentralWidget(central)
         self.statusBar().showMessage("ready")
@@ -314,6 +351,9 @@ class MainWindow(QMainWindow):
         self.refresh_timer = QTimer(self)
         self.refresh_timer.setSingleShot(True)
         self.refresh_timer.timeout.connect(self.refresh_analysis)
+        self.dyn_timer = QTimer(self)
+        self.dyn_timer.setSingleShot(True)
+        self.dyn_timer.timeout.connect(lambda: self.analyser.request_dyn(self.wb.design))
         self.analyser.preview_ready.connect(self._preview_ready)
         self.analyser.op_ready.connect(self._op_ready)
         self.analyser.ac_ready.connect(self._ac_ready)
@@ -330,6 +370,19 @@ class MainWindow(QMainWindow):
         self.compare.ab_requested.connect(self.start_ab)
         self.compare.hear.connect(self.hear)
         self.compare.recall.connect(self._recall)
+        self.compare.overlay_requested.connect(self.request_overlay)
+        self.midi = MidiKnobs(self._knob_turn, self._remember_knobs, self)
+        self.midi.message.connect(self.say)
+        self.midi.learned.connect(lambda *_a: self._midi_learned())
+        self.live.midi_connect.connect(self.connect_midi)
+        self.live.probe_requested.connect(self.add_probe)
+        self.live.midi_learn.connect(self.midi.learn)
+        self.wb.edited.connect(lambda kind, q, _v: self.midi.pot_turned(q)
+                               if kind == "rotation" else None)
+        self.analyser.overlay_ready.connect(self._overlay_ready)
+        self.analyser.dyn_ready.connect(self._dyn_ready)
+        self.compare.can_trial = self._trial_ready
+        self.compare.trial_changed.connect(self._set_blind)
         self.meter_timer = QTimer(self)
         # a coarse timer may stretch 30 ms by 5 %; the frame rate is a target
         self.meter_timer.setTimerType(Qt.TimerType.PreciseTimer)
@@ -375,6 +428,13 @@ class MainWindow(QMainWindow):
 
     def _replaced(self) -> None:
         d = self.wb.design
+        try:
+            self.midi.set_mapping(knob_map(d))
+        except SolderlessError as exc:
+            self.midi.set_mapping({})
+            self.notices.add(f"MIDI knob mappings ignored: {exc}", "warn")
+        self._midi_label()
+        self.live.set_has_control(has_control(d))
         self.title.setText(d.name)
         self.file_lab.setText(f"  {design_location(d.path)}")
         if self.chain.selected:
@@ -389,6 +449,10 @@ class MainWindow(QMainWindow):
         self.undo_btn.setToolTip(f"Undo {self.wb.undo_text()} (Ctrl+Z)")
         self.redo_btn.setToolTip(f"Redo {self.wb.redo_text()} (Ctrl+Shift+Z)")
         d = self.wb.design
+        try:                         # an undone knob mapping is undone here too
+            self.midi.set_mapping(knob_map(d))
+        except SolderlessError:
+            pass
         self.title.setText(d.name + ("  •" if self.wb.dirty else ""))
         self.setWindowTitle(f"{d.name}{' *' if self.wb.dirty else ''} — Solderless workbench")
 
@@ -401,7 +465,10 @@ class MainWindow(QMainWindow):
         self.refresh_timer.stop()
         if not self.wb.design.stages:
             return 0
-        return self.analyser.request(self.wb.design, preview=self.host is None)
+        live = self.host is not None
+        if live:
+            self.dyn_timer.start(DYN_DEBOUNCE_MS)
+        return self.analyser.request(self.wb.design, preview=not live, dyn=not live)
 
     def preview(self) -> int:
         return self.analyser.request(self.wb.design, op=False, ac=False, preview=True)
@@ -434,7 +501,8 @@ class MainWindow(QMainWindow):
         loop = QEventLoop()
         while time.monotonic() < t_end:
             loop.processEvents(QEventLoop.ProcessEventsFlag.AllEvents, 50)
-            if self.analyser.pending == 0 and not self.refresh_timer.isActive():
+            if self.analyser.pending == 0 and not self.refresh_timer.isActive() \
+                    and not self.dyn_timer.isActive():
                 loop.processEvents(QEventLoop.ProcessEventsFlag.AllEvents, 50)
                 return True
             time.sleep(0.01)
@@ -452,7 +520,11 @@ class MainWindow(QMainWindow):
         if h is None:
             return
         name = {"value": "set_value", "rotation": "set_rotation",
-                "taper": "set_taper"}.get(kind)
+                "taper": "set_taper", "model": "set_model"}.get(kind)
+        from engine.live.remote import ALLOWED
+        if name == "set_model" and name not in ALLOWED:
+            self._structure_changed()          # this host cannot swap models: restart
+            return
         if name is not None:
             h.post_reported(name, q, value)      # answered later; failures in messages
 
@@ -583,11 +655,27 @@ class MainWindow(QMainWindow):
         if not self.settings.data.get("recent"):
             self.recent_menu.addAction("(none)").setEnabled(False)
 
+    def user_designs_dir(self) -> Path:
+        """Where the workbench offers to save new designs and copies of
+        built-in ones: ``designs`` in the user's Solderless folder."""
+        return self.config / "designs"
+
     def save(self, path: str | os.PathLike | None = None) -> bool:
-        """Save atomically (to the design's own file unless ``path`` is given)."""
+        """Save atomically (to the design's own file unless ``path`` is given).
+        A built-in design (under presets/) is read-only: Save becomes Save as,
+        offered in the user's designs folder."""
         d = self.wb.design
         target = Path(path) if path else d.path
-        if d.doc is None or target is None or target.suffix.lower() != ".toml":
+        if target is not None and is_builtin_path(target):
+            if path is None:
+                self.say(f"'{d.name}' is a built-in design and stays as it is: "
+                         "save your version under a new name")
+                return self.save_as_dialog()
+            self.notices.add(f"Not saved: {target} is a built-in design (read-only). "
+                             "Choose a file of your own (File > Save as).", "bad")
+            return False
+        if (d.doc is None and getattr(d, "netlist", None) is None) or target is None \
+                or target.suffix.lower() != ".toml":
             if path is None:
                 return self.save_as_dialog()
             self.say("a design is saved as a .toml file")
@@ -605,14 +693,33 @@ class MainWindow(QMainWindow):
         self.say(f"saved {target}")
         return True
 
+    def _suggest_path(self) -> Path:
+        d = self.wb.design
+        folder = self.user_designs_dir()
+        stem = Path(d.path).stem if d.path else _file_stem(d.name)
+        cand = folder / f"{stem}.toml"
+        k = 2
+        while cand.exists():
+            cand = folder / f"{stem}-{k}.toml"
+            k += 1
+        return cand
+
     def save_as_dialog(self) -> bool:
-        if self.wb.design.doc is None:
-            self.say("a design imported from a netlist cannot be written as a design "
-                     "file yet; use Import netlist as stage in a .toml design")
-            return False
-        fn, _ = QFileDialog.getSaveFileName(self, "Save design as", "", DESIGN_FILTER)
+        """Ask for a file name (``ask_path(suggested)`` when set, for tests),
+        starting in the user's designs folder, and save there."""
+        suggested = self._suggest_path()
+        try:
+            suggested.parent.mkdir(parents=True, exist_ok=True)
+        except OSError:
+            pass
+        if self.ask_path is not None:
+            fn = self.ask_path(suggested)
+        else:
+            fn, _ = QFileDialog.getSaveFileName(self, "Save design as", str(suggested),
+                                                DESIGN_FILTER)
         if not fn:
             return False
+        fn = str(fn)
         if not fn.endswith(".toml"):
             fn += ".toml"
         return self.save(fn)
@@ -667,9 +774,10 @@ class MainWindow(QMainWindow):
             e.ignore()
             return
         self.stop_live()
-        for t in (self.refresh_timer, self.autosave_timer, self.meter_timer):
+        for t in (self.refresh_timer, self.autosave_timer, self.meter_timer, self.dyn_timer):
             t.stop()
         self.analyser.shutdown()
+        self.midi.detach()
         self.autosave.clear(self.wb.design)
         e.accept()
 
@@ -733,12 +841,115 @@ class MainWindow(QMainWindow):
     def stop_live(self) -> None:
         self.meter_timer.stop() if hasattr(self, "meter_timer") else None
         h, self.host = self.host, None
+        if hasattr(self, "compare") and self.compare.trial is not None \
+                and not self.compare.trial.done and self.blind:
+            self.compare.end_trial("playback stopped: trial ended")
         if h is not None:
             h.close()
+        if hasattr(self, "live"):
+            self.live.stopped()
         if hasattr(self, "live"):
             self.live.run_btn.blockSignals(True)
             self.live.run_btn.setChecked(False)
             self.live.run_btn.blockSignals(False)
+
+    def request_overlay(self, a: str, b: str) -> int:
+        """Compute A's and B's curves for the overlay (worker thread)."""
+        try:
+            da, db = self.compare.design_of(a), self.compare.design_of(b)
+        except SolderlessError as exc:
+            self.say(str(exc))
+            return 0
+        return self.analyser.request_overlay(da, db, (a, b))
+
+    def _overlay_ready(self, g, result) -> None:
+        self.last_overlay = result
+        self.compare.show_overlay(result)
+
+    def _dyn_ready(self, g, r) -> None:
+        self.last_dyn = r
+        self.live.show_dynamics(r)
+
+    def add_probe(self, expr: str) -> str | None:
+        """Add a probe and show it in the probe trace (a rebuild when live)."""
+        name = self._guard(self.wb.add_probe, expr)
+        if name:
+            self.live.probe_add.clear()
+            self.live.want_probe = name
+            self.say(f"probe {name} added")
+        return name
+
+    # ------------------------------------------------------------ MIDI knobs
+    def connect_midi(self, port=None) -> bool:
+        """Read knobs from ``port`` (a mido port or stand-in), or open the
+        first MIDI input; a missing MIDI system is a message, not a failure."""
+        if port is None:
+            try:
+                port = open_input()
+            except SolderlessError as exc:
+                self.live.midi_lab.setText("MIDI unavailable")
+                self.live.midi_lab.setToolTip(str(exc))
+                self.notices.add(f"MIDI knobs: {exc}", "warn")
+                self.say(str(exc))
+                return False
+        self.midi.attach(port)
+        self.live.learn_btn.setEnabled(True)
+        self._midi_label(getattr(port, "name", "MIDI controller"))
+        return True
+
+    def _midi_label(self, name: str | None = None) -> None:
+        if name:
+            self._midi_port_name = name
+        n = len(self.midi.mapping)
+        name = getattr(self, "_midi_port_name", "")
+        self.live.midi_lab.setText(f"{name}: {n} knob{'s' if n != 1 else ''}" if name
+                                   else f"{n} knob{'s' if n != 1 else ''} mapped")
+        self.live.midi_lab.setToolTip("\n".join(f"CC {cc} (channel {ch}) → {pot}"
+                                                for (ch, cc), pot in self.midi.mapping.items())
+                                      or "no knob mapped yet: use Learn")
+
+    def _knob_turn(self, pot: str, rotation: float) -> None:
+        if not self.blind:                  # no edits during a blind trial
+            self.wb.set_rotation(pot, rotation)
+
+    def _remember_knobs(self, mapping: dict) -> None:
+        self._guard(self.wb._apply, "map MIDI knobs", lambda d: set_knob_map(d, mapping))
+
+    def _midi_learned(self) -> None:
+        self.live.learn_btn.blockSignals(True)
+        self.live.learn_btn.setChecked(False)
+        self.live.learn_btn.blockSignals(False)
+        self._midi_label()
+
+    def _trial_ready(self) -> str:
+        """'' when a blind trial may start (A and B both playing), else why not."""
+        h = self.host
+        if h is None or not self._live_variant:
+            return "A and B are not playing (Compare: Run A and B)"
+        if not h.ready:
+            return "the live host is still starting"
+        if h.n_voices < 2:
+            return "only one side is playing"
+        return ""
+
+    def _set_blind(self, on: bool) -> None:
+        """Enter or leave blind mode: nothing on screen may tell A from B."""
+        self.blind = on
+        self.live.set_blind(on)
+        # no edits during a trial: the live host applies an edit to the side
+        # being heard, which would tell X apart (and the parts list would show it)
+        for w in (self.parts, self.chain, self.chain_bar, self.undo_btn, self.redo_btn):
+            w.setEnabled(not on)
+        for a in (self.undo_act, self.redo_act):
+            a.setEnabled(not on)
+        if not on:
+            self._history()
+        self.compare.show_offset(None, hidden=on)
+        if on:
+            self.statusBar().showMessage("blind trial running: meters, traces and scope "
+                                         "are hidden until it ends")
+        else:
+            self.statusBar().clearMessage()
 
     def _poll_meters(self) -> None:
         """Meter timer: read meters and scope from the host's shared rings
@@ -753,14 +964,20 @@ class MainWindow(QMainWindow):
                 self._live_refused(err)
             return
         snap = h.meters()
-        self.live.show_live(snap)
-        self.live.redraw_live(h.fs, h.block)
-        self.live.show_scope(*h.scope_latest(self.live.scope_points(h.info["scope"]["rate"])))
-        if h.n_voices > 1:
-            self.compare.show_offset(snap.get("loudness_offset_db"))
+        if self.blind:
+            self.live.show_blind(snap)
+        else:
+            self.live.show_live(snap)
+            self.live.redraw_live(h.fs, h.block)
+            self.live.show_scope(*h.scope_latest(
+                self.live.scope_points(h.info["scope"]["rate"])))
+            if h.n_voices > 1:
+                self.compare.show_offset(snap.get("loudness_offset_db"))
         h.poll_state()
         while not h.messages.empty():
-            self.say(h.messages.get())
+            m = h.messages.get()
+            if not self.blind:          # a voice's message would name the side
+                self.say(m)
         if h.error is not None:
             self.say(f"playback stopped: {h.error}")
             self.stop_live()
@@ -779,7 +996,7 @@ class MainWindow(QMainWindow):
         """Play A and B together (the host matches loudness and crossfades)."""
         da = self.compare.design_of(a)
         db = self.compare.design_of(b)
-        if not self.live.run_btn.isEnabled():
+        if not self.live.run_btn.isEnabled() and self.live_driver != "paced":
             self.analyser.request_ab(da, db)
             self.say("no audio device: A and B are compared offline (loudness match only)")
             return

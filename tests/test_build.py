@@ -186,6 +186,18 @@ def test_build_sheet_of_every_builtin(name, tmp_path):
         assert q in text
     conn = files["connections"].read_text()
     assert all(s.name in conn for s in d.stages)
+    # every design gets its SPICE netlist, macromodels included (issue 19;
+    # ngspice runs it: tests/test_spice_macromodels.py); it reads back
+    # with one X instance per OTA or op-amp and the same nets
+    from engine.formats.spice import parse_netlist
+    assert rep.netlist and "design.cir" in text
+    cir = files["netlist"].read_text(encoding="utf-8")
+    flat = d.flatten()
+    macros = [e for e in flat.elements if e.kind in ("OTA", "OPAMP")]
+    assert sum(1 for ln in cir.splitlines() if ln.upper().startswith("X.")) == len(macros)
+    back = parse_netlist(cir).circuit
+    nets = {n.lower() for e in back.elements for n in e.nodes}
+    assert {n.lower() for e in flat.elements for n in e.nodes if "#" not in n} <= nets
 
 
 def test_snapped_values_resolve_and_warn(tmp_path):

@@ -169,22 +169,74 @@ def test_ab_difference_list_is_exact(win):
     assert wb.design.part("amp.R2").value == 100e3
 
 
+class _Clock:
+    """A clock the test advances by hand (listening time without waiting)."""
+
+    def __init__(self):
+        self.t = 0.0
+
+    def __call__(self):
+        return self.t
+
+
+def _listen(t, clock, seconds):
+    t.listen_start()
+    clock.t += seconds
+    t.listen_stop()
+
+
 def test_blind_trial_probability():
     # P(X >= k) for X ~ Binomial(n, 1/2): 10 of 10 -> 1/1024; 7 of 10 ->
-    # (C(10,7)+C(10,8)+C(10,9)+C(10,10))/1024 = 176/1024 (binomial distribution)
-    t = BlindTrial(10, seed=1)
+    # (C(10,7)+C(10,8)+C(10,9)+C(10,10))/1024 = 176/1024 (binomial
+    # distribution), the same as scipy.stats.binomtest(..., alternative="greater")
+    from scipy.stats import binomtest
+    clock = _Clock()
+    t = BlindTrial(10, seed=1, min_listen_s=2.0, clock=clock)
     while not t.done:
+        _listen(t, clock, 2.5)
         t.answer(t.hidden)
     assert t.score == 10
     assert t.p_value() == pytest.approx(1 / 1024, rel=1e-12)
-    t = BlindTrial(10, seed=2)
+    t = BlindTrial(10, seed=2, min_listen_s=2.0, clock=clock)
     k = 0
     while not t.done:
+        _listen(t, clock, 2.0)
         guess = t.hidden if k < 7 else ("B" if t.hidden == "A" else "A")
         t.answer(guess)
         k += 1
     assert t.score == 7
-    assert t.p_value() == pytest.approx(176 / 1024, rel=1e-12)
+    want = sum(math.comb(10, j) for j in range(7, 11)) / 2 ** 10
+    assert want == 176 / 1024
+    assert t.p_value() == pytest.approx(want, rel=1e-12)
+    assert t.p_value() == pytest.approx(binomtest(7, 10, 0.5, alternative="greater").pvalue,
+                                        rel=1e-12)
+
+
+def test_blind_trial_needs_listening_and_logs_every_round():
+    from gui.snapshots import TrialError
+    clock = _Clock()
+    t = BlindTrial(4, seed=3, min_listen_s=2.0, clock=clock)
+    # no answer before X has been heard for the minimum time, in one or more goes
+    with pytest.raises(TrialError, match="listen to X first"):
+        t.answer("A")
+    _listen(t, clock, 1.5)
+    with pytest.raises(TrialError, match="1.5 s of the 2 s"):
+        t.answer("A")
+    _listen(t, clock, 0.75)
+    hidden = []
+    while not t.done:
+        hidden.append(t.hidden)
+        t.answer("A")
+        _listen(t, clock, 3.0)
+    assert len(t.log) == 4 and [e.round for e in t.log] == [1, 2, 3, 4]
+    assert [e.hidden for e in t.log] == hidden
+    assert t.log[0].listened_s == pytest.approx(2.25)
+    assert all(e.answer == "A" for e in t.log)
+    rows = t.csv_text("baseline", "mod").splitlines()
+    assert rows[0] == "time,round,hidden,answer,correct,listened_s"
+    assert rows[1].split(",")[1:] == ["1", hidden[0], "A",
+                                      "yes" if hidden[0] == "A" else "no", "2.25"]
+    assert f"score,{hidden.count('A')} of 4" in rows
 
 
 def test_corrupted_autosave_does_not_stop_startup(qtbot, tmp_path, design_file):

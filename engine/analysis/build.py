@@ -17,8 +17,9 @@
 * the supply current at rest and averaged over the render, battery life.
 
 :func:`write_build` writes ``sheet.html`` (printable, PNG plots),
-``parts.csv``, ``design.cir`` (the SPICE writer, where the design has no
-macromodel devices) and ``connections.txt``.
+``parts.csv``, ``design.cir`` (the SPICE writer,
+:func:`engine.formats.spice.circuit_to_netlist`: OTA and op-amp macromodels
+as subcircuits of their own laws) and ``connections.txt``.
 
 Margins are common practice, stated beside each: a resistor dissipates at
 most half its rating; a capacitor sees at most two thirds of its rated
@@ -559,8 +560,12 @@ def build_report(design, seconds: float = RATING_SECONDS, timing: bool = True,
     try:
         netlist = circuit_to_netlist(design.flatten(), title=design.name)
         note = ""
-    except SolderlessError as exc:
-        netlist, note = None, f"no SPICE netlist: {exc.message}"
+    except DesignError as exc:
+        # every device kind is written (macromodels as subcircuits); what is
+        # left is a net or part name SPICE cannot tell apart: the sheet and
+        # parts list are still written, and the note says what to rename
+        netlist = None
+        note = f"no SPICE netlist: {exc}"
     return BuildReport(design.name, lines, group_lines(lines), rows, warns, rt,
                        connections(design), netlist, note,
                        [ln for ln in lines if ln.type == "pot"])

@@ -1731,12 +1731,117 @@ def _spice_name(el: Element) -> str:
 _NET_OK = re.compile(r"^[A-Za-z0-9_.#/]+$")
 
 
+def _instance_name(el: Element) -> str:
+    """X card name of a macromodel element (``X.<name>`` unless it starts with X)."""
+    name = re.sub(r"[^A-Za-z0-9_.#]", "_", el.name)
+    if name[:1].upper() == "X" and name[1:2] != ".":
+        return name.upper()
+    return ("X." + name).upper()
+
+
+def _lexp_text(x: str) -> str:
+    """``exp(x)`` continued linearly above e^80, as engine/devices/_common.lexp."""
+    return f"exp(min({x}, 80))*(1 + max({x} - 80, 0))"
+
+
+def _macromodel_subckt(el: Element, temperature, subckts: dict) -> str:
+    """Name of the subcircuit that reproduces an OTA or OPAMP element's law,
+    adding its text to ``subckts`` (keyed by kind and parameters) if new.
+
+    OTA (engine/devices/ota.py), pins inp inn out abc vee: the control
+    junction(s) as one ngspice diode whose N times ngspice's thermal voltage
+    is JUNCTIONS*N*VT (the same Shockley law, reverse approximation and GMIN
+    as the engine, with ngspice's junction limiting for convergence); the
+    output current
+    ``max(Ij, 0)*tanh(Vd/(2VT))*s(Vo)`` as a B source, Ij recomputed from the
+    control voltage with the engine's exponential, s the same soft compliance
+    (the side chosen by the sign of Vd); ROUT and RIN as resistors.
+    OPAMP (engine/devices/opamp.py), pins inp inn out vcc vee: the same
+    stamps (G into an internal node ``p`` loaded by RP and CP, a G/R pair as
+    the output behind ROUT, RIN) and the two rail clamps as B sources with the
+    engine's limited exponential. The one difference: the engine integrates
+    CP with backward Euler, ngspice with its own method (trapezoidal here).
+    """
+    from engine.devices import opamp, ota
+    from engine.devices._common import VT, read_params
+    if el.kind == "OTA":
+        p = read_params(el, ota.DEFAULTS, positive=("IS", "N", "VSOFT", "ROUT", "RIN"))
+    else:
+        p = read_params(el, opamp.DEFAULTS, positive=("A0", "GBW", "ROUT", "RIN", "VSOFT", "RP"),
+                        nonneg=("VHR",))
+    key = (el.kind, tuple(sorted(p.items())), temperature)
+    if key in subckts:
+        return subckts[key][0]
+    base = re.sub(r"[^a-z0-9_]", "_", str((el.params or {}).get("MODEL") or el.kind).lower())
+    name = base
+    k = 1
+    while name in {v[0] for v in subckts.values()}:
+        k += 1
+        name = f"{base}_{k}"
+    F = _fmt
+    if el.kind == "OTA":
+        if p["JUNCTIONS"] not in (1.0, 2.0):
+            ota.layout(el)      # raises the device's own error
+        vte = p["JUNCTIONS"] * p["N"] * VT
+        x = f"v(abc, vee)*{F(1.0 / vte)}"
+        vd = "v(inp, inn)"
+        vo = "v(out, vee)"
+        rs = F(1.0 / p["VSOFT"])
+        ij = f"max({F(p['IS'])}*({_lexp_text(x)} - 1), 0)"
+        # the control junction as an ngspice diode (its junction limiting
+        # makes the operating point converge where a B source's bare
+        # exponential does not): the same Shockley law, reverse approximation
+        # and GMIN as engine/devices/_common.junction; N is set so that N
+        # times ngspice-39's thermal voltage (its constants, CODATA 2014, at
+        # the circuit temperature) is the engine's JUNCTIONS*N*VT, and EG =
+        # XTI = 0 keep IS from following the temperature, as the engine's
+        # OTA law does not
+        tk = 273.15 + (27.0 if temperature is None else float(temperature))
+        vt_ng = 1.38064852e-23 * tk / 1.6021766208e-19
+        dmodel = f"IS={F(p['IS'])} N={F(vte / vt_ng)}"
+        if temperature is not None:
+            dmodel += " EG=0 XTI=0"
+        s = (f"({vd} >= 0 ? 0.5*(1 + tanh(({F(p['VHI'])} - {vo})*{rs})) : "
+             f"0.5*(1 + tanh(({vo} - {F(p['VLO'])})*{rs})))")
+        body = [f".subckt {name} inp inn out abc vee",
+                "* bipolar OTA: Iout = Iabc*tanh(Vd/(2VT))*s(Vo) (Solderless OTA law)",
+                f"D1 abc vee D_{name}",
+                f"B1 vee out I = {ij}*tanh({vd}*{F(1.0 / (2.0 * VT))})*{s}"]
+        if math.isfinite(p["ROUT"]):
+            body.append(f"R1 out vee {F(p['ROUT'])}")
+        if math.isfinite(p["RIN"]):
+            body.append(f"R2 inp inn {F(p['RIN'])}")
+        body += [f".model D_{name} D({dmodel})", ".ends"]
+    else:
+        gm1 = p["A0"] / p["RP"]
+        cp = p["A0"] / (2.0 * math.pi * p["GBW"] * p["RP"])
+        i0 = gm1 * 1e-4
+        rv = F(1.0 / p["VSOFT"])
+        x1 = f"(v(p, vcc) + {F(p['VHR'])})*{rv}"
+        x2 = f"(v(vee, p) + {F(p['VHR'])})*{rv}"
+        body = [f".subckt {name} inp inn out vcc vee",
+                "* op-amp: single pole (A0, GBW), soft rail clamps (Solderless OPAMP law)",
+                f"G1 0 p inp inn {F(gm1)}",
+                f"R1 p 0 {F(p['RP'])}",
+                f"C1 p 0 {F(cp)}",
+                f"G2 0 out p 0 {F(1.0 / p['ROUT'])}",
+                f"R2 out 0 {F(p['ROUT'])}"]
+        if math.isfinite(p["RIN"]):
+            body.append(f"R3 inp inn {F(p['RIN'])}")
+        body += [f"B1 p vcc I = {F(i0)}*{_lexp_text(x1)}",
+                 f"B2 vee p I = {F(i0)}*{_lexp_text(x2)}",
+                 ".ends"]
+    subckts[key] = (name, body)
+    return name
+
+
 def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
     """Write ``circuit`` as a netlist ngspice runs (ends with ``.end``).
 
     Every D, Q and J element gets its own ``.model`` card with the parameters
-    Solderless simulates. OPAMP and OTA macromodels have no SPICE element and
-    raise :class:`engine.errors.DesignError`. Elements whose name is not a
+    Solderless simulates. OPAMP and OTA macromodels become X instances of a
+    subcircuit written from their laws (:func:`_macromodel_subckt`), one per
+    distinct parameter set. Elements whose name is not a
     valid SPICE name for their kind are renamed (``R_...``) and listed in a
     comment; so are nets whose names ngspice would misread (``Net-(R1-Pad2)``
     gets a plain name and a ``* net NAME is 'Net-(R1-Pad2)'`` comment).
@@ -1745,6 +1850,7 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
     seen_nets: dict[str, str] = {}
     used_names: dict[str, str] = {}
     models: list[str] = []
+    subckts: dict[tuple, tuple[str, list[str]]] = {}
 
     renamed: dict[str, str] = {}
 
@@ -1793,10 +1899,17 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
         if el.name in skip:
             continue
         if el.kind in ("OPAMP", "OTA"):
-            raise DesignError(f"{el.kind} macromodels cannot be written as SPICE",
-                              file=f, line=ln, part=el.name,
-                              hint="replace it by a transistor-level subcircuit "
-                                   "to compare with a SPICE simulator")
+            sname = _instance_name(el)
+            if sname in used_names:
+                raise DesignError(f"'{el.name}' and '{used_names[sname]}' would both "
+                                  f"be written as {sname}", file=f, line=ln,
+                                  part=el.name, hint="rename one of them")
+            used_names[sname] = el.name
+            if sname != f"X.{el.name}".upper():
+                lines.append(f"* {sname} is '{el.name}'")
+            sub = _macromodel_subckt(el, circuit.temperature, subckts)
+            lines.append(f"{sname} " + " ".join(node(n) for n in el.nodes) + f" {sub}")
+            continue
         if el.kind not in ("R", "C", "L", "V", "I", "E", "G", "F", "H", "D", "Q", "J", "M",
                            "BEHAV", "SW"):
             raise DesignError(f"element kind '{el.kind}' cannot be written as SPICE",
@@ -1887,6 +2000,8 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
             s += "".join(f" {k}={_fmt(float(p[k]))}" for k in inst if k in p)
         lines.append(s)
     lines.extend(models)
+    for body in subckts.values():
+        lines.extend(body[1])
     if circuit.temperature is not None:
         lines.append(f".temp {_fmt(float(circuit.temperature))}")
     for what, table in (("nodeset", circuit.nodeset), ("ic", circuit.ic)):

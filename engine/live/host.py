@@ -477,6 +477,10 @@ class LiveHost:
         self._built = False
         self._closing = False
         self._measure_dirty: set[int] = set()
+        #: re-measure small-signal gain and quiescent control after edits here;
+        #: a host in a process of its own leaves that to its parent
+        #: (engine.live.remote), which hands the figures over (set_measurement)
+        self.measure_after_edits = True
         self._coalesce: dict = {}
         self._coalesce_lock = threading.Lock()
         self._ramp_tokens: dict = {}
@@ -734,6 +738,9 @@ class LiveHost:
         self.stop()
         self._jobs.put(None)
         self._worker.join(timeout=5)
+        # the last edits of a burst may still wait for the throttled autosave
+        # (the measuring thread can be busy): write them before closing
+        self._autosave_pending(force=True)
         self._closing = True
         self._measure_wake.set()
         for r in (self.ring, self.scope):
@@ -817,6 +824,19 @@ class LiveHost:
         self._measure_wake.set()
         self._recover_if_muted()
 
+    def set_measurement(self, vi: int, gain_db: float | None, quiescent: float | None) -> None:
+        """Take a small-signal gain and quiescent control value measured
+        elsewhere (a front end's process, see engine.live.remote) for voice
+        ``vi``."""
+        v = self.voices[vi]
+        if gain_db is not None:
+            self.meter.small_signal_gain_db[vi] = gain_db
+        if quiescent is not None and v.control_index is not None:
+            if vi == 0:
+                self.meter.control_a = (v.control_index, quiescent)
+            else:
+                self.meter.control_b = (v.control_index, quiescent)
+
     AUTOSAVE_MIN_S = 0.25
     """Autosaves are written at most this often during a burst of edits (the
     last one of the burst is written by the measuring thread or by
@@ -899,6 +919,8 @@ class LiveHost:
             self._measure_wake.clear()
             self._autosave_pending(force=True)
             dirty, self._measure_dirty = self._measure_dirty, set()
+            if not self.measure_after_edits:
+                dirty = set()
             for vi in sorted(dirty):
                 try:
                     self._measure_voice(vi)

@@ -41,7 +41,11 @@ ALLOWED = {"start", "start_paced", "stop", "set_value", "step_value", "set_rotat
            "latency", "part_info", "prepare", "flush"}
 #: Requests served by the child loop itself.
 EXTRA = {"parts", "state", "meter_setup", "set_source", "edit_landings", "host_meters",
-         "element_values"}
+         "element_values", "designs", "set_measurement"}
+#: Edits after which the parent re-measures the small-signal gain.
+EDITS = {"set_value", "step_value", "set_rotation", "set_taper", "set_bypass", "set_model"}
+MEASURE_SETTLE_S = 0.2
+"""Quiet time after the last edit before the parent re-measures."""
 SWITCH_INTERVAL_S = 0.0002
 """Interpreter switch interval in the host process (measured with
 bench/bench_gui.py: late blocks during edits)."""
@@ -96,7 +100,10 @@ def _child_main(conn, design, variant, kwargs: dict, start_kwargs: dict | None,
         host = LiveHost(_load(design), variant=_load(variant), source=src, shared=True,
                         **kwargs)
         host.prepare()
-        host.measure_in_process()
+        # re-measuring after edits builds a simulator (milliseconds of held
+        # GIL): the parent does it (HostProcess._measure_loop) and hands the
+        # result over; a daemonic process may not start a helper of its own
+        host.measure_after_edits = False
         if start_kwargs is not None:
             host.start(**start_kwargs)
         elif paced:
@@ -109,6 +116,8 @@ def _child_main(conn, design, variant, kwargs: dict, start_kwargs: dict | None,
             "designs": [getattr(v.design, "name", "?") for v in host.voices],
             "source": host.source.label, "ring": host.ring.spec(),
             "scope": host.scope_spec(), "setup": _meter_setup(host),
+            "controls": [v.probes[v.control_index] if v.control_index is not None else None
+                         for v in host.voices],
             "autosave": host.autosave_paths()}))
     except BaseException as exc:
         send(("ready", 0, False, _portable(exc)))
@@ -144,6 +153,10 @@ def _child_main(conn, design, variant, kwargs: dict, start_kwargs: dict | None,
             elif name == "set_source":
                 s = args[0]
                 r = host.set_source(parse_source(s) if isinstance(s, str) else s)
+            elif name == "designs":
+                r = [v.design for v in host.voices]
+            elif name == "set_measurement":
+                r = host.set_measurement(*args)
             elif name == "edit_landings":
                 r = host.edit_landings
             elif name == "host_meters":
@@ -246,6 +259,10 @@ class HostProcess:
         self._setup_fut: Future | None = None
         self._state: dict = {}
         self._state_fut: Future | None = None
+        self._factory = kwargs.get("simulator_factory")
+        self._measure_wake = threading.Event()
+        self._measure_dirty = False
+        self.measurements = 0           # re-measurements done after edits
         self.proc = ctx.Process(target=_child_main, name="solderless-live",
                                 args=(child, design, variant, kwargs,
                                       (start_kwargs or {}) if start else None, paced),
@@ -255,8 +272,51 @@ class HostProcess:
         self._reader = threading.Thread(target=self._read_loop, name="solderless-remote",
                                         daemon=True)
         self._reader.start()
+        self._measurer = threading.Thread(target=self._measure_loop,
+                                          name="solderless-remeasure", daemon=True)
+        self._measurer.start()
         if wait:
             self.wait_ready(timeout)
+
+    def _measure_loop(self) -> None:
+        """Re-measure the small-signal gain and quiescent control value of
+        every voice after edits (this process, own thread, debounced): the
+        child's audio callback never waits for a simulator being built, and
+        the gain-reduction reference follows the edited circuit."""
+        from engine.live.host import default_simulator_factory, measure_small_signal
+        while True:
+            self._measure_wake.wait()
+            self._measure_wake.clear()
+            if self.ended:
+                return
+            while True:                          # let a burst of edits finish
+                self._measure_dirty = False
+                time.sleep(MEASURE_SETTLE_S)
+                if not self._measure_dirty:
+                    break
+            if self.ended:
+                return
+            try:
+                designs = self.call("designs")
+                info = self.info
+                factory = self._factory or default_simulator_factory
+                for i, d in enumerate(designs):
+                    ctl = info.get("controls", [None] * len(designs))[i]
+                    gain_db, q, problem = measure_small_signal(
+                        d, info["fs"], info["oversample"], info["block"], ctl, factory)
+                    if problem:
+                        self.messages.put(f"could not re-measure the small-signal gain: "
+                                          f"{problem}")
+                        continue
+                    # the child's meter set-up, fetched every SETUP_EVERY_S, carries it here
+                    self.call("set_measurement", i, gain_db, q)
+                self._setup_t = 0.0              # fetch the new set-up at the next read
+                self.measurements += 1
+            except SolderlessError as exc:
+                if not self.ended:
+                    self.messages.put(f"could not re-measure the small-signal gain: {exc}")
+            except Exception as exc:  # a measurement must never stop playing
+                self.messages.put(f"could not re-measure the small-signal gain: {exc!r}")
 
     # ------------------------------------------------------------ plumbing
     def _read_loop(self) -> None:
@@ -332,6 +392,12 @@ class HostProcess:
         if name not in ALLOWED and name not in EXTRA:
             raise AudioError(f"'{name}' cannot be called on the host process")
         fut: Future = Future()
+        if name in EDITS:
+            def edited(f):
+                if f.exception() is None:
+                    self._measure_dirty = True
+                    self._measure_wake.set()
+            fut.add_done_callback(edited)
         if self.ended or not self.proc.is_alive():
             fut.set_exception(AudioError("the live host process has ended",
                                          hint="start it again; the design's edits were "
@@ -480,6 +546,8 @@ class HostProcess:
 
     def close(self) -> None:
         """Stop the stream and end the child process; release shared memory."""
+        self.ended = True
+        self._measure_wake.set()
         try:
             if self.proc.is_alive():
                 with self._send_lock:
