@@ -26,7 +26,8 @@ Commands (``help`` prints them)::
                           no signal, so the gain cell sits at its resting gain
     a / b                 hear (and edit) the baseline or the variant
     level DB              output level in dB
-    wait S                let S seconds of audio play before the next command
+    wait S                let S seconds of audio play (and a pending attack/release
+                          readout finish) before the next command
                           (for scripted sessions)
     meters                print the meters now (the first time with what each one means)
     unmute                clear a safety mute (output ramps up again)
@@ -119,9 +120,11 @@ class Console:
         if not (hasattr(d, "control_probe") and d.control_probe()):
             return
         self._times_gen += 1
-        threading.Thread(target=_refresh_times_job,
-                         args=(self, copy.deepcopy(d), self._times_gen, self.host.fs),
-                         daemon=True, name="solderless-times").start()
+        self._times_thread = threading.Thread(
+            target=_refresh_times_job,
+            args=(self, copy.deepcopy(d), self._times_gen, self.host.fs),
+            daemon=True, name="solderless-times")
+        self._times_thread.start()
 
     def _need_pick(self) -> str:
         if self.picked is None:
@@ -280,6 +283,10 @@ class Console:
             while h.blocks < goal and time.monotonic() < t_end and h.error is None:
                 time.sleep(0.01)
                 h.meters()              # keep the meter ring drained
+            # and let a pending attack/release refresh print its line
+            th = getattr(self, "_times_thread", None)
+            if th is not None:
+                th.join(max(0.0, t_end - time.monotonic()))
         elif cmd == "meters":
             self.say(meter_line(h.meters()))
             if not self._legend_shown:
