@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import os
 import sys
 import time
 from pathlib import Path
@@ -19,7 +20,151 @@ from engine.levels import FULL_SCALE_V, describe as describe_levels
 DEFAULT_DESIGN = "flagship"
 
 
+# ------------------------------------------------------------------ options
+# Every number an option takes is checked here, at parse time, so a bad
+# value is one line naming the option (never a traceback or a huge
+# allocation further on).  Limits: engine/limits.py.
+
+class OptionParser(argparse.ArgumentParser):
+    """argparse with a one-line error (``error: argument --x: ...``, exit 2)
+    instead of the usage block; subcommands inherit it."""
+
+    def error(self, message):  # noqa: D401 - argparse API
+        from engine.errors import cut_long
+        self.exit(2, f"error: {self.prog}: {cut_long(message)} "
+                     f"(see '{self.prog} --help')\n")
+
+
+def _number(text: str) -> float:
+    from engine.values import parse_value
+    try:
+        x = float(text)
+    except ValueError:
+        try:
+            x = float(parse_value(text))
+        except Exception:
+            raise argparse.ArgumentTypeError(f"'{text}' is not a number") from None
+    if not math.isfinite(x):
+        raise argparse.ArgumentTypeError(f"'{text}' is not a finite number")
+    return x
+
+
+def finite_number(text: str) -> float:
+    """An argparse type: any finite number (the range is checked where the
+    value is used, e.g. engine/live/limits.py for level and ceiling)."""
+    return _number(text)
+
+
+def number_in(lo: float | None, hi: float | None, unit: str = "", *,
+              open_low: bool = False):
+    """An argparse type: a finite number (SI prefixes allowed: 44.1k) from
+    ``lo`` to ``hi`` (``open_low``: strictly above ``lo``)."""
+    def parse(text: str) -> float:
+        x = _number(text)
+        low_bad = lo is not None and (x <= lo if open_low else x < lo)
+        if low_bad or (hi is not None and x > hi):
+            lo_s = "" if lo is None else (f"above {lo:g}" if open_low else f"from {lo:g}")
+            hi_s = "" if hi is None else f"{' ' if lo_s else ''}{'to' if lo_s else 'at most'} {hi:g}"
+            raise argparse.ArgumentTypeError(
+                f"{x:g}{' ' + unit if unit else ''} is out of range (give a value "
+                f"{lo_s}{hi_s}{' ' + unit if unit else ''})")
+        return x
+    return parse
+
+
+def whole_in(lo: int, hi: int, what: str = "value"):
+    """An argparse type: a whole number from ``lo`` to ``hi``."""
+    def parse(text: str) -> int:
+        try:
+            x = int(text, 10)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"'{text}' is not a whole number") from None
+        if not lo <= x <= hi:
+            raise argparse.ArgumentTypeError(f"{what} {x} is out of range (give {lo} to {hi})")
+        return x
+    return parse
+
+
+def sample_rate(text: str) -> float:
+    """An argparse type: a simulation sample rate.  The live path's own
+    check (engine/live/limits.py, the audio interface's range) is used when
+    present; otherwise the offline range of engine/limits.py."""
+    from engine import limits
+    return number_in(limits.MIN_RATE, limits.MAX_RATE, "Hz")(text)
+
+
+def live_check(name: str, fallback=None):
+    """An argparse type that applies the live path's own check
+    ``engine.live.limits.<name>`` (level, ceiling, rate: the ranges that keep
+    the sound card safe live there, in one place); where that module is
+    absent, ``fallback`` (default: any finite number)."""
+    def parse(text: str):
+        x = _number(text)
+        try:
+            import engine.live.limits as live_limits
+            check = getattr(live_limits, name)
+        except (ImportError, AttributeError):
+            return (fallback or finite_number)(text)
+        try:
+            return check(x)
+        except SolderlessError as exc:
+            raise argparse.ArgumentTypeError(
+                exc.message + (f" ({exc.hint})" if exc.hint else "")) from None
+    return parse
+
+
+def live_rate(text: str) -> float:
+    """An argparse type for ``play --rate``: the live path's check."""
+    return live_check("check_rate", sample_rate)(text)
+
+
+def input_channel(text: str) -> int:
+    """An argparse type: an input channel, counted from 1."""
+    return whole_in(1, 1024, "channel")(text)
+
+
+def seconds_arg(text: str) -> float:
+    """An argparse type: a length of time in seconds."""
+    from engine import limits
+    return number_in(0.0, limits.MAX_SECONDS, "s", open_low=True)(text)
+
+
+def add_rate_option(p, default=None, help_text="sample rate in Hz", live=False):
+    """``--rate`` (the one name) and the old ``--fs`` as a hidden alias."""
+    kind = live_rate if live else sample_rate
+    p.add_argument("--rate", type=kind, default=default, metavar="HZ", help=help_text)
+    p.add_argument("--fs", type=kind, dest="rate_old_name", default=None,
+                   help=argparse.SUPPRESS)
+
+
+def add_channel_option(p, help_text="input channel to use, counted from 1 (default 1)"):
+    """``--input-channel`` (1-based) and the old ``--channel`` as a hidden
+    alias, now 1-based as well."""
+    p.add_argument("--input-channel", type=input_channel, default=1, metavar="N",
+                   help=help_text)
+    p.add_argument("--channel", type=input_channel, dest="channel_old_name", default=None,
+                   help=argparse.SUPPRESS)
+
+
+def resolve_aliases(args) -> None:
+    """Move the old option names' values onto the new ones, with a note."""
+    if getattr(args, "rate_old_name", None) is not None:
+        print("note: --fs is now called --rate (the old name still works for now)",
+              file=sys.stderr)
+        args.rate, args.rate_old_name = args.rate_old_name, None
+    if getattr(args, "channel_old_name", None) is not None:
+        print("note: --channel is now called --input-channel and counts from 1 like it",
+              file=sys.stderr)
+        args.input_channel, args.channel_old_name = args.channel_old_name, None
+
+
 # ------------------------------------------------------------------ helpers
+
+def warn(text: str) -> None:
+    """A warning line on stderr (long echoes cut)."""
+    from engine.errors import cut_long
+    print(f"warning: {cut_long(text)}", file=sys.stderr)
+
 
 def _load(args):
     from engine.design import load_design
@@ -27,11 +172,40 @@ def _load(args):
                     out_node=getattr(args, "out_node", "out"))
     nl = getattr(d, "netlist", None)
     for w in (nl.warnings if nl is not None else []):
-        print(f"warning: {w}", file=sys.stderr)
+        warn(w)
     if d.netlist is None and d.stages:
         for w in d.dangling_probes():
-            print(f"warning: {w}", file=sys.stderr)
+            warn(w)
     return d
+
+
+def _flatten(d):
+    """The design's flat circuit, with the circuit check's warnings (a net
+    with one connection) and values outside real parts' range shown."""
+    from engine.sanity import check_values
+    circ = d.flatten()
+    for w in getattr(d, "check_warnings", []) or []:
+        warn(w)
+    for w in check_values(circ):
+        warn(w)
+    return circ
+
+
+def _audio_formats() -> dict[str, tuple[str, str | None]]:
+    """Output file extension -> (soundfile format, subtype)."""
+    return {".wav": ("WAV", "FLOAT"), ".flac": ("FLAC", "PCM_24"),
+            ".aif": ("AIFF", "FLOAT"), ".aiff": ("AIFF", "FLOAT"),
+            ".ogg": ("OGG", "VORBIS")}
+
+
+def _write_csv(path, header: str, columns, inputs=()) -> None:
+    """A CSV file written atomically (engine.fileio)."""
+    import io
+    import numpy as np
+    from engine.fileio import atomic_write
+    buf = io.StringIO()
+    np.savetxt(buf, columns, delimiter=",", header=header, comments="", fmt="%.9g")
+    atomic_write(path, buf.getvalue(), inputs=inputs)
 
 
 def _add_design_arg(p, nargs=None):
@@ -82,32 +256,75 @@ def _fmt(x: float, unit: str) -> str:
 
 # ------------------------------------------------------------------ render
 
+def read_audio(path, channel: int = 1):
+    """One channel (counted from 1) of an audio file, as float64 samples in
+    full-scale units, and its sample rate.  Refuses devices and pipes, files
+    over the size limit, empty files and non-finite samples, naming the file."""
+    import numpy as np
+    import soundfile as sf
+    from engine import limits
+    from engine.fileio import check_input_file
+    path = str(path)
+    check_input_file(path, what="audio file", limit=limits.MAX_AUDIO_BYTES)
+    try:
+        x, fs_in = sf.read(path, dtype="float64", always_2d=True)
+    except MemoryError:
+        raise DesignError("the audio file is too large to read into memory",
+                          file=path) from None
+    except Exception as exc:
+        raise DesignError(f"cannot read audio: {str(exc).splitlines()[0] if str(exc) else exc}",
+                          file=path, hint="use a WAV (or FLAC/OGG) file") from None
+    if x.shape[0] == 0:
+        raise DesignError("the audio file holds no samples", file=path)
+    if not limits.MIN_RATE / 8 <= fs_in <= limits.MAX_RATE:
+        raise DesignError(f"the audio file's sample rate {fs_in} Hz is out of range",
+                          file=path)
+    if channel > x.shape[1]:
+        raise DesignError(f"the file has {x.shape[1]} channel(s); --input-channel {channel} "
+                          "does not exist", file=path,
+                          hint=f"use --input-channel 1 to {x.shape[1]}")
+    x = x[:, channel - 1]
+    bad = ~np.isfinite(x)
+    if bad.any():
+        k = int(np.argmax(bad))
+        raise DesignError(f"sample {k} (at {k / fs_in:.3f} s) is not a finite number "
+                          f"({int(bad.sum())} such samples)", file=path,
+                          hint="the file is damaged; export it again")
+    return x, int(fs_in)
+
+
 def cmd_render(args) -> int:
     import numpy as np
     import soundfile as sf
+    from engine import limits
+    from engine.fileio import atomic_write, write_target
+    fmt = _audio_formats().get(Path(args.output).suffix.lower())
+    if fmt is None:
+        raise DesignError("unknown output file type", file=args.output,
+                          hint="end the name with " + ", ".join(_audio_formats()))
+    # refuse bad output paths and an output that is the input before the
+    # (possibly long) simulation, not after it
+    for target in (args.output, args.probes_csv):
+        if target:
+            real = write_target(target)
+            if real.exists() and os.path.exists(args.input) and \
+                    os.path.samefile(args.input, real):
+                raise DesignError("is also the input; writing it would destroy the input",
+                                  file=target, hint="write to another file name")
     d = _load(args)
     inp = Path(args.input)
-    try:
-        x, fs_in = sf.read(str(inp), dtype="float64", always_2d=True)
-    except FileNotFoundError:
-        raise DesignError("input file not found", file=str(inp)) from None
-    except Exception as exc:
-        raise DesignError(f"cannot read audio: {exc}", file=str(inp),
-                          hint="use a WAV (or FLAC/OGG) file") from None
-    if args.channel >= x.shape[1]:
-        raise DesignError(f"the file has {x.shape[1]} channel(s); --channel {args.channel} "
-                          "does not exist", file=str(inp))
-    x = x[:, args.channel]
-    fs = float(args.fs or fs_in)
-    if fs <= 0:
-        raise DesignError("--fs must be positive")
+    x, fs_in = read_audio(inp, args.input_channel)
+    fs = float(args.rate or fs_in)
+    n_out = int(len(x) * fs / fs_in)
+    if n_out > limits.MAX_RENDER_SAMPLES:
+        raise DesignError(f"rendering {n_out} samples ({n_out / fs:.0f} s at {fs:g} Hz) is "
+                          f"over the limit of {limits.MAX_RENDER_SAMPLES}", file=str(inp),
+                          hint="render a shorter excerpt or at a lower --rate")
     if int(fs) != int(fs_in):
         from fractions import Fraction
         from scipy.signal import resample_poly
         fr = Fraction(int(fs), int(fs_in)).limit_denominator(1000)
         x = resample_poly(x, fr.numerator, fr.denominator)
-    if not (args.input_fs_volts > 0 and args.output_fs_volts > 0):
-        raise DesignError("--input-fs-volts and --output-fs-volts must be positive")
     volts = x * args.input_fs_volts
     oversample = args.oversample or d.oversample
     names = list(args.probe)
@@ -123,7 +340,7 @@ def cmd_render(args) -> int:
         dangling = {e for e, _ in d.dangling_probe_list()}
         names = [n for n in names if n not in dangling]
     probes = [d.resolve_probe(p) for p in names]
-    circ = d.flatten()
+    circ = _flatten(d)
     from engine.solver import Simulator
     sim = Simulator(circ, fs=fs, oversample=oversample, probes=tuple(probes))
     for w in sim.warnings:
@@ -148,8 +365,14 @@ def cmd_render(args) -> int:
     if peak > 1.0:
         print(f"warning: output peaks at {20 * math.log10(peak):+.1f} dBFS and is clipped; "
               "raise --output-fs-volts", file=sys.stderr)
-    sf.write(args.output, np.clip(yo, -1.0, 1.0).astype(np.float32), int(fs),
-             subtype="FLOAT" if args.output.lower().endswith(".wav") else None)
+    if not np.all(np.isfinite(yo)):
+        raise DesignError("the simulation produced non-finite output; nothing was written",
+                          file=args.output, hint="check the warnings above; try "
+                          "--oversample 2 or more")
+    data = np.clip(yo, -1.0, 1.0).astype(np.float32)
+    atomic_write(args.output, lambda tmp: sf.write(tmp, data, int(fs), format=fmt[0],
+                                                   subtype=fmt[1]),
+                 inputs=[inp], suffix=Path(args.output).suffix)
     st = sim.stats
     print(f"wrote {args.output}: {n / fs:.2f} s at {fs:g} Hz, oversample x{oversample}, "
           f"output peak {20 * math.log10(max(peak, 1e-12)):+.1f} dBFS "
@@ -168,8 +391,8 @@ def cmd_render(args) -> int:
                                  0.0 if not args.keep_latency else float(lat))
             t = np.arange(n) / fs
             header = "time_s," + ",".join(_csv_field(n) for n in names)
-            np.savetxt(args.probes_csv, np.column_stack([t, pdata.T]), delimiter=",",
-                       header=header, comments="", fmt="%.9g")
+            _write_csv(args.probes_csv, header, np.column_stack([t, pdata.T]),
+                       inputs=[inp])
             print(f"wrote {args.probes_csv}: {len(probes)} probe(s)")
     return 0
 
@@ -200,7 +423,7 @@ def align_probes(pdata, probe_delay: float, audio_delay: float):
 
 def cmd_op(args) -> int:
     d = _load(args)
-    circ = d.flatten()
+    circ = _flatten(d)
     from engine.solver import Simulator
     sim = Simulator(circ, fs=48000.0, oversample=1)
     op = sim.operating_point()
@@ -238,19 +461,23 @@ def cmd_op(args) -> int:
 
 def cmd_ac(args) -> int:
     import numpy as np
+    if args.fmax <= args.fmin:
+        raise DesignError(f"--fmax ({args.fmax:g} Hz) must be above --fmin "
+                          f"({args.fmin:g} Hz)")
+    if args.csv:
+        from engine.fileio import write_target
+        write_target(args.csv)
     d = _load(args)
-    circ = d.flatten()
+    circ = _flatten(d)
     from engine.solver import ac_response
-    if args.fmin <= 0 or args.fmax <= args.fmin:
-        raise DesignError("need 0 < --fmin < --fmax")
     f = np.geomspace(args.fmin, args.fmax, args.points)
     f, H, Z = ac_response(circ, f)
     mag = 20 * np.log10(np.maximum(np.abs(H), 1e-30))
     ph = np.degrees(np.angle(H))
     if args.csv:
-        np.savetxt(args.csv, np.column_stack([f, mag, ph, np.abs(Z), np.degrees(np.angle(Z))]),
-                   delimiter=",", header="freq_hz,gain_db,phase_deg,zin_ohm,zin_phase_deg",
-                   comments="", fmt="%.9g")
+        _write_csv(args.csv, "freq_hz,gain_db,phase_deg,zin_ohm,zin_phase_deg",
+                   np.column_stack([f, mag, ph, np.abs(Z), np.degrees(np.angle(Z))]),
+                   inputs=[args.design])
         print(f"wrote {args.csv}: {len(f)} points")
         return 0
     print(f"Small-signal response of {d.name} (input jack to output; gain in dB, phase in "
@@ -332,7 +559,7 @@ def build_parser(argv=None) -> argparse.ArgumentParser:
     def wanted(name: str) -> bool:
         return command is None or command == name
 
-    ap = argparse.ArgumentParser(
+    ap = OptionParser(
         prog="solderless",
         description="Hear an analog circuit before you build it: simulate a chain of "
                     "stages live or offline.",
@@ -343,18 +570,20 @@ def build_parser(argv=None) -> argparse.ArgumentParser:
     _add_design_arg(p)
     p.add_argument("input", help="input audio file (WAV)")
     p.add_argument("output", help="output WAV file (32-bit float)")
-    p.add_argument("--fs", type=float, default=None, help="simulation sample rate in Hz "
-                   "(default: the input file's; the input is resampled if different)")
+    add_rate_option(p, help_text="simulation sample rate in Hz (default: the input file's; "
+                    "the input is resampled if different)")
     p.add_argument("--oversample", type=int, choices=(1, 2, 4, 8), default=None,
                    help="oversampling factor (default: the design's)")
-    p.add_argument("--input-fs-volts", type=float, default=FULL_SCALE_V, metavar="V",
+    p.add_argument("--input-fs-volts", type=number_in(0, 1e4, "V", open_low=True),
+                   default=FULL_SCALE_V, metavar="V",
                    help="peak volts at the input jack that a full-scale sample stands "
                         f"for (default {FULL_SCALE_V:.4g}: the calibration every command "
                         "uses, engine/levels.py)")
-    p.add_argument("--output-fs-volts", type=float, default=FULL_SCALE_V, metavar="V",
+    p.add_argument("--output-fs-volts", type=number_in(0, 1e4, "V", open_low=True),
+                   default=FULL_SCALE_V, metavar="V",
                    help="peak volts at the output jack written as full scale "
                         f"(default {FULL_SCALE_V:.4g}, the same calibration)")
-    p.add_argument("--channel", type=int, default=0, help="input channel to use (default 0)")
+    add_channel_option(p)
     p.add_argument("--probe", action="append", default=[], metavar="NAME",
                    help="record a probe, e.g. 'iabc(gain.U1)' or 'v(buffer.out)' (repeatable)")
     p.add_argument("--probes-csv", metavar="FILE", help="write probes as CSV "
@@ -406,18 +635,24 @@ _OPTIONAL = (
 
 
 def _add_ac_arguments(p) -> None:
+    from engine import limits
     from engine.solver.ac import DEFAULT_FMAX_HZ, DEFAULT_FMIN_HZ, DEFAULT_POINTS
     _add_design_arg(p, nargs="?")
-    p.add_argument("--fmin", type=float, default=DEFAULT_FMIN_HZ, metavar="HZ",
+    p.add_argument("--fmin", type=number_in(0, 1e9, "Hz", open_low=True),
+                   default=DEFAULT_FMIN_HZ, metavar="HZ",
                    help=f"lowest frequency, Hz (default {DEFAULT_FMIN_HZ:g}; the workbench "
                         "uses the same range)")
-    p.add_argument("--fmax", type=float, default=DEFAULT_FMAX_HZ, metavar="HZ",
+    p.add_argument("--fmax", type=number_in(0, 1e9, "Hz", open_low=True),
+                   default=DEFAULT_FMAX_HZ, metavar="HZ",
                    help=f"highest frequency, Hz (default {DEFAULT_FMAX_HZ:g})")
-    p.add_argument("--points", type=int, default=DEFAULT_POINTS, metavar="N",
-                   help=f"number of log-spaced frequencies (default {DEFAULT_POINTS})")
+    p.add_argument("--points", type=whole_in(2, limits.MAX_AC_POINTS, "points"),
+                   default=DEFAULT_POINTS, metavar="N",
+                   help=f"number of log-spaced frequencies (default {DEFAULT_POINTS}, at "
+                        f"most {limits.MAX_AC_POINTS})")
     p.add_argument("--csv", metavar="FILE", help="write the response as CSV (freq_hz, "
                    "gain_db, phase_deg, zin_ohm, zin_phase_deg)")
     p.set_defaults(func=cmd_ac)
+
 
 def _optional(sub, name, module, add_fn, run_fn, help_text):
     """Register a subcommand whose arguments live in another module."""
@@ -459,10 +694,19 @@ def _main(argv) -> int:
     if not getattr(args, "func", None):
         ap.print_help()
         return 0
+    resolve_aliases(args)
     try:
         return int(args.func(args) or 0)
     except SolderlessError as exc:
         print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except RecursionError:
+        # a last line of defence: inputs are limited long before this
+        print("error: the input nests too deeply to read", file=sys.stderr)
+        return 2
+    except MemoryError:
+        print("error: out of memory (the input asks for more than this machine has)",
+              file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("stopped", file=sys.stderr)

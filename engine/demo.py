@@ -38,6 +38,7 @@ import numpy as np
 
 from engine.analysis import compression as cp
 from engine.errors import SolderlessError
+from engine.fileio import atomic_write
 
 FLAGSHIP = "flagship"
 VARIANTS = ("flagship-slow-release", "flagship-linear-threshold")
@@ -284,7 +285,8 @@ def _plots(out: Path, fs: float, x: np.ndarray, runs: list[Run], curves, release
     axs[-1].set_xlabel("time (s)")
     fig.tight_layout()
     files["waveforms"] = "waveforms.png"
-    fig.savefig(out / files["waveforms"], dpi=90)
+    atomic_write(out / files["waveforms"], lambda tmp: fig.savefig(tmp, dpi=90, format="png"),
+                 suffix=".png")
     plt.close(fig)
 
     fig, (a1, a2) = plt.subplots(2, 1, figsize=(9, 5), sharex=True)
@@ -301,7 +303,8 @@ def _plots(out: Path, fs: float, x: np.ndarray, runs: list[Run], curves, release
     a1.legend(fontsize=7)
     fig.tight_layout()
     files["control"] = "control.png"
-    fig.savefig(out / files["control"], dpi=90)
+    atomic_write(out / files["control"], lambda tmp: fig.savefig(tmp, dpi=90, format="png"),
+                 suffix=".png")
     plt.close(fig)
 
     fig, ax = plt.subplots(figsize=(5.5, 5))
@@ -318,7 +321,8 @@ def _plots(out: Path, fs: float, x: np.ndarray, runs: list[Run], curves, release
     ax.legend(fontsize=7)
     fig.tight_layout()
     files["static"] = "static_curve.png"
-    fig.savefig(out / files["static"], dpi=90)
+    atomic_write(out / files["static"], lambda tmp: fig.savefig(tmp, dpi=90, format="png"),
+                 suffix=".png")
     plt.close(fig)
 
     fig, ax = plt.subplots(figsize=(9, 3.5))
@@ -334,7 +338,8 @@ def _plots(out: Path, fs: float, x: np.ndarray, runs: list[Run], curves, release
     ax.grid(True, alpha=0.3)
     fig.tight_layout()
     files["release"] = "release.png"
-    fig.savefig(out / files["release"], dpi=90)
+    atomic_write(out / files["release"], lambda tmp: fig.savefig(tmp, dpi=90, format="png"),
+                 suffix=".png")
     plt.close(fig)
     return files
 
@@ -433,9 +438,7 @@ workbench. Mind the listening level: start low.</p>
 </body></html>
 """
     path = out / "report.html"
-    tmp = out / ".report.html.tmp"
-    tmp.write_text(doc, encoding="utf-8")
-    os.replace(tmp, path)
+    atomic_write(path, doc)
     return path
 
 
@@ -513,7 +516,7 @@ def run_demo(out_dir: str | os.PathLike = "demo-out", seconds: float | None = No
             "nonconverged": int(r.stats.get("nonconverged", 0)),
         } for r, c, rel, lu, at in zip(runs, curves, releases, louds, attacks)],
     }
-    (out / "summary.json").write_text(json.dumps(summary, indent=2, default=float))
+    atomic_write(out / "summary.json", json.dumps(summary, indent=2, default=float))
     if verbose:
         print(f"Solderless demo ({elapsed:.1f} s): {len(x) / fs:.1f} s of synthetic guitar "
               f"through {len(runs)} designs")

@@ -18,7 +18,6 @@ import difflib
 import math
 import os
 import re
-import tempfile
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -208,40 +207,73 @@ class PartInfo:
 # -------------------------------------------------------------- file reading
 
 def _line_finder(text: str):
-    """Return f(name) -> 1-based line of the first ``name = "<name>"``."""
-    lines = text.splitlines()
+    """Return f(name, after=0) -> 1-based line of the first ``name = "<name>"``
+    below line ``after``.  The text is indexed once, so finding every part of
+    a design is linear in the file's size (rescanning the file for each part
+    made a 10 MB design take minutes)."""
+    import bisect
+    index: dict[str, list[int]] = {}
+    pat = re.compile(r'^[ \t]*name[ \t]*=[ \t]*(?:"([^"\n]*)"|\'([^\'\n]*)\')', re.M)
+    starts = [0]
+    for m in re.finditer(r"\n", text):
+        starts.append(m.end())
+    for m in pat.finditer(text):
+        nm = m.group(1) if m.group(1) is not None else m.group(2)
+        index.setdefault(nm, []).append(bisect.bisect_right(starts, m.start()))
 
     def find(name: str, after: int = 0) -> int | None:
-        pat = re.compile(r'^\s*name\s*=\s*["\']' + re.escape(name) + r'["\']')
-        for i in range(after, len(lines)):
-            if pat.match(lines[i]):
-                return i + 1
-        return None
+        lines = index.get(name)
+        if not lines:
+            return None
+        k = bisect.bisect_right(lines, after)
+        return lines[k] if k < len(lines) else None
     return find
 
 
 def _toml_load(path: Path) -> tuple[dict, str]:
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise DesignError("file not found", file=str(path)) from None
-    except UnicodeDecodeError:
-        raise DesignError("not a text file (expected UTF-8 TOML)", file=str(path)) from None
-    except OSError as exc:
-        raise DesignError(f"cannot read: {exc.strerror}", file=str(path)) from None
+    from engine.fileio import read_text
+    text = read_text(path, what="design file")
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         m = re.search(r"line (\d+)", str(exc))
-        raise DesignError(f"not valid TOML: {exc}", file=str(path),
+        raise DesignError(f"not valid TOML: {_cut(str(exc))}", file=str(path),
                           line=int(m.group(1)) if m else None,
                           hint="check quotes, brackets and '=' on that line") from None
+    except RecursionError:
+        raise DesignError("not a design: arrays or tables nest too deeply", file=str(path),
+                          hint="a design file nests tables a few levels at most") from None
     return data, text
+
+
+def _cut(text: str, n: int = 80) -> str:
+    """``text`` shortened to ``n`` characters for an error message."""
+    text = str(text)
+    return text if len(text) <= n else text[:n - 3] + "..."
 
 
 def _expect(cond: bool, msg: str, where: Where, part: str | None = None, hint=None):
     if not cond:
         raise DesignError(msg, file=where.file, line=where.line, part=part, hint=hint)
+
+
+def _table(raw: Any, key: str, where: Where, part: str | None = None) -> dict:
+    """``raw[key]`` as a table (an empty one when missing), or a DesignError
+    saying it must be a table."""
+    v = raw.get(key, {}) if isinstance(raw, dict) else {}
+    _expect(isinstance(v, dict), f"'{key}' must be a table (key = value pairs), not "
+            f"{type(v).__name__} {_cut(repr(v), 40)}", where, part,
+            hint="see docs/design-format.md")
+    return v
+
+
+def _tables(raw: Any, key: str, where: Where, part: str | None = None) -> list[dict]:
+    """``raw[key]`` as a list of tables ([[key]] entries), empty when missing."""
+    v = raw.get(key, []) if isinstance(raw, dict) else []
+    _expect(isinstance(v, list) and all(isinstance(x, dict) for x in v),
+            f"'{key}' must be a list of tables ([[{key}]] entries), not "
+            f"{_cut(repr(v), 40)}", where, part, hint="see docs/design-format.md")
+    return v
 
 
 def _read_part(raw: Any, where: Where, stage: str) -> Part:
@@ -394,7 +426,7 @@ def load_stage_template(name: str, where: Where | None = None) -> Stage:
         raise DesignError(f"no stage template '{name}' in presets/stages",
                           file=where.file, line=where.line,
                           hint=("did you mean " + ", ".join(close) + "?") if close else
-                          "see `solderless stages` for the library")
+                          "see `solderless designs` for the stage library")
     path = lib[name]
     data, text = _toml_load(path)
     body = data.get("stage")
@@ -435,6 +467,44 @@ class Design:
         self._stage_docs: dict[str, Any] = {}
         self._netlist_models: dict[str, str] = {}   # netlist part -> library model
         self.dirty = False
+        self.check_warnings: list[str] = []   # the last flatten's circuit check
+
+    # The tomlkit document is parsed on first use (an edit, a save): tomlkit
+    # reads about 1 MB a second, ten times slower than tomllib, so a large
+    # design that is only rendered never pays for it.
+    _lazy_doc: tuple[str, list[str]] | None = None
+
+    def _materialise(self) -> None:
+        lazy, self._lazy_doc = self._lazy_doc, None
+        if lazy is None:
+            return
+        import tomlkit
+        text, names = lazy
+        self.__dict__["doc"] = doc = tomlkit.parse(text)
+        sdocs = doc.get("stage", [])
+        for i, name in enumerate(names):
+            self.__dict__["_stage_docs"].setdefault(name, sdocs[i])
+
+    @property
+    def doc(self):
+        if self._lazy_doc is not None:
+            self._materialise()
+        return self.__dict__.get("doc")
+
+    @doc.setter
+    def doc(self, value) -> None:
+        self._lazy_doc = None
+        self.__dict__["doc"] = value
+
+    @property
+    def _stage_docs(self) -> dict[str, Any]:
+        if self._lazy_doc is not None:
+            self._materialise()
+        return self.__dict__["_stage_docs"]
+
+    @_stage_docs.setter
+    def _stage_docs(self, value) -> None:
+        self.__dict__["_stage_docs"] = value
 
     # ------------------------------------------------------------ queries
     def stage(self, name: str) -> Stage:
@@ -902,45 +972,17 @@ class Design:
 
 
 def file_mode_for(target: str | os.PathLike) -> int:
-    """Permission bits for a file written to ``target``: those of the file
-    already there, else 0666 less the user's umask (as ``open`` would)."""
-    try:
-        return os.stat(target).st_mode & 0o777
-    except OSError:
-        pass
-    try:
-        with open("/proc/self/status", encoding="ascii") as f:
-            for line in f:
-                if line.startswith("Umask:"):
-                    return 0o666 & ~int(line.split()[1], 8)
-    except (OSError, ValueError):
-        pass
-    mask = os.umask(0o022)
-    os.umask(mask)
-    return 0o666 & ~mask
+    """Permission bits for a file written to ``target`` (engine.fileio)."""
+    from engine.fileio import file_mode_for as mode_for
+    return mode_for(target)
 
 
-def atomic_write_text(target: str | os.PathLike, text: str) -> None:
-    """Write ``text`` to ``target`` atomically: a temporary file in the same
-    folder, flushed and synced, then renamed over the target."""
-    target = Path(target)
-    target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
-    try:
-        # mkstemp makes 0600; the file gets the mode an ordinary write gives
-        # (the user's umask), or keeps the mode of the file it replaces
-        os.fchmod(fd, file_mode_for(target))
-        with os.fdopen(fd, "w", encoding="utf-8") as f:
-            f.write(text)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, target)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
+def atomic_write_text(target: str | os.PathLike, text: str, **kw) -> Path:
+    """Write ``text`` to ``target`` atomically (see
+    :func:`engine.fileio.atomic_write`: temporary file beside the target,
+    synced, renamed; mode and links kept; missing folders are an error)."""
+    from engine.fileio import atomic_write
+    return atomic_write(target, text, **kw)
 
 
 class _UnionFind:
@@ -1103,7 +1145,13 @@ class _Flattener:
                        title=d.name, where=Where(self.file), ratings=dict(self.ratings),
                        off_by_design=set(self.off_by_design),
                        temperature=d.temperature)
-        validate_circuit(circ, self.file)
+        from engine import limits
+        if len(elements) > limits.MAX_ELEMENTS:
+            raise DesignError(f"the design has {len(elements)} parts; the limit is "
+                              f"{limits.MAX_ELEMENTS}", file=self.file)
+        # the check's warnings (a net with one connection) are kept for the
+        # front ends to show
+        d.check_warnings = validate_circuit(circ, self.file)
         return circ
 
     def resting_levels(self, rest_of: dict[str, str]) -> dict[str, float]:
@@ -1295,7 +1343,18 @@ def load_design(source: str | os.PathLike, *, in_source: str = "VIN",
         raise DesignError("is a folder, not a design file", file=str(path))
     if path.suffix.lower() in (".cir", ".sp", ".spice", ".net", ".ckt", ".txt"):
         return _design_from_netlist(path, in_source, out_node)
-    return _design_from_toml(path)
+    try:
+        return _design_from_toml(path)
+    except (TypeError, AttributeError, KeyError, ValueError, IndexError) as exc:
+        # a value of a type the reader did not check for: still the user's
+        # file, so a one-line answer, not a traceback
+        if isinstance(exc, SolderlessError):
+            raise
+        raise DesignError(f"a value in the design has the wrong type or form "
+                          f"({type(exc).__name__}: {_cut(str(exc), 80)})", file=str(path),
+                          hint="compare the file with docs/design-format.md") from None
+    except RecursionError:
+        raise DesignError("the design nests too deeply to read", file=str(path)) from None
 
 
 def _part_type(e: Element) -> str:
@@ -1378,10 +1437,11 @@ def _design_from_netlist_toml(path: Path, data: dict, doc) -> Design:
     d.path = path
     d.doc = doc
     d._stage_docs["netlist"] = doc["netlist"]
-    d.name = str(data.get("design", {}).get("name", d.name))
-    d.notes = str(data.get("design", {}).get("notes", ""))
+    head = _table(data, "design", w)
+    d.name = str(head.get("name", d.name))
+    d.notes = str(head.get("notes", ""))
     st = d.stages[0]
-    for pname, val in table.get("values", {}).items():
+    for pname, val in _table(table, "values", w).items():
         try:
             part = st.part(pname)
         except KeyError:
@@ -1404,6 +1464,15 @@ def _design_from_netlist_toml(path: Path, data: dict, doc) -> Design:
     return d
 
 
+def _template_part(st: Stage, pname: str, w: Where, stage: str) -> Part:
+    try:
+        return st.part(pname)
+    except KeyError:
+        raise DesignError(f"template '{st.template}' has no part '{pname}'", file=w.file,
+                          line=w.line, part=f"{stage}.{pname}",
+                          hint="parts: " + ", ".join(p.name for p in st.parts)) from None
+
+
 def _read_link_end(text: Any, where: Where) -> tuple[str, str]:
     _expect(isinstance(text, str) and text.count(".") == 1,
             f"a link end must be written stage.port, not {text!r}", where)
@@ -1420,9 +1489,7 @@ def _design_from_toml(path: Path) -> Design:
         return _design_from_netlist_toml(path, data, tomlkit.parse(text))
     d = Design()
     d.path = path
-    d.doc = tomlkit.parse(text)
-    head = data.get("design", {})
-    _expect(isinstance(head, dict), "[design] must be a table", Where(file, 1))
+    head = _table(data, "design", Where(file, 1))
     d.name = str(head.get("name", path.stem))
     d.notes = str(head.get("notes", ""))
     ov = head.get("oversample", 1)
@@ -1439,7 +1506,9 @@ def _design_from_toml(path: Path) -> Design:
     _expect(isinstance(gn, list), "global_nets must be a list of net names", Where(file))
     d.global_nets = [canonical_net(str(n)) for n in gn]
     # user model cards
-    cards = data.get("models", {}).get("cards", "")
+    cards = _table(data, "models", Where(file)).get("cards", "")
+    _expect(isinstance(cards, str), "[models] cards must be text (a multi-line string of "
+            ".model cards)", Where(file))
     if cards:
         base = None
         for i, line in enumerate(text.splitlines(), 1):
@@ -1449,16 +1518,17 @@ def _design_from_toml(path: Path) -> Design:
             if line.strip().lower().startswith(".model"):
                 d.models.setdefault("_cards", []).append(
                     (line.strip(), Where(file, (base or 0) + 2 + j if base else None)))
-    for raw in head.get("part", []):
+    for raw in _tables(head, "part", Where(file)):
         nm = raw.get("name") if isinstance(raw, dict) else None
         w = Where(file, finder(nm) if isinstance(nm, str) else None)
         d.parts_global.append(_read_part(raw, w, ""))
     stages_raw = data.get("stage", [])
-    _expect(isinstance(stages_raw, list) and stages_raw, "the design needs [[stage]] tables",
-            Where(file), hint="see docs/design-format.md")
+    _expect(isinstance(stages_raw, list) and stages_raw
+            and all(isinstance(x, dict) for x in stages_raw),
+            "the design needs [[stage]] tables", Where(file), hint="see docs/design-format.md")
     seen = set()
     line = 0
-    sdocs = d.doc.get("stage", [])
+    stage_names: list[str] = []
     for i, raw in enumerate(stages_raw):
         name = raw.get("name")
         sline = finder(name, line) if isinstance(name, str) else None
@@ -1472,7 +1542,7 @@ def _design_from_toml(path: Path) -> Design:
             st = load_stage_template(str(raw["template"]), w)
             st.name, st.template = name, str(raw["template"])
             st.where = w
-            for pname, val in raw.get("values", {}).items():
+            for pname, val in _table(raw, "values", w, name).items():
                 try:
                     part = st.part(pname)
                 except KeyError:
@@ -1483,7 +1553,7 @@ def _design_from_toml(path: Path) -> Design:
                 if part.type in POSITIVE_TYPES and part.value <= 0:
                     raise DesignError("value must be positive", file=file, line=sline,
                                       part=f"{name}.{pname}")
-            for pname, rot in raw.get("rotations", {}).items():
+            for pname, rot in _table(raw, "rotations", w, name).items():
                 try:
                     part = st.part(pname)
                 except KeyError:
@@ -1492,22 +1562,23 @@ def _design_from_toml(path: Path) -> Design:
                 _expect(part.type == "pot" and isinstance(rot, (int, float)) and 0 <= rot <= 1,
                         "rotations must be numbers from 0 to 1 for pots", w, f"{name}.{pname}")
                 part.rotation = float(rot)
-            for pname, tap in raw.get("tapers", {}).items():
-                part = st.part(pname)
+            for pname, tap in _table(raw, "tapers", w, name).items():
+                part = _template_part(st, pname, w, name)
                 part.taper = _check_taper(tap, w, f"{name}.{pname}")
-            for pname, pos in raw.get("positions", {}).items():
-                st.part(pname).position = int(pos)
-            for pname, mname in raw.get("models", {}).items():
-                try:
-                    part = st.part(pname)
-                except KeyError:
-                    raise DesignError(f"template '{st.template}' has no part '{pname}'",
-                                      file=file, line=sline, part=f"{name}.{pname}") from None
+            for pname, pos in _table(raw, "positions", w, name).items():
+                part = _template_part(st, pname, w, name)
+                _expect(part.type == "switch" and isinstance(pos, int)
+                        and not isinstance(pos, bool) and 0 <= pos < len(part.positions),
+                        "positions are whole numbers that pick a switch position",
+                        w, f"{name}.{pname}")
+                part.position = pos
+            for pname, mname in _table(raw, "models", w, name).items():
+                part = _template_part(st, pname, w, name)
                 _expect(part.type in DEVICE_TYPES and isinstance(mname, str),
                         f"[stage.models] {pname}: only a device part takes a model name",
                         Where(file, sline), f"{name}.{pname}")
                 part.model = str(mname)
-            for pname, tol in raw.get("tolerances", {}).items():
+            for pname, tol in _table(raw, "tolerances", w, name).items():
                 from engine.values import parse_tolerance
                 try:
                     st.part(pname).tolerance = parse_tolerance(
@@ -1515,7 +1586,7 @@ def _design_from_toml(path: Path) -> Design:
                 except KeyError:
                     raise DesignError(f"template '{st.template}' has no part '{pname}'",
                                       file=file, line=sline, part=f"{name}.{pname}") from None
-            for prt in raw.get("part", []):  # extra parts added to a template
+            for prt in _tables(raw, "part", w, name):  # extra parts added to a template
                 pw = Where(file, finder(prt.get("name", ""), line) or sline)
                 st.parts.append(_read_part(prt, pw, name))
             if "kind" in raw:
@@ -1528,17 +1599,18 @@ def _design_from_toml(path: Path) -> Design:
             st = _read_stage_body(raw, name, w, finder)
         st.bypass = bool(raw.get("bypass", False))
         d.stages.append(st)
-        d._stage_docs[name] = sdocs[i]
-    for raw in data.get("link", []):
+        stage_names.append(name)
+    for raw in _tables(data, "link", Where(file)):
         w = Where(file, None)
         _expect(isinstance(raw, dict) and "from" in raw and "to" in raw,
                 "a [[link]] needs from = \"stage.port\" and to = \"stage.port\"", w)
         d.links.append(Link(_read_link_end(raw["from"], w), _read_link_end(raw["to"], w), w))
-    for raw in data.get("probe", []):
+    for raw in _tables(data, "probe", Where(file)):
         _expect(isinstance(raw, dict) and "expr" in raw,
                 "a [[probe]] needs expr = \"v(stage.net)\" or similar", Where(file))
         d.probes.append(Probe(str(raw.get("name", raw["expr"])), str(raw["expr"]), Where(file)))
-    d.meters = dict(data.get("meters", {}))
+    d.meters = dict(_table(data, "meters", Where(file)))
+    d._lazy_doc = (text, stage_names)
     return d
 
 
@@ -1558,7 +1630,8 @@ def _stage_from_netlist(raw: dict, name: str, design_path: Path, w: Where) -> St
         ports = [str(p).lower() for p in raw.get("ports", pins)]
         _expect(len(ports) == len(pins), "ports must name each pin of the subcircuit", w, name)
         call = "X__STAGE " + " ".join(ports) + f" {sc.name}\n"
-        nl2 = parse_netlist(npath.read_text() + "\n" + call, file=str(npath))
+        from engine.fileio import read_text
+        nl2 = parse_netlist(read_text(npath, what="netlist") + "\n" + call, file=str(npath))
         elems = [e for e in nl2.circuit.elements if e.name.upper().startswith("X__STAGE.")]
         for e in elems:
             e.name = e.name.split(".", 1)[1]

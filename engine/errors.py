@@ -6,6 +6,20 @@ escapes is a bug in Solderless, not in the user's design.
 """
 from __future__ import annotations
 
+import re
+
+#: Longest run of non-space characters an error message repeats whole: a
+#: longer one (a 200 KB token, a binary file's line) is cut to its start.
+LONGEST_ECHO = 120
+_LONG = re.compile(r"\S{%d,}" % (LONGEST_ECHO + 1))
+
+
+def cut_long(text: str) -> str:
+    """``text`` with every run of more than LONGEST_ECHO non-space characters
+    cut to its first 60 and a count of the rest."""
+    return _LONG.sub(lambda m: f"{m.group(0)[:60]}...[{len(m.group(0)) - 60} more "
+                               "characters]", str(text))
+
 
 class SolderlessError(Exception):
     """A user mistake or an input Solderless cannot run.
@@ -41,7 +55,7 @@ class SolderlessError(Exception):
         text = f"{where}{who}{self.message}"
         if self.hint:
             text += f" ({self.hint})"
-        return text
+        return cut_long(" ".join(text.split("\n")))
 
 
 class DesignError(SolderlessError):

@@ -43,7 +43,6 @@ from __future__ import annotations
 
 import argparse
 import os
-import tempfile
 import zlib
 from dataclasses import dataclass
 from math import pi, sqrt
@@ -496,24 +495,9 @@ def write_wav(path, x_volts, fs: float, fs_volts: float | None = None) -> int:
     x = np.nan_to_num(x, nan=0.0, posinf=1.0, neginf=-1.0)
     clipped = int(np.count_nonzero(np.abs(x) > 1.0))
     x = np.clip(x, -1.0, 1.0).astype(np.float32)
-    path = os.fspath(path)
-    folder = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(folder):
-        raise SolderlessError("folder does not exist", file=path,
-                              hint="create the folder or choose another --out path")
-    fd, tmp = tempfile.mkstemp(suffix=".wav", prefix=".source-", dir=folder)
-    from engine.design import file_mode_for
-    os.fchmod(fd, file_mode_for(path))      # the user's umask, not mkstemp's 0600
-    os.close(fd)
-    try:
-        sf.write(tmp, x, int(round(fs)), subtype="FLOAT", format="WAV")
-        os.replace(tmp, path)
-    except OSError as e:
-        raise SolderlessError(f"cannot write the file: {e.strerror or e}", file=path,
-                              hint="check the folder is writable") from None
-    finally:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
+    from engine.fileio import atomic_write
+    atomic_write(path, lambda tmp: sf.write(tmp, x, int(round(fs)), subtype="FLOAT",
+                                            format="WAV"), suffix=".wav")
     return clipped
 
 
@@ -525,9 +509,11 @@ def add_source_arguments(parser: argparse.ArgumentParser) -> None:
                         help="what to play (default: demo)")
     parser.add_argument("--pickup", default="single-coil", choices=sorted(PICKUPS),
                         help="pickup model (default: single-coil)")
-    parser.add_argument("--fs", type=float, default=48000.0, help="sample rate, Hz")
+    from engine.cli import add_rate_option, number_in
+    add_rate_option(parser, 48000.0, "sample rate, Hz (default 48000)")
     from engine.levels import FULL_SCALE_V
-    parser.add_argument("--fs-volts", dest="fs_volts", type=float, default=FULL_SCALE_V,
+    parser.add_argument("--fs-volts", dest="fs_volts", type=number_in(0, 1e4, "V", open_low=True),
+                        default=FULL_SCALE_V,
                         help="peak volts at the jack that map to digital full scale "
                              f"(default {FULL_SCALE_V:.4g}, the calibration every command "
                              "uses)")
@@ -547,11 +533,14 @@ def cli_source(args: argparse.Namespace) -> int:
         raise SolderlessError("file exists and was left untouched", file=out,
                               hint="choose another --out name or add --force")
     pickup = _pickup(args.pickup)
-    x = render_phrase(args.phrase, fs=args.fs, pickup=args.pickup,
+    from engine.cli import resolve_aliases
+    resolve_aliases(args)
+    fs = args.rate
+    x = render_phrase(args.phrase, fs=fs, pickup=args.pickup,
                       seed=getattr(args, "seed", 0))
-    clipped = write_wav(out, x, args.fs, args.fs_volts)
+    clipped = write_wav(out, x, fs, args.fs_volts)
     peak = float(np.max(np.abs(x)))
-    print(f"wrote {out}: phrase '{args.phrase}', {x.size / args.fs:.2f} s at {args.fs:g} Hz, "
+    print(f"wrote {out}: phrase '{args.phrase}', {x.size / fs:.2f} s at {fs:g} Hz, "
           f"peak {peak * 1e3:.0f} mV ({20 * np.log10(max(peak, 1e-12) / args.fs_volts):.1f} dBFS)")
     from engine.levels import describe
     print(f"calibration: {describe(args.fs_volts)}")

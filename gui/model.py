@@ -666,6 +666,8 @@ class Settings:
 
     def save(self) -> None:
         try:
+            # the workbench's own config folder (the writer creates no folders)
+            self.path.parent.mkdir(parents=True, exist_ok=True)
             atomic_write_text(self.path, json.dumps(self.data, indent=2))
         except OSError as exc:
             self.problem = f"settings not saved: {exc}"

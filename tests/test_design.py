@@ -267,6 +267,9 @@ def test_netlist_design_saves_as_toml_that_uses_it(tmp_path):
         d.save()                      # never overwrite the netlist with TOML
     assert net.read_text() == original
     out = tmp_path / "work" / "rc-mod.toml"
+    with pytest.raises(DesignError, match="does not exist"):
+        d.save(out)                   # a missing folder is never created silently
+    out.parent.mkdir()
     d.save(out)
     assert net.read_text() == original
     d2 = load_design(out)

@@ -61,7 +61,9 @@ description" and "Device models").
 from __future__ import annotations
 
 import ast
+import functools
 import math
+from collections import ChainMap
 import os
 import re
 from dataclasses import dataclass, field
@@ -69,6 +71,7 @@ from typing import Any, Callable
 
 from engine.circuit import GROUND, Circuit, Element, Where, canonical_net
 from engine.errors import DesignError, ValueFormatError
+from engine import limits
 from engine.values import parse_value
 
 __all__ = [
@@ -161,9 +164,29 @@ _SCALED_NUM = re.compile(
     re.IGNORECASE)
 
 
+@functools.lru_cache(maxsize=4096)
+def _parse_expression(src: str, text: str):
+    """The checked syntax tree of an expression (cached: a .func body is
+    parsed once, not at every call)."""
+    try:
+        tree = ast.parse(src, mode="eval")
+    except (SyntaxError, RecursionError, MemoryError, ValueError):
+        raise ValueError(f"'{text}' is not an arithmetic expression") from None
+    # nesting depth, measured without recursion (a long '1+1+...' chain is
+    # a deep tree)
+    stack = [(tree, 0)]
+    while stack:
+        node, dep = stack.pop()
+        if dep > limits.MAX_EXPR_DEPTH:
+            raise ValueError(f"the expression nests more than {limits.MAX_EXPR_DEPTH} "
+                             "levels deep; split it with .param")
+        stack.extend((ch, dep + 1) for ch in ast.iter_child_nodes(node))
+    return tree
+
+
 def evaluate_expression(text: str, params: dict[str, float],
                         funcs: dict[str, tuple[list[str], str]] | None = None,
-                        _depth: int = 0) -> float:
+                        _depth: int = 0, _steps: list | None = None) -> float:
     """Evaluate a SPICE parameter expression such as ``2*rload + 4.7k``.
 
     Numbers may carry SPICE scale factors; names are looked up
@@ -177,20 +200,40 @@ def evaluate_expression(text: str, params: dict[str, float],
     """
     if _depth > 32:
         raise ValueError("functions nest more than 32 deep (a .func that calls itself?)")
+    if _steps is None:
+        _steps = [0]
     funcs = funcs or {}
+    if len(text) > limits.MAX_EXPR_CHARS:
+        raise ValueError(f"the expression is {len(text)} characters long; the limit is "
+                         f"{limits.MAX_EXPR_CHARS}")
     src = text.strip()
     if src[:1] in "{'" and src[-1:] in "}'":
         src = src[1:-1]
     src = src.replace("^", "**")
     src = _SCALED_NUM.sub(lambda m: repr(parse_value(m.group(0), spice=True)),
                           src)
-    try:
-        tree = ast.parse(src.strip(), mode="eval")
-    except SyntaxError:
-        raise ValueError(f"'{text}' is not an arithmetic expression") from None
-    low = {k.lower(): v for k, v in params.items()}
+    tree = _parse_expression(src.strip(), text)
+    # names are looked up directly (the reader stores them in lower case);
+    # a lower-cased copy of all parameters is made only when that misses, so
+    # an expression costs its own size, not the number of parameters
+    low: dict | None = None
+
+    def lookup(name: str):
+        nonlocal low
+        key = name.lower()
+        try:
+            return params[key]
+        except KeyError:
+            pass
+        if low is None:
+            low = {k.lower(): v for k, v in params.items()}
+        return low.get(key)
 
     def ev(node) -> float:
+        _steps[0] += 1
+        if _steps[0] > limits.MAX_EXPR_STEPS:
+            raise ValueError(f"evaluating it takes more than {limits.MAX_EXPR_STEPS} "
+                             "steps (functions that call each other many times over?)")
         if isinstance(node, ast.Expression):
             return ev(node.body)
         if isinstance(node, ast.Constant) and isinstance(node.value, (int, float)) \
@@ -198,8 +241,9 @@ def evaluate_expression(text: str, params: dict[str, float],
             return float(node.value)
         if isinstance(node, ast.Name):
             key = node.id.lower()
-            if key in low:
-                return float(low[key])
+            got = lookup(node.id)
+            if got is not None:
+                return float(got)
             if key in _CONSTS:
                 return _CONSTS[key]
             raise ValueError(f"unknown parameter '{node.id}'")
@@ -216,9 +260,8 @@ def evaluate_expression(text: str, params: dict[str, float],
                 if len(node.args) != len(names):
                     raise ValueError(f"function '{node.func.id}' takes {len(names)} "
                                      f"argument(s), not {len(node.args)}")
-                inner = dict(low)
-                inner.update(zip(names, (ev(a) for a in node.args)))
-                return evaluate_expression(body, inner, funcs, _depth + 1)
+                inner = ChainMap(dict(zip(names, (ev(a) for a in node.args))), params)
+                return evaluate_expression(body, inner, funcs, _depth + 1, _steps)
             fn = _FUNCS.get(node.func.id.lower())
             if fn is None:
                 raise ValueError(f"unknown function '{node.func.id}'")
@@ -229,6 +272,8 @@ def evaluate_expression(text: str, params: dict[str, float],
         v = ev(tree)
     except (ZeroDivisionError, OverflowError, TypeError) as exc:
         raise ValueError(f"'{text}' cannot be evaluated ({exc})") from None
+    except RecursionError:
+        raise ValueError(f"'{text}' nests too deeply to evaluate") from None
     except ValueError as exc:
         if "math domain" in str(exc):
             raise ValueError(f"'{text}' cannot be evaluated (math domain)") from None
@@ -341,9 +386,20 @@ def _strip_comment(s: str) -> str:
     return s.rstrip()
 
 
+_SIMPLE_TOKENS = re.compile(r"=|[^\s(),={']+")
+
+
 def _tokenize(text: str, where: Where) -> list[str]:
     """Split a card into tokens; parentheses and commas separate, '=' is a
     token of its own, ``{...}`` and ``'...'`` stay whole."""
+    if "{" not in text and "'" not in text and "-(" not in text:
+        # most cards: one regular expression does the same split
+        return _SIMPLE_TOKENS.findall(text)
+    return _tokenize_chars(text, where)
+
+
+def _tokenize_chars(text: str, where: Where) -> list[str]:
+    """:func:`_tokenize` character by character (any card)."""
     out: list[str] = []
     i, n = 0, len(text)
     while i < n:
@@ -397,19 +453,29 @@ def _tokenize(text: str, where: Where) -> list[str]:
 
 
 def _read_file(path: str, where: Where | None) -> str:
-    try:
-        with open(path, "rb") as f:
-            raw = f.read()
-    except OSError as exc:
-        raise DesignError(f"cannot read netlist '{path}': {exc.strerror}",
-                          file=where.file if where else None,
-                          line=where.line if where else None,
-                          hint="check the path (relative paths start at the "
-                               "including file's folder)") from None
-    try:
-        return raw.decode("utf-8-sig")
-    except UnicodeDecodeError:
-        return raw.decode("latin-1")
+    """A netlist or model library's text: a regular file within the size
+    limit, in UTF-8 (with or without a byte-order mark), UTF-16/32 with one,
+    or Latin-1 (engine.fileio).  Errors name ``where`` (the .include card)
+    when given."""
+    from engine.fileio import read_text
+    return read_text(path, what="netlist", where=where)
+
+
+#: The first word of a card: an element name or a dot command.  A line of a
+#: file that is not a netlist (a password file's 'root:x:0:0:...', a binary)
+#: fails this, and the file is refused without quoting any of it.
+_CARD_WORD = re.compile(r"[.A-Za-z][\w.#$\-+\[\]<>!~@&|^%]*")
+
+
+def _not_a_netlist(file: str, ln: int, where: Where | None) -> DesignError:
+    if where is not None and where.file and where.file != file:
+        return DesignError(f"'{file}' does not look like a SPICE netlist (its line {ln} "
+                           "is not a card); none of it is shown", file=where.file,
+                           line=where.line, hint="include only netlists and model "
+                           "libraries")
+    return DesignError(f"does not look like a SPICE netlist (line {ln} is not a card); "
+                       "none of it is shown", file=file,
+                       hint="netlists start with a title line, then one card a line")
 
 
 def _lib_section(text: str, section: str, path: str, where: Where) -> str:
@@ -438,18 +504,24 @@ def _lib_section(text: str, section: str, path: str, where: Where) -> str:
 
 
 def _cards(text: str, file: str, *, has_title: bool, ignored: list,
-           depth: int = 0) -> tuple[str, list[Card]]:
-    """Logical cards of a netlist text, with ``.include`` spliced in."""
-    if depth > 20:
-        raise DesignError(".include nesting is deeper than 20 levels",
-                          file=file, hint="look for a file that includes itself")
+           depth: int = 0, origin: Where | None = None) -> tuple[str, list[Card]]:
+    """Logical cards of a netlist text, with ``.include`` spliced in.
+    ``origin`` is the card that included this file (None for the top)."""
+    if depth > limits.MAX_INCLUDE_DEPTH:
+        raise DesignError(f".include nesting is deeper than {limits.MAX_INCLUDE_DEPTH} "
+                          "levels", file=origin.file if origin else file,
+                          line=origin.line if origin else None,
+                          hint="look for a file that includes itself")
     lines = text.splitlines()
     title = ""
     start = 0
     if has_title and lines:
         title = lines[0].strip()
         start = 1
-    phys: list[tuple[int, str]] = []
+    # continuation lines are collected as lists and joined once (adding each
+    # to a growing string made a long card quadratic)
+    phys: list[tuple[int, list[str]]] = []
+    size = 0
     for k in range(start, len(lines)):
         s = lines[k]
         st = s.strip()
@@ -463,10 +535,20 @@ def _cards(text: str, file: str, *, has_title: bool, ignored: list,
                 raise DesignError("continuation line '+' with nothing to continue",
                                   file=file, line=k + 1,
                                   hint="join it to the card it belongs to")
-            ln, prev = phys[-1]
-            phys[-1] = (ln, prev + " " + st[1:].strip())
+            phys[-1][1].append(st[1:].strip())
+            size += len(st)
+            if size > limits.MAX_CARD_CHARS:
+                raise DesignError(f"a card continues over more than {limits.MAX_CARD_CHARS} "
+                                  "characters (the limit)", file=file, line=phys[-1][0])
         else:
-            phys.append((k + 1, st))
+            if not _CARD_WORD.fullmatch(st.split(None, 1)[0]):
+                raise _not_a_netlist(file, k + 1, origin)
+            if len(st) > limits.MAX_CARD_CHARS:
+                raise DesignError(f"the line is {len(st)} characters long; the limit for a "
+                                  f"card is {limits.MAX_CARD_CHARS}", file=file, line=k + 1)
+            phys.append((k + 1, [st]))
+            size = len(st)
+    phys = [(ln, " ".join(bits)) for ln, bits in phys]
     cards: list[Card] = []
     in_control = False
     base = os.path.dirname(file) if file and not file.startswith("<") else os.getcwd()
@@ -499,7 +581,7 @@ def _cards(text: str, file: str, *, has_title: bool, ignored: list,
                 if len(args) >= 2:
                     sub = _lib_section(sub, args[1], path, where)
                 _, more = _cards(sub, path, has_title=False, ignored=ignored,
-                                 depth=depth + 1)
+                                 depth=depth + 1, origin=where)
                 cards.extend(more)
                 continue
             if not args:
@@ -516,7 +598,7 @@ def _cards(text: str, file: str, *, has_title: bool, ignored: list,
             path = arg if os.path.isabs(arg) else os.path.join(base, arg)
             sub = _read_file(path, where)
             _, more = _cards(sub, path, has_title=False, ignored=ignored,
-                             depth=depth + 1)
+                             depth=depth + 1, origin=where)
             cards.extend(more)
             continue
         cards.append(Card(st, where, _tokenize(st, where)))
@@ -526,8 +608,12 @@ def _cards(text: str, file: str, *, has_title: bool, ignored: list,
 # --------------------------------------------------------------------------
 # Structure: subcircuit definitions, scopes
 
-def _split_defs(cards: list[Card]) -> tuple[list[Card], dict[str, Subckt]]:
+def _split_defs(cards: list[Card], level: int = 0) -> tuple[list[Card], dict[str, Subckt]]:
     """Separate ``.subckt`` definitions (recursively) from the other cards."""
+    if level > limits.MAX_SUBCKT_DEPTH and cards:
+        raise DesignError(f".subckt definitions nest more than {limits.MAX_SUBCKT_DEPTH} "
+                          "levels deep", file=cards[0].file, line=cards[0].line,
+                          hint="define subcircuits side by side instead")
     top: list[Card] = []
     defs: dict[str, Subckt] = {}
     i = 0
@@ -548,7 +634,7 @@ def _split_defs(cards: list[Card]) -> tuple[list[Card], dict[str, Subckt]]:
             if j >= len(cards):
                 raise DesignError(f"'{c.text}': .subckt without .ends", file=c.file,
                                   line=c.line, hint="close the definition with .ends")
-            body, inner = _split_defs(cards[i + 1:j])
+            body, inner = _split_defs(cards[i + 1:j], level + 1)
             sub = _subckt_header(c, body, inner)
             if sub.name in defs:
                 raise DesignError(f"subcircuit '{sub.name}' is defined twice",
@@ -624,6 +710,7 @@ class _Reader:
         self.names: dict[str, Where] = {}
         self.element_models: dict[str, str] = {}
         self._warned: set[str] = set()
+        self.expanded = 0
         # start-up state and temperature cards (top level)
         self.temperature: float | None = None
         self.tnom: float | None = None
@@ -632,7 +719,8 @@ class _Reader:
 
     # -- helpers ---------------------------------------------------------
     def err(self, card: Card, why: str, hint: str | None = None, part=None):
-        raise DesignError(f"'{card.text}': {why}", file=card.file, line=card.line,
+        text = card.text if len(card.text) <= 80 else card.text[:77] + "..."
+        raise DesignError(f"'{text}': {why}", file=card.file, line=card.line,
                           part=part, hint=hint)
 
     def warn(self, msg: str):
@@ -779,6 +867,11 @@ class _Reader:
 
     # -- elements ----------------------------------------------------------
     def add(self, el: Element, card: Card):
+        if len(self.elements) >= limits.MAX_ELEMENTS:
+            self.err(card, f"the circuit has more than {limits.MAX_ELEMENTS} elements "
+                     "after expanding subcircuits (the limit)",
+                     "look for subcircuits that call each other many times over",
+                     el.name)
         if el.name in self.names:
             first = self.names[el.name]
             self.err(card, f"element '{el.name}' is defined twice",
@@ -788,7 +881,18 @@ class _Reader:
 
     def flatten(self, cards: list[Card], scope: _Scope, prefix: str,
                 netmap: dict[str, str], chain: tuple[str, ...] = ()):
+        if len(chain) > limits.MAX_SUBCKT_DEPTH:
+            c = cards[0] if cards else None
+            raise DesignError(f"subcircuits nest more than {limits.MAX_SUBCKT_DEPTH} "
+                              f"levels deep ({' > '.join(chain[:3])} > ...)",
+                              file=c.file if c else None, line=c.line if c else None,
+                              part=prefix or None)
         for c in cards:
+            self.expanded += 1
+            if self.expanded > limits.MAX_EXPANDED_CARDS:
+                self.err(c, f"expanding the subcircuits takes more than "
+                         f"{limits.MAX_EXPANDED_CARDS} cards (the limit)",
+                         "look for subcircuits that call each other many times over")
             word = c.tokens[0]
             low = word.lower()
             if low.startswith("."):
@@ -1403,7 +1507,7 @@ class _Reader:
             if k.upper() in kv:
                 continue
             local[k] = self.value(tok, _Card_at(sub.where, f".subckt {sub.name}"),
-                                  _Scope({**scope_params(scope), **local}, {}, {}),
+                                  _Scope(dict(local), {}, {}, scope),
                                   f"parameter {k}", name)
         for k, tok in kv.items():
             if k.lower() not in sub.defaults:
@@ -1411,8 +1515,7 @@ class _Reader:
                          "declared: " + (", ".join(sub.defaults) or "none"), name)
             local[k.lower()] = self.value(tok, c, scope, f"parameter {k}", name)
         netmap = {p: net(n) for p, n in zip(sub.ports, nodes)}
-        inner_scope, cards = self.make_scope(sub.body, sub.subckts,
-                                             {**scope_params(scope), **local}, scope)
+        inner_scope, cards = self.make_scope(sub.body, sub.subckts, local, scope)
         self.flatten(cards, inner_scope, name, netmap, chain + (sname,))
 
 
@@ -1420,18 +1523,17 @@ def _Card_at(where: Where | None, text: str) -> Card:
     return Card(text, where or Where(), [])
 
 
-def _visible(scope: _Scope, attr: str) -> dict:
-    """Merge ``attr`` (params or funcs) of ``scope`` and its parents, inner
-    ones winning."""
+def _visible(scope: _Scope, attr: str) -> ChainMap:
+    """``attr`` (params or funcs) of ``scope`` and its parents as one
+    read-only view, inner ones winning (a view, not a copy: building a merged
+    dict for every value made reading quadratic in the number of
+    parameters)."""
     chain = []
     s: _Scope | None = scope
     while s is not None:
         chain.append(getattr(s, attr))
         s = s.parent
-    out: dict = {}
-    for d in reversed(chain):
-        out.update(d)
-    return out
+    return ChainMap(*chain)
 
 
 def scope_params(scope: _Scope) -> dict[str, float]:
@@ -1493,6 +1595,9 @@ def parse_netlist(text: str, *, file: str = "<text>", in_source: str = "VIN",
     """
     ignored: list = []
     warnings: list[str] = []
+    if len(text) > limits.MAX_TEXT_BYTES:
+        raise DesignError(f"the netlist is {len(text)} characters; the limit is "
+                          f"{limits.MAX_TEXT_BYTES}", file=file)
     title, cards = _cards(text, file, has_title=True, ignored=ignored)
     for c in cards:
         if c.tokens and c.tokens[0].lower() == ".title":

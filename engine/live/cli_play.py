@@ -49,10 +49,12 @@ def add_play_arguments(p) -> None:
                         "instrument), tone[:HZ[:VOLTS_PEAK]], or an audio file to loop")
     p.add_argument("--input-device", metavar="DEV", help="input device (index or name part)")
     p.add_argument("--output-device", metavar="DEV", help="output device (index or name part)")
-    p.add_argument("--input-channel", type=int, default=1, metavar="N",
-                   help="input channel the instrument is on (1-based, default 1)")
-    p.add_argument("--rate", type=float, default=48000.0, help="sample rate, Hz (default 48000)")
-    p.add_argument("--block", type=int, default=128,
+    # option values are checked at parse time (engine/cli.py types)
+    from engine.cli import (add_channel_option, add_rate_option, live_check,
+                            seconds_arg, whole_in)
+    add_channel_option(p, "input channel the instrument is on (1-based, default 1)")
+    add_rate_option(p, 48000.0, "sample rate, Hz (default 48000)", live=True)
+    p.add_argument("--block", type=whole_in(16, 8192, "block size"), default=128,
                    help="block size in samples (default 128; 64 for the lowest latency)")
     p.add_argument("--oversample", type=int, choices=(1, 2, 4, 8),
                    help="oversampling factor (default: the design's suggestion)")
@@ -63,13 +65,14 @@ def add_play_arguments(p) -> None:
                         "as in every command")
     p.add_argument("--out-full-scale", metavar="LEVEL",
                    help="output calibration, same form (default: the same)")
-    p.add_argument("--level", type=float, default=0.0, metavar="DB",
+    p.add_argument("--level", type=live_check("check_level_db"), default=0.0, metavar="DB",
                    help="output level, dB (default 0); playback starts silent and ramps up")
-    p.add_argument("--ceiling", type=float, default=-6.0, metavar="DBFS",
+    p.add_argument("--ceiling", type=live_check("check_ceiling_dbfs"), default=-6.0,
+                   metavar="DBFS",
                    help="safety limiter ceiling, dBFS (default -6)")
     p.add_argument("--no-match", action="store_true",
                    help="A/B: do not match loudness (BS.1770-4)")
-    p.add_argument("--seconds", type=float, metavar="N",
+    p.add_argument("--seconds", type=seconds_arg, metavar="N",
                    help="stop after N seconds and print a meter summary")
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
     p.add_argument("--no-console", action="store_true",

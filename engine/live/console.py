@@ -142,10 +142,14 @@ class Console:
         except SolderlessError as exc:
             self.say(f"error: {exc}")
         except (ValueError, IndexError) as exc:
-            self.say(f"error: cannot read '{line.strip()}' ({exc}); type 'help'")
-        except Exception as exc:        # a bug must not end the session: say it, go on
-            self.say(f"error: '{line.strip()}' failed ({type(exc).__name__}: {exc}); "
-                     "playing goes on")
+            self.say(f"error: cannot read '{line.strip()[:80]}' ({exc}); type 'help'")
+        except OSError as exc:
+            self.say(f"error: {exc.strerror or exc}"
+                     + (f": {exc.filename}" if getattr(exc, "filename", None) else ""))
+        except Exception as exc:
+            # the console outlives any one command: a failure is reported and
+            # the next command (even 'quit') is read as usual
+            self.say(f"error: '{cmd}' failed ({type(exc).__name__}: {str(exc)[:200]})")
         return True
 
     def _run(self, cmd: str, rest: list[str]) -> bool:

@@ -1236,11 +1236,17 @@ class LiveHost:
         def job():
             i, v = self._voice(voice)
             target = path or getattr(v.design, "path", None)
+            fallback = False
             if target is not None and not path and _is_builtin(target):
                 # never overwrite a built-in design: save a copy here
-                target = Path.cwd() / Path(target).name
+                target, fallback = Path.cwd() / Path(target).name, True
             if target is None:
-                target = Path.cwd() / f"{_stem(v.design)}.toml"
+                target, fallback = Path.cwd() / f"{_stem(v.design)}.toml", True
+            if fallback and Path(target).exists():
+                # a file the user did not name is never replaced
+                raise DesignError(f"a file named {Path(target).name} is already in this "
+                                  "folder and was left untouched", file=str(target),
+                                  hint="save under another name: save PATH")
             old = getattr(v.design, "path", None)
             if hasattr(v.design, "become_variant") and (
                     old is None or Path(target).resolve() != Path(old).resolve()):

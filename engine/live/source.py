@@ -188,9 +188,19 @@ def parse_source(text: str | None, input_channel: int = 0) -> Source:
         except Exception as exc:
             raise AudioError(f"cannot read the tone '{text}': {exc}",
                              hint="write tone:1k:100m for 1 kHz at 100 mV peak") from None
+        import math
+        if not (math.isfinite(f) and 1.0 <= f <= 40000.0):
+            raise AudioError(f"the tone's frequency {f:g} Hz is out of range",
+                             hint="give 1 Hz to 40 kHz, e.g. tone:1k:100m")
+        if not (math.isfinite(v) and 0.0 <= abs(v) <= 100.0):
+            raise AudioError(f"the tone's level {v:g} V peak is out of range",
+                             hint="give 0 to 100 V peak, e.g. tone:1k:100m")
         return ToneSource(f, v)
     p = Path(text)
     if not p.exists():
         raise AudioError(f"no such audio file: {text}",
                          hint="use input, synth, tone:1k:100m or a path to a WAV file")
+    from engine import limits
+    from engine.fileio import check_input_file
+    check_input_file(p, what="audio file", limit=limits.MAX_AUDIO_BYTES)
     return WavLoop(text, 0)

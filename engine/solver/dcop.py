@@ -181,8 +181,10 @@ def _solve(net: Network, values: dict[str, float] | None = None,
     else:
         sol.method = "source stepping"
         return sol
+    # the circuit's title is not a part: name the file, not a culprit
+    where = net.circuit.where
     raise SolveError("no DC operating point found (Newton, gmin stepping and source "
-                     "stepping all failed)", part=net.circuit.title or None,
+                     "stepping all failed)", file=where.file if where else None,
                      hint="check supply polarity, transistor types (NPN/PNP) and bias "
                           "resistor values")
 

@@ -63,6 +63,12 @@ class Network:
         els = list(circuit.elements)
         if not els:
             raise DesignError("the circuit has no elements", hint="add parts to the design")
+        from engine import limits
+        if len(els) > limits.MAX_ELEMENTS:
+            # the network matrices are dense: refuse before allocating them
+            w = circuit.where
+            raise DesignError(f"the circuit has {len(els)} elements; the limit is "
+                              f"{limits.MAX_ELEMENTS}", file=w.file if w else None)
         names = set()
         for el in els:
             if el.name in names:

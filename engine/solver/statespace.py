@@ -116,8 +116,22 @@ def solve_mna(net: Network, S: np.ndarray, rhs: np.ndarray, what: str) -> np.nda
         k = int(np.argmax(vec))
         who = net.net_names[k] if k < net.nn else \
             next((n for n, j in net.branch_of.items() if j == k), "?")
-        raise SolveError(f"the network matrix is singular ({what}); the problem is near "
-                         f"'{who}'", part=who,
+        # a value far outside real parts' range (1e300 F) is the usual
+        # cause: name that part; else the parts on the net found
+        from engine.sanity import check_values
+        import re as _re
+        odd = [m.group(1) for w in check_values(net.circuit)
+               for m in [_re.search(r"part '([^']*)'", w)] if m]
+        on_net = [e.name for e in net.circuit.elements if who in e.nodes]
+        if odd:
+            raise SolveError(f"the network matrix is singular ({what}); "
+                             f"{', '.join(odd[:4])} ha{'s' if len(odd) == 1 else 've'} a "
+                             "value outside the range of real parts", part=odd[0],
+                             hint="check the value (see the warnings above)") from None
+        where = (f"near '{who}'" + (f" (parts: {', '.join(on_net[:6])})" if on_net else ""))
+        raise SolveError(f"the network matrix is singular ({what}); the problem is {where}",
+                         part=on_net[0] if who in net.net_names and on_net else
+                         (who if who in {e.name for e in net.circuit.elements} else None),
                          hint="look for a floating net, a loop of voltage sources, or a "
                               "controlled source without a defined output") from None
 
