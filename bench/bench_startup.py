@@ -31,7 +31,10 @@ a 220 Hz sine, 0.5 of full scale, written here as a 32-bit float WAV at
 
 Prints a table and writes bench/results/startup.json.
 
-    python bench/bench_startup.py [--repeat 5] [--seconds 10]
+    python bench/bench_startup.py [--repeat 5] [--seconds 10] [--baseline OLD.json]
+
+``--baseline`` embeds an earlier run (e.g. of the code before a change, the
+same script copied into that tree) and prints the figures side by side.
 """
 from __future__ import annotations
 
