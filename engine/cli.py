@@ -543,8 +543,22 @@ def cmd_designs(args) -> int:
 
 # ------------------------------------------------------------------ parser
 
-def build_parser() -> argparse.ArgumentParser:
-    from engine import limits
+def _command_of(argv) -> str:
+    """The subcommand an argument list asks for: its first word that is not
+    an option ("" for none, e.g. ``--help``)."""
+    return next((a for a in argv if not a.startswith("-")), "")
+
+
+def build_parser(argv=None) -> argparse.ArgumentParser:
+    """The full parser; given ``argv``, only the subcommand it names gets its
+    options (and imports its module), the others only their one-line help:
+    start-up of one command does not pay for importing every other one
+    (bench/bench_startup.py)."""
+    command = None if argv is None else _command_of(argv)
+
+    def wanted(name: str) -> bool:
+        return command is None or command == name
+
     ap = OptionParser(
         prog="solderless",
         description="Hear an analog circuit before you build it: simulate a chain of "
@@ -584,8 +598,45 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(func=cmd_op)
 
-    from engine.solver.ac import DEFAULT_FMAX_HZ, DEFAULT_FMIN_HZ, DEFAULT_POINTS
     p = sub.add_parser("ac", help="small-signal frequency response and input impedance")
+    if wanted("ac"):
+        _add_ac_arguments(p)
+
+    p = sub.add_parser("designs", help="list built-in designs and the stage library")
+    p.set_defaults(func=cmd_designs)
+
+    for name, module, add_fn, run_fn, help_text in _OPTIONAL:
+        if wanted(name):
+            _optional(sub, name, module, add_fn, run_fn, help_text)
+        else:
+            sub.add_parser(name, help=help_text)
+    return ap
+
+
+#: Subcommands whose arguments live in another module (imported only when
+#: the command is asked for): name, module, add-arguments, run, help.
+_OPTIONAL = (
+    ("play", "engine.live.cli_play", "add_play_arguments", "run_play",
+     "play an instrument through a design live"),
+    ("devices", "engine.live.cli_play", "add_devices_arguments", "run_devices",
+     "list audio devices"),
+    ("source", "engine.synth", "add_source_arguments", "cli_source",
+     "write a synthetic guitar phrase as a WAV file"),
+    ("demo", "engine.demo", "add_demo_arguments", "cli_demo",
+     "render the built-in compressor and its variants and write a report"),
+    ("gui", "gui.app", "add_gui_arguments", "run_gui", "open the desktop workbench"),
+    ("build", "engine.analysis.cli_build", "add_build_arguments", "run_build",
+     "write a build sheet, parts list, netlist and connection list"),
+    ("montecarlo", "engine.analysis.cli_build", "add_montecarlo_arguments",
+     "run_montecarlo", "tolerance Monte Carlo: yield, spreads, sensitivity"),
+    ("sweep", "engine.analysis.cli_build", "add_sweep_arguments", "run_sweep",
+     "sweep a part value (and a pot) and tabulate a figure"),
+)
+
+
+def _add_ac_arguments(p) -> None:
+    from engine import limits
+    from engine.solver.ac import DEFAULT_FMAX_HZ, DEFAULT_FMIN_HZ, DEFAULT_POINTS
     _add_design_arg(p, nargs="?")
     p.add_argument("--fmin", type=number_in(0, 1e9, "Hz", open_low=True),
                    default=DEFAULT_FMIN_HZ, metavar="HZ",
@@ -601,27 +652,6 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--csv", metavar="FILE", help="write the response as CSV (freq_hz, "
                    "gain_db, phase_deg, zin_ohm, zin_phase_deg)")
     p.set_defaults(func=cmd_ac)
-
-    p = sub.add_parser("designs", help="list built-in designs and the stage library")
-    p.set_defaults(func=cmd_designs)
-
-    _optional(sub, "play", "engine.live.cli_play", "add_play_arguments", "run_play",
-              "play an instrument through a design live")
-    _optional(sub, "devices", "engine.live.cli_play", "add_devices_arguments", "run_devices",
-              "list audio devices")
-    _optional(sub, "source", "engine.synth", "add_source_arguments", "cli_source",
-              "write a synthetic guitar phrase as a WAV file")
-    _optional(sub, "demo", "engine.demo", "add_demo_arguments", "cli_demo",
-              "render the built-in compressor and its variants and write a report")
-    _optional(sub, "gui", "gui.app", "add_gui_arguments", "run_gui",
-              "open the desktop workbench")
-    _optional(sub, "build", "engine.analysis.cli_build", "add_build_arguments", "run_build",
-              "write a build sheet, parts list, netlist and connection list")
-    _optional(sub, "montecarlo", "engine.analysis.cli_build", "add_montecarlo_arguments",
-              "run_montecarlo", "tolerance Monte Carlo: yield, spreads, sensitivity")
-    _optional(sub, "sweep", "engine.analysis.cli_build", "add_sweep_arguments", "run_sweep",
-              "sweep a part value (and a pot) and tabulate a figure")
-    return ap
 
 
 def _optional(sub, name, module, add_fn, run_fn, help_text):
@@ -645,7 +675,21 @@ def _unavailable(name, exc) -> int:
 
 
 def main(argv=None) -> int:
-    ap = build_parser()
+    """Run one command.  Called as the program (``argv`` None), the objects
+    left at the end are frozen out of the cyclic garbage collector
+    (:func:`gc.freeze`): the interpreter's final collection would otherwise
+    walk numba's whole compiler state, ~0.25 s of a one-off render
+    (bench/bench_startup.py).  Everything is still released at exit."""
+    try:
+        return _main(argv)
+    finally:
+        if argv is None:
+            import gc
+            gc.freeze()
+
+
+def _main(argv) -> int:
+    ap = build_parser(sys.argv[1:] if argv is None else list(argv))
     args = ap.parse_args(argv)
     if not getattr(args, "func", None):
         ap.print_help()

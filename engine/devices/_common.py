@@ -17,7 +17,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from numba import njit
-from scipy import constants
 
 from engine.errors import DesignError
 
@@ -26,10 +25,16 @@ from engine.errors import DesignError
 TNOM = 300.15
 #: 0 degC in kelvin.
 KELVIN = 273.15
-#: k/q, volts per kelvin (scipy.constants, CODATA 2018).
-K_OVER_Q = constants.k / constants.e
+#: Boltzmann constant k, J/K, and elementary charge q, C: exact by definition
+#: in the SI since 2019 (BIPM, The International System of Units, 9th ed.,
+#: 2019), the values of scipy.constants.k and .e (CODATA 2018), written out
+#: so a start-up does not import scipy.constants (~70 ms).
+K_BOLTZMANN = 1.380649e-23
+Q_ELEMENTARY = 1.602176634e-19
+#: k/q, volts per kelvin.
+K_OVER_Q = K_BOLTZMANN / Q_ELEMENTARY
 #: Thermal voltage k*T/q at TNOM, volts.
-VT = constants.k * TNOM / constants.e
+VT = K_BOLTZMANN * TNOM / Q_ELEMENTARY
 
 
 def circuit_temp(temp_c) -> float:
@@ -226,4 +231,4 @@ def ignored_note(el, notes: list[tuple[str, str]]) -> list[tuple[str, str]]:
 
 def temp_factors(temp_k: float, tnom_k: float):
     """(vt at temp, ln(T/TNOM), T/TNOM - 1) for the SPICE temperature laws."""
-    return constants.k * temp_k / constants.e, math.log(temp_k / tnom_k), temp_k / tnom_k - 1.0
+    return K_BOLTZMANN * temp_k / Q_ELEMENTARY, math.log(temp_k / tnom_k), temp_k / tnom_k - 1.0

@@ -49,7 +49,6 @@ from functools import lru_cache
 
 import numpy as np
 import numba
-from scipy import signal
 
 from engine.errors import DesignError
 
@@ -80,6 +79,7 @@ def filter_response(h: np.ndarray, factor: int, fs: float, n_points: int = 16384
     gain = float(np.sum(h))  # DC gain; prototype is designed for unit gain
     f_pass = np.linspace(0.0, fp, n_points)
     f_stop = np.linspace(fs / 2.0, fh / 2.0, n_points * factor)
+    from scipy import signal       # here, not at import: factor 1 needs no filter
     _, hp = signal.freqz(h / gain, worN=f_pass, fs=fh)
     _, hs = signal.freqz(h / gain, worN=f_stop, fs=fh)
     with np.errstate(divide="ignore"):
@@ -100,6 +100,7 @@ def _design(factor: int, fs: float) -> np.ndarray:
     fst = fs / 2.0
     # Kaiser's length estimate (scipy.signal.kaiserord) as a starting point.
     width = (fst - fp) / (fh / 2.0)
+    from scipy import signal       # here, not at import: factor 1 needs no filter
     n0, _ = signal.kaiserord(STOPBAND_ATTEN_DB, width)
     k = max(2, int(0.8 * n0) // factor)
     # Weight: stopband error / passband error ~ delta_p / delta_s.
