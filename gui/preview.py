@@ -322,68 +322,47 @@ class Analyser(QObject):
                          ac if dyn is None else dyn)
         return g
 
+    def _submit(self, what: str, fn: Callable, signal, only_current: bool = False) -> int:
+        """Run ``fn`` on the analysis thread and emit its result on
+        ``signal`` with the current generation (skipped if ``only_current``
+        and a newer request came first)."""
+        if self.closed:
+            return 0
+        self.pending += 1
+        self.busy_changed.emit(True)
+        g = self.generation
+
+        def job():
+            try:
+                if not only_current or g == self.generation:
+                    self._run(what, fn, signal, g)
+            finally:
+                self.pending -= 1
+                if self.pending == 0:
+                    self.busy_changed.emit(False)
+        self.pool.submit(job)
+        return g
+
     def request_dyn(self, design) -> int:
         """Queue the attack and release readouts alone (while playing live,
         after edits have settled)."""
-        if self.closed:
-            return 0
-        self.pending += 1
-        self.busy_changed.emit(True)
         d = design.copy()
-        g = self.generation
-
-        def job():
-            try:
-                if g == self.generation:
-                    self._run("attack and release", lambda: dynamics(d), self.dyn_ready, g)
-            finally:
-                self.pending -= 1
-                if self.pending == 0:
-                    self.busy_changed.emit(False)
-        self.pool.submit(job)
-        return g
+        return self._submit("attack and release", lambda: dynamics(d), self.dyn_ready,
+                            only_current=True)
 
     def request_overlay(self, a, b, names=("A", "B")) -> int:
         """Queue the A/B overlay curves of designs ``a`` and ``b``."""
-        if self.closed:
-            return 0
-        self.pending += 1
-        self.busy_changed.emit(True)
         a, b = a.copy(), b.copy()
-        g = self.generation
-
-        def job():
-            try:
-                self._run("overlay", lambda: (overlay_traces(a, names[0]),
-                                              overlay_traces(b, names[1])),
-                          self.overlay_ready, g)
-            finally:
-                self.pending -= 1
-                if self.pending == 0:
-                    self.busy_changed.emit(False)
-        self.pool.submit(job)
-        return g
+        return self._submit("overlay", lambda: (overlay_traces(a, names[0]),
+                                                overlay_traces(b, names[1])),
+                            self.overlay_ready)
 
     def request_ab(self, a, b) -> int:
         """Queue an offline A/B loudness comparison of designs ``a`` and ``b``."""
-        if self.closed:
-            return 0
-        self.pending += 1
-        self.busy_changed.emit(True)
         a, b = a.copy(), b.copy()
-        g = self.generation
-
-        def job():
-            try:
-                self._run("A/B", lambda: run_ab_offline(a, b, self.source, self.seconds,
-                                                        factory=self.factory),
-                          self.ab_ready, g)
-            finally:
-                self.pending -= 1
-                if self.pending == 0:
-                    self.busy_changed.emit(False)
-        self.pool.submit(job)
-        return g
+        return self._submit("A/B", lambda: run_ab_offline(a, b, self.source, self.seconds,
+                                                          factory=self.factory),
+                            self.ab_ready)
 
     def _job(self, g, d, preview, op, ac, source, seconds, dyn=False):
         try:

@@ -889,6 +889,16 @@ class LiveHost:
         self.messages.put("the circuit was restarted from its operating point; the "
                           "output comes back (ramping up) once it stays sane")
 
+    def _swap_in(self, v: Voice, sim) -> None:
+        """Worker: make ``sim`` the voice's simulator, crossfading from the
+        running one (a structural edit: bypass, model swap)."""
+        if v.sim is None:
+            v.sim = sim
+            return
+        v.xpos = 0.0
+        v.incoming = sim
+        self._wait_blocks(int(lim.XFADE_S * self.fs / self.block) + 2, timeout=1.0)
+
     def _wait_xfade(self, v: Voice) -> None:
         """Wait (worker) until a swap in progress on ``v`` has finished."""
         if v.incoming is None:
@@ -1188,12 +1198,7 @@ class LiveHost:
             if v.missing:
                 self.messages.put(f"{v.label}: no longer measured after the change: "
                                   + ", ".join(v.missing))
-            if v.sim is None:
-                v.sim = sim
-            else:
-                v.xpos = 0.0
-                v.incoming = sim
-                self._wait_blocks(int(lim.XFADE_S * self.fs / self.block) + 2, timeout=1.0)
+            self._swap_in(v, sim)
             self._after_edit(i)
             return v.build_time_s
         return self._post(job)
@@ -1213,12 +1218,7 @@ class LiveHost:
                 undo()
                 raise
             v.warm(sim)
-            if v.sim is None:
-                v.sim = sim
-            else:
-                v.xpos = 0.0
-                v.incoming = sim
-                self._wait_blocks(int(lim.XFADE_S * self.fs / self.block) + 2, timeout=1.0)
+            self._swap_in(v, sim)
             self._after_edit(i)
             return v.design.part(part).model if old is not None else model
         return self._post(job)
