@@ -298,7 +298,7 @@ def add_sweep_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--values", required=True, metavar="RANGE",
                    help="E12:1u..47u (an IEC 60063 series between two values) or 1u,2u2,4u7")
     p.add_argument("--pot", metavar="STAGE.POT=START:STOP:COUNT",
-                   help="also turn a pot, e.g. detector.SUSTAIN=0:1:5")
+                   help="also turn a pot, e.g. detector.THRESHOLD=0:1:5")
     p.add_argument("--metric", default="gain_db", choices=list(METRICS),
                    help="figure to tabulate and plot (default gain_db)")
     p.add_argument("--out", default="sweep-out", metavar="DIR",

@@ -49,7 +49,7 @@ def parse_pot(text: str) -> tuple[str, list[float]]:
     m = re.fullmatch(r"\s*([^=\s]+)\s*=\s*([-+0-9.eE]+):([-+0-9.eE]+):(\d+)\s*", str(text))
     if not m:
         raise DesignError(f"cannot read pot range '{text}'",
-                          hint="write STAGE.POT=START:STOP:COUNT, e.g. detector.SUSTAIN=0:1:5")
+                          hint="write STAGE.POT=START:STOP:COUNT, e.g. detector.THRESHOLD=0:1:5")
     a, b, n = float(m.group(2)), float(m.group(3)), int(m.group(4))
     if n < 1:
         raise DesignError(f"pot range '{text}' has no points", part=m.group(1),
