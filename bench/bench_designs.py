@@ -9,7 +9,10 @@ excludes compilation. The designs are timed round-robin, --repeat times
 each, and each keeps its best run (the table also stores the median), so a
 slow stretch of a shared machine does not fall on one design alone.
 Real-time factor = audio seconds / wall seconds (the target is 20x or
-more). Prints a table and writes bench/results/designs.json.
+more). The table also gives the solver's work per kernel sample (it/smp:
+Newton iterations; upd/smp: Jacobian factorisations plus low-rank updates),
+which says where a slow design's time goes. Prints a table and writes
+bench/results/designs.json.
 
 For designs with a gain-cell control meter (the compressors) it also
 measures, outside the timing: the static curve's threshold (1 dB of gain
@@ -71,7 +74,13 @@ class DesignRun:
             e = min(s + BLOCK, x.size)
             sim.process_into(x[s:e], out[s:e])
         self.walls.append(time.perf_counter() - t1)
-        self.nonconv = max(self.nonconv, sim.stats["nonconverged"])
+        st = sim.stats
+        self.nonconv = max(self.nonconv, st["nonconverged"])
+        # solver work per kernel sample (deterministic: the same every run)
+        n = max(1, st["samples"])
+        self.work = {"iterations_per_sample": st["mean_iterations"],
+                     "factorizations_per_sample": st["factorizations"] / n,
+                     "jacobian_updates_per_sample": st["jacobian_updates"] / n}
         self.out = out
 
     def row(self, x: np.ndarray) -> dict:
@@ -89,6 +98,7 @@ class DesignRun:
             "realtime_factor": (x.size / FS) / wall,
             "meets_target": (x.size / FS) / wall >= TARGET_RT,
             "nonconverged": self.nonconv,
+            **self.work,
             "op_method": getattr(op, "method", ""),
             "transistors": {r["part"]: r["region"] + (" (by design)" if r["intended"] else "")
                             for r in demo.transistor_check(d, op)},
@@ -164,14 +174,16 @@ def main(argv=None) -> int:
     if c0 and c1 and (c1[0] - c0[0]) + (c1[1] - c0[1]) > 0:
         steal = (c1[1] - c0[1]) / ((c1[0] - c0[0]) + (c1[1] - c0[1]))
     hdr = (f"{'design':<26}{'os':>3}{'BJT':>4}{'dev':>4}{'st':>4}{'pt':>4}"
-           f"{'x RT':>8}{'target':>8}{'nonconv':>8}  operating point")
+           f"{'x RT':>8}{'target':>8}{'nonconv':>8}{'it/smp':>7}{'upd/smp':>8}  operating point")
     print(hdr)
     print("-" * len(hdr))
     for r in rows:
         opn = "ok" if not r["op_problems"] else "; ".join(r["op_problems"])
         print(f"{r['design']:<26}{r['oversample']:>3}{r['bjts']:>4}{r['devices']:>4}"
               f"{r['states']:>4}{r['ports']:>4}{r['realtime_factor']:>8.1f}"
-              f"{'yes' if r['meets_target'] else 'NO':>8}{r['nonconverged']:>8}  {opn}")
+              f"{'yes' if r['meets_target'] else 'NO':>8}{r['nonconverged']:>8}"
+              f"{r['iterations_per_sample']:>7.2f}"
+              f"{r['jacobian_updates_per_sample'] + r['factorizations_per_sample']:>8.3f}  {opn}")
     print(f"\n{'compressor':<26}{'Iabc uA':>8}{'thr dBV':>8}{'slope':>7}{'rel ms':>7}"
           f"{'GR soft dB':>14}{'GR hard dB':>14}{'GR max':>7}")
     for r in rows:
