@@ -65,7 +65,8 @@ def same(a, b):
 
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--trials", type=int, default=40, help="trials with renders (default 40)")
+    ap.add_argument("--trials", type=int, default=300,
+                    help="trials with renders (default 300: enough to amortise the pool's start)")
     ap.add_argument("--op-trials", type=int, default=1000)
     args = ap.parse_args()
     d = load_design(DESIGN)
