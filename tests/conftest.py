@@ -1,5 +1,6 @@
 """Shared test setup: Qt offscreen, an artifacts folder for screenshots and plots."""
 import os
+import shutil
 from pathlib import Path
 
 import pytest
@@ -15,3 +16,11 @@ def artifacts() -> Path:
     (not committed)."""
     ARTIFACTS.mkdir(exist_ok=True)
     return ARTIFACTS
+
+
+@pytest.fixture
+def design_file(tmp_path) -> Path:
+    """A writable copy of the small divider design (tests/gui_divider.toml)."""
+    p = tmp_path / "divider.toml"
+    shutil.copy(Path(__file__).resolve().parent / "gui_divider.toml", p)
+    return p

@@ -9,7 +9,6 @@ Expectations come from Ohm's law (divider rule), the binomial distribution
 """
 import math
 import random
-import shutil
 import time
 from pathlib import Path
 
@@ -24,13 +23,6 @@ from gui.app import make_window
 
 HERE = Path(__file__).resolve().parent
 DIVIDER = HERE / "gui_divider.toml"
-
-
-@pytest.fixture
-def design_file(tmp_path):
-    p = tmp_path / "divider.toml"
-    shutil.copy(DIVIDER, p)
-    return p
 
 
 def _window(qtbot, tmp_path, design, **kw):

@@ -10,7 +10,6 @@ IEC 60063 tables and the binomial distribution.
 """
 import json
 import math
-import shutil
 from pathlib import Path
 
 import numpy as np
@@ -26,13 +25,6 @@ from gui.snapshots import BlindTrial
 
 HERE = Path(__file__).resolve().parent
 DIVIDER = HERE / "gui_divider.toml"
-
-
-@pytest.fixture
-def design_file(tmp_path):
-    p = tmp_path / "divider.toml"
-    shutil.copy(DIVIDER, p)
-    return p
 
 
 @pytest.fixture

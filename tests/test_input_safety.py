@@ -81,7 +81,7 @@ KEYS = ["design", "stage", "part", "name", "type", "nodes", "value", "values",
 SCALARS = st.one_of(st.integers(-10**20, 10**20), st.floats(allow_nan=True),
                     st.booleans(), st.text(max_size=12),
                     st.sampled_from(["resistor", "npn", "pot", "10k", "in", "out",
-                                     "tone/big-muff", "buffer.out", "x.y.z", "nan",
+                                     "tone/no-such-stage", "buffer.out", "x.y.z", "nan",
                                      "1e300", "-1", "0"]))
 TOMLISH = st.recursive(
     SCALARS,

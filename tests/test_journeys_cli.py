@@ -186,21 +186,7 @@ def test_player_swaps_models_ab_matches_and_saves_both(null_env, tmp_path):
 
 # ---------------------------------------------------------------- engineer
 
-AMP = """common-emitter amp for the engineer's journey
-VCC vcc 0 9
-VIN src 0 0
-CIN src b 1u
-RB1 vcc b 100k
-RB2 b 0 22k
-RC vcc c 4.7k
-RE e 0 1k
-CE e 0 47u
-Q1 c b e QN
-COUT c out 1u
-RL out 0 100k
-.model QN NPN(IS=1e-14 BF=200)
-.end
-"""
+AMP = (Path(__file__).resolve().parent / "ce_amp.cir").read_text()
 
 
 def test_engineer_imports_a_netlist_probes_edits_and_makes_a_variant(null_env, tmp_path,

@@ -2,6 +2,8 @@
 as a TOML design, under the names ``op`` prints (issue 16 regressions):
 live value edits reached no element ('netlist.RC'), a failed edit was still
 saved, ``v(out)`` was rejected, and parts needed a 'netlist.' prefix."""
+from pathlib import Path
+
 import numpy as np
 import pytest
 
@@ -16,21 +18,7 @@ FS = 48000.0
 # A common-emitter stage, our own values.  Bias by hand (common practice):
 # Vb = 9 * 22k / 122k = 1.62 V, Ve ~ Vb - 0.65 = 0.97 V, Ie ~ 0.97 mA,
 # Vc ~ 9 - 4.7k * 0.96 mA ~ 4.5 V; gain ~ -RC/re with CE bypassing RE.
-AMP = """common-emitter amp for the netlist tests
-VCC vcc 0 9
-VIN src 0 0
-CIN src b 1u
-RB1 vcc b 100k
-RB2 b 0 22k
-RC vcc c 4.7k
-RE e 0 1k
-CE e 0 47u
-Q1 c b e QN
-COUT c out 1u
-RL out 0 100k
-.model QN NPN(IS=1e-14 BF=200)
-.end
-"""
+AMP = (Path(__file__).resolve().parent / "ce_amp.cir").read_text()
 
 
 @pytest.fixture

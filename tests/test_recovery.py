@@ -6,7 +6,6 @@ offered to another process; one config-folder function serves everyone.
 """
 import json
 import os
-import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -17,14 +16,6 @@ from engine.autosave import Autosaves, config_dir
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
-DIVIDER = HERE / "gui_divider.toml"
-
-
-@pytest.fixture
-def design_file(tmp_path):
-    p = tmp_path / "divider.toml"
-    shutil.copy(DIVIDER, p)
-    return p
 
 
 def _snapshot(folder: Path) -> dict:

@@ -49,39 +49,36 @@ def _number(value, what: str, unit: str, hint: str) -> float:
     return x
 
 
+def _in_range(value, what: str, unit: str, lo: float, hi: float, hint: str) -> float:
+    """``value`` as a finite float from ``lo`` to ``hi``, or AudioError."""
+    x = _number(value, what, unit, hint)
+    if not lo <= x <= hi:
+        raise AudioError(f"the {what} {x:g} {unit} is out of range", hint=hint)
+    return x
+
+
 def check_level_db(value) -> float:
     """Output level in dB: finite and from ``LEVEL_DB_MIN`` to ``LEVEL_DB_MAX``.
     Returns it as a float; raises AudioError otherwise."""
-    hint = f"give a level from {LEVEL_DB_MIN:g} to {LEVEL_DB_MAX:+g} dB"
-    x = _number(value, "output level", "dB", hint)
-    if not LEVEL_DB_MIN <= x <= LEVEL_DB_MAX:
-        raise AudioError(f"the output level {x:g} dB is out of range", hint=hint)
-    return x
+    return _in_range(value, "output level", "dB", LEVEL_DB_MIN, LEVEL_DB_MAX,
+                     f"give a level from {LEVEL_DB_MIN:g} to {LEVEL_DB_MAX:+g} dB")
 
 
 def check_ceiling_dbfs(value) -> float:
     """Limiter ceiling in dBFS: finite and from ``CEILING_DBFS_MIN`` to 0."""
-    hint = f"give a ceiling from {CEILING_DBFS_MIN:g} to {CEILING_DBFS_MAX:g} dBFS (default -6)"
-    x = _number(value, "limiter ceiling", "dBFS", hint)
-    if not CEILING_DBFS_MIN <= x <= CEILING_DBFS_MAX:
-        raise AudioError(f"the limiter ceiling {x:g} dBFS is out of range", hint=hint)
-    return x
+    return _in_range(value, "limiter ceiling", "dBFS", CEILING_DBFS_MIN, CEILING_DBFS_MAX,
+                     f"give a ceiling from {CEILING_DBFS_MIN:g} to {CEILING_DBFS_MAX:g} "
+                     "dBFS (default -6)")
 
 
 def check_rate(value) -> float:
     """Live sample rate in Hz: finite and from ``RATE_MIN_HZ`` to ``RATE_MAX_HZ``."""
-    hint = f"give a rate from {RATE_MIN_HZ:g} to {RATE_MAX_HZ:g} Hz (48000 is usual)"
-    x = _number(value, "sample rate", "Hz", hint)
-    if not RATE_MIN_HZ <= x <= RATE_MAX_HZ:
-        raise AudioError(f"the sample rate {x:g} Hz is out of range", hint=hint)
-    return x
+    return _in_range(value, "sample rate", "Hz", RATE_MIN_HZ, RATE_MAX_HZ,
+                     f"give a rate from {RATE_MIN_HZ:g} to {RATE_MAX_HZ:g} Hz (48000 is usual)")
 
 
 def check_full_scale_v(value, what: str = "output") -> float:
     """Calibration: peak volts at the jack for digital full scale."""
-    hint = (f"give the {what} calibration from {FULL_SCALE_V_MIN:g} V to "
-            f"{FULL_SCALE_V_MAX:g} V peak (1.55V), or as dBu (+3dBu)")
-    x = _number(value, f"{what} calibration", "volts", hint)
-    if not FULL_SCALE_V_MIN <= x <= FULL_SCALE_V_MAX:
-        raise AudioError(f"the {what} calibration {x:g} V is out of range", hint=hint)
-    return x
+    return _in_range(value, f"{what} calibration", "V", FULL_SCALE_V_MIN, FULL_SCALE_V_MAX,
+                     f"give the {what} calibration from {FULL_SCALE_V_MIN:g} V to "
+                     f"{FULL_SCALE_V_MAX:g} V peak (1.55V), or as dBu (+3dBu)")
