@@ -1,8 +1,8 @@
 """What the solver's per-sample tolerance costs in accuracy, per design.
 
 Each built-in design renders the synthetic guitar phrase "demo"
-(engine.synth) at its oversampling twice: with the default tolerance
-(engine.solver.kernel.ERR_TOL, SPICE's VNTOL of 1 uV applied to the error
+(solderless.engine.synth) at its oversampling twice: with the default tolerance
+(solderless.engine.solver.kernel.ERR_TOL, SPICE's VNTOL of 1 uV applied to the error
 left in the port voltages) and with a tolerance of 1e-11 V as the
 reference.  Reported: the RMS difference relative to the reference's RMS
 (dB), the largest difference (V), and the mean Newton/chord iterations per
@@ -22,10 +22,10 @@ import numpy as np
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from engine.design import builtin_designs, load_design  # noqa: E402
-from engine.solver import Simulator  # noqa: E402
-from engine.solver.kernel import ERR_TOL  # noqa: E402
-from engine.synth import render_phrase  # noqa: E402
+from solderless.engine.design import builtin_designs, load_design  # noqa: E402
+from solderless.engine.solver import Simulator  # noqa: E402
+from solderless.engine.solver.kernel import ERR_TOL  # noqa: E402
+from solderless.engine.synth import render_phrase  # noqa: E402
 
 FS = 48000.0
 REF_TOL = 1e-11

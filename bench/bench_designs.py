@@ -1,8 +1,8 @@
 """Speed and operating-point sanity of every built-in design.
 
-For each design in presets/designs: flatten, solve the DC operating point,
-classify its transistors (engine.demo.transistor_check), then render the
-synthetic guitar phrase "demo" (engine.synth) at the design's suggested
+For each design in solderless/presets/designs: flatten, solve the DC operating point,
+classify its transistors (solderless.app.measure.transistor_check), then render the
+synthetic guitar phrase "demo" (solderless.engine.synth) at the design's suggested
 oversampling, in 4096-sample blocks through ``Simulator.process_into`` as the
 live host does. The kernels are warmed on a short block first, so the timing
 excludes compilation. The designs are timed round-robin, --repeat times
@@ -17,7 +17,7 @@ bench/results/designs.json.
 For designs with a gain-cell control meter (the compressors) it also
 measures, outside the timing: the static curve's threshold (1 dB of gain
 reduction) and slope 6 dB above it, the release time after a 50 mV burst
-(63 % recovery, time-constant convention; engine.demo.measure_release), and
+(63 % recovery, time-constant convention; solderless.app.measure.measure_release), and
 the deepest gain reduction on the phrase's soft and hard single notes.
 
 Run from the repository root:  python bench/bench_designs.py [--repeat N]
@@ -37,10 +37,10 @@ import numpy as np
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from engine import demo  # noqa: E402
-from engine.design import builtin_designs, load_design  # noqa: E402
-from engine.solver import Simulator  # noqa: E402
-from engine.synth import render_phrase  # noqa: E402
+from solderless.engine.analysis import measure  # noqa: E402
+from solderless.engine.design import builtin_designs, load_design  # noqa: E402
+from solderless.engine.solver import Simulator  # noqa: E402
+from solderless.engine.synth import render_phrase  # noqa: E402
 
 FS = 48000.0
 TARGET_RT = 20.0
@@ -101,8 +101,8 @@ class DesignRun:
             **self.work,
             "op_method": getattr(op, "method", ""),
             "transistors": {r["part"]: r["region"] + (" (by design)" if r["intended"] else "")
-                            for r in demo.transistor_check(d, op)},
-            "op_problems": demo.transistor_problems(d, op),
+                            for r in measure.transistor_check(d, op)},
+            "op_problems": measure.transistor_problems(d, op),
             "out_rms_v": float(np.sqrt(np.mean((self.out - self.out.mean()) ** 2))),
         }
 
@@ -119,27 +119,27 @@ def bench_all(names: list[str], x: np.ndarray, repeat: int) -> list[dict]:
     return [r.row(x) for r in runs]
 
 
-#: Onsets (s) of the demo phrase's soft and hard single notes (engine.synth).
+#: Onsets (s) of the demo phrase's soft and hard single notes (solderless.engine.synth).
 SOFT_NOTES = (0.0, 0.45, 0.9)
 HARD_NOTES = (1.5, 1.9, 2.3)
 
 
 def compression_figures(name: str, x: np.ndarray) -> dict:
     """Static curve, release and phrase gain reduction of a compressor design."""
-    from engine.analysis import compression as cp
+    from solderless.engine.analysis import compression as cp
     d = load_design(name)
     ctl = d.control_probe()
     if not ctl:
         return {}
-    c = demo.measure_static(d, FS, np.arange(-64.0, 0.1, 4.0), hold=0.4, measure=0.1)
+    c = measure.measure_static(d, FS, np.arange(-64.0, 0.1, 4.0), hold=0.4, measure=0.1)
     thr = c.threshold_db(1.0)
     try:
         slope = c.slope(thr + 6.0)
     except ValueError:          # no reduction, or too near the top of the range
         slope = float("nan")
-    rt = demo.measure_release(d, FS, tail=2.0)[0]
-    _, pr, sim = demo.simulate(d, x, FS, probes=(ctl,))
-    rest = demo.rest_control(d, sim.operating_point())
+    rt = measure.measure_release(d, FS, tail=2.0)[0]
+    _, pr, sim = measure.simulate(d, x, FS, probes=(ctl,))
+    rest = measure.rest_control(d, sim.operating_point())
     gr = cp.gain_reduction_from_control(pr[ctl], rest, d.meters.get("control_law", "linear"))
 
     def deepest(onsets):

@@ -30,9 +30,9 @@ ROOT = Path(__file__).resolve().parent.parent
 
 def run(design: str, edits: int, block: int, helper: bool = False) -> dict:
     import numpy as np
-    from engine.design import load_design
-    from engine.live.host import LiveHost
-    from engine.live.source import ToneSource
+    from solderless.engine.design import load_design
+    from solderless.engine.live.host import LiveHost
+    from solderless.engine.live.source import ToneSource
     h = LiveHost(load_design(design), source=ToneSource(440.0, 0.1), block=block,
                  autosave=False)
     if helper and hasattr(h, "measure_in_process"):

@@ -38,7 +38,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests"))
 
-from engine.solver import Simulator, kernel as K  # noqa: E402
+from solderless.engine.solver import Simulator, kernel as K  # noqa: E402
 
 FS = 48000.0
 TARGET_X = 25.0
@@ -151,8 +151,8 @@ def main(argv=None) -> int:
     ap.add_argument("--out", default=str(ROOT / "bench" / "results" / "floor.json"))
     a = ap.parse_args(argv)
     import spice_ref as S
-    from engine.design import builtin_designs, load_design
-    from engine.synth import render_phrase
+    from solderless.engine.design import builtin_designs, load_design
+    from solderless.engine.synth import render_phrase
 
     ng = {}
     ng_file = ROOT / "bench" / "results" / "vs_ngspice.json"

@@ -1,7 +1,7 @@
 """Workbench bench: edit-to-sound time and GUI frame rate while playing.
 
 The workbench plays through its live host process
-(:class:`engine.live.remote.HostProcess`), started the way the Play button
+(:class:`solderless.engine.live.remote.HostProcess`), started the way the Play button
 starts it, but with no sound card: the child process runs the audio path on
 a real-time paced clock (``LiveHost.start_paced``: one 128-sample block every
 2.67 ms at 48 kHz). A block that starts later than one block period after its
@@ -12,7 +12,7 @@ due time counts as an xrun (the clock resynchronises like a sound card).
   host process that runs with the new element values (the host stamps both
   ends on the system-wide monotonic clock).
 * frame rate: meter/trace/scope redraws per second of the window's meter
-  timer (period ``gui.window.METER_MS``, 30 ms) while the host plays.
+  timer (period ``solderless.gui.window.METER_MS``, 30 ms) while the host plays.
 * xruns: counted by the host process, first for 3 s with the window idle
   (meter timer off: the machine's own baseline), then during the run.
 
@@ -42,15 +42,15 @@ def main(argv=None) -> int:
     ap.add_argument("--source", default="synth:chords")
     ap.add_argument("--no-meters", action="store_true",
                     help="baseline: play without the meter timer (no GUI redraws)")
-    ap.add_argument("--out", default=str(Path(__file__).resolve().parent / "results" / "gui.json"))
+    ap.add_argument("--out", default=str(Path(__file__).resolve().parent / "results" / "solderless.gui.json"))
     args = ap.parse_args(argv)
 
     import numpy as np
     from PyQt6.QtCore import QEventLoop, QTimer
-    from engine.design import load_design
-    from engine.values import step_preferred
-    from gui.app import make_window, tune_interpreter
-    from gui.window import METER_MS
+    from solderless.engine.design import load_design
+    from solderless.engine.values import step_preferred
+    from solderless.gui.app import make_window, tune_interpreter
+    from solderless.gui.window import METER_MS
 
     tune_interpreter()                       # what `solderless gui` does
     cfg = Path(tempfile.mkdtemp(prefix="solderless-bench-"))

@@ -36,12 +36,13 @@ import numpy as np
 
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "tests"))  # the stand-in design for the host bench
 
-from engine.design import builtin_designs, load_design  # noqa: E402
-from engine.errors import SolderlessError  # noqa: E402
-from engine.live.host import LiveHost  # noqa: E402
-from engine.live.source import LoopSource  # noqa: E402
-from engine.solver import kernel as KERNEL  # noqa: E402
+from solderless.engine.design import builtin_designs, load_design  # noqa: E402
+from solderless.engine.errors import SolderlessError  # noqa: E402
+from solderless.engine.live.host import LiveHost  # noqa: E402
+from solderless.engine.live.source import LoopSource  # noqa: E402
+from solderless.engine.solver import kernel as KERNEL  # noqa: E402
 
 FS = 48000.0
 BLOCKS = (64, 128, 256)
@@ -138,8 +139,8 @@ def host_overhead(block: int, ab: bool, n: int = 5000) -> dict:
     """CPU time per block of the host path alone (stand-in circuit whose
     kernel is a few operations per sample): source, output stage, loudness,
     meters and the Python glue."""
-    from engine.live.source import ToneSource
-    from engine.live.standin import StandInDesign, StandInSimulator
+    from solderless.engine.live.source import ToneSource
+    from standin import StandInDesign, StandInSimulator
     h = LiveHost(StandInDesign(), variant=StandInDesign() if ab else None, fs=FS,
                  block=block, source=ToneSource(440.0, 0.2),
                  simulator_factory=StandInSimulator, autosave=False)
@@ -213,7 +214,7 @@ def main(argv=None) -> int:
                     help="passes per case; each block's smallest CPU time over them is "
                          "reported beside the first pass (default 3)")
     args = ap.parse_args(argv)
-    from engine.synth import render_phrase
+    from solderless.engine.synth import render_phrase
     volts = render_phrase("demo", FS)
     designs = args.designs.split(",") if args.designs else sorted(builtin_designs())
     blocks = (64,) if args.quick else BLOCKS

@@ -33,8 +33,8 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from engine.analysis import montecarlo as MC  # noqa: E402
-from engine.design import load_design  # noqa: E402
+from solderless.engine.analysis import montecarlo as MC  # noqa: E402
+from solderless.engine.design import load_design  # noqa: E402
 
 DESIGN = "flagship"
 

@@ -16,7 +16,7 @@ import numpy as np
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from engine.solver.oversample import Resampler  # noqa: E402
+from solderless.engine.solver.oversample import Resampler  # noqa: E402
 
 
 def bench(factor: int, block: int = 256, seconds: float = 10.0, fs: float = 48000.0):

@@ -27,7 +27,7 @@ ROOT = Path(__file__).resolve().parent.parent
 
 CHILD = r"""
 import sys, time
-from engine.design import load_design
+from solderless.engine.design import load_design
 t = time.process_time()
 d = load_design(sys.argv[1])
 print(time.process_time() - t, sum(len(s.parts) for s in d.stages))
@@ -36,7 +36,7 @@ print(time.process_time() - t, sum(len(s.parts) for s in d.stages))
 #: every value used to copy all parameters seen so far.
 CHILD_NETLIST = r"""
 import sys, time
-from engine.formats.spice import parse_netlist
+from solderless.engine.formats.spice import parse_netlist
 n = int(sys.argv[1])
 text = ("params\nVIN in 0 0\nR1 in 0 {p%d}\n" % (n - 1) + ".param p0=1\n"
         + "".join(".param p%d={p%d+1}\n" % (k, k - 1) for k in range(1, n)) + ".end\n")

@@ -20,7 +20,7 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from engine.circuit import Circuit, Element as E  # noqa: E402
+from solderless.engine.circuit import Circuit, Element as E  # noqa: E402
 
 FS = 48000.0
 NPN = {"TYPE": "NPN", "IS": 1e-14, "BF": 200.0}
@@ -85,7 +85,7 @@ def _guitarish(n: int) -> np.ndarray:
 
 
 def per_sample(circ: Circuit, seconds: float, block: int = 256, oversample: int = 1) -> dict:
-    from engine.solver import Simulator
+    from solderless.engine.solver import Simulator
     t0 = time.perf_counter()
     sim = Simulator(circ, fs=FS, oversample=oversample, block_max=block)
     build = time.perf_counter() - t0
@@ -111,8 +111,8 @@ def per_sample(circ: Circuit, seconds: float, block: int = 256, oversample: int 
 
 
 def per_sample_designs(seconds: float) -> dict:
-    """Every built-in design (presets/designs), flattened, at oversample 1."""
-    from engine.design import builtin_designs, load_design
+    """Every built-in design (solderless/presets/designs), flattened, at oversample 1."""
+    from solderless.engine.design import builtin_designs, load_design
     out = {}
     for name, path in sorted(builtin_designs().items()):
         try:
@@ -123,7 +123,7 @@ def per_sample_designs(seconds: float) -> dict:
 
 
 def part_change(circ: Circuit, name: str, values, reps: int = 20) -> dict:
-    from engine.solver import Simulator
+    from solderless.engine.solver import Simulator
     sim = Simulator(circ, fs=FS)
     y = np.empty(64)
     ts = []
@@ -146,7 +146,7 @@ sys.path.insert(0, {root!r})
 sys.path.insert(0, {bench!r})
 import numpy as np
 from bench_solver import compressor
-from engine.solver import Simulator
+from solderless.engine.solver import Simulator
 t1 = time.perf_counter()
 sim = Simulator(compressor())
 y = np.empty(256)

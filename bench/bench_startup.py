@@ -5,7 +5,7 @@ Circuit: bench/netlists/clipper2.cir (two NPN stages; our own values).  Input:
 a 220 Hz sine, 0.5 of full scale, written here as a 32-bit float WAV at
 96 kHz.
 
-(a) Start-up (``python -m engine.cli render`` on 10 ms of input, so the
+(a) Start-up (``python -m solderless.app.cli render`` on 10 ms of input, so the
     simulation itself is negligible):
 
     * whole process wall time and CPU time (user + system of the child), the
@@ -23,7 +23,7 @@ a 220 Hz sine, 0.5 of full scale, written here as a 32-bit float WAV at
       on its first call (``numba.core.caching.Cache.load_overload`` timed),
       and how many were compiled instead (a cold cache).
 
-(b) 10 s at 96 kHz, whole processes: ``python -m engine.cli render`` (no
+(b) 10 s at 96 kHz, whole processes: ``python -m solderless.app.cli render`` (no
     oversampling: the same time step as ngspice) against ``ngspice -b`` on
     the same netlist with a transient at tstep = tmax = 1/96000 (trapezoidal,
     truncation-error control off: the same step; tests/spice_ref.py), its
@@ -73,8 +73,8 @@ def _phases(argv: list[str]) -> None:
 
     import numpy as np
     mark("import numpy")
-    import engine.cli as cli
-    mark("import engine.cli")
+    import solderless.app.cli as cli
+    mark("import solderless.app.cli")
     ap = cli.build_parser(argv[1:]) if _takes_argv(cli.build_parser) else cli.build_parser()
     args = ap.parse_args(argv[1:])
     mark("build parser, parse arguments")
@@ -83,7 +83,7 @@ def _phases(argv: list[str]) -> None:
     x, fs = sf.read(args.input, dtype="float64", always_2d=True)
     circ = d.flatten()
     mark("read design and WAV")
-    from engine.solver import Simulator
+    from solderless.engine.solver import Simulator
     mark("import solver (numba, kernels module)")
     # time every cache load (and count compilations) from here on
     from numba.core import caching
@@ -183,7 +183,7 @@ def ngspice_render(seconds: float, tmp: Path) -> list[str]:
     sys.path.insert(0, str(ROOT / "tests"))
     import spice_ref as S
     h = 1.0 / FS
-    amp = AMPLITUDE * 1.548      # engine/levels.py FULL_SCALE_V, as the CLI scales
+    amp = AMPLITUDE * 1.548      # solderless/engine/levels.py FULL_SCALE_V, as the CLI scales
     cards = []
     for line in NETLIST.read_text().splitlines():
         if line.upper().startswith("VIN "):
@@ -212,7 +212,7 @@ def main() -> int:
     short, long_ = tmp / "in_10ms.wav", tmp / "in_long.wav"
     write_input(short, 0.01)
     write_input(long_, a.seconds)
-    render = [sys.executable, "-m", "engine.cli", "render", str(NETLIST)]
+    render = [sys.executable, "-m", "solderless.app.cli", "render", str(NETLIST)]
     short_cmd = render + [str(short), str(tmp / "o1.wav"), "--output-fs-volts", "10"]
     long_cmd = render + [str(long_), str(tmp / "o2.wav"), "--output-fs-volts", "10",
                          "--oversample", "1"]

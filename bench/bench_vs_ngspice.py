@@ -65,7 +65,7 @@ def ngspice_tran_time(cards: str, fs: float, seconds: float, repeat: int) -> flo
 def run_ours(name: str, fs: float, x: np.ndarray, repeat: int):
     """(output, best wall time of process(x)) or (None, None, reason)."""
     try:
-        from engine.solver import Simulator
+        from solderless.engine.solver import Simulator
         circ = S.engine_circuit(name)
         warm = Simulator(circ, fs)
     except Exception as exc:          # engine not built yet, or refuses the circuit

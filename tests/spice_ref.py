@@ -432,7 +432,7 @@ def engine_circuit(name: str, keep_wave: bool = False):
     its SIN/PWL wave is removed so that the test feeds the samples itself
     (from :func:`wave_samples`, i.e. independently of the engine).
     """
-    from engine.formats.spice import parse_netlist
+    from solderless.engine.formats.spice import parse_netlist
     p = NETLIST_DIR / f"{name}.cir"
     src = "VIN" if name in audio_netlists() else None
     nl = parse_netlist(p.read_text(), file=str(p), in_source=src, out_node="out")
@@ -456,7 +456,7 @@ def engine_simulator():
     """Return Solderless' Simulator class, or skip the test if it is not built yet."""
     import pytest
     try:
-        from engine.solver import Simulator
+        from solderless.engine.solver import Simulator
     except ImportError as exc:
-        pytest.skip(f"engine.solver.Simulator not available: {exc}")
+        pytest.skip(f"solderless.engine.solver.Simulator not available: {exc}")
     return Simulator

@@ -15,10 +15,10 @@ import numpy as np
 import pytest
 
 import spice_ref as S
-from engine.errors import DesignError
-from engine.formats.spice import parse_netlist
-from engine.solver.ac import ac_response
-from engine.solver.dcop import operating_point
+from solderless.engine.errors import DesignError
+from solderless.engine.formats.spice import parse_netlist
+from solderless.engine.solver.ac import ac_response
+from solderless.engine.solver.dcop import operating_point
 
 # every operator and function of the expression language once, at a point
 # where each is away from its kinks (ngspice manual, B source chapter)
@@ -132,9 +132,9 @@ def test_opamp_macromodel_ac_matches_ngspice(version):
 def test_jacobian_matches_finite_differences():
     """The kernel's derivatives (forward-mode) against central differences
     (common practice) for expressions through every kind of opcode."""
-    from engine.circuit import Element
-    from engine.devices import behav
-    from engine.devices._common import DeviceLayout  # noqa: F401
+    from solderless.engine.circuit import Element
+    from solderless.engine.devices import behav
+    from solderless.engine.devices._common import DeviceLayout  # noqa: F401
     exprs = ["v(a)*v(b)/(1 + v(a)^2)", "tanh(v(a,b)/0.1)*exp(v(b))",
              "pwr(v(a), 1.5) + pow(v(b), 3) + sqrt(v(a)) + ln(v(b)) + log10(v(a))",
              "min(v(a), v(b)) + max(v(a)*2, v(b)) + abs(v(a)-v(b)) + uramp(v(a))",
@@ -184,7 +184,7 @@ def test_expression_errors_name_the_line():
 def test_written_netlist_keeps_the_expressions(version):
     """circuit_to_netlist writes B, E TABLE and G VALUE back so that ngspice
     runs the same circuit (operating point within 1 uV)."""
-    from engine.formats.spice import circuit_to_netlist
+    from solderless.engine.formats.spice import circuit_to_netlist
     cards = S.load_netlist("opamp_behavioural").replace(
         "VIN src 0 DC 0 SIN(0 1 500)", "VIN src 0 DC 0.3")
     nl = parse_netlist(cards, file="opamp_behavioural.cir")

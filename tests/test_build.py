@@ -15,12 +15,12 @@ import threading
 import numpy as np
 import pytest
 
-from engine.analysis import build as B
-from engine.analysis import montecarlo as MC
-from engine.analysis.sweep import make_grid, parse_pot, parse_values
-from engine.cli import main
-from engine.design import builtin_designs, load_design
-from engine.errors import DesignError, SolderlessError
+from solderless.engine.analysis import build as B
+from solderless.engine.analysis import montecarlo as MC
+from solderless.engine.analysis.sweep import make_grid, parse_pot, parse_values
+from solderless.app.cli import main
+from solderless.engine.design import builtin_designs, load_design
+from solderless.engine.errors import DesignError, SolderlessError
 
 from pathlib import Path
 
@@ -108,7 +108,7 @@ def test_snap_to_iec60063(value, tol, series, snapped):
     E96 1 %, E6 20 %; docs/references.md)."""
     kind = "electrolytic" if series == "E6" else "resistor"
     assert B.series_for(tol, kind) == series
-    from engine.values import nearest_preferred
+    from solderless.engine.values import nearest_preferred
     assert nearest_preferred(value, series) == pytest.approx(snapped, rel=1e-12)
 
 
@@ -133,7 +133,7 @@ def test_series_for_rejects_bad_tolerance():
 def test_resistor_dissipation_is_i2r_of_the_operating_point():
     """P = I^2 R = V^2 / R at the DC operating point; the rating holds it at
     no more than half (common practice)."""
-    from engine.solver.dcop import operating_point
+    from solderless.engine.solver.dcop import operating_point
     d = load_design(BOOSTER)
     rt = B.ratings(d, seconds=0.3)
     op = operating_point(d.flatten())
@@ -189,7 +189,7 @@ def test_build_sheet_of_every_builtin(name, tmp_path):
     # every design gets its SPICE netlist, macromodels included (issue 19;
     # ngspice runs it: tests/test_spice_macromodels.py); it reads back
     # with one X instance per OTA or op-amp and the same nets
-    from engine.formats.spice import parse_netlist
+    from solderless.engine.formats.spice import parse_netlist
     assert rep.netlist and "design.cir" in text
     cir = files["netlist"].read_text(encoding="utf-8")
     flat = d.flatten()
@@ -225,7 +225,7 @@ def test_monte_carlo_draws_against_ngspice():
     drawn values (and transistor gains) run through ngspice matches ours
     within 1 mV (tests/spice_ref.py)."""
     from spice_ref import circuit_cards, require_ngspice, run_op
-    from engine.formats.spice import circuit_to_netlist
+    from solderless.engine.formats.spice import circuit_to_netlist
     require_ngspice()
     d = load_design(BOOSTER)
     r = MC.TrialRunner(MC.TrialSpec(d, seed=3, control=False))
@@ -359,10 +359,10 @@ def test_value_ranges():
 
 def test_sweep_matches_direct_solve(tmp_path):
     """Each grid point equals a fresh solve of the design with that value."""
-    from engine.solver import ac_response
+    from solderless.engine.solver import ac_response
     d = load_design(BOOSTER)
     grid = make_grid(d, "boost.RE2", "E6:1k..2k2")
-    from engine.analysis.sweep import SweepJob
+    from solderless.engine.analysis.sweep import SweepJob
     spec = MC.TrialSpec(d, control=False, device_spread=False)
     rr = MC.run_trials(spec, range(len(grid)), workers=1, job=SweepJob(grid))
     assert [r["value"] for r in rr.results] == pytest.approx([1e3, 1.5e3, 2.2e3])
@@ -399,7 +399,7 @@ def test_sensitivity_ranks_the_part_that_matters(tmp_path):
     ('"wide"', "spread must be a table"),
 ])
 def test_bad_spread_in_parts_library(tmp_path, spread, needle):
-    from engine.parts import load_library
+    from solderless.engine.parts import load_library
     p = tmp_path / "mine.toml"
     p.write_text(f'[npn-mine]\nkind = "NPN"\nspread = {spread}\nBF = 200\n')
     with pytest.raises(DesignError) as exc:
@@ -493,7 +493,7 @@ def test_cli_writes_trial_netlists(tmp_path):
                "--netlists", "2", "--out", str(tmp_path)])
     assert rc == 0
     rows = list(csv.DictReader((tmp_path / "trials.csv").open()))
-    from engine.formats.spice import parse_netlist
+    from solderless.engine.formats.spice import parse_netlist
     for k in (0, 1):
         text = (tmp_path / f"trial-{k}.cir").read_text()
         nl = parse_netlist(text)
@@ -510,7 +510,7 @@ def test_release_sweep_follows_the_time_constant_capacitor():
     R * C, so the 63 % release time grows in proportion to C (time-constant
     convention, Giannoulis et al. 2012, docs/references.md). 22 uF needs a
     longer tail than the default render: the runner extends it."""
-    from engine.analysis.sweep import SweepJob
+    from solderless.engine.analysis.sweep import SweepJob
     d = load_design("flagship")
     grid = make_grid(d, "detector.CT", "4u7,22u")
     spec = MC.TrialSpec(d, threshold=False, device_spread=False)

@@ -13,8 +13,8 @@ BOOSTER = Path(__file__).resolve().parent / "build_booster.toml"
 
 
 def test_build_view_sheet_and_yield(qtbot, artifacts):
-    from engine.design import load_design
-    from gui.buildview import BuildPanel
+    from solderless.engine.design import load_design
+    from solderless.gui.buildview import BuildPanel
     d = load_design(BOOSTER)
     w = BuildPanel(lambda: d.copy())
     qtbot.addWidget(w)
@@ -32,8 +32,8 @@ def test_build_view_sheet_and_yield(qtbot, artifacts):
 
 
 def test_workbench_has_build_tab(qtbot, tmp_path):
-    from engine.design import load_design
-    from gui.app import make_window
+    from solderless.engine.design import load_design
+    from solderless.gui.app import make_window
     w = make_window(load_design(BOOSTER), config=tmp_path / "cfg", recover="no")
     w.ask = lambda _q: "discard"
     qtbot.addWidget(w)

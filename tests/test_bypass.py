@@ -6,9 +6,9 @@ silence the whole effect); a stage that carries no signal is refused."""
 import numpy as np
 import pytest
 
-from engine.design import load_design
-from engine.errors import DesignError
-from engine.solver import Simulator
+from solderless.engine.design import load_design
+from solderless.engine.errors import DesignError
+from solderless.engine.solver import Simulator
 
 FS = 48000.0
 CTL = "iabc(gain.U1)"

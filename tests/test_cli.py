@@ -7,7 +7,7 @@ import pytest
 import soundfile as sf
 from scipy import signal
 
-from engine.cli import main
+from solderless.app.cli import main
 
 FS = 48000.0
 R, C, RS = 10e3, 10e-9, 1e3
@@ -143,7 +143,7 @@ def test_netlist_design_with_named_source_and_node(tmp_path, capsys):
                "--in-source", "VSIG", "--out-node", "filt"])
     assert rc == 0, capsys.readouterr().err
     y, _ = sf.read(tmp_path / "o.wav")
-    # input and output share one calibration (engine/levels.py): unity in, unity out
+    # input and output share one calibration (solderless/engine/levels.py): unity in, unity out
     ref = expected_lowpass(x.astype(float), 10e3, 10e-9, load=1e30)
     assert np.allclose(y, ref, atol=1e-7)
     rc = main(["render", str(net), str(tmp_path / "imp.wav"), str(tmp_path / "o2.wav")])

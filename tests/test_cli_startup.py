@@ -10,11 +10,11 @@ from pathlib import Path
 
 import pytest
 
-from engine import cli
+from solderless.app import cli
 
 ROOT = Path(__file__).resolve().parents[1]
 
-# the modules each optional command's options live in (engine/cli.py _OPTIONAL)
+# the modules each optional command's options live in (solderless/app/cli.py _OPTIONAL)
 OPTIONAL = {name: module for name, module, *_ in cli._OPTIONAL}
 
 
@@ -30,11 +30,11 @@ def _modules_after(code: str) -> set[str]:
 def test_render_parser_imports_no_other_command():
     # common practice (PEP 8 allows function-level imports): a command pays
     # only for its own imports
-    mods = _modules_after("from engine.cli import build_parser\n"
+    mods = _modules_after("from solderless.app.cli import build_parser\n"
                           "build_parser(['render', 'a.cir', 'in.wav', 'out.wav'])")
     for module in set(OPTIONAL.values()):
         assert module not in mods, module
-    for heavy in ("PyQt6", "scipy.signal", "scipy.optimize", "engine.solver"):
+    for heavy in ("PyQt6", "scipy.signal", "scipy.optimize", "solderless.engine.solver"):
         assert heavy not in mods, heavy
 
 
@@ -72,7 +72,7 @@ def test_thermal_voltage_constants_are_the_si_exact_values():
     # BIPM, The International System of Units, 9th ed. (2019): k and e exact
     # (docs/references.md, "Physical constants"); scipy.constants agrees
     from scipy import constants
-    from engine.devices import _common
+    from solderless.engine.devices import _common
     assert _common.K_BOLTZMANN == constants.k == 1.380649e-23
     assert _common.Q_ELEMENTARY == constants.e == 1.602176634e-19
     assert _common.VT == constants.k * _common.TNOM / constants.e

@@ -1,11 +1,11 @@
-"""Checks of engine.analysis.compression against independent expectations."""
+"""Checks of solderless.engine.analysis.compression against independent expectations."""
 import math
 
 import numpy as np
 import pytest
 from scipy import signal
 
-from engine.analysis import compression as cp
+from solderless.engine.analysis import compression as cp
 
 FS = 48000.0
 

@@ -7,11 +7,11 @@ import stat
 
 import pytest
 
-from engine.cli import build_parser, main
-from engine.design import load_design, taper_fraction
-from engine.live import host as H
-from engine.live.console import Console
-from engine.live.source import ToneSource
+from solderless.app.cli import build_parser, main
+from solderless.engine.design import load_design, taper_fraction
+from solderless.engine.live import host as H
+from solderless.app.console import Console
+from solderless.engine.live.source import ToneSource
 
 
 @pytest.fixture
@@ -109,7 +109,7 @@ def test_designs_lists_whole_sentences_and_variants_say_what_they_change(capsys)
 
 
 def test_ac_options_have_help_units_and_the_workbench_range():
-    from engine.solver.ac import DEFAULT_FMAX_HZ, DEFAULT_FMIN_HZ, default_frequencies
+    from solderless.engine.solver.ac import DEFAULT_FMAX_HZ, DEFAULT_FMIN_HZ, default_frequencies
     ap = build_parser()
     sub = ap._subparsers._group_actions[0].choices["ac"]
     helps = {a.dest: a.help for a in sub._actions}

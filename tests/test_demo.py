@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from engine import demo
-from engine.errors import SolderlessError
+from solderless.app import demo
+from solderless.engine.errors import SolderlessError
 
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"   # PNG signature (ISO/IEC 15948, 5.2)
 
@@ -49,7 +49,7 @@ def test_wavs_hold_the_rendered_signals(demo_run):
         assert fs == 48000 and x.size == 96000
         assert np.all(np.abs(x) <= 1.0) and np.max(np.abs(x)) > 1e-3
     x, _ = sf.read(out / "input.wav")
-    from engine.synth import render_phrase
+    from solderless.engine.synth import render_phrase
     ref = render_phrase("demo", fs=48000.0)[:96000] / demo.WAV_FULL_SCALE_V
     assert np.max(np.abs(x - ref)) < 1e-6     # float WAV: the input as rendered
 

@@ -4,10 +4,10 @@ import textwrap
 
 import pytest
 
-from engine.design import (AUDIO_TAPER_BASE, load_design, taper_fraction,
+from solderless.engine.design import (AUDIO_TAPER_BASE, load_design, taper_fraction,
                            validate_circuit)
-from engine.circuit import Circuit, Element
-from engine.errors import DesignError, SolderlessError
+from solderless.engine.circuit import Circuit, Element
+from solderless.engine.errors import DesignError, SolderlessError
 
 RC = textwrap.dedent("""\
     # a comment the user wrote
@@ -209,7 +209,7 @@ def test_switch_selects_parts(tmp_path):
 
 
 def test_cli_reports_user_mistake_without_traceback(tmp_path, capsys):
-    from engine.cli import main
+    from solderless.app.cli import main
     bad = write(tmp_path, RC.replace('value = "10n"', 'value = "lots"'))
     rc = main(["op", str(bad)])
     err = capsys.readouterr().err
@@ -307,7 +307,7 @@ def test_current_controlled_parts(tmp_path):
     # a 0 V supply as an ammeter: i = 9 V / 10 k = 0.9 mA (Ohm's law);
     # cccs (F): 2 x 0.9 mA flows 0 -> through it -> m, into RM: 1.8 V;
     # ccvs (H): v = 1 k x 0.9 mA = 0.9 V (the SPICE F and H definitions)
-    from engine.solver import Simulator
+    from solderless.engine.solver import Simulator
     d = load_design(write(tmp_path, CONTROLLED))
     circ = d.flatten()
     assert circ.element("sense.MIR").params["CONTROL"] == "sense.AMM"
@@ -341,7 +341,7 @@ def test_mosfet_part_bias_point(tmp_path):
     # source resistor: Id = beta/2*(Vg - Id*RS - VTO)^2*(1 + LAMBDA*Vds),
     # beta = KP*W/L (Shichman-Hodges), solved by scipy
     from scipy.optimize import brentq
-    from engine.solver import Simulator
+    from solderless.engine.solver import Simulator
     d = load_design(write(tmp_path, MOS_BOOST))
     circ = d.flatten()
     m = circ.element("boost.Q1")
@@ -358,7 +358,7 @@ def test_mosfet_part_bias_point(tmp_path):
     i_d = brentq(f, 0.0, 9 / 12.2e3)
     assert op.nets["boost.s"] == pytest.approx(i_d * 2.2e3, rel=1e-6)
     # saturation (the amplifying region), reported as near cut-off when the
-    # gate overdrive is under 0.5 V (engine/analysis/regions.py)
+    # gate overdrive is under 0.5 V (solderless/engine/analysis/regions.py)
     vgst = vg - i_d * 2.2e3 - 2.0
     assert op.devices["boost.Q1"]["region"] == ("near cut-off" if vgst < 0.5 else "saturated")
 
@@ -370,7 +370,7 @@ def test_netlist_stage_keeps_its_current_controlled_sources(tmp_path):
     # a 1 V input to within the macromodel's offset (common practice)
     import shutil
     from pathlib import Path
-    from engine.solver import Simulator
+    from solderless.engine.solver import Simulator
     src = Path(__file__).parent / "netlists" / "opamp_macromodel.cir"
     shutil.copy(src, tmp_path / "op.cir")
     text = one_stage("follower", "bias", [

@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 from scipy import constants
 
-from engine.circuit import Circuit, Element as E
-from engine.solver import Simulator, ac_response
+from solderless.engine.circuit import Circuit, Element as E
+from solderless.engine.solver import Simulator, ac_response
 
 VT = constants.k * 300.15 / constants.e  # scipy.constants
 SMALL_NPN = {"TYPE": "NPN", "IS": 1e-14, "BF": 200.0}  # a typical small-signal NPN (from memory)
@@ -248,7 +248,7 @@ def test_junction_limiting_follows_spice():
     # forward steps above vcrit are compressed to vold + vt*ln(1 + dv/vt);
     # reverse steps stop at -(vold + 1) from forward bias and at 2*vold - 1
     # from reverse bias; anything else passes unchanged
-    from engine.devices._common import pnjlim, vcrit
+    from solderless.engine.devices._common import pnjlim, vcrit
     vt = VT
     vc = vcrit(vt, 1e-14)
     assert pnjlim(2.0, 0.6, vt, vc) == pytest.approx(0.6 + vt * math.log(1 + 1.4 / vt), rel=1e-12)

@@ -16,10 +16,10 @@ import numpy as np
 import pytest
 from PyQt6.QtWidgets import QAbstractButton, QLabel, QLineEdit, QComboBox
 
-pytest.importorskip("engine.solver.simulator")
+pytest.importorskip("solderless.engine.solver.simulator")
 
-from engine.design import PRESETS, load_design
-from gui.app import make_window
+from solderless.engine.design import PRESETS, load_design
+from solderless.gui.app import make_window
 
 HERE = Path(__file__).resolve().parent
 DIVIDER = HERE / "gui_divider.toml"
@@ -87,7 +87,7 @@ def test_save_on_a_builtin_design_saves_a_copy_in_the_user_folder(qtbot, tmp_pat
         saved = asked[0]
         assert saved.exists() and w.wb.design.path == saved and not w.wb.dirty
         assert load_design(saved).part(pot.qualname).rotation == pytest.approx(0.3)
-        # an explicit path inside presets/ is refused too, nothing written
+        # an explicit path inside solderless/presets/ is refused too, nothing written
         assert not w.save(builtin)
         assert builtin.read_bytes() == before
         assert any("built-in" in t for t in w.notices.texts())
@@ -175,7 +175,7 @@ def _visible_texts(w) -> dict[str, str]:
     """Everything a user can read in the window: texts of labels, buttons
     (and whether they are pressed), fields, lists, readouts, meters, tooltips,
     the window title and the status bar."""
-    from gui.livepanel import BarMeter, Readout
+    from solderless.gui.livepanel import BarMeter, Readout
     out = {"window title": w.windowTitle(), "status bar": w.statusBar().currentMessage()}
     for i, wd in enumerate(w.findChildren(__import__("PyQt6.QtWidgets", fromlist=["x"]).QWidget)):
         if wd.isHidden():                # hidden on purpose (another tab still counts)
@@ -349,8 +349,8 @@ class StandInPort:
 
 def test_midi_knob_learn_turns_a_pot_through_its_taper_and_is_saved(win, qtbot, tmp_path):
     pytest.importorskip("mido")
-    from engine.design import taper_fraction
-    from gui.midi import knob_map
+    from solderless.engine.design import taper_fraction
+    from solderless.gui.midi import knob_map
     port = StandInPort()
     assert win.connect_midi(port)
     win.wb.set_taper("level.VOL", "audio")
@@ -385,8 +385,8 @@ def test_midi_knob_learn_turns_a_pot_through_its_taper_and_is_saved(win, qtbot, 
 
 
 def test_missing_midi_system_is_a_message_not_a_crash(win, monkeypatch):
-    import gui.window as gw
-    from gui.midi import MidiUnavailable
+    import solderless.gui.window as gw
+    from solderless.gui.midi import MidiUnavailable
 
     def no_midi(*_a, **_k):
         raise MidiUnavailable("no MIDI system is available (test)")
@@ -395,7 +395,7 @@ def test_missing_midi_system_is_a_message_not_a_crash(win, monkeypatch):
     assert win.live.midi_lab.text() == "MIDI unavailable"
     assert any("MIDI knobs: no MIDI system" in t for t in win.notices.texts())
     # and the real backend on a machine without a MIDI system says why, too
-    from gui import midi
+    from solderless.gui import midi
     try:
         midi.open_input()
     except MidiUnavailable as exc:
@@ -494,12 +494,12 @@ def test_journey_designer_tunes_the_builtin_compressor(qtbot, tmp_path):
 
 
 def _same_design(a, b) -> list:
-    from gui.model import differences
+    from solderless.gui.model import differences
     return differences(a, b)
 
 
 def test_journey_player_voices_overdrive_and_booster_for_a_builder(qtbot, tmp_path):
-    from engine.design import Design
+    from solderless.engine.design import Design
     can_swap = hasattr(Design, "set_model")
     w = _window(qtbot, tmp_path, "overdrive", source="tone:1000:0.1")
     try:

@@ -16,12 +16,12 @@ import numpy as np
 import pytest
 from PyQt6.QtCore import Qt
 
-pytest.importorskip("engine.solver.simulator")
+pytest.importorskip("solderless.engine.solver.simulator")
 
-from engine.design import load_design
-from gui.app import make_window, screenshot
-from gui.model import Autosave, Difference, differences
-from gui.snapshots import BlindTrial
+from solderless.engine.design import load_design
+from solderless.gui.app import make_window, screenshot
+from solderless.gui.model import Autosave, Difference, differences
+from solderless.gui.snapshots import BlindTrial
 
 HERE = Path(__file__).resolve().parent
 DIVIDER = HERE / "gui_divider.toml"
@@ -205,7 +205,7 @@ def test_blind_trial_probability():
 
 
 def test_blind_trial_needs_listening_and_logs_every_round():
-    from gui.snapshots import TrialError
+    from solderless.gui.snapshots import TrialError
     clock = _Clock()
     t = BlindTrial(4, seed=3, min_listen_s=2.0, clock=clock)
     # no answer before X has been heard for the minimum time, in one or more goes
@@ -312,7 +312,7 @@ def test_structural_edits_save_and_undo(win, tmp_path):
     assert wb.design.links == []
     # a stage from the library lands after the selected one
     win.chain.select("amp")
-    lib = sorted(__import__("engine.design", fromlist=["x"]).stage_library())
+    lib = sorted(__import__("solderless.engine.design", fromlist=["x"]).stage_library())
     win.add_stage(lib[0])
     assert len(wb.design.stages) == 3 and wb.design.stages[1].template == lib[0]
 
@@ -327,7 +327,7 @@ def test_screenshots_of_main_views(win, artifacts):
 
 
 def test_flagship_screenshot(qtbot, tmp_path, artifacts):
-    if "flagship" not in __import__("engine.design", fromlist=["x"]).builtin_designs():
+    if "flagship" not in __import__("solderless.engine.design", fromlist=["x"]).builtin_designs():
         pytest.skip("no flagship design")
     w = make_window("flagship", config=tmp_path / "cfg", recover="no", seconds=2.0)
     qtbot.addWidget(w)
@@ -342,8 +342,8 @@ def test_flagship_screenshot(qtbot, tmp_path, artifacts):
 
 
 def test_header_names_files_without_machine_paths(tmp_path):
-    from gui.window import design_location
-    from engine.design import builtin_designs
+    from solderless.gui.window import design_location
+    from solderless.engine.design import builtin_designs
     assert design_location(builtin_designs()["octave-up"]) == "built-in design: octave-up"
     assert design_location(None) == "(not saved)"
     mine = Path.home() / "solderless-header-check.toml"

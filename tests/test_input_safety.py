@@ -28,9 +28,9 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-from engine import limits
-from engine.errors import DesignError, SolderlessError
-from engine.fileio import FileError, atomic_write, decode_text, read_text
+from solderless.engine import limits
+from solderless.engine.errors import DesignError, SolderlessError
+from solderless.engine.fileio import FileError, atomic_write, decode_text, read_text
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLES = int(os.environ.get("SOLDERLESS_FUZZ_EXAMPLES", "8"))
@@ -50,7 +50,7 @@ def _caps():
 
 def run_cli(*args, cwd=None) -> subprocess.CompletedProcess:
     env = dict(os.environ, PYTHONPATH=str(ROOT), PYTHONWARNINGS="ignore")
-    return subprocess.run([sys.executable, "-m", "engine.cli", *map(str, args)],
+    return subprocess.run([sys.executable, "-m", "solderless.app.cli", *map(str, args)],
                           cwd=cwd, env=env, preexec_fn=_caps, capture_output=True,
                           text=True, timeout=WALL_S)
 
@@ -395,8 +395,8 @@ def test_writer_writes_through_symlinks_and_refuses_its_input(tmp_path):
 
 
 def test_design_save_keeps_link_and_mode(tmp_path):
-    from engine.design import load_design
-    src = ROOT / "presets" / "designs" / "flagship.toml"
+    from solderless.engine.design import load_design
+    src = ROOT / "solderless" / "presets" / "designs" / "flagship.toml"
     real = tmp_path / "mine.toml"
     real.write_text(src.read_text())
     real.chmod(0o640)
@@ -415,7 +415,7 @@ def test_design_save_keeps_link_and_mode(tmp_path):
 @pytest.mark.parametrize("enc", ["utf-8", "utf-8-sig", "utf-16", "utf-16-le",
                                  "utf-16-be", "utf-32", "latin-1"])
 def test_netlist_encodings_read_the_same_circuit(tmp_path, enc):
-    from engine.formats.spice import load_netlist
+    from solderless.engine.formats.spice import load_netlist
     text = RC.replace("rc test", "rc test \u00b5 \u00e9")     # µ and é in the title
     data = text.encode(enc)
     if enc in ("utf-16-le", "utf-16-be"):
@@ -443,8 +443,8 @@ def test_errors_cut_long_echoes():
 # ------------------------------------------------ physically absurd values
 
 def test_values_outside_real_parts_are_named(tmp_path):
-    from engine.design import load_design
-    from engine.sanity import check_values
+    from solderless.engine.design import load_design
+    from solderless.engine.sanity import check_values
     p = tmp_path / "absurd.cir"
     p.write_text("absurd\nVIN in 0 DC 0\nR1 in out 1k\nD1 out 0 DX\nC1 out 0 1e300\n"
                  ".model DX D(IS=1e-14 N=1e-6)\n.end\n")
@@ -457,8 +457,8 @@ def test_values_outside_real_parts_are_named(tmp_path):
 
 
 def test_builtin_designs_have_no_out_of_range_values():
-    from engine.design import builtin_designs, load_design
-    from engine.sanity import check_values
+    from solderless.engine.design import builtin_designs, load_design
+    from solderless.engine.sanity import check_values
     for name in builtin_designs():
         assert check_values(load_design(name).flatten()) == [], name
 
@@ -478,7 +478,7 @@ def test_floating_net_warning_is_shown(tmp_path):
 
 
 def test_element_limit_refuses_before_allocating(tmp_path):
-    from engine.formats.spice import parse_netlist
+    from solderless.engine.formats.spice import parse_netlist
     n = limits.MAX_ELEMENTS + 5
     text = "big\nVIN n0 0 0\n" + "".join(f"R{k} n{k} n{k + 1} 1k\n" for k in range(n))
     with pytest.raises(DesignError, match="more than 2000 elements"):
@@ -488,7 +488,7 @@ def test_element_limit_refuses_before_allocating(tmp_path):
 def test_design_part_lines_found_in_inline_tables(tmp_path):
     """The line index finds each part's own line, also for parts written as
     inline tables (the case that rescanned the file per part)."""
-    from engine.design import _line_finder
+    from solderless.engine.design import _line_finder
     text = ('[[stage]]\nname = "a"\npart = [\n  { name = "R1", type = "resistor" },\n]\n'
             '[[stage]]\nname = "b"\n[[stage.part]]\nname = "R1"\n')
     find = _line_finder(text)
@@ -497,7 +497,7 @@ def test_design_part_lines_found_in_inline_tables(tmp_path):
 
 
 def test_console_survives_a_failing_save_and_still_quits(tmp_path):
-    from engine.live.console import Console
+    from solderless.app.console import Console
 
     class Host:
         def save(self, path=None):
@@ -511,10 +511,10 @@ def test_console_survives_a_failing_save_and_still_quits(tmp_path):
 
 
 def test_console_save_without_path_never_replaces_a_file_here(tmp_path, monkeypatch):
-    from engine.live.host import LiveHost
+    from solderless.engine.live.host import LiveHost
     monkeypatch.chdir(tmp_path)
     (tmp_path / "flagship.toml").write_text("mine\n")
-    from engine.design import load_design
+    from solderless.engine.design import load_design
     h = LiveHost(load_design("flagship"), autosave=False)
     try:
         with pytest.raises(SolderlessError, match="left untouched"):
@@ -530,10 +530,10 @@ def test_hints_name_only_commands_that_exist():
     """Every `solderless WORD` written in the engine's and workbench's
     messages names a real subcommand."""
     import re
-    from engine.cli import build_parser
+    from solderless.app.cli import build_parser
     sub = next(a for a in build_parser()._actions if a.__class__.__name__ == "_SubParsersAction")
     named = set()
-    for f in list((ROOT / "engine").rglob("*.py")) + list((ROOT / "gui").rglob("*.py")):
+    for f in list((ROOT / "solderless").rglob("*.py")):
         named |= {(m, f.name) for m in re.findall(r"[`'\"]solderless ([a-z][a-z-]*)",
                                                     f.read_text())}
     missing = sorted((w, f) for w, f in named if w not in sub.choices)
@@ -561,8 +561,8 @@ def test_play_refuses_bad_values_before_opening_audio(tmp_path, option, value):
 def test_fast_card_split_matches_the_character_scan(text):
     """The regular-expression split used for plain cards gives the same
     tokens as the character-by-character scan (the reader's own reference)."""
-    from engine.circuit import Where
-    from engine.formats.spice import _tokenize, _tokenize_chars
+    from solderless.engine.circuit import Where
+    from solderless.engine.formats.spice import _tokenize, _tokenize_chars
     if "-(" in text:
         return
     assert _tokenize(text, Where()) == _tokenize_chars(text, Where())

@@ -19,8 +19,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from engine.cli import main
-from engine.design import load_design
+from solderless.app.cli import main
+from solderless.engine.design import load_design
 
 ROOT = Path(__file__).resolve().parent.parent
 pytestmark = pytest.mark.audio
@@ -49,7 +49,7 @@ def _play(env, args, script, timeout=600):
     """Run ``solderless play ARGS`` with ``script`` on its stdin; returns
     (stdout, stderr). The script ends with 'quit' (``--seconds`` only
     bounds a session whose console stopped answering)."""
-    r = subprocess.run([sys.executable, "-m", "engine.cli", "play", *args, "--json",
+    r = subprocess.run([sys.executable, "-m", "solderless.app.cli", "play", *args, "--json",
                         "--seconds", "300"],
                        input="\n".join(script + ["quit"]) + "\n", cwd=ROOT, env=env,
                        capture_output=True, text=True, timeout=timeout)
@@ -174,8 +174,8 @@ def test_player_swaps_models_ab_matches_and_saves_both(null_env, tmp_path):
         assert again.read_text() == p.read_text()
     # the diode swap is heard: germanium diodes clip at a lower level, so the
     # clipper's output over the same phrase is lower (offline, same input)
-    from engine.synth import render_phrase
-    from engine.demo import simulate
+    from solderless.engine.synth import render_phrase
+    from solderless.app.demo import simulate
     x = render_phrase("demo", fs=48000.0)[:48000]
     y0, pr0, _ = simulate(load_design("overdrive"), x, probes=("v(clip.out, vref)",))
     y1, pr1, _ = simulate(a, x, probes=("v(clip.out, vref)",))

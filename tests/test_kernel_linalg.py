@@ -1,6 +1,6 @@
 """The kernel's dense linear algebra against numpy's LAPACK-backed solver.
 
-The per-sample kernel (engine/solver/kernel.py) inverts the port Jacobian
+The per-sample kernel (solderless/engine/solver/kernel.py) inverts the port Jacobian
 J = I - K G by Gauss-Jordan elimination with partial pivoting
 (factor_jacobian), or updates the last inverse by the Sherman-Morrison-
 Woodbury formula when a few devices' blocks of G changed (update_jacobian).
@@ -11,7 +11,7 @@ blocks.
 import numpy as np
 import pytest
 
-from engine.solver import kernel as K
+from solderless.engine.solver import kernel as K
 
 
 def _system(n_ports, seed):

@@ -14,8 +14,8 @@ import numpy as np
 import pytest
 
 import spice_ref as S
-from engine.solver import Simulator
-from engine.solver import kernel as K
+from solderless.engine.solver import Simulator
+from solderless.engine.solver import kernel as K
 
 FS = 48000.0
 TWO_PORT = ["diode_clipper", "npn_ce", "pnp_ce", "njfet_cs", "njfet_follower"]

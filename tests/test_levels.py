@@ -13,8 +13,8 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from engine import levels
-from engine.cli import main
+from solderless.engine import levels
+from solderless.app.cli import main
 
 ROOT = Path(__file__).resolve().parent.parent
 # +3 dBu sine: 0.775 V RMS * 10^(3/20), times sqrt(2) for the peak (dBu
@@ -26,8 +26,8 @@ WIRE = "a wire\nVIN src 0 0\nR1 src out 1\nRL out 0 1meg\n.end\n"
 
 def test_the_calibration_is_one_constant():
     assert levels.FULL_SCALE_V == pytest.approx(PLUS3_DBU_PEAK, rel=1e-12)
-    from engine import demo
-    from engine.live import host
+    from solderless.app import demo
+    from solderless.engine.live import host
     assert demo.WAV_FULL_SCALE_V == levels.FULL_SCALE_V
     assert host.full_scale_peak_from_dbu(host.DEFAULT_FULL_SCALE_DBU) == \
         pytest.approx(levels.FULL_SCALE_V, rel=1e-9)
@@ -35,7 +35,7 @@ def test_the_calibration_is_one_constant():
 
 
 def test_source_and_render_agree_on_volts_at_the_jack(tmp_path, capsys):
-    from engine.synth import render_phrase
+    from solderless.engine.synth import render_phrase
     di = tmp_path / "di.wav"
     assert main(["source", "--out", str(di), "--phrase", "demo"]) == 0
     assert "1.548 V peak" in capsys.readouterr().out
@@ -77,7 +77,7 @@ def test_play_reads_the_file_at_the_same_volts(tmp_path):
              subtype="FLOAT")
     cir = tmp_path / "wire.cir"
     cir.write_text(WIRE)
-    r = subprocess.run([sys.executable, "-m", "engine.cli", "play", str(cir), "--source",
+    r = subprocess.run([sys.executable, "-m", "solderless.app.cli", "play", str(cir), "--source",
                         str(wav), "--seconds", "1.5", "--json", "--no-console"], cwd=ROOT,
                        env=env, capture_output=True, text=True, timeout=600)
     assert r.returncode == 0, r.stderr[-2000:]

@@ -11,13 +11,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from engine.errors import AudioError, SolderlessError
-from engine.live import host as H
-from engine.live import limiter as lim
-from engine.live.console import Console
-from engine.live.loudness import integrated_loudness
-from engine.live.source import ToneSource, parse_source
-from engine.live.standin import StandInDesign, StandInSimulator
+from solderless.engine.errors import AudioError, SolderlessError
+from solderless.engine.live import host as H
+from solderless.engine.live import limiter as lim
+from solderless.app.console import Console
+from solderless.engine.live.loudness import integrated_loudness
+from solderless.engine.live.source import ToneSource, parse_source
+from standin import StandInDesign, StandInSimulator
 
 FS = 48000.0
 ROOT = Path(__file__).resolve().parent.parent
@@ -296,13 +296,13 @@ def test_missing_portaudio_gives_the_install_line(tmp_path):
     (tmp_path / "sounddevice.py").write_text(
         "raise OSError('PortAudio library not found')\n")
     env = dict(os.environ, PYTHONPATH=f"{tmp_path}{os.pathsep}{ROOT}")
-    r = subprocess.run([sys.executable, "-m", "engine.cli", "play", "flagship",
+    r = subprocess.run([sys.executable, "-m", "solderless.app.cli", "play", "flagship",
                         "--seconds", "1"], cwd=ROOT, env=env, capture_output=True,
                        text=True, timeout=120)
     assert r.returncode == 2
     assert "apt-get install libportaudio2" in r.stderr
     assert "Traceback" not in r.stderr
-    r = subprocess.run([sys.executable, "-m", "engine.cli", "designs"], cwd=ROOT,
+    r = subprocess.run([sys.executable, "-m", "solderless.app.cli", "designs"], cwd=ROOT,
                        env=env, capture_output=True, text=True, timeout=120)
     assert r.returncode == 0 and "flagship" in r.stdout
 
@@ -335,7 +335,7 @@ def test_set_source_while_running():
 
 # ------------------------------------------------------------ real designs
 def _real(name, **kw):
-    from engine.design import load_design
+    from solderless.engine.design import load_design
     kw.setdefault("autosave", False)
     return H.LiveHost(load_design(name), **kw)
 
@@ -356,7 +356,7 @@ def test_gain_reduction_from_control_agrees_with_the_measured_one():
 def test_real_ab_pair_is_loudness_matched():
     # Baseline compressor against a much louder booster: with matching, what
     # is heard from A and from B has the same BS.1770-4 integrated loudness.
-    from engine.design import load_design
+    from solderless.engine.design import load_design
     # 50 mV peak: a single note (docs/references.md, common practice); at 200 mV the
     # re-voiced compressor sits more than MAX_MATCH_DB below the booster and
     # the match is (deliberately) capped

@@ -5,8 +5,8 @@ import time
 import numpy as np
 import pytest
 
-from engine.errors import DesignError, SolderlessError
-from engine.live.remote import HostProcess
+from solderless.engine.errors import DesignError, SolderlessError
+from solderless.engine.live.remote import HostProcess
 
 pytestmark = pytest.mark.audio
 

@@ -7,7 +7,7 @@ circuit are refused; the guard re-arms once the circuit is sane.
 The expectations are the safety rules themselves (README "Cautions" and
 DEVELOPERS.md "Output safety": limiter ceiling, a guard that mutes on
 invalid or runaway output, start ramp; common practice) and the ranges of
-:mod:`engine.live.limits` (common practice for audio interfaces); nothing
+:mod:`solderless.engine.live.limits` (common practice for audio interfaces); nothing
 here is a reference value from another program.
 """
 import math
@@ -17,14 +17,14 @@ import pytest
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
-from engine.errors import AudioError, SolderlessError
-from engine.live import host as H
-from engine.live import limiter as lim
-from engine.live import limits as L
-from engine.live import meters as M
-from engine.live.console import Console, meter_line
-from engine.live.source import ToneSource
-from engine.live.standin import StandInDesign, StandInSimulator
+from solderless.engine.errors import AudioError, SolderlessError
+from solderless.engine.live import host as H
+from solderless.engine.live import limiter as lim
+from solderless.engine.live import limits as L
+from solderless.engine.live import meters as M
+from solderless.app.console import Console, meter_line
+from solderless.engine.live.source import ToneSource
+from standin import StandInDesign, StandInSimulator
 
 FS = 48000.0
 BLOCK = 64
@@ -225,7 +225,7 @@ def test_meters_show_nan_and_inf_never_silence(bad, where):
     pk, ms = M.peak_ms(x, BLOCK)
     assert not (math.isfinite(pk) and math.isfinite(ms))
     assert M.to_db(pk) != M.FLOOR_DB and M.to_db(ms) != M.FLOOR_DB
-    from engine.live.ring import FrameRing
+    from solderless.engine.live.ring import FrameRing
     ring = FrameRing(64, M.C_PROBES)
     r = M.MeterReader(ring, FS, BLOCK, 1.0, 1.0)
     row = ring.next_row()
@@ -254,7 +254,7 @@ def test_a_wav_of_inf_samples_plays_on_and_the_meters_stay_honest(tmp_path):
     x[400] = -np.inf
     path = tmp_path / "bad.wav"
     soundfile.write(path, x, int(FS), subtype="FLOAT")
-    from engine.live.source import WavLoop
+    from solderless.engine.live.source import WavLoop
     d, e = StandInDesign(), StandInDesign("b")
     e.set_value("drive.GAIN", 2.0)
     h = Recording(d, variant=e, simulator_factory=StandInSimulator, autosave=False,
@@ -309,7 +309,7 @@ def test_an_edit_making_the_circuit_singular_is_refused_and_the_old_value_plays(
     # The booster's input capacitor stepped up through E12 until the network
     # matrix is singular: refused with the part named; the previous value is
     # kept in the design and keeps playing.
-    from engine.design import load_design
+    from solderless.engine.design import load_design
     h = Recording(load_design("booster"), autosave=False, block=BLOCK,
                   source=ToneSource(440.0, 0.1), record_blocks=2000)
     try:
@@ -373,11 +373,11 @@ def test_guard_re_arms_after_a_runaway_edit_is_undone():
 STORM = r"""
 import json, sys, time, warnings
 import numpy as np
-from engine.design import load_design
-from engine.errors import SolderlessError
-from engine.live.host import LiveHost
-from engine.live.console import Console
-from engine.live.source import ToneSource
+from solderless.engine.design import load_design
+from solderless.engine.errors import SolderlessError
+from solderless.engine.live.host import LiveHost
+from solderless.app.console import Console
+from solderless.engine.live.source import ToneSource
 
 h = LiveHost(load_design("booster"), source=ToneSource(440.0, 0.1), block=128,
              autosave=sys.argv[1])
@@ -488,7 +488,7 @@ def test_runaway_readings_raise_no_warning(cur):
     # A runaway control current (a 1 MV supply) read by the meters: readings
     # become inf/NaN quietly; no numpy RuntimeWarning reaches stderr.
     import warnings
-    from engine.live.ring import FrameRing
+    from solderless.engine.live.ring import FrameRing
     ring = FrameRing(64, M.C_PROBES + 1)
     r = M.MeterReader(ring, FS, BLOCK, 1.0, 1.0, ["iabc(x)"])
     r.control_a = (0, 20e-6)

@@ -7,7 +7,7 @@ one-line error with exit status 2, never a traceback.
 
 Expectations: the safety rules in README "Cautions" and DEVELOPERS.md
 "Output safety" (limiter ceiling, guard; common practice) and the ranges of
-engine/live/limits.py (common practice).
+solderless/engine/live/limits.py (common practice).
 """
 import json
 import math
@@ -20,7 +20,7 @@ import pytest
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
-from engine.live import limits as L
+from solderless.engine.live import limits as L
 
 ROOT = Path(__file__).resolve().parent.parent
 pytestmark = pytest.mark.audio
@@ -35,7 +35,7 @@ ASOUNDRC = """pcm.!default {
 RUNNER = r"""
 import json, os, sys
 import numpy as np
-from engine.live import host as H
+from solderless.engine.live import host as H
 rec = {"samples": 0, "nonfinite": 0, "peak": 0.0}
 orig = H.LiveHost._audio_block
 def recorded(self, indata, outdata, n, xrun):
@@ -47,7 +47,7 @@ def recorded(self, indata, outdata, n, xrun):
     if ok.any():
         rec["peak"] = max(rec["peak"], float(np.max(np.abs(a[ok]))))
 H.LiveHost._audio_block = recorded
-from engine.cli import main
+from solderless.app.cli import main
 try:
     rc = main(sys.argv[1:])
 finally:

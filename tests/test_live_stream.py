@@ -45,10 +45,10 @@ def _run(env, code: str, timeout=600) -> dict:
 
 PRELUDE = """
 import json, time, numpy as np
-from engine.design import load_design
-from engine.live.host import LiveHost
-from engine.live.source import ToneSource
-from engine.live.standin import StandInDesign, StandInSimulator
+from solderless.engine.design import load_design
+from solderless.engine.live.host import LiveHost
+from solderless.engine.live.source import ToneSource
+from standin import StandInDesign, StandInSimulator
 
 def wait_blocks(h, k, timeout=120):
     start = h.blocks; t = time.time()
@@ -146,7 +146,7 @@ print(json.dumps({"swept": swept, "still": still}))
 
 def test_cli_play_seconds_json(null_home):
     home, env = null_home
-    r = subprocess.run([sys.executable, "-m", "engine.cli", "play", "booster",
+    r = subprocess.run([sys.executable, "-m", "solderless.app.cli", "play", "booster",
                         "--source", "tone:1k:100m", "--seconds", "2", "--json",
                         "--block", "64"], cwd=ROOT, env=env, capture_output=True,
                        text=True, timeout=600)
@@ -158,7 +158,7 @@ def test_cli_play_seconds_json(null_home):
     assert s["input_full_scale_v_peak"] == pytest.approx(0.775 * 10 ** 0.15 * 2 ** 0.5)
     assert "hearing" in r.stderr                       # first-use caution
     assert (home / ".config" / "solderless" / "live.json").exists()
-    r2 = subprocess.run([sys.executable, "-m", "engine.cli", "play", "booster",
+    r2 = subprocess.run([sys.executable, "-m", "solderless.app.cli", "play", "booster",
                          "--source", "tone", "--seconds", "0.5"], cwd=ROOT, env=env,
                         capture_output=True, text=True, timeout=600)
     assert r2.returncode == 0 and "hearing" not in r2.stderr      # only once
@@ -167,7 +167,7 @@ def test_cli_play_seconds_json(null_home):
 
 def test_cli_missing_device_stops_cleanly(null_home):
     _, env = null_home
-    r = subprocess.run([sys.executable, "-m", "engine.cli", "play", "booster",
+    r = subprocess.run([sys.executable, "-m", "solderless.app.cli", "play", "booster",
                         "--source", "tone", "--seconds", "1",
                         "--output-device", "no-such-device-here"], cwd=ROOT, env=env,
                        capture_output=True, text=True, timeout=600)
@@ -178,7 +178,7 @@ def test_cli_missing_device_stops_cleanly(null_home):
 
 def test_devices_lists_what_portaudio_sees(null_home):
     _, env = null_home
-    r = subprocess.run([sys.executable, "-m", "engine.cli", "devices", "--json"], cwd=ROOT,
+    r = subprocess.run([sys.executable, "-m", "solderless.app.cli", "devices", "--json"], cwd=ROOT,
                        env=env, capture_output=True, text=True, timeout=120)
     assert r.returncode == 0, r.stderr
     devs = json.loads(r.stdout)
@@ -189,14 +189,14 @@ def test_cli_terminal_commands_edit_and_save(null_home, tmp_path):
     home, env = null_home
     target = tmp_path / "mine.toml"
     cmds = f"pick boost.C1\nup\npick output.VOLUME\nturn 0.5\nbypass boost\nsave {target}\n"
-    r = subprocess.run([sys.executable, "-m", "engine.cli", "play", "booster",
+    r = subprocess.run([sys.executable, "-m", "solderless.app.cli", "play", "booster",
                         "--source", "tone:1k:50m", "--seconds", "4", "--json"],
                        cwd=ROOT, env=env, input=cmds, capture_output=True, text=True,
                        timeout=600)
     assert r.returncode == 0, r.stderr[-2000:]
     assert "error" not in r.stderr.lower().replace('"error": null', "")
     assert f"saved {target}" in r.stderr
-    from engine.design import load_design
+    from solderless.engine.design import load_design
     d = load_design(target)
     parts = {p.qualname: p for p in d.parts()}
     # 100n stepped up once through E12 (IEC 60063) is 120n
@@ -222,7 +222,7 @@ def test_cli_live_input_duplex(null_home):
     # (a converter cannot deliver more), nothing non-finite reaches the meters;
     # a channel the device lacks is a user error.
     _, env = null_home
-    r = subprocess.run([sys.executable, "-m", "engine.cli", "play", "booster",
+    r = subprocess.run([sys.executable, "-m", "solderless.app.cli", "play", "booster",
                         "--source", "input", "--input-channel", "2", "--seconds", "1",
                         "--json"], cwd=ROOT, env=env, capture_output=True, text=True,
                        timeout=600)
@@ -232,7 +232,7 @@ def test_cli_live_input_duplex(null_home):
     assert 0.0 <= s["meters"]["input"]["peak_v"] <= s["input_full_scale_v_peak"]
     assert s["meters"]["output"]["peak_dbfs"] <= -6.0 + 1e-6
     assert s["latency"]["stream_in_s"] > 0
-    r = subprocess.run([sys.executable, "-m", "engine.cli", "play", "booster",
+    r = subprocess.run([sys.executable, "-m", "solderless.app.cli", "play", "booster",
                         "--source", "input", "--input-channel", "999", "--seconds", "1"],
                        cwd=ROOT, env=env, capture_output=True, text=True, timeout=600)
     assert r.returncode == 2 and "input channel 999 does not exist" in r.stderr

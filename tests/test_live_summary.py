@@ -45,7 +45,7 @@ def burst_wav(tmp_path):
 
 
 def _play(env, *args):
-    r = subprocess.run([sys.executable, "-m", "engine.cli", "play", *args],
+    r = subprocess.run([sys.executable, "-m", "solderless.app.cli", "play", *args],
                        cwd=ROOT, env=env, capture_output=True, text=True, timeout=600)
     assert r.returncode == 0, r.stderr[-3000:]
     return r.stdout

@@ -4,7 +4,7 @@ import pyloudnorm
 import pytest
 from scipy import signal
 
-from engine.live import loudness as L
+from solderless.engine.live import loudness as L
 
 FS = 48000.0
 

@@ -4,11 +4,11 @@ import math
 import numpy as np
 import pytest
 
-from engine.live import meters as M
-from engine.live.host import LiveHost
-from engine.live.ring import FrameRing
-from engine.live.source import ToneSource
-from engine.live.standin import StandInDesign, StandInSimulator
+from solderless.engine.live import meters as M
+from solderless.engine.live.host import LiveHost
+from solderless.engine.live.ring import FrameRing
+from solderless.engine.live.source import ToneSource
+from standin import StandInDesign, StandInSimulator
 
 FS = 48000.0
 
@@ -61,7 +61,7 @@ def _feed(reader, ring, peaks, ms=None):
 
 
 def test_peak_hold_then_fall_at_the_stated_rate():
-    # Ballistics as documented in engine.live.meters: hold 1 s, fall 20 dB/s.
+    # Ballistics as documented in solderless.engine.live.meters: hold 1 s, fall 20 dB/s.
     block = 480                       # 10 ms frames
     ring = FrameRing(4096, M.C_PROBES)
     r = M.MeterReader(ring, FS, block, 1.0, 1.0)

@@ -3,10 +3,10 @@ control; 0 dB at rest (the measured one read +2.8 dB at rest, and a booster
 showed 'GR +6.5 dB'); the console explains what each meter means."""
 import pytest
 
-from engine.design import load_design
-from engine.live import host as H
-from engine.live.console import Console
-from engine.live.source import ToneSource
+from solderless.engine.design import load_design
+from solderless.engine.live import host as H
+from solderless.app.console import Console
+from solderless.engine.live.source import ToneSource
 
 
 def _host(name, amp):

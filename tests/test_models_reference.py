@@ -17,10 +17,10 @@ import numpy as np
 import pytest
 
 import spice_ref as S
-from engine.circuit import Circuit, Element
-from engine.devices import REGISTRY
-from engine.formats.spice import parse_netlist
-from engine.solver.dcop import operating_point
+from solderless.engine.circuit import Circuit, Element
+from solderless.engine.devices import REGISTRY
+from solderless.engine.formats.spice import parse_netlist
+from solderless.engine.solver.dcop import operating_point
 
 TOL_V = 1e-3   # project requirement: 1 mV on every node
 
@@ -227,7 +227,7 @@ def test_ic_sets_the_render_start_as_ngspice(version):
     ``op`` itself ignores .ic, as ngspice's op does."""
     cards = S.load_netlist("schmitt_off").replace(" OFF", "")
     cards = cards.replace(".end", ".ic v(c2)=8.9 v(c1)=3\n.end")
-    from engine.solver import Simulator
+    from solderless.engine.solver import Simulator
     fs, dur = 48000.0, 0.01
     circ = parse_netlist(cards, file="ic", in_source="VIN").circuit
     circ.element("VIN").params.pop("wave", None)
@@ -246,8 +246,8 @@ def test_ic_sets_the_render_start_as_ngspice(version):
 def test_temperature_live_change_matches_a_fresh_circuit():
     """Changing the temperature while running lands at a block boundary and
     gives the same output as a simulator built at that temperature."""
-    from engine.solver import Simulator
-    from engine.solver.simulator import TEMPERATURE_KEY
+    from solderless.engine.solver import Simulator
+    from solderless.engine.solver.simulator import TEMPERATURE_KEY
     fs = 48000.0
     base = S.load_netlist("ge_stage")
     hot = parse_netlist(re.sub(r"^\.temp .*$", ".temp 60", base, flags=re.M),
@@ -269,9 +269,9 @@ def test_temperature_live_change_matches_a_fresh_circuit():
 
 def test_design_temperature_field(tmp_path):
     """``temperature`` in [design]: read, flattened, changed like a value."""
-    from engine.design import load_design
-    from engine.errors import DesignError
-    from engine.solver.simulator import TEMPERATURE_KEY
+    from solderless.engine.design import load_design
+    from solderless.engine.errors import DesignError
+    from solderless.engine.solver.simulator import TEMPERATURE_KEY
     src = tmp_path / "d.toml"
     src.write_text('[design]\nname = "t"\ntemperature = 40\n'
                    '[[stage]]\nname = "s"\nports = ["in", "out"]\n'
@@ -295,8 +295,8 @@ def test_live_host_changes_the_temperature_like_a_part_value():
     """The live edit path: ``set_value("temperature", t)`` on a playing
     host re-derives the devices; the operating point is then the one of
     the design saved at that temperature."""
-    from engine.design import load_design
-    from engine.live import host as H
+    from solderless.engine.design import load_design
+    from solderless.engine.live import host as H
     h = H.LiveHost(load_design("booster"), autosave=False, block=128)
     h.run_offline(4)
     h.set_value("temperature", 60.0).result(10)
@@ -305,7 +305,7 @@ def test_live_host_changes_the_temperature_like_a_part_value():
     assert sim.temperature == 60.0
     hot = load_design("booster")
     hot.temperature = 60.0
-    from engine.solver import Simulator
+    from solderless.engine.solver import Simulator
     ref = Simulator(hot.flatten(), 48000.0).operating_point().nets
     cold = Simulator(load_design("booster").flatten(), 48000.0).operating_point().nets
     ours = sim.operating_point().nets
@@ -318,7 +318,7 @@ def test_live_host_changes_the_temperature_like_a_part_value():
 def test_netlist_design_keeps_and_changes_its_temperature():
     """A whole netlist opened as a design keeps its ``.temp`` and can be
     changed like a part value."""
-    from engine.design import load_design
+    from solderless.engine.design import load_design
     d = load_design(str(S.NETLIST_DIR / "ge_stage.cir"))
     assert d.temperature == 45.0 and d.flatten().temperature == 45.0
     d.set_value("temperature", 10)

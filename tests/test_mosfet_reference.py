@@ -14,8 +14,8 @@ import pytest
 
 import spice_ref as S
 
-from engine.circuit import Circuit, Element as E
-from engine.solver import Simulator
+from solderless.engine.circuit import Circuit, Element as E
+from solderless.engine.solver import Simulator
 
 CASES = {
     "nmos": ("NMOS", 3.0, -1.0, -1.5, 5.0,

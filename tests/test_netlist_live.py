@@ -7,11 +7,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from engine.design import load_design
-from engine.live import host as H
-from engine.live.console import Console
-from engine.live.source import ToneSource
-from engine.solver import Simulator
+from solderless.engine.design import load_design
+from solderless.engine.live import host as H
+from solderless.app.console import Console
+from solderless.engine.live.source import ToneSource
+from solderless.engine.solver import Simulator
 
 FS = 48000.0
 

@@ -13,10 +13,10 @@ import pytest
 import soundfile as sf
 
 import spice_ref as S
-from engine.cli import main
-from engine.formats.spice import parse_netlist
-from engine.solver import Simulator
-from engine.solver.dcop import operating_point
+from solderless.app.cli import main
+from solderless.engine.formats.spice import parse_netlist
+from solderless.engine.solver import Simulator
+from solderless.engine.solver.dcop import operating_point
 
 FS = 48000.0
 
@@ -168,6 +168,6 @@ def test_probe_csv_rows_line_up_with_the_audio(tmp_path, capsys, keep):
     print(f"keep={keep}: delay {d:+.4f} samples, "
           f"largest difference {np.max(np.abs(p[seg] - y[seg])):.2e} V")
     assert abs(d) <= 0.02, f"probe rows off the audio by {d:.2f} samples"
-    # the round trip's passband ripple (+/-0.01 dB, engine/solver/oversample.py)
+    # the round trip's passband ripple (+/-0.01 dB, solderless/engine/solver/oversample.py)
     # on the 0.2 V output: 2.3e-4 V
     assert np.max(np.abs(p[seg] - y[seg])) < 5e-4

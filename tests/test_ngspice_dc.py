@@ -10,7 +10,7 @@ import pytest
 
 import spice_ref as S
 
-pytest.importorskip("engine.formats.spice")
+pytest.importorskip("solderless.engine.formats.spice")
 
 TOL_V = 1e-3
 

@@ -15,7 +15,7 @@ import pytest
 
 import spice_ref as S
 
-spice = pytest.importorskip("engine.formats.spice")
+spice = pytest.importorskip("solderless.engine.formats.spice")
 
 
 @pytest.fixture(scope="module")

@@ -18,7 +18,7 @@ import pytest
 
 import spice_ref as S
 
-pytest.importorskip("engine.formats.spice")
+pytest.importorskip("solderless.engine.formats.spice")
 
 FS = 48000.0
 DURATION = 0.02          # s: 20 periods of 1 kHz, the full PWL of rlc_ring

@@ -1,15 +1,15 @@
 """Operating-point regions and rating warnings (issue 16): one classifier
-(engine/analysis/regions.py) for op, the workbench and the demo; each device
+(solderless/engine/analysis/regions.py) for op, the workbench and the demo; each device
 kind by its own law; a warning for every rating exceeded and for a part
 within 0.5 V of saturation or cut-off where it should amplify."""
 import math
 
 import pytest
 
-from engine.analysis import regions as R
-from engine.design import load_design
-from engine.solver import Simulator
-from engine import demo
+from solderless.engine.analysis import regions as R
+from solderless.engine.design import load_design
+from solderless.engine.solver import Simulator
+from solderless.engine.analysis import measure
 
 FS = 48000.0
 VT = 0.025852   # thermal voltage at 300 K, kT/q (CODATA constants)
@@ -60,7 +60,7 @@ def test_a_diode_at_22_uA_forward_is_forward(tmp_path):
 
 def test_ota_control_current_over_its_rating_is_warned():
     # 9 V through RSET + RCTL = 200 ohm into the control pin: tens of mA,
-    # over ten times the ota-bipolar part's IABC_MAX of 2 mA (presets/parts.toml)
+    # over ten times the ota-bipolar part's IABC_MAX of 2 mA (solderless/presets/parts.toml)
     d = load_design("flagship")
     d.set_value("detector.RSET", 100.0)
     d.set_value("gain.RCTL", 100.0)
@@ -74,7 +74,7 @@ def test_ota_control_current_over_its_rating_is_warned():
 def test_op_demo_and_workbench_share_one_bjt_classifier():
     d = load_design("flagship")
     op = _op(d)
-    rows = demo.transistor_check(d, op)
+    rows = measure.transistor_check(d, op)
     assert rows
     for r in (r for r in rows if r["type"] in ("npn", "pnp")):
         rep = op.devices[r["part"]]["region"].split(" (")[0]

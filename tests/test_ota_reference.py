@@ -70,7 +70,7 @@ def test_ngspice_pair_follows_tanh_law(iabc, version):
 # Solderless' OTA element
 
 def _ota_circuit(iabc: float, **params):
-    from engine.circuit import Circuit, Element
+    from solderless.engine.circuit import Circuit, Element
     els = [
         Element("VP", "V", ("inp", "0"), 0.0),
         Element("VEE", "V", ("vee", "0"), VEE),

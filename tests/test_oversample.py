@@ -1,4 +1,4 @@
-"""Tests for engine.solver.oversample (polyphase up/down sampling).
+"""Tests for solderless.engine.solver.oversample (polyphase up/down sampling).
 
 Independent expectations used here:
 * scipy.signal.upfirdn: the textbook zero-stuff / filter / decimate operation,
@@ -16,8 +16,8 @@ import pytest
 from hypothesis import given, settings, strategies as st
 from scipy import signal
 
-from engine.errors import DesignError, SolderlessError
-from engine.solver.oversample import Resampler, filter_response
+from solderless.engine.errors import DesignError, SolderlessError
+from solderless.engine.solver.oversample import Resampler, filter_response
 
 FS = 48000.0
 FACTORS = (2, 4, 8)

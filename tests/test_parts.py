@@ -8,10 +8,10 @@ import subprocess
 import pytest
 from scipy import constants
 
-from engine.circuit import Circuit, Element
-from engine.errors import DesignError
-from engine.formats.spice import circuit_to_netlist
-from engine.parts import KINDS, Model, PartsLibrary, load_library
+from solderless.engine.circuit import Circuit, Element
+from solderless.engine.errors import DesignError
+from solderless.engine.formats.spice import circuit_to_netlist
+from solderless.engine.parts import KINDS, Model, PartsLibrary, load_library
 
 NGSPICE = shutil.which("ngspice")
 VT = constants.k * 300.15 / constants.e   # kT/q at TNOM 27 degC (docs/references.md)
@@ -51,11 +51,11 @@ def test_unknown_name_lists_close_matches(lib):
 
 def test_element_params_fit_device_modules(lib):
     # every model can build an element the device module accepts
-    devices = pytest.importorskip("engine.devices._common")
+    devices = pytest.importorskip("solderless.engine.devices._common")
     for name in lib.names():
         m = lib.get(name)
         p = m.element_params(supply=9.0)
-        from engine.devices import REGISTRY
+        from solderless.engine.devices import REGISTRY
         mod = REGISTRY[m.element_kind]
         el = Element(name, m.element_kind, ("a",) * 5, 0.0, p)
         devices.read_params(el, mod.DEFAULTS)   # raises on unknown names

@@ -4,8 +4,8 @@ is accepted; a probe left dangling by a stage change is warned about."""
 import numpy as np
 import soundfile as sf
 
-from engine.cli import main
-from engine.design import load_design
+from solderless.app.cli import main
+from solderless.engine.design import load_design
 
 
 def _wav(tmp_path, seconds=0.2):

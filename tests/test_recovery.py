@@ -1,5 +1,5 @@
 """Autosave and recovery (issue 17): one scheme for every front end
-(engine/autosave.py). An autosave stays on offer until the user decides;
+(solderless/engine/autosave.py). An autosave stays on offer until the user decides;
 a scripted run does not consume it; the workbench offers only its own
 autosaves, never the console's copies; a running session's files are not
 offered to another process; one config-folder function serves everyone.
@@ -12,7 +12,7 @@ from pathlib import Path
 
 import pytest
 
-from engine.autosave import Autosaves, config_dir
+from solderless.engine.autosave import Autosaves, config_dir
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
@@ -24,8 +24,8 @@ def _snapshot(folder: Path) -> dict:
 
 # ------------------------------------------------------------ the scheme itself
 def test_one_config_folder_for_every_front_end(monkeypatch, tmp_path):
-    from engine.live import host
-    from gui import model
+    from solderless.engine.live import host
+    from solderless.gui import model
     monkeypatch.delenv("SOLDERLESS_CONFIG_DIR", raising=False)
     monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path / "x"))
     assert config_dir() == tmp_path / "x" / "solderless"
@@ -70,7 +70,7 @@ def test_reading_an_autosave_changes_nothing_on_disk(tmp_path, design_file):
 def test_a_running_process_keeps_its_autosaves(tmp_path, design_file):
     # Another workbench process that still runs: its autosave is not a crash
     # and is not offered; once the process has ended it is.
-    code = ("import sys, time; from engine.autosave import Autosaves; "
+    code = ("import sys, time; from solderless.engine.autosave import Autosaves; "
             "a = Autosaves(sys.argv[1], 'workbench'); "
             "a.write('x = 1', key='k', name='d'); print('ready', flush=True); "
             "sys.stdin.readline()")
@@ -106,9 +106,9 @@ def test_discard_sets_aside_and_is_not_offered_again(tmp_path):
 
 
 def test_console_session_autosaves_as_console(tmp_path, monkeypatch):
-    from engine.live.host import LiveHost
-    from engine.live.source import ToneSource
-    from engine.live.standin import StandInDesign, StandInSimulator
+    from solderless.engine.live.host import LiveHost
+    from solderless.engine.live.source import ToneSource
+    from standin import StandInDesign, StandInSimulator
     monkeypatch.setenv("SOLDERLESS_CONFIG_DIR", str(tmp_path))
     h = LiveHost(StandInDesign(), simulator_factory=StandInSimulator,
                  source=ToneSource(1000.0, 0.1), block=64)
@@ -131,9 +131,9 @@ qt = pytest.importorskip("PyQt6")
 
 @pytest.fixture
 def make(qtbot):
-    pytest.importorskip("engine.solver.simulator")
-    from engine.design import load_design
-    from gui.app import make_window
+    pytest.importorskip("solderless.engine.solver.simulator")
+    from solderless.engine.design import load_design
+    from solderless.gui.app import make_window
     made = []
 
     def mk(design_file, cfg, recover):
@@ -179,7 +179,7 @@ def test_ignoring_the_offer_keeps_it(make, tmp_path, design_file):
 
 
 def test_a_scripted_run_does_not_consume_autosaves(make, tmp_path, design_file):
-    # gui.app passes recover="no" for --screenshot; the autosave folder,
+    # solderless.gui.app passes recover="no" for --screenshot; the autosave folder,
     # including another front end's file and a damaged one, stays as it was
     cfg = tmp_path / "cfg"
     w = make(design_file, cfg, "no")
@@ -192,7 +192,7 @@ def test_a_scripted_run_does_not_consume_autosaves(make, tmp_path, design_file):
     w2 = make(design_file, cfg, "no")
     w2.close()
     assert _snapshot(cfg / "autosave") == before
-    import gui.app as app
+    import solderless.gui.app as app
     src = Path(app.__file__).read_text()
     assert 'recover="no" if args.screenshot' in src
 

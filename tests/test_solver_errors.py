@@ -4,9 +4,9 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-from engine.circuit import Circuit, Element as E, Where
-from engine.errors import DesignError, SolderlessError
-from engine.solver import Simulator, ac_response
+from solderless.engine.circuit import Circuit, Element as E, Where
+from solderless.engine.errors import DesignError, SolderlessError
+from solderless.engine.solver import Simulator, ac_response
 
 
 def _c(*els, **kw):

@@ -8,9 +8,9 @@ import numpy as np
 import pytest
 from scipy import constants, signal
 
-from engine.circuit import Circuit, Element as E
-from engine.devices import VT
-from engine.solver import Simulator, ac_response
+from solderless.engine.circuit import Circuit, Element as E
+from solderless.engine.devices import VT
+from solderless.engine.solver import Simulator, ac_response
 
 FS = 48000.0
 

@@ -6,9 +6,9 @@ import tracemalloc
 import numpy as np
 import pytest
 
-from engine.circuit import Circuit, Element as E
-from engine.errors import DesignError, SolderlessError
-from engine.solver import Simulator
+from solderless.engine.circuit import Circuit, Element as E
+from solderless.engine.errors import DesignError, SolderlessError
+from solderless.engine.solver import Simulator
 
 FS = 48000.0
 NPN = {"TYPE": "NPN", "IS": 1e-14, "BF": 200.0}

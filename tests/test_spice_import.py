@@ -10,12 +10,12 @@ import subprocess
 
 import pytest
 
-from engine.circuit import Circuit, Element
-from engine.errors import DesignError, SolderlessError
-from engine.formats.spice import (circuit_to_netlist, evaluate_expression,
+from solderless.engine.circuit import Circuit, Element
+from solderless.engine.errors import DesignError, SolderlessError
+from solderless.engine.formats.spice import (circuit_to_netlist, evaluate_expression,
                                   load_netlist, netlist_subckt_as_stage,
                                   parse_netlist)
-from engine.parts import load_library
+from solderless.engine.parts import load_library
 
 NGSPICE = shutil.which("ngspice")
 
@@ -384,7 +384,7 @@ def test_linear_poly_sources_become_sums_of_plain_ones():
     # one coefficient of a one-dimensional POLY is p1 (SPICE2 user's guide,
     # from memory)
     assert (els["H1.P1"].value, els["H1.P1"].params["CONTROL"]) == (2e3, "VS")
-    from engine.solver import Simulator
+    from solderless.engine.solver import Simulator
     nl.circuit.output = ("m", "0")
     op = Simulator(nl.circuit, 48000.0).operating_point()
     assert op.nets["m"] == pytest.approx(0.1 + 0.5 * 1 + 0.25 * 2, rel=1e-9)

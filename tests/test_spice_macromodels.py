@@ -1,14 +1,14 @@
 """OTA and op-amp macromodels written as SPICE subcircuits (issue 19).
 
 ``circuit_to_netlist`` writes an OTA or OPAMP element as an X instance of a
-subcircuit built from the device's law (engine/formats/spice.py,
+subcircuit built from the device's law (solderless/engine/formats/spice.py,
 ``_macromodel_subckt``). Checks:
 
 * the OTA subcircuit, run by ngspice (tests/spice_ref.py), gives the
   emitter-coupled pair's transfer Iout = Iabc*tanh(Vd/(2VT)) (Gray, Hurst,
   Lewis & Meyer, Analysis and Design of Analog Integrated Circuits, 5th ed.,
   docs/references.md), faded by the soft output compliance as
-  engine/devices/ota.py states it;
+  solderless/engine/devices/ota.py states it;
 * the op-amp subcircuit, run by ngspice, has the single-pole open-loop
   response A0/(1 + j f A0/GBW) (the dominant-pole model, Gray et al., same
   book) and its output swing stops VHR from the rails;
@@ -30,10 +30,10 @@ import numpy as np
 import pytest
 
 import spice_ref as S
-from engine.circuit import Circuit, Element
-from engine.design import builtin_designs, load_design
-from engine.devices._common import VT
-from engine.formats.spice import circuit_to_netlist, parse_netlist
+from solderless.engine.circuit import Circuit, Element
+from solderless.engine.design import builtin_designs, load_design
+from solderless.engine.devices._common import VT
+from solderless.engine.formats.spice import circuit_to_netlist, parse_netlist
 
 pytestmark = pytest.mark.ngspice
 
@@ -135,7 +135,7 @@ def _compare(ours: dict, ref: dict) -> tuple[float, list[str]]:
 
 @pytest.mark.parametrize("name", sorted(builtin_designs()))
 def test_builtin_design_operating_point_matches_ngspice(name, version):
-    from engine.solver.dcop import operating_point
+    from solderless.engine.solver.dcop import operating_point
     circ = load_design(name).flatten()
     text = circuit_to_netlist(circ, title=name)
     ref = S.run_op(S.circuit_cards(text))
@@ -151,7 +151,7 @@ def test_ota_law_ignores_the_circuit_temperature_in_the_written_netlist(version)
     # laws (docs/references.md) and the OTA law does not (ota.py): the
     # written diode's EG = XTI = 0 and N at 60 degC keep it so, every net
     # within 1 mV of ours
-    from engine.solver.dcop import operating_point
+    from solderless.engine.solver.dcop import operating_point
     circ = load_design("flagship").flatten()
     circ.temperature = 60.0
     text = circuit_to_netlist(circ)
@@ -161,7 +161,7 @@ def test_ota_law_ignores_the_circuit_temperature_in_the_written_netlist(version)
 
 
 def test_flagship_small_sine_matches_ngspice_at_the_same_step(version):
-    from engine.solver import Simulator
+    from solderless.engine.solver import Simulator
     fs, dur, amp, f0 = 48000.0, 0.02, 0.05, 1000.0
     circ = load_design("flagship").flatten()
     src = circ.element(circ.input_source)
@@ -182,7 +182,7 @@ def test_flagship_small_sine_matches_ngspice_at_the_same_step(version):
 def test_written_netlist_reads_back_to_the_same_operating_point():
     # our reader flattens the subcircuits into a diode, B, G, R and C
     # elements: the same laws, so the same operating point (within 1 mV)
-    from engine.solver.dcop import operating_point
+    from solderless.engine.solver.dcop import operating_point
     circ = load_design("flagship").flatten()
     text = circuit_to_netlist(circ)
     back = parse_netlist(text, out_node=circ.output[0]).circuit

@@ -13,10 +13,10 @@ import numpy as np
 import pytest
 
 import spice_ref as S
-from engine.errors import DesignError
-from engine.formats.spice import parse_netlist
-from engine.solver import Simulator
-from engine.solver.dcop import operating_point
+from solderless.engine.errors import DesignError
+from solderless.engine.formats.spice import parse_netlist
+from solderless.engine.solver import Simulator
+from solderless.engine.solver.dcop import operating_point
 
 FS = 48000.0
 

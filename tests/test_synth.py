@@ -1,4 +1,4 @@
-"""Tests for engine.synth, the synthetic guitar source.
+"""Tests for solderless.engine.synth, the synthetic guitar source.
 
 Each check names its independent expectation beside it.
 """
@@ -11,10 +11,10 @@ import pytest
 import soundfile as sf
 from scipy import signal
 
-from engine.errors import SolderlessError
-from engine import synth
-from engine.synth import (PHRASES, PICKUPS, add_source_arguments, apply_pickup, cli_source,
-                          midi_to_hz, pickup_sos, pluck, render_notes, render_phrase,
+from solderless.engine.errors import SolderlessError
+from solderless.engine import synth
+from solderless.app.source import add_source_arguments, cli_source
+from solderless.engine.synth import (PHRASES, PICKUPS, apply_pickup, midi_to_hz, pickup_sos, pluck, render_notes, render_phrase,
                           string_fret_hz, write_wav)
 
 FS = 48000.0
@@ -254,8 +254,8 @@ def test_cli_source_writes_and_protects_existing(tmp_path, capsys):
                             "--pickup", "humbucker", "--fs", "44100")) == 0
     y, fs = sf.read(out)
     assert fs == 44100
-    # samples are volts over the one calibration (engine/levels.py)
-    from engine.levels import FULL_SCALE_V
+    # samples are volts over the one calibration (solderless/engine/levels.py)
+    from solderless.engine.levels import FULL_SCALE_V
     np.testing.assert_allclose(
         y, (render_phrase("mutes", 44100.0, "humbucker") / FULL_SCALE_V).astype(np.float32),
         atol=1e-7)

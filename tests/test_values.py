@@ -1,4 +1,4 @@
-"""Checks of engine.values against IEC 60062 (RKM marking), IEC 60063
+"""Checks of solderless.engine.values against IEC 60062 (RKM marking), IEC 60063
 (preferred numbers, tables quoted in docs/references.md) and the
 SPICE scale-factor rules (ngspice manual, "Numbers and scale factors")."""
 import math
@@ -6,8 +6,8 @@ import math
 import pytest
 from hypothesis import given, strategies as st
 
-from engine.errors import SolderlessError, ValueFormatError
-from engine.values import (E_SERIES, format_value, nearest_preferred,
+from solderless.engine.errors import SolderlessError, ValueFormatError
+from solderless.engine.values import (E_SERIES, format_value, nearest_preferred,
                            parse_tolerance, parse_value, preferred_deviation,
                            series_values, step_preferred)
 

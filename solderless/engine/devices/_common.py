@@ -1,0 +1,234 @@
+"""Shared pieces of the device models: thermal voltage, junction law, limiting.
+
+Everything numeric here is compiled with numba (``nogil=True, cache=True``)
+and is called per sample from the solver kernel.
+
+References
+----------
+- Junction law, reverse-bias approximation and GMIN across each junction as in
+  SPICE3/ngspice (dioload.c, bjtload.c).
+- Junction voltage limiting ``pnjlim``: L. W. Nagel, "SPICE2: A computer
+  program to simulate semiconductor circuits", ERL-M520, UC Berkeley, 1975.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from numba import njit
+
+from solderless.engine.errors import DesignError
+
+#: Nominal device temperature, K (27 degC, the SPICE default TNOM and
+#: circuit temperature).
+TNOM = 300.15
+#: 0 degC in kelvin.
+KELVIN = 273.15
+#: Boltzmann constant k, J/K, and elementary charge q, C: exact by definition
+#: in the SI since 2019 (BIPM, The International System of Units, 9th ed.,
+#: 2019), the values of scipy.constants.k and .e (CODATA 2018), written out
+#: so a start-up does not import scipy.constants (~70 ms).
+K_BOLTZMANN = 1.380649e-23
+Q_ELEMENTARY = 1.602176634e-19
+#: k/q, volts per kelvin.
+K_OVER_Q = K_BOLTZMANN / Q_ELEMENTARY
+#: Thermal voltage k*T/q at TNOM, volts.
+VT = K_BOLTZMANN * TNOM / Q_ELEMENTARY
+
+
+def circuit_temp(temp_c) -> float:
+    """Circuit temperature in kelvin from degrees Celsius (None: 27 degC)."""
+    return TNOM if temp_c is None else float(temp_c) + KELVIN
+
+
+def model_tnom(p: dict) -> float:
+    """A model card's TNOM (degrees Celsius in the card) in kelvin."""
+    return float(p.get("TNOM", TNOM - KELVIN)) + KELVIN
+#: Conductance SPICE places across every junction, siemens.
+GMIN = 1e-12
+#: Exponent beyond which exp() is continued linearly (keeps values finite).
+EXPLIM = 80.0
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def lexp(x):
+    """exp(x) continued linearly above EXPLIM; returns (value, derivative)."""
+    if x > EXPLIM:
+        e = math.exp(EXPLIM)
+        return e * (1.0 + x - EXPLIM), e
+    e = math.exp(x)
+    return e, e
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def junction(v, isat, vte, rvte):
+    """Shockley junction current and conductance as in ngspice (no GMIN).
+
+    Forward and mild reverse: I = IS*(exp(v/vte) - 1).  Below -3*vte the
+    reverse-bias approximation I = -IS*(1 + (3*vte/(v*e))**3) is used.
+    rvte = 1/vte, kept in the device's parameters: a multiplication costs a
+    fraction of a division, and the device laws run several per junction
+    at every Newton iteration.
+    """
+    if v >= -3.0 * vte:
+        e, de = lexp(v * rvte)
+        return isat * (e - 1.0), isat * de * rvte
+    rv = 1.0 / v
+    a = (3.0 / math.e) * vte * rv
+    a = a * a * a
+    return -isat * (1.0 + a), isat * 3.0 * a * rv
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def pnjlim(vnew, vold, vt, vcrit):
+    """SPICE2 junction voltage limiting (Nagel 1975), with ngspice's
+    reverse-step limit (DEVpnjlim in ngspice's src/spicelib/devices/devsup.c).
+
+    Above ``vcrit`` a Newton step larger than 2*vt is compressed
+    logarithmically.  A step into reverse bias goes no further than
+    -(vold + 1) V from a forward-biased junction, or 2*vold - 1 V from a
+    reverse-biased one: a junction that was conducting is not thrown volts
+    into cut-off by one linearised step (at a note's attack such steps
+    bounced between the two rectifier transistors of a detector for 8-30
+    iterations).  The fixed point (the answer) is unchanged.
+    """
+    if vnew > vcrit and abs(vnew - vold) > 2.0 * vt:
+        if vold > 0.0:
+            arg = 1.0 + (vnew - vold) / vt
+            if arg > 0.0:
+                return vold + vt * math.log(arg)
+            return vcrit
+        return vt * math.log(vnew / vt)
+    if vnew < 0.0:
+        floor = -vold - 1.0 if vold > 0.0 else 2.0 * vold - 1.0
+        if vnew < floor:
+            return floor
+    return vnew
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def limit_two_junctions(vn, vo, po, pol, vt1, vcrit1, vt2, vcrit2):
+    """pnjlim on both junctions of a three-terminal device whose ports are
+    (control, common) at ``po`` and (output, common) at ``po + 1``: junction 1
+    is control-common (Vbe, Vgs), junction 2 control-output (Vbc, Vgd).
+    ``pol`` is +1 for N-type, -1 for P-type. Updates vn in place."""
+    j1_n = pol * vn[po]
+    j1_o = pol * vo[po]
+    j2_n = j1_n - pol * vn[po + 1]
+    j2_o = j1_o - pol * vo[po + 1]
+    a = pnjlim(j1_n, j1_o, vt1, vcrit1)
+    b = pnjlim(j2_n, j2_o, vt2, vcrit2)
+    vn[po] = pol * a
+    vn[po + 1] = pol * (a - b)
+
+
+def vcrit(vte: float, isat: float) -> float:
+    """Critical voltage of a junction: vte*ln(vte/(sqrt(2)*IS)) (SPICE2)."""
+    return vte * math.log(vte / (math.sqrt(2.0) * isat))
+
+
+@dataclass
+class DeviceLayout:
+    """What a device contributes to the flat network.
+
+    ports : node pairs (pos, neg); the device senses v(pos)-v(neg) and draws
+        current from pos through itself into neg.
+    internal : internal node names created by the device.
+    stamps : linear stamps, tuples ("R", a, b, ohm) | ("C", a, b, F, method)
+        | ("G", p, n, cp, cn, siemens) with method "trap" or "be".
+    par : flat float64 parameter vector read by the compiled model.
+    probes : probe kind -> (port-current coefficients, port-voltage
+        coefficients), each a dict {port index: coefficient}.
+    quiet_step : a Newton step that moves none of the port voltages by this
+        much (volts) or more is left unchanged by the device's ``limit``, so
+        the kernel skips the call (0: always call).
+    """
+    code: int
+    ports: list[tuple[str, str]]
+    par: np.ndarray
+    internal: list[str] = field(default_factory=list)
+    stamps: list[tuple] = field(default_factory=list)
+    probes: dict[str, tuple[dict[int, float], dict[int, float]]] = field(default_factory=dict)
+    quiet_step: float = 0.0
+    #: standard model parameters given but not simulated: [(name, what it affects)]
+    ignored: list[tuple[str, str]] = field(default_factory=list)
+
+
+def read_params(el, defaults: dict[str, float], *, positive=(), nonneg=(),
+                allowed_extra=("TYPE", "MODEL", "LEVEL", "OFF"), ignored=None,
+                aliases=None, notes=None) -> dict[str, float]:
+    """Merge element params over defaults, validating names and values.
+
+    Unknown parameter names and out-of-range values raise DesignError naming
+    the part and where it was written.  ``ignored`` maps standard parameter
+    names the device does not simulate to what they affect; such a
+    parameter is accepted and appended to ``notes`` as (name, effect), so
+    the operating-point report can name it.  ``aliases`` maps other spellings
+    SPICE accepts to the name in ``defaults``.
+    """
+    out = dict(defaults)
+    where = el.where
+    f = getattr(where, "file", None) if where else None
+    ln = getattr(where, "line", None) if where else None
+    ignored = ignored or {}
+    aliases = aliases or {}
+    for key, val in (el.params or {}).items():
+        k = str(key).upper()
+        k = aliases.get(k, k)
+        if k in allowed_extra:
+            continue
+        if k not in defaults and k in ignored:
+            if notes is not None:
+                notes.append((k, ignored[k]))
+            continue
+        if k not in defaults:
+            raise DesignError(f"unknown model parameter {key!r} for a {el.kind} device",
+                              file=f, line=ln, part=el.name,
+                              hint="known: " + ", ".join(sorted(defaults)))
+        try:
+            v = float(val)
+        except (TypeError, ValueError):
+            raise DesignError(f"model parameter {k} must be a number, got {val!r}",
+                              file=f, line=ln, part=el.name) from None
+        if not math.isfinite(v) and not (math.isinf(v) and v > 0):
+            raise DesignError(f"model parameter {k} is not finite", file=f, line=ln,
+                              part=el.name)
+        out[k] = v
+    for k in positive:
+        if not out[k] > 0:
+            raise DesignError(f"model parameter {k} must be > 0, got {out[k]:g}",
+                              file=f, line=ln, part=el.name)
+    for k in nonneg:
+        if not out[k] >= 0:
+            raise DesignError(f"model parameter {k} must be >= 0, got {out[k]:g}",
+                              file=f, line=ln, part=el.name)
+    return out
+
+
+def polarity(el, names: tuple[str, str]) -> float:
+    """+1 for the first type name (NPN/NJF), -1 for the second (PNP/PJF)."""
+    t = str((el.params or {}).get("TYPE", names[0])).upper()
+    if t == names[0]:
+        return 1.0
+    if t == names[1]:
+        return -1.0
+    w = el.where
+    raise DesignError(f"TYPE must be {names[0]} or {names[1]}, got {t!r}",
+                      file=getattr(w, "file", None), line=getattr(w, "line", None),
+                      part=el.name)
+
+
+def ignored_note(el, notes: list[tuple[str, str]]) -> list[tuple[str, str]]:
+    """Group ignored parameters by what they affect: [(names, effect)]."""
+    by: dict[str, list[str]] = {}
+    for name, effect in notes:
+        by.setdefault(effect, [])
+        if name not in by[effect]:
+            by[effect].append(name)
+    return [(", ".join(v), k) for k, v in by.items()]
+
+
+def temp_factors(temp_k: float, tnom_k: float):
+    """(vt at temp, ln(T/TNOM), T/TNOM - 1) for the SPICE temperature laws."""
+    return K_BOLTZMANN * temp_k / Q_ELEMENTARY, math.log(temp_k / tnom_k), temp_k / tnom_k - 1.0

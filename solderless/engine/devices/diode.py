@@ -1,0 +1,144 @@
+"""Junction diode: Shockley law with SPICE ``.model D`` parameters.
+
+Port 0 = (anode', cathode); with RS > 0 an internal anode node is created and
+RS becomes a linear resistor.  Current law as in ngspice dioload.c: forward
+IS*(exp(v/(N*VT)) - 1), reverse-bias approximation below -3*N*VT, optional
+breakdown at BV (current IBV there, emission coefficient NBV, default N),
+GMIN across the junction.  Temperature (ngspice diotemp.c, default law):
+VT = kT/q at the circuit temperature, IS(T) = IS*exp((T/TNOM - 1)*EG/(N*VT)
++ XTI/N*ln(T/TNOM)).  Junction capacitance and transit time are not
+simulated: CJO, VJ, M, TT ... are accepted and named in the operating-point
+warnings.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+from solderless.engine.devices._common import (DeviceLayout, GMIN, circuit_temp, junction, lexp,
+                                    model_tnom, pnjlim, read_params, temp_factors, vcrit)
+
+KIND = "D"
+CODE = 1
+NPORTS = 1
+#: the layout takes the circuit temperature (degrees Celsius)
+TEMPERATURE = True
+#: simulated parameters and their defaults (ngspice manual, diode model table)
+DEFAULTS = {"IS": 1e-14, "N": 1.0, "RS": 0.0, "BV": math.inf, "IBV": 1e-3,
+            "NBV": math.nan, "EG": 1.11, "XTI": 3.0, "TNOM": 27.0}
+_CAP = "junction capacitance (high-frequency roll-off, clipping edges at high frequencies)"
+_TT = "transit time (diffusion capacitance, reverse recovery)"
+_TEMPCO = "temperature coefficient (drift away from TNOM)"
+#: standard parameters that are read but not simulated, and what they affect
+IGNORED = {
+    "CJO": _CAP, "VJ": _CAP, "M": _CAP, "FC": _CAP,
+    "CJP": "sidewall capacitance", "PHP": "sidewall capacitance",
+    "MJSW": "sidewall capacitance", "FCS": "sidewall capacitance",
+    "JSW": "sidewall saturation current", "NS": "sidewall saturation current",
+    "TT": _TT,
+    "IKF": "forward high-injection knee (current at large forward bias)",
+    "IKR": "reverse high-injection knee",
+    "ISR": "recombination current at low forward bias",
+    "NR": "recombination current at low forward bias",
+    "IBVL": "low-level breakdown current", "NBVL": "low-level breakdown current",
+    "KF": "flicker noise", "AF": "flicker noise",
+    "TLEV": "temperature law selection (the default law is simulated)",
+    "TLEVC": "temperature law of the capacitances",
+    "LM": "geometry scaling", "LP": "geometry scaling", "WM": "geometry scaling",
+    "WP": "geometry scaling", "XOM": "geometry scaling", "XOI": "geometry scaling",
+    "XM": "geometry scaling", "XP": "geometry scaling", "XW": "geometry scaling",
+    "AREA": "area scaling", "PJ": "perimeter scaling",
+    **{k: _TEMPCO for k in ("TCV", "TRS", "TRS1", "TRS2", "TM1", "TM2", "TTT1", "TTT2",
+                            "CTA", "CTP", "TPB", "TPHP", "TBV1", "TBV2", "TIKF")},
+    "BV_MAX": "rating only", "FV_MAX": "rating only", "ID_MAX": "rating only",
+    "PD_MAX": "rating only", "TE_MAX": "rating only", "MFG": "label only",
+    "IAVE": "rating only", "VPK": "rating only", "IPK": "rating only",
+}
+#: other spellings SPICE accepts
+ALIASES = {"CJ0": "CJO", "CJ": "CJO", "JS": "IS", "CJSW": "CJP"}
+#: every standard parameter of the model card (simulated or not)
+STANDARD = set(DEFAULTS) | set(IGNORED)
+# par: 0 IS(T), 1 vte, 2 vcrit, 3 xbv (inf: no breakdown), 4 1/vte, 5 NBV*vt,
+# 6 1/(NBV*vt)
+
+
+def breakdown_knee(bv: float, ibv: float, isat: float, vt: float, nbv: float) -> float:
+    """The junction voltage xbv where the breakdown exponential takes over, so
+    that the current at -BV is IBV (ngspice diotemp.c: its fixed-point
+    iteration, run to convergence)."""
+    cbv = ibv
+    if cbv < isat * bv / vt:
+        return bv
+    xbv = bv - nbv * vt * math.log(1.0 + cbv / isat)
+    for _ in range(50):
+        xbv = bv - nbv * vt * math.log(cbv / isat + 1.0 - xbv / vt)
+        xcbv = isat * (math.exp((bv - xbv) / (nbv * vt)) - 1.0 + xbv / vt)
+        if abs(xcbv - cbv) <= 1e-9 * cbv:
+            break
+    return xbv
+
+
+def layout(el, temp=None) -> DeviceLayout:
+    """Validate the element's model and describe its ports and stamps;
+    ``temp`` is the circuit temperature in degrees Celsius (None: 27)."""
+    notes: list = []
+    p = read_params(el, DEFAULTS, positive=("IS", "N", "IBV"), nonneg=("RS", "XTI"),
+                    ignored=IGNORED, aliases=ALIASES, notes=notes)
+    a, k = el.nodes
+    # temperature (ngspice diotemp.c, TLEV=0)
+    vt, ratlog, ratio1 = temp_factors(circuit_temp(temp), model_tnom(p))
+    vte = p["N"] * vt
+    isat = p["IS"] * math.exp(ratio1 * p["EG"] / vte + p["XTI"] / p["N"] * ratlog)
+    nbv = p["N"] if math.isnan(p["NBV"]) else p["NBV"]
+    xbv = math.inf
+    if math.isfinite(p["BV"]):
+        xbv = breakdown_knee(p["BV"], p["IBV"], isat, vt, nbv)
+    stamps, internal = [], []
+    ai = a
+    if p["RS"] > 0:
+        ai = f"{el.name}#a"
+        internal.append(ai)
+        stamps.append(("R", a, ai, p["RS"]))
+    par = np.array([isat, vte, vcrit(vte, isat), xbv, 1.0 / vte, nbv * vt,
+                    1.0 / (nbv * vt)])
+    return DeviceLayout(CODE, [(ai, k)], par, internal, stamps,
+                        probes={"id": ({0: 1.0}, {}), "vd": ({}, {0: 1.0})},
+                        quiet_step=2.0 * vte, ignored=notes)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def evaluate(par, pa, v, po, i, G):
+    """Junction current and conductance at port voltage v[po]."""
+    vd = v[po]
+    isat = par[pa + 0]
+    vte = par[pa + 1]
+    xbv = par[pa + 3]
+    rvte = par[pa + 4]
+    if vd < -xbv:
+        rvb = par[pa + 6]
+        e, de = lexp(-(xbv + vd) * rvb)
+        c = -isat * e
+        g = isat * de * rvb
+    else:
+        c, g = junction(vd, isat, vte, rvte)
+    i[po] = c + GMIN * vd
+    G[po, po] = g + GMIN
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def limit(par, pa, vn, vo, po):
+    """pnjlim on the junction (and on the breakdown side when BV is set)."""
+    vn[po] = pnjlim(vn[po], vo[po], par[pa + 1], par[pa + 2])
+    xbv = par[pa + 3]
+    if vn[po] < -xbv + 0.0 and vn[po] < 0.0:
+        vn[po] = -xbv - pnjlim(-(vn[po] + xbv), -(vo[po] + xbv), par[pa + 1], par[pa + 2])
+
+
+def region(par, v, i) -> str:
+    """Operating region for reports: forward, reverse or breakdown."""
+    vd = v[0]
+    if vd < -par[3]:
+        return "breakdown"
+    return "forward" if vd > 0.3 else "reverse" if vd < 0 else "off"

@@ -1,0 +1,167 @@
+"""Junction FET: Shichman-Hodges square law with SPICE ``.model NJF/PJF``
+parameters (VTO, BETA, LAMBDA, IS, N, RD, RS), as ngspice level 1, with
+ngspice's doping-tail parameter B (Sydney University modification, A. E.
+Parker and D. J. Skellern, 1989; B = 1 is the square law below; the form is
+jfetload.c's: bfac = (1 - B)/(PB - VTO), saturated
+Id = BETA*Vgst**2*(B + bfac*Vgst)*(1 + LAMBDA*Vds), linear
+Id = BETA*Vds*(Vds*(bfac*Vds - B) + Vgst*(2B + 3bfac*(Vgst - Vds)))*(1 + LAMBDA*Vds)).
+
+Ports: 0 = (G, S'), current = gate current; 1 = (D', S'), current = drain
+current.  Channel (normal mode, Vds >= 0, Vgst = Vgs - VTO):
+    cut-off   Vgst <= 0:         Id = 0
+    linear    Vgst >  Vds:       Id = BETA*Vds*(2*Vgst - Vds)*(1 + LAMBDA*Vds)
+    saturated Vgst <= Vds:       Id = BETA*Vgst**2*(1 + LAMBDA*Vds)
+inverse mode (Vds < 0) by symmetry with Vgd.  Gate-source and gate-drain
+junctions follow the diode law with GMIN.  PJF: all signs flipped.
+Reference: H. Shichman, D. A. Hodges, IEEE JSSC 3(3), 1968.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+from solderless.engine.devices._common import (GMIN, DeviceLayout, circuit_temp, junction,
+                                    limit_two_junctions, model_tnom, polarity, read_params,
+                                    temp_factors, vcrit)
+from solderless.engine.errors import DesignError
+
+KIND = "J"
+CODE = 3
+NPORTS = 2
+#: the layout takes the circuit temperature (degrees Celsius)
+TEMPERATURE = True
+#: simulated parameters and their defaults (ngspice manual, JFET level 1)
+DEFAULTS = {"VTO": -2.0, "BETA": 1e-4, "LAMBDA": 0.0, "IS": 1e-14, "N": 1.0,
+            "RD": 0.0, "RS": 0.0, "B": 1.0, "PB": 1.0, "TNOM": 27.0}
+_CAP = "gate junction capacitance (high-frequency roll-off, Miller effect)"
+_TEMPCO = "temperature coefficient (drift away from TNOM)"
+#: standard parameters that are read but not simulated, and what they affect
+IGNORED = {
+    "CGS": _CAP, "CGD": _CAP, "FC": _CAP,
+    "KF": "flicker noise", "AF": "flicker noise", "NLEV": "noise model",
+    "GDSNOI": "channel noise",
+    "TCV": _TEMPCO, "VTOTC": _TEMPCO, "BEX": _TEMPCO, "BETATCE": _TEMPCO,
+    "XTI": _TEMPCO, "EG": _TEMPCO,
+    "ISR": "gate recombination current", "NR": "gate recombination current",
+    "ALPHA": "gate impact ionisation", "VK": "gate impact ionisation",
+    "M": "gate junction grading", "RG": "gate resistance", "MFG": "label only",
+    "BV": "gate breakdown", "IBV": "gate breakdown",
+    "VDSMAX": "rating only", "VGSMAX": "rating only", "VGDMAX": "rating only",
+}
+#: other spellings SPICE accepts
+ALIASES = {"VT0": "VTO"}
+#: every standard parameter of the model card (simulated or not)
+STANDARD = set(DEFAULTS) | set(IGNORED)
+# par: 0 pol, 1 VTO, 2 BETA, 3 LAMBDA, 4 IS(T), 5 vte, 6 vcrit, 7 1/vte, 8 B,
+# 9 (1 - B)/(PB - VTO)
+
+
+def layout(el, temp=None) -> DeviceLayout:
+    """Validate the model and describe ports, internal nodes and stamps;
+    ``temp`` is the circuit temperature in degrees Celsius (None: 27)."""
+    notes: list = []
+    p = read_params(el, DEFAULTS, positive=("BETA", "IS", "N"),
+                    nonneg=("LAMBDA", "RD", "RS", "B"),
+                    ignored=IGNORED, aliases=ALIASES, notes=notes)
+    if p["PB"] == p["VTO"]:
+        w = el.where
+        raise DesignError("model parameter PB must differ from VTO (B's doping tail "
+                          "divides by PB - VTO)", file=getattr(w, "file", None),
+                          line=getattr(w, "line", None), part=el.name)
+    if p["B"] == 1.0 and any(str(k).upper() == "PB" for k in (el.params or {})):
+        notes.append(("PB", _CAP))  # with B = 1 only the capacitances use it
+    pol = polarity(el, ("NJF", "PJF"))
+    d, g, s = el.nodes
+    stamps, internal = [], []
+    if p["RD"] > 0:
+        internal.append(f"{el.name}#d")
+        stamps.append(("R", d, internal[-1], p["RD"]))
+        d = internal[-1]
+    if p["RS"] > 0:
+        internal.append(f"{el.name}#s")
+        stamps.append(("R", s, internal[-1], p["RS"]))
+        s = internal[-1]
+    # temperature (ngspice jfettemp.c): IS(T) = IS*exp((T/TNOM - 1)*1.11/VT)
+    vt, _, ratio1 = temp_factors(circuit_temp(temp), model_tnom(p))
+    isat = p["IS"] * math.exp(ratio1 * 1.11 / vt)
+    vte = p["N"] * vt
+    bfac = (1.0 - p["B"]) / (p["PB"] - p["VTO"])
+    par = np.array([pol, p["VTO"], p["BETA"], p["LAMBDA"], isat, vte, vcrit(vte, isat),
+                    1.0 / vte, p["B"], bfac])
+    return DeviceLayout(CODE, [(g, s), (d, s)], par, internal, stamps,
+                        probes={"ig": ({0: 1.0}, {}), "id": ({1: 1.0}, {}),
+                                "vgs": ({}, {0: 1.0}), "vds": ({}, {1: 1.0})},
+                        quiet_step=vte,  # as the BJT: Vgd moves by <= 2 steps
+                        ignored=notes)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def _channel(vgs, vds, vto, beta, lam, b, bfac):
+    """Channel current for vds >= 0: (Id, dId/dVgs, dId/dVds), ngspice's
+    level 1 with the doping-tail parameter B (jfetload.c; B = 1, bfac = 0
+    is the square law)."""
+    vgst = vgs - vto
+    if vgst <= 0.0:
+        return 0.0, 0.0, 0.0
+    betap = beta * (1.0 + lam * vds)
+    if vgst >= vds:
+        apart = 2.0 * b + 3.0 * bfac * (vgst - vds)
+        cpart = vds * (vds * (bfac * vds - b) + vgst * apart)
+        return (betap * cpart, betap * vds * (apart + 3.0 * bfac * vgst),
+                betap * (vgst - vds) * apart + beta * lam * cpart)
+    bf = vgst * bfac
+    cpart = vgst * vgst * (b + bf)
+    return betap * cpart, betap * vgst * (2.0 * b + 3.0 * bf), lam * beta * cpart
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def evaluate(par, pa, v, po, i, G):
+    """Gate and drain currents and their 2x2 Jacobian w.r.t. (Vgs, Vds)."""
+    pol = par[pa + 0]
+    vgs = pol * v[po]
+    vds = pol * v[po + 1]
+    vgd = vgs - vds
+    igs, ggs = junction(vgs, par[pa + 4], par[pa + 5], par[pa + 7])
+    igd, ggd = junction(vgd, par[pa + 4], par[pa + 5], par[pa + 7])
+    igs += GMIN * vgs
+    ggs += GMIN
+    igd += GMIN * vgd
+    ggd += GMIN
+    if vds >= 0.0:
+        idc, gm, gds = _channel(vgs, vds, par[pa + 1], par[pa + 2], par[pa + 3],
+                                 par[pa + 8], par[pa + 9])
+        d_vgs = gm
+        d_vds = gds
+    else:
+        f, gm, gds = _channel(vgd, -vds, par[pa + 1], par[pa + 2], par[pa + 3],
+                             par[pa + 8], par[pa + 9])
+        idc = -f
+        d_vgs = -gm
+        d_vds = gm + gds
+    i[po] = pol * (igs + igd)
+    i[po + 1] = pol * (idc - igd)
+    G[po, po] = ggs + ggd
+    G[po, po + 1] = -ggd
+    G[po + 1, po] = d_vgs - ggd
+    G[po + 1, po + 1] = d_vds + ggd
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def limit(par, pa, vn, vo, po):
+    """pnjlim on the gate junctions Vgs and Vgd."""
+    limit_two_junctions(vn, vo, po, par[pa + 0], par[pa + 5], par[pa + 6],
+                        par[pa + 5], par[pa + 6])
+
+
+def region(par, v, i) -> str:
+    """cut-off / linear / saturated (normal or inverse mode)."""
+    pol = par[0]
+    vgs, vds = pol * v[0], pol * v[1]
+    if vds < 0:
+        vgs, vds = vgs - vds, -vds
+    vgst = vgs - par[1]
+    if vgst <= 0:
+        return "cut-off"
+    return "linear" if vgst > vds else "saturated"

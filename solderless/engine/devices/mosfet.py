@@ -1,0 +1,222 @@
+"""MOSFET: Shichman-Hodges square law, SPICE ``.model NMOS/PMOS`` level 1
+(VTO, KP, LAMBDA, GAMMA, PHI, IS, LD, RD, RS; instance W, L), as ngspice's
+level 1.
+
+Element nodes (d, g, s, b).  Ports: 0 = (G, S'), no current (the gate draws
+none at DC; its capacitances are not simulated); 1 = (D', S'), current = drain
+current; 2 = (B, S'), current = bulk current, only when the bulk is not the
+source (a discrete part's bulk is its source: then two ports).  Channel
+(normal mode, Vds >= 0), beta = KP*W/(L - 2*LD):
+
+    Vth   = VTO + GAMMA*(sqrt(PHI - Vbs) - sqrt(PHI))     (body effect)
+    cut-off    Vgs - Vth <= 0:    Id = 0
+    linear     Vgs - Vth >  Vds:  Id = beta*Vds*(Vgst - Vds/2)*(1 + LAMBDA*Vds)
+    saturated  Vgs - Vth <= Vds:  Id = beta/2*Vgst**2*(1 + LAMBDA*Vds)
+
+For Vbs > 0 the square root is continued by its tangent at Vbs = 0 (as
+SPICE3 does).  Inverse mode (Vds < 0) by symmetry with Vgd and Vbd.  The
+bulk-drain and bulk-source junctions (the body diode of a discrete part)
+follow the diode law with IS and GMIN.  PMOS: all signs flipped (VTO as
+written, negative for an enhancement PMOS).
+Reference: H. Shichman, D. A. Hodges, IEEE JSSC 3(3), 1968; the level-1
+equations of SPICE2 (L. W. Nagel, ERL-M520, 1975).
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+from solderless.engine.devices._common import (GMIN, VT, DeviceLayout, junction, pnjlim, polarity,
+                                    read_params, vcrit)
+from solderless.engine.errors import DesignError
+
+KIND = "M"
+CODE = 6
+NPORTS = 2  # 3 when the bulk is not the source
+#: W and L default to 100 um as ngspice's (DEFW, DEFL).
+DEFAULTS = {"VTO": 0.0, "KP": 2e-5, "LAMBDA": 0.0, "GAMMA": 0.0, "PHI": 0.6,
+            "IS": 1e-14, "LD": 0.0, "RD": 0.0, "RS": 0.0, "W": 100e-6, "L": 100e-6,
+            "M": 1.0}
+#: the layout takes the circuit temperature (degrees Celsius)
+TEMPERATURE = True
+_CAP = "gate and junction capacitances (high-frequency roll-off, Miller effect)"
+_PROC = ("process parameter (ngspice derives KP, VTO, GAMMA or PHI from it when "
+         "they are not given: give them directly)")
+#: standard level-1 parameters that are read but not simulated, and what they affect
+IGNORED = {
+    "CBD": _CAP, "CBS": _CAP, "PB": _CAP, "CGSO": _CAP, "CGDO": _CAP, "CGBO": _CAP,
+    "CJ": _CAP, "MJ": _CAP, "CJSW": _CAP, "MJSW": _CAP, "FC": _CAP,
+    "RSH": "drain and source sheet resistance (give RD and RS)",
+    "JS": "bulk junction current density (give IS)",
+    "TOX": _PROC, "NSUB": _PROC, "NSS": _PROC, "TPG": _PROC, "UO": _PROC,
+    "NFS": "subthreshold conduction (level 2/3)", "XJ": "level 2/3 geometry",
+    "UCRIT": "mobility degradation (level 2)", "UEXP": "mobility degradation (level 2)",
+    "UTRA": "mobility degradation (level 2)", "VMAX": "velocity saturation (level 2/3)",
+    "NEFF": "level 2 channel charge", "DELTA": "narrow-width effect (level 2/3)",
+    "THETA": "mobility modulation (level 3)", "ETA": "drain-induced barrier lowering (level 3)",
+    "KAPPA": "saturation field (level 3)",
+    "KF": "flicker noise", "AF": "flicker noise", "TNOM": "temperature law (not simulated "
+    "for the MOSFET: parameters are taken as given)", "MFG": "label only",
+    "WD": "width reduction", "RG": "gate resistance", "RB": "bulk resistance",
+    "BEX": "temperature coefficient", "TCV": "temperature coefficient",
+    "XTI": "temperature coefficient", "EG": "temperature coefficient",
+    "N": "subthreshold slope", "BV": "drain breakdown", "IBV": "drain breakdown",
+    "TT": "body diode transit time", "VDS": "rating only", "VGS": "rating only",
+    "RON": "rating only", "QG": "rating only",
+}
+#: other spellings SPICE accepts
+ALIASES = {"VT0": "VTO", "U0": "UO"}
+#: every standard parameter of the model card (simulated or not)
+STANDARD = set(DEFAULTS) | set(IGNORED)
+# par: 0 pol, 1 pol*VTO, 2 beta, 3 LAMBDA, 4 GAMMA, 5 PHI, 6 sqrt(PHI), 7 IS,
+# 8 VT, 9 vcrit, 10 1/VT, 11 bulk port (1) or bulk = source (0)
+
+
+def layout(el, temp=None) -> DeviceLayout:
+    """Validate the model and describe ports, internal nodes and stamps.
+    The level-1 temperature laws are not simulated: at a circuit
+    temperature ``temp`` other than 27 degC the layout notes that."""
+    notes: list = []
+    p = read_params(el, DEFAULTS, positive=("KP", "PHI", "IS", "W", "L", "M"),
+                    nonneg=("LAMBDA", "GAMMA", "LD", "RD", "RS"),
+                    ignored=IGNORED, aliases=ALIASES, notes=notes)
+    if temp is not None and float(temp) != 27.0:
+        notes.append(("temperature", "circuit temperature (the MOSFET's parameters are "
+                                     "taken at their nominal temperature)"))
+    pol = polarity(el, ("NMOS", "PMOS"))
+    d, g, s, b = el.nodes
+    leff = p["L"] - 2.0 * p["LD"]
+    if not leff > 0:
+        w = el.where
+        raise DesignError(f"channel length L - 2*LD = {leff:g} m is not positive",
+                          file=getattr(w, "file", None), line=getattr(w, "line", None),
+                          part=el.name, hint="check L and LD")
+    stamps, internal = [], []
+    bulk_is_source = b == s
+    if p["RD"] > 0:
+        internal.append(f"{el.name}#d")
+        stamps.append(("R", d, internal[-1], p["RD"] / p["M"]))
+        d = internal[-1]
+    if p["RS"] > 0:
+        internal.append(f"{el.name}#s")
+        stamps.append(("R", s, internal[-1], p["RS"] / p["M"]))
+        s = internal[-1]
+    ports = [(g, s), (d, s)]
+    if not bulk_is_source:
+        ports.append((b, s))
+    beta = p["KP"] * p["W"] / leff * p["M"]
+    isat = p["IS"] * p["M"]
+    par = np.array([pol, pol * p["VTO"], beta, p["LAMBDA"], p["GAMMA"], p["PHI"],
+                    math.sqrt(p["PHI"]), isat, VT, vcrit(VT, isat), 1.0 / VT,
+                    0.0 if bulk_is_source else 1.0])
+    probes = {"id": ({1: 1.0}, {}), "vgs": ({}, {0: 1.0}), "vds": ({}, {1: 1.0})}
+    return DeviceLayout(CODE, ports, par, internal, stamps, probes=probes,
+                        quiet_step=VT, ignored=notes)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def _threshold(vbs, vto, gamma, phi, sphi):
+    """Threshold with the body effect and its derivative w.r.t. Vbs."""
+    if gamma == 0.0:
+        return vto, 0.0
+    if vbs <= 0.0:
+        sarg = math.sqrt(phi - vbs)
+        dsarg = -0.5 / sarg
+    else:
+        sarg = sphi - vbs / (2.0 * sphi)
+        dsarg = -0.5 / sphi
+        if sarg < 0.0:
+            sarg = 0.0
+            dsarg = 0.0
+    return vto + gamma * (sarg - sphi), gamma * dsarg
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def _channel(vgs, vds, vbs, vto, beta, lam, gamma, phi, sphi):
+    """Channel current for vds >= 0: (Id, dId/dVgs, dId/dVds, dId/dVbs)."""
+    von, dvon = _threshold(vbs, vto, gamma, phi, sphi)
+    vgst = vgs - von
+    if vgst <= 0.0:
+        return 0.0, 0.0, 0.0, 0.0
+    betap = beta * (1.0 + lam * vds)
+    if vgst <= vds:
+        cd = 0.5 * betap * vgst * vgst
+        gm = betap * vgst
+        gds = 0.5 * lam * beta * vgst * vgst
+    else:
+        cd = betap * vds * (vgst - 0.5 * vds)
+        gm = betap * vds
+        gds = betap * (vgst - vds) + lam * beta * vds * (vgst - 0.5 * vds)
+    return cd, gm, gds, -gm * dvon
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def evaluate(par, pa, v, po, i, G):
+    """Drain (and bulk) currents and their Jacobian w.r.t. (Vgs, Vds[, Vbs])."""
+    pol = par[pa + 0]
+    three = par[pa + 11] > 0.0
+    vgs = pol * v[po]
+    vds = pol * v[po + 1]
+    vbs = pol * v[po + 2] if three else 0.0
+    vbd = vbs - vds
+    vto, beta, lam = par[pa + 1], par[pa + 2], par[pa + 3]
+    gamma, phi, sphi = par[pa + 4], par[pa + 5], par[pa + 6]
+    if vds >= 0.0:
+        cd, gm, gds, gmbs = _channel(vgs, vds, vbs, vto, beta, lam, gamma, phi, sphi)
+        d_vgs, d_vds, d_vbs = gm, gds, gmbs
+    else:
+        f, gm, gds, gmbs = _channel(vgs - vds, -vds, vbd, vto, beta, lam, gamma, phi, sphi)
+        cd = -f
+        d_vgs, d_vds, d_vbs = -gm, gm + gds + gmbs, -gmbs
+    cbd, gbd = junction(vbd, par[pa + 7], par[pa + 8], par[pa + 10])
+    cbd += GMIN * vbd
+    gbd += GMIN
+    i[po] = 0.0
+    i[po + 1] = pol * (cd - cbd)
+    G[po, po] = 0.0
+    G[po, po + 1] = 0.0
+    G[po + 1, po] = d_vgs
+    G[po + 1, po + 1] = d_vds + gbd
+    if three:
+        cbs, gbs = junction(vbs, par[pa + 7], par[pa + 8], par[pa + 10])
+        cbs += GMIN * vbs
+        gbs += GMIN
+        i[po + 2] = pol * (cbd + cbs)
+        G[po, po + 2] = 0.0
+        G[po + 1, po + 2] = d_vbs - gbd
+        G[po + 2, po] = 0.0
+        G[po + 2, po + 1] = -gbd
+        G[po + 2, po + 2] = gbd + gbs
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def limit(par, pa, vn, vo, po):
+    """pnjlim on the bulk-drain junction (Vds follows) and, with a bulk
+    port, on the bulk-source junction; the channel needs none."""
+    pol = par[pa + 0]
+    three = par[pa + 11] > 0.0
+    vt = par[pa + 8]
+    vc = par[pa + 9]
+    vbs_n = pol * vn[po + 2] if three else 0.0
+    vbs_o = pol * vo[po + 2] if three else 0.0
+    if three:
+        vbs_n = pnjlim(vbs_n, vbs_o, vt, vc)
+        vn[po + 2] = pol * vbs_n
+    vbd = pnjlim(vbs_n - pol * vn[po + 1], vbs_o - pol * vo[po + 1], vt, vc)
+    vn[po + 1] = pol * (vbs_n - vbd)
+
+
+def region(par, v, i) -> str:
+    """cut-off / linear / saturated (normal or inverse mode), body effect
+    included."""
+    pol = par[0]
+    vgs, vds = pol * v[0], pol * v[1]
+    vbs = pol * v[2] if par[11] > 0 and len(v) > 2 else 0.0
+    if vds < 0:
+        vgs, vds, vbs = vgs - vds, -vds, vbs - vds
+    von, _ = _threshold(vbs, par[1], par[4], par[5], par[6])
+    if vgs - von <= 0:
+        return "cut-off"
+    return "linear" if vgs - von > vds else "saturated"

@@ -1,0 +1,91 @@
+"""Values outside the range real parts have: warned about, naming the part.
+
+A value far outside these ranges is almost always a typing slip (``1e300``
+for ``100p``, ``N=1e-6`` for ``N=1``) and makes the simulation report
+absurd voltages and currents, or a singular matrix, without saying why.
+The circuit still runs (a deliberate extreme is allowed); the warning tells
+the user which part to look at.
+
+The ranges are common practice: wide bounds around what discrete parts and
+the SPICE model cards of real devices use, chosen by us, not taken from a
+standard.  Limits are inclusive; ``None`` means no bound on that side.
+"""
+from __future__ import annotations
+
+import math
+
+from solderless.engine.circuit import Circuit
+
+#: element kind -> (quantity, unit, low, high) for the element's value.
+#: Common practice: resistors from milliohms (sense resistors, wire) to
+#: gigaohms; capacitors from femtofarads (parasitics) to a farad;
+#: inductors from picohenries to kilohenries (transformer windings);
+#: sources up to the kilovolts of valve supplies.
+VALUE_RANGES: dict[str, tuple[str, str, float | None, float | None]] = {
+    "R": ("resistance", "ohm", 1e-4, 1e12),
+    "C": ("capacitance", "F", 1e-16, 10.0),
+    "L": ("inductance", "H", 1e-12, 1e4),
+    "V": ("voltage", "V", -1e4, 1e4),
+    "I": ("current", "A", -1e3, 1e3),
+}
+
+#: SPICE model parameter -> (low, high) in SI units, per element kind.
+#: Common practice (typical device model cards span well inside these):
+#: saturation currents 1e-20..1e-3 A, emission coefficients 0.5..4 (ideal
+#: junction 1, recombination about 2), current gains 1..10000, Early
+#: voltages above 1 V, JFET and MOSFET thresholds within +-50 V,
+#: transconductance parameters 1e-9..10 A/V^2, series resistances below
+#: 1 Mohm.
+PARAM_RANGES: dict[str, dict[str, tuple[float | None, float | None]]] = {
+    "D": {"IS": (1e-21, 1e-2), "N": (0.5, 4.0), "RS": (0.0, 1e6), "BV": (0.1, None)},
+    "Q": {"IS": (1e-21, 1e-2), "BF": (1.0, 1e4), "BR": (1e-3, 1e4), "NF": (0.5, 4.0),
+          "NR": (0.5, 4.0), "VAF": (1.0, None), "VAR": (0.1, None),
+          "RB": (0.0, 1e6), "RC": (0.0, 1e6), "RE": (0.0, 1e6)},
+    "J": {"VTO": (-50.0, 50.0), "BETA": (1e-9, 10.0), "IS": (1e-21, 1e-2),
+          "N": (0.5, 4.0), "LAMBDA": (0.0, 10.0), "RS": (0.0, 1e6), "RD": (0.0, 1e6)},
+    "M": {"VTO": (-50.0, 50.0), "KP": (1e-9, 10.0), "LAMBDA": (0.0, 10.0),
+          "W": (1e-8, 1.0), "L": (1e-8, 1.0)},
+}
+
+
+def _out(x: float, lo, hi) -> bool:
+    return (lo is not None and x < lo) or (hi is not None and x > hi)
+
+
+def _where(e) -> str:
+    w = getattr(e, "where", None)
+    if w is not None and w.file:
+        return f"{w.file}:{w.line}: " if w.line else f"{w.file}: "
+    return ""
+
+
+def check_values(circuit: Circuit) -> list[str]:
+    """Warnings for element values and model parameters outside the ranges
+    above, each naming the file, line and part."""
+    out: list[str] = []
+    for e in circuit.elements:
+        rng = VALUE_RANGES.get(e.kind)
+        try:
+            v = float(e.value)
+        except (TypeError, ValueError):
+            v = math.nan
+        if rng is not None and math.isfinite(v) and not (e.params or {}).get("_input"):
+            what, unit, lo, hi = rng
+            if e.kind in "VI":
+                bad = abs(v) > hi
+            else:
+                bad = _out(v, lo, hi)
+            if bad:
+                span = (f"{abs(hi):g} {unit}" if e.kind in "VI" else
+                        f"{lo:g}..{hi:g} {unit}")
+                out.append(f"{_where(e)}part '{e.name}': {what} {v:g} {unit} is outside "
+                           f"the range of real parts ({span}); check the value")
+        for key, (lo, hi) in PARAM_RANGES.get(e.kind, {}).items():
+            p = (e.params or {}).get(key)
+            if isinstance(p, bool) or not isinstance(p, (int, float)):
+                continue
+            if math.isfinite(p) and _out(float(p), lo, hi):
+                span = f"{lo:g}..{hi:g}" if hi is not None else f">= {lo:g}"
+                out.append(f"{_where(e)}part '{e.name}': model parameter {key}={p:g} is "
+                           f"outside the range of real devices ({span}); check the model")
+    return out

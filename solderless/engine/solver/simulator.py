@@ -1,0 +1,490 @@
+"""Simulator: a flat circuit running sample by sample, with live part changes.
+
+Build once per topology; :meth:`Simulator.process_into` is the audio-thread
+entry (no allocation, compiled kernel, GIL released); everything else runs on
+other threads.  Value changes (:meth:`Simulator.set_values`) re-derive the
+model in the calling thread and hand it over at the next block boundary by a
+reference swap -- the audio thread takes no lock.
+"""
+from __future__ import annotations
+
+import re
+import threading
+
+import numpy as np
+
+from solderless.engine.circuit import Circuit, GROUND, canonical_net
+from solderless.engine.errors import DesignError
+from solderless.engine.solver import kernel as K
+from solderless.engine.solver.dcop import OperatingPoint, report, solve_dc
+from solderless.engine.solver.mna import VALUE_KINDS, Network, device_arrays, source_wave
+from solderless.engine.solver.statespace import Model, ProbeRow, derive, padded
+
+#: Key of a live change that sets the circuit temperature (degrees Celsius)
+#: instead of an element value: ``sim.set_values({TEMPERATURE_KEY: 45.0})``.
+TEMPERATURE_KEY = "@temperature"
+
+_PROBE_RE = re.compile(r"^\s*([A-Za-z]+)\s*\((.*)\)\s*$")
+_UNITS = {"v": "V", "i": "A", "ic": "A", "ib": "A", "ie": "A", "id": "A", "ig": "A",
+          "vbe": "V", "vce": "V", "vgs": "V", "vds": "V", "vd": "V", "iabc": "A",
+          "gm": "S", "iout": "A", "vabc": "V", "iclip": "A"}
+
+
+def _net_col(net: Network, name: str, probe: str) -> int:
+    n = canonical_net(name)
+    if n == GROUND:
+        return -1
+    if n not in net.net_index:
+        # SPICE names are case-insensitive (a netlist's nets are read in
+        # lower case): take a name that differs only in case, if just one
+        same = [k for k in net.net_index if k.lower() == n.lower()]
+        if len(same) == 1:
+            return net.net_index[same[0]]
+        raise DesignError(f"probe {probe!r}: no net named {name!r}", part=probe,
+                          hint="use a net name of the circuit, e.g. v(out)")
+    return net.net_index[n]
+
+
+def _probe_parts(text: str) -> tuple[str, str, str | None] | None:
+    """(quantity, name, second name or None) of ``q(a)`` / ``q(a,b)``; a
+    name may hold balanced parentheses (an exported net such as
+    ``Net-(R1-Pad2)``)."""
+    m = _PROBE_RE.match(text)
+    if not m:
+        return None
+    names, depth, start, inner = [], 0, 0, m.group(2)
+    for k, ch in enumerate(inner):
+        if ch == "(":
+            depth += 1
+        elif ch == ")":
+            depth -= 1
+            if depth < 0:
+                return None
+        elif ch == "," and depth == 0:
+            names.append(inner[start:k])
+            start = k + 1
+    names.append(inner[start:])
+    names = [n.strip() for n in names]
+    if depth != 0 or len(names) > 2 or not all(n and not any(c.isspace() for c in n)
+                                               for n in names):
+        return None
+    return m.group(1), names[0], names[1] if len(names) == 2 else None
+
+
+def make_probe(net: Network, text: str) -> ProbeRow:
+    """Parse a probe name (``v(net)``, ``v(a,b)``, ``i(R1)``, ``ic(Q1)`` ...)."""
+    parts = _probe_parts(text)
+    if parts is None:
+        raise DesignError(f"cannot read probe {text!r}", part=text,
+                          hint="write e.g. v(out), v(a,b), i(R1), ic(Q1), gm(U1)")
+    q, a, b = parts[0].lower(), parts[1], parts[2]
+    nw, nx, nu, npt = net.nw, net.nx, net.nu, net.np_
+    z = lambda k: np.zeros(k)  # noqa: E731
+    if q == "v":
+        ca = _net_col(net, a, text)
+        cb = _net_col(net, b, text) if b else -1
+
+        def build(values, g, ca=ca, cb=cb):
+            cw = z(nw)
+            if ca >= 0:
+                cw[ca] += 1.0
+            if cb >= 0:
+                cw[cb] -= 1.0
+            return cw, z(nx), z(nu), z(npt), z(npt)
+        return ProbeRow(text, "V", build)
+    if b is not None:
+        raise DesignError(f"probe {text!r} takes one name", part=text)
+    if q == "i":
+        el = net.elements.get(a)
+        if el is None or el.kind not in ("R", "C", "L", "V", "E", "H", "I"):
+            raise DesignError(f"probe {text!r}: no R, C, L, V, E, H or I element named {a!r}",
+                              part=text, hint="device currents: ic(Q1), id(D1), iout(U1)")
+        if el.kind == "R":
+            na, nb = net._node(el.nodes[0]), net._node(el.nodes[1])
+
+            def build(values, g, na=na, nb=nb, name=a):
+                cw = z(nw)
+                if na >= 0:
+                    cw[na] += 1.0 / values[name]
+                if nb >= 0:
+                    cw[nb] -= 1.0 / values[name]
+                return cw, z(nx), z(nu), z(npt), z(npt)
+        elif el.kind == "C":
+            k = net.state_index[a]
+            st = net.states[k]
+
+            def build(values, g, k=k, st=st):
+                cw = z(nw)
+                if st.a >= 0:
+                    cw[st.a] += g[k]
+                if st.b >= 0:
+                    cw[st.b] -= g[k]
+                cx = z(nx)
+                cx[k] = -1.0
+                return cw, cx, z(nu), z(npt), z(npt)
+        elif el.kind == "I":
+            k = net.source_index[a]
+
+            def build(values, g, k=k):
+                cu = z(nu)
+                cu[k] = 1.0
+                return z(nw), z(nx), cu, z(npt), z(npt)
+        else:
+            j = net.branch_of[a]
+
+            def build(values, g, j=j):
+                cw = z(nw)
+                cw[j] = 1.0
+                return cw, z(nx), z(nu), z(npt), z(npt)
+        return ProbeRow(text, "A", build)
+    for el, mod, lay, po in net.devices:
+        if el.name == a:
+            if q not in lay.probes:
+                raise DesignError(f"probe {text!r}: a {el.kind} device has no quantity {q!r}",
+                                  part=text, hint="available: " + ", ".join(sorted(lay.probes)))
+            ci, cv = lay.probes[q]
+
+            def build(values, g, ci=ci, cv=cv, po=po):
+                vi, vv = z(npt), z(npt)
+                for k, c in ci.items():  # kernel currents are i - PORT_G0*v
+                    vi[po + k] = c
+                    vv[po + k] += c * K.PORT_G0
+                for k, c in cv.items():
+                    vv[po + k] += c
+                return z(nw), z(nx), z(nu), vi, vv
+            return ProbeRow(text, _UNITS.get(q, ""), build)
+    raise DesignError(f"probe {text!r}: no device named {a!r}", part=text,
+                      hint="probe a transistor, diode, JFET, OTA or op-amp by its name")
+
+
+def source_rate_warnings(net: Network, step: float) -> list[str]:
+    """Warnings for waveform sources the simulation step cannot carry: a SIN
+    at or above the kernel's Nyquist frequency 1/(2*step) folds back
+    (aliases) to a lower frequency, a PULSE repeating in under two steps
+    is not a pulse train any more.  The input source is not played from its
+    waveform and is not checked."""
+    out = []
+    nyq = 0.5 / step
+    for k, el in enumerate(net.sources):
+        if k == net.input_index:
+            continue
+        kind, par = source_wave(el)
+        where = el.where
+        at = (f"{where.file}:{where.line}: " if where and where.file and where.line
+              else "")
+        if kind == 1 and abs(par[2]) >= nyq:
+            out.append(f"{at}source {el.name}: SIN frequency {par[2]:g} Hz is at or above "
+                       f"the simulation's Nyquist frequency {nyq:g} Hz and aliases; raise "
+                       "the sample rate or the oversampling")
+        elif kind == 2 and 0 < par[6] < 2.0 * step:
+            out.append(f"{at}source {el.name}: PULSE period {par[6]:g} s is shorter than two "
+                       f"simulation steps ({2 * step:g} s) and aliases; raise the sample "
+                       "rate or the oversampling")
+    return out
+
+
+class Simulator:
+    """Real-time simulation of a flat circuit.
+
+    Parameters
+    ----------
+    circuit : the flat circuit; ``circuit.input_source`` is driven by the
+        input samples (added to its DC value; a waveform on it is ignored),
+        ``circuit.output`` is read.  Other sources play their SIN/PULSE/PWL
+        waveforms from t = 0 at the first processed sample.
+    fs : outer sample rate, Hz.
+    oversample : 1, 2, 4 or 8 (polyphase resampling around the kernel).
+    probes : probe names, e.g. ``("v(out)", "ic(Q1)", "gm(U1)")``.
+    probe_decimate : one probe frame every this many outer samples.
+    block_max : largest block given to :meth:`process_into`.
+    tolerance : error (volts) left in the nonlinear port voltages each
+        sample; default the kernel's ERR_TOL (1 uV, SPICE's VNTOL).  The
+        relative tolerance (kernel RELTOL, 1e-6 of the port voltage) scales
+        with it.
+
+    The simulation starts at the DC operating point (no thump), solved with
+    every source at its t = 0 value (the input source at its DC value), as
+    ngspice starts a transient.  ``warnings`` lists waveform sources above
+    the simulation's Nyquist frequency (:func:`source_rate_warnings`).
+    """
+
+    def __init__(self, circuit: Circuit, fs: float = 48000.0, oversample: int = 1,
+                 probes=(), probe_decimate: int = 1, block_max: int = 4096,
+                 tolerance: float | None = None):
+        if not float(fs) > 0:
+            raise DesignError(f"sample rate {fs!r} must be positive", part="simulator")
+        if int(probe_decimate) < 1:
+            raise DesignError("probe_decimate must be >= 1", part="simulator")
+        self.tolerance = K.ERR_TOL if tolerance is None else float(tolerance)
+        if not self.tolerance > 0:
+            raise DesignError(f"tolerance {tolerance!r} must be positive volts",
+                              part="simulator")
+        self.net = net = Network(circuit)
+        self.circuit = circuit
+        self.fs = float(fs)
+        self.oversample = int(oversample)
+        self.block_max = int(block_max)
+        from solderless.engine.solver.oversample import Resampler
+        self._rs = Resampler(self.oversample, self.block_max, self.fs)
+        self.latency_samples = float(self._rs.latency)
+        # Probes are read inside the kernel, behind the upsampling filter
+        # only, which delays by half the round trip: latency*L/2 kernel
+        # samples.  A probe frame is taken at the kernel sample whose phase
+        # makes that delay a whole number of outer samples (for an odd
+        # latency, half an outer sample after the sample's own instant), so
+        # the frames line up with the audio exactly.
+        L = self.oversample
+        dk = int(round(self.latency_samples * L / 2))
+        self._probe_phase = dk % L
+        #: delay of probe frames behind the input, whole outer samples
+        self.probe_latency_samples = float((dk - self._probe_phase) // L)
+        self._T = 1.0 / (self.fs * self.oversample)
+        out_a, out_b = circuit.output
+        rows = [make_probe(net, f"v({out_a},{out_b})")]
+        rows += [make_probe(net, p) for p in probes]
+        self._rows = rows
+        self.probe_names = [r.name for r in rows[1:]]
+        self.probe_units = [r.unit for r in rows[1:]]
+        self._pdec = int(probe_decimate) * self.oversample
+        self._lock = threading.Lock()
+        self._values = dict(net.values)
+        self._arr = device_arrays(net)
+        self._arr_next = self._arr
+        #: circuit temperature, degrees Celsius (None: 27)
+        self.temperature = circuit.temperature
+        # one or two nonlinear ports: the lean path (same state and counters)
+        self._run = K.run_block_small if 0 < net.np_ <= K.SMALL_PORTS else K.run_block
+        skind, spars = [], []
+        for k, el in enumerate(net.sources):
+            kd, par = source_wave(el, self._T)
+            if k == net.input_index:
+                kd, par = 0, np.zeros(0)
+            skind.append(kd)
+            spars.append(par)
+        self.warnings = source_rate_warnings(net, self._T)
+        self._skind = np.array(skind, dtype=np.int64)
+        self._sptr = np.zeros(len(spars) + 1, dtype=np.int64)
+        self._sptr[1:] = np.cumsum([p.size for p in spars]) if spars else []
+        self._spar = np.ascontiguousarray(np.concatenate(spars) if spars else np.zeros(0))
+        self._model: Model = derive(net, self._values, self._T, rows)
+        self._next: Model = self._model
+        nx, nu, ny = net.nx, net.nu, len(rows)
+        # kernel vector z = [x; varying sources; padding]; self._x is a view
+        # of its head.  The kernel's port vectors are padded too (their
+        # first net.np_ entries are the device ports).
+        self._z = np.zeros(padded(nx + self._model.uvar.size))
+        self._x = self._z[:nx]
+        self._xp = np.zeros(nx)
+        npt = padded(net.np_)
+        self._v = np.zeros(npt)
+        self._i = np.zeros(npt)
+        self._pprev = np.zeros(npt)
+        self._u = np.zeros(nu)
+        self._ws = np.zeros((11, max(npt, padded(nx), 4)))
+        self._G = np.zeros((npt, npt))
+        # [J | I], a pivot row, and the low-rank update's workspace
+        self._J = np.zeros((npt + 1 + K.J_EXTRA_ROWS, 2 * npt))
+        self._Gf = np.zeros((npt, npt))
+        self._Ji = np.zeros((npt, npt))
+        self._yrow = np.zeros(ny)
+        self._cnt = np.zeros(K.N_COUNTERS, dtype=np.int64)
+        self._nopb = np.zeros((0, 0))
+        self._xin_up = np.zeros(self.block_max * self.oversample)
+        self._y_up = np.zeros(self.block_max * self.oversample)
+        self._op: OperatingPoint | None = None
+        self._dc = None
+        self._dc_values = None
+        self.reset()
+
+    # ------------------------------------------------------------ state
+    def reset(self) -> None:
+        """Return to the DC operating point of the current values.
+
+        Not for use while another thread is inside :meth:`process_into`
+        (call it from the audio thread, or with the stream stopped)."""
+        m = self._next
+        net = self.net
+        if self._dc is None or self._dc_values != m.values:
+            self._dc = solve_dc(net, m.values, v0=None if self._dc is None else self._dc.v)
+            self._dc_values = dict(m.values)
+            self._op = None
+        dc = self._dc
+        if getattr(net.circuit, "ic", None):
+            # a render starts from the operating point with the .ic nets
+            # held (ngspice's transient operating point)
+            dc = solve_dc(net, m.values, initial=True)
+        r = net.state_read_rows() @ dc.w
+        self._x[:] = m.g * r  # capacitor: Gc*v with zero current; inductor: RL*i
+        self._xp[:] = self._x
+        n = net.np_
+        self._v[:n] = dc.v
+        self._i[:n] = dc.i - K.PORT_G0 * dc.v
+        self._pprev[:n] = m.Dv @ self._x + m.Ev @ m.udc
+        self._ws[6, :net.np_] = dc.v
+        self._ws[7, :] = 0.0  # predictor's last linear step
+        self._ws[8, :] = 1e300  # bypass memory: force a first evaluation
+        self._ws[9, :] = 0.0
+        # chord rate memory, refactor flag, absolute and relative tolerance
+        # (RELTOL scaled with the absolute one)
+        self._ws[10, :] = 0.0
+        self._ws[10, 2] = self.tolerance
+        self._ws[10, 3] = K.RELTOL * self.tolerance / K.ERR_TOL
+        self._cnt[:] = 0
+        self._cnt[K.C_PHASE] = (self._pdec - self._probe_phase) % self._pdec
+        self._model = m
+        self._arr = self._arr_next
+        self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i[:n]
+                          + m.Vy[0] @ dc.v)
+        self._rs.reset()
+
+    def operating_point(self) -> OperatingPoint:
+        """DC operating point report for the current part values (any thread;
+        computed off the audio path)."""
+        m = self._next
+        if self._op is None or self._dc_values != m.values:
+            dc = solve_dc(self.net, m.values, v0=self._dc.v if self._dc else None)
+            self._op = report(self.net, dc, m.values)
+            self._dc, self._dc_values = dc, dict(m.values)
+        return self._op
+
+    @property
+    def values(self) -> dict[str, float]:
+        """Current element values (SI), including pending live changes."""
+        return dict(self._values)
+
+    def set_values(self, changes: dict[str, float]) -> None:
+        """Change element values (R, C, L, V, I, E, G) live; thread-safe.
+
+        The new model is derived in the calling thread and picked up by the
+        audio thread at its next block boundary, with capacitor voltages and
+        currents and inductor currents carried over.
+        """
+        net = self.net
+        changes = dict(changes)
+        with self._lock:
+            if TEMPERATURE_KEY in changes:
+                self._set_temperature(changes.pop(TEMPERATURE_KEY))
+            new = dict(self._values)
+            for name, val in changes.items():
+                el = net.elements.get(name)
+                if el is None or el.kind not in VALUE_KINDS:
+                    raise DesignError(f"no R, C, L, V, I, E, G, F or H element named {name!r}",
+                                      part=name, hint="live changes take element values; "
+                                                      "a pot is '<pot>.a' and '<pot>.b'")
+                new[name] = net.check_value(el, val)
+            model = derive(net, new, self._T, self._rows)
+            self._values = new
+            self._next = model
+
+    def _set_temperature(self, temp_c) -> None:
+        """Re-derive every device's parameters at a new circuit temperature
+        (degrees Celsius); the audio thread takes them at its next block."""
+        net = self.net
+        t = float(temp_c)
+        if not -100.0 <= t <= 250.0:
+            raise DesignError(f"temperature {t:g} degC is out of range (-100 to 250)",
+                              part="temperature")
+        devs = []
+        for el, mod, lay, po in net.devices:
+            if getattr(mod, "TEMPERATURE", False):
+                new = mod.layout(el, temp=t)
+                if new.ports != lay.ports or new.par.size != lay.par.size:
+                    raise DesignError("a temperature change moved a device's ports",
+                                      part=el.name)
+                lay = new
+            devs.append((el, mod, lay, po))
+        net.devices = devs
+        self.temperature = t
+        self._arr_next = device_arrays(net)
+        self._dc_values = None  # the operating point moved
+
+    # ------------------------------------------------------------ audio thread
+    def _swap(self):
+        a = self._arr_next
+        if a is not self._arr:
+            self._arr = a
+        m = self._next
+        if m is not self._model:
+            K.convert_states(self._x, self._xp, self._model.g, m.g, m.a, m.b)
+            self._model = m
+        return m
+
+    def process_into(self, x: np.ndarray, y: np.ndarray, probe_buf: np.ndarray | None = None,
+                     probe_start: int = 0) -> int:
+        """Process one block: x (input volts, float64) -> y (output volts).
+
+        Audio-thread safe: no array allocation, no locks; the kernel releases
+        the GIL.  ``len(x) <= block_max``.  probe_buf is float64
+        (n_probes, capacity) or None; frames go to columns probe_start ...
+        capacity-1; returns the number of probe frames written.
+        """
+        m = self._swap()
+        n = x.shape[0]
+        pb = self._nopb if probe_buf is None else probe_buf
+        pcap = pb.shape[1] if pb.shape[0] else 0
+        run = self._run
+        if self.oversample == 1:
+            return run(x, n, y, pb, probe_start, pcap, self._pdec, *self._args(m))
+        L = self.oversample
+        xu, yu = self._xin_up, self._y_up
+        self._rs.up_into(x, xu)
+        frames = run(xu, n * L, yu, pb, probe_start, pcap, self._pdec, *self._args(m))
+        yv = yu[:n * L]
+        yv -= self._ydc
+        self._rs.down_into(yv, y)
+        y[:n] += self._ydc
+        return frames
+
+    def _args(self, m: Model):
+        dcode, dpo, dnp, dpa, par, dqs = self._arr
+        return (m.Pz, m.p0, m.Az, m.x0, m.Ck, m.Kk, m.Yz, m.y0, m.Fyk, m.Vyk, m.kc,
+                dcode, dpo, dnp, dpa, par, dqs,
+                m.uvar, self._skind, self._sptr, self._spar, self.net.input_index,
+                self._T, self._z, self._xp, self._v, self._i, self._pprev, self._ws,
+                self._G, self._Gf, self._J, self._Ji, self._yrow, self._cnt)
+
+    def process(self, x, probe_buf: np.ndarray | None = None) -> np.ndarray:
+        """Offline convenience: process any length of input; allocates y."""
+        x = np.ascontiguousarray(x, dtype=np.float64).ravel()
+        y = np.empty_like(x)
+        B = self.block_max
+        for s in range(0, x.shape[0], B):
+            e = min(x.shape[0], s + B)
+            self.process_into(x[s:e], y[s:e], None)
+        return y
+
+    def run(self, x, probe_capacity: int | None = None):
+        """Offline: process x and return (y, probes) with probes of shape
+        (n_probes, frames)."""
+        x = np.ascontiguousarray(x, dtype=np.float64).ravel()
+        cap = probe_capacity or (x.shape[0] // max(1, self._pdec // self.oversample) + 1)
+        pb = np.zeros((len(self.probe_names), cap))
+        y = np.empty_like(x)
+        B = self.block_max
+        frames = 0
+        for s in range(0, x.shape[0], B):
+            e = min(x.shape[0], s + B)
+            frames += self.process_into(x[s:e], y[s:e], pb, frames)
+        return y, pb[:, :frames]
+
+    @property
+    def stats(self) -> dict:
+        """Counters since the last reset: samples (kernel rate), nonconverged,
+        fallbacks, max_iterations, mean_iterations, factorizations (Jacobian
+        inversions; chord iterations reuse the last one), jacobian_updates
+        (low-rank updates of the inverse instead of a factorisation)."""
+        c = self._cnt
+        s = int(c[K.C_SAMPLES])
+        return {"samples": s, "nonconverged": int(c[K.C_NONCONV]),
+                "fallbacks": int(c[K.C_FALLBACK]), "max_iterations": int(c[K.C_MAXIT]),
+                "mean_iterations": float(c[K.C_ITERS]) / s if s else 0.0,
+                "factorizations": int(c[K.C_FACTOR]),
+                "jacobian_updates": int(c[K.C_UPDATE])}
+
+    @property
+    def n_ports(self) -> int:
+        return self.net.np_
+
+    @property
+    def n_states(self) -> int:
+        return self.net.nx
