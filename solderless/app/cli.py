@@ -631,6 +631,8 @@ _OPTIONAL = (
      "run_montecarlo", "tolerance Monte Carlo: yield, spreads, sensitivity"),
     ("sweep", "solderless.app.build", "add_sweep_arguments", "run_sweep",
      "sweep a part value (and a pot) and tabulate a figure"),
+    ("hiss", "solderless.app.hiss", "add_hiss_arguments", "run_hiss",
+     "output noise: spectral density and the noise floor (unweighted, A-weighted)"),
 )
 
 

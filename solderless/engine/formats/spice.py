@@ -351,6 +351,9 @@ class Netlist:
 # --------------------------------------------------------------------------
 # Reading lines
 
+#: Model parameters only the noise analysis reads (flicker noise): carried on
+#: the element, named by the device's operating-point notes, not warned here.
+_NOISE_ONLY = {"KF", "AF"}
 _IGNORED_DOT = {
     ".tran", ".op", ".ac", ".dc", ".noise", ".disto", ".pz", ".sens", ".tf",
     ".four", ".options", ".option", ".opt", ".save", ".probe", ".print",
@@ -1457,6 +1460,10 @@ class _Reader:
                 if key == "LEVEL" and v != 1:
                     self.warn(f"{where}model {model.name}: LEVEL={v:g} is read "
                               "as the basic level-1 model")
+            elif key in _NOISE_ONLY and key in ign:
+                # kept for the noise analysis and live noise
+                # (solderless/engine/solver/noise.py); a plain render ignores it
+                out[key] = v
             elif key in ign:
                 self.warn(f"{where}model {model.name}: {k} is not simulated and is "
                           f"ignored; it affects the {ign[key]}")
