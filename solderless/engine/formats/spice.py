@@ -351,8 +351,9 @@ class Netlist:
 # --------------------------------------------------------------------------
 # Reading lines
 
-#: Model parameters only the noise analysis reads (flicker noise): carried on
-#: the element, named by the device's operating-point notes, not warned here.
+#: Model parameters only the noise analysis and live noise read (flicker
+#: noise): carried on the element, and named in a warning as not simulated
+#: by a plain render.
 _NOISE_ONLY = {"KF", "AF"}
 _IGNORED_DOT = {
     ".tran", ".op", ".ac", ".dc", ".noise", ".disto", ".pz", ".sens", ".tf",
@@ -1461,9 +1462,12 @@ class _Reader:
                     self.warn(f"{where}model {model.name}: LEVEL={v:g} is read "
                               "as the basic level-1 model")
             elif key in _NOISE_ONLY and key in ign:
-                # kept for the noise analysis and live noise
+                # kept on the element for the noise analysis and live noise
                 # (solderless/engine/solver/noise.py); a plain render ignores it
                 out[key] = v
+                self.warn(f"{where}model {model.name}: {k} is not simulated and is "
+                          f"ignored; it affects the {ign[key]}, which only the noise "
+                          "analysis (solderless hiss) and renders with noise on read")
             elif key in ign:
                 self.warn(f"{where}model {model.name}: {k} is not simulated and is "
                           f"ignored; it affects the {ign[key]}")
