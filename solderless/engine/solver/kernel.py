@@ -199,7 +199,8 @@ FM = {"reassoc", "contract"}
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM, inline="always")
 def wave_value(kind, par, t):
-    """SPICE-style source waveform value at time t: 1 SIN, 2 PULSE, 3 PWL.
+    """SPICE-style source waveform value at time t: 1 SIN, 2 PULSE, 3 PWL,
+    4 NOISE (live noise samples, :mod:`solderless.engine.solver.livenoise`).
 
     par holds this source's parameters only."""
     if kind == 1:  # SIN(VO VA FREQ TD THETA PHASE)
@@ -225,6 +226,14 @@ def wave_value(kind, par, t):
         if tt < tf:
             return v2 + (v1 - v2) * tt / tf
         return v1
+    if kind == 4:  # NOISE: samples fed per block (solver/livenoise.py),
+        # par = [dt, k0, s0, s1 ...]: sample index round(t/dt) reads s[k - k0]
+        if par[0] <= 0.0:
+            return 0.0
+        j = int(t / par[0] + 0.5) - int(par[1])
+        if j < 0 or j >= par.size - 2:
+            return 0.0
+        return par[2 + j]
     if kind == 3:  # PWL(t0 v0 t1 v1 ...)
         n = par.size // 2
         if t <= par[0]:

@@ -420,9 +420,12 @@ class Network:
         return u
 
 
-WAVE_CODES = {"SIN": 1, "PULSE": 2, "PWL": 3}
+#: NOISE is a live noise source (solderless/engine/solver/livenoise.py): its
+#: samples are fed per block; with its default parameters it reads 0.
+WAVE_CODES = {"SIN": 1, "PULSE": 2, "PWL": 3, "NOISE": 4}
 _WAVE_DEFAULTS = {"SIN": [0.0, 0.0, 0.0, 0.0, 0.0, 0.0],
-                  "PULSE": [0.0, 0.0, 0.0, 0.0, 0.0, math.inf, math.inf]}
+                  "PULSE": [0.0, 0.0, 0.0, 0.0, 0.0, math.inf, math.inf],
+                  "NOISE": [0.0, 0.0]}
 
 
 def source_wave(el, step: float | None = None) -> tuple[int, np.ndarray]:
