@@ -50,6 +50,14 @@ from solderless.engine.solver.mna import Network
 from solderless.engine.solver.noise import FLICKER, NoiseSource, noise_sources
 from solderless.engine.solver.simulator import Simulator
 
+#: A noise source whose share of the output noise power (20 Hz-20 kHz, at
+#: the operating point, from the noise analysis) is below this is left out
+#: of the live simulation: each source costs a kernel column and a draw per
+#: sample, and in the built-in designs the sources under 1e-5 each add up
+#: to under 2e-5 of the power (1e-4 dB) while being half to two thirds of
+#: the sources (bench/bench_hiss.py).  ``HissSimulator(prune=False)``
+#: keeps them all.
+PRUNE_SHARE = 1e-5
 #: Prefix of the current sources live noise adds to a circuit.
 SOURCE_PREFIX = "hiss:"
 #: Lowest frequency of the pink filter's 1/f range, Hz (below it flat).
@@ -115,16 +123,25 @@ class HissSimulator(Simulator):
     """A :class:`Simulator` with the circuit's noise sources playing.
 
     Same arguments as :class:`Simulator`, plus ``seed`` (any int; the same
-    seed gives the same render) and ``flicker`` (False leaves KF out).
+    seed gives the same render), ``flicker`` (False leaves KF out) and
+    ``prune`` (False keeps the sources under :data:`PRUNE_SHARE`).
     ``sources`` lists the noise sources and ``sigmas`` their per-sample
     standard deviations (white sources, amps; flicker sources: the scale
     after the pink filter)."""
 
     def __init__(self, circuit: Circuit, *args, seed: int = 0, flicker: bool = True,
-                 **kwargs):
+                 prune: bool = True, **kwargs):
         base = Network(circuit)
         found = noise_sources(base, solve_dc(base))
         srcs = [s for s in found.sources if flicker or s.kind != FLICKER]
+        #: sources left out as negligible at the output (see PRUNE_SHARE)
+        self.pruned: list[str] = []
+        if prune and srcs:
+            from solderless.engine.analysis.noise import noise_floor
+            shares = dict(noise_floor(base).result.top(len(found.sources)))
+            if sum(shares.values()) > 0:
+                self.pruned = [s.name for s in srcs if shares.get(s.name, 0.0) < PRUNE_SHARE]
+                srcs = [s for s in srcs if s.name not in self.pruned]
         self.sources = srcs
         self.noise_notes = list(found.notes)
         self.seed = int(seed)
