@@ -47,8 +47,8 @@ RL out 0 100k
 """
 
 # a JFET stage and a forward-biased diode with series resistance and
-# flicker noise (our own typical values): channel thermal noise and the
-# diode's shot noise
+# flicker noise (our own typical values): channel thermal noise (JFET and
+# MOSFET: 4kT*2/3*gm) and the diode's shot noise
 JFET_STAGE = """jfet stage for the noise checks
 VDD vdd 0 12
 VIN src 0 DC 0 AC 1
@@ -65,6 +65,21 @@ VIN src 0 DC 1.2 AC 1
 R1 src out 10k
 D1 out 0 DX
 .model DX D(IS=1e-14 N=1.8 RS=5 KF=1e-16 AF=1.2)
+"""
+
+# a MOSFET stage with flicker noise, which ngspice-39 scales by W*Leff*Cox^2
+# (Cox from TOX); our own typical values
+MOS_STAGE = """mosfet stage for the noise checks
+VDD vdd 0 12
+VIN src 0 DC 0 AC 1
+CIN src g 1u
+RG1 vdd g 1meg
+RG2 g 0 330k
+RD vdd out 4.7k
+RS s 0 1k
+CS s 0 100u
+M1 out g s s MN W=100u L=10u
+.model MN NMOS(VTO=1.5 KP=50u LAMBDA=0.01 RD=5 RS=5 KF=2e-28 AF=1 TOX=50n)
 """
 
 TOL_DB = 1.0          # issue 18: within 1 dB from 100 Hz to 10 kHz
@@ -84,8 +99,8 @@ def _ngspice_noise(cards, f0=100.0, f1=10e3, per_decade=10):
 
 
 @pytest.mark.ngspice
-@pytest.mark.parametrize("cards", [DIVIDER, CE_STAGE, JFET_STAGE, DIODE],
-                         ids=["divider", "ce-stage", "jfet-stage", "diode"])
+@pytest.mark.parametrize("cards", [DIVIDER, CE_STAGE, JFET_STAGE, DIODE, MOS_STAGE],
+                         ids=["divider", "ce-stage", "jfet-stage", "diode", "mosfet-stage"])
 def test_noise_density_matches_ngspice(cards):
     """Output and input-referred noise density against ngspice-39's noise
     analysis, 100 Hz - 10 kHz, within 1 dB (measured: under 1e-4 dB)."""
@@ -240,3 +255,13 @@ def test_hiss_on_a_builtin_design(capsys):
     out = capsys.readouterr().out
     assert "A-weighted" in out and "Largest contributors" in out
     assert f"{dbv(fl.v_rms):.1f} dBV" in out
+
+
+def test_mosfet_flicker_needs_tox():
+    """Without TOX there is no oxide capacitance to scale KF by: the source
+    is left out and named."""
+    r = noise_spectrum(_circuit(MOS_STAGE.replace(" TOX=50n", "")), [100.0])
+    assert "M1.flicker" not in r.contributions
+    assert any("M1" in n and "TOX" in n for n in r.notes)
+    r = noise_spectrum(_circuit(MOS_STAGE), [100.0])
+    assert "M1.flicker" in r.contributions and not r.notes

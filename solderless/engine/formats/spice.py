@@ -352,9 +352,9 @@ class Netlist:
 # Reading lines
 
 #: Model parameters only the noise analysis and live noise read (flicker
-#: noise): carried on the element, and named in a warning as not simulated
+#: noise; TOX for a MOSFET's): carried on the element, and named in a warning as not simulated
 #: by a plain render.
-_NOISE_ONLY = {"KF", "AF"}
+_NOISE_ONLY = {"KF", "AF", "TOX"}
 _IGNORED_DOT = {
     ".tran", ".op", ".ac", ".dc", ".noise", ".disto", ".pz", ".sens", ".tf",
     ".four", ".options", ".option", ".opt", ".save", ".probe", ".print",
@@ -1466,8 +1466,9 @@ class _Reader:
                 # (solderless/engine/solver/noise.py); a plain render ignores it
                 out[key] = v
                 self.warn(f"{where}model {model.name}: {k} is not simulated and is "
-                          f"ignored; it affects the {ign[key]}, which only the noise "
-                          "analysis (solderless hiss) and renders with noise on read")
+                          f"ignored; it affects the {ign[key]} (the noise analysis, "
+                          "solderless hiss, and renders with --hiss read it for flicker "
+                          "noise)")
             elif key in ign:
                 self.warn(f"{where}model {model.name}: {k} is not simulated and is "
                           f"ignored; it affects the {ign[key]}")

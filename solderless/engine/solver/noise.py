@@ -17,9 +17,9 @@ spectral density in A^2/Hz:
   source (JFET, MOSFET level 1).
 * flicker noise where the model card gives KF: ``KF * |I|**AF / f``
   (AF default 1): the diode current, the BJT base current (B'-E'), the
-  JFET drain current.  MOSFET flicker noise (which ngspice scales by the
-  oxide capacitance and channel length) is left out and named in
-  ``NoiseSources.notes``.
+  JFET drain current; a MOSFET's drain current over W*M*Leff*Cox^2 as
+  ngspice-39's level 1 (Cox = 3.9*eps0/TOX; without TOX on the card it is
+  left out and named in ``NoiseSources.notes``).
 
 T is the circuit temperature (27 degC unless the circuit says otherwise),
 k and q the SI's exact Boltzmann constant and elementary charge.
@@ -43,6 +43,9 @@ from solderless.engine.devices._common import K_BOLTZMANN, Q_ELEMENTARY, circuit
 THERMAL = "thermal"
 SHOT = "shot"
 FLICKER = "flicker"
+
+#: Vacuum permittivity, F/m (as ngspice-39 writes it: 8.854214871e-12).
+EPS0 = 8.854214871e-12
 
 #: Device kinds whose noise is modelled (the rest are noiseless macromodels).
 NOISY_DEVICES = ("D", "Q", "J", "M")
@@ -150,5 +153,17 @@ def noise_sources(net, dc, values: dict | None = None) -> NoiseSources:
                     out.append(NoiseSource(f"{el.name}.flicker", el.name, FLICKER, d, s,
                                            flicker=kf * abs(i[1]) ** af))
                 else:
-                    notes.append(f"{el.name}: MOSFET flicker noise (KF) is not modelled")
+                    # ngspice-39 mos1noise.c: KF*|Id|^AF / (f * W * M * Leff * Cox^2),
+                    # Cox = 3.9*eps0/TOX; without TOX it has no oxide capacitance
+                    tox = _param(el, "TOX", 0.0)
+                    w, m = _param(el, "W", 100e-6), _param(el, "M", 1.0)
+                    leff = _param(el, "L", 100e-6) - 2.0 * _param(el, "LD", 0.0)
+                    if tox > 0 and leff > 0:
+                        cox = 3.9 * EPS0 / tox
+                        out.append(NoiseSource(f"{el.name}.flicker", el.name, FLICKER, d, s,
+                                               flicker=kf * abs(i[1]) ** af
+                                               / (w * m * leff * cox * cox)))
+                    else:
+                        notes.append(f"{el.name}: MOSFET flicker noise (KF) needs TOX on the "
+                                     "model card (the oxide capacitance); left out")
     return NoiseSources(out, temp, notes)
