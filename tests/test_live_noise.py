@@ -250,3 +250,13 @@ def test_play_with_hiss_reports_the_floor(tmp_path):
     assert s["hiss"]["seed"] == 4
     assert s["hiss"]["v_rms"] == pytest.approx(want.v_rms, rel=1e-9)
     assert s["hiss"]["v_rms_a"] == pytest.approx(want.v_rms_a, rel=1e-9)
+
+
+def test_noise_follows_a_live_temperature_change():
+    """4kT/R: at 77 degC a resistor's noise current rises by
+    sqrt(350.15/300.15) (the SI's kelvin: 0 degC = 273.15 K)."""
+    from solderless.engine.solver.simulator import TEMPERATURE_KEY
+    sim = HissSimulator(_circuit(DIVIDER), fs=FS, seed=2)
+    s0 = sim.sigmas.copy()
+    sim.set_values({TEMPERATURE_KEY: 77.0})
+    assert np.allclose(sim.sigmas, s0 * math.sqrt(350.15 / 300.15), rtol=1e-12)
