@@ -46,15 +46,26 @@ from __future__ import annotations
 from dataclasses import dataclass, field, replace
 from typing import Any
 
+from solderless.engine.derived import LiveMapping
+
 GROUND = "0"
 GROUND_ALIASES = {"0", "gnd", "ground"}
 
-KIND_NODES: dict[str, int] = {
+LINEAR_NODES: dict[str, int] = {
     "R": 2, "C": 2, "L": 2, "V": 2, "I": 2, "E": 4, "G": 4, "F": 2, "H": 2,
-    "D": 2, "Q": 3, "J": 3, "M": 4, "OPAMP": 5, "OTA": 5, "BEHAV": 2, "SW": 4,
 }
-LINEAR_KINDS = {"R", "C", "L", "V", "I", "E", "G", "F", "H"}
-DEVICE_KINDS = {"D", "Q", "J", "M", "OPAMP", "OTA", "BEHAV", "SW"}
+LINEAR_KINDS = set(LINEAR_NODES)
+
+
+def _kind_nodes() -> dict[str, int]:
+    from solderless.engine.devices.registry import NODE_COUNTS
+    return {**LINEAR_NODES, **NODE_COUNTS}
+
+
+#: element kind -> number of nodes: the linear kinds above and every device
+#: in the registry (solderless.engine.devices.registry: each device module
+#: declares its terminals)
+KIND_NODES = LiveMapping(_kind_nodes)
 
 
 def canonical_net(name: str) -> str:
@@ -131,3 +142,4 @@ class Circuit:
     def copy(self) -> "Circuit":
         return replace(self, elements=[e.copy() for e in self.elements],
                        nodeset=dict(self.nodeset), ic=dict(self.ic))
+
