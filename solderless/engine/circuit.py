@@ -39,6 +39,10 @@ BEHAV  (p, n)                         current SIGN*f flows p -> through it -> n;
 SW     (p, n, cp, cn)                 switch: params RON, ROFF, VT, VH, STATE
 ====== ============================== =========================================
 
+The device kinds (D to SW) are the device registry's
+(:mod:`solderless.engine.devices.registry`): each device module declares its
+terminals there, and :data:`KIND_NODES` reads them.
+
 The ground net is ``"0"``; :func:`canonical_net` maps ``gnd``/``GND`` to it.
 """
 from __future__ import annotations
@@ -109,7 +113,7 @@ class Circuit:
     title: str = ""
     where: Where | None = None
     #: {device element: {rating name: limit}} from the parts library
-    #: (solderless.engine.analysis.regions.RATING_NAMES); for reports only
+    #: (each device's DeviceKind.ratings); for reports only
     ratings: dict = field(default_factory=dict)
     #: devices whose design note says they are off at rest by design (reports)
     off_by_design: set = field(default_factory=set)

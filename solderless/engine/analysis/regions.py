@@ -25,8 +25,12 @@ operating point (SI units, the signs SPICE uses):
 Ratings come from the parts library (``solderless/presets/parts.toml``) with SPICE's
 names where SPICE has one: ICMAX, VCEMAX, PDMAX (BJT), IAVE, VPK, PDMAX
 (diode), VDSMAX, VGSMAX, PDMAX (JFET), VDSMAX, IDMAX, PDMAX (MOSFET),
-IABC_MAX (OTA). A part over a rating, or within ``MARGIN`` of saturation or
-cut-off where it should amplify, gets a warning.
+IABC_MAX (OTA): each device declares its rating names
+(``DeviceKind.ratings``, solderless/engine/devices/registry.py). A part over
+a rating, or within ``MARGIN`` of saturation or cut-off where it should
+amplify, gets a warning, from the device's own health hook
+(``DeviceKind.health``: the ``*_health`` functions below for the built-in
+devices).
 """
 from __future__ import annotations
 
@@ -36,19 +40,6 @@ MARGIN = 0.5        # V: this close to saturation or cut-off is reported
 DIODE_ON = 1e-6     # A: a diode conducting at least this is forward (common practice)
 OTA_OFF = 1e-9      # A: an OTA's control current under this is off
 OFF_BY_DESIGN = "off at rest"   # a part note with this phrase: cut off on purpose
-
-#: Regions in which a device amplifies (used for the near-edge warnings).
-AMPLIFYING = {"Q": "active", "J": "saturated", "M": "saturated"}
-
-
-def __getattr__(name):
-    # rating names per element kind: each device declares its own
-    # (solderless.engine.devices.registry, DeviceKind.ratings)
-    if name == "RATING_NAMES":
-        from solderless.engine.devices.registry import RATINGS
-        return RATINGS
-    raise AttributeError(name)
-
 
 def bjt_region(sign: float, ic: float, vce: float) -> str:
     """Region of a BJT; ``sign`` +1 for NPN, -1 for PNP."""
@@ -180,7 +171,7 @@ def warnings_for(name: str, kind: str, q: dict, region: str,
 
 
 def ratings_of(model) -> dict[str, float]:
-    """The ratings a parts-library model carries (see ``RATING_NAMES``)."""
+    """The ratings a parts-library model carries (its device's ``ratings``)."""
     from solderless.engine.devices.registry import RATINGS
     names = RATINGS.get(getattr(model, "element_kind", ""), ())
     return {k: float(model.params[k]) for k in names if k in model.params}
