@@ -65,6 +65,10 @@ def test_derived_tables_match_the_tables_they_replace():
                                         "pmos", "opamp", "ota"}
     assert tuple(measure.BJT_TYPES) == ("npn", "pnp")
     assert tuple(measure.FET_TYPES) == ("njfet", "pjfet", "nmos", "pmos")
+    from solderless.engine.analysis.montecarlo import REGION_KINDS
+    from solderless.engine.sanity import PARAM_RANGES
+    assert set(REGION_KINDS) == {"Q", "J", "M", "OPAMP", "OTA"}
+    assert set(PARAM_RANGES) == {"D", "Q", "J", "M"}
 
 
 def test_every_device_describes_itself_consistently():
@@ -72,6 +76,7 @@ def test_every_device_describes_itself_consistently():
         mod = registry.module(dev.kind)
         assert mod.KIND == dev.kind and mod.DEVICE is dev
         assert set(dev.units) <= set(dev.params), dev.kind
+        assert set(dev.ranges) <= set(dev.params), dev.kind
         assert set(dev.aliases.values()) <= set(dev.params) | set(dev.ignored), dev.kind
         assert not set(dev.params) & set(dev.ignored), dev.kind
         for p, t in dev.part_types.items():

@@ -945,7 +945,7 @@ class Design:
             if e.name in self._netlist_models:
                 m = lib.get(self._netlist_models[e.name])
                 params = dict(m.element_params())
-                if e.kind in ("Q", "J", "M"):
+                if _registry().DEVICES[e.kind].typed:
                     params["TYPE"] = str(m.kind).upper()
                 e.params = params
                 from solderless.engine.analysis.regions import ratings_of
@@ -1659,7 +1659,7 @@ def _stage_from_netlist(raw: dict, name: str, design_path: Path, w: Where) -> St
         ports = [str(p).lower() for p in raw.get("ports", ["in", "out"])]
     parts = []
     for e in elems:
-        if e.kind in ("Q", "J", "M", "D", "OPAMP", "OTA"):
+        if _registry().part_type_of(e.kind, e.params) is not None:   # a device part
             p = Part(name=e.name, type=_part_type(e), nodes=list(e.nodes), model="_inline",
                      params=dict(e.params), where=e.where or w)
         else:

@@ -325,8 +325,12 @@ DEVICE = DeviceKind(
     units={"IS": "A", "VAF": "V", "IKF": "A", "ISE": "A", "VAR": "V", "IKR": "A",
            "ISC": "A", "RB": "Ω", "IRB": "A", "RBM": "Ω", "RE": "Ω", "RC": "Ω",
            "EG": "eV", "TNOM": "°C"},
+    # ranges of real parts (common practice, solderless/engine/sanity.py)
+    ranges={"IS": (1e-21, 1e-2), "BF": (1.0, 1e4), "BR": (1e-3, 1e4), "NF": (0.5, 4.0),
+            "NR": (0.5, 4.0), "VAF": (1.0, None), "VAR": (0.1, None),
+            "RB": (0.0, 1e6), "RC": (0.0, 1e6), "RE": (0.0, 1e6)},
     also_read=frozenset({"AREA", "AREAB", "AREAC", "IBMAX", "ICMAX", "LEVEL", "MCONFIG",
                          "NK", "PDMAX", "QUASI", "TYPE", "VBCMAX", "VBEMAX", "VCEMAX"}),
     probes={"ib": "A", "ic": "A", "ie": "A", "vbe": "V", "vce": "V"},
     report=report, report_units={"gm": "S", "beta": ""}, health=regions.bjt_health,
-    transistor="bjt", ratings=("ICMAX", "VCEMAX", "PDMAX"), output=0)
+    transistor="bjt", steady_region=True, ratings=("ICMAX", "VCEMAX", "PDMAX"), output=0)

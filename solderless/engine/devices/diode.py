@@ -162,6 +162,8 @@ DEVICE = DeviceKind(
     model_types={"D": 1.0}, part_types={"diode": "D"}, part_nodes=("anode", "cathode"),
     letter="D", params=DEFAULTS, aliases=ALIASES, ignored=IGNORED,
     units={"IS": "A", "RS": "Ω", "BV": "V", "IBV": "A", "EG": "eV", "TNOM": "°C"},
+    # ranges of real parts (common practice, solderless/engine/sanity.py)
+    ranges={"IS": (1e-21, 1e-2), "N": (0.5, 4.0), "RS": (0.0, 1e6), "BV": (0.1, None)},
     also_read=frozenset({"BVJ", "DSKIP", "EGAP", "GAP1", "GAP2", "IK", "LEVEL", "PDMAX",
                          "TT1", "TT2", "TYPE", "VP"}),
     probes={"id": "A", "vd": "V"}, report=report, health=regions.diode_health,

@@ -186,7 +186,10 @@ DEVICE = DeviceKind(
     letter="J", params=DEFAULTS, aliases=ALIASES, ignored=IGNORED,
     units={"VTO": "V", "BETA": "A/V²", "LAMBDA": "1/V", "IS": "A", "RD": "Ω", "RS": "Ω",
            "B": "1/V", "PB": "V", "TNOM": "°C"},
+    # ranges of real parts (common practice, solderless/engine/sanity.py)
+    ranges={"VTO": (-50.0, 50.0), "BETA": (1e-9, 10.0), "IS": (1e-21, 1e-2),
+            "N": (0.5, 4.0), "LAMBDA": (0.0, 10.0), "RS": (0.0, 1e6), "RD": (0.0, 1e6)},
     also_read=frozenset({"LEVEL", "PDMAX", "TYPE"}),
     probes={"ig": "A", "id": "A", "vgs": "V", "vds": "V"},
     report=report, report_units={"gm": "S"}, health=regions.fet_health("JFET"),
-    transistor="fet", ratings=("VDSMAX", "VGSMAX", "PDMAX"), output=0)
+    transistor="fet", steady_region=True, ratings=("VDSMAX", "VGSMAX", "PDMAX"), output=0)

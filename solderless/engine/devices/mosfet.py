@@ -242,9 +242,12 @@ DEVICE = DeviceKind(
     letter="M", params=DEFAULTS, aliases=ALIASES, ignored=IGNORED,
     units={"VTO": "V", "KP": "A/V²", "LAMBDA": "1/V", "GAMMA": "√V", "PHI": "V",
            "IS": "A", "LD": "m", "RD": "Ω", "RS": "Ω", "W": "m", "L": "m"},
+    # ranges of real parts (common practice, solderless/engine/sanity.py)
+    ranges={"VTO": (-50.0, 50.0), "KP": (1e-9, 10.0), "LAMBDA": (0.0, 10.0),
+            "W": (1e-8, 1.0), "L": (1e-8, 1.0)},
     also_read=frozenset({"IDMAX", "KSUBTHRES", "LEVEL", "MTRIODE", "PDMAX", "TYPE",
                          "VDSMAX"}),
     instance=("W", "L", "M"), card_prefix="LEVEL=1", takes_off=False,
     probes={"id": "A", "vgs": "V", "vds": "V"},
     report=report, report_units={"gm": "S"}, health=regions.fet_health("MOSFET"),
-    transistor="fet", ratings=("VDSMAX", "IDMAX", "PDMAX"), output=0)
+    transistor="fet", steady_region=True, ratings=("VDSMAX", "IDMAX", "PDMAX"), output=0)

@@ -93,5 +93,6 @@ DEVICE = DeviceKind(
     params=DEFAULTS, units={"GBW": "Hz", "ROUT": "Ω", "RIN": "Ω", "VHR": "V",
                             "VSOFT": "V", "RP": "Ω"},
     probes={"iclip": "A"}, report=report, health=regions.opamp_health, output=2,
+    steady_region=True,
     library=frozenset({"A0", "GBW", "ROUT", "VHEAD", "IQ", "RIN"}),
     library_required=("A0", "GBW", "ROUT", "VHEAD"), library_aliases={"VHEAD": "VHR"})

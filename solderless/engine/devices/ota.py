@@ -124,5 +124,6 @@ DEVICE = DeviceKind(
                             "RIN": "Ω"},
     probes={"iabc": "A", "gm": "S", "iout": "A", "vd": "V", "vabc": "V"},
     report=report, health=regions.ota_health, ratings=("IABC_MAX",), output=2,
+    steady_region=True,
     library=frozenset({"IS", "N", "JUNCTIONS", "IABC_MAX", "VHEAD", "RIN"}),
     library_required=("IS", "N", "JUNCTIONS", "IABC_MAX", "VHEAD"))

@@ -57,6 +57,8 @@ class DeviceKind:
         card of that form; the B and S/W readers are the SPICE reader's own).
     params : simulated parameters and their defaults (SPICE names, SI).
     units : unit of each parameter that has one.
+    ranges : parameter -> (low, high) of real devices (None: no bound); a
+        value outside is warned about (solderless.engine.sanity).
     aliases : other spellings SPICE accepts -> the name in ``params``.
     ignored : standard parameters read but not simulated -> what they affect.
     also_read : further names a ``.model`` card may carry (ratings, labels,
@@ -71,6 +73,8 @@ class DeviceKind:
     health : ``health(name, q, region, ratings) -> [warning]``.
     report_units : units of the quantities ``report`` adds.
     transistor : "bjt" or "fet" for the transistor check, else None.
+    steady_region : its region at rest belongs to the design (a Monte Carlo
+        trial that moves it fails; diodes switch by design).
     ratings : rating names a parts-library model may carry for reports.
     output : index of the terminal the rail-proximity check watches.
     library : parts-library parameter names of a macromodel (None: the
@@ -90,6 +94,7 @@ class DeviceKind:
     part_optional: Mapping[str, str] = field(default_factory=dict)
     letter: str | None = None
     units: Mapping[str, str] = field(default_factory=dict)
+    ranges: Mapping[str, tuple] = field(default_factory=dict)
     aliases: Mapping[str, str] = field(default_factory=dict)
     ignored: Mapping[str, str] = field(default_factory=dict)
     also_read: frozenset = frozenset()
@@ -98,6 +103,7 @@ class DeviceKind:
     takes_off: bool = True
     report_units: Mapping[str, str] = field(default_factory=dict)
     transistor: str | None = None
+    steady_region: bool = False
     ratings: tuple[str, ...] = ()
     output: int | None = None
     library: frozenset | None = None
