@@ -84,6 +84,23 @@ def test_every_device_describes_itself_consistently():
         assert dev.report is not None, dev.kind
 
 
+def test_design_format_lists_the_device_part_types_as_declared():
+    # docs/design-format.md, "Part types": every device part type with its
+    # nodes in the order its device declares them
+    text = (Path(__file__).parent.parent / "docs" / "design-format.md").read_text()
+    rows = {}
+    for line in text.splitlines():
+        cells = [c.strip() for c in line.strip().strip("|").split("|")]
+        if len(cells) == 4:
+            for t in cells[0].split(", "):
+                rows[t] = re.sub(r"\s*\([^)]*\)", "", cells[1])   # without remarks
+    for ptype, (kind, nodes, _) in registry.PART_TYPES.items():
+        assert rows[ptype].startswith(", ".join(nodes)), ptype
+        dev = registry.DEVICES[kind]
+        if dev.part_optional:     # or with the optional node: the flat terminals
+            assert rows[ptype].endswith("or " + ", ".join(dev.terminals)), ptype
+
+
 def test_probe_units_follow_the_devices(tmp_path):
     # a probe's unit is the one its device declares (registry), e.g. a
     # switch's control voltage in V (the table this replaced had no entry)
