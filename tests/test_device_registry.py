@@ -109,6 +109,21 @@ def test_probe_units_follow_the_devices(tmp_path):
     assert sim.probe_units == ["A", "V", "A", "S"]
 
 
+def test_registry_refuses_a_device_that_takes_anothers_names():
+    import dataclasses
+    import types
+    for clash in ({"letter": "Q"}, {"model_types": {"NPN": 1.0}},
+                  {"part_types": {"diode": "TOYJ"}}, {"kind": "D"}):
+        fake = types.SimpleNamespace(**{k: getattr(toy, k) for k in
+                                        ("KIND", "CODE", "layout", "region")},
+                                     __name__="fake")
+        fake.DEVICE = dataclasses.replace(toy.DEVICE, **clash)
+        fake.KIND = fake.DEVICE.kind
+        with pytest.raises(ValueError):
+            registry.register(fake)
+    assert "TOYJ" not in registry.DEVICES
+
+
 # ----------------------------------------------------------------- toy device
 
 ISAT, VSLOPE, R1, VCC, IMAX = 1e-12, 0.05, 10e3, 5.0, 1e-4

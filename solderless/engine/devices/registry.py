@@ -137,6 +137,12 @@ def register(module: ModuleType) -> "DeviceKind":
     dev = module.DEVICE
     if not isinstance(getattr(module, "CODE", None), int):
         raise ValueError(f"device module {module.__name__} has no integer CODE")
+    for fn in ("layout", "region"):
+        if not callable(getattr(module, fn, None)):
+            raise ValueError(f"device module {module.__name__} has no {fn}()")
+    if getattr(module, "KIND", dev.kind) != dev.kind:
+        raise ValueError(f"device module {module.__name__}: KIND {module.KIND!r} is not "
+                         f"its DEVICE's kind {dev.kind!r}")
     if dev.kind in _DEVICES:
         raise ValueError(f"device kind {dev.kind!r} is registered already")
     for other in devices():

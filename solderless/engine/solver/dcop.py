@@ -257,7 +257,8 @@ def report(net: Network, sol: DCSolution, values: dict[str, float]) -> Operating
         # derived quantities (gm, beta) and its region, by the one
         # classifier op, the workbench and the demo read (regions.py)
         dev = DEVICES[el.kind]
-        d["region"] = dev.report(d, el, lay.par, v, i, Gb, mod.region(lay.par, v, i))
+        base = mod.region(lay.par, v, i)
+        d["region"] = dev.report(d, el, lay.par, v, i, Gb, base) if dev.report else base
         out_net = el.nodes[dev.output] if dev.output is not None else None
         off = el.name in (getattr(net.circuit, "off_by_design", None) or ())
         if off and d["region"] in ("cut-off", "off"):
