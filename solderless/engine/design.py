@@ -945,7 +945,8 @@ class Design:
             if e.name in self._netlist_models:
                 m = lib.get(self._netlist_models[e.name])
                 params = dict(m.element_params())
-                if _registry().DEVICES[e.kind].typed:
+                dev = _registry().DEVICES.get(e.kind)
+                if dev is not None and dev.typed:
                     params["TYPE"] = str(m.kind).upper()
                 e.params = params
                 from solderless.engine.analysis.regions import ratings_of
