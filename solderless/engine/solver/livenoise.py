@@ -44,7 +44,7 @@ import numpy as np
 from numba import njit
 
 from solderless.engine.circuit import Circuit, Element
-from solderless.engine.solver import kernel as K
+from solderless.engine.solver import kernel_layout as KL
 from solderless.engine.solver.dcop import solve_dc
 from solderless.engine.solver.mna import Network
 from solderless.engine.solver.noise import FLICKER, NoiseSource, noise_sources
@@ -198,7 +198,7 @@ class HissSimulator(Simulator):
 
     def _fill(self, n: int) -> None:
         """Draw this block's n kernel samples of every noise source."""
-        k0 = float(self._cnt[K.C_INDEX])  # kernel samples since reset
+        k0 = float(self._state[KL.STATE_INDEX])  # kernel samples since reset
         sig = self.sigmas
         unit = math.sqrt(self._fsk / 2.0)
         # sample-major draws (every source's sample k, then k+1 ...), so the
