@@ -39,6 +39,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from solderless.engine.analysis import compression as cp
+from solderless.engine.derived import LiveSet
 from solderless.engine.errors import DesignError, SolderlessError
 
 FS = 48000.0
@@ -57,7 +58,12 @@ DISTRIBUTIONS = ("uniform", "normal")
 MAX_TAIL = 8.0
 #: Devices whose region at rest must match the nominal design's for a trial
 #: to pass: transistors, op-amps and gain cells (diodes switch by design).
-REGION_KINDS = ("Q", "J", "M", "OPAMP", "OTA")
+REGION_KINDS = LiveSet(lambda: [d.kind for d in _devices() if d.steady_region])
+
+
+def _devices():
+    from solderless.engine.devices.registry import devices
+    return devices()
 
 
 def burst_timing(sim, fs: float, law: str = "linear", lead: float = 0.15,
