@@ -75,6 +75,9 @@ class DeviceKind:
     transistor : "bjt" or "fet" for the transistor check, else None.
     steady_region : its region at rest belongs to the design (a Monte Carlo
         trial that moves it fails; diodes switch by design).
+    headroom : ``headroom(q) -> volts or None``: how far the device sits
+        from the edge of its amplifying region at the operating point
+        (Monte Carlo's headroom figure).
     ratings : rating names a parts-library model may carry for reports.
     output : index of the terminal the rail-proximity check watches.
     library : parts-library parameter names of a macromodel (None: the
@@ -104,6 +107,7 @@ class DeviceKind:
     report_units: Mapping[str, str] = field(default_factory=dict)
     transistor: str | None = None
     steady_region: bool = False
+    headroom: Callable | None = None
     ratings: tuple[str, ...] = ()
     output: int | None = None
     library: frozenset | None = None
