@@ -16,12 +16,14 @@ keeping its own copy: the flat circuit's node counts
 kinds (:data:`solderless.engine.parts.KINDS`), the SPICE reader's and
 writer's card and model tables (:mod:`solderless.engine.formats.spice`), the
 operating-point report (:mod:`solderless.engine.solver.dcop`), the probe
-units (:mod:`solderless.engine.solver.simulator`) and the transistor check
-(:mod:`solderless.engine.analysis.measure`).
+units (:mod:`solderless.engine.solver.simulator`), the transistor check
+(:mod:`solderless.engine.analysis.measure`), the plausible parameter ranges
+(:mod:`solderless.engine.sanity`) and Monte Carlo's region and headroom
+figures (:mod:`solderless.engine.analysis.montecarlo`).
 
 Those tables are *live* (:mod:`solderless.engine.derived`): they read the
 registry when used, so a device registered later (``register(module)``, see
-DEVELOPERS.md "Adding a device") is known everywhere at once.
+DEVELOPERS.md "How to add a device") is known everywhere at once.
 """
 from __future__ import annotations
 
