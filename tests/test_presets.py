@@ -929,7 +929,7 @@ def test_region_check_covers_every_transistor_kind_in_the_registry(tmp_path):
         if not any(q.startswith("dut.") for q in want):
             continue
         op = Simulator(d.flatten(), fs=FS).operating_point()
-        rows = {r["part"]: r for r in measure.transistor_check(d, op)}
+        rows = {r["part"]: r for r in ms.transistor_check(d, op)}
         assert set(rows) == set(want), name
         for part, r in rows.items():
             assert r["region"] == "active" or (r["region"] == "off" and r["intended"]), \

@@ -9,7 +9,7 @@ rating IMAX. Its law I = ISAT*(exp(v/VSLOPE) - 1) + GMIN*v is the one the
 compiled kernel already runs for a diode (dispatch code ``diode.CODE``,
 solderless/engine/devices/diode.py: the parameter vector below is laid out as
 that module's, with no breakdown), so adding it touches no kernel file: one
-module and one registry line (DEVELOPERS.md, "Adding a device").
+module and one registry line (DEVELOPERS.md, "How to add a device").
 """
 from __future__ import annotations
 

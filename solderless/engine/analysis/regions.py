@@ -74,6 +74,16 @@ def fet_region(sign: float, vgs: float, vds: float, vth: float) -> str:
     return "saturated"
 
 
+def bjt_headroom(q: dict) -> float | None:
+    """Volts of Vce above saturation (VCE_SAT) at the operating point."""
+    return abs(q["vce"]) - VCE_SAT if "vce" in q else None
+
+
+def fet_headroom(q: dict) -> float | None:
+    """Volts of Vds at the operating point."""
+    return abs(q["vds"]) if "vds" in q else None
+
+
 def diode_region(vd: float, id_: float, bv: float | None) -> str:
     if bv is not None and bv > 0 and vd < -bv:
         return "breakdown"

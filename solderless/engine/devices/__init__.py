@@ -12,7 +12,7 @@ Jacobian block), numba ``limit(par, pa, vnew, vold, po)`` (junction
 limiting) and ``region(par, v, i)`` for reports.
 
 Adding a device: one module, and one line in ``BUILTIN`` below (see
-DEVELOPERS.md, "Adding a device"). A device with a new law also needs its
+DEVELOPERS.md, "How to add a device"). A device with a new law also needs its
 branch in the type-code dispatch of :mod:`solderless.engine.solver.kernel`
 (numba needs the call sites spelled out to compile one kernel for all
 devices); a test checks the codes against that dispatch.

@@ -333,4 +333,5 @@ DEVICE = DeviceKind(
                          "NK", "PDMAX", "QUASI", "TYPE", "VBCMAX", "VBEMAX", "VCEMAX"}),
     probes={"ib": "A", "ic": "A", "ie": "A", "vbe": "V", "vce": "V"},
     report=report, report_units={"gm": "S", "beta": ""}, health=regions.bjt_health,
-    transistor="bjt", steady_region=True, ratings=("ICMAX", "VCEMAX", "PDMAX"), output=0)
+    transistor="bjt", steady_region=True, headroom=regions.bjt_headroom,
+    ratings=("ICMAX", "VCEMAX", "PDMAX"), output=0)

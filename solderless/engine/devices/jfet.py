@@ -192,4 +192,5 @@ DEVICE = DeviceKind(
     also_read=frozenset({"LEVEL", "PDMAX", "TYPE"}),
     probes={"ig": "A", "id": "A", "vgs": "V", "vds": "V"},
     report=report, report_units={"gm": "S"}, health=regions.fet_health("JFET"),
-    transistor="fet", steady_region=True, ratings=("VDSMAX", "VGSMAX", "PDMAX"), output=0)
+    transistor="fet", steady_region=True, headroom=regions.fet_headroom,
+    ratings=("VDSMAX", "VGSMAX", "PDMAX"), output=0)

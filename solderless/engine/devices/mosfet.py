@@ -250,4 +250,5 @@ DEVICE = DeviceKind(
     instance=("W", "L", "M"), card_prefix="LEVEL=1", takes_off=False,
     probes={"id": "A", "vgs": "V", "vds": "V"},
     report=report, report_units={"gm": "S"}, health=regions.fet_health("MOSFET"),
-    transistor="fet", steady_region=True, ratings=("VDSMAX", "IDMAX", "PDMAX"), output=0)
+    transistor="fet", steady_region=True, headroom=regions.fet_headroom,
+    ratings=("VDSMAX", "IDMAX", "PDMAX"), output=0)

@@ -16,12 +16,14 @@ keeping its own copy: the flat circuit's node counts
 kinds (:data:`solderless.engine.parts.KINDS`), the SPICE reader's and
 writer's card and model tables (:mod:`solderless.engine.formats.spice`), the
 operating-point report (:mod:`solderless.engine.solver.dcop`), the probe
-units (:mod:`solderless.engine.solver.simulator`) and the transistor check
-(:mod:`solderless.engine.analysis.measure`).
+units (:mod:`solderless.engine.solver.simulator`), the transistor check
+(:mod:`solderless.engine.analysis.measure`), the plausible parameter ranges
+(:mod:`solderless.engine.sanity`) and Monte Carlo's region and headroom
+figures (:mod:`solderless.engine.analysis.montecarlo`).
 
 Those tables are *live* (:mod:`solderless.engine.derived`): they read the
 registry when used, so a device registered later (``register(module)``, see
-DEVELOPERS.md "Adding a device") is known everywhere at once.
+DEVELOPERS.md "How to add a device") is known everywhere at once.
 """
 from __future__ import annotations
 
@@ -75,6 +77,9 @@ class DeviceKind:
     transistor : "bjt" or "fet" for the transistor check, else None.
     steady_region : its region at rest belongs to the design (a Monte Carlo
         trial that moves it fails; diodes switch by design).
+    headroom : ``headroom(q) -> volts or None``: how far the device sits
+        from the edge of its amplifying region at the operating point
+        (Monte Carlo's headroom figure).
     ratings : rating names a parts-library model may carry for reports.
     output : index of the terminal the rail-proximity check watches.
     library : parts-library parameter names of a macromodel (None: the
@@ -104,6 +109,7 @@ class DeviceKind:
     report_units: Mapping[str, str] = field(default_factory=dict)
     transistor: str | None = None
     steady_region: bool = False
+    headroom: Callable | None = None
     ratings: tuple[str, ...] = ()
     output: int | None = None
     library: frozenset | None = None
