@@ -460,6 +460,17 @@ def test_caution_is_shown_once(qtbot, tmp_path, design_file):
         seen.append(any("Listening levels" in t for t in w.notices.texts()))
         w.close()
     assert seen == [True, False]
+    # one flag for every front end: shown by the workbench, not again by play
+    from solderless.engine.settings import caution_once
+    assert caution_once(seen.append, cfg) is False
+    # and the other way round
+    cfg2 = tmp_path / "cfg2"
+    assert caution_once(seen.append, cfg2) is True
+    w = make_window(load_design(design_file), config=cfg2, recover="no")
+    qtbot.addWidget(w)
+    w.ask = lambda _q: "discard"
+    assert not any("Listening levels" in t for t in w.notices.texts())
+    w.close()
 
 
 def test_pot_switch_and_custom_law_controls(win, qtbot):

@@ -34,7 +34,6 @@ microseconds of Python per block.
 """
 from __future__ import annotations
 
-import json
 import math
 import os
 import queue
@@ -46,13 +45,14 @@ from typing import Any, Callable
 
 import numpy as np
 
-from solderless.engine.autosave import Autosaves, config_dir  # noqa: F401  one folder for every front end
+from solderless.engine.autosave import Autosaves
 from solderless.engine.errors import AudioError, DesignError, SolderlessError
 from solderless.engine.live import limiter as lim
 from solderless.engine.live import meters as M
 from solderless.engine.live.loudness import RunningLoudness
 from solderless.engine.live.ring import FrameRing
 from solderless.engine.live.source import LiveInput, Source
+from solderless.engine.settings import config_dir
 
 from solderless.engine.levels import FULL_SCALE_DBU as DEFAULT_FULL_SCALE_DBU  # noqa: E402  (solderless/engine/levels.py)
 """Default input and output calibration: a full-scale sine is +3 dBU
@@ -81,32 +81,6 @@ IDLE_S = 0.1
 def full_scale_peak_from_dbu(dbu: float) -> float:
     """Peak volts of a full-scale sine whose RMS is ``dbu`` dBu."""
     return M.dbu_to_vrms(dbu) * math.sqrt(2.0)
-
-
-CAUTION = ("Caution: a circuit can oscillate or jump in level; keep the monitor "
-           "volume low at first to protect your hearing and your speakers.")
-
-
-def caution_once(say: Callable[[str], None] = print) -> bool:
-    """Show the hearing/speaker caution the first time only; remember that it
-    was shown in ``config_dir()/live.json``. Returns True if it was shown now."""
-    path = config_dir() / "live.json"
-    state: dict = {}
-    try:
-        state = json.loads(path.read_text())
-    except (OSError, ValueError):
-        state = {}
-    if state.get("caution_shown"):
-        return False
-    say(CAUTION)
-    state["caution_shown"] = True
-    try:
-        from solderless.engine.design import atomic_write_text
-        path.parent.mkdir(parents=True, exist_ok=True)
-        atomic_write_text(path, json.dumps(state))
-    except OSError:
-        pass
-    return True
 
 
 def default_simulator_factory(circuit, fs, oversample, probes):
