@@ -21,7 +21,7 @@ pytest.importorskip("solderless.engine.solver.simulator")
 from solderless.engine.design import load_design
 from solderless.gui.app import make_window, screenshot
 from solderless.gui.model import Autosave, Difference, differences
-from solderless.gui.snapshots import BlindTrial
+from solderless.engine.analysis.trial import BlindTrial
 
 HERE = Path(__file__).resolve().parent
 DIVIDER = HERE / "gui_divider.toml"
@@ -205,7 +205,7 @@ def test_blind_trial_probability():
 
 
 def test_blind_trial_needs_listening_and_logs_every_round():
-    from solderless.gui.snapshots import TrialError
+    from solderless.engine.analysis.trial import TrialError
     clock = _Clock()
     t = BlindTrial(4, seed=3, min_listen_s=2.0, clock=clock)
     # no answer before X has been heard for the minimum time, in one or more goes

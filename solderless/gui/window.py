@@ -32,7 +32,7 @@ from solderless.gui.livepanel import LivePanel
 from solderless.gui.midi import MidiKnobs, knob_map, open_input, set_knob_map
 from solderless.gui.model import Autosave, Workbench
 from solderless.gui.parts import PartsPanel
-from solderless.gui.preview import Analyser, make_source
+from solderless.gui.preview import Analyser
 from solderless.gui.snapshots import CURRENT, SnapshotPanel
 
 AUTOSAVE_MS = 15000
