@@ -70,9 +70,6 @@ of the pot's whole resistance (so a divider's ratio moves at most 0.5 % of
 full scale per block, whatever the taper): keeps the gain step per block well
 under a 220 Hz sine's own sample-to-sample change (2 sin(pi 220 / 48000) =
 2.9 % of its peak)."""
-POT_SERIES = "E3"
-"""Pots step through 1, 2.2, 4.7 per decade: the values pots are commonly
-made in (common practice, from memory), not E12/E24 resistor values."""
 MAX_RAMP_STEPS = 2000
 IDLE_S = 0.1
 """A ramp stops waiting for blocks when none has run for this long."""
@@ -1041,17 +1038,15 @@ class LiveHost:
     def step_value(self, part: str, steps: int = 1, series: str | None = None,
                    voice=None) -> Future:
         """Step a part's value ``steps`` places through an E-series (IEC
-        60063; default E24 for resistors, E12 for capacitors, and E3 - 1,
-        2.2, 4.7 per decade - for pots, the values pots are commonly made in,
-        from memory). Result: the new value."""
-        from solderless.engine.values import step_preferred
+        60063; by default the part's own series,
+        :func:`solderless.engine.values.stepping_series`). Result: the new value."""
+        from solderless.engine.values import step_preferred, stepping_series
 
         def edit(v):
             info = self.part_info(part, voice)
             if info.value is None or not info.value > 0:
                 raise DesignError("this part has no positive value to step", part=part)
-            ser = series or POT_SERIES if info.type == "pot" else \
-                series or ("E12" if info.type == "capacitor" else "E24")
+            ser = series or stepping_series(info.type)
             new = step_preferred(info.value, ser, steps)
             return v.design.set_value(part, new), new
         return self._post_part_edit(voice, edit, part)
