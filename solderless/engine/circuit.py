@@ -54,7 +54,6 @@ KIND_NODES: dict[str, int] = {
     "D": 2, "Q": 3, "J": 3, "M": 4, "OPAMP": 5, "OTA": 5, "BEHAV": 2, "SW": 4,
 }
 LINEAR_KINDS = {"R", "C", "L", "V", "I", "E", "G", "F", "H"}
-DEVICE_KINDS = {"D", "Q", "J", "M", "OPAMP", "OTA", "BEHAV", "SW"}
 
 
 def canonical_net(name: str) -> str:

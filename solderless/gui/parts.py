@@ -21,7 +21,7 @@ from PyQt6.QtCore import Qt, pyqtSignal
 from PyQt6.QtGui import QKeyEvent
 from PyQt6.QtWidgets import (QButtonGroup, QComboBox, QDial, QFrame, QGridLayout,
                              QHBoxLayout, QLabel, QLineEdit, QPushButton, QScrollArea,
-                             QSizePolicy, QToolButton, QVBoxLayout, QWidget)
+                             QToolButton, QVBoxLayout, QWidget)
 
 from solderless.engine.design import DEVICE_TYPES, taper_fraction
 from solderless.engine.errors import SolderlessError
@@ -335,7 +335,6 @@ class PotRow(PartRow):
 
     def __init__(self, wb, q, parent=None):
         super().__init__(wb, q, parent)
-        info = self.info()
         self.dial = PotDial()
         self.dial.setToolTip("turn the pot; arrows nudge 1 %, PgUp/PgDn 10 %")
         self.rot = QLabel()
