@@ -940,12 +940,6 @@ class Design:
             circ.temperature = self.temperature
         return circ
 
-    def resolve_net(self, name: str) -> str:
-        """Map a user net name (``stage.net``) to its flat net name."""
-        if self.netlist is not None:
-            return canonical_net(name.lower())
-        return _Flattener(self).run(resolve=name)
-
     def resolve_probe(self, expr: str) -> str:
         """Rewrite a probe expression's net names to flat names. A design's
         own probe name (``[[probe]] name``) stands for its expression."""

@@ -21,8 +21,7 @@ from typing import Any, Callable
 
 from PyQt6.QtCore import QObject, pyqtSignal
 
-from solderless.engine.design import (Design, Link, atomic_write_text, load_design,
-                           load_stage_template)
+from solderless.engine.design import Design, Link, load_design, load_stage_template
 from solderless.engine.autosave import Autosaves
 from solderless.engine.errors import DesignError, SolderlessError
 from solderless.engine.values import format_value
@@ -622,9 +621,6 @@ class Workbench(QObject):
     def recall_snapshot(self, name: str) -> None:
         """Make a snapshot the current design (an undoable edit)."""
         snap = self.snapshot(name).design
-
-        def fn(d):
-            return None
         before = self.design.copy()
         self._undo.append((f"recall {name}", before, None, 0.0))
         self._redo.clear()
