@@ -13,7 +13,7 @@ import sys
 from pathlib import Path
 
 from solderless.engine.analysis.montecarlo_report import csv_cell, write_montecarlo, write_text
-from solderless.engine.errors import DesignError, SolderlessError
+from solderless.engine.errors import DesignError
 
 
 def _design_arg(p):
@@ -30,13 +30,8 @@ def _load(args):
 
 
 def _outdir(path: str) -> Path:
-    out = Path(path)
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise SolderlessError(f"cannot create the output folder: {exc.strerror or exc}",
-                              file=str(out), hint="choose another --out folder") from None
-    return out
+    from solderless.engine.fileio import output_folder
+    return output_folder(path)
 
 
 # ------------------------------------------------------------------ build
