@@ -17,11 +17,8 @@ from solderless.engine.errors import DesignError
 
 
 def _design_arg(p):
-    p.add_argument("design", help="design file (.toml), built-in design name, or SPICE netlist")
-    p.add_argument("--in-source", default="VIN", metavar="NAME",
-                   help="netlists only: the voltage source the input drives (default VIN)")
-    p.add_argument("--out-node", default="out", metavar="NAME",
-                   help="netlists only: the output node (default out)")
+    from solderless.app.cli import _add_design_arg
+    _add_design_arg(p)
 
 
 def _load(args):

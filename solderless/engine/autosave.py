@@ -17,8 +17,8 @@ boot id). So:
   :meth:`Autosaves.adopted` once its content is safe in the new session).
   A scripted run (the workbench's ``--screenshot``) does not look at them.
 
-Autosaves written before this scheme (``<key>.toml``) are read too: with a
-sidecar they were the workbench's, without one the console's.
+An autosave named ``<key>.toml`` (no front end in its name) is read too:
+with a sidecar it is the workbench's, without one the console's.
 """
 from __future__ import annotations
 

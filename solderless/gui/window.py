@@ -41,7 +41,7 @@ DYN_DEBOUNCE_MS = 1500
 """While playing live, attack and release are measured again only after the
 edits have paused this long: the measurement simulates 2.6 s of audio in
 this process and would take frames from the meters during a knob sweep
-(bench/bench_gui.py: 17 instead of 27 frames per second)."""
+(bench/bench_gui.py measures the frame rate)."""
 METER_MS = 30          # about 33 frames per second (target: at least 30)
 NETLIST_FILTER = "SPICE netlists (*.cir *.sp *.spice *.net *.ckt *.txt)"
 DESIGN_FILTER = "Solderless designs (*.toml)"
