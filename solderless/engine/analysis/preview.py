@@ -2,7 +2,7 @@
 host run without a sound card (:func:`run_preview`, :func:`run_ab_offline`),
 the operating point as table rows, the small-signal response, attack and
 release, and the A/B overlay curves. Plain functions on a design; the
-workbench runs them on a worker thread (:mod:`solderless.gui.preview`).
+workbench runs them on a worker thread.
 """
 from __future__ import annotations
 
