@@ -10,8 +10,12 @@ block).  Kernels are warmed first; the two are timed alternately,
 (``time.process_time``: the machine is shared).  Real-time factor = audio
 seconds / CPU seconds.  Also gives the number of noise sources, the extra
 states of work per sample (iterations per kernel sample, off and on) and
-the share of the noisy run spent drawing the noise (``_fill``).  Prints a
-table and writes bench/results/hiss.json.
+the share of the noisy run spent drawing the noise (``_fill``).  Then, for
+the flagship and the booster, the simulator alone at 64-sample blocks:
+median and p99.9 of each block's best CPU time over 3 passes, as a
+fraction of the block period, noise off and on (the live host adds its
+limiter, meters and stream on top).  Prints tables and writes
+bench/results/hiss.json.
 
 Run from the repository root:  python bench/bench_hiss.py [--repeat N] [--seconds S]
 """
@@ -56,6 +60,49 @@ def _fill_time(sim, n_blocks, n):
     return time.process_time() - t0
 
 
+def _live_blocks(sim, x, block, passes):
+    """Each block's smallest thread CPU time over ``passes`` runs from the
+    operating point (the simulator alone: no limiter, meters or stream)."""
+    nb = x.size // block
+    best = np.full(nb, np.inf)
+    y = np.empty(block)
+    for _ in range(passes):
+        sim.reset()
+        for b in range(nb):
+            t0 = time.thread_time()
+            sim.process_into(x[b * block:(b + 1) * block], y)
+            dt = time.thread_time() - t0
+            if dt < best[b]:
+                best[b] = dt
+    return best
+
+
+def live_table(x, designs, block=64, passes=3) -> list[dict]:
+    """p99.9 of the per-block CPU time as a fraction of the block period,
+    noise off and on, at ``block`` samples."""
+    period = block / FS
+    rows = []
+    print(f"\nsimulator alone, {block}-sample blocks, each block's best of {passes} passes "
+          "(fraction of the block period)")
+    print(f"{'design':<28} {'p50 off':>8} {'on':>6} {'p99.9 off':>10} {'on':>6}")
+    for name in designs:
+        d = load_design(name)
+        circ = d.flatten()
+        sims = (Simulator(circ, fs=FS, oversample=d.oversample, block_max=block),
+                HissSimulator(circ, fs=FS, oversample=d.oversample, block_max=block, seed=1))
+        res = {}
+        for tag, sim in zip(("off", "on"), sims):
+            sim.process_into(np.zeros(block), np.empty(block))
+            t = _live_blocks(sim, x, block, passes) / period
+            res[tag] = (float(np.median(t)), float(np.quantile(t, 0.999)))
+        rows.append({"design": name, "block": block, "p50_off": res["off"][0],
+                     "p50_on": res["on"][0], "p999_off": res["off"][1],
+                     "p999_on": res["on"][1]})
+        print(f"{name:<28} {res['off'][0]:>8.3f} {res['on'][0]:>6.3f} {res['off'][1]:>10.3f} "
+              f"{res['on'][1]:>6.3f}")
+    return rows
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=3)
@@ -93,7 +140,9 @@ def main() -> int:
         print(f"{name:<28} {d.oversample:>3} {len(on.sources):>4} {row['rt_off']:>9.1f} "
               f"{row['rt_on']:>8.1f} {row['cost_ratio']:>6.2f}x {it_off:>10.2f} "
               f"{it_on:>6.2f} {100 * row['draw_share_of_on']:>6.1f}%")
+    live = live_table(x[: int(min(args.seconds, 4.0) * FS)], ["flagship", "booster"])
     out = {"bench": "hiss", "fs": FS, "block": BLOCK, "audio_seconds": audio_s,
+           "live_64": live,
            "repeat": args.repeat, "timer": "process_time (best of repeat)",
            "machine": {"platform": platform.platform(), "cpus": os.cpu_count(),
                        "load_avg": os.getloadavg() if hasattr(os, "getloadavg") else None},

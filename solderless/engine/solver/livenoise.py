@@ -111,6 +111,26 @@ def _sos_inplace(sos, zi, x, n):  # pragma: no cover - compiled
         x[k] = v
 
 
+@njit(cache=True, nogil=True)
+def _scatter(draw, n, spar, offs, k0, sig, flick, unit, sos, zi):  # pragma: no cover
+    """Copy each source's column of this block's unit draws into its
+    buffer in spar (at offs[j] + 2, after dt and k0), scaled by sig[j];
+    flicker sources pass through the pink filter first."""
+    for j in range(offs.size):
+        o = offs[j]
+        spar[o + 1] = k0
+        if flick[j]:
+            for k in range(n):
+                spar[o + 2 + k] = draw[k, j] * unit
+            _sos_inplace(sos, zi[j], spar[o + 2:o + 2 + n], n)
+            for k in range(n):
+                spar[o + 2 + k] *= sig[j]
+        else:
+            sj = sig[j]
+            for k in range(n):
+                spar[o + 2 + k] = draw[k, j] * sj
+
+
 def with_noise_sources(circuit: Circuit, sources: list[NoiseSource]) -> Circuit:
     """A copy of ``circuit`` with one NOISE current source per noise source,
     named ``hiss:<source>``, reading 0 until samples are fed."""
@@ -160,7 +180,8 @@ class HissSimulator(Simulator):
         self._sptr = np.zeros(len(pars) + 1, dtype=np.int64)
         self._sptr[1:] = np.cumsum([p.size for p in pars])
         self._spar = np.ascontiguousarray(np.concatenate(pars) if pars else np.zeros(0))
-        self._flick = np.array([s.kind == FLICKER for s in srcs], dtype=bool)
+        self._offs = np.array([self._sptr[k] for k in self._nidx], dtype=np.int64)
+        self._flick = np.array([s.kind == FLICKER for s in srcs], dtype=np.bool_)
         self._sos = pink_sos(self._fsk) if self._flick.any() else np.zeros((0, 6))
         self._zi = np.zeros((len(srcs), self._sos.shape[0], 2))
         self.sigmas = self._amplitudes(self._values)
@@ -198,23 +219,12 @@ class HissSimulator(Simulator):
 
     def _fill(self, n: int) -> None:
         """Draw this block's n kernel samples of every noise source."""
-        k0 = float(self._state[KL.STATE_INDEX])  # kernel samples since reset
-        sig = self.sigmas
-        unit = math.sqrt(self._fsk / 2.0)
         # sample-major draws (every source's sample k, then k+1 ...), so the
         # sequence does not depend on how the input is cut into blocks
         draw = self._draw[:n]
         self._rng.standard_normal(out=draw)
-        for j in range(self._nidx.size):
-            o = self._sptr[self._nidx[j]]
-            self._spar[o + 1] = k0
-            buf = self._spar[o + 2:o + 2 + n]
-            if self._flick[j]:
-                np.multiply(draw[:, j], unit, out=buf)
-                _sos_inplace(self._sos, self._zi[j], buf, n)
-                buf *= sig[j]
-            else:
-                np.multiply(draw[:, j], sig[j], out=buf)
+        _scatter(draw, n, self._spar, self._offs, float(self._state[KL.STATE_INDEX]),
+                 self.sigmas, self._flick, math.sqrt(self._fsk / 2.0), self._sos, self._zi)
 
     def process_into(self, x, y, probe_buf=None, probe_start: int = 0) -> int:
         self._fill(x.shape[0] * self.oversample)
