@@ -10,10 +10,8 @@ rebuild). No numerics here.
 """
 from __future__ import annotations
 
-import copy
 import json
 import os
-import re
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -21,315 +19,20 @@ from typing import Any, Callable
 
 from PyQt6.QtCore import QObject, pyqtSignal
 
-from solderless.engine.design import (Design, Link, atomic_write_text, load_design,
-                           load_stage_template)
+from solderless.engine.design import Design, atomic_write_text, load_design
 from solderless.engine.autosave import Autosaves, config_dir  # noqa: F401  one scheme, one folder
-from solderless.engine.errors import DesignError, SolderlessError
-from solderless.engine.values import format_value
+from solderless.engine.errors import SolderlessError
 
 UNDO_LIMIT = 500
 MERGE_SECONDS = 1.5     # repeated nudges of one control within this time are one undo step
 
 
-# ------------------------------------------------------------ structural edits
-# Functions on a Design and its tomlkit document (design.doc, design._stage_docs),
-# so that saving keeps them. They raise DesignError for a user mistake.
-
-def _stage_aot(d: Design):
-    import tomlkit
-    if d.doc is None:
-        raise DesignError("a design imported from a netlist has one fixed stage",
-                          file=d._file(), hint="save it as a .toml design first "
-                          "(File > Save as) and edit that")
-    if "stage" not in d.doc:
-        d.doc["stage"] = tomlkit.aot()
-    return d.doc["stage"]
-
-
-def unique_stage_name(d: Design, base: str) -> str:
-    """``base`` or ``base-2``, ``base-3`` ... whichever no stage uses yet."""
-    base = re.sub(r"[^A-Za-z0-9_\-]", "-", base) or "stage"
-    names = {s.name for s in d.stages}
-    if base not in names:
-        return base
-    root = re.sub(r"-\d+$", "", base)
-    i = 2
-    while f"{root}-{i}" in names:
-        i += 1
-    return f"{root}-{i}"
-
-
-def add_stage(d: Design, template: str, index: int | None = None,
-              name: str | None = None) -> str:
-    """Insert a stage from the stage library (``group/name``) at ``index``
-    (default: the end); return its name."""
-    import tomlkit
-    aot = _stage_aot(d)
-    st = load_stage_template(template)
-    st.name = unique_stage_name(d, name or template.split("/")[-1])
-    st.template = template
-    idx = len(d.stages) if index is None else max(0, min(index, len(d.stages)))
-    t = tomlkit.table()
-    t["name"] = st.name
-    t["template"] = template
-    d.stages.insert(idx, st)
-    aot.insert(idx, t)
-    d._stage_docs[st.name] = aot[idx]
-    d.dirty = True
-    return st.name
-
-
-def insert_stage(d: Design, stage, doc_table, index: int) -> None:
-    """Insert a ready stage and its document table (used by import and duplicate)."""
-    aot = _stage_aot(d)
-    idx = max(0, min(index, len(d.stages)))
-    d.stages.insert(idx, stage)
-    aot.insert(idx, doc_table)
-    d._stage_docs[stage.name] = aot[idx]
-    d.dirty = True
-
-
-def remove_stage(d: Design, name: str) -> None:
-    """Remove a stage and every link that touches it."""
-    st = d.stage(name)
-    if len(d.stages) == 1:
-        raise DesignError("a design needs at least one stage", part=name, file=d._file(),
-                          hint="add another stage before removing this one")
-    aot = _stage_aot(d)
-    i = d.stages.index(st)
-    d.stages.pop(i)
-    aot.pop(i)
-    d._stage_docs.pop(name, None)
-    keep = [k for k, ln in enumerate(d.links) if name not in (ln.a[0], ln.b[0])]
-    _drop_links(d, [k for k in range(len(d.links)) if k not in keep])
-    d.dirty = True
-
-
-def move_stage(d: Design, name: str, delta: int) -> int:
-    """Move a stage ``delta`` places along the chain; return its new index."""
-    st = d.stage(name)
-    aot = _stage_aot(d)
-    i = d.stages.index(st)
-    j = max(0, min(len(d.stages) - 1, i + int(delta)))
-    if i == j:
-        return i
-    d.stages.insert(j, d.stages.pop(i))
-    t = aot.pop(i)
-    aot.insert(j, t)
-    d._stage_docs[name] = aot[j]
-    d.dirty = True
-    return j
-
-
-def duplicate_stage(d: Design, name: str) -> str:
-    """Insert a copy of a stage right after it; return the copy's name."""
-    st = d.stage(name)
-    new = copy.deepcopy(st)
-    new.name = unique_stage_name(d, name)
-    t = copy.deepcopy(d._stage_docs[name])
-    t["name"] = new.name
-    insert_stage(d, new, t, d.stages.index(st) + 1)
-    return new.name
-
-
-def import_netlist_stage(d: Design, netlist: str | os.PathLike, index: int | None = None,
-                         subckt: str | None = None) -> str:
-    """Add a SPICE netlist as a stage (its ``in``/``out`` nets, or a .subckt's
-    pins, are the ports). The path is stored relative to the design file."""
-    import tomlkit
-    from solderless.engine.design import _stage_from_netlist
-    np_ = Path(netlist).resolve()
-    base = d.path.parent.resolve() if d.path else Path.cwd()
-    try:
-        rel = os.path.relpath(np_, base)
-    except ValueError:
-        rel = str(np_)
-    raw = {"netlist": rel}
-    if subckt:
-        raw["subckt"] = subckt
-    name = unique_stage_name(d, np_.stem)
-    fake = base / "_"
-    st = _stage_from_netlist(raw, name, fake, d.stage(d.stages[0].name).where
-                             if d.stages else None)
-    t = tomlkit.table()
-    t["name"] = name
-    for k, v in raw.items():
-        t[k] = v
-    insert_stage(d, st, t, len(d.stages) if index is None else index)
-    return name
-
-
-def _link_aot(d: Design):
-    import tomlkit
-    if d.doc is None:
-        raise DesignError("links need a .toml design", file=d._file(),
-                          hint="save the design as a .toml file first")
-    if "link" not in d.doc:
-        d.doc["link"] = tomlkit.aot()
-    return d.doc["link"]
-
-
-def add_link(d: Design, a: tuple[str, str], b: tuple[str, str]) -> None:
-    """Join port ``a`` = (stage, port) to port ``b``."""
-    import tomlkit
-    for s, p in (a, b):
-        st = d.stage(s)
-        if p not in st.ports:
-            raise DesignError(f"stage '{s}' has no port '{p}'", file=d._file(), part=s,
-                              hint="its ports are " + ", ".join(st.ports))
-    if a == b:
-        raise DesignError("a port cannot be linked to itself", part=f"{a[0]}.{a[1]}")
-    for ln in d.links:
-        if {ln.a, ln.b} == {a, b}:
-            raise DesignError(f"{a[0]}.{a[1]} and {b[0]}.{b[1]} are linked already",
-                              file=d._file())
-    aot = _link_aot(d)
-    t = tomlkit.table()
-    t["from"] = f"{a[0]}.{a[1]}"
-    t["to"] = f"{b[0]}.{b[1]}"
-    aot.append(t)
-    d.links.append(Link(a, b))
-    d.dirty = True
-
-
-def _drop_links(d: Design, indices: list[int]) -> None:
-    aot = d.doc.get("link") if d.doc is not None else None
-    for k in sorted(indices, reverse=True):
-        ln = d.links.pop(k)
-        if aot is not None:
-            for j, t in enumerate(aot):
-                if {str(t.get("from")), str(t.get("to"))} == {f"{ln.a[0]}.{ln.a[1]}",
-                                                              f"{ln.b[0]}.{ln.b[1]}"}:
-                    aot.pop(j)
-                    break
-
-
-def remove_link(d: Design, index: int) -> None:
-    """Remove the link at ``index`` of ``d.links``."""
-    if not 0 <= index < len(d.links):
-        raise DesignError(f"there is no link number {index + 1}", file=d._file())
-    _drop_links(d, [index])
-    d.dirty = True
-
-
-def set_tolerance(d: Design, qualname: str, tol: float | None) -> None:
-    """Set a part's tolerance (a fraction, or None to remove it); saved in the
-    part's own table, or as a [stage.tolerances] override for template parts."""
-    d.set_tolerance(qualname, tol)
-
-
-# ------------------------------------------------------------ differences
-
-@dataclass(frozen=True)
-class Difference:
-    """One thing that differs between two designs."""
-    what: str       # "R1 (gain)", "stage gain", "link a.env - b.ctl"
-    field: str      # value, rotation, taper, position, tolerance, model, bypass, present, order
-    a: str
-    b: str
-
-
-def _exact(x: float | None, unit: str) -> str:
-    if x is None:
-        return "-"
-    return format_value(x, unit, style="eng", digits=6)
-
-
-def _text_pair(x, y, unit):
-    """Readable texts for two different numbers, with enough digits to differ."""
-    sa, sb = _exact(x, unit), _exact(y, unit)
-    if sa == sb:
-        sa, sb = repr(x), repr(y)
-    return sa, sb
-
-
-def differences(a: Design, b: Design) -> list[Difference]:
-    """Exactly what differs between designs ``a`` and ``b``, part by part:
-    values, pot rotations and tapers, switch positions, tolerances, models,
-    stage presence, order and bypass, and links. Equal floats compare equal;
-    any other change is listed."""
-    out: list[Difference] = []
-    sa = [s.name for s in a.stages]
-    sb = [s.name for s in b.stages]
-    for n in sa:
-        if n not in sb:
-            out.append(Difference(f"stage {n}", "present", "yes", "no"))
-    for n in sb:
-        if n not in sa:
-            out.append(Difference(f"stage {n}", "present", "no", "yes"))
-    common_a = [n for n in sa if n in sb]
-    common_b = [n for n in sb if n in sa]
-    if common_a != common_b:
-        out.append(Difference("chain", "order", " > ".join(common_a), " > ".join(common_b)))
-    for n in common_a:
-        if a.stage(n).bypass != b.stage(n).bypass:
-            out.append(Difference(f"stage {n}", "bypass", _onoff(a.stage(n).bypass),
-                                  _onoff(b.stage(n).bypass)))
-    pa = {p.qualname: p for p in a.parts()}
-    pb = {p.qualname: p for p in b.parts()}
-    for q in list(pa) + [q for q in pb if q not in pa]:
-        x, y = pa.get(q), pb.get(q)
-        label = q
-        if x is None or y is None:
-            if (x or y).stage in common_a or not (x or y).stage:
-                out.append(Difference(label, "present", "yes" if x else "no",
-                                      "yes" if y else "no"))
-            continue
-        if x.type != y.type:
-            out.append(Difference(label, "type", x.type, y.type))
-            continue
-        if x.value != y.value:
-            out.append(Difference(label, "value", *_text_pair(x.value, y.value, x.unit)))
-        if x.is_pot and x.rotation != y.rotation:
-            ta, tb = (f"{100 * x.rotation:.4g} %", f"{100 * y.rotation:.4g} %")
-            if ta == tb:
-                ta, tb = repr(x.rotation), repr(y.rotation)
-            out.append(Difference(label, "rotation", ta, tb))
-        if x.is_pot and x.taper != y.taper:
-            out.append(Difference(label, "taper", taper_text(x.taper), taper_text(y.taper)))
-        if x.position != y.position:
-            la = x.labels[x.position] if x.labels and x.position is not None else str(x.position)
-            lb = y.labels[y.position] if y.labels and y.position is not None else str(y.position)
-            out.append(Difference(label, "position", la, lb))
-        if x.tolerance != y.tolerance:
-            out.append(Difference(label, "tolerance", _tol(x.tolerance), _tol(y.tolerance)))
-        if x.model != y.model:
-            out.append(Difference(label, "model", str(x.model), str(y.model)))
-        if x.stage or "." in q:
-            try:
-                px, py = a.part(q).params, b.part(q).params
-            except SolderlessError:
-                px = py = {}
-            for k in sorted(set(px) | set(py)):
-                if px.get(k) != py.get(k):
-                    out.append(Difference(label, f"param {k}", str(px.get(k, "-")),
-                                          str(py.get(k, "-"))))
-    la = {_link_key(ln) for ln in a.links}
-    lb = {_link_key(ln) for ln in b.links}
-    for k in sorted(la - lb):
-        out.append(Difference(f"link {k}", "present", "yes", "no"))
-    for k in sorted(lb - la):
-        out.append(Difference(f"link {k}", "present", "no", "yes"))
-    return out
-
-
-def _onoff(v: bool) -> str:
-    return "bypassed" if v else "in circuit"
-
-
-def _tol(t):
-    return "-" if t is None else f"{t * 100:g} %"
-
-
-def _link_key(ln: Link) -> str:
-    ends = sorted([f"{ln.a[0]}.{ln.a[1]}", f"{ln.b[0]}.{ln.b[1]}"])
-    return f"{ends[0]} - {ends[1]}"
-
-
-def taper_text(taper: Any) -> str:
-    if isinstance(taper, str):
-        return taper
-    return "custom " + " ".join(f"({r:g},{f:g})" for r, f in taper)
+from solderless.engine.design.differences import (Difference, _link_key,  # noqa: F401
+                                                  differences, same_structure, taper_text)
+from solderless.engine.design.edits import (add_link, add_stage, duplicate_stage,  # noqa: F401
+                                            import_netlist_stage, insert_stage, move_stage,
+                                            remove_link, remove_stage, set_tolerance,
+                                            unique_stage_name)
 
 
 # ------------------------------------------------------------ the workbench
@@ -635,16 +338,7 @@ class Workbench(QObject):
         self.history_changed.emit()
 
 
-def _same_structure(a: Design, b: Design) -> bool:
-    if [(s.name, s.bypass, s.template, tuple(s.ports), tuple(p.name for p in s.parts))
-            for s in a.stages] != [(s.name, s.bypass, s.template, tuple(s.ports),
-                                    tuple(p.name for p in s.parts)) for s in b.stages]:
-        return False
-    if [_link_key(x) for x in a.links] != [_link_key(x) for x in b.links]:
-        return False
-    pa = [(p.qualname, p.position, p.model) for p in a.parts()]
-    pb = [(p.qualname, p.position, p.model) for p in b.parts()]
-    return pa == pb
+_same_structure = same_structure
 
 
 # ------------------------------------------------------------ files and settings
