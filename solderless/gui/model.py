@@ -1,12 +1,14 @@
 """The workbench's model: the open design, every edit with undo and redo,
-structural edits the design layer does not offer yet, snapshots and their
-part-by-part difference, autosave with crash recovery, and small settings.
+snapshots, autosave with crash recovery, and small settings.
 
 Widgets never change a :class:`solderless.engine.design.Design` themselves: they call a
-:class:`Workbench` method, which records an undo step, applies the edit through
-the design layer and emits a signal saying what changed (element values, which
-a running simulator takes without a reset, or the structure, which needs a
-rebuild). No numerics here.
+:class:`Workbench` method, which applies an edit
+(:mod:`solderless.engine.design.edits`, data), keeps its inverse as the undo
+step and emits signals saying what changed (element values, which a running
+simulator takes without a reset, or the structure, which needs a rebuild)
+and the edit itself, which the window sends to a running live host. The
+design layer (edits, differences) lives in :mod:`solderless.engine.design`;
+its names are re-exported here. No numerics here.
 """
 from __future__ import annotations
 
@@ -15,7 +17,7 @@ import os
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 from PyQt6.QtCore import QObject, pyqtSignal
 
@@ -23,16 +25,21 @@ from solderless.engine.design import Design, atomic_write_text, load_design
 from solderless.engine.autosave import Autosaves, config_dir  # noqa: F401  one scheme, one folder
 from solderless.engine.errors import SolderlessError
 
+from solderless.engine.design.differences import (Difference, _link_key,  # noqa: F401
+                                                  differences, same_structure, taper_text)
+from solderless.engine.design.edits import (  # noqa: F401
+    AddLink, AddProbe, AddStage, Applied, DuplicateStage, Edit, ImportStage, MoveStage,
+    RemoveLink, RemoveStage, ReplaceDesign, RestoreModel, SetBypass, SetModel, SetPosition,
+    SetRotation, SetTaper, SetTolerance, SetValue, add_link, add_stage, apply_edit,
+    duplicate_stage, import_netlist_stage, insert_stage, move_stage, remove_link, remove_stage,
+    set_tolerance, unique_stage_name)
+
 UNDO_LIMIT = 500
 MERGE_SECONDS = 1.5     # repeated nudges of one control within this time are one undo step
 
-
-from solderless.engine.design.differences import (Difference, _link_key,  # noqa: F401
-                                                  differences, same_structure, taper_text)
-from solderless.engine.design.edits import (add_link, add_stage, duplicate_stage,  # noqa: F401
-                                            import_netlist_stage, insert_stage, move_stage,
-                                            remove_link, remove_stage, set_tolerance,
-                                            unique_stage_name)
+#: part edits the live host takes as new element values (``edited`` signal)
+_EDITED_FIELD = {SetValue: "value", SetRotation: "rotation", SetTaper: "taper",
+                 SetModel: "model"}
 
 
 # ------------------------------------------------------------ the workbench
@@ -53,19 +60,23 @@ class EditRejected(SolderlessError):
 class Workbench(QObject):
     """The open design, its undo history, snapshots, and change signals.
 
+    Every change is an edit (:mod:`solderless.engine.design.edits`): applied to
+    the design, its inverse kept as the undo step, and the edit itself
+    announced (``applied``) so a live host applies the very same edit.
+
     Signals
     -------
-    design_replaced : a different design object is current (open, undo of a
+    design_replaced : the design changed as a whole (open, undo, redo, a
         structural edit); views rebuild themselves.
-    structure_changed : stages, links, bypass or a switch changed (rebuild the
-        simulator, crossfade).
+    structure_changed : stages, links, bypass or a switch changed (the
+        circuit is rebuilt).
     values_changed(dict) : element value changes {element: value} that a
         running simulator takes at a block boundary without a reset.
     part_changed(str) : a part's displayed state changed (qualified name).
     edited(str, str, object) : (kind, part, new setting) for each part edit
-        that a running simulator can take without a rebuild; kind is
-        "value", "rotation" or "taper". Emitted for undo and redo too, so a
-        live host can follow every change through its own edit methods.
+        (value, rotation, taper, model), undo and redo included.
+    applied(object) : every edit as applied (an Edit dataclass), undo and
+        redo included: what a live host is sent.
     history_changed : undo/redo availability or the dirty flag changed.
     """
     design_replaced = pyqtSignal()
@@ -73,14 +84,17 @@ class Workbench(QObject):
     values_changed = pyqtSignal(dict)
     part_changed = pyqtSignal(str)
     edited = pyqtSignal(str, str, object)
+    applied = pyqtSignal(object)
     history_changed = pyqtSignal()
     snapshots_changed = pyqtSignal()
 
     def __init__(self, design: Design | None = None):
         super().__init__()
         self.design: Design = design or Design()
-        self._undo: list[tuple[str, Design, str | None, float]] = []
-        self._redo: list[tuple[str, Design]] = []
+        #: (label, inverse edit, merge key, time) per undo step
+        self._undo: list[tuple[str, Edit, str | None, float]] = []
+        #: (label, edit) per redo step
+        self._redo: list[tuple[str, Edit]] = []
         self.snapshots: list[Snapshot] = []
         self.saved_generation = 0
         self.generation = 0
@@ -111,86 +125,79 @@ class Workbench(QObject):
     def redo_text(self) -> str:
         return self._redo[-1][0] if self._redo else ""
 
-    def _apply(self, label: str, fn: Callable[[Design], Any], merge: str | None = None):
-        """Record an undo step, run ``fn(design)``; on a user mistake restore
-        the design exactly and raise."""
+    def apply(self, edit: Edit, merge: str | None = None) -> Applied:
+        """Apply an edit and record its inverse as an undo step (repeated
+        edits with the same ``merge`` key within ``MERGE_SECONDS`` are one
+        step). A refused edit changes nothing and raises (one line)."""
         now = time.monotonic()
         merged = bool(merge and self._undo and self._undo[-1][2] == merge
                       and now - self._undo[-1][3] < MERGE_SECONDS)
-        before = None if merged else self.design.copy()
-        # the design layer checks an edit before it changes anything, so a
-        # refused edit leaves the design as it was; a whole-design copy is kept
-        # anyway for edits that are not merged, and put back on any refusal
         try:
-            result = fn(self.design)
+            applied = apply_edit(self.design, edit)
         except SolderlessError:
-            if before is not None:
-                self.design = before
             raise
-        except (KeyError, ValueError, TypeError) as exc:
-            if before is not None:
-                self.design = before
-            raise EditRejected(f"{label}: {exc}") from None
+        except Exception as exc:       # a refusal the edit did not foresee
+            raise EditRejected(f"{edit.label}: {exc}") from None
         if merged:
-            lab, snap, key, _ = self._undo[-1]
-            self._undo[-1] = (lab, snap, key, now)
+            lab, inv, key, _ = self._undo[-1]
+            self._undo[-1] = (lab, inv, key, now)
         else:
-            self._undo.append((label, before, merge, now))
+            self._undo.append((edit.label, applied.inverse, merge, now))
             del self._undo[:-UNDO_LIMIT]
         self._redo.clear()
         self.generation += 1
         self.history_changed.emit()
-        return result
+        self._announce(applied, replaced=False)
+        return applied
 
     def undo(self) -> bool:
-        """Return to the design before the last edit (exactly)."""
+        """Apply the inverse of the last edit (the design as it was, exactly)."""
         if not self._undo:
             return False
-        label, before, _, _ = self._undo.pop()
-        self._redo.append((label, self.design))
-        self._swap_to(before)
+        label, inverse, _, _ = self._undo[-1]
+        applied = apply_edit(self.design, inverse)     # refused: nothing changes
+        self._undo.pop()
+        self._redo.append((label, applied.inverse))
         self.generation -= 1
+        self._announce(applied, replaced=True)
         self.history_changed.emit()
         return True
 
     def redo(self) -> bool:
         if not self._redo:
             return False
-        label, after = self._redo.pop()
-        self._undo.append((label, self.design, None, 0.0))
-        self._swap_to(after)
+        label, edit = self._redo[-1]
+        applied = apply_edit(self.design, edit)
+        self._redo.pop()
+        self._undo.append((label, applied.inverse, None, 0.0))
         self.generation += 1
+        self._announce(applied, replaced=True)
         self.history_changed.emit()
         return True
 
-    def _swap_to(self, new: Design) -> None:
-        old = self.design
-        self.design = new
-        if _same_structure(old, new):
-            changes: dict[str, float] = {}
-            pa = {p.qualname: p for p in old.parts()}
-            edits = []
-            for p in new.parts():
-                q = pa.get(p.qualname)
-                if q is not None and (q.value, q.rotation, q.taper, q.tolerance) != \
-                        (p.value, p.rotation, p.taper, p.tolerance):
-                    if p.value is not None:
-                        changes.update(new._element_values(p.qualname, new.part(p.qualname)))
-                    if q.value != p.value:
-                        edits.append(("value", p.qualname, p.value))
-                    if q.taper != p.taper:
-                        edits.append(("taper", p.qualname, p.taper))
-                    if q.rotation != p.rotation:
-                        edits.append(("rotation", p.qualname, p.rotation))
-                    self.part_changed.emit(p.qualname)
-            for e in edits:
-                self.edited.emit(*e)
+    def _announce(self, a: Applied, replaced: bool) -> None:
+        """Signals for an applied edit: the edit itself (for a live host),
+        then what the views need."""
+        self.applied.emit(a.edit)
+        e = a.edit
+        q = a.part
+        part_edit = q is not None and not isinstance(e, ReplaceDesign)
+        if replaced or (not part_edit and a.rebuild):
             self.design_replaced.emit()
-            if changes:
-                self.values_changed.emit(changes)
-        else:
-            self.design_replaced.emit()
+        if part_edit:
+            self.part_changed.emit(q)
+            kind = _EDITED_FIELD.get(type(e))
+            if kind is not None or isinstance(e, RestoreModel):
+                kind = kind or "model"
+                self.edited.emit(kind, q, getattr(self.design.part(q), kind))
+            if kind is not None or a.changes:
+                self.values_changed.emit(a.changes)
+            if isinstance(e, SetPosition):
+                self.structure_changed.emit()
+        elif a.rebuild:
             self.structure_changed.emit()
+        elif a.changes:
+            self.values_changed.emit(a.changes)
 
     def mark_saved(self) -> None:
         self.saved_generation = self.generation
@@ -198,108 +205,61 @@ class Workbench(QObject):
         self.history_changed.emit()
 
     # ---------------------------------------------------------- part edits
-    def _part_edit(self, label: str, merge: str, field: str, qualname: str,
-                   fn) -> dict[str, float]:
-        """Apply an undoable edit of one part's ``field`` and announce it."""
-        ch = self._apply(label, fn, merge=merge)
-        self.part_changed.emit(qualname)
-        self.edited.emit(field, qualname, getattr(self.design.part(qualname), field))
-        self.values_changed.emit(ch)
-        return ch
-
     def set_value(self, qualname: str, value: float | str) -> dict[str, float]:
-        return self._part_edit(f"value of {qualname}", f"value:{qualname}", "value",
-                               qualname, lambda d: d.set_value(qualname, value))
+        return self.apply(SetValue(qualname, value), merge=f"value:{qualname}").changes
 
     def set_rotation(self, qualname: str, rotation: float) -> dict[str, float]:
-        return self._part_edit(f"turn {qualname}", f"rot:{qualname}", "rotation",
-                               qualname, lambda d: d.set_rotation(qualname, rotation))
+        return self.apply(SetRotation(qualname, rotation), merge=f"rot:{qualname}").changes
 
     def set_taper(self, qualname: str, taper: Any) -> dict[str, float]:
-        return self._part_edit(f"taper of {qualname}", f"taper:{qualname}", "taper",
-                               qualname, lambda d: d.set_taper(qualname, taper))
+        return self.apply(SetTaper(qualname, taper), merge=f"taper:{qualname}").changes
 
     def set_model(self, qualname: str, model: str) -> dict[str, float]:
         """Give a device part another library model (a rebuild when playing)."""
-        def fn(d):
-            if not hasattr(d, "set_model"):
-                raise EditRejected("changing a part's model is not available in this build")
-            d.set_model(qualname, model)
-            return {}
-        return self._part_edit(f"model of {qualname}", f"model:{qualname}", "model",
-                               qualname, fn)
+        return self.apply(SetModel(qualname, model), merge=f"model:{qualname}").changes
 
     def set_tolerance(self, qualname: str, tol: float | None) -> None:
-        self._apply(f"tolerance of {qualname}", lambda d: set_tolerance(d, qualname, tol))
-        self.part_changed.emit(qualname)
+        self.apply(SetTolerance(qualname, tol))
 
     def set_position(self, qualname: str, position: int) -> None:
-        self._apply(f"switch {qualname}", lambda d: d.set_position(qualname, position))
-        self.part_changed.emit(qualname)
-        self.structure_changed.emit()
+        self.apply(SetPosition(qualname, position))
 
     # ---------------------------------------------------------- structure
-    def _structural(self, label, fn):
-        r = self._apply(label, fn)
-        self.design_replaced.emit()
-        self.structure_changed.emit()
-        return r
-
     def add_probe(self, expr: str, name: str | None = None) -> str:
         """Add a probe (``v(net)``, ``i(part)``, ``ic(Q)`` ... under the names
         the operating point shows); checked against the circuit first, kept
         in the design file's ``[[probe]]`` list. Returns its name."""
-        import tomlkit
-        from solderless.engine.design import Probe
-        from solderless.engine.solver import Simulator
         expr = expr.strip()
         label = (name or expr).strip()
         if not expr:
             raise EditRejected("a probe needs an expression, e.g. v(out) or ic(Q1)")
         if any(p.name == label or p.expr == expr for p in self.design.probes):
             raise EditRejected(f"there is already a probe '{label}'")
-
-        def fn(d):
-            flat = d.resolve_probe(expr)
-            Simulator(d.flatten(), fs=48000.0, probes=(flat,))      # refuses unknown names
-            d.probes.append(Probe(label, expr))
-            if d.doc is not None:
-                aot = d.doc.get("probe")
-                if aot is None:
-                    aot = tomlkit.aot()
-                t = tomlkit.table()
-                t["name"] = label
-                t["expr"] = expr
-                aot.append(t)
-                d.doc["probe"] = aot
-        self._structural(f"probe {label}", fn)
-        return label
+        return self.apply(AddProbe(expr, name)).result
 
     def set_bypass(self, stage: str, on: bool) -> None:
-        self._structural(f"{'bypass' if on else 'engage'} {stage}",
-                         lambda d: d.set_bypass(stage, on))
+        self.apply(SetBypass(stage, on))
 
     def add_stage(self, template: str, index: int | None = None) -> str:
-        return self._structural(f"add {template}", lambda d: add_stage(d, template, index))
+        return self.apply(AddStage(template, index)).result
 
     def remove_stage(self, name: str) -> None:
-        self._structural(f"remove {name}", lambda d: remove_stage(d, name))
+        self.apply(RemoveStage(name))
 
     def move_stage(self, name: str, delta: int) -> int:
-        return self._structural(f"move {name}", lambda d: move_stage(d, name, delta))
+        return self.apply(MoveStage(name, delta)).result
 
     def duplicate_stage(self, name: str) -> str:
-        return self._structural(f"duplicate {name}", lambda d: duplicate_stage(d, name))
+        return self.apply(DuplicateStage(name)).result
 
     def import_stage(self, path: str, subckt: str | None = None) -> str:
-        return self._structural(f"import {Path(path).name}",
-                                lambda d: import_netlist_stage(d, path, subckt=subckt))
+        return self.apply(ImportStage(str(path), subckt)).result
 
     def add_link(self, a: tuple[str, str], b: tuple[str, str]) -> None:
-        self._structural("link ports", lambda d: add_link(d, a, b))
+        self.apply(AddLink(tuple(a), tuple(b)))
 
     def remove_link(self, index: int) -> None:
-        self._structural("remove link", lambda d: remove_link(d, index))
+        self.apply(RemoveLink(index))
 
     # ---------------------------------------------------------- snapshots
     def take_snapshot(self, name: str, note: str = "") -> Snapshot:
@@ -325,16 +285,12 @@ class Workbench(QObject):
     def recall_snapshot(self, name: str) -> None:
         """Make a snapshot the current design (an undoable edit)."""
         snap = self.snapshot(name).design
-
-        def fn(d):
-            return None
-        before = self.design.copy()
-        self._undo.append((f"recall {name}", before, None, 0.0))
+        applied = apply_edit(self.design, ReplaceDesign(snap))
+        self._undo.append((f"recall {name}", applied.inverse, None, 0.0))
+        del self._undo[:-UNDO_LIMIT]
         self._redo.clear()
         self.generation += 1
-        new = snap.copy()
-        new.path = self.design.path
-        self._swap_to(new)
+        self._announce(applied, replaced=True)
         self.history_changed.emit()
 
 

@@ -37,3 +37,5 @@ from solderless.engine.design.netlist import (  # noqa: F401
     flatten_netlist)
 from solderless.engine.design.differences import (  # noqa: F401
     Difference, change_lines, differences, same_structure, taper_text)
+from solderless.engine.design import document, edits  # noqa: F401,E402
+from solderless.engine.design.edits import Applied, Edit, apply_edit  # noqa: F401,E402

@@ -246,7 +246,9 @@ def drop_link_table(d: Design, a: tuple[str, str], b: tuple[str, str]) -> None:
     for j, t in enumerate(aot):
         if {str(t.get("from")), str(t.get("to"))} == _link_texts(a, b):
             aot.pop(j)
-            return
+            break
+    if len(aot) == 0:               # an empty list would be written as `link = []`
+        del d.doc["link"]
 
 
 def rename_in_links(d: Design, old: str, new: str) -> None:
@@ -275,7 +277,11 @@ def insert_probe_table(d: Design, index: int, name: str, expr: str) -> None:
 
 def drop_probe_table(d: Design, name: str, expr: str) -> None:
     aot = d.doc.get("probe") if d.doc is not None else None
-    for j, t in enumerate(aot or ()):
+    if aot is None:
+        return
+    for j, t in enumerate(aot):
         if str(t.get("name", t.get("expr"))) == name and str(t.get("expr")) == expr:
             aot.pop(j)
-            return
+            break
+    if len(aot) == 0:
+        del d.doc["probe"]
