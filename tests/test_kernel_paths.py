@@ -70,3 +70,16 @@ def test_tight_tolerance_matches_ngspice_same_step(path):
                      nodes=("out",))
     r = ref.v["out"][: y.size]
     assert np.abs(y - r).max() < 1e-5
+
+
+def test_block_runners_take_the_documented_arguments():
+    # the positional contract of both runners is written down once, in
+    # kernel_layout.RUN_BLOCK_ARGS (common practice: one list, checked), and
+    # Simulator passes exactly that many
+    import inspect
+
+    from solderless.engine.solver import kernel_layout as KL
+    for run in (K.run_block, K.run_block_small):
+        assert tuple(inspect.signature(run.py_func).parameters) == KL.RUN_BLOCK_ARGS
+    sim = Simulator(S.engine_circuit("diode_clipper"), FS)
+    assert len(sim._args(sim._model)) == len(KL.RUN_BLOCK_ARGS) - KL.RUN_BLOCK_ARGS.index("pdec") - 1

@@ -314,7 +314,7 @@ def balance(net: Network, sol: DCSolution, values: dict[str, float],
     """
     if net.np_ == 0:
         return None
-    from solderless.engine.solver.kernel import PORT_G0
+    from solderless.engine.solver.kernel_layout import PORT_G0
     from solderless.engine.solver.statespace import derive
     try:
         m = derive(net, values, T, [])
