@@ -88,10 +88,13 @@ def apply_edit(d: Design, edit: Edit) -> Applied:
     except SolderlessError:
         saved()
         raise
-    except (KeyError, ValueError, TypeError, IndexError, AttributeError) as exc:
+    except Exception as exc:        # a failure half-way: still all or nothing
         saved()
         raise DesignError(f"{edit.label}: refused ({type(exc).__name__}: {exc}); "
                           "the design is unchanged", file=d._file()) from None
+    except BaseException:
+        saved()
+        raise
 
 
 def _apply_shaped(d, edit: Edit) -> Applied:
