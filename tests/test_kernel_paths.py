@@ -83,3 +83,20 @@ def test_block_runners_take_the_documented_arguments():
         assert tuple(inspect.signature(run.py_func).parameters) == KL.RUN_BLOCK_ARGS
     sim = Simulator(S.engine_circuit("diode_clipper"), FS)
     assert len(sim._args(sim._model)) == len(KL.RUN_BLOCK_ARGS) - KL.RUN_BLOCK_ARGS.index("pdec") - 1
+
+
+@pytest.mark.parametrize("name", ["diode_clipper", "gp_fuzz"])
+def test_statistics_are_not_solver_state(name):
+    # the run statistics are only counted: clearing them between blocks
+    # leaves every output sample as it was (the solver state is apart)
+    circ = S.engine_circuit(name)
+    _, x = S.engine_input(name, FS, 0.1)
+    a = Simulator(circ, FS)
+    ya = a.process(x)
+    b = Simulator(circ, FS)
+    yb = np.empty_like(x)
+    for s in range(0, x.size, 256):
+        b._stats[:] = 0
+        b.process_into(x[s:s + 256], yb[s:s + 256])
+    assert np.array_equal(ya, yb)
+    assert a.stats["samples"] == x.size and b.stats["samples"] == (x.size - 1) % 256 + 1

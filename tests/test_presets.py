@@ -905,3 +905,35 @@ def test_octave_and_overdrive_match_the_bypassed_loudness_as_their_notes_say(nam
     assert sim.stats["nonconverged"] == 0
     diff = ms.loudness(y, FS) - ms.loudness(phrase, FS)
     assert abs(diff) < 1.0 and diff == pytest.approx(stated, abs=0.2)
+
+
+def test_region_check_covers_every_transistor_kind_in_the_registry(tmp_path):
+    # Every part whose device the registry marks as a transistor (BJT or
+    # FET, solderless/engine/devices/registry.py) is classified at the
+    # operating point of every stage template, and none sits outside its
+    # amplifying region unless its note says it is off at rest (the
+    # thresholds of solderless/engine/analysis/regions.py: common practice
+    # for small-signal BJTs; the Shichman-Hodges square law for FETs,
+    # docs/references.md). The templates together hold both families, so
+    # the check exercises a JFET stage as well as the BJT ones.
+    from solderless.engine.devices import registry
+    families = set()
+    for name in TEMPLATES:
+        d = load_design(_harness(name, tmp_path))
+        want = {}
+        for info in d.parts():
+            if info.type in registry.PART_TYPES:
+                fam = registry.DEVICES[registry.PART_TYPES[info.type][0]].transistor
+                if fam:
+                    want[info.qualname] = fam
+        if not any(q.startswith("dut.") for q in want):
+            continue
+        op = Simulator(d.flatten(), fs=FS).operating_point()
+        rows = {r["part"]: r for r in ms.transistor_check(d, op)}
+        assert set(rows) == set(want), name
+        for part, r in rows.items():
+            assert r["region"] == "active" or (r["region"] == "off" and r["intended"]), \
+                f"{name}: {part} is {r['region']}"
+            if part.startswith("dut."):
+                families.add(want[part])
+    assert families == {d.transistor for d in registry.devices() if d.transistor}

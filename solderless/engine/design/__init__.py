@@ -22,7 +22,8 @@ from __future__ import annotations
 from solderless.engine.design.model import (  # noqa: F401
     AUDIO_TAPER_BASE, DEVICE_TYPES, JACK, KIND_TO_TYPE, MODEL_KIND, NETLIST_STAGE,
     PART_TYPES, POSITIVE_TYPES, POT_END_FRACTION, POT_END_MIN, PRESETS, REST_SOURCE, TAPERS,
-    VALUE_TYPES, Design, Link, Part, PartInfo, Probe, Stage, _check_taper, _cut, _expect,
+    VALUE_TYPES, _FIXED_PART_TYPES, Design, Link, Part, PartInfo, Probe, Stage, _check_taper,
+    _cut, _expect, _optional_nodes, _registry,
     _format_value, _parse_value, _parts_library, _table, _tables, _temperature,
     atomic_write_text, file_mode_for, models_of_kind, taper_fraction)
 from solderless.engine.design.reading import (  # noqa: F401

@@ -8,7 +8,8 @@ from typing import Any
 
 from solderless.engine.circuit import GROUND, Circuit, Element, Where, canonical_net
 from solderless.engine.design.model import (DEVICE_TYPES, JACK, MODEL_KIND, PART_TYPES,
-                                            REST_SOURCE, Design, Part, _parts_library)
+                                            REST_SOURCE, Design, Part, _optional_nodes,
+                                            _parts_library, _registry)
 from solderless.engine.errors import DesignError, SolderlessError
 
 def flatten(d: Design) -> Circuit:
@@ -269,10 +270,14 @@ class _Flattener:
                 self.ratings[q] = ratings_of(model)
             if OFF_BY_DESIGN in (p.note or "").lower():
                 self.off_by_design.add(q)
-            if kind in ("Q", "J", "M"):
+            if _registry().DEVICES[kind].typed:
                 params["TYPE"] = want
-        if kind == "M" and len(nodes) == 3:
-            nodes = nodes + (nodes[2],)          # bulk on the source, as a discrete part
+        if p.type in DEVICE_TYPES:
+            want_nodes = PART_TYPES[p.type][1]
+            ties = list(_optional_nodes(p.type).values())
+            for tie in ties[len(nodes) - len(want_nodes):]:
+                # left out: tied as a discrete part's (a MOSFET's bulk on its source)
+                nodes = nodes + (nodes[want_nodes.index(tie)],)
         add(Element(q, kind, nodes, p.value if p.value is not None else 0.0, params, w))
         return lib
 

@@ -24,12 +24,15 @@ from typing import Any
 import numpy as np
 
 from solderless.engine.circuit import GROUND, Circuit, Where, canonical_net
+from solderless.engine.derived import LiveMapping, LiveSet
 from solderless.engine.errors import DesignError, SolderlessError
 
 PRESETS = Path(__file__).resolve().parent.parent.parent / "presets"
 
-# design-level part type -> (flat kind, node names, value unit)
-PART_TYPES: dict[str, tuple[str, tuple[str, ...], str]] = {
+# design-level part type -> (flat kind, node names, value unit); the device
+# part types (diode, npn ... ota) come from the device registry
+# (solderless.engine.devices.registry), read when used
+_FIXED_PART_TYPES: dict[str, tuple[str, tuple[str, ...], str]] = {
     "resistor": ("R", ("a", "b"), "Ω"),
     "capacitor": ("C", ("a", "b"), "F"),
     "inductor": ("L", ("a", "b"), "H"),
@@ -42,26 +45,32 @@ PART_TYPES: dict[str, tuple[str, tuple[str, ...], str]] = {
     "ccvs": ("H", ("p", "n"), "V/A"),
     "pot": ("R", ("a", "wiper", "b"), "Ω"),
     "switch": ("", (), ""),
-    "diode": ("D", ("anode", "cathode"), ""),
-    "npn": ("Q", ("c", "b", "e"), ""),
-    "pnp": ("Q", ("c", "b", "e"), ""),
-    "njfet": ("J", ("d", "g", "s"), ""),
-    "pjfet": ("J", ("d", "g", "s"), ""),
-    "nmos": ("M", ("d", "g", "s"), ""),   # bulk = source, or a 4th node b
-    "pmos": ("M", ("d", "g", "s"), ""),
-    "opamp": ("OPAMP", ("in+", "in-", "out", "v+", "v-"), ""),
-    "ota": ("OTA", ("in+", "in-", "out", "control", "v-"), ""),
 }
 KIND_TO_TYPE = {"R": "resistor", "C": "capacitor", "L": "inductor", "V": "supply",
-                "I": "current", "E": "vcvs", "G": "vccs", "F": "cccs", "H": "ccvs",
-                "D": "diode",
-                "J": "njfet", "M": "nmos", "OPAMP": "opamp", "OTA": "ota"}
-DEVICE_TYPES = {"diode", "npn", "pnp", "njfet", "pjfet", "nmos", "pmos", "opamp", "ota"}
+                "I": "current", "E": "vcvs", "G": "vccs", "F": "cccs", "H": "ccvs"}
 VALUE_TYPES = {"resistor", "capacitor", "inductor", "supply", "input", "current",
                "vcvs", "vccs", "cccs", "ccvs", "pot"}
 POSITIVE_TYPES = {"resistor", "capacitor", "inductor", "pot"}
-MODEL_KIND = {"diode": "D", "npn": "NPN", "pnp": "PNP", "njfet": "NJF",
-              "pjfet": "PJF", "nmos": "NMOS", "pmos": "PMOS", "opamp": "OPAMP", "ota": "OTA"}
+
+
+def _registry():
+    from solderless.engine.devices import registry
+    return registry
+
+
+def _part_types() -> dict:
+    devices = _registry().PART_TYPES
+    taken = set(devices) & set(_FIXED_PART_TYPES)
+    if taken:   # a programming error in a device's description, not the user's
+        raise ValueError(f"device part types {sorted(taken)} are the design's own")
+    return {**_FIXED_PART_TYPES, **devices}
+
+
+PART_TYPES = LiveMapping(_part_types)
+#: part types that take a device model: every device part type
+DEVICE_TYPES = LiveSet(lambda: _registry().PART_MODEL)
+#: device part type -> the model type it takes
+MODEL_KIND = LiveMapping(lambda: dict(_registry().PART_MODEL))
 TAPERS = ("linear", "audio", "reverse-audio")
 AUDIO_TAPER_BASE = 81.0  # (B**0.5 - 1)/(B - 1) = 0.1: 10 % at mid rotation
 POT_END_FRACTION = 1e-4  # residual end resistance (fraction of the track)
@@ -124,6 +133,14 @@ def _check_taper(taper: Any, where: Where, part: str) -> Any:
         raise DesignError("custom taper points must lie between 0 and 1",
                           file=where.file, line=where.line, part=part)
     return [list(p) for p in pts]
+
+
+def _optional_nodes(ptype: str) -> dict[str, str]:
+    """Trailing nodes a device part may add -> the node each is tied to
+    when left out (the device's description in the registry)."""
+    if ptype not in MODEL_KIND:
+        return {}
+    return dict(_registry().DEVICES[PART_TYPES[ptype][0]].part_optional)
 
 
 # ---------------------------------------------------------------- data model

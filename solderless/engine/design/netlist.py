@@ -9,20 +9,13 @@ from pathlib import Path
 from solderless.engine.circuit import LINEAR_KINDS, Circuit, Element, Where
 from solderless.engine.design.model import (KIND_TO_TYPE, POSITIVE_TYPES, Design,
                                             Part, Stage, _expect, _parse_value, _parts_library,
-                                            _table)
+                                            _registry, _table)
 from solderless.engine.errors import DesignError
 
 def _part_type(e: Element) -> str:
     """The design part type of a flat element (a BJT, JFET or MOSFET by its
     TYPE)."""
-    t = str((e.params or {}).get("TYPE", "")).upper()
-    if e.kind == "Q":
-        return "pnp" if t == "PNP" else "npn"
-    if e.kind == "J":
-        return "pjfet" if t == "PJF" else "njfet"
-    if e.kind == "M":
-        return "pmos" if t == "PMOS" else "nmos"
-    return KIND_TO_TYPE.get(e.kind, "resistor")
+    return _registry().part_type_of(e.kind, e.params) or KIND_TO_TYPE.get(e.kind, "resistor")
 
 
 def _design_from_netlist(path: Path, in_source: str, out_node: str) -> Design:
@@ -151,7 +144,7 @@ def _stage_from_netlist(raw: dict, name: str, design_path: Path, w: Where) -> St
         ports = [str(p).lower() for p in raw.get("ports", ["in", "out"])]
     parts = []
     for e in elems:
-        if e.kind in ("Q", "J", "M", "D", "OPAMP", "OTA"):
+        if _registry().part_type_of(e.kind, e.params) is not None:   # a device part
             p = Part(name=e.name, type=_part_type(e), nodes=list(e.nodes), model="_inline",
                      params=dict(e.params), where=e.where or w)
         else:
@@ -182,7 +175,8 @@ def flatten_netlist(d: Design) -> Circuit:
         if e.name in d._netlist_models:
             m = lib.get(d._netlist_models[e.name])
             params = dict(m.element_params())
-            if e.kind in ("Q", "J", "M"):
+            dev = _registry().DEVICES.get(e.kind)
+            if dev is not None and dev.typed:
                 params["TYPE"] = str(m.kind).upper()
             e.params = params
             from solderless.engine.analysis.regions import ratings_of

@@ -16,7 +16,8 @@ from typing import Any
 from solderless.engine.circuit import Where, canonical_net
 from solderless.engine.design.model import (DEVICE_TYPES, PART_TYPES, POSITIVE_TYPES, VALUE_TYPES,
                                             Design, Link, Part, Probe, Stage, _check_taper, _cut,
-                                            _expect, _parse_value, _table, _tables, _temperature)
+                                            _expect, _optional_nodes, _parse_value, _table,
+                                            _tables, _temperature)
 from solderless.engine.errors import DesignError, SolderlessError
 
 # -------------------------------------------------------------- file reading
@@ -98,10 +99,10 @@ def _read_part(raw: Any, where: Where, stage: str) -> Part:
     nodes = raw.get("nodes")
     _expect(isinstance(nodes, list) and all(isinstance(n, (str, int)) for n in nodes),
             f"nodes must be a list of net names ({', '.join(want)})", where, qual)
-    mos4 = ptype in ("nmos", "pmos") and len(nodes) == 4     # with its bulk node
-    _expect(len(nodes) == len(want) or mos4,
+    extra = _optional_nodes(ptype)     # a MOSFET's bulk node
+    _expect(len(nodes) == len(want) or (extra and len(nodes) == len(want) + len(extra)),
             f"a {ptype} has {len(want)} nodes ({', '.join(want)}"
-            + (", or a 4th for the bulk" if ptype in ("nmos", "pmos") else "")
+            + (f", or a {len(want) + 1}th for the {', '.join(extra)}" if extra else "")
             + f"), not {len(nodes)}", where, qual)
     p.nodes = [canonical_net(str(n)) for n in nodes]
     if ptype in VALUE_TYPES:

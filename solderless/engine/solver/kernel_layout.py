@@ -47,8 +47,8 @@ SMALL_PORTS = 2
 
 #: Largest number of ports whose Jacobian blocks a low-rank update of the
 #: inverse takes on (and at most half the padded ports); more, and the
-#: Jacobian is refactored.  Timed alone at 16 padded ports: an update of
-#: 2 ports ~0.3 us, 6 ports ~1.0-1.2 us, Gauss-Jordan ~1.5 us.
+#: Jacobian is refactored (at 16 padded ports an update of 6 ports still
+#: costs about two thirds of a Gauss-Jordan inversion).
 UPDATE_PORTS = 6
 #: Rows the Jacobian scratch J needs beyond the n + 1 of Gauss-Jordan (the
 #: low-rank update's workspace: its small system, W^T, one column).

@@ -26,9 +26,6 @@ from solderless.engine.solver.statespace import Model, ProbeRow, derive, padded
 TEMPERATURE_KEY = "@temperature"
 
 _PROBE_RE = re.compile(r"^\s*([A-Za-z]+)\s*\((.*)\)\s*$")
-_UNITS = {"v": "V", "i": "A", "ic": "A", "ib": "A", "ie": "A", "id": "A", "ig": "A",
-          "vbe": "V", "vce": "V", "vgs": "V", "vds": "V", "vd": "V", "iabc": "A",
-          "gm": "S", "iout": "A", "vabc": "V", "iclip": "A"}
 
 
 def _net_col(net: Network, name: str, probe: str) -> int:
@@ -153,7 +150,9 @@ def make_probe(net: Network, text: str) -> ProbeRow:
                 for k, c in cv.items():
                     vv[po + k] += c
                 return z(nw), z(nx), z(nu), vi, vv
-            return ProbeRow(text, _UNITS.get(q, ""), build)
+            # the unit each device declares for its probes (the registry)
+            from solderless.engine.devices.registry import DEVICES
+            return ProbeRow(text, DEVICES[el.kind].probes.get(q, ""), build)
     raise DesignError(f"probe {text!r}: no device named {a!r}", part=text,
                       hint="probe a transistor, diode, JFET, OTA or op-amp by its name")
 
