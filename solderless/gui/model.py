@@ -1,5 +1,5 @@
 """The workbench's model: the open design, every edit with undo and redo,
-snapshots, autosave with crash recovery, and small settings.
+snapshots, and autosave with crash recovery.
 
 Widgets never change a :class:`solderless.engine.design.Design` themselves: they call a
 :class:`Workbench` method, which applies an edit
@@ -21,8 +21,8 @@ from typing import Any
 
 from PyQt6.QtCore import QObject, pyqtSignal
 
-from solderless.engine.design import Design, atomic_write_text, load_design
-from solderless.engine.autosave import Autosaves, config_dir  # noqa: F401  one scheme, one folder
+from solderless.engine.design import Design, load_design
+from solderless.engine.autosave import Autosaves
 from solderless.engine.errors import SolderlessError
 
 from solderless.engine.design.differences import (Difference, _link_key,  # noqa: F401
@@ -297,37 +297,7 @@ class Workbench(QObject):
 _same_structure = same_structure
 
 
-# ------------------------------------------------------------ files and settings
-
-class Settings:
-    """A small JSON settings file (recent files, first-use caution shown)."""
-
-    def __init__(self, folder: Path):
-        self.path = Path(folder) / "workbench.json"
-        self.data: dict[str, Any] = {"recent": [], "caution_shown": False}
-        self.problem = ""
-        try:
-            if self.path.exists():
-                loaded = json.loads(self.path.read_text(encoding="utf-8"))
-                if isinstance(loaded, dict):
-                    self.data.update(loaded)
-        except (OSError, ValueError) as exc:
-            self.problem = f"settings file {self.path} could not be read ({exc}); defaults used"
-
-    def save(self) -> None:
-        try:
-            # the workbench's own config folder (the writer creates no folders)
-            self.path.parent.mkdir(parents=True, exist_ok=True)
-            atomic_write_text(self.path, json.dumps(self.data, indent=2))
-        except OSError as exc:
-            self.problem = f"settings not saved: {exc}"
-
-    def add_recent(self, path: str | os.PathLike) -> None:
-        p = str(Path(path).resolve())
-        rec = [r for r in self.data.get("recent", []) if r != p]
-        self.data["recent"] = [p] + rec[:9]
-        self.save()
-
+# ------------------------------------------------------------ autosave
 
 @dataclass
 class Recovered:

@@ -11,6 +11,7 @@ from solderless.engine.design.model import (DEVICE_TYPES, JACK, MODEL_KIND, PART
                                             REST_SOURCE, Design, Part, _optional_nodes,
                                             _parts_library, _registry)
 from solderless.engine.errors import DesignError, SolderlessError
+from solderless.engine.unionfind import UnionFind
 
 def flatten(d: Design) -> Circuit:
     """Flatten a design to one circuit: stage-local nets get ``stage.``
@@ -26,29 +27,11 @@ def flatten(d: Design) -> Circuit:
     return _Flattener(d).run()
 
 
-class _UnionFind:
+class _UnionFind(UnionFind):
+    """Net sets of a design: ground names its set, then the name seen first."""
+
     def __init__(self):
-        self.parent: dict[str, str] = {}
-
-    def add(self, a: str) -> None:
-        self.parent.setdefault(a, a)
-
-    def find(self, a: str) -> str:
-        self.add(a)
-        while self.parent[a] != a:
-            self.parent[a] = self.parent[self.parent[a]]
-            a = self.parent[a]
-        return a
-
-    def union(self, a: str, b: str) -> bool:
-        ra, rb = self.find(a), self.find(b)
-        if ra == rb:
-            return False
-        # ground wins, then the name seen first
-        if rb == GROUND:
-            ra, rb = rb, ra
-        self.parent[rb] = ra
-        return True
+        super().__init__(keep=GROUND)
 
 
 class _Flattener:

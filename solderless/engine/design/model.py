@@ -26,6 +26,7 @@ import numpy as np
 from solderless.engine.circuit import GROUND, Circuit, Where, canonical_net
 from solderless.engine.derived import LiveMapping, LiveSet
 from solderless.engine.errors import DesignError, SolderlessError
+from solderless.engine.probes import parse_probe
 
 PRESETS = Path(__file__).resolve().parent.parent.parent / "presets"
 
@@ -693,13 +694,6 @@ class Design:
         from solderless.engine.design.flatten import flatten
         return flatten(self)
 
-    def resolve_net(self, name: str) -> str:
-        """Map a user net name (``stage.net``) to its flat net name."""
-        if self.netlist is not None:
-            return canonical_net(name.lower())
-        from solderless.engine.design.flatten import _Flattener
-        return _Flattener(self).run(resolve=name)
-
     def resolve_probe(self, expr: str) -> str:
         """Rewrite a probe expression's net names to flat names. A design's
         own probe name (``[[probe]] name``) stands for its expression."""
@@ -707,11 +701,12 @@ class Design:
             if expr.strip().lower() == pr.name.strip().lower():
                 expr = pr.expr
                 break
-        m = re.fullmatch(r"\s*([A-Za-z]+)\s*\((.*)\)\s*", expr)
-        if not m:
-            raise DesignError(f"probe '{expr}' is not of the form quantity(name)",
-                              file=self._file(), hint="e.g. v(gain.out) or iabc(gain.U1)")
-        q, args = m.group(1).lower(), [a.strip() for a in m.group(2).split(",")]
+        parsed = parse_probe(expr)
+        if parsed is None:
+            raise DesignError(f"probe '{expr}' is not of the form quantity(name) or "
+                              f"quantity(a,b)", file=self._file(),
+                              hint="e.g. v(gain.out) or iabc(gain.U1)")
+        q, args = parsed[0].lower(), parsed[1]
         if self.netlist is not None:
             # names as op prints them; the older 'netlist.' prefix is read too
             args = [a[len(NETLIST_STAGE) + 1:] if a.lower().startswith(NETLIST_STAGE + ".")
