@@ -13,8 +13,8 @@ Commands (``help`` prints them)::
     pick PART             choose the part the next commands act on
     up [N] / down [N]     step the picked part N places through its E-series
     value V               set the picked part's value (4k7, 100n, 2.2u ...)
-    up/down on a pot      steps through E3 (1, 2.2, 4.7 per decade): the values
-                          pots are made in
+    up/down on a pot      steps through the values pots are made in
+                          (1, 2, 2.5, 5 per decade: 10k, 20k, 25k, 50k ...)
     turn R                turn the picked pot to R (0 to 1); 'turn +' / 'turn -'
                           nudges by 0.05
     taper LAW             the picked pot's taper: linear, audio, reverse, or

@@ -33,7 +33,7 @@ import math
 import numpy as np
 from numba import njit
 
-from solderless.engine.devices._common import (GMIN, VT, DeviceLayout, circuit_temp, junction,
+from solderless.engine.devices._common import (GMIN, DeviceLayout, circuit_temp, junction,
                                     limit_two_junctions, model_tnom, polarity, read_params,
                                     temp_factors, vcrit)
 from solderless.engine.analysis import regions
@@ -290,20 +290,10 @@ def limit(par, pa, vn, vo, po):
 
 
 def region(par, v, i) -> str:
-    """cut-off / active / saturated / reverse from junction biases."""
-    pol = par[0]
-    vbe = pol * v[0]
-    vbc = vbe - pol * v[1]
-    # thresholds scale with the emission coefficients (par 4, 5: N*vt)
-    on_e = vbe > 0.5 * (par[4] / VT) or (i[1] * pol > 1e-9 and vbe > 0.4)
-    on_c = vbc > 0.4 * (par[5] / VT)
-    if on_e and on_c:
-        return "saturated"
-    if on_e:
-        return "active"
-    if on_c:
-        return "reverse"
-    return "cut-off"
+    """The region by the one BJT classifier (solderless.engine.analysis.regions)
+    from the collector current (port 1) and the internal Vce; ``par[0]`` is
+    the polarity, +1 for NPN, -1 for PNP."""
+    return regions.bjt_region(float(par[0]), float(i[1]), float(v[1]))
 
 
 # --------------------------------------------------------------------------
