@@ -1426,7 +1426,7 @@ class _Reader:
                 self.warn(f"{c.file}:{c.line}: {name}: area factor {tok} is ignored")
         inst: dict[str, float] = {}
         for k, tok in kv.items():
-            if letter == "M" and k in ("W", "L", "M"):
+            if letter == "M" and k in ("W", "L", "M", "AD", "AS", "PD", "PS"):
                 inst[k] = self.value(tok, c, scope, k, name)
             else:
                 self.warn(f"{c.file}:{c.line}: {name}: instance parameter {k} is ignored")
@@ -1988,7 +1988,7 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
                                   line=ln, part=el.name)
             mname = "M_" + sname.replace(".", "_")
             sim = _simulated(kind)
-            inst = ("W", "L", "M") if kind == "M" else ()
+            inst = ("W", "L", "M", "AD", "AS", "PD", "PS") if kind == "M" else ()
             mp = " ".join(f"{k}={_fmt(float(v))}" for k, v in p.items()
                           if k in sim and k not in inst)
             if kind == "M":
