@@ -115,7 +115,7 @@ class Circuit:
     #: junction charge storage in the time domain (device capacitances as
     #: linear capacitors taken at the operating point); False leaves them
     #: out of renders and live play (the AC analysis always has them)
-    junction_charge: bool = False
+    junction_charge: bool = True
 
     def element(self, name: str) -> Element:
         for e in self.elements:
