@@ -153,8 +153,8 @@ def layout(el, temp=None) -> DeviceLayout:
     vte, vtc = p["NE"] * vt, p["NC"] * vt
     # charge storage: the depletion law's temperature dependence (TLEVC = 0)
     tk, tnk = circuit_temp(temp), model_tnom(p)
-    cje, vje = junction_temp(p["CJE"], p["VJE"], p["MJE"], tk, tnk, pbo_at_temp=True)
-    cjc, vjc = junction_temp(p["CJC"], p["VJC"], p["MJC"], tk, tnk, pbo_at_temp=True)
+    cje, vje = junction_temp(p["CJE"], p["VJE"], p["MJE"], tk, tnk)
+    cjc, vjc = junction_temp(p["CJC"], p["VJC"], p["MJC"], tk, tnk)
     fc = min(p["FC"], 0.9999)
     ovtf = 1.0 / (1.44 * p["VTF"]) if 0.0 < p["VTF"] < math.inf else 0.0
     xcjc = min(p["XCJC"], 1.0)
