@@ -245,6 +245,22 @@ def temp_factors(temp_k: float, tnom_k: float):
 # not per sample).  SPICE2's depletion-capacitance law with the forward-bias
 # linearisation above FC*VJ (Nagel 1975; ngspice dioload.c/bjtload.c).
 
+def junction_py(v: float, isat: float, vte: float) -> tuple[float, float]:
+    """:func:`junction` in plain Python (current and conductance), for the
+    capacitance functions, which run once per operating point: calling a
+    compiled function from Python would load it at start-up for nothing."""
+    if v >= -3.0 * vte:
+        x = v / vte
+        if x > EXPLIM:
+            e = math.exp(EXPLIM)
+            return isat * (e * (1.0 + x - EXPLIM) - 1.0), isat * e / vte
+        e = math.exp(x)
+        return isat * (e - 1.0), isat * e / vte
+    a = (3.0 / math.e) * vte / v
+    a = a * a * a
+    return -isat * (1.0 + a), isat * 3.0 * a / v
+
+
 def depletion_cap(v: float, cz: float, pb: float, m: float, fc: float) -> float:
     """Depletion capacitance of a junction at bias v: cz*(1 - v/pb)**-m below
     fc*pb, continued linearly above it as SPICE does,

@@ -45,7 +45,7 @@ import numpy as np
 from numba import njit
 
 from solderless.engine.devices._common import (GMIN, VT, DeviceLayout, circuit_temp,
-                                    depletion_cap, junction, junction_temp,
+                                    depletion_cap, junction, junction_py, junction_temp,
                                     limit_two_junctions, model_tnom, polarity, read_params,
                                     temp_factors, vcrit)
 
@@ -203,8 +203,8 @@ def capacitances(par, v, vc) -> np.ndarray:
     cjs, vjs, mjs, fc, tf, xtf, ovtf, itf, tr, sep = par[33:43]
     xcjc = min(xcjc, 1.0)
     isat = par[1]
-    cbe, gbe = junction(vbe, isat, par[4], par[12])
-    cbc, gbc = junction(vbc, isat, par[5], par[13])
+    cbe, gbe = junction_py(vbe, isat, par[4])
+    cbc, gbc = junction_py(vbc, isat, par[5])
     # base charge qb and its derivatives, as the DC law (Gummel-Poon)
     q1 = 1.0 - vbc * par[6] - vbe * par[7]
     q1 = 1.0 / max(q1, 1e-3)

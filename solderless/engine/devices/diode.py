@@ -18,9 +18,10 @@ import math
 import numpy as np
 from numba import njit
 
-from solderless.engine.devices._common import (DeviceLayout, GMIN, circuit_temp, depletion_cap,
-                                    junction, junction_temp, lexp, model_tnom, pnjlim,
-                                    read_params, temp_factors, vcrit)
+from solderless.engine.devices._common import (EXPLIM, GMIN, DeviceLayout, circuit_temp,
+                                    depletion_cap, junction, junction_py, junction_temp,
+                                    lexp, model_tnom, pnjlim, read_params, temp_factors,
+                                    vcrit)
 
 KIND = "D"
 CODE = 1
@@ -121,11 +122,14 @@ def capacitances(par, v, vc) -> np.ndarray:
     """Junction capacitance (farads) at port voltage v[0]: depletion (with
     the FC linearisation) plus TT times the junction's conductance
     (dioload.c's capd)."""
-    i = np.zeros(1)
-    G = np.zeros((1, 1))
-    evaluate(par, 0, np.asarray(v, dtype=np.float64), 0, i, G)
-    return np.array([par[11] * G[0, 0] + depletion_cap(float(v[0]), par[7], par[8], par[9],
-                                                        par[10])])
+    vd = float(v[0])
+    if vd < -par[3]:   # breakdown: the law of ``evaluate``
+        x = -(par[3] + vd) * par[6]
+        gd = par[0] * math.exp(min(x, EXPLIM)) * par[6]
+    else:
+        gd = junction_py(vd, par[0], par[1])[1]
+    return np.array([par[11] * (gd + GMIN) + depletion_cap(vd, par[7], par[8], par[9],
+                                                           par[10])])
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
