@@ -6,7 +6,9 @@ Every device module provides the same small set of things (SPICE3 style):
 parameters; ports, internal nodes, linear stamps, flat parameter vector,
 probes), numba ``evaluate(par, pa, v, po, i, G)`` (port currents and Jacobian
 block), numba ``limit(par, pa, vnew, vold, po)`` (junction limiting) and
-``region(par, v, i)`` for reports.
+``region(par, v, i)`` for reports; a device with junction charge storage
+also lists ``DeviceLayout.caps`` and provides ``capacitances(par, v, vc)``
+(plain Python, at an operating point).
 
 Adding a device: one module, one line in ``REGISTRY`` below, and one branch
 in the type-code dispatch of :mod:`solderless.engine.solver.kernel` (numba needs the

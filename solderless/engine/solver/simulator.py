@@ -391,8 +391,14 @@ class Simulator:
                                                       "a pot is '<pot>.a' and '<pot>.b'")
                 new[name] = net.check_value(el, val)
             # junction capacitances follow the operating point of the new values
+            kept = [s.value for s in net.states]
             self._refresh_junctions(new)
-            model = derive(net, new, self._T, self._rows)
+            try:
+                model = derive(net, new, self._T, self._rows)
+            except Exception:
+                for s, v in zip(net.states, kept):  # a refused edit changes nothing
+                    s.value = v
+                raise
             self._values = new
             self._next = model
 
