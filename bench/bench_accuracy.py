@@ -2,7 +2,7 @@
 
 Each built-in design renders the synthetic guitar phrase "demo"
 (solderless.engine.synth) at its oversampling twice: with the default tolerance
-(solderless.engine.solver.kernel.ERR_TOL, SPICE's VNTOL of 1 uV applied to the error
+(solderless.engine.solver.kernel_layout.ERR_TOL, SPICE's VNTOL of 1 uV applied to the error
 left in the port voltages) and with a tolerance of 1e-11 V as the
 reference.  Reported: the RMS difference relative to the reference's RMS
 (dB), the largest difference (V), and the mean Newton/chord iterations per
@@ -24,7 +24,7 @@ sys.path.insert(0, str(ROOT))
 
 from solderless.engine.design import builtin_designs, load_design  # noqa: E402
 from solderless.engine.solver import Simulator  # noqa: E402
-from solderless.engine.solver.kernel import ERR_TOL  # noqa: E402
+from solderless.engine.solver.kernel_layout import ERR_TOL  # noqa: E402
 from solderless.engine.synth import render_phrase  # noqa: E402
 
 FS = 48000.0

@@ -42,7 +42,7 @@ from solderless.engine.design import builtin_designs, load_design  # noqa: E402
 from solderless.engine.errors import SolderlessError  # noqa: E402
 from solderless.engine.live.host import LiveHost  # noqa: E402
 from solderless.engine.live.source import LoopSource  # noqa: E402
-from solderless.engine.solver import kernel as KERNEL  # noqa: E402
+from solderless.engine.solver import kernel_layout as LAYOUT  # noqa: E402
 
 FS = 48000.0
 BLOCKS = (64, 128, 256)
@@ -71,16 +71,16 @@ def _one_pass(design, variant, block, seconds, volts):
         for _ in range(int(0.2 * FS / block)):        # warm-up, not counted
             h._audio_block(None, out, block, False)
         pc, tt = time.perf_counter, time.thread_time
-        cnts = [v.sim._cnt for v in h.voices]
+        cnts = [v.sim._stats for v in h.voices]
         for i in range(n):
             w0 = [sum(k[s] for k in cnts)
-                  for s in (KERNEL.C_FACTOR, KERNEL.C_ITERS, KERNEL.C_UPDATE)]
+                  for s in (LAYOUT.STAT_FACTOR, LAYOUT.STAT_ITERS, LAYOUT.STAT_UPDATE)]
             a, ca = pc(), tt()
             h._audio_block(None, out, block, False)
             c[i] = tt() - ca
             t[i] = pc() - a
             work[i] = [sum(k[s] for k in cnts) - w
-                       for s, w in zip((KERNEL.C_FACTOR, KERNEL.C_ITERS, KERNEL.C_UPDATE), w0)]
+                       for s, w in zip((LAYOUT.STAT_FACTOR, LAYOUT.STAT_ITERS, LAYOUT.STAT_UPDATE), w0)]
         if h.error is not None:
             raise h.error
         return prep, t, c, h.meters(), work

@@ -1,6 +1,6 @@
 """The kernel's dense linear algebra against numpy's LAPACK-backed solver.
 
-The per-sample kernel (solderless/engine/solver/kernel.py) inverts the port Jacobian
+The per-sample kernel (solderless/engine/solver/kernel/) inverts the port Jacobian
 J = I - K G by Gauss-Jordan elimination with partial pivoting
 (factor_jacobian), or updates the last inverse by the Sherman-Morrison-
 Woodbury formula when a few devices' blocks of G changed (update_jacobian).
@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 
 from solderless.engine.solver import kernel as K
+from solderless.engine.solver import kernel_layout as L
 
 
 def _system(n_ports, seed):
@@ -36,11 +37,11 @@ def _system(n_ports, seed):
 def test_inverse_matches_lapack(n, seed):
     Km, G, dcode, dpo, dnp = _system(n, seed)
     J_true = np.eye(n) - Km @ G
-    cnt = np.zeros(K.N_COUNTERS, dtype=np.int64)
+    state, stats = np.zeros(L.N_STATE, dtype=np.int64), np.zeros(L.N_STATS, dtype=np.int64)
     Gf = np.zeros((n, n))
     scratch = np.zeros((n + 1, 2 * n))
     Ji = np.zeros((n, n))
-    assert K.factor_jacobian(Km, G, Gf, scratch, Ji, dcode, dpo, dnp, cnt)
+    assert K.factor_jacobian(Km, G, Gf, scratch, Ji, dcode, dpo, dnp, state, stats)
     ref_inv = np.linalg.inv(J_true)
     assert np.allclose(Ji, ref_inv, rtol=1e-9, atol=1e-12 * np.abs(ref_inv).max())
     assert np.array_equal(Gf, G)
@@ -54,24 +55,24 @@ def test_singular_jacobian_is_refused():
     dcode = np.ones(2, dtype=np.int64)
     Km = np.eye(n)
     G = np.eye(n)
-    cnt = np.zeros(K.N_COUNTERS, dtype=np.int64)
+    state, stats = np.zeros(L.N_STATE, dtype=np.int64), np.zeros(L.N_STATS, dtype=np.int64)
     assert not K.factor_jacobian(Km, G, np.zeros((n, n)), np.zeros((n + 1, 2 * n)),
-                                 np.zeros((n, n)), dcode, dpo, dnp, cnt)
+                                 np.zeros((n, n)), dcode, dpo, dnp, state, stats)
 
 
 def _factored(Km, G, dcode, dpo, dnp):
     """Kernel state after a factorisation at G: (K with K^T stacked below
-    it, as statespace.derive lays it out; Gf; scratch; Ji; cnt; kc)."""
+    it, as statespace.derive lays it out; Gf; scratch; Ji; solver state; statistics; kc)."""
     n = G.shape[0]
     Ks = np.vstack([Km, Km.T])
     Gf = np.zeros((n, n))
-    scratch = np.zeros((n + 1 + K.J_EXTRA_ROWS, 2 * n))
+    scratch = np.zeros((n + 1 + L.J_EXTRA_ROWS, 2 * n))
     Ji = np.zeros((n, n))
-    cnt = np.zeros(K.N_COUNTERS, dtype=np.int64)
-    assert K.factor_jacobian(Ks, G, Gf, scratch, Ji, dcode, dpo, dnp, cnt)
-    cnt[K.C_LUOK] = 1
+    state, stats = np.zeros(L.N_STATE, dtype=np.int64), np.zeros(L.N_STATS, dtype=np.int64)
+    assert K.factor_jacobian(Ks, G, Gf, scratch, Ji, dcode, dpo, dnp, state, stats)
+    state[L.STATE_JI_OK] = 1
     kc = np.abs(Km).max(axis=0)
-    return Ks, Gf, scratch, Ji, cnt, kc
+    return Ks, Gf, scratch, Ji, state, stats, kc
 
 
 def _move(G, dpo, dnp, devices, rng):
@@ -87,12 +88,12 @@ def test_low_rank_update_matches_lapack(n, seed):
     # one device (<= 3 ports <= UPDATE_PORTS) changes: the inverse is updated,
     # not refactored, and equals LAPACK's inverse of the new Jacobian
     Km, G, dcode, dpo, dnp = _system(n, seed)
-    Ks, Gf, scratch, Ji, cnt, kc = _factored(Km, G, dcode, dpo, dnp)
+    Ks, Gf, scratch, Ji, state, stats, kc = _factored(Km, G, dcode, dpo, dnp)
     rng = np.random.default_rng(seed)
     d = int(np.argmax(dnp))
     G2 = _move(G, dpo, dnp, [d], rng)
-    assert K.update_jacobian(Ks, G2, Gf, scratch, Ji, dcode, dpo, dnp, kc, cnt)
-    assert cnt[K.C_UPDATE] == 1 and cnt[K.C_FACTOR] == 1
+    assert K.update_jacobian(Ks, G2, Gf, scratch, Ji, dcode, dpo, dnp, kc, state, stats)
+    assert stats[L.STAT_UPDATE] == 1 and stats[L.STAT_FACTOR] == 1
     ref_inv = np.linalg.inv(np.eye(n) - Km @ G2)
     assert np.allclose(Ji, ref_inv, rtol=1e-9, atol=1e-10 * np.abs(ref_inv).max())
     assert np.array_equal(Gf, G2)
@@ -102,10 +103,10 @@ def test_many_moved_ports_refactor():
     # more ports than UPDATE_PORTS changed: a factorisation, still exact
     n = 16
     Km, G, dcode, dpo, dnp = _system(n, 8)
-    Ks, Gf, scratch, Ji, cnt, kc = _factored(Km, G, dcode, dpo, dnp)
+    Ks, Gf, scratch, Ji, state, stats, kc = _factored(Km, G, dcode, dpo, dnp)
     G2 = _move(G, dpo, dnp, range(len(dpo)), np.random.default_rng(8))
-    assert K.update_jacobian(Ks, G2, Gf, scratch, Ji, dcode, dpo, dnp, kc, cnt)
-    assert cnt[K.C_UPDATE] == 0 and cnt[K.C_FACTOR] == 2
+    assert K.update_jacobian(Ks, G2, Gf, scratch, Ji, dcode, dpo, dnp, kc, state, stats)
+    assert stats[L.STAT_UPDATE] == 0 and stats[L.STAT_FACTOR] == 2
     ref_inv = np.linalg.inv(np.eye(n) - Km @ G2)
     assert np.allclose(Ji, ref_inv, rtol=1e-9, atol=1e-12 * np.abs(ref_inv).max())
 
@@ -114,12 +115,12 @@ def test_chained_updates_stay_exact():
     # many updates in a row (the kernel refactors every UPDATE_CHAIN of them)
     n = 16
     Km, G, dcode, dpo, dnp = _system(n, 9)
-    Ks, Gf, scratch, Ji, cnt, kc = _factored(Km, G, dcode, dpo, dnp)
+    Ks, Gf, scratch, Ji, state, stats, kc = _factored(Km, G, dcode, dpo, dnp)
     rng = np.random.default_rng(9)
     for step in range(3 * K.UPDATE_CHAIN):
         G = _move(G, dpo, dnp, [int(rng.integers(len(dpo)))], rng)
-        assert K.update_jacobian(Ks, G, Gf, scratch, Ji, dcode, dpo, dnp, kc, cnt)
+        assert K.update_jacobian(Ks, G, Gf, scratch, Ji, dcode, dpo, dnp, kc, state, stats)
         ref_inv = np.linalg.inv(np.eye(n) - Km @ G)
         assert np.allclose(Ji, ref_inv, rtol=1e-8, atol=1e-10 * np.abs(ref_inv).max()), step
-    assert cnt[K.C_UPDATE] > 2 * K.UPDATE_CHAIN
-    assert cnt[K.C_FACTOR] >= 3       # the first, then one every UPDATE_CHAIN
+    assert stats[L.STAT_UPDATE] > 2 * K.UPDATE_CHAIN
+    assert stats[L.STAT_FACTOR] >= 3       # the first, then one every UPDATE_CHAIN

@@ -70,3 +70,33 @@ def test_tight_tolerance_matches_ngspice_same_step(path):
                      nodes=("out",))
     r = ref.v["out"][: y.size]
     assert np.abs(y - r).max() < 1e-5
+
+
+def test_block_runners_take_the_documented_arguments():
+    # the positional contract of both runners is written down once, in
+    # kernel_layout.RUN_BLOCK_ARGS (common practice: one list, checked), and
+    # Simulator passes exactly that many
+    import inspect
+
+    from solderless.engine.solver import kernel_layout as KL
+    for run in (K.run_block, K.run_block_small):
+        assert tuple(inspect.signature(run.py_func).parameters) == KL.RUN_BLOCK_ARGS
+    sim = Simulator(S.engine_circuit("diode_clipper"), FS)
+    assert len(sim._args(sim._model)) == len(KL.RUN_BLOCK_ARGS) - KL.RUN_BLOCK_ARGS.index("pdec") - 1
+
+
+@pytest.mark.parametrize("name", ["diode_clipper", "gp_fuzz"])
+def test_statistics_are_not_solver_state(name):
+    # the run statistics are only counted: clearing them between blocks
+    # leaves every output sample as it was (the solver state is apart)
+    circ = S.engine_circuit(name)
+    _, x = S.engine_input(name, FS, 0.1)
+    a = Simulator(circ, FS)
+    ya = a.process(x)
+    b = Simulator(circ, FS)
+    yb = np.empty_like(x)
+    for s in range(0, x.size, 256):
+        b._stats[:] = 0
+        b.process_into(x[s:s + 256], yb[s:s + 256])
+    assert np.array_equal(ya, yb)
+    assert a.stats["samples"] == x.size and b.stats["samples"] == (x.size - 1) % 256 + 1

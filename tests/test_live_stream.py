@@ -33,6 +33,9 @@ def null_home(tmp_path):
     env = dict(os.environ, HOME=str(home), XDG_CONFIG_HOME=str(home / ".config"),
                PYTHONPATH=str(ROOT))
     env.pop("AUDIODEV", None)
+    # the stand-in design lives beside the tests
+    env["PYTHONPATH"] = os.pathsep.join(
+        p for p in (str(ROOT / "tests"), env.get("PYTHONPATH", "")) if p)
     return home, env
 
 

@@ -84,3 +84,23 @@ def test_op_demo_and_workbench_share_one_bjt_classifier():
     for p in off:
         assert op.devices[p]["region"].endswith("(by design)")
         assert not any(w.startswith(p + ":") for w in op.warnings)
+
+
+def test_mosfet_reports_gm_and_a_drain_near_the_rail():
+    # Shichman-Hodges level 1 (docs/references.md, field-effect
+    # transistors): Id = KP/2*(W/L)*(Vgs - VTO)^2 = 50 uA at Vgs = 2 V, VTO =
+    # 1 V, KP = 100 uA/V^2, W = L; gm = KP*(W/L)*(Vgs - VTO) = 100 uS. The
+    # drain then sits 50 mV under the 9 V rail: the operating-point report
+    # warns, as for a BJT's collector (the MOSFET once had no gm and no
+    # rail check in the report)
+    from solderless.engine.formats.spice import parse_netlist
+    nl = parse_netlist("cs\nVCC vcc 0 9\nVG g 0 2\nRD vcc d 1k\nM1 d g 0 0 NM W=10u L=10u\n"
+                       "RO d out 1meg\nRL out 0 1meg\n"
+                       ".model NM NMOS(VTO=1 KP=1e-4)\n.end\n", file="cs.cir")
+    op = Simulator(nl.circuit, fs=FS).operating_point()
+    q = op.devices["M1"]
+    assert q["id"] == pytest.approx(50e-6, rel=1e-3)
+    assert q["gm"] == pytest.approx(100e-6, rel=1e-3)
+    assert q["region"] == "saturated"
+    assert any(w.startswith("M1: net 'd' sits at") and "supply rail 'vcc'" in w
+               for w in op.warnings)

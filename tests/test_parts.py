@@ -164,3 +164,20 @@ def test_macromodels_need_their_parameters():
     with pytest.raises(DesignError, match="JUNCTIONS"):
         PartsLibrary([Model("o", "OTA", {"IS": 1e-15, "N": 1, "JUNCTIONS": 3,
                                          "IABC_MAX": 1e-3, "VHEAD": 1})])
+
+
+def test_library_models_read_the_spellings_the_netlist_reader_reads():
+    # SPICE accepts VA for VAF and JS for IS (ngspice manual, BJT and diode
+    # model tables); a library card with them is simulated as the netlist
+    # reader simulates it (the two once kept separate tables: a library
+    # VA was accepted and then dropped, a library JS refused)
+    lib2 = load_library()
+    q = lib2.add_model_card(".model QA NPN(BF=80 VA=50)")
+    assert q.element_params()["VAF"] == 50.0 and "VA" not in q.element_params()
+    d = lib2.add_model_card(".model DJ D(JS=2n N=1.5)")
+    assert d.element_params()["IS"] == 2e-9
+    from solderless.engine.formats.spice import parse_netlist
+    nl = parse_netlist("t\nV1 a 0 1\nR1 a b 1k\nQ1 b b 0 QA\nD1 b 0 DJ\n"
+                       ".model QA NPN(BF=80 VA=50)\n.model DJ D(JS=2n N=1.5)\n.end\n")
+    assert nl.circuit.element("Q1").params["VAF"] == 50.0
+    assert nl.circuit.element("D1").params["IS"] == 2e-9

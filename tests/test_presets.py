@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from scipy.optimize import brentq
 
-from solderless.engine.analysis import measure
+from solderless.engine.analysis import measure as ms
 from solderless.engine.analysis import compression as cp
 from solderless.engine.design import builtin_designs, load_design, load_stage_template, stage_library
 from solderless.engine.solver import Simulator
@@ -86,7 +86,7 @@ def test_template_biases_sanely_and_passes_a_tone(name, tmp_path):
     d = load_design(_harness(name, tmp_path))
     sim = Simulator(d.flatten(), fs=FS, oversample=d.oversample)
     op = sim.operating_point()
-    assert measure.transistor_problems(d, op) == []
+    assert ms.transistor_problems(d, op) == []
     t = np.arange(int(0.3 * FS)) / FS
     y = sim.process(0.1 * np.sin(2 * np.pi * 220 * t))
     assert np.all(np.isfinite(y))
@@ -103,8 +103,8 @@ def test_design_loads_biases_and_plays_the_phrase(name, phrase):
     op = sim.operating_point()
     # no transistor accidentally saturated or cut off at rest; devices that
     # are off by design say so in their note and in the design's notes
-    assert measure.transistor_problems(d, op) == []
-    for r in measure.transistor_check(d, op):
+    assert ms.transistor_problems(d, op) == []
+    for r in ms.transistor_check(d, op):
         if r["region"] == "off":
             assert r["part"] in d.notes, f"{r['part']} is off at rest: say so in the notes"
     y = sim.process(phrase)
@@ -257,7 +257,7 @@ def test_flagship_rest_control_current_matches_the_hand_calculation():
     op = Simulator(d.flatten(), fs=FS).operating_point()
     assert op.nets["detector.env"] == pytest.approx(_env_rest(d), abs=2e-3)
     expected = _iabc_for_env(d, _env_rest(d))
-    assert measure.rest_control(d, op) == pytest.approx(expected, rel=0.01)
+    assert ms.rest_control(d, op) == pytest.approx(expected, rel=0.01)
     # Q2 idles at the edge of conduction (a few microamps: the hand law),
     # and the rest current is well within the OTA part's rating
     assert op.devices["detector.Q2"]["ic"] == pytest.approx(_steal_current(d, _env_rest(d)),
@@ -271,7 +271,7 @@ def _release(name, **rot):
     d = load_design(name)
     for k, v in rot.items():
         d.set_rotation(f"detector.{k}", v)
-    rt, _, gr, t1, stats = measure.measure_release(d, FS, tail=1.6)
+    rt, _, gr, t1, stats = ms.measure_release(d, FS, tail=1.6)
     assert stats["nonconverged"] == 0
     return d, rt, float(gr[int(t1 * FS) - int(0.02 * FS)])
 
@@ -328,7 +328,7 @@ def test_release_knob_sets_the_release_time():
 
 
 def test_attack_knob_sets_the_attack_time():
-    # Attack time by the 63 % convention (solderless.app.measure.measure_attack;
+    # Attack time by the 63 % convention (solderless.app.ms.measure_attack;
     # Giannoulis et al. 2012). More ATTACK resistance charges CT more slowly
     # (RC charging; docs/references.md, circuit formulas), so the attack is slower; the notes state the
     # figure at the default setting (about 10 ms, 30 % either side).
@@ -336,7 +336,7 @@ def test_attack_knob_sets_the_attack_time():
     for rot in (0.1, 0.5, 0.9):
         d = load_design("flagship")
         d.set_rotation("detector.ATTACK", rot)
-        at, _, _, _, stats = measure.measure_attack(d, FS)
+        at, _, _, _, stats = ms.measure_attack(d, FS)
         assert stats["nonconverged"] == 0
         times.append(at)
     assert times[0] < times[1] < times[2]
@@ -381,9 +381,9 @@ def _control_curve(d, levels_db, hold=0.5, measure=0.15):
     t = np.arange(n_hold * len(levels_db)) / FS
     amp = np.repeat(math.sqrt(2) * 10 ** (np.asarray(levels_db) / 20), n_hold)
     x = amp * np.sin(2 * np.pi * 220.0 * t)
-    _, pr, sim = measure.simulate(d, x, FS, probes=("iabc(gain.U1)",))
+    _, pr, sim = ms.simulate(d, x, FS, probes=("iabc(gain.U1)",))
     assert sim.stats["nonconverged"] == 0
-    rest = measure.rest_control(d, sim.operating_point())
+    rest = ms.rest_control(d, sim.operating_point())
     ctl = pr["iabc(gain.U1)"]
     means = [ctl[(k + 1) * n_hold - n_meas:(k + 1) * n_hold].mean() for k in range(len(levels_db))]
     return np.asarray(levels_db, float), 20 * np.log10(np.asarray(means) / rest)
@@ -414,7 +414,7 @@ def test_flagship_knee_is_where_the_pump_reaches_the_transistor(control_curves):
     op = Simulator(d.flatten(), fs=FS).operating_point()
     levels, gr = control_curves["flagship"]
     thr = _threshold(levels, gr)
-    rest = measure.rest_control(d, op)
+    rest = ms.rest_control(d, op)
     e1 = brentq(lambda e: _gr_for_env(d, e) + 1.0, _env_rest(d), _env_max(d))
     peak = math.sqrt(2) * 10 ** (thr / 20) * _jack_to_detector_gain(d, op, rest * 10 ** (-1 / 20))
     assert (e1 + 0.2) / 2 < peak < (e1 + 0.9) / 2
@@ -455,7 +455,7 @@ def test_blend_mixes_the_dry_signal_in_parallel():
     for rot in (0.0, 0.7, 1.0):
         d = load_design("flagship")
         d.set_rotation("blend.BLEND", rot)
-        c = measure.measure_static(d, FS, levels, hold=0.4, measure=0.1)
+        c = ms.measure_static(d, FS, levels, hold=0.4, measure=0.1)
         slopes[rot] = np.polyfit(c.input_db[2:], c.output_db[2:], 1)[0]
         if rot == 0.0:
             assert np.polyfit(c.input_db, c.output_db, 1)[0] == pytest.approx(1.0, abs=0.02)
@@ -472,15 +472,15 @@ def _phrase_gain_reduction(name, phrase, rotations=None):
     for k, v in (rotations or {}).items():
         d.set_rotation(k, v)
     ctl = d.control_probe()
-    _, pr, sim = measure.simulate(d, phrase, FS, probes=(ctl,))
+    _, pr, sim = ms.simulate(d, phrase, FS, probes=(ctl,))
     assert sim.stats["nonconverged"] == 0
-    rest = measure.rest_control(d, sim.operating_point())
+    rest = ms.rest_control(d, sim.operating_point())
     return d, cp.gain_reduction_from_control(pr[ctl], rest)
 
 
 #: Onsets (s) of the demo phrase's notes (solderless.engine.synth._phrase_demo).
-SOFT_NOTES = measure.PHRASE_GROUPS["soft notes"]
-HARD_NOTES = measure.PHRASE_GROUPS["hard notes"]
+SOFT_NOTES = ms.PHRASE_GROUPS["soft notes"]
+HARD_NOTES = ms.PHRASE_GROUPS["hard notes"]
 
 
 def _deepest(gr, onsets, window=0.3):
@@ -554,7 +554,7 @@ def test_feedforward_static_curve_compresses_above_threshold():
     # the curve ever more steeply: over 12 dB above the threshold the slope
     # is far under 1.
     d = load_design("feedforward")
-    c = measure.measure_static(d, FS, np.arange(-64.0, -7.9, 4.0), hold=0.4, measure=0.1)
+    c = ms.measure_static(d, FS, np.arange(-64.0, -7.9, 4.0), hold=0.4, measure=0.1)
     thr = c.threshold_db(1.0)
     assert -50.0 < thr < -38.0       # the notes: "threshold about -44 dBV"
     below = c.input_db <= thr - 8
@@ -570,18 +570,18 @@ def test_feedforward_static_curve_compresses_above_threshold():
 def test_feedforward_nothing_clips_on_the_phrase(phrase):
     # Op-amp output inside its swing (VHEAD from each rail, solderless/presets/parts.toml)
     # and no BJT saturated (Vce < 0.3 V with Vbe forward, common practice,
-    # solderless.app.measure.transistor_check) anywhere over the phrase.
+    # solderless.app.ms.transistor_check) anywhere over the phrase.
     d = load_design("feedforward")
     head = float(_parts_params(d.part("detector.U1").model)["VHEAD"])
     vcc = d.part("VCC").value
     probes = ("v(detector.o)",) + tuple(f"{q}(buffer.Q1)" for q in ("vce", "vbe")) + \
         tuple(f"{q}(makeup.Q1)" for q in ("vce", "vbe"))
-    _, pr, sim = measure.simulate(d, phrase, FS, probes=probes)
+    _, pr, sim = ms.simulate(d, phrase, FS, probes=probes)
     assert sim.stats["nonconverged"] == 0
     o = pr["v(detector.o)"]
     assert head + 0.2 < o.min() and o.max() < vcc - head - 0.2
     for q in ("buffer.Q1", "makeup.Q1"):
-        sat = (pr[f"vce({q})"] < measure.VCE_SAT) & (pr[f"vbe({q})"] > 0.5)
+        sat = (pr[f"vce({q})"] < ms.VCE_SAT) & (pr[f"vbe({q})"] > 0.5)
         assert not sat.any(), f"{q} saturates on the phrase"
 
 
@@ -634,7 +634,7 @@ def test_envelope_filter_sweeps_the_range_its_notes_state(phrase):
     assert lo <= 300.0 and hi >= 3000.0
     probes = ("iabc(filter.U1)", "v(filter.p,filter.n)", "v(pre.out)", "v(filter.out)",
               "v(post.out)")
-    _, pr, sim = measure.simulate(d, phrase, FS, probes=probes)
+    _, pr, sim = ms.simulate(d, phrase, FS, probes=probes)
     assert sim.stats["nonconverged"] == 0
     fc = _ota_corner(d, pr["iabc(filter.U1)"])
     assert fc[0] == pytest.approx(lo, rel=0.2)
@@ -675,7 +675,7 @@ def test_octave_rectifier_has_the_spectrum_of_a_full_wave_rectified_sine(amp):
     d.set_rotation("blend.BLEND", 1.0)
     f0 = 196.0
     t = np.arange(int(0.8 * FS)) / FS
-    y = measure.simulate(d, amp * np.sin(2 * np.pi * f0 * t), FS)[0][int(0.4 * FS):]
+    y = ms.simulate(d, amp * np.sin(2 * np.pi * f0 * t), FS)[0][int(0.4 * FS):]
     h1, h2, h3, h4 = _harmonics(y, f0)
     assert h2 - h1 > 20.0
     assert h4 - h2 == pytest.approx(20 * math.log10(1 / 5), abs=1.0)
@@ -691,12 +691,12 @@ def test_octave_blend_balances_note_and_octave_as_the_notes_say():
     assert "same level" in " ".join(d.notes.split())
     f0 = 196.0
     t = np.arange(int(0.8 * FS)) / FS
-    y = measure.simulate(d, 0.1 * np.sin(2 * np.pi * f0 * t), FS)[0][int(0.4 * FS):]
+    y = ms.simulate(d, 0.1 * np.sin(2 * np.pi * f0 * t), FS)[0][int(0.4 * FS):]
     h1, h2, _, _ = _harmonics(y, f0)
     assert h2 - h1 == pytest.approx(0.0, abs=1.0)
     # BLEND at 0 is the dry preamp: no octave to speak of
     d.set_rotation("blend.BLEND", 0.0)
-    y = measure.simulate(d, 0.1 * np.sin(2 * np.pi * f0 * t), FS)[0][int(0.4 * FS):]
+    y = ms.simulate(d, 0.1 * np.sin(2 * np.pi * f0 * t), FS)[0][int(0.4 * FS):]
     h1, h2, _, _ = _harmonics(y, f0)
     assert h1 - h2 > 40.0
 
@@ -714,13 +714,13 @@ def test_overdrive_clips_asymmetrically_and_gain_sets_the_drive():
     d = load_design("overdrive")
     f0 = 1000.0
     t = np.arange(int(0.3 * FS)) / FS
-    _, pr, sim = measure.simulate(d, 0.2 * np.sin(2 * np.pi * f0 * t), FS,
+    _, pr, sim = ms.simulate(d, 0.2 * np.sin(2 * np.pi * f0 * t), FS,
                                probes=("v(clip.out,vref)",))
     assert sim.stats["nonconverged"] == 0
     c = pr["v(clip.out,vref)"][int(0.15 * FS):]
     assert 0.5 < c.max() < 0.75
     assert 1.6 < -c.min() / c.max() < 2.2
-    y = measure.simulate(d, 0.2 * np.sin(2 * np.pi * 220.0 * t), FS)[0][int(0.15 * FS):]
+    y = ms.simulate(d, 0.2 * np.sin(2 * np.pi * 220.0 * t), FS)[0][int(0.15 * FS):]
     h1, h2, h3, _ = _harmonics(y, 220.0)
     assert h2 - h1 > -45.0
     for rot in (0.3, 0.6, 0.9):
@@ -729,7 +729,7 @@ def test_overdrive_clips_asymmetrically_and_gain_sets_the_drive():
         zg = P("drive.RG").value + 1 / (2j * math.pi * f0 * P("drive.CG").value)
         expected = abs(1 + (P("drive.RFMIN").value + _pot_resistance(d, "drive.GAIN")) / zg)
         x = 1e-3 * np.sin(2 * np.pi * f0 * t)
-        _, pr, _ = measure.simulate(d, x, FS, probes=("v(drive.out,vref)", "v(drive.p,vref)"))
+        _, pr, _ = ms.simulate(d, x, FS, probes=("v(drive.out,vref)", "v(drive.p,vref)"))
         seg = slice(int(0.15 * FS), None)
         g = cp.rms(pr["v(drive.out,vref)"][seg]) / cp.rms(pr["v(drive.p,vref)"][seg])
         # 5 %: CF (47 pF) across the feedback trims the gain at high settings
@@ -858,16 +858,16 @@ def test_region_check_covers_jfets_and_mosfets(tmp_path, rd, rjd, m1, j1):
     path.write_text(FET_DESIGN.format(rd=rd, rjd=rjd))
     d = load_design(path)
     op = Simulator(d.flatten(), fs=FS).operating_point()
-    rows = {r["part"]: r for r in measure.transistor_check(d, op)}
+    rows = {r["part"]: r for r in ms.transistor_check(d, op)}
     assert set(rows) == {"amp.M1", "amp.J1"}
     for part, want in (("amp.M1", m1), ("amp.J1", j1)):
         r = rows[part]
         vto = float(_parts_params(d.part(part).model)["VTO"])
         vov = r["vgs"] - vto
-        assert vov > 0 and abs(r["id"]) > measure.IC_OFF
+        assert vov > 0 and abs(r["id"]) > ms.IC_OFF
         assert (r["vds"] >= vov) == (want == "active")
         assert r["region"] == want
-    problems = measure.transistor_problems(d, op)
+    problems = ms.transistor_problems(d, op)
     assert len(problems) == [m1, j1].count("triode")
     assert all("triode" in p for p in problems)
 
@@ -884,12 +884,12 @@ def test_flagship_loudness_and_threshold_are_the_ones_the_notes_state(name, lu_l
     # 2012) is the one the notes state, 1.5 dB either side (4 dB steps,
     # interpolated).
     d = load_design(name)
-    y, _, sim = measure.simulate(d, phrase, FS)
+    y, _, sim = ms.simulate(d, phrase, FS)
     assert sim.stats["nonconverged"] == 0
-    assert lu_lo < measure.loudness(y, FS) - measure.loudness(phrase, FS) < lu_hi
+    assert lu_lo < ms.loudness(y, FS) - ms.loudness(phrase, FS) < lu_hi
     m = re.search(r"[Tt]hreshold,? (?:is )?about (-\d+) dBV", " ".join(d.notes.split()))
     assert m, "the notes state the threshold"
-    c = measure.measure_static(d, FS, np.arange(-64.0, -11.9, 4.0), hold=0.4, measure=0.1)
+    c = ms.measure_static(d, FS, np.arange(-64.0, -11.9, 4.0), hold=0.4, measure=0.1)
     assert c.threshold_db(1.0) == pytest.approx(float(m.group(1)), abs=1.5)
 
 
@@ -901,7 +901,39 @@ def test_octave_and_overdrive_match_the_bypassed_loudness_as_their_notes_say(nam
     notes = " ".join(d.notes.split())
     assert "within about 1 LU of the bypassed signal" in notes
     stated = float(re.search(r"BS\.1770: ([-+]?\d+\.\d) LU", notes).group(1))
-    y, _, sim = measure.simulate(d, phrase, FS)
+    y, _, sim = ms.simulate(d, phrase, FS)
     assert sim.stats["nonconverged"] == 0
-    diff = measure.loudness(y, FS) - measure.loudness(phrase, FS)
+    diff = ms.loudness(y, FS) - ms.loudness(phrase, FS)
     assert abs(diff) < 1.0 and diff == pytest.approx(stated, abs=0.2)
+
+
+def test_region_check_covers_every_transistor_kind_in_the_registry(tmp_path):
+    # Every part whose device the registry marks as a transistor (BJT or
+    # FET, solderless/engine/devices/registry.py) is classified at the
+    # operating point of every stage template, and none sits outside its
+    # amplifying region unless its note says it is off at rest (the
+    # thresholds of solderless/engine/analysis/regions.py: common practice
+    # for small-signal BJTs; the Shichman-Hodges square law for FETs,
+    # docs/references.md). The templates together hold both families, so
+    # the check exercises a JFET stage as well as the BJT ones.
+    from solderless.engine.devices import registry
+    families = set()
+    for name in TEMPLATES:
+        d = load_design(_harness(name, tmp_path))
+        want = {}
+        for info in d.parts():
+            if info.type in registry.PART_TYPES:
+                fam = registry.DEVICES[registry.PART_TYPES[info.type][0]].transistor
+                if fam:
+                    want[info.qualname] = fam
+        if not any(q.startswith("dut.") for q in want):
+            continue
+        op = Simulator(d.flatten(), fs=FS).operating_point()
+        rows = {r["part"]: r for r in ms.transistor_check(d, op)}
+        assert set(rows) == set(want), name
+        for part, r in rows.items():
+            assert r["region"] == "active" or (r["region"] == "off" and r["intended"]), \
+                f"{name}: {part} is {r['region']}"
+            if part.startswith("dut."):
+                families.add(want[part])
+    assert families == {d.transistor for d in registry.devices() if d.transistor}

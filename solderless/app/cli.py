@@ -436,12 +436,12 @@ def cmd_op(args) -> int:
     for net, v in sorted(op.nets.items()):
         print(f"  {net:<28} {v:>10.4f} V")
     print("\nDevices")
+    from solderless.engine.devices.registry import QUANTITY_UNITS
     for name, q in op.devices.items():
         items = []
         for k, v in q.items():
             if isinstance(v, (int, float)):
-                unit = "A" if k.startswith("i") else ("V" if k.startswith("v") else
-                                                      ("S" if k == "gm" else ""))
+                unit = QUANTITY_UNITS.get(k, "")    # as the device declares it
                 items.append(f"{k}={_fmt(v, unit)}")
             else:
                 items.append(f"{k}={v}")

@@ -39,6 +39,10 @@ BEHAV  (p, n)                         current SIGN*f flows p -> through it -> n;
 SW     (p, n, cp, cn)                 switch: params RON, ROFF, VT, VH, STATE
 ====== ============================== =========================================
 
+The device kinds (D to SW) are the device registry's
+(:mod:`solderless.engine.devices.registry`): each device module declares its
+terminals there, and :data:`KIND_NODES` reads them.
+
 The ground net is ``"0"``; :func:`canonical_net` maps ``gnd``/``GND`` to it.
 """
 from __future__ import annotations
@@ -46,15 +50,26 @@ from __future__ import annotations
 from dataclasses import dataclass, field, replace
 from typing import Any
 
+from solderless.engine.derived import LiveMapping
+
 GROUND = "0"
 GROUND_ALIASES = {"0", "gnd", "ground"}
 
-KIND_NODES: dict[str, int] = {
+LINEAR_NODES: dict[str, int] = {
     "R": 2, "C": 2, "L": 2, "V": 2, "I": 2, "E": 4, "G": 4, "F": 2, "H": 2,
-    "D": 2, "Q": 3, "J": 3, "M": 4, "OPAMP": 5, "OTA": 5, "BEHAV": 2, "SW": 4,
 }
-LINEAR_KINDS = {"R", "C", "L", "V", "I", "E", "G", "F", "H"}
-DEVICE_KINDS = {"D", "Q", "J", "M", "OPAMP", "OTA", "BEHAV", "SW"}
+LINEAR_KINDS = set(LINEAR_NODES)
+
+
+def _kind_nodes() -> dict[str, int]:
+    from solderless.engine.devices.registry import NODE_COUNTS
+    return {**LINEAR_NODES, **NODE_COUNTS}
+
+
+#: element kind -> number of nodes: the linear kinds above and every device
+#: in the registry (solderless.engine.devices.registry: each device module
+#: declares its terminals)
+KIND_NODES = LiveMapping(_kind_nodes)
 
 
 def canonical_net(name: str) -> str:
@@ -98,7 +113,7 @@ class Circuit:
     title: str = ""
     where: Where | None = None
     #: {device element: {rating name: limit}} from the parts library
-    #: (solderless.engine.analysis.regions.RATING_NAMES); for reports only
+    #: (each device's DeviceKind.ratings); for reports only
     ratings: dict = field(default_factory=dict)
     #: devices whose design note says they are off at rest by design (reports)
     off_by_design: set = field(default_factory=set)
@@ -135,3 +150,4 @@ class Circuit:
     def copy(self) -> "Circuit":
         return replace(self, elements=[e.copy() for e in self.elements],
                        nodeset=dict(self.nodeset), ic=dict(self.ic))
+

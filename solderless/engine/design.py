@@ -26,14 +26,17 @@ from typing import Any
 import numpy as np
 
 from solderless.engine.circuit import GROUND, LINEAR_KINDS, Circuit, Element, Where, canonical_net
+from solderless.engine.derived import LiveMapping, LiveSet
 from solderless.engine.errors import DesignError, SolderlessError
 
 PRESETS = Path(__file__).resolve().parent.parent / "presets"
 STAGE_LIBRARY = PRESETS / "stages"
 DESIGN_LIBRARY = PRESETS / "designs"
 
-# design-level part type -> (flat kind, node names, value unit)
-PART_TYPES: dict[str, tuple[str, tuple[str, ...], str]] = {
+# design-level part type -> (flat kind, node names, value unit); the device
+# part types (diode, npn ... ota) come from the device registry
+# (solderless.engine.devices.registry), read when used
+_FIXED_PART_TYPES: dict[str, tuple[str, tuple[str, ...], str]] = {
     "resistor": ("R", ("a", "b"), "Ω"),
     "capacitor": ("C", ("a", "b"), "F"),
     "inductor": ("L", ("a", "b"), "H"),
@@ -46,26 +49,32 @@ PART_TYPES: dict[str, tuple[str, tuple[str, ...], str]] = {
     "ccvs": ("H", ("p", "n"), "V/A"),
     "pot": ("R", ("a", "wiper", "b"), "Ω"),
     "switch": ("", (), ""),
-    "diode": ("D", ("anode", "cathode"), ""),
-    "npn": ("Q", ("c", "b", "e"), ""),
-    "pnp": ("Q", ("c", "b", "e"), ""),
-    "njfet": ("J", ("d", "g", "s"), ""),
-    "pjfet": ("J", ("d", "g", "s"), ""),
-    "nmos": ("M", ("d", "g", "s"), ""),   # bulk = source, or a 4th node b
-    "pmos": ("M", ("d", "g", "s"), ""),
-    "opamp": ("OPAMP", ("in+", "in-", "out", "v+", "v-"), ""),
-    "ota": ("OTA", ("in+", "in-", "out", "control", "v-"), ""),
 }
 KIND_TO_TYPE = {"R": "resistor", "C": "capacitor", "L": "inductor", "V": "supply",
-                "I": "current", "E": "vcvs", "G": "vccs", "F": "cccs", "H": "ccvs",
-                "D": "diode",
-                "J": "njfet", "M": "nmos", "OPAMP": "opamp", "OTA": "ota"}
-DEVICE_TYPES = {"diode", "npn", "pnp", "njfet", "pjfet", "nmos", "pmos", "opamp", "ota"}
+                "I": "current", "E": "vcvs", "G": "vccs", "F": "cccs", "H": "ccvs"}
 VALUE_TYPES = {"resistor", "capacitor", "inductor", "supply", "input", "current",
                "vcvs", "vccs", "cccs", "ccvs", "pot"}
 POSITIVE_TYPES = {"resistor", "capacitor", "inductor", "pot"}
-MODEL_KIND = {"diode": "D", "npn": "NPN", "pnp": "PNP", "njfet": "NJF",
-              "pjfet": "PJF", "nmos": "NMOS", "pmos": "PMOS", "opamp": "OPAMP", "ota": "OTA"}
+
+
+def _registry():
+    from solderless.engine.devices import registry
+    return registry
+
+
+def _part_types() -> dict:
+    devices = _registry().PART_TYPES
+    taken = set(devices) & set(_FIXED_PART_TYPES)
+    if taken:   # a programming error in a device's description, not the user's
+        raise ValueError(f"device part types {sorted(taken)} are the design's own")
+    return {**_FIXED_PART_TYPES, **devices}
+
+
+PART_TYPES = LiveMapping(_part_types)
+#: part types that take a device model: every device part type
+DEVICE_TYPES = LiveSet(lambda: _registry().PART_MODEL)
+#: device part type -> the model type it takes
+MODEL_KIND = LiveMapping(lambda: dict(_registry().PART_MODEL))
 TAPERS = ("linear", "audio", "reverse-audio")
 AUDIO_TAPER_BASE = 81.0  # (B**0.5 - 1)/(B - 1) = 0.1: 10 % at mid rotation
 POT_END_FRACTION = 1e-4  # residual end resistance (fraction of the track)
@@ -312,10 +321,10 @@ def _read_part(raw: Any, where: Where, stage: str) -> Part:
     nodes = raw.get("nodes")
     _expect(isinstance(nodes, list) and all(isinstance(n, (str, int)) for n in nodes),
             f"nodes must be a list of net names ({', '.join(want)})", where, qual)
-    mos4 = ptype in ("nmos", "pmos") and len(nodes) == 4     # with its bulk node
-    _expect(len(nodes) == len(want) or mos4,
+    extra = _optional_nodes(ptype)     # a MOSFET's bulk node
+    _expect(len(nodes) == len(want) or (extra and len(nodes) == len(want) + len(extra)),
             f"a {ptype} has {len(want)} nodes ({', '.join(want)}"
-            + (", or a 4th for the bulk" if ptype in ("nmos", "pmos") else "")
+            + (f", or a {len(want) + 1}th for the {', '.join(extra)}" if extra else "")
             + f"), not {len(nodes)}", where, qual)
     p.nodes = [canonical_net(str(n)) for n in nodes]
     if ptype in VALUE_TYPES:
@@ -362,6 +371,14 @@ def _read_part(raw: Any, where: Where, stage: str) -> Part:
         for k, v in params.items():
             p.params[k.upper()] = _parse_value(v, file=where.file, line=where.line, part=qual)
     return p
+
+
+def _optional_nodes(ptype: str) -> dict[str, str]:
+    """Trailing nodes a device part may add -> the node each is tied to
+    when left out (the device's description in the registry)."""
+    if ptype not in MODEL_KIND:
+        return {}
+    return dict(_registry().DEVICES[PART_TYPES[ptype][0]].part_optional)
 
 
 def _read_stage_body(body: dict, name: str, where: Where, finder) -> Stage:
@@ -928,7 +945,8 @@ class Design:
             if e.name in self._netlist_models:
                 m = lib.get(self._netlist_models[e.name])
                 params = dict(m.element_params())
-                if e.kind in ("Q", "J", "M"):
+                dev = _registry().DEVICES.get(e.kind)
+                if dev is not None and dev.typed:
                     params["TYPE"] = str(m.kind).upper()
                 e.params = params
                 from solderless.engine.analysis.regions import ratings_of
@@ -1229,10 +1247,14 @@ class _Flattener:
                 self.ratings[q] = ratings_of(model)
             if OFF_BY_DESIGN in (p.note or "").lower():
                 self.off_by_design.add(q)
-            if kind in ("Q", "J", "M"):
+            if _registry().DEVICES[kind].typed:
                 params["TYPE"] = want
-        if kind == "M" and len(nodes) == 3:
-            nodes = nodes + (nodes[2],)          # bulk on the source, as a discrete part
+        if p.type in DEVICE_TYPES:
+            want_nodes = PART_TYPES[p.type][1]
+            ties = list(_optional_nodes(p.type).values())
+            for tie in ties[len(nodes) - len(want_nodes):]:
+                # left out: tied as a discrete part's (a MOSFET's bulk on its source)
+                nodes = nodes + (nodes[want_nodes.index(tie)],)
         add(Element(q, kind, nodes, p.value if p.value is not None else 0.0, params, w))
         return lib
 
@@ -1360,14 +1382,7 @@ def load_design(source: str | os.PathLike, *, in_source: str = "VIN",
 def _part_type(e: Element) -> str:
     """The design part type of a flat element (a BJT, JFET or MOSFET by its
     TYPE)."""
-    t = str((e.params or {}).get("TYPE", "")).upper()
-    if e.kind == "Q":
-        return "pnp" if t == "PNP" else "npn"
-    if e.kind == "J":
-        return "pjfet" if t == "PJF" else "njfet"
-    if e.kind == "M":
-        return "pmos" if t == "PMOS" else "nmos"
-    return KIND_TO_TYPE.get(e.kind, "resistor")
+    return _registry().part_type_of(e.kind, e.params) or KIND_TO_TYPE.get(e.kind, "resistor")
 
 
 def _design_from_netlist(path: Path, in_source: str, out_node: str) -> Design:
@@ -1645,7 +1660,7 @@ def _stage_from_netlist(raw: dict, name: str, design_path: Path, w: Where) -> St
         ports = [str(p).lower() for p in raw.get("ports", ["in", "out"])]
     parts = []
     for e in elems:
-        if e.kind in ("Q", "J", "M", "D", "OPAMP", "OTA"):
+        if _registry().part_type_of(e.kind, e.params) is not None:   # a device part
             p = Part(name=e.name, type=_part_type(e), nodes=list(e.nodes), model="_inline",
                      params=dict(e.params), where=e.where or w)
         else:

@@ -28,6 +28,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Iterable
 
+from solderless.engine.derived import LiveMapping
 from solderless.engine.errors import DesignError
 from solderless.engine.values import parse_value
 
@@ -36,26 +37,19 @@ __all__ = ["Model", "PartsLibrary", "load_library", "BUILTIN_PATH", "KINDS"]
 #: The built-in library file.
 BUILTIN_PATH = Path(__file__).resolve().parent.parent / "presets" / "parts.toml"
 
-#: Model kind -> flat-circuit element kind.
-KINDS: dict[str, str] = {"D": "D", "NPN": "Q", "PNP": "Q", "NJF": "J", "PJF": "J",
-                         "NMOS": "M", "PMOS": "M", "OPAMP": "OPAMP", "OTA": "OTA"}
+def _registry():
+    from solderless.engine.devices import registry
+    return registry
 
-_MACRO_PARAMS = {
-    "OPAMP": {"A0", "GBW", "ROUT", "VHEAD", "IQ", "RIN"},
-    "OTA": {"IS", "N", "JUNCTIONS", "IABC_MAX", "VHEAD", "RIN"},
-}
-_MACRO_REQUIRED = {
-    "OPAMP": ("A0", "GBW", "ROUT", "VHEAD"),
-    "OTA": ("IS", "N", "JUNCTIONS", "IABC_MAX", "VHEAD"),
-}
-# Library names -> names the device modules read, where they differ.
-_DEVICE_ALIAS = {"OPAMP": {"VHEAD": "VHR"}, "OTA": {}}
+
+#: Model kind -> flat-circuit element kind: every model type of every device
+#: in the registry (solderless.engine.devices.registry), read when used.
+KINDS = LiveMapping(lambda: dict(_registry().MODEL_TYPES))
 
 
 def _device_defaults(ekind: str) -> set[str]:
     """Parameter names the device module for element kind ``ekind`` reads."""
-    from solderless.engine.devices import REGISTRY
-    return set(REGISTRY[ekind].DEFAULTS)
+    return set(_registry().DEVICES[ekind].params)
 
 
 @dataclass
@@ -88,7 +82,8 @@ class Model:
         """
         ek = self.element_kind
         known = _device_defaults(ek)
-        alias = _DEVICE_ALIAS.get(ek, {})
+        dev = _registry().DEVICES[ek]
+        alias = dict(dev.library_aliases) if dev.library is not None else dict(dev.aliases)
         out: dict[str, Any] = {}
         for k, v in self.params.items():
             key = alias.get(k, k)
@@ -98,7 +93,7 @@ class Model:
             h = self.params["VHEAD"]
             if {"VLO", "VHI"} <= known:
                 out["VLO"], out["VHI"] = h, max(supply - h, h + 0.1)
-        if ek in ("Q", "J", "M"):
+        if dev.typed:
             out["TYPE"] = self.kind
         out["MODEL"] = self.name
         return out
@@ -138,7 +133,7 @@ class PartsLibrary:
         k = kind.upper() if kind else None
         return sorted(m.name for m in self._models.values()
                       if k is None or m.kind == k or
-                      (k in ("Q", "J", "M") and m.element_kind == k))
+                      (k in _typed_kinds() and m.element_kind == k))
 
     def __contains__(self, name) -> bool:
         return self.find(name) is not None
@@ -160,10 +155,12 @@ class PartsLibrary:
             raise DesignError(f"'{joined}' is not a .model card", file=file, line=line,
                               hint=".model NAME D(IS=1e-14 N=1.8)")
         name, mtype = toks[1], toks[2].upper()
-        if mtype not in ("D", "NPN", "PNP", "NJF", "PJF", "NMOS", "PMOS"):
+        card_types = list(_registry().CARD_MODEL_TYPES)
+        if mtype not in card_types:
             raise DesignError(f"model type {mtype} is not supported", file=file,
                               line=line, part=name,
-                              hint="use D, NPN, PNP, NJF, PJF, NMOS or PMOS")
+                              hint="use " + ", ".join(card_types[:-1]) + " or "
+                              + card_types[-1])
         rest = toks[3:]
         params: dict[str, float] = {}
         k = 0
@@ -190,21 +187,26 @@ class PartsLibrary:
         return self.add(Model(name, mtype, params, "user .model card", file, line))
 
 
+def _typed_kinds() -> set[str]:
+    """Element kinds whose elements carry their model type (Q, J, M)."""
+    return {d.kind for d in _registry().devices() if d.typed}
+
+
 def _validate(m: Model) -> None:
-    from solderless.engine.formats.spice import _ALIAS, _STANDARD
     where = dict(file=m.source, line=m.line, part=m.name)
     if m.kind not in KINDS:
         raise DesignError(f"unknown model kind '{m.kind}'", **where,
                           hint="use one of " + ", ".join(KINDS))
     ek = m.element_kind
-    if ek in _MACRO_PARAMS:
-        allowed = _MACRO_PARAMS[ek]
-        missing = [p for p in _MACRO_REQUIRED[ek] if p not in m.params]
+    dev = _registry().DEVICES[ek]
+    if dev.library is not None:       # a macromodel: the library's own names
+        allowed = set(dev.library)
+        missing = [p for p in dev.library_required if p not in m.params]
         if missing:
             raise DesignError(f"{ek} model needs {', '.join(missing)}", **where,
                               hint="see solderless/presets/parts.toml for the parameters")
     else:
-        allowed = _STANDARD[ek] | set(_ALIAS[ek])
+        allowed = set(dev.standard)
     for k, v in m.params.items():
         if k not in allowed:
             close = difflib.get_close_matches(k, sorted(allowed), n=3)

@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 
 from solderless.engine.circuit import Circuit
+from solderless.engine.derived import LiveMapping
 
 #: element kind -> (quantity, unit, low, high) for the element's value.
 #: Common practice: resistors from milliohms (sense resistors, wire) to
@@ -29,23 +30,20 @@ VALUE_RANGES: dict[str, tuple[str, str, float | None, float | None]] = {
     "I": ("current", "A", -1e3, 1e3),
 }
 
-#: SPICE model parameter -> (low, high) in SI units, per element kind.
-#: Common practice (typical device model cards span well inside these):
-#: saturation currents 1e-20..1e-3 A, emission coefficients 0.5..4 (ideal
-#: junction 1, recombination about 2), current gains 1..10000, Early
-#: voltages above 1 V, JFET and MOSFET thresholds within +-50 V,
-#: transconductance parameters 1e-9..10 A/V^2, series resistances below
-#: 1 Mohm.
-PARAM_RANGES: dict[str, dict[str, tuple[float | None, float | None]]] = {
-    "D": {"IS": (1e-21, 1e-2), "N": (0.5, 4.0), "RS": (0.0, 1e6), "BV": (0.1, None)},
-    "Q": {"IS": (1e-21, 1e-2), "BF": (1.0, 1e4), "BR": (1e-3, 1e4), "NF": (0.5, 4.0),
-          "NR": (0.5, 4.0), "VAF": (1.0, None), "VAR": (0.1, None),
-          "RB": (0.0, 1e6), "RC": (0.0, 1e6), "RE": (0.0, 1e6)},
-    "J": {"VTO": (-50.0, 50.0), "BETA": (1e-9, 10.0), "IS": (1e-21, 1e-2),
-          "N": (0.5, 4.0), "LAMBDA": (0.0, 10.0), "RS": (0.0, 1e6), "RD": (0.0, 1e6)},
-    "M": {"VTO": (-50.0, 50.0), "KP": (1e-9, 10.0), "LAMBDA": (0.0, 10.0),
-          "W": (1e-8, 1.0), "L": (1e-8, 1.0)},
-}
+#: SPICE model parameter -> (low, high) in SI units, per element kind: each
+#: device declares its own (``DeviceKind.ranges`` in its module under
+#: solderless/engine/devices). Common practice (typical device model cards
+#: span well inside these): saturation currents 1e-20..1e-3 A, emission
+#: coefficients 0.5..4 (ideal junction 1, recombination about 2), current
+#: gains 1..10000, Early voltages above 1 V, JFET and MOSFET thresholds
+#: within +-50 V, transconductance parameters 1e-9..10 A/V^2, series
+#: resistances below 1 Mohm.
+PARAM_RANGES = LiveMapping(lambda: {d.kind: dict(d.ranges) for d in _devices() if d.ranges})
+
+
+def _devices():
+    from solderless.engine.devices.registry import devices
+    return devices()
 
 
 def _out(x: float, lo, hi) -> bool:

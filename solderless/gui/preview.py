@@ -130,16 +130,9 @@ def run_preview(design, source: str = "synth:notes", seconds: float = PREVIEW_SE
 
 
 def _unit_of(q: str) -> str:
-    q = q.lower()
-    if q.startswith("v") or q in ("vbe", "vce", "vgs", "vds"):
-        return "V"
-    if q.startswith("i"):
-        return "A"
-    if q.startswith("gm") or q.startswith("g"):
-        return "S"
-    if q.startswith("p"):
-        return "W"
-    return ""
+    """Unit of a device quantity, as its device declares it (the registry)."""
+    from solderless.engine.devices.registry import QUANTITY_UNITS
+    return QUANTITY_UNITS.get(q, "")
 
 
 def operating_point(design, factory: Callable | None = None) -> OpReport:

@@ -189,8 +189,8 @@ def part_lines(design) -> list[PartLine]:
 def group_lines(lines: list[PartLine]) -> list[dict]:
     """Parts grouped by type and (snapped) value or model, with quantities."""
     groups: dict[tuple, dict] = {}
-    order = ["resistor", "pot", "capacitor", "electrolytic", "inductor", "diode", "npn",
-             "pnp", "njfet", "pjfet", "nmos", "pmos", "opamp", "ota"]
+    from solderless.engine.devices.registry import PART_MODEL   # device part types
+    order = ["resistor", "pot", "capacitor", "electrolytic", "inductor", *PART_MODEL]
     for ln in lines:
         if ln.value is not None and ln.type in DEFAULT_TOLERANCE:
             key = (ln.type, ln.snapped_marked, ln.tolerance, ln.taper)

@@ -23,6 +23,7 @@ from solderless.engine.levels import FULL_SCALE_V as WAV_FULL_SCALE_V
 from solderless.engine.analysis.regions import IC_OFF, VCE_SAT  # noqa: F401
 #: Part notes containing this phrase mark a device that is off at rest by design.
 from solderless.engine.analysis.regions import OFF_BY_DESIGN
+from solderless.engine.derived import LiveSet
 
 FS = 48000.0
 STATIC_LEVELS_DB = np.arange(-64.0, 0.0 + 0.1, 4.0)
@@ -69,9 +70,22 @@ def _device_quantity(q: dict, *names: str) -> float | None:
     return None
 
 
-#: Transistor part types the region check covers.
-BJT_TYPES = ("npn", "pnp")
-FET_TYPES = ("njfet", "pjfet", "nmos", "pmos")
+def _transistor_types(family: str) -> tuple[str, ...]:
+    from solderless.engine.devices.registry import transistor_part_types
+    return transistor_part_types(family)
+
+
+#: Transistor part types the region check covers: every device the registry
+#: marks as a BJT or a FET (solderless.engine.devices.registry), read when used.
+BJT_TYPES = LiveSet(lambda: _transistor_types("bjt"))
+FET_TYPES = LiveSet(lambda: _transistor_types("fet"))
+
+
+def _polarity(part_type: str) -> float:
+    """+1 for an N-type part, -1 for a P-type (its model type's polarity)."""
+    from solderless.engine.devices import registry
+    kind = registry.PART_TYPES[part_type][0]
+    return registry.DEVICES[kind].model_types[registry.PART_MODEL[part_type]]
 
 
 def transistor_check(design, op) -> list[dict]:
@@ -97,14 +111,14 @@ def transistor_check(design, op) -> list[dict]:
     """
     rows = []
     for info in design.parts():
-        if info.type not in BJT_TYPES + FET_TYPES:
+        if info.type not in BJT_TYPES and info.type not in FET_TYPES:
             continue
         q = op.devices.get(info.qualname)
         if q is None:
             continue
         intended = OFF_BY_DESIGN in (info.note or "").lower()
         if info.type in BJT_TYPES:
-            sign = 1.0 if info.type == "npn" else -1.0
+            sign = _polarity(info.type)
             ic = _device_quantity(q, "ic")
             vbe = _device_quantity(q, "vbe")
             vce = _device_quantity(q, "vce")

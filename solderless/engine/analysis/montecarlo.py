@@ -9,7 +9,8 @@ vector, then measures:
 * the DC operating point: every device's region (``in_region``: every
   transistor, op-amp and gain cell in the same region as at nominal
   values) and the smallest transistor headroom (|Vce| - 0.3 V for a BJT,
-  |Vds| for a FET; common practice);
+  |Vds| for a FET; common practice; each device's ``headroom`` hook,
+  solderless/engine/devices/registry.py);
 * the small-signal gain and input impedance at 1 kHz
   (:func:`solderless.engine.solver.ac.ac_response`);
 * for designs with a control (``[meters] control``): the threshold (input
@@ -39,14 +40,13 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from solderless.engine.analysis import compression as cp
+from solderless.engine.derived import LiveSet
 from solderless.engine.errors import DesignError, SolderlessError
 
 FS = 48000.0
 #: Peak volts of the reference burst: a hard-picked note at the jack (tens of
 #: mV peak; docs/references.md, guitar pickups, common practice).
 REFERENCE_PEAK_V = 0.05
-#: BJT saturation voltage taken as the floor of headroom (common practice).
-VCE_SAT = 0.3
 #: Default yield limit: gain within this many dB of nominal.
 GAIN_LIMIT_DB = 1.0
 #: Metrics a trial reports (name -> unit).
@@ -57,7 +57,12 @@ DISTRIBUTIONS = ("uniform", "normal")
 MAX_TAIL = 8.0
 #: Devices whose region at rest must match the nominal design's for a trial
 #: to pass: transistors, op-amps and gain cells (diodes switch by design).
-REGION_KINDS = ("Q", "J", "M", "OPAMP", "OTA")
+REGION_KINDS = LiveSet(lambda: [d.kind for d in _devices() if d.steady_region])
+
+
+def _devices():
+    from solderless.engine.devices.registry import devices
+    return devices()
 
 
 def burst_timing(sim, fs: float, law: str = "linear", lead: float = 0.15,
@@ -304,12 +309,13 @@ class TrialRunner:
         regions = {name: q.get("region", "") for name, q in op.devices.items()}
         res["regions"] = regions
         head = float("inf")
+        from solderless.engine.devices.registry import DEVICES
         for el, _, _, _ in self.net.devices:
             q = op.devices.get(el.name, {})
-            if el.kind == "Q" and "vce" in q:
-                head = min(head, abs(q["vce"]) - VCE_SAT)
-            elif el.kind in ("J", "M") and "vds" in q:
-                head = min(head, abs(q["vds"]))
+            hook = DEVICES[el.kind].headroom      # the device's own (registry)
+            h = hook(q) if hook is not None else None
+            if h is not None:
+                head = min(head, h)
         res["headroom"] = head if math.isfinite(head) else float("nan")
         res["nets"] = dict(op.nets)
         _, H, Z = ac_response(self.net, [1000.0], full)

@@ -25,8 +25,12 @@ operating point (SI units, the signs SPICE uses):
 Ratings come from the parts library (``solderless/presets/parts.toml``) with SPICE's
 names where SPICE has one: ICMAX, VCEMAX, PDMAX (BJT), IAVE, VPK, PDMAX
 (diode), VDSMAX, VGSMAX, PDMAX (JFET), VDSMAX, IDMAX, PDMAX (MOSFET),
-IABC_MAX (OTA). A part over a rating, or within ``MARGIN`` of saturation or
-cut-off where it should amplify, gets a warning.
+IABC_MAX (OTA): each device declares its rating names
+(``DeviceKind.ratings``, solderless/engine/devices/registry.py). A part over
+a rating, or within ``MARGIN`` of saturation or cut-off where it should
+amplify, gets a warning, from the device's own health hook
+(``DeviceKind.health``: the ``*_health`` functions below for the built-in
+devices).
 """
 from __future__ import annotations
 
@@ -36,15 +40,6 @@ MARGIN = 0.5        # V: this close to saturation or cut-off is reported
 DIODE_ON = 1e-6     # A: a diode conducting at least this is forward (common practice)
 OTA_OFF = 1e-9      # A: an OTA's control current under this is off
 OFF_BY_DESIGN = "off at rest"   # a part note with this phrase: cut off on purpose
-
-#: Rating names read from a part's model, per element kind.
-RATING_NAMES = {"Q": ("ICMAX", "VCEMAX", "PDMAX"), "D": ("IAVE", "VPK", "PDMAX"),
-                "J": ("VDSMAX", "VGSMAX", "PDMAX"), "M": ("VDSMAX", "IDMAX", "PDMAX"),
-                "OTA": ("IABC_MAX",)}
-
-#: Regions in which a device amplifies (used for the near-edge warnings).
-AMPLIFYING = {"Q": "active", "J": "saturated", "M": "saturated"}
-
 
 def bjt_region(sign: float, ic: float, vce: float) -> str:
     """Region of a BJT; ``sign`` +1 for NPN, -1 for PNP."""
@@ -79,6 +74,16 @@ def fet_region(sign: float, vgs: float, vds: float, vth: float) -> str:
     return "saturated"
 
 
+def bjt_headroom(q: dict) -> float | None:
+    """Volts of Vce above saturation (VCE_SAT) at the operating point."""
+    return abs(q["vce"]) - VCE_SAT if "vce" in q else None
+
+
+def fet_headroom(q: dict) -> float | None:
+    """Volts of Vds at the operating point."""
+    return abs(q["vds"]) if "vds" in q else None
+
+
 def diode_region(vd: float, id_: float, bv: float | None) -> str:
     if bv is not None and bv > 0 and vd < -bv:
         return "breakdown"
@@ -89,28 +94,6 @@ def diode_region(vd: float, id_: float, bv: float | None) -> str:
     return "off"
 
 
-def classify(kind: str, q: dict, params: dict, base_region: str = "",
-             vth: float | None = None) -> str:
-    """The region of one device from its operating-point quantities ``q``
-    and its element parameters; ``base_region`` is the device module's own
-    answer, used where this module adds nothing (op-amp, OTA); ``vth`` a
-    FET's folded threshold (the device layout's ``par[1]``)."""
-    typ = str(params.get("TYPE", "")).upper()
-    if kind == "Q":
-        return bjt_region(-1.0 if typ == "PNP" else 1.0, q.get("ic", 0.0), q.get("vce", 0.0))
-    if kind in ("J", "M"):
-        sign = -1.0 if typ in ("PJF", "PMOS") else 1.0
-        if vth is None:
-            vto = float(params.get("VTO", -2.0 if kind == "J" else 0.0))
-            vth = vto if kind == "J" else sign * vto
-        return fet_region(sign, q.get("vgs", 0.0), q.get("vds", 0.0), vth)
-    if kind == "D":
-        bv = params.get("BV")
-        return diode_region(q.get("vd", 0.0), q.get("id", 0.0),
-                            float(bv) if bv not in (None, 0) else None)
-    return base_region
-
-
 def _fmt(x: float, unit: str) -> str:
     from solderless.engine.values import format_value
     try:
@@ -119,56 +102,86 @@ def _fmt(x: float, unit: str) -> str:
         return f"{x:.3g} {unit}"
 
 
-def warnings_for(name: str, kind: str, q: dict, region: str,
-                 ratings: dict | None, off_by_design: bool = False) -> list[str]:
-    """Warnings for one device: the region where it should amplify, and
-    every rating it exceeds. A device its design note calls off at rest
-    is not warned about for being cut off."""
+def over(out: list, name: str, label: str, value: float, limit, unit: str) -> None:
+    """Append a warning to ``out`` when |value| exceeds a rating ``limit``."""
+    if limit and limit > 0 and abs(value) > limit:
+        out.append(f"{name}: {label} {_fmt(abs(value), unit)} exceeds its rating "
+                   f"{_fmt(limit, unit)} ({abs(value) / limit:.1f} times; parts library)")
+
+
+def bjt_health(name: str, q: dict, region: str | None, r: dict) -> list[str]:
+    """A BJT out of its active region, or over a rating. ``region`` is None
+    for a part off at rest by design (no region warning)."""
     out = []
-    if off_by_design and region in ("cut-off", "off"):
-        pass
-    elif kind == "Q" and region in ("saturated", "near saturation"):
+    if region in ("saturated", "near saturation"):
         out.append(f"{name}: transistor is {region} at the operating point (Vce "
                    f"{abs(q.get('vce', 0.0)):.2f} V; an amplifying stage wants more than "
                    f"{VCE_SAT + MARGIN:.1f} V)")
-    elif kind == "Q" and region in ("cut-off", "reverse"):
+    elif region in ("cut-off", "reverse"):
         out.append(f"{name}: transistor is {region} at the operating point (Ic "
                    f"{_fmt(abs(q.get('ic', 0.0)), 'A')})")
-    elif kind in ("J", "M") and region in ("cut-off", "linear", "near cut-off", "near linear"):
-        what = "JFET" if kind == "J" else "MOSFET"
-        out.append(f"{name}: {what} is {region} at the operating point (Vgs "
-                   f"{q.get('vgs', 0.0):.2f} V, Vds {q.get('vds', 0.0):.2f} V)")
-    elif kind == "OTA" and region != "on":
-        out.append(f"{name}: OTA is {region} at the operating point")
-    elif kind == "OPAMP" and region != "linear":
-        out.append(f"{name}: op-amp output is {region} at the operating point")
-    r = ratings or {}
-
-    def over(label, value, limit, unit):
-        if limit and limit > 0 and abs(value) > limit:
-            out.append(f"{name}: {label} {_fmt(abs(value), unit)} exceeds its rating "
-                       f"{_fmt(limit, unit)} ({abs(value) / limit:.1f} times; parts library)")
-
-    if kind == "Q":
-        over("collector current", q.get("ic", 0.0), r.get("ICMAX"), "A")
-        over("Vce", q.get("vce", 0.0), r.get("VCEMAX"), "V")
-        p = abs(q.get("ic", 0.0) * q.get("vce", 0.0)) + abs(q.get("ib", 0.0) * q.get("vbe", 0.0))
-        over("power", p, r.get("PDMAX"), "W")
-    elif kind == "D":
-        over("forward current", max(q.get("id", 0.0), 0.0), r.get("IAVE"), "A")
-        over("reverse voltage", min(q.get("vd", 0.0), 0.0), r.get("VPK"), "V")
-        over("power", q.get("id", 0.0) * q.get("vd", 0.0), r.get("PDMAX"), "W")
-    elif kind in ("J", "M"):
-        over("Vds", q.get("vds", 0.0), r.get("VDSMAX"), "V")
-        over("Vgs", q.get("vgs", 0.0), r.get("VGSMAX"), "V")
-        over("drain current", q.get("id", 0.0), r.get("IDMAX"), "A")
-        over("power", q.get("id", 0.0) * q.get("vds", 0.0), r.get("PDMAX"), "W")
-    elif kind == "OTA":
-        over("control current", q.get("iabc", 0.0), r.get("IABC_MAX"), "A")
+    over(out, name, "collector current", q.get("ic", 0.0), r.get("ICMAX"), "A")
+    over(out, name, "Vce", q.get("vce", 0.0), r.get("VCEMAX"), "V")
+    p = abs(q.get("ic", 0.0) * q.get("vce", 0.0)) + abs(q.get("ib", 0.0) * q.get("vbe", 0.0))
+    over(out, name, "power", p, r.get("PDMAX"), "W")
     return out
 
 
+def fet_health(what: str):
+    """The health hook of a FET (``what``: "JFET", "MOSFET"): out of its
+    saturation region, or over a rating."""
+    def health(name: str, q: dict, region: str | None, r: dict) -> list[str]:
+        out = []
+        if region in ("cut-off", "linear", "near cut-off", "near linear"):
+            out.append(f"{name}: {what} is {region} at the operating point (Vgs "
+                       f"{q.get('vgs', 0.0):.2f} V, Vds {q.get('vds', 0.0):.2f} V)")
+        over(out, name, "Vds", q.get("vds", 0.0), r.get("VDSMAX"), "V")
+        over(out, name, "Vgs", q.get("vgs", 0.0), r.get("VGSMAX"), "V")
+        over(out, name, "drain current", q.get("id", 0.0), r.get("IDMAX"), "A")
+        over(out, name, "power", q.get("id", 0.0) * q.get("vds", 0.0), r.get("PDMAX"), "W")
+        return out
+    return health
+
+
+def diode_health(name: str, q: dict, region: str | None, r: dict) -> list[str]:
+    """A diode over a rating (a diode has no region to be warned about)."""
+    out: list[str] = []
+    over(out, name, "forward current", max(q.get("id", 0.0), 0.0), r.get("IAVE"), "A")
+    over(out, name, "reverse voltage", min(q.get("vd", 0.0), 0.0), r.get("VPK"), "V")
+    over(out, name, "power", q.get("id", 0.0) * q.get("vd", 0.0), r.get("PDMAX"), "W")
+    return out
+
+
+def ota_health(name: str, q: dict, region: str | None, r: dict) -> list[str]:
+    out = []
+    if region is not None and region != "on":
+        out.append(f"{name}: OTA is {region} at the operating point")
+    over(out, name, "control current", q.get("iabc", 0.0), r.get("IABC_MAX"), "A")
+    return out
+
+
+def opamp_health(name: str, q: dict, region: str | None, r: dict) -> list[str]:
+    if region is not None and region != "linear":
+        return [f"{name}: op-amp output is {region} at the operating point"]
+    return []
+
+
+def warnings_for(name: str, kind: str, q: dict, region: str,
+                 ratings: dict | None, off_by_design: bool = False) -> list[str]:
+    """Warnings for one device: the region where it should amplify, and
+    every rating it exceeds, by the device's own health hook
+    (solderless.engine.devices.registry). A device its design note calls
+    off at rest is not warned about for being cut off."""
+    from solderless.engine.devices.registry import DEVICES
+    dev = DEVICES.get(kind)
+    if dev is None or dev.health is None:
+        return []
+    quiet = off_by_design and region in ("cut-off", "off")
+    return dev.health(name, q, None if quiet else region, ratings or {})
+
+
 def ratings_of(model) -> dict[str, float]:
-    """The ratings a parts-library model carries (see ``RATING_NAMES``)."""
-    names = RATING_NAMES.get(getattr(model, "element_kind", ""), ())
+    """The ratings a parts-library model carries (its device's ``ratings``)."""
+    from solderless.engine.devices.registry import RATINGS
+    names = RATINGS.get(getattr(model, "element_kind", ""), ())
     return {k: float(model.params[k]) for k in names if k in model.params}

@@ -1,25 +1,39 @@
-"""Device models, one module per device, and the registry kind -> module.
+"""Device models, one module per device, and the registry of them.
 
 Every device module provides the same small set of things (SPICE3 style):
-``KIND``, ``CODE`` (integer type code for the compiled kernel), ``NPORTS``,
-``DEFAULTS`` (SPICE .model parameter defaults), ``layout(element)`` (validate
-parameters; ports, internal nodes, linear stamps, flat parameter vector,
-probes), numba ``evaluate(par, pa, v, po, i, G)`` (port currents and Jacobian
-block), numba ``limit(par, pa, vnew, vold, po)`` (junction limiting) and
-``region(par, v, i)`` for reports; a device with junction charge storage
-also lists ``DeviceLayout.caps`` and provides ``capacitances(par, v, vc)``
-(plain Python, at an operating point).
+``DEVICE`` (its description as data: terminals, model and part types, SPICE
+letter, parameters with aliases, units and defaults, probes, report hooks;
+see :mod:`solderless.engine.devices.registry`), ``CODE`` (integer type code
+of its branch in the compiled kernel's dispatch), ``KIND``, ``NPORTS``,
+``DEFAULTS`` (SPICE .model parameter defaults), ``layout(element)``
+(validate parameters; ports, internal nodes, linear stamps, flat parameter
+vector, probes), numba ``evaluate(par, pa, v, po, i, G)`` (port currents and
+Jacobian block), numba ``limit(par, pa, vnew, vold, po)`` (junction
+limiting) and ``region(par, v, i)`` for reports; a device with junction
+charge storage also lists ``DeviceLayout.caps`` and provides
+``capacitances(par, v, vc)`` (plain Python, at an operating point).
 
-Adding a device: one module, one line in ``REGISTRY`` below, and one branch
-in the type-code dispatch of :mod:`solderless.engine.solver.kernel` (numba needs the
-call sites spelled out to compile one kernel for all devices).
+Adding a device: one module, and one line in ``BUILTIN`` below (see
+DEVELOPERS.md, "How to add a device"). A device with a new law also needs its
+branch in the type-code dispatch of :mod:`solderless.engine.solver.kernel`
+(numba needs the call sites spelled out to compile one kernel for all
+devices); a test checks the codes against that dispatch.
 """
 from __future__ import annotations
 
+from solderless.engine.devices import registry
 from solderless.engine.devices import behav, bjt, diode, jfet, mosfet, opamp, ota, switch
 from solderless.engine.devices._common import GMIN, TNOM, VT
 
-REGISTRY = {m.KIND: m for m in (diode, bjt, jfet, ota, opamp, mosfet, behav, switch)}
-BY_CODE = {m.CODE: m for m in REGISTRY.values()}
+#: the built-in devices, in the order messages list them
+BUILTIN = (diode, bjt, jfet, mosfet, opamp, ota, behav, switch)
+for _m in BUILTIN:
+    if _m.KIND not in registry._DEVICES:
+        registry.register(_m)
 
-__all__ = ["REGISTRY", "BY_CODE", "VT", "GMIN", "TNOM"]
+#: element kind -> device module (live: includes devices registered later)
+REGISTRY = registry.MODULES
+#: kernel type code -> device module
+BY_CODE = registry.BY_CODE
+
+__all__ = ["REGISTRY", "BY_CODE", "BUILTIN", "VT", "GMIN", "TNOM", "registry"]

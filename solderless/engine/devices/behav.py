@@ -39,6 +39,7 @@ from numba import njit
 
 from solderless.engine.devices._common import DeviceLayout
 from solderless.engine.errors import DesignError
+from solderless.engine.devices.registry import DeviceKind
 
 KIND = "BEHAV"
 CODE = 9
@@ -640,3 +641,14 @@ def map_nets(t, fn):
     if t[0] == "call":
         return ("call", t[1], [map_nets(x, fn) for x in t[2]])
     return t
+
+
+# --------------------------------------------------------------------------
+# The device's description (solderless.engine.devices.registry)
+
+def report(q, el, par, v, i, G, region):
+    return region
+
+
+DEVICE = DeviceKind(kind=KIND, terminals=("p", "n"), title="behavioural source",
+                    probes={"i": "A"}, report=report)

@@ -48,6 +48,8 @@ from solderless.engine.devices._common import (GMIN, VT, DeviceLayout, circuit_t
                                     depletion_cap, junction, junction_py, junction_temp,
                                     limit_two_junctions, model_tnom, polarity, read_params,
                                     temp_factors, vcrit)
+from solderless.engine.analysis import regions
+from solderless.engine.devices.registry import DeviceKind
 
 KIND = "Q"
 CODE = 2
@@ -404,3 +406,34 @@ def region(par, v, i) -> str:
         return "reverse"
     return "cut-off"
 
+
+# --------------------------------------------------------------------------
+# The device's description (solderless.engine.devices.registry)
+
+def report(q, el, par, v, i, G, region):
+    """gm, beta and the region (solderless.engine.analysis.regions: the
+    small-signal thresholds, signs folded by type)."""
+    q["gm"] = float(G[1, 0])
+    q["beta"] = q["ic"] / q["ib"] if q["ib"] != 0 else float("nan")
+    sign = -1.0 if str((el.params or {}).get("TYPE", "")).upper() == "PNP" else 1.0
+    return regions.bjt_region(sign, q.get("ic", 0.0), q.get("vce", 0.0))
+
+
+DEVICE = DeviceKind(
+    kind=KIND, terminals=("c", "b", "e"), title="BJT",
+    model_types={"NPN": 1.0, "PNP": -1.0}, part_types={"npn": "NPN", "pnp": "PNP"},
+    letter="Q", params=DEFAULTS, aliases=ALIASES, ignored=IGNORED,
+    units={"IS": "A", "VAF": "V", "IKF": "A", "ISE": "A", "VAR": "V", "IKR": "A",
+           "ISC": "A", "RB": "Ω", "IRB": "A", "RBM": "Ω", "RE": "Ω", "RC": "Ω",
+           "EG": "eV", "TNOM": "°C", "CJE": "F", "VJE": "V", "TF": "s", "VTF": "V",
+           "ITF": "A", "CJC": "F", "VJC": "V", "TR": "s", "CJS": "F", "VJS": "V"},
+    # ranges of real parts (common practice, solderless/engine/sanity.py)
+    ranges={"IS": (1e-21, 1e-2), "BF": (1.0, 1e4), "BR": (1e-3, 1e4), "NF": (0.5, 4.0),
+            "NR": (0.5, 4.0), "VAF": (1.0, None), "VAR": (0.1, None),
+            "RB": (0.0, 1e6), "RC": (0.0, 1e6), "RE": (0.0, 1e6)},
+    also_read=frozenset({"AREA", "AREAB", "AREAC", "IBMAX", "ICMAX", "LEVEL", "MCONFIG",
+                         "NK", "PDMAX", "QUASI", "TYPE", "VBCMAX", "VBEMAX", "VCEMAX"}),
+    probes={"ib": "A", "ic": "A", "ie": "A", "vbe": "V", "vce": "V"},
+    report=report, report_units={"gm": "S", "beta": ""}, health=regions.bjt_health,
+    transistor="bjt", steady_region=True, headroom=regions.bjt_headroom,
+    ratings=("ICMAX", "VCEMAX", "PDMAX"), output=0)

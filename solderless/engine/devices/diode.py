@@ -22,6 +22,8 @@ from solderless.engine.devices._common import (EXPLIM, GMIN, DeviceLayout, circu
                                     depletion_cap, junction, junction_py, junction_temp,
                                     lexp, model_tnom, pnjlim, read_params, temp_factors,
                                     vcrit)
+from solderless.engine.analysis import regions
+from solderless.engine.devices.registry import DeviceKind
 
 KIND = "D"
 CODE = 1
@@ -166,3 +168,28 @@ def region(par, v, i) -> str:
     if vd < -par[3]:
         return "breakdown"
     return "forward" if vd > 0.3 else "reverse" if vd < 0 else "off"
+
+
+# --------------------------------------------------------------------------
+# The device's description (solderless.engine.devices.registry)
+
+def report(q, el, par, v, i, G, region):
+    """Operating-point region (solderless.engine.analysis.regions): forward
+    from DIODE_ON, breakdown past BV, else reverse or off."""
+    bv = (el.params or {}).get("BV")
+    return regions.diode_region(q.get("vd", 0.0), q.get("id", 0.0),
+                                float(bv) if bv not in (None, 0) else None)
+
+
+DEVICE = DeviceKind(
+    kind=KIND, terminals=("a", "k"), title="diode",
+    model_types={"D": 1.0}, part_types={"diode": "D"}, part_nodes=("anode", "cathode"),
+    letter="D", params=DEFAULTS, aliases=ALIASES, ignored=IGNORED,
+    units={"IS": "A", "RS": "Ω", "BV": "V", "IBV": "A", "EG": "eV", "TNOM": "°C",
+           "CJO": "F", "VJ": "V", "TT": "s"},
+    # ranges of real parts (common practice, solderless/engine/sanity.py)
+    ranges={"IS": (1e-21, 1e-2), "N": (0.5, 4.0), "RS": (0.0, 1e6), "BV": (0.1, None)},
+    also_read=frozenset({"BVJ", "DSKIP", "EGAP", "GAP1", "GAP2", "IK", "LEVEL", "PDMAX",
+                         "TT1", "TT2", "TYPE", "VP"}),
+    probes={"id": "A", "vd": "V"}, report=report, health=regions.diode_health,
+    ratings=("IAVE", "VPK", "PDMAX"))

@@ -31,6 +31,8 @@ from solderless.engine.devices._common import (GMIN, DeviceLayout, circuit_temp,
                                     limit_two_junctions, model_tnom, polarity, read_params,
                                     temp_factors, vcrit)
 from solderless.engine.errors import DesignError
+from solderless.engine.analysis import regions
+from solderless.engine.devices.registry import DeviceKind
 
 KIND = "J"
 CODE = 3
@@ -193,3 +195,30 @@ def region(par, v, i) -> str:
     if vgst <= 0:
         return "cut-off"
     return "linear" if vgst > vds else "saturated"
+
+
+# --------------------------------------------------------------------------
+# The device's description (solderless.engine.devices.registry)
+
+def report(q, el, par, v, i, G, region):
+    """gm and the square-law region (solderless.engine.analysis.regions),
+    against the folded threshold the layout holds (par[1])."""
+    q["gm"] = float(G[1, 0])
+    sign = -1.0 if str((el.params or {}).get("TYPE", "")).upper() == "PJF" else 1.0
+    return regions.fet_region(sign, q.get("vgs", 0.0), q.get("vds", 0.0), float(par[1]))
+
+
+DEVICE = DeviceKind(
+    kind=KIND, terminals=("d", "g", "s"), title="JFET",
+    model_types={"NJF": 1.0, "PJF": -1.0}, part_types={"njfet": "NJF", "pjfet": "PJF"},
+    letter="J", params=DEFAULTS, aliases=ALIASES, ignored=IGNORED,
+    units={"VTO": "V", "BETA": "A/V²", "LAMBDA": "1/V", "IS": "A", "RD": "Ω", "RS": "Ω",
+           "B": "1/V", "PB": "V", "TNOM": "°C", "CGS": "F", "CGD": "F"},
+    # ranges of real parts (common practice, solderless/engine/sanity.py)
+    ranges={"VTO": (-50.0, 50.0), "BETA": (1e-9, 10.0), "IS": (1e-21, 1e-2),
+            "N": (0.5, 4.0), "LAMBDA": (0.0, 10.0), "RS": (0.0, 1e6), "RD": (0.0, 1e6)},
+    also_read=frozenset({"LEVEL", "PDMAX", "TYPE"}),
+    probes={"ig": "A", "id": "A", "vgs": "V", "vds": "V"},
+    report=report, report_units={"gm": "S"}, health=regions.fet_health("JFET"),
+    transistor="fet", steady_region=True, headroom=regions.fet_headroom,
+    ratings=("VDSMAX", "VGSMAX", "PDMAX"), output=0)

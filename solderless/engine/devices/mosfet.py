@@ -38,6 +38,8 @@ from numba import njit
 from solderless.engine.devices._common import (GMIN, VT, DeviceLayout, depletion_cap, junction,
                                     pnjlim, polarity, read_params, vcrit)
 from solderless.engine.errors import DesignError
+from solderless.engine.analysis import regions
+from solderless.engine.devices.registry import DeviceKind
 
 KIND = "M"
 CODE = 6
@@ -278,3 +280,35 @@ def region(par, v, i) -> str:
     if vgs - von <= 0:
         return "cut-off"
     return "linear" if vgs - von > vds else "saturated"
+
+
+# --------------------------------------------------------------------------
+# The device's description (solderless.engine.devices.registry)
+
+def report(q, el, par, v, i, G, region):
+    """gm and the square-law region (solderless.engine.analysis.regions),
+    against the folded threshold the layout holds (par[1])."""
+    q["gm"] = float(G[1, 0])
+    sign = -1.0 if str((el.params or {}).get("TYPE", "")).upper() == "PMOS" else 1.0
+    return regions.fet_region(sign, q.get("vgs", 0.0), q.get("vds", 0.0), float(par[1]))
+
+
+DEVICE = DeviceKind(
+    kind=KIND, terminals=("d", "g", "s", "b"), title="MOSFET",
+    model_types={"NMOS": 1.0, "PMOS": -1.0}, part_types={"nmos": "NMOS", "pmos": "PMOS"},
+    part_nodes=("d", "g", "s"), part_optional={"bulk": "s"},
+    letter="M", params=DEFAULTS, aliases=ALIASES, ignored=IGNORED,
+    units={"VTO": "V", "KP": "A/V²", "LAMBDA": "1/V", "GAMMA": "√V", "PHI": "V",
+           "IS": "A", "LD": "m", "RD": "Ω", "RS": "Ω", "W": "m", "L": "m",
+           "CGSO": "F/m", "CGDO": "F/m", "CGBO": "F/m", "CBD": "F", "CBS": "F", "PB": "V",
+           "CJ": "F/m²", "CJSW": "F/m", "AD": "m²", "AS": "m²", "PD": "m", "PS": "m"},
+    # ranges of real parts (common practice, solderless/engine/sanity.py)
+    ranges={"VTO": (-50.0, 50.0), "KP": (1e-9, 10.0), "LAMBDA": (0.0, 10.0),
+            "W": (1e-8, 1.0), "L": (1e-8, 1.0)},
+    also_read=frozenset({"IDMAX", "KSUBTHRES", "LEVEL", "MTRIODE", "PDMAX", "TYPE",
+                         "VDSMAX"}),
+    instance=INSTANCE, card_prefix="LEVEL=1", takes_off=False,
+    probes={"id": "A", "vgs": "V", "vds": "V"},
+    report=report, report_units={"gm": "S"}, health=regions.fet_health("MOSFET"),
+    transistor="fet", steady_region=True, headroom=regions.fet_headroom,
+    ratings=("VDSMAX", "IDMAX", "PDMAX"), output=0)

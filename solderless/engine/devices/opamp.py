@@ -19,6 +19,8 @@ import numpy as np
 from numba import njit
 
 from solderless.engine.devices._common import DeviceLayout, lexp, pnjlim, read_params, vcrit
+from solderless.engine.analysis import regions
+from solderless.engine.devices.registry import DeviceKind
 
 KIND = "OPAMP"
 CODE = 5
@@ -74,3 +76,23 @@ def region(par, v, i) -> str:
     if i[1] > lim:
         return "clipping low"
     return "linear"
+
+
+# --------------------------------------------------------------------------
+# The device's description (solderless.engine.devices.registry)
+
+def report(q, el, par, v, i, G, region):
+    """The clamp's own answer: linear or clipping."""
+    return region
+
+
+DEVICE = DeviceKind(
+    kind=KIND, terminals=("inp", "inn", "out", "vcc", "vee"), title="op-amp",
+    model_types={"OPAMP": 1.0}, part_types={"opamp": "OPAMP"},
+    part_nodes=("in+", "in-", "out", "v+", "v-"),
+    params=DEFAULTS, units={"GBW": "Hz", "ROUT": "Ω", "RIN": "Ω", "VHR": "V",
+                            "VSOFT": "V", "RP": "Ω"},
+    probes={"iclip": "A"}, report=report, health=regions.opamp_health, output=2,
+    steady_region=True,
+    library=frozenset({"A0", "GBW", "ROUT", "VHEAD", "IQ", "RIN"}),
+    library_required=("A0", "GBW", "ROUT", "VHEAD"), library_aliases={"VHEAD": "VHR"})

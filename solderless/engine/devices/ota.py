@@ -22,6 +22,8 @@ from numba import njit
 
 from solderless.engine.devices._common import (GMIN, VT, DeviceLayout, junction, pnjlim,
                                     read_params, vcrit)
+from solderless.engine.analysis import regions
+from solderless.engine.devices.registry import DeviceKind
 
 KIND = "OTA"
 CODE = 4
@@ -104,3 +106,24 @@ def region(par, v, i) -> str:
     if not (par[4] < v[2] < par[5]):
         return "compliance"
     return "on"
+
+
+# --------------------------------------------------------------------------
+# The device's description (solderless.engine.devices.registry)
+
+def report(q, el, par, v, i, G, region):
+    """The module's own answer: on, off or compliance."""
+    return region
+
+
+DEVICE = DeviceKind(
+    kind=KIND, terminals=("inp", "inn", "out", "abc", "vee"), title="OTA",
+    model_types={"OTA": 1.0}, part_types={"ota": "OTA"},
+    part_nodes=("in+", "in-", "out", "control", "v-"),
+    params=DEFAULTS, units={"IS": "A", "VLO": "V", "VHI": "V", "VSOFT": "V", "ROUT": "Ω",
+                            "RIN": "Ω"},
+    probes={"iabc": "A", "gm": "S", "iout": "A", "vd": "V", "vabc": "V"},
+    report=report, health=regions.ota_health, ratings=("IABC_MAX",), output=2,
+    steady_region=True,
+    library=frozenset({"IS", "N", "JUNCTIONS", "IABC_MAX", "VHEAD", "RIN"}),
+    library_required=("IS", "N", "JUNCTIONS", "IABC_MAX", "VHEAD"))

@@ -25,6 +25,7 @@ import numpy as np
 from numba import njit
 
 from solderless.engine.devices._common import DeviceLayout, read_params
+from solderless.engine.devices.registry import DeviceKind
 
 KIND = "SW"
 CODE = 10
@@ -92,3 +93,16 @@ def limit(par, pa, vn, vo, po):
 def region(par, v, i) -> str:
     """on / off, from the memory node."""
     return "on" if v[2] > 0.5 else "off"
+
+
+# --------------------------------------------------------------------------
+# The device's description (solderless.engine.devices.registry)
+
+def report(q, el, par, v, i, G, region):
+    """on or off, from the memory node."""
+    return region
+
+
+DEVICE = DeviceKind(kind=KIND, terminals=("p", "n", "cp", "cn"), title="switch",
+                    params=DEFAULTS, units={"VT": "V", "VH": "V", "RON": "Ω", "ROFF": "Ω"},
+                    probes={"i": "A", "vc": "V", "state": ""}, report=report)

@@ -70,6 +70,7 @@ from dataclasses import dataclass, field
 from typing import Any, Callable
 
 from solderless.engine.circuit import GROUND, Circuit, Element, Where, canonical_net
+from solderless.engine.derived import LiveMapping
 from solderless.engine.errors import DesignError, ValueFormatError
 from solderless.engine import limits
 from solderless.engine.values import parse_value
@@ -83,63 +84,24 @@ __all__ = [
 # --------------------------------------------------------------------------
 # Device parameter names
 
-#: Model types read from ``.model`` cards, and the element kind they serve.
-MODEL_KIND = {"D": "D", "NPN": "Q", "PNP": "Q", "NJF": "J", "PJF": "J", "NMOS": "M",
-              "PMOS": "M"}
+def _registry():
+    from solderless.engine.devices import registry
+    return registry
 
-# Standard SPICE model parameters (ngspice manual, device model tables);
-# those we do not simulate are kept and reported, not refused.
-_STANDARD = {
-    "D": {"IS", "N", "RS", "CJO", "CJ0", "CJ", "VJ", "M", "TT", "BV", "IBV",
-          "EG", "XTI", "KF", "AF", "FC", "TNOM", "ISR", "NR", "IKF", "IK",
-          "IKR", "NBV", "IBVL", "NBVL", "TRS", "TRS1", "TRS2", "TCV", "JSW",
-          "CJP", "CJSW", "PHP", "MJSW", "AREA", "PJ", "LEVEL", "IBVL",
-          "TBV1", "TBV2", "TT1", "TT2", "TM1", "TM2", "CTA", "CTP", "TPB",
-          "TPHP", "TLEV", "TLEVC", "XTI", "GAP1", "GAP2", "EGAP", "VP",
-          "IAVE", "IPK", "VPK", "MFG", "TYPE", "BVJ", "DSKIP", "PDMAX"},
-    "Q": {"IS", "BF", "NF", "VAF", "VA", "IKF", "IK", "ISE", "NE", "BR",
-          "NR", "VAR", "VB", "IKR", "ISC", "NC", "RB", "IRB", "RBM", "RE",
-          "RC", "CJE", "VJE", "PE", "MJE", "ME", "TF", "XTF", "VTF", "ITF",
-          "PTF", "CJC", "VJC", "PC", "MJC", "MC", "XCJC", "TR", "CJS", "CCS",
-          "VJS", "PS", "MJS", "MS", "XTB", "EG", "XTI", "KF", "AF", "FC",
-          "TNOM", "LEVEL", "SUBS", "QUASI", "RCO", "VO", "GAMMA", "QCO",
-          "ISS", "NS", "NK", "IRB", "TLEV", "TLEVC", "TRE1", "TRE2", "TRC1",
-          "TRC2", "TRB1", "TRB2", "TRM1", "TRM2", "TBF1", "TBF2", "TBR1",
-          "TBR2", "TIKF1", "TIKF2", "TIKR1", "TIKR2", "TIRB1", "TIRB2",
-          "TNC1", "TNC2", "TNE1", "TNE2", "TNF1", "TNF2", "TNR1", "TNR2",
-          "TVAF1", "TVAF2", "TVAR1", "TVAR2", "TITF1", "TITF2", "TTF1",
-          "TTF2", "TTR1", "TTR2", "TMJE1", "TMJE2", "TMJC1", "TMJC2",
-          "TMJS1", "TMJS2", "TIS1", "TIS2", "TISE1", "TISE2", "TISC1",
-          "TISC2", "CTC", "CTE", "CTS", "TVJE", "TVJC", "TVJS", "MFG",
-          "VCEO", "ICRATING", "BVCBO", "BVCEO", "BVEBO", "NKF", "TYPE",
-          "MCONFIG", "ICMAX", "IBMAX", "PDMAX", "VCEMAX", "VBEMAX",
-          "VBCMAX", "AREA", "AREAB", "AREAC"},
-    "J": {"VTO", "VT0", "BETA", "LAMBDA", "RD", "RS", "CGS", "CGD", "PB",
-          "IS", "N", "B", "FC", "KF", "AF", "TNOM", "TCV", "VTOTC", "BEX",
-          "BETATCE", "XTI", "EG", "LEVEL", "ISR", "NR", "ALPHA", "VK", "M",
-          "MFG", "TYPE", "BV", "IBV", "VDSMAX", "VGSMAX", "VGDMAX", "RG", "PDMAX"},
-    "M": {"LEVEL", "VTO", "VT0", "KP", "GAMMA", "PHI", "LAMBDA", "RD", "RS", "CBD",
-          "CBS", "IS", "PB", "CGSO", "CGDO", "CGBO", "RSH", "CJ", "MJ", "CJSW",
-          "MJSW", "JS", "TOX", "NSUB", "NSS", "NFS", "TPG", "XJ", "LD", "UO", "U0",
-          "UCRIT", "UEXP", "UTRA", "VMAX", "NEFF", "KF", "AF", "FC", "DELTA",
-          "THETA", "ETA", "KAPPA", "TNOM", "MFG", "TYPE", "N", "W", "L", "WD",
-          "RG", "RB", "BEX", "TCV", "XTI", "EG", "VDS", "VGS", "RON", "QG",
-          "MTRIODE", "KSUBTHRES", "BV", "IBV", "TT", "VDSMAX", "IDMAX", "PDMAX"},
-}
-# Aliases SPICE accepts for the same parameter.
-_ALIAS = {
-    "D": {"CJ0": "CJO", "CJ": "CJO"},
-    "Q": {"VA": "VAF", "VB": "VAR", "IK": "IKF", "PE": "VJE", "ME": "MJE",
-          "PC": "VJC", "MC": "MJC", "PS": "VJS", "MS": "MJS", "CCS": "CJS"},
-    "J": {"VT0": "VTO"},
-    "M": {"VT0": "VTO"},
-}
+
+#: Model types read from ``.model`` cards, and the element kind they serve;
+#: the standard SPICE model parameters of each (ngspice manual, device model
+#: tables: those we do not simulate are kept and reported, not refused) and
+#: the other spellings SPICE accepts. Each device declares its own
+#: (solderless.engine.devices.registry); these tables read them when used.
+MODEL_KIND = LiveMapping(lambda: dict(_registry().CARD_MODEL_TYPES))
+_STANDARD = LiveMapping(lambda: dict(_registry().STANDARD))
+_ALIAS = LiveMapping(lambda: dict(_registry().ALIASES))
 
 
 def _simulated(kind: str) -> set[str]:
     """Parameter names the device module for ``kind`` reads."""
-    from solderless.engine.devices import REGISTRY
-    return set(REGISTRY[kind].DEFAULTS)
+    return set(_registry().DEVICES[kind].params)
 
 
 # --------------------------------------------------------------------------
@@ -931,7 +893,7 @@ class _Reader:
                 self.controlled(c, letter, name, net, scope)
             elif letter in "FH":
                 self.current_controlled(c, letter, name, net, scope, prefix)
-            elif letter in "DQJM":
+            elif letter in _registry().LETTERS:
                 self.device(c, letter, name, net, scope)
             elif letter in "SW":
                 self.switch(c, letter, name, net, scope, prefix)
@@ -941,7 +903,8 @@ class _Reader:
                 self.err(c, _UNSUPPORTED_ELEMENTS[letter], part=name)
             else:
                 self.err(c, f"'{word}' is not a SPICE element name",
-                         "element names start with R, C, L, V, I, E, G, F, H, B, S, W, D, Q, J, M or X",
+                         "element names start with R, C, L, V, I, E, G, F, H, B, S, W, "
+                         + ", ".join(_registry().card_letters()) + " or X",
                          part=name)
 
     def setting(self, c, low, scope, prefix, netmap):
@@ -1392,8 +1355,9 @@ class _Reader:
 
     def device(self, c, letter, name, net, scope):
         pos, kv = self.kv(c.tokens[1:], c)
-        nn = {"D": 2, "Q": 3, "J": 3, "M": 4}[letter]
-        want = {"D": "D", "Q": "NPN or PNP", "J": "NJF or PJF", "M": "NMOS or PMOS"}[letter]
+        dev = _registry().DEVICES[_registry().LETTERS[letter]]
+        nn = len(dev.terminals)
+        want = " or ".join(dev.model_types)
         if len(pos) < nn + 1:
             self.err(c, f"needs {nn} nodes and a model name",
                      f"{c.tokens[0]} " + " ".join(["node"] * nn) + " MODEL", name)
@@ -1411,42 +1375,41 @@ class _Reader:
                      "a model of the parts library", name)
         mtype = model.type.upper()
         kind = MODEL_KIND.get(mtype)
-        if kind != letter:
+        if kind != dev.kind:
             self.err(c, f"model '{model.name}' is of type {mtype}, a {letter} "
                      f"element needs {want}", part=name)
         extra = pos[mi + 1:]
         off = False
         for tok in extra:
             if tok.lower() == "off":
-                if letter == "M":
-                    self.warn(f"{c.file}:{c.line}: {name}: OFF is ignored for a MOSFET")
+                if not dev.takes_off:
+                    self.warn(f"{c.file}:{c.line}: {name}: OFF is ignored for a {dev.title}")
                 off = True
             else:
                 self.value(tok, c, scope, "area factor", name)
                 self.warn(f"{c.file}:{c.line}: {name}: area factor {tok} is ignored")
         inst: dict[str, float] = {}
         for k, tok in kv.items():
-            if letter == "M" and k in ("W", "L", "M", "AD", "AS", "PD", "PS"):
+            if k in dev.instance:
                 inst[k] = self.value(tok, c, scope, k, name)
             else:
                 self.warn(f"{c.file}:{c.line}: {name}: instance parameter {k} is ignored")
         params = self.device_params(model, kind)
         params.update(inst)
-        if kind in ("Q", "J", "M"):
+        if dev.typed:
             params["TYPE"] = mtype
         params["MODEL"] = model.name
-        if off and letter != "M":
+        if off and dev.takes_off:
             params["OFF"] = 1.0
         self.element_models[name] = model.name
-        self.add(Element(name, letter, tuple(net(p) for p in pos[:nn]), 0.0,
+        self.add(Element(name, dev.kind, tuple(net(p) for p in pos[:nn]), 0.0,
                          params, c.where), c)
 
     def device_params(self, model: SpiceModel, kind: str) -> dict[str, Any]:
-        from solderless.engine.devices import REGISTRY
-        mod = REGISTRY[kind]
+        dev = _registry().DEVICES[kind]
         sim = _simulated(kind)
-        ign = getattr(mod, "IGNORED", {})
-        alias = {**_ALIAS[kind], **getattr(mod, "ALIASES", {})}
+        ign = dev.ignored
+        alias = dev.aliases
         out: dict[str, Any] = {}
         where = f"{model.where.file}:{model.where.line}: " if model.where else ""
         for k, v in model.params.items():
@@ -1618,7 +1581,8 @@ def parse_netlist(text: str, *, file: str = "<text>", in_source: str = "VIN",
     if reader.tnom is not None:
         # '.options tnom=': the nominal temperature of models that give none
         for el in circuit.elements:
-            if el.kind in ("D", "Q", "J") and "TNOM" not in el.params:
+            dev = _registry().DEVICES.get(el.kind)
+            if dev is not None and "TNOM" in dev.params and "TNOM" not in el.params:
                 el.params["TNOM"] = reader.tnom
     for what, table in (("ic", circuit.ic), ("nodeset", circuit.nodeset)):
         for n in table:
@@ -1720,7 +1684,8 @@ def _spice_name(el: Element) -> str:
     """SPICE name of an element: its own name when that starts with the
     kind letter, else ``<letter>.<name>`` (the form ngspice gives flattened
     elements, and which :func:`parse_netlist` reads back as ``<name>``)."""
-    letter = el.kind[0]
+    dev = _registry().DEVICES.get(el.kind)
+    letter = dev.letter if dev is not None and dev.letter else el.kind[0]
     name = re.sub(r"[^A-Za-z0-9_.#]", "_", el.name)
     if name[:1].upper() == letter and name[1:2] != ".":
         return name.upper()
@@ -1835,6 +1800,11 @@ def _macromodel_subckt(el: Element, temperature, subckts: dict) -> str:
     return name
 
 
+#: element kinds the writer has its own card for; the devices with a
+#: ``.model`` card (the registry's letters) are written from their description
+_WRITTEN_KINDS = {"R", "C", "L", "V", "I", "E", "G", "F", "H", "BEHAV", "SW"}
+
+
 def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
     """Write ``circuit`` as a netlist ngspice runs (ends with ``.end``).
 
@@ -1910,8 +1880,7 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
             sub = _macromodel_subckt(el, circuit.temperature, subckts)
             lines.append(f"{sname} " + " ".join(node(n) for n in el.nodes) + f" {sub}")
             continue
-        if el.kind not in ("R", "C", "L", "V", "I", "E", "G", "F", "H", "D", "Q", "J", "M",
-                           "BEHAV", "SW"):
+        if el.kind not in _WRITTEN_KINDS and el.kind not in _registry().LETTERS.values():
             raise DesignError(f"element kind '{el.kind}' cannot be written as SPICE",
                               file=f, line=ln, part=el.name)
         sname = _spice_name(el)
@@ -1976,23 +1945,19 @@ def circuit_to_netlist(circuit: Circuit, title: str = "") -> str:
             s = f"{sname} {nodes} {_spice_name(ctl)} {_fmt(el.value)}"
         else:
             kind = el.kind
-            mtype = {"D": "D"}.get(kind) or str(p.get("TYPE", "")).upper()
-            if kind == "Q" and mtype not in ("NPN", "PNP"):
-                raise DesignError("a BJT needs params['TYPE'] NPN or PNP", file=f,
-                                  line=ln, part=el.name)
-            if kind == "J" and mtype not in ("NJF", "PJF"):
-                raise DesignError("a JFET needs params['TYPE'] NJF or PJF", file=f,
-                                  line=ln, part=el.name)
-            if kind == "M" and mtype not in ("NMOS", "PMOS"):
-                raise DesignError("a MOSFET needs params['TYPE'] NMOS or PMOS", file=f,
-                                  line=ln, part=el.name)
+            dev = _registry().DEVICES[kind]
+            types = list(dev.model_types)
+            mtype = str(p.get("TYPE", "")).upper() if dev.typed else types[0]
+            if mtype not in types:
+                raise DesignError(f"a {dev.title} needs params['TYPE'] "
+                                  + " or ".join(types), file=f, line=ln, part=el.name)
             mname = "M_" + sname.replace(".", "_")
             sim = _simulated(kind)
-            inst = ("W", "L", "M", "AD", "AS", "PD", "PS") if kind == "M" else ()
+            inst = dev.instance
             mp = " ".join(f"{k}={_fmt(float(v))}" for k, v in p.items()
                           if k in sim and k not in inst)
-            if kind == "M":
-                mp = ("LEVEL=1 " + mp).strip()
+            if dev.card_prefix:
+                mp = (dev.card_prefix + " " + mp).strip()
             models.append(f".model {mname} {mtype}({mp})")
             s = f"{sname} {nodes} {mname}"
             if p.get("OFF"):

@@ -638,7 +638,7 @@ class LiveHost:
             outdata[:] = 0
             if self.error is None:
                 self.error = exc
-            self.st[lim.S_GUARD] = 4.0
+            self.st[lim.S_GUARD] = lim.GUARD_CALLBACK
 
     # ------------------------------------------------------------ running
     def enable_tap(self, seconds: float) -> None:
@@ -864,7 +864,7 @@ class LiveHost:
         stage re-arms once the output has stayed sane for
         ``limiter.REARM_S`` and ramps up from silence. A rebuild that fails
         (no operating point) leaves the mute on and says why."""
-        if int(self.st[lim.S_GUARD]) not in (1, 2, 5) or not self._built:
+        if int(self.st[lim.S_GUARD]) not in lim.GUARD_REARMING or not self._built:
             return
         self._recover_trips = int(self.st[lim.S_TRIPS])
         for v in self.voices:
@@ -918,7 +918,7 @@ class LiveHost:
                 # a guard trip with no edit: try one restart
                 # (at most once between edits, so a circuit that runs away
                 # at its values is not rebuilt over and over)
-                if int(self.st[lim.S_GUARD]) in (1, 2, 5) and self._auto_recover and \
+                if int(self.st[lim.S_GUARD]) in lim.GUARD_REARMING and self._auto_recover and \
                         int(self.st[lim.S_TRIPS]) != self._recover_trips and self._built:
                     self._recover_trips = int(self.st[lim.S_TRIPS])
                     self._auto_recover = False
@@ -1346,7 +1346,7 @@ class LiveHost:
     def guard_reason(self) -> str:
         """Why the output is muted ('' if it is not)."""
         g = int(self.st[lim.S_GUARD])
-        if g == 4:
+        if g == lim.GUARD_CALLBACK:
             return f"the audio callback failed: {self.error!r}"
         return M.GUARD_REASONS.get(g, "")
 

@@ -3,10 +3,11 @@ start ramp, the safety guard and the safety limiter. Runs on the audio thread.
 
 Per sample, in this order:
 
-1. **Guard** on the circuit's output volts: NaN/inf (reason 1) or a magnitude
-   above the runaway limit (reason 2, default 100 V: no pedal on 9-18 V rails
-   can put that out; common practice) mutes at once. While muted for reason
-   1, 2 or 5 the guard watches the circuit: once both voices' outputs have
+1. **Guard** on the circuit's output volts: NaN/inf (reason 1,
+   ``GUARD_NONFINITE``) or a magnitude above the runaway limit (reason 2,
+   ``GUARD_RUNAWAY``, default 100 V: no pedal on 9-18 V rails can put that
+   out; common practice) mutes at once. While muted for reason 1, 2 or 5
+   (``GUARD_REARMING``) the guard watches the circuit: once both voices' outputs have
    been finite and inside the runaway limit for ``REARM_S`` it re-arms by
    itself, and the output ramps up from silence (start-up ramp). Reason 3
    latches until :func:`reset_guard` (the user's ``unmute``).
@@ -19,14 +20,14 @@ Per sample, in this order:
    ``LEVEL_TAU_S``).
 4. **Sustained full scale**: a one-pole mean square (time constant 50 ms)
    above that of a full-scale sine (0.5) for longer than ``FULL_SCALE_HOLD_S``
-   mutes (reason 3).
+   mutes (reason 3, ``GUARD_FULL_SCALE``).
 5. **Limiter**: instant attack (gain never above ceiling / |x|, so the output
    cannot exceed the ceiling), exponential release (time constant
    ``RELEASE_S``). A final clamp at the ceiling is kept as a second line.
 6. **Device guard**: the sample about to go to the sound card must be finite
    and within the ceiling, and the ceiling itself must be in (0, 1]; anything
    else (a corrupted level or ceiling parameter, NaN through the mix) mutes
-   with reason 5 instead of reaching the device. So every sample the host
+   with reason 5 (``GUARD_DEVICE``) instead of reaching the device. So every sample the host
    hands to the device is finite and at most the ceiling, by construction.
 
 All state lives in float64 arrays owned by the host; nothing is allocated.
@@ -47,6 +48,24 @@ DEFAULT_CEILING_DBFS = -6.0
 XFADE_S = 0.020
 REARM_S = 0.5
 """Sane circuit output needed before a guard mute (reasons 1, 2, 5) re-arms."""
+
+# guard codes: st[S_GUARD], why the output is muted (0: it is not)
+GUARD_OFF = 0
+GUARD_NONFINITE = 1     # the circuit output became NaN or infinite
+GUARD_RUNAWAY = 2       # the circuit output ran beyond the runaway limit
+GUARD_FULL_SCALE = 3    # sustained full scale (latches until reset_guard)
+GUARD_CALLBACK = 4      # set by the host when its audio callback failed
+GUARD_DEVICE = 5        # a sample for the sound card was bad (device guard)
+#: Mutes that re-arm by themselves once the circuit output is sane again.
+GUARD_REARMING = (GUARD_NONFINITE, GUARD_RUNAWAY, GUARD_DEVICE)
+GUARD_REASONS = {
+    GUARD_OFF: "",
+    GUARD_NONFINITE: "the circuit output became NaN or infinite",
+    GUARD_RUNAWAY: "the circuit output ran away beyond the runaway limit",
+    GUARD_FULL_SCALE: "the output sat at full scale for too long",
+    GUARD_CALLBACK: "the audio callback failed",
+    GUARD_DEVICE: "a sample for the sound card was not finite or above the ceiling",
+}
 
 # state slots
 S_LEVEL, S_AB, S_LIM, S_MS, S_FS_RUN, S_GUARD, S_GA, S_GB, S_SANE, S_REARMS, \
@@ -107,9 +126,9 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
     ceiling = p[P_CEILING]
     if not (ceiling > 0.0 and ceiling <= 1.0):
         # a corrupted ceiling: nothing can be trusted to the device
-        if st[S_GUARD] != 5.0:
+        if st[S_GUARD] != GUARD_DEVICE:
             st[S_TRIPS] += 1.0
-        st[S_GUARD] = 5.0
+        st[S_GUARD] = GUARD_DEVICE
         st[S_SANE] = 0.0
         st[S_LEVEL] = 0.0
         for i in range(n):
@@ -123,16 +142,17 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
         sane = np.isfinite(a) and np.isfinite(b) and abs(a) <= p[P_RUNAWAY] \
             and abs(b) <= p[P_RUNAWAY]
         g0 = st[S_GUARD]
-        if g0 == 0.0 and not sane:
-            st[S_GUARD] = 1.0 if not (np.isfinite(a) and np.isfinite(b)) else 2.0
+        if g0 == GUARD_OFF and not sane:
+            st[S_GUARD] = (GUARD_NONFINITE if not (np.isfinite(a) and np.isfinite(b))
+                           else GUARD_RUNAWAY)
             st[S_TRIPS] += 1.0
             st[S_SANE] = 0.0
-        elif g0 == 1.0 or g0 == 2.0 or g0 == 5.0:
+        elif g0 == GUARD_NONFINITE or g0 == GUARD_RUNAWAY or g0 == GUARD_DEVICE:
             # muted by the circuit (or a bad sample): re-arm once it is sane
             if sane:
                 st[S_SANE] += 1.0
                 if st[S_SANE] >= p[P_REARM]:
-                    st[S_GUARD] = 0.0
+                    st[S_GUARD] = GUARD_OFF
                     st[S_SANE] = 0.0
                     st[S_LEVEL] = 0.0       # ramp up again from silence
                     st[S_MS] = 0.0
@@ -141,7 +161,7 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
                     st[S_REARMS] += 1.0
             else:
                 st[S_SANE] = 0.0
-        if st[S_GUARD] != 0.0:
+        if st[S_GUARD] != GUARD_OFF:
             mixv[i] = 0.0
             out[i] = 0.0
             st[S_LEVEL] = 0.0
@@ -166,7 +186,7 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
         if st[S_MS] >= 0.5:
             st[S_FS_RUN] += 1.0
             if st[S_FS_RUN] > p[P_FS_LIMIT]:
-                st[S_GUARD] = 3.0
+                st[S_GUARD] = GUARD_FULL_SCALE
                 st[S_TRIPS] += 1.0
                 out[i] = 0.0
                 continue
@@ -190,7 +210,7 @@ def output_stage(ya, yb, n, st, p, mixv, out):  # pragma: no cover - compiled
             o = -ceiling
         # device guard: nothing non-finite or beyond the ceiling leaves here
         if not (abs(o) <= ceiling):
-            st[S_GUARD] = 5.0
+            st[S_GUARD] = GUARD_DEVICE
             st[S_TRIPS] += 1.0
             st[S_SANE] = 0.0
             st[S_LEVEL] = 0.0
@@ -224,4 +244,4 @@ def reset_guard(st: np.ndarray) -> None:
     st[S_FS_RUN] = 0.0
     st[S_LIM] = 1.0
     st[S_SANE] = 0.0
-    st[S_GUARD] = 0.0
+    st[S_GUARD] = GUARD_OFF

@@ -28,6 +28,8 @@ from collections import deque
 import numba
 import numpy as np
 
+from solderless.engine.live.limiter import GUARD_REASONS
+
 DBU_REF_VRMS = 0.775
 PEAK_HOLD_S = 1.0
 PEAK_FALL_DB_PER_S = 20.0
@@ -47,14 +49,6 @@ C_OUT_MS_A, C_OUT_MS_B = 16, 17
 C_OUT_PEAK_A, C_OUT_PEAK_B = 18, 19
 C_PROBES = 20                        # then probes of A, then probes of B
 
-GUARD_REASONS = {
-    0: "",
-    1: "the circuit output became NaN or infinite",
-    2: "the circuit output ran away beyond the runaway limit",
-    3: "the output sat at full scale for too long",
-    4: "the audio callback failed",
-    5: "a sample for the sound card was not finite or above the ceiling",
-}
 
 
 def _max_nan(a: float, b: float) -> float:

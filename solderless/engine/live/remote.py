@@ -488,6 +488,7 @@ class HostProcess:
         shared meter ring (no round trip; the set-up is refreshed every
         ``SETUP_EVERY_S`` in the background). One reader at a time."""
         from solderless.engine.live import meters as M
+        from solderless.engine.live.limiter import GUARD_CALLBACK
         self.wait_ready()
         now = time.perf_counter()
         f = self._setup_fut
@@ -504,7 +505,7 @@ class HostProcess:
         snap["blocks"] = 0 if last is None else int(last[M.C_BLOCK]) + 1
         snap["selected"] = self.selected
         g = "" if last is None else M.GUARD_REASONS.get(int(last[M.C_GUARD]), "")
-        if last is not None and int(last[M.C_GUARD]) == 4:
+        if last is not None and int(last[M.C_GUARD]) == GUARD_CALLBACK:
             g = "the audio callback failed"
         snap["guard"] = g
         snap["nonconverged"] = self._setup.get("nonconverged", 0)

@@ -242,6 +242,7 @@ def report(net: Network, sol: DCSolution, values: dict[str, float]) -> Operating
             elif a == GROUND and b != GROUND:
                 rails[b] = vnet(b)
     from solderless.engine.analysis import regions as R
+    from solderless.engine.devices.registry import DEVICES
     ratings = getattr(net.circuit, "ratings", None) or {}
     devices, warnings = {}, []
     for el, mod, lay, po in net.devices:
@@ -252,20 +253,13 @@ def report(net: Network, sol: DCSolution, values: dict[str, float]) -> Operating
         for q, (ci, cv) in lay.probes.items():
             d[q] = float(sum(c * i[k] for k, c in ci.items()) + sum(c * v[k] for k, c in cv.items()))
         Gb = sol.G[po:po + n, po:po + n]
-        if el.kind == "Q":
-            d["gm"] = float(Gb[1, 0])
-            d["beta"] = d["ic"] / d["ib"] if d["ib"] != 0 else float("nan")
-            out_net = el.nodes[0]
-        elif el.kind == "J":
-            d["gm"] = float(Gb[1, 0])
-            out_net = el.nodes[0]
-        elif el.kind in ("OPAMP", "OTA"):
-            out_net = el.nodes[2]
-        else:
-            out_net = None
-        # one classifier for op, the workbench and the demo (regions.py)
-        d["region"] = R.classify(el.kind, d, el.params or {}, mod.region(lay.par, v, i),
-                                 float(lay.par[1]) if el.kind in ("J", "M") else None)
+        # the device's own report hook (its description in the registry):
+        # derived quantities (gm, beta) and its region, by the one
+        # classifier op, the workbench and the demo read (regions.py)
+        dev = DEVICES[el.kind]
+        base = mod.region(lay.par, v, i)
+        d["region"] = dev.report(d, el, lay.par, v, i, Gb, base) if dev.report else base
+        out_net = el.nodes[dev.output] if dev.output is not None else None
         off = el.name in (getattr(net.circuit, "off_by_design", None) or ())
         if off and d["region"] in ("cut-off", "off"):
             d["region"] += " (by design)"
@@ -337,7 +331,7 @@ def balance(net: Network, sol: DCSolution, values: dict[str, float],
     """
     if net.np_ == 0:
         return None
-    from solderless.engine.solver.kernel import PORT_G0
+    from solderless.engine.solver.kernel_layout import PORT_G0
     from solderless.engine.solver.statespace import derive
     try:
         m = derive(net, values, T, [])

@@ -29,6 +29,7 @@ import numpy as np
 from solderless.engine.circuit import GROUND, KIND_NODES, Circuit, canonical_net
 from solderless.engine.devices import REGISTRY
 from solderless.engine.errors import DesignError
+from solderless.engine.solver.kernel_layout import WAVE_DC, WAVE_PULSE, WAVE_PWL, WAVE_SIN
 
 VALUE_KINDS = {"R", "C", "L", "V", "I", "E", "G", "F", "H"}
 
@@ -493,14 +494,14 @@ class Network:
             kind, par = source_wave(el)
             # the input source plays its DC value plus the input samples
             # (its waveform is not played), so it starts from its DC value
-            if kind == 0 or k == self.input_index:
+            if kind == WAVE_DC or k == self.input_index:
                 u[k] = values[el.name]
             else:
                 u[k] = wave_value(kind, par, t)
         return u
 
 
-WAVE_CODES = {"SIN": 1, "PULSE": 2, "PWL": 3}
+WAVE_CODES = {"SIN": WAVE_SIN, "PULSE": WAVE_PULSE, "PWL": WAVE_PWL}
 _WAVE_DEFAULTS = {"SIN": [0.0, 0.0, 0.0, 0.0, 0.0, 0.0],
                   "PULSE": [0.0, 0.0, 0.0, 0.0, 0.0, math.inf, math.inf]}
 
@@ -515,7 +516,7 @@ def source_wave(el, step: float | None = None) -> tuple[int, np.ndarray]:
     first rendered sample agree."""
     w = (el.params or {}).get("wave")
     if not w:
-        return 0, np.zeros(0)
+        return WAVE_DC, np.zeros(0)
     kind = str(w[0]).upper()
     vals = [float(v) for v in w[1]]
     if kind not in WAVE_CODES:

@@ -16,6 +16,7 @@ import numpy as np
 from solderless.engine.circuit import Circuit, GROUND, canonical_net
 from solderless.engine.errors import DesignError
 from solderless.engine.solver import kernel as K
+from solderless.engine.solver import kernel_layout as KL
 from solderless.engine.solver.dcop import OperatingPoint, report, solve_dc
 from solderless.engine.solver.mna import VALUE_KINDS, Network, device_arrays, source_wave
 from solderless.engine.solver.statespace import Model, ProbeRow, derive, padded
@@ -25,9 +26,6 @@ from solderless.engine.solver.statespace import Model, ProbeRow, derive, padded
 TEMPERATURE_KEY = "@temperature"
 
 _PROBE_RE = re.compile(r"^\s*([A-Za-z]+)\s*\((.*)\)\s*$")
-_UNITS = {"v": "V", "i": "A", "ic": "A", "ib": "A", "ie": "A", "id": "A", "ig": "A",
-          "vbe": "V", "vce": "V", "vgs": "V", "vds": "V", "vd": "V", "iabc": "A",
-          "gm": "S", "iout": "A", "vabc": "V", "iclip": "A"}
 
 
 def _net_col(net: Network, name: str, probe: str) -> int:
@@ -148,11 +146,13 @@ def make_probe(net: Network, text: str) -> ProbeRow:
                 vi, vv = z(npt), z(npt)
                 for k, c in ci.items():  # kernel currents are i - PORT_G0*v
                     vi[po + k] = c
-                    vv[po + k] += c * K.PORT_G0
+                    vv[po + k] += c * KL.PORT_G0
                 for k, c in cv.items():
                     vv[po + k] += c
                 return z(nw), z(nx), z(nu), vi, vv
-            return ProbeRow(text, _UNITS.get(q, ""), build)
+            # the unit each device declares for its probes (the registry)
+            from solderless.engine.devices.registry import DEVICES
+            return ProbeRow(text, DEVICES[el.kind].probes.get(q, ""), build)
     raise DesignError(f"probe {text!r}: no device named {a!r}", part=text,
                       hint="probe a transistor, diode, JFET, OTA or op-amp by its name")
 
@@ -172,11 +172,11 @@ def source_rate_warnings(net: Network, step: float) -> list[str]:
         where = el.where
         at = (f"{where.file}:{where.line}: " if where and where.file and where.line
               else "")
-        if kind == 1 and abs(par[2]) >= nyq:
+        if kind == KL.WAVE_SIN and abs(par[2]) >= nyq:
             out.append(f"{at}source {el.name}: SIN frequency {par[2]:g} Hz is at or above "
                        f"the simulation's Nyquist frequency {nyq:g} Hz and aliases; raise "
                        "the sample rate or the oversampling")
-        elif kind == 2 and 0 < par[6] < 2.0 * step:
+        elif kind == KL.WAVE_PULSE and 0 < par[6] < 2.0 * step:
             out.append(f"{at}source {el.name}: PULSE period {par[6]:g} s is shorter than two "
                        f"simulation steps ({2 * step:g} s) and aliases; raise the sample "
                        "rate or the oversampling")
@@ -215,7 +215,7 @@ class Simulator:
             raise DesignError(f"sample rate {fs!r} must be positive", part="simulator")
         if int(probe_decimate) < 1:
             raise DesignError("probe_decimate must be >= 1", part="simulator")
-        self.tolerance = K.ERR_TOL if tolerance is None else float(tolerance)
+        self.tolerance = KL.ERR_TOL if tolerance is None else float(tolerance)
         if not self.tolerance > 0:
             raise DesignError(f"tolerance {tolerance!r} must be positive volts",
                               part="simulator")
@@ -253,12 +253,12 @@ class Simulator:
         #: circuit temperature, degrees Celsius (None: 27)
         self.temperature = circuit.temperature
         # one or two nonlinear ports: the lean path (same state and counters)
-        self._run = K.run_block_small if 0 < net.np_ <= K.SMALL_PORTS else K.run_block
+        self._run = K.run_block_small if 0 < net.np_ <= KL.SMALL_PORTS else K.run_block
         skind, spars = [], []
         for k, el in enumerate(net.sources):
             kd, par = source_wave(el, self._T)
             if k == net.input_index:
-                kd, par = 0, np.zeros(0)
+                kd, par = KL.WAVE_DC, np.zeros(0)
             skind.append(kd)
             spars.append(par)
         self.warnings = source_rate_warnings(net, self._T)
@@ -284,14 +284,15 @@ class Simulator:
         self._i = np.zeros(npt)
         self._pprev = np.zeros(npt)
         self._u = np.zeros(nu)
-        self._ws = np.zeros((11, max(npt, padded(nx), 4)))
+        self._ws = np.zeros((KL.N_WS_ROWS, max(npt, padded(nx), KL.WS_MIN_COLS)))
         self._G = np.zeros((npt, npt))
         # [J | I], a pivot row, and the low-rank update's workspace
-        self._J = np.zeros((npt + 1 + K.J_EXTRA_ROWS, 2 * npt))
+        self._J = np.zeros((npt + 1 + KL.J_EXTRA_ROWS, 2 * npt))
         self._Gf = np.zeros((npt, npt))
         self._Ji = np.zeros((npt, npt))
         self._yrow = np.zeros(ny)
-        self._cnt = np.zeros(K.N_COUNTERS, dtype=np.int64)
+        self._state = np.zeros(KL.N_STATE, dtype=np.int64)
+        self._stats = np.zeros(KL.N_STATS, dtype=np.int64)
         self._nopb = np.zeros((0, 0))
         self._xin_up = np.zeros(self.block_max * self.oversample)
         self._y_up = np.zeros(self.block_max * self.oversample)
@@ -336,19 +337,19 @@ class Simulator:
         self._xp[:] = self._x
         n = net.np_
         self._v[:n] = dc.v
-        self._i[:n] = dc.i - K.PORT_G0 * dc.v
+        self._i[:n] = dc.i - KL.PORT_G0 * dc.v
         self._pprev[:n] = m.Dv @ self._x + m.Ev @ m.udc
-        self._ws[6, :net.np_] = dc.v
-        self._ws[7, :] = 0.0  # predictor's last linear step
-        self._ws[8, :] = 1e300  # bypass memory: force a first evaluation
-        self._ws[9, :] = 0.0
-        # chord rate memory, refactor flag, absolute and relative tolerance
-        # (RELTOL scaled with the absolute one)
-        self._ws[10, :] = 0.0
-        self._ws[10, 2] = self.tolerance
-        self._ws[10, 3] = K.RELTOL * self.tolerance / K.ERR_TOL
-        self._cnt[:] = 0
-        self._cnt[K.C_PHASE] = (self._pdec - self._probe_phase) % self._pdec
+        ws = self._ws
+        ws[KL.WS_V2, :net.np_] = dc.v
+        ws[KL.WS_LPREV, :] = 0.0
+        ws[KL.WS_VEVAL, :] = 1e300  # bypass memory: force a first evaluation
+        ws[KL.WS_IEVAL, :] = 0.0
+        ws[KL.WS_MEM, :] = 0.0
+        ws[KL.WS_MEM, KL.MEM_ATOL] = self.tolerance
+        ws[KL.WS_MEM, KL.MEM_RTOL] = KL.RELTOL * self.tolerance / KL.ERR_TOL
+        self._state[:] = 0
+        self._state[KL.STATE_PHASE] = (self._pdec - self._probe_phase) % self._pdec
+        self._stats[:] = 0
         self._model = m
         self._arr = self._arr_next
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i[:n]
@@ -462,12 +463,14 @@ class Simulator:
         return frames
 
     def _args(self, m: Model):
+        """The block runners' arguments after ``pdec``, in the order of
+        kernel_layout.RUN_BLOCK_ARGS."""
         dcode, dpo, dnp, dpa, par, dqs = self._arr
         return (m.Pz, m.p0, m.Az, m.x0, m.Ck, m.Kk, m.Yz, m.y0, m.Fyk, m.Vyk, m.kc,
                 dcode, dpo, dnp, dpa, par, dqs,
                 m.uvar, self._skind, self._sptr, self._spar, self.net.input_index,
                 self._T, self._z, self._xp, self._v, self._i, self._pprev, self._ws,
-                self._G, self._Gf, self._J, self._Ji, self._yrow, self._cnt)
+                self._G, self._Gf, self._J, self._Ji, self._yrow, self._state, self._stats)
 
     def process(self, x, probe_buf: np.ndarray | None = None) -> np.ndarray:
         """Offline convenience: process any length of input; allocates y."""
@@ -499,13 +502,13 @@ class Simulator:
         fallbacks, max_iterations, mean_iterations, factorizations (Jacobian
         inversions; chord iterations reuse the last one), jacobian_updates
         (low-rank updates of the inverse instead of a factorisation)."""
-        c = self._cnt
-        s = int(c[K.C_SAMPLES])
-        return {"samples": s, "nonconverged": int(c[K.C_NONCONV]),
-                "fallbacks": int(c[K.C_FALLBACK]), "max_iterations": int(c[K.C_MAXIT]),
-                "mean_iterations": float(c[K.C_ITERS]) / s if s else 0.0,
-                "factorizations": int(c[K.C_FACTOR]),
-                "jacobian_updates": int(c[K.C_UPDATE])}
+        c = self._stats
+        s = int(c[KL.STAT_SAMPLES])
+        return {"samples": s, "nonconverged": int(c[KL.STAT_NONCONV]),
+                "fallbacks": int(c[KL.STAT_FALLBACK]), "max_iterations": int(c[KL.STAT_MAXIT]),
+                "mean_iterations": float(c[KL.STAT_ITERS]) / s if s else 0.0,
+                "factorizations": int(c[KL.STAT_FACTOR]),
+                "jacobian_updates": int(c[KL.STAT_UPDATE])}
 
     @property
     def n_ports(self) -> int:

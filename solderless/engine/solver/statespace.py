@@ -20,6 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from solderless.engine.errors import SolveError
+from solderless.engine.solver.kernel_layout import WAVE_DC
 from solderless.engine.solver.mna import Network, source_wave
 
 
@@ -139,7 +140,7 @@ def solve_mna(net: Network, S: np.ndarray, rhs: np.ndarray, what: str) -> np.nda
 def derive(net: Network, values: dict[str, float], T: float,
            probes: list[ProbeRow]) -> Model:
     """Build the discrete model for element values and step T (seconds)."""
-    from solderless.engine.solver.kernel import PORT_G0
+    from solderless.engine.solver.kernel_layout import PORT_G0
     S = net.build_S(values, T, port_g0=PORT_G0)
     Bx, Bu, Bn = net._bx, net._bu, net._bn
     nx, nu = net.nx, net.nu
@@ -169,7 +170,7 @@ def derive(net: Network, values: dict[str, float], T: float,
     # Only the input and waveform sources change per sample; the input adds
     # its samples to its DC value, a waveform source replaces it.
     wave = [k for k, el in enumerate(net.sources)
-            if k != net.input_index and source_wave(el)[0] != 0]
+            if k != net.input_index and source_wave(el)[0] != WAVE_DC]
     uvar = ([net.input_index] if net.input_index >= 0 else []) + wave
     ud = udc.copy()
     ud[wave] = 0.0

@@ -1,0 +1,325 @@
+"""The block runners (the audio thread's entry points) and what they share
+per sample: the port solve with its predictor and fallback, and the output,
+probe and state update.  Their arguments: kernel_layout.RUN_BLOCK_ARGS."""
+from __future__ import annotations
+
+import math
+
+from solderless.engine.solver.kernel.dispatch import eval_ports_outlined, limit_moved
+from solderless.engine.solver.kernel.jacobian import update_jacobian
+from solderless.engine.solver.kernel.linalg import gemv_inl
+from solderless.engine.solver.kernel.newton import newton, newton2, newton_tol
+from solderless.engine.solver.kernel.params import MAXIT, kernel_jit
+from solderless.engine.solver.kernel.sources import load_sources
+from solderless.engine.solver.kernel_layout import (
+    MEM_REFACTOR, MEM_THETA, STAT_FACTOR, STAT_FALLBACK, STAT_ITERS, STAT_MAXIT, STAT_NONCONV,
+    STAT_SAMPLES, STAT_UPDATE, STATE_HARD, STATE_INDEX, STATE_JI_OK, STATE_PHASE, WS_IEVAL,
+    WS_LPREV, WS_MEM, WS_P, WS_PTMP, WS_STEP, WS_V2, WS_VEVAL, WS_VNEW, WS_VPREV, WS_XT)
+
+
+@kernel_jit(inline="always")
+def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
+                ptmp, state, stats, v2, veval, ieval, Ji, Gf, mem, kc, lprev):
+    """Newton with bounded fallback; never leaves non-finite values in v, i.
+
+    Predictor: the previous solution plus a chord step with the previous
+    Jacobian's factors, v + J^-1 (p - pprev) (exact for a linear network),
+    plus the nonlinear part of the previous sample's step (its step less
+    its own linear part lprev), which the signal's smoothness makes a good
+    guess of this one's.  Not after a sample that needed a fresh Jacobian
+    (state[STATE_HARD] > 0): its step was a junction switching (a rectifier
+    transistor saturating at a note's attack moves its collector volts in
+    one sample), and extrapolating that throws the next guess volts past the
+    answer.  v2 keeps the solution two samples back.
+
+    Fallback: continuation in p from the previous sample, in 4 then 16
+    sub-steps; if that fails too the previous solution is kept and counted.
+    """
+    n = p.size
+    if state[STATE_JI_OK] == 1:
+        smooth = state[STATE_HARD] == 0
+        for r in range(n):
+            F[r] = p[r] - pprev[r]
+            vn[r] = 0.0
+        gemv_inl(Ji, F, vn, n, n)
+        for r in range(n):
+            # linear step for the change in p (vn), plus the last sample's
+            # nonlinear part of its step (its step less its linear part);
+            # vprev, v2 and ptmp set in the same pass
+            vr = v[r]
+            lin = vn[r]
+            vprev[r] = vr
+            v[r] = vr + lin + ((vr - v2[r] - lprev[r]) if smooth else 0.0)
+            lprev[r] = lin
+            v2[r] = vr
+            ptmp[r] = p[r]
+        limit_moved(dcode, dpo, dnp, dpa, par, dqs, v, vprev)
+        if mem[MEM_REFACTOR] != 0.0:
+            # the last sample's chord iterations contracted slowly: refactor
+            # at this sample's predicted point (closer to its solution than
+            # the last one's; the chord loop's first evaluation is then a
+            # bypass)
+            eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
+            update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, state, stats)
+            mem[MEM_THETA] = 0.0
+    else:
+        for r in range(n):
+            vprev[r] = v[r]
+            v2[r] = v[r]
+            ptmp[r] = p[r]
+    mem[MEM_REFACTOR] = 0.0
+    f0 = stats[STAT_FACTOR] + stats[STAT_UPDATE]
+    # One call site of the (inlined) Newton solver serves the direct solve
+    # and the fallback: continuation in p from the previous sample, in 4
+    # then 16 sub-steps (ptmp: the p of the current (sub-)step).
+    nsub = 1
+    s = 1
+    while True:
+        it = newton(ptmp, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, MAXIT, state,
+                    stats, veval, ieval, Ji, Gf, mem, kc)
+        good = it >= 0 if nsub > 1 else it > 0
+        if good and nsub > 1:
+            stats[STAT_ITERS] += it
+            if s < nsub:
+                s += 1
+                f = s / nsub
+                for r in range(n):
+                    ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
+                continue
+        if good:
+            for r in range(n):
+                if not (math.isfinite(v[r]) and math.isfinite(i[r])):
+                    good = False
+        if good:
+            state[STATE_HARD] = stats[STAT_FACTOR] + stats[STAT_UPDATE] - f0
+            if nsub == 1:
+                if it > stats[STAT_MAXIT]:
+                    stats[STAT_MAXIT] = it
+                stats[STAT_ITERS] += it
+            return True
+        if nsub == 16:
+            break
+        if nsub == 1:
+            stats[STAT_FALLBACK] += 1
+        nsub = 4 if nsub == 1 else 16
+        s = 1
+        f = s / nsub
+        for r in range(n):
+            v[r] = vprev[r]
+            ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
+    stats[STAT_NONCONV] += 1
+    state[STATE_HARD] = stats[STAT_FACTOR] + stats[STAT_UPDATE] - f0
+    for r in range(n):
+        v[r] = vprev[r]
+    eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
+    return False
+
+
+@kernel_jit(inline="always")
+def finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
+                  z, xp, v, i, xt, yrow, state, stats):
+    """After the port solve of sample k: the output into yout[k] (never
+    non-finite), a probe frame into pbuf every pdec samples, and the state
+    update x' = x0 + Az z + C i (kept only if finite).  Returns the frame
+    count."""
+    nz = z.size
+    nx = xp.size
+    npt = v.size
+    ny = yrow.size
+    nprobe = pbuf.shape[0]
+    take = nprobe > 0 and state[STATE_PHASE] == 0 and frames < pcap
+    for r in range(ny if take else 1):
+        s = y0[r]
+        for c in range(nz):
+            s += Yz[r, c] * z[c]
+        for c in range(npt):
+            s += Fy[r, c] * i[c] + Vy[r, c] * v[c]
+        yrow[r] = s
+    y0v = yrow[0]
+    if not math.isfinite(y0v):
+        y0v = 0.0
+        stats[STAT_NONCONV] += 1
+    yout[k] = y0v
+    if nprobe > 0:
+        if take:
+            for r in range(nprobe):
+                pbuf[r, frames] = yrow[r + 1]
+            frames += 1
+        state[STATE_PHASE] += 1
+        if state[STATE_PHASE] >= pdec:
+            state[STATE_PHASE] = 0
+    nxp = x0.size
+    for r in range(nxp):
+        xt[r] = x0[r]
+    gemv_inl(Az, z, xt, nxp, nz)
+    gemv_inl(C, i, xt, nxp, npt)
+    finite = True
+    for r in range(nx):
+        if not math.isfinite(xt[r]):
+            finite = False
+    if finite:
+        for r in range(nx):
+            xp[r] = z[r]
+            z[r] = xt[r]
+    state[STATE_INDEX] += 1
+    stats[STAT_SAMPLES] += 1
+    return frames
+
+
+@kernel_jit()
+def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
+              Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy, kc,
+              dcode, dpo, dnp, dpa, par, dqs,
+              uvar, skind, sptr, spar, inp, dt,
+              z, xp, v, i, pprev, ws, G, Gf, J, Ji, yrow, state, stats):
+    """Run ``nin`` samples of input ``xin`` through the model.
+
+    z = [x; varying source values; zeros]: the first nx (= xp.size) entries
+    are the states, then the sources listed in ``uvar`` (the input ``inp``,
+    which takes the samples xin, and waveform sources), then zero padding to
+    a multiple of statespace.PAD; the ports are padded likewise (a padded
+    port has zero rows and columns, so it stays at 0 V and 0 A).  Constant
+    sources are folded into the offsets p0, x0, y0
+    (:func:`solderless.engine.solver.statespace.derive`), so per sample
+        p = p0 + Pz z,  y = y0 + Yz z + Fy i + Vy v,  x' = x0 + Az z + C i.
+    yout[k] receives output row 0; every ``pdec`` samples a probe frame (rows
+    1.. of y, computed only then) is written into pbuf (if it has rows) at
+    columns pstart, pstart+1 ... below ``pcap``.  kc[c] = max |K[:, c]|
+    (the model's column scales of K, for :func:`jacobian_drift`).  ws, state
+    and stats: see :mod:`solderless.engine.solver.kernel_layout`.  Returns
+    the number of probe frames written.
+    """
+    nz = z.size      # states, varying sources, zero padding
+    nx = xp.size
+    npt = v.size     # ports, zero padding
+    p = ws[WS_P, :npt]
+    vprev = ws[WS_VPREV, :npt]
+    F = ws[WS_STEP, :npt]
+    vn = ws[WS_VNEW, :npt]
+    ptmp = ws[WS_PTMP, :npt]
+    nxp = x0.size    # states, zero padding (rows of the state update)
+    xt = ws[WS_XT, :nxp]
+    v2 = ws[WS_V2, :npt]
+    veval = ws[WS_VEVAL, :npt]
+    ieval = ws[WS_IEVAL, :npt]
+    frames = pstart
+    for k in range(nin):
+        load_sources(z, nx, uvar, inp, xin[k], skind, sptr, spar, state[STATE_INDEX] * dt)
+        if npt > 0:
+            for r in range(npt):
+                p[r] = p0[r]
+            gemv_inl(Pz, z, p, npt, nz)
+            solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
+                        ptmp, state, stats, v2, veval, ieval, Ji, Gf, ws[WS_MEM], kc,
+                        ws[WS_LPREV, :npt])
+            for r in range(npt):
+                pprev[r] = p[r]
+        frames = finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
+                               z, xp, v, i, xt, yrow, state, stats)
+    return frames - pstart
+
+
+@kernel_jit()
+def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
+                    Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy, kc,
+                    dcode, dpo, dnp, dpa, par, dqs,
+                    uvar, skind, sptr, spar, inp, dt,
+                    z, xp, v, i, pprev, ws, G, Gf, J, Ji, yrow, state, stats):
+    """:func:`run_block` for circuits with one or two nonlinear ports
+    (kernel_layout.SMALL_PORTS; same arguments, workspace layout, state and
+    statistics; Simulator picks one of the two at construction).
+
+    At this size the generic path's bookkeeping (padded loops, chord
+    rates, drift checks, real calls) costs more than the arithmetic, so
+    each sample here runs the same predictor as :func:`solve_ports` and
+    then plain Newton-Raphson with a closed-form 2 x 2 inverse
+    (:func:`newton2`), with the same bounded fallback: continuation in p
+    in 4, then 16 sub-steps, else the previous solution is kept and
+    counted.  Output and state update are those of run_block."""
+    nz = z.size
+    nx = xp.size
+    p = ws[WS_P, :2]
+    vprev = ws[WS_VPREV, :2]
+    vn = ws[WS_VNEW, :2]
+    ptmp = ws[WS_PTMP, :2]
+    xt = ws[WS_XT, :x0.size]
+    v2 = ws[WS_V2, :2]
+    lprev = ws[WS_LPREV, :2]
+    veval = ws[WS_VEVAL, :]
+    ieval = ws[WS_IEVAL, :]
+    mem = ws[WS_MEM]
+    stol = newton_tol(mem)   # the tolerance is fixed for the block: one sqrt
+    frames = pstart
+    for k in range(nin):
+        load_sources(z, nx, uvar, inp, xin[k], skind, sptr, spar, state[STATE_INDEX] * dt)
+        for r in range(2):
+            acc = p0[r]
+            for c in range(nz):
+                acc += Pz[r, c] * z[c]
+            p[r] = acc
+            vprev[r] = v[r]
+        if state[STATE_JI_OK] == 1:
+            e0 = p[0] - pprev[0]
+            e1 = p[1] - pprev[1]
+            for r in range(2):
+                lin = Ji[r, 0] * e0 + Ji[r, 1] * e1
+                vn[r] = v[r] + lin + (v[r] - v2[r] - lprev[r])
+                lprev[r] = lin
+            limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
+            v[0] = vn[0]
+            v[1] = vn[1]
+        v2[0] = vprev[0]
+        v2[1] = vprev[1]
+        ptmp[0] = p[0]
+        ptmp[1] = p[1]
+        nsub = 1
+        s = 1
+        while True:
+            it = newton2(ptmp, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, Ji, vn, veval,
+                         ieval, mem, stol, stats)
+            good = it > 0
+            if good and nsub > 1 and s < nsub:
+                stats[STAT_ITERS] += it
+                s += 1
+                f = s / nsub
+                for r in range(2):
+                    ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
+                continue
+            if good:
+                good = (math.isfinite(v[0]) and math.isfinite(v[1])
+                        and math.isfinite(i[0]) and math.isfinite(i[1]))
+            if good:
+                state[STATE_JI_OK] = 1
+                if nsub == 1 and it > stats[STAT_MAXIT]:
+                    stats[STAT_MAXIT] = it
+                stats[STAT_ITERS] += it
+                break
+            if nsub == 16:
+                stats[STAT_NONCONV] += 1
+                v[0] = vprev[0]
+                v[1] = vprev[1]
+                eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
+                break
+            if nsub == 1:
+                stats[STAT_FALLBACK] += 1
+            nsub = 4 if nsub == 1 else 16
+            s = 1
+            for r in range(2):
+                v[r] = vprev[r]
+                ptmp[r] = pprev[r] + (p[r] - pprev[r]) / nsub
+        pprev[0] = p[0]
+        pprev[1] = p[1]
+        frames = finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
+                               z, xp, v, i, xt, yrow, state, stats)
+    return frames - pstart
+
+
+@kernel_jit()
+def convert_states(x, xp, g_old, g_new, a, b):
+    """Carry reactive states over a value change (capacitor voltage and
+    current, inductor current and voltage stay as they were)."""
+    for k in range(x.size):
+        go = g_old[k]
+        r = (x[k] + b[k] * xp[k]) / (a[k] * go) if go != 0.0 else 0.0
+        x[k] = x[k] + (g_new[k] - go) * r
+        xp[k] = (a[k] * g_new[k] * r - x[k]) / b[k] if b[k] != 0.0 else x[k]

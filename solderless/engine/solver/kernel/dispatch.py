@@ -1,0 +1,192 @@
+"""Device dispatch: every device evaluated and limited by its type code.
+
+Devices live in one flat parameter array and are told apart by the integer
+``CODE`` of their module (solderless/engine/devices/*.py), so one compiled
+kernel serves every circuit.  numba needs each device's call site spelled
+out: a new device adds one branch to :func:`eval_one` (and to
+:func:`limit_one` if it limits its steps), comparing against its module's
+``CODE`` (numba folds the module attribute into a constant).
+"""
+from __future__ import annotations
+
+from solderless.engine.devices import behav, bjt, diode, jfet, mosfet, opamp, ota, switch
+from solderless.engine.solver.kernel.params import BYPASS_RATIO, kernel_jit
+from solderless.engine.solver.kernel_layout import MEM_ATOL, PORT_G0
+
+
+def _inline_in_small(expr, caller_ir, callee_ir):
+    """numba inline cost model: inline at the IR level only into the lean
+    two-port kernel (one or two devices: the call's argument passing costs
+    more than a device's arithmetic there); a real call everywhere else."""
+    return caller_ir.func_id.func_name == "run_block_small"
+
+
+@kernel_jit(inline=_inline_in_small)
+def eval_one(c, par, pa, v, po, i, G):
+    """Evaluate one device by type code: port currents into i[po:], its
+    Jacobian block into G[po:, po:]."""
+    if c == bjt.CODE:
+        bjt.evaluate(par, pa, v, po, i, G)
+    elif c == diode.CODE:
+        diode.evaluate(par, pa, v, po, i, G)
+    elif c == jfet.CODE:
+        jfet.evaluate(par, pa, v, po, i, G)
+    elif c == ota.CODE:
+        ota.evaluate(par, pa, v, po, i, G)
+    elif c == opamp.CODE:
+        opamp.evaluate(par, pa, v, po, i, G)
+    elif c == mosfet.CODE:
+        mosfet.evaluate(par, pa, v, po, i, G)
+    elif c == behav.CODE:
+        behav.evaluate(par, pa, v, po, i, G)
+    elif c == switch.CODE:
+        switch.evaluate(par, pa, v, po, i, G)
+
+
+@kernel_jit()
+def limit_one(c, par, pa, vn, vo, po):
+    """Junction limiting of one device's step vo -> vn by type code (in
+    place on vn; devices without a limit take the step as it is)."""
+    if c == bjt.CODE:
+        bjt.limit(par, pa, vn, vo, po)
+    elif c == diode.CODE:
+        diode.limit(par, pa, vn, vo, po)
+    elif c == jfet.CODE:
+        jfet.limit(par, pa, vn, vo, po)
+    elif c == ota.CODE:
+        ota.limit(par, pa, vn, vo, po)
+    elif c == opamp.CODE:
+        opamp.limit(par, pa, vn, vo, po)
+    elif c == mosfet.CODE:
+        mosfet.limit(par, pa, vn, vo, po)
+
+
+@kernel_jit()
+def eval_devices(dcode, dpo, dpa, par, v, i, G):
+    """Port currents i(v) and Jacobian blocks G of all devices (no bypass,
+    no port offset: the operating point's solver)."""
+    for d in range(dcode.size):
+        eval_one(dcode[d], par, dpa[d], v, dpo[d], i, G)
+
+
+@kernel_jit(inline="always")
+def limit_devices(dcode, dpo, dpa, par, vn, vo):
+    """Junction limiting of a Newton step vo -> vn, in place on vn."""
+    for d in range(dcode.size):
+        limit_one(dcode[d], par, dpa[d], vn, vo, dpo[d])
+
+
+@kernel_jit(inline="always")
+def limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, vo):
+    """:func:`limit_devices` for the per-sample path: a device's limit is
+    called only when one of its port voltages moved by its quiet step dqs
+    or more (smaller steps it would return unchanged), which spares most
+    calls once the solution tracks the signal."""
+    for d in range(dcode.size):
+        po = dpo[d]
+        q = dqs[d]
+        m = dnp[d]
+        if m == 2:
+            if not (abs(vn[po] - vo[po]) < q and abs(vn[po + 1] - vo[po + 1]) < q):
+                limit_one(dcode[d], par, dpa[d], vn, vo, po)
+        elif m == 1:
+            if not abs(vn[po] - vo[po]) < q:
+                limit_one(dcode[d], par, dpa[d], vn, vo, po)
+        else:
+            for a in range(m):
+                if not abs(vn[po + a] - vo[po + a]) < q:
+                    limit_one(dcode[d], par, dpa[d], vn, vo, po)
+                    break
+
+
+@kernel_jit(inline="always")
+def eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem):
+    """Device port currents less the port offset conductance PORT_G0 that the
+    linear network carries (see kernel_layout.PORT_G0): i - PORT_G0*v,
+    G - PORT_G0.
+
+    Bypass (as SPICE's BYPASS option): a device whose port voltages moved
+    less than BYPASS_RATIO times the error tolerance mem[MEM_ATOL] since its
+    last evaluation (veval, ieval) is not re-evaluated; its currents are
+    continued linearly with its last Jacobian block (error below the
+    tolerance: see BYPASS_RATIO).
+    One- and two-port devices (diode; BJT, JFET, op-amp) take straight-line
+    paths: loops with a trip count of 1 or 2 cost more in overhead than in
+    arithmetic.
+    """
+    btol = BYPASS_RATIO * mem[MEM_ATOL]
+    for d in range(dcode.size):
+        po = dpo[d]
+        m = dnp[d]
+        if m == 2:
+            d0 = v[po] - veval[po]
+            d1 = v[po + 1] - veval[po + 1]
+            far = not (abs(d0) < btol and abs(d1) < btol)
+        elif m == 1:
+            d0 = v[po] - veval[po]
+            far = not abs(d0) < btol
+        else:
+            far = False
+            for a in range(m):
+                if not abs(v[po + a] - veval[po + a]) < btol:
+                    far = True
+        if far:
+            eval_one(dcode[d], par, dpa[d], v, po, i, G)
+            if m == 2:
+                v0 = v[po]
+                v1 = v[po + 1]
+                i0 = i[po] - PORT_G0 * v0
+                i1 = i[po + 1] - PORT_G0 * v1
+                i[po] = i0
+                i[po + 1] = i1
+                G[po, po] -= PORT_G0
+                G[po + 1, po + 1] -= PORT_G0
+                veval[po] = v0
+                veval[po + 1] = v1
+                ieval[po] = i0
+                ieval[po + 1] = i1
+            else:
+                for a in range(m):
+                    r = po + a
+                    i[r] -= PORT_G0 * v[r]
+                    G[r, r] -= PORT_G0
+                    veval[r] = v[r]
+                    ieval[r] = i[r]
+        elif m == 2:
+            i[po] = ieval[po] + G[po, po] * d0 + G[po, po + 1] * d1
+            i[po + 1] = ieval[po + 1] + G[po + 1, po] * d0 + G[po + 1, po + 1] * d1
+        elif m == 1:
+            i[po] = ieval[po] + G[po, po] * d0
+        else:
+            for a in range(m):
+                s = ieval[po + a]
+                for b in range(m):
+                    s += G[po + a, po + b] * (v[po + b] - veval[po + b])
+                i[po + a] = s
+
+
+@kernel_jit()
+def eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem):
+    """:func:`eval_ports` as a real call (rare paths)."""
+    eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
+
+
+@kernel_jit(inline="always")
+def correct_currents(dcode, dpo, dnp, G, dv, i):
+    """First-order correction of the port currents for the last step dv."""
+    for d in range(dcode.size):
+        po = dpo[d]
+        m = dnp[d]
+        if m == 2:
+            d0 = dv[po]
+            d1 = dv[po + 1]
+            i[po] += G[po, po] * d0 + G[po, po + 1] * d1
+            i[po + 1] += G[po + 1, po] * d0 + G[po + 1, po + 1] * d1
+        elif m == 1:
+            i[po] += G[po, po] * dv[po]
+        else:
+            for a in range(m):
+                s = 0.0
+                for b in range(m):
+                    s += G[po + a, po + b] * dv[po + b]
+                i[po + a] += s
