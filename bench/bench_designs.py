@@ -138,6 +138,11 @@ def charge_cost(names: list[str], x: np.ndarray, repeat: int) -> list[dict]:
         for on, off in pairs:
             on.time_once(x)
             off.time_once(x)
+    def products(run):
+        # multiply-adds of the kernel's per-sample matrix products (padded)
+        m = run.sim._model
+        return int(m.Pz.size + m.Az.size + m.Ck.size + m.Yz.size)
+
     rows = []
     for on, off in pairs:
         a = x.size / FS
@@ -147,6 +152,7 @@ def charge_cost(names: list[str], x: np.ndarray, repeat: int) -> list[dict]:
                      "rt_on": a / min(on.walls), "rt_off": a / min(off.walls),
                      "rt_on_cpu": a / min(on.cpus), "rt_off_cpu": a / min(off.cpus),
                      "cost_cpu": min(on.cpus) / min(off.cpus) - 1.0,
+                     "matrix_products_on": products(on), "matrix_products_off": products(off),
                      "meets_target_on": a / min(on.walls) >= TARGET_RT,
                      "iterations_per_sample_on": on.work["iterations_per_sample"],
                      "iterations_per_sample_off": off.work["iterations_per_sample"]})
@@ -160,20 +166,23 @@ def main_charge(names: list[str], repeat: int) -> int:
     rows = charge_cost(names, x, repeat)
     load = os.getloadavg() if hasattr(os, "getloadavg") else None
     hdr = (f"{'design':<26}{'os':>3}{'+st':>4}{'x RT on':>9}{'x RT off':>9}"
-           f"{'CPU on':>8}{'CPU off':>8}{'cost':>7}{'it on':>7}{'it off':>7}")
+           f"{'CPU on':>8}{'CPU off':>8}{'cost':>7}{'it on':>7}{'it off':>7}{'madd on/off':>13}")
     print(hdr)
     print("-" * len(hdr))
     for r in rows:
         print(f"{r['design']:<26}{r['oversample']:>3}{r['junction_states']:>4}"
               f"{r['rt_on']:>9.1f}{r['rt_off']:>9.1f}{r['rt_on_cpu']:>8.1f}"
               f"{r['rt_off_cpu']:>8.1f}{100 * r['cost_cpu']:>6.0f}%"
-              f"{r['iterations_per_sample_on']:>7.2f}{r['iterations_per_sample_off']:>7.2f}")
+              f"{r['iterations_per_sample_on']:>7.2f}{r['iterations_per_sample_off']:>7.2f}"
+              f"{r['matrix_products_on']:>7d}/{r['matrix_products_off']:<5d}")
     result = {"fs": FS, "phrase_s": x.size / FS, "block": BLOCK, "target_realtime": TARGET_RT,
               "repeat": repeat, "machine": platform.machine(),
               "python": platform.python_version(), "cpus": os.cpu_count(),
               "loadavg_at_start": load0, "loadavg_at_end": load,
               "note": "on and off runs interleaved; x RT from the best wall time, CPU "
-                      "from the best process time; cost = extra CPU time with charge on",
+                      "from the best process time; cost = extra CPU time with charge on; "
+                      "matrix_products = multiply-adds of the kernel's per-sample matrix "
+                      "products (deterministic, padded sizes)",
               "designs": rows}
     out = ROOT / "bench" / "results"
     out.mkdir(parents=True, exist_ok=True)
