@@ -2,7 +2,7 @@
 
 Sources: JCGM 100:2008 (GUM) law of propagation of uncertainty; IEC 60063
 preferred values and the customary series tolerances; ngspice (tests/spice_ref.py);
-margins marked common practice (docs/references.md, "Build sheet").
+margins marked common practice (docs/references.md, "Building from a simulation").
 """
 from __future__ import annotations
 

@@ -1,8 +1,10 @@
 """Bypass means what a designer expects for each kind of stage (issue 16):
 a series stage passes in to out; a side branch such as the compressor's
-detector hears no signal, so the gain cell sits at its resting gain (it
-used to remove the detector's parts, the control current with them, and
-silence the whole effect); a stage that carries no signal is refused."""
+detector hears no signal, so the gain cell sits at its resting gain (its
+parts and the control current stay, so the effect is not silenced); a
+stage that carries no signal is refused. Expectations from the design's own
+resting gain (common practice: a bypassed detector leaves the gain cell at
+rest)."""
 import numpy as np
 import pytest
 
@@ -38,7 +40,7 @@ def test_bypassed_detector_leaves_the_gain_cell_at_its_resting_gain():
     # not silent: the small-signal gain is the resting one, and a loud note
     # is no longer turned down by the detector.  Within 0.5 dB, not exactly:
     # the stage it listened to no longer drives the detector's input, so it
-    # sees a lighter load (0.01 dB on this design, 1.6 dB on the earlier one)
+    # sees a lighter load (0.01 dB on this design)
     assert 0.0 <= gb_small - g_small < 0.5
     assert gb_loud > g_loud + 10.0
     assert "resting gain" in d.bypass_effect("detector")

@@ -225,7 +225,7 @@ def test_toy_device_runs_in_a_design_and_its_op_report(toy_registered, tmp_path)
     flat = d.flatten()
     op = Simulator(flat, fs=FS).operating_point()
     _check_op(op, "s.T1", rated=True, rload=flat.element("load").value)
-    from solderless.gui.preview import _unit_of
+    from solderless.engine.analysis.preview import _unit_of
     assert (_unit_of("ij"), _unit_of("gj")) == ("A", "S")
     # a netlist opened as a design names the part by the toy's part type
     n = tmp_path / "toy.cir"

@@ -21,7 +21,7 @@ pytest.importorskip("solderless.engine.solver.simulator")
 from solderless.engine.design import load_design
 from solderless.gui.app import make_window, screenshot
 from solderless.gui.model import Autosave, Difference, differences
-from solderless.gui.snapshots import BlindTrial
+from solderless.engine.analysis.trial import BlindTrial
 
 HERE = Path(__file__).resolve().parent
 DIVIDER = HERE / "gui_divider.toml"
@@ -205,7 +205,7 @@ def test_blind_trial_probability():
 
 
 def test_blind_trial_needs_listening_and_logs_every_round():
-    from solderless.gui.snapshots import TrialError
+    from solderless.engine.analysis.trial import TrialError
     clock = _Clock()
     t = BlindTrial(4, seed=3, min_listen_s=2.0, clock=clock)
     # no answer before X has been heard for the minimum time, in one or more goes
@@ -460,6 +460,17 @@ def test_caution_is_shown_once(qtbot, tmp_path, design_file):
         seen.append(any("Listening levels" in t for t in w.notices.texts()))
         w.close()
     assert seen == [True, False]
+    # one flag for every front end: shown by the workbench, not again by play
+    from solderless.engine.settings import caution_once
+    assert caution_once(seen.append, cfg) is False
+    # and the other way round
+    cfg2 = tmp_path / "cfg2"
+    assert caution_once(seen.append, cfg2) is True
+    w = make_window(load_design(design_file), config=cfg2, recover="no")
+    qtbot.addWidget(w)
+    w.ask = lambda _q: "discard"
+    assert not any("Listening levels" in t for t in w.notices.texts())
+    w.close()
 
 
 def test_pot_switch_and_custom_law_controls(win, qtbot):

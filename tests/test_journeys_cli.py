@@ -175,7 +175,7 @@ def test_player_swaps_models_ab_matches_and_saves_both(null_env, tmp_path):
     # the diode swap is heard: germanium diodes clip at a lower level, so the
     # clipper's output over the same phrase is lower (offline, same input)
     from solderless.engine.synth import render_phrase
-    from solderless.app.demo import simulate
+    from solderless.engine.analysis.measure import simulate
     x = render_phrase("demo", fs=48000.0)[:48000]
     y0, pr0, _ = simulate(load_design("overdrive"), x, probes=("v(clip.out, vref)",))
     y1, pr1, _ = simulate(a, x, probes=("v(clip.out, vref)",))

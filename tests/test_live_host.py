@@ -266,10 +266,12 @@ def test_console_commands(tmp_path):
 
 
 def test_caution_is_shown_once(tmp_path, monkeypatch):
+    from solderless.engine import settings
+    monkeypatch.delenv("SOLDERLESS_CONFIG_DIR", raising=False)
     monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path))
     said = []
-    assert H.caution_once(said.append) is True
-    assert H.caution_once(said.append) is False
+    assert settings.caution_once(said.append) is True
+    assert settings.caution_once(said.append) is False
     assert len(said) == 1 and "hearing" in said[0]
     assert json.loads((tmp_path / "solderless" / "live.json").read_text())["caution_shown"]
 

@@ -12,7 +12,8 @@ from pathlib import Path
 
 import pytest
 
-from solderless.engine.autosave import Autosaves, config_dir
+from solderless.engine.autosave import Autosaves
+from solderless.engine.settings import config_dir
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
@@ -24,14 +25,19 @@ def _snapshot(folder: Path) -> dict:
 
 # ------------------------------------------------------------ the scheme itself
 def test_one_config_folder_for_every_front_end(monkeypatch, tmp_path):
+    from solderless.engine import autosave
     from solderless.engine.live import host
-    from solderless.gui import model
     monkeypatch.delenv("SOLDERLESS_CONFIG_DIR", raising=False)
     monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path / "x"))
     assert config_dir() == tmp_path / "x" / "solderless"
-    assert host.config_dir is config_dir and model.config_dir is config_dir
+    assert host.config_dir is config_dir and autosave.config_dir is config_dir
     monkeypatch.setenv("SOLDERLESS_CONFIG_DIR", str(tmp_path / "mine"))
-    assert host.config_dir() == model.config_dir() == tmp_path / "mine"
+    assert host.config_dir() == autosave.config_dir() == tmp_path / "mine"
+    assert Autosaves().folder == tmp_path / "mine" / "autosave"
+    # no second config-folder function anywhere in the package
+    defs = [p for p in (ROOT / "solderless").rglob("*.py")
+            if "def config_dir(" in p.read_text(encoding="utf-8")]
+    assert defs == [ROOT / "solderless" / "engine" / "settings.py"]
 
 
 def test_front_ends_and_sessions_are_told_apart(tmp_path, design_file):

@@ -7,22 +7,18 @@ from __future__ import annotations
 
 import argparse
 import csv
-import html
 import io
-import json
 import math
 import sys
 from pathlib import Path
 
-from solderless.engine.errors import DesignError, SolderlessError
+from solderless.engine.analysis.montecarlo_report import csv_cell, write_montecarlo, write_text
+from solderless.engine.errors import DesignError
 
 
 def _design_arg(p):
-    p.add_argument("design", help="design file (.toml), built-in design name, or SPICE netlist")
-    p.add_argument("--in-source", default="VIN", metavar="NAME",
-                   help="netlists only: the voltage source the input drives (default VIN)")
-    p.add_argument("--out-node", default="out", metavar="NAME",
-                   help="netlists only: the output node (default out)")
+    from solderless.app.cli import _add_design_arg
+    _add_design_arg(p)
 
 
 def _load(args):
@@ -31,21 +27,8 @@ def _load(args):
 
 
 def _outdir(path: str) -> Path:
-    out = Path(path)
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise SolderlessError(f"cannot create the output folder: {exc.strerror or exc}",
-                              file=str(out), hint="choose another --out folder") from None
-    return out
-
-
-def _write(path: Path, text: str) -> None:
-    from solderless.engine.design import atomic_write_text
-    try:
-        atomic_write_text(path, text)
-    except OSError as exc:
-        raise SolderlessError(f"cannot write: {exc.strerror or exc}", file=str(path)) from None
+    from solderless.engine.fileio import output_folder
+    return output_folder(path)
 
 
 # ------------------------------------------------------------------ build
@@ -116,21 +99,6 @@ def _run(spec, indices, args, label, job=None):
     finally:
         pr.close()
     return rr
-
-
-def _csv(rows: list[dict], cols: list[str]) -> str:
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(cols)
-    for r in rows:
-        w.writerow([_cell(r.get(c, "")) for c in cols])
-    return buf.getvalue()
-
-
-def _cell(v):
-    if isinstance(v, float):
-        return f"{v:.9g}"
-    return v
 
 
 # ------------------------------------------------------------------ montecarlo
@@ -204,7 +172,7 @@ def run_montecarlo(args) -> int:
         from solderless.engine.formats.spice import circuit_to_netlist
         for r in rr.results[:args.netlists]:
             circ = nominal.circuit_for(r["draws"])
-            _write(out / f"trial-{r['index']}.cir",
+            write_text(out / f"trial-{r['index']}.cir",
                    circuit_to_netlist(circ, title=f"{d.name}, trial {r['index']}"))
     s = rep["summary"]
     print(f"Monte Carlo of {d.name}: {len(rr.results)} of {args.trials} trials "
@@ -229,63 +197,6 @@ def run_montecarlo(args) -> int:
               f"results are written", file=sys.stderr)
         return 130
     return 0
-
-
-def write_montecarlo(out: Path, d, spec, runner, rr, limits) -> dict:
-    from solderless.engine.analysis.montecarlo import METRICS, plots, summary
-    nominal = runner.nominal_result
-    s = summary(rr.results, nominal, limits, runner.draws)
-    s.update(interrupted=rr.interrupted, requested=rr.requested, where=rr.where,
-             seed=spec.seed, dist=spec.dist, design=d.name)
-    labels = [dr.label for dr in runner.draws]
-    rows = []
-    from solderless.engine.analysis.montecarlo import passes
-    for r in rr.results:
-        row = {"trial": r["index"], "passed": int(passes(r, nominal, limits)),
-               "error": r.get("error", ""), "in_region": int(bool(r.get("in_region")))}
-        for m in METRICS:
-            row[m] = r.get(m, float("nan"))
-        for lab in labels:
-            row[lab] = r["draws"].get(lab, "")
-        rows.append(row)
-    cols = ["trial", "passed", "error", "in_region", *METRICS, *labels]
-    _write(out / "trials.csv", _csv(rows, cols))
-    _write(out / "summary.json", json.dumps(s, indent=2, default=float, allow_nan=True))
-    files = plots(rr.results, nominal, out)
-    _write(out / "report.html", montecarlo_html(d.name, s, files, limits))
-    return {"summary": s, "files": files}
-
-
-def montecarlo_html(name: str, s: dict, files: dict, limits) -> str:
-    e = html.escape
-    p = [f"<h1>Tolerance Monte Carlo: {e(name)}</h1>"]
-    if s.get("interrupted"):
-        p.append(f"<p><b>Interrupted: {s['trials']} of {s['requested']} trials.</b></p>")
-    p.append(f"<p>{s['trials']} trials, seed {s['seed']}, parts drawn {e(s['dist'])} within "
-             f"their tolerance" + (" (normal: sigma = tolerance/3)" if s["dist"] == "normal"
-                                   else "") + ", transistor and diode parameters over the "
-             "parts library's spreads; run " + e(s["where"]) + ".</p>")
-    p.append(f"<h2>Yield: {100 * s['yield']:.1f} %</h2><p>Passed {s['passed']} of "
-             f"{s['trials']}: gain at 1 kHz within {limits.gain_db:g} dB of nominal and every "
-             "device in its nominal region" + "".join(
-                 f", {e(m)} in [{lo:g}, {hi:g}]" for m, (lo, hi) in limits.extra.items())
-             + f". {s['failed_to_solve']} trial(s) found no operating point.</p>")
-    rows = "".join(f"<tr><td>{e(m)}</td>" + "".join(
-        f"<td>{st[k]:.4g}</td>" for k in ("nominal", "mean", "std", "p05", "p95")) + "</tr>"
-        for m, st in s["stats"].items())
-    p.append("<table border=1 cellpadding=3><tr><th>metric</th><th>nominal</th><th>mean</th>"
-             f"<th>sd</th><th>5 %</th><th>95 %</th></tr>{rows}</table>")
-    if "distributions" in files:
-        p.append(f"<img src='{files['distributions']}' alt='distributions'>")
-    p.append("<h2>Sensitivity</h2><p>Share of each metric's explained variance by part "
-             "(standardised linear regression on the draws).</p>")
-    for m, lst in s["sensitivity"].items():
-        if lst:
-            p.append(f"<p><b>{e(m)}</b>: " + ", ".join(
-                f"{e(x['part'])} {100 * x['share']:.0f} %" for x in lst) + "</p>")
-    p.append("<p>A simulation is not the hardware: measure the built circuit.</p>")
-    return ("<!DOCTYPE html><html><head><meta charset='utf-8'><title>Monte Carlo</title>"
-            "</head><body style='font-family:sans-serif'>" + "\n".join(p) + "</body></html>\n")
 
 
 # ------------------------------------------------------------------ sweep
@@ -332,8 +243,8 @@ def run_sweep(args) -> int:
     w.writerow(["value_si"] + (["rotation"] if grid.pot else []) + cols)
     for r in rr.results:
         w.writerow([f"{r['value']:.6g}"] + ([f"{r['rotation']:.6g}"] if grid.pot else [])
-                   + [_cell(r.get(m, float("nan"))) for m in cols])
-    _write(out / "sweep.csv", buf.getvalue())
+                   + [csv_cell(r.get(m, float("nan"))) for m in cols])
+    write_text(out / "sweep.csv", buf.getvalue())
     if rr.results:
         plot(grid, rr.results, args.metric, unit, out / "sweep.png")
     print(f"Sweep of {args.part} on {d.name} ({rr.where}): {args.metric}")

@@ -246,12 +246,9 @@ class Progress:
             sys.stderr.write("\n")
 
 
-def _fmt(x: float, unit: str) -> str:
-    from solderless.engine.values import format_value
-    try:
-        return format_value(x, unit=unit, style="eng")
-    except Exception:
-        return f"{x:.4g} {unit}"
+def _fmt(x, unit: str) -> str:
+    from solderless.engine.values import format_reading
+    return format_reading(x, unit)
 
 
 # ------------------------------------------------------------------ render

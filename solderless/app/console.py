@@ -48,12 +48,9 @@ TAPER_WORDS = {"linear": "linear", "lin": "linear", "audio": "audio", "log": "au
 HELP = __doc__.split("::", 1)[1].rstrip()
 
 
-def _fmt(x, unit):
-    from solderless.engine.values import format_value
-    try:
-        return format_value(x, unit=unit, style="eng")
-    except Exception:
-        return f"{x:.4g} {unit}"
+def _fmt(x, unit: str) -> str:
+    from solderless.engine.values import format_reading
+    return format_reading(x, unit)
 
 
 def _db(x):

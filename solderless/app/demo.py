@@ -31,7 +31,6 @@ import json
 import math
 import os
 import time
-from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -236,15 +235,11 @@ def run_demo(out_dir: str | os.PathLike = "demo-out", seconds: float | None = No
     ``out_dir``. ``seconds`` shortens the phrase (and the measurements) for a
     quick run. Returns the report's path."""
     from solderless.engine.design import load_design
+    from solderless.engine.fileio import output_folder
     from solderless.engine.synth import render_phrase, write_wav
 
     t_start = time.perf_counter()
-    out = Path(out_dir)
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as e:
-        raise SolderlessError(f"cannot create the output folder: {e.strerror or e}",
-                              file=str(out), hint="choose another --out folder") from None
+    out = output_folder(out_dir)
     x = render_phrase("demo", fs=fs)
     if seconds is not None:
         if not seconds > 0:

@@ -188,7 +188,8 @@ def _print_summary(s: dict, say) -> None:
 def run_play(args) -> int:
     """Play a design (and optionally a variant) live; see ``--help``."""
     from solderless.engine.design import load_design
-    from solderless.engine.live.host import LiveHost, caution_once
+    from solderless.engine.live.host import LiveHost
+    from solderless.engine.settings import caution_once
     from solderless.engine.live.source import parse_source
     from solderless.engine.live.stream import load_sounddevice
 

@@ -1,6 +1,7 @@
-"""One autosave scheme and one config folder for every front end.
+"""One autosave scheme for every front end.
 
-Files live in ``config_dir()/autosave``. Each autosave is a design file
+Files live in ``autosave/`` of the config folder
+(:func:`solderless.engine.settings.config_dir`). Each autosave is a design file
 ``<front end>-<design>-<key>-<session>.toml`` and a sidecar ``.json`` with
 the front end (``"workbench"``, ``"console"``), the design's own file
 (``origin``), its name, the time, and the writing session (process id and
@@ -16,8 +17,8 @@ boot id). So:
   :meth:`Autosaves.adopted` once its content is safe in the new session).
   A scripted run (the workbench's ``--screenshot``) does not look at them.
 
-Autosaves written before this scheme (``<key>.toml``) are read too: with a
-sidecar they were the workbench's, without one the console's.
+An autosave named ``<key>.toml`` (no front end in its name) is read too:
+with a sidecar it is the workbench's, without one the console's.
 """
 from __future__ import annotations
 
@@ -28,17 +29,9 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
+from solderless.engine.settings import config_dir
+
 FRONT_ENDS = ("workbench", "console")
-
-
-def config_dir() -> Path:
-    """The user's config folder for Solderless: ``$SOLDERLESS_CONFIG_DIR``,
-    else ``$XDG_CONFIG_HOME/solderless``, else ``~/.config/solderless``."""
-    env = os.environ.get("SOLDERLESS_CONFIG_DIR")
-    if env:
-        return Path(env)
-    base = os.environ.get("XDG_CONFIG_HOME") or os.path.join(os.path.expanduser("~"), ".config")
-    return Path(base) / "solderless"
 
 
 def _boot_id() -> str:

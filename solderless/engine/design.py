@@ -28,6 +28,8 @@ import numpy as np
 from solderless.engine.circuit import GROUND, LINEAR_KINDS, Circuit, Element, Where, canonical_net
 from solderless.engine.derived import LiveMapping, LiveSet
 from solderless.engine.errors import DesignError, SolderlessError
+from solderless.engine.probes import parse_probe
+from solderless.engine.unionfind import UnionFind
 
 PRESETS = Path(__file__).resolve().parent.parent / "presets"
 STAGE_LIBRARY = PRESETS / "stages"
@@ -956,12 +958,6 @@ class Design:
             circ.temperature = self.temperature
         return circ
 
-    def resolve_net(self, name: str) -> str:
-        """Map a user net name (``stage.net``) to its flat net name."""
-        if self.netlist is not None:
-            return canonical_net(name.lower())
-        return _Flattener(self).run(resolve=name)
-
     def resolve_probe(self, expr: str) -> str:
         """Rewrite a probe expression's net names to flat names. A design's
         own probe name (``[[probe]] name``) stands for its expression."""
@@ -969,11 +965,12 @@ class Design:
             if expr.strip().lower() == pr.name.strip().lower():
                 expr = pr.expr
                 break
-        m = re.fullmatch(r"\s*([A-Za-z]+)\s*\((.*)\)\s*", expr)
-        if not m:
-            raise DesignError(f"probe '{expr}' is not of the form quantity(name)",
-                              file=self._file(), hint="e.g. v(gain.out) or iabc(gain.U1)")
-        q, args = m.group(1).lower(), [a.strip() for a in m.group(2).split(",")]
+        parsed = parse_probe(expr)
+        if parsed is None:
+            raise DesignError(f"probe '{expr}' is not of the form quantity(name) or "
+                              f"quantity(a,b)", file=self._file(),
+                              hint="e.g. v(gain.out) or iabc(gain.U1)")
+        q, args = parsed[0].lower(), parsed[1]
         if self.netlist is not None:
             # names as op prints them; the older 'netlist.' prefix is read too
             args = [a[len(NETLIST_STAGE) + 1:] if a.lower().startswith(NETLIST_STAGE + ".")
@@ -1003,29 +1000,11 @@ def atomic_write_text(target: str | os.PathLike, text: str, **kw) -> Path:
     return atomic_write(target, text, **kw)
 
 
-class _UnionFind:
+class _UnionFind(UnionFind):
+    """Net sets of a design: ground names its set, then the name seen first."""
+
     def __init__(self):
-        self.parent: dict[str, str] = {}
-
-    def add(self, a: str) -> None:
-        self.parent.setdefault(a, a)
-
-    def find(self, a: str) -> str:
-        self.add(a)
-        while self.parent[a] != a:
-            self.parent[a] = self.parent[self.parent[a]]
-            a = self.parent[a]
-        return a
-
-    def union(self, a: str, b: str) -> bool:
-        ra, rb = self.find(a), self.find(b)
-        if ra == rb:
-            return False
-        # ground wins, then the name seen first
-        if rb == GROUND:
-            ra, rb = rb, ra
-        self.parent[rb] = ra
-        return True
+        super().__init__(keep=GROUND)
 
 
 class _Flattener:

@@ -218,6 +218,18 @@ def write_target(target) -> Path:
     return real
 
 
+def output_folder(path) -> Path:
+    """Create the output folder ``path`` (and its parents) if it is missing
+    and return it; a failure is a SolderlessError naming the folder."""
+    out = Path(path)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise SolderlessError(f"cannot create the output folder: {exc.strerror or exc}",
+                              file=str(out), hint="choose another --out folder") from None
+    return out
+
+
 def atomic_write(target, data: bytes | str | Callable[[str], None], *,
                  inputs: Iterable = (), suffix: str = ".tmp",
                  encoding: str = "utf-8") -> Path:

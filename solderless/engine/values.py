@@ -425,6 +425,16 @@ def format_value(x: float, unit: str = "", style: str = "rkm",
     return f"{sign}{mstr}{letter}"
 
 
+def format_reading(x, unit: str = "") -> str:
+    """A reading for a console or report line: :func:`format_value` in
+    engineering style, or ``%.4g`` and the unit for a value it cannot write
+    (not finite)."""
+    try:
+        return format_value(x, unit=unit, style="eng")
+    except Exception:
+        return f"{x:.4g} {unit}"
+
+
 # --------------------------------------------------------------------------
 # Preferred values
 
@@ -504,6 +514,20 @@ def step_preferred(x: float, series="E24", steps: int = +1) -> float:
     if steps > 0:
         return _at(table, g + steps)
     return _at(table, g + steps + (0 if on else 1))
+
+
+POT_SERIES = "E3"
+"""Pots are made in E3 values (1, 2.2, 4.7 per decade: 10k, 22k, 47k ...;
+common practice, from memory), not in E12/E24 resistor values."""
+
+
+def stepping_series(part_type: str) -> str:
+    """The series a part's value steps through unless the user picks one:
+    :data:`POT_SERIES` for a pot's track, E12 for a capacitor, E24 for the
+    rest (common practice)."""
+    if part_type == "pot":
+        return POT_SERIES
+    return "E12" if part_type == "capacitor" else "E24"
 
 
 def preferred_deviation(x: float, series="E24") -> float:

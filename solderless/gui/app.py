@@ -30,7 +30,8 @@ def add_gui_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--tab", choices=("live", "inside", "compare"), default="live",
                         help="tab to show (useful with --screenshot)")
     parser.add_argument("--config-dir", default=None, metavar="DIR",
-                        help="folder for settings and autosaves (default ~/.config/solderless)")
+                        help="folder for settings and autosaves (default: $SOLDERLESS_CONFIG_DIR, "
+                             "else $XDG_CONFIG_HOME/solderless, else ~/.config/solderless)")
 
 
 _APP = None

@@ -113,7 +113,7 @@ class BuildPanel(QWidget):
 
         def work():
             from solderless.engine.analysis import montecarlo as MC
-            from solderless.app.build import write_montecarlo
+            from solderless.engine.analysis.montecarlo_report import write_montecarlo
             spec = MC.TrialSpec(d, seed=0, control=not quick)
             runner = MC.runner_for(spec)
             rr = MC.run_trials(spec, range(n), workers=1, stop=self._stop,

@@ -1,6 +1,6 @@
 """Looking inside: the operating point as a table with warnings, and the
 small-signal frequency response and input impedance as plots. Filled from
-:mod:`solderless.gui.preview` results; refreshed after each edit."""
+:mod:`solderless.engine.analysis.preview` results; refreshed after each edit."""
 from __future__ import annotations
 
 import numpy as np

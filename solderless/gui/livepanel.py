@@ -8,8 +8,9 @@ input-versus-output scope; CPU load, xruns and latency.
 
 Two feeds fill the same displays: the live host's meter snapshots
 (:meth:`solderless.engine.live.host.LiveHost.meters`, polled by a timer) and an offline
-preview's per-block readings (:class:`solderless.gui.preview.PreviewResult`). The panel
-computes nothing; it draws what it is given.
+preview's per-block readings
+(:class:`solderless.engine.analysis.preview.PreviewResult`). The panel computes
+nothing; it draws what it is given.
 """
 from __future__ import annotations
 
@@ -23,7 +24,7 @@ from PyQt6.QtWidgets import (QComboBox, QGridLayout, QGroupBox, QHBoxLayout, QLa
                              QPushButton, QSizePolicy, QSlider, QVBoxLayout, QWidget)
 
 from solderless.gui import theme
-from solderless.gui.preview import SOURCES
+from solderless.engine.analysis.preview import SOURCES
 
 TRACE_SECONDS = 5.0
 SCOPE_LIVE_S = 0.05
@@ -684,7 +685,8 @@ class LivePanel(QWidget):
         self._legend()
 
     def show_dynamics(self, r) -> None:
-        """Attack and release readouts (a :class:`solderless.gui.preview.Dynamics` or None)."""
+        """Attack and release readouts (a
+        :class:`solderless.engine.analysis.preview.Dynamics` or None)."""
         def ms(v):
             return "—" if v is None else (f"{v * 1e3:.1f} ms" if v < 0.1 else
                                           f"{v * 1e3:.0f} ms")

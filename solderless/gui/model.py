@@ -21,9 +21,8 @@ from typing import Any, Callable
 
 from PyQt6.QtCore import QObject, pyqtSignal
 
-from solderless.engine.design import (Design, Link, atomic_write_text, load_design,
-                           load_stage_template)
-from solderless.engine.autosave import Autosaves, config_dir  # noqa: F401  one scheme, one folder
+from solderless.engine.design import Design, Link, load_design, load_stage_template
+from solderless.engine.autosave import Autosaves
 from solderless.engine.errors import DesignError, SolderlessError
 from solderless.engine.values import format_value
 
@@ -622,9 +621,6 @@ class Workbench(QObject):
     def recall_snapshot(self, name: str) -> None:
         """Make a snapshot the current design (an undoable edit)."""
         snap = self.snapshot(name).design
-
-        def fn(d):
-            return None
         before = self.design.copy()
         self._undo.append((f"recall {name}", before, None, 0.0))
         self._redo.clear()
@@ -647,37 +643,7 @@ def _same_structure(a: Design, b: Design) -> bool:
     return pa == pb
 
 
-# ------------------------------------------------------------ files and settings
-
-class Settings:
-    """A small JSON settings file (recent files, first-use caution shown)."""
-
-    def __init__(self, folder: Path):
-        self.path = Path(folder) / "workbench.json"
-        self.data: dict[str, Any] = {"recent": [], "caution_shown": False}
-        self.problem = ""
-        try:
-            if self.path.exists():
-                loaded = json.loads(self.path.read_text(encoding="utf-8"))
-                if isinstance(loaded, dict):
-                    self.data.update(loaded)
-        except (OSError, ValueError) as exc:
-            self.problem = f"settings file {self.path} could not be read ({exc}); defaults used"
-
-    def save(self) -> None:
-        try:
-            # the workbench's own config folder (the writer creates no folders)
-            self.path.parent.mkdir(parents=True, exist_ok=True)
-            atomic_write_text(self.path, json.dumps(self.data, indent=2))
-        except OSError as exc:
-            self.problem = f"settings not saved: {exc}"
-
-    def add_recent(self, path: str | os.PathLike) -> None:
-        p = str(Path(path).resolve())
-        rec = [r for r in self.data.get("recent", []) if r != p]
-        self.data["recent"] = [p] + rec[:9]
-        self.save()
-
+# ------------------------------------------------------------ autosave
 
 @dataclass
 class Recovered:

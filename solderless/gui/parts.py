@@ -21,26 +21,24 @@ from PyQt6.QtCore import Qt, pyqtSignal
 from PyQt6.QtGui import QKeyEvent
 from PyQt6.QtWidgets import (QButtonGroup, QComboBox, QDial, QFrame, QGridLayout,
                              QHBoxLayout, QLabel, QLineEdit, QPushButton, QScrollArea,
-                             QSizePolicy, QToolButton, QVBoxLayout, QWidget)
+                             QToolButton, QVBoxLayout, QWidget)
 
 from solderless.engine.design import DEVICE_TYPES, taper_fraction
 from solderless.engine.errors import SolderlessError
 from solderless.engine.values import (format_value, nearest_preferred, parse_tolerance,
-                           parse_value, preferred_deviation, step_preferred)
+                           parse_value, preferred_deviation, step_preferred,
+                           stepping_series)
 from solderless.gui import theme
 from solderless.gui.model import Workbench, taper_text
 
 SERIES = ("E12", "E24", "E96")
 TAPER_CHOICES = [("linear", "linear"), ("audio", "audio"),
                  ("reverse-audio", "reverse audio"), ("custom", "custom law")]
-POT_SERIES = "E3"
-"""Pots are made in E3 values (1, 2.2, 4.7 per decade: 10k, 22k, 47k ...;
-common practice); stepping a pot's track walks them, as the console does."""
 
 
 def step_pot_value(value: float, steps: int) -> float:
-    """The track value ``steps`` places up (or down) the E3 series."""
-    return step_preferred(value, POT_SERIES, steps)
+    """The track value ``steps`` places up (or down) the pots' series."""
+    return step_preferred(value, stepping_series("pot"), steps)
 
 
 NUDGE = 0.01            # Shift+arrow: 1 %
@@ -172,7 +170,7 @@ class ValueRow(PartRow):
         self.unit.setProperty("role", "dim")
         self.series = QComboBox()
         self.series.addItems(SERIES)
-        self.series.setCurrentText("E12" if info.type == "capacitor" else "E24")
+        self.series.setCurrentText(stepping_series(info.type))
         self.series.setToolTip("preferred-value series (IEC 60063) for stepping and snapping")
         self.down = QToolButton(text="◂")
         self.up = QToolButton(text="▸")
@@ -337,7 +335,6 @@ class PotRow(PartRow):
 
     def __init__(self, wb, q, parent=None):
         super().__init__(wb, q, parent)
-        info = self.info()
         self.dial = PotDial()
         self.dial.setToolTip("turn the pot; arrows nudge 1 %, PgUp/PgDn 10 %")
         self.rot = QLabel()

@@ -24,14 +24,15 @@ from PyQt6.QtWidgets import (QFileDialog, QFrame, QHBoxLayout, QInputDialog, QLa
 
 from solderless.engine.design import builtin_designs, load_design, stage_library
 from solderless.engine.errors import SolderlessError
+from solderless.engine.settings import Settings, caution_once, config_dir
 from solderless.gui import theme
 from solderless.gui.chain import ChainView
 from solderless.gui.inspect import InspectPanel
 from solderless.gui.livepanel import LivePanel
 from solderless.gui.midi import MidiKnobs, knob_map, open_input, set_knob_map
-from solderless.gui.model import Autosave, Settings, Workbench, config_dir
+from solderless.gui.model import Autosave, Workbench
 from solderless.gui.parts import PartsPanel
-from solderless.gui.preview import Analyser, make_source
+from solderless.gui.preview import Analyser
 from solderless.gui.snapshots import CURRENT, SnapshotPanel
 
 AUTOSAVE_MS = 15000
@@ -40,13 +41,8 @@ DYN_DEBOUNCE_MS = 1500
 """While playing live, attack and release are measured again only after the
 edits have paused this long: the measurement simulates 2.6 s of audio in
 this process and would take frames from the meters during a knob sweep
-(bench/bench_gui.py: 17 instead of 27 frames per second)."""
+(bench/bench_gui.py measures the frame rate)."""
 METER_MS = 30          # about 33 frames per second (target: at least 30)
-CAUTION_TEXT = ("Listening levels: a circuit can oscillate or jump in level. Start with "
-                "the monitor volume low and raise it slowly; output passes a safety "
-                "limiter, but protect your hearing and your speakers. Long sessions: "
-                "keep the average level moderate (WHO–ITU H.870 suggests 80 dBA for "
-                "40 hours a week).")
 NETLIST_FILTER = "SPICE netlists (*.cir *.sp *.spice *.net *.ckt *.txt)"
 DESIGN_FILTER = "Solderless designs (*.toml)"
 
@@ -413,10 +409,7 @@ class MainWindow(QMainWindow):
         QMessageBox.information(self, "Keys", "\n".join(lines))
 
     def _caution(self) -> None:
-        if not self.settings.data.get("caution_shown"):
-            self.notices.add(CAUTION_TEXT, "warn")
-            self.settings.data["caution_shown"] = True
-            self.settings.save()
+        caution_once(lambda text: self.notices.add(text, "warn"), self.config)
 
     # ------------------------------------------------------------ design
     def set_design(self, d) -> None:

@@ -749,11 +749,8 @@ def sheet_html(rep: BuildReport, files: dict[str, str] | None = None) -> str:
 def write_build(rep: BuildReport, out: Path) -> dict[str, Path]:
     """Write the sheet, parts list, netlist and connection list into ``out``."""
     from solderless.engine.design import atomic_write_text
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise SolderlessError(f"cannot create the output folder: {exc.strerror or exc}",
-                              file=str(out), hint="choose another --out folder") from None
+    from solderless.engine.fileio import output_folder
+    out = output_folder(out)
     files = _plots(rep, out)
     written = {}
     written["sheet"] = out / "sheet.html"

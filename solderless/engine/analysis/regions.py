@@ -95,11 +95,8 @@ def diode_region(vd: float, id_: float, bv: float | None) -> str:
 
 
 def _fmt(x: float, unit: str) -> str:
-    from solderless.engine.values import format_value
-    try:
-        return format_value(x, unit=unit, style="eng")
-    except Exception:
-        return f"{x:.3g} {unit}"
+    from solderless.engine.values import format_reading
+    return format_reading(x, unit)
 
 
 def over(out: list, name: str, label: str, value: float, limit, unit: str) -> None:

@@ -34,7 +34,6 @@ microseconds of Python per block.
 """
 from __future__ import annotations
 
-import json
 import math
 import os
 import queue
@@ -46,13 +45,14 @@ from typing import Any, Callable
 
 import numpy as np
 
-from solderless.engine.autosave import Autosaves, config_dir  # noqa: F401  one folder for every front end
+from solderless.engine.autosave import Autosaves
 from solderless.engine.errors import AudioError, DesignError, SolderlessError
 from solderless.engine.live import limiter as lim
 from solderless.engine.live import meters as M
 from solderless.engine.live.loudness import RunningLoudness
 from solderless.engine.live.ring import FrameRing
 from solderless.engine.live.source import LiveInput, Source
+from solderless.engine.settings import config_dir
 
 from solderless.engine.levels import FULL_SCALE_DBU as DEFAULT_FULL_SCALE_DBU  # noqa: E402  (solderless/engine/levels.py)
 """Default input and output calibration: a full-scale sine is +3 dBU
@@ -70,9 +70,6 @@ of the pot's whole resistance (so a divider's ratio moves at most 0.5 % of
 full scale per block, whatever the taper): keeps the gain step per block well
 under a 220 Hz sine's own sample-to-sample change (2 sin(pi 220 / 48000) =
 2.9 % of its peak)."""
-POT_SERIES = "E3"
-"""Pots step through 1, 2.2, 4.7 per decade: the values pots are commonly
-made in (common practice, from memory), not E12/E24 resistor values."""
 MAX_RAMP_STEPS = 2000
 IDLE_S = 0.1
 """A ramp stops waiting for blocks when none has run for this long."""
@@ -81,32 +78,6 @@ IDLE_S = 0.1
 def full_scale_peak_from_dbu(dbu: float) -> float:
     """Peak volts of a full-scale sine whose RMS is ``dbu`` dBu."""
     return M.dbu_to_vrms(dbu) * math.sqrt(2.0)
-
-
-CAUTION = ("Caution: a circuit can oscillate or jump in level; keep the monitor "
-           "volume low at first to protect your hearing and your speakers.")
-
-
-def caution_once(say: Callable[[str], None] = print) -> bool:
-    """Show the hearing/speaker caution the first time only; remember that it
-    was shown in ``config_dir()/live.json``. Returns True if it was shown now."""
-    path = config_dir() / "live.json"
-    state: dict = {}
-    try:
-        state = json.loads(path.read_text())
-    except (OSError, ValueError):
-        state = {}
-    if state.get("caution_shown"):
-        return False
-    say(CAUTION)
-    state["caution_shown"] = True
-    try:
-        from solderless.engine.design import atomic_write_text
-        path.parent.mkdir(parents=True, exist_ok=True)
-        atomic_write_text(path, json.dumps(state))
-    except OSError:
-        pass
-    return True
 
 
 def default_simulator_factory(circuit, fs, oversample, probes):
@@ -1067,17 +1038,15 @@ class LiveHost:
     def step_value(self, part: str, steps: int = 1, series: str | None = None,
                    voice=None) -> Future:
         """Step a part's value ``steps`` places through an E-series (IEC
-        60063; default E24 for resistors, E12 for capacitors, and E3 - 1,
-        2.2, 4.7 per decade - for pots, the values pots are commonly made in,
-        from memory). Result: the new value."""
-        from solderless.engine.values import step_preferred
+        60063; by default the part's own series,
+        :func:`solderless.engine.values.stepping_series`). Result: the new value."""
+        from solderless.engine.values import step_preferred, stepping_series
 
         def edit(v):
             info = self.part_info(part, voice)
             if info.value is None or not info.value > 0:
                 raise DesignError("this part has no positive value to step", part=part)
-            ser = series or POT_SERIES if info.type == "pot" else \
-                series or ("E12" if info.type == "capacitor" else "E24")
+            ser = series or stepping_series(info.type)
             new = step_preferred(info.value, ser, steps)
             return v.design.set_value(part, new), new
         return self._post_part_edit(voice, edit, part)

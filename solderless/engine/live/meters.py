@@ -113,19 +113,10 @@ def peak_ms(x, n):  # pragma: no cover - compiled
 
 
 @numba.njit(nogil=True, cache=True)
-def probe_means(buf, nframes, row, col0):  # pragma: no cover - compiled
-    """Write the mean of each probe row of ``buf[:, :nframes]`` into ``row``."""
-    for p in range(buf.shape[0]):
-        acc = 0.0
-        for i in range(nframes):
-            acc += buf[p, i]
-        row[col0 + p] = acc / nframes if nframes > 0 else np.nan
-
-
-@numba.njit(nogil=True, cache=True)
 def probe_means_mapped(buf, nframes, row, col0, idx, width):  # pragma: no cover
-    """Like :func:`probe_means`, with probe row ``j`` written to column
-    ``col0 + idx[j]``; columns of probes the simulator lacks read NaN."""
+    """Write the mean of each probe row ``j`` of ``buf[:, :nframes]`` into
+    column ``col0 + idx[j]`` of ``row``; columns of probes the simulator
+    lacks read NaN."""
     for c in range(width):
         row[col0 + c] = np.nan
     for p in range(idx.shape[0]):

@@ -4,7 +4,7 @@ Model building (:mod:`~solderless.engine.solver.statespace`,
 :mod:`~solderless.engine.solver.mna`, :mod:`~solderless.engine.solver.dcop`)
 and :class:`~solderless.engine.solver.simulator.Simulator` import these;
 so does the compiled kernel (:mod:`solderless.engine.solver.kernel`).  This
-module imports nothing compiled, so building a model never loads the kernel.
+module imports nothing compiled, so reading a constant never loads the kernel.
 numba freezes module-level numbers into the compiled code: a named slot
 costs nothing at run time.
 

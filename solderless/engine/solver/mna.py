@@ -30,6 +30,7 @@ from solderless.engine.circuit import GROUND, KIND_NODES, Circuit, canonical_net
 from solderless.engine.devices import REGISTRY
 from solderless.engine.errors import DesignError
 from solderless.engine.solver.kernel_layout import WAVE_DC, WAVE_PULSE, WAVE_PWL, WAVE_SIN
+from solderless.engine.unionfind import UnionFind
 
 VALUE_KINDS = {"R", "C", "L", "V", "I", "E", "G", "F", "H"}
 
@@ -244,23 +245,13 @@ class Network:
         return v
 
     def _check_dc_paths(self):
-        parent = list(range(self.nn + 1))  # index nn = ground
-
-        def find(a):
-            while parent[a] != a:
-                parent[a] = parent[parent[a]]
-                a = parent[a]
-            return a
+        sets = UnionFind()                  # index nn = ground
 
         def idx(n):
             return self.nn if n < 0 else n
 
         def union(a, b):
-            ra, rb = find(idx(a)), find(idx(b))
-            if ra == rb:
-                return False
-            parent[ra] = rb
-            return True
+            return sets.union(idx(a), idx(b))
 
         # loops of voltage-defining elements (V, E outputs, L shorted at DC)
         for el in self.elements.values():
@@ -278,9 +269,9 @@ class Network:
                 union(self._node(st[1]), self._node(st[2]))
         for a, b in self.ports:
             union(a, b)
-        g = find(self.nn)
+        g = sets.find(self.nn)
         for k in range(self.nn):
-            if find(k) != g:
+            if sets.find(k) != g:
                 name = self.net_names[k]
                 who = [e.name for e in self.elements.values()
                        if name in (canonical_net(n) for n in e.nodes)]

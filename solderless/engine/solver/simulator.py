@@ -8,13 +8,13 @@ reference swap -- the audio thread takes no lock.
 """
 from __future__ import annotations
 
-import re
 import threading
 
 import numpy as np
 
 from solderless.engine.circuit import Circuit, GROUND, canonical_net
 from solderless.engine.errors import DesignError
+from solderless.engine.probes import parse_probe
 from solderless.engine.solver import kernel as K
 from solderless.engine.solver import kernel_layout as KL
 from solderless.engine.solver.dcop import OperatingPoint, report, solve_dc
@@ -24,8 +24,6 @@ from solderless.engine.solver.statespace import Model, ProbeRow, derive, padded
 #: Key of a live change that sets the circuit temperature (degrees Celsius)
 #: instead of an element value: ``sim.set_values({TEMPERATURE_KEY: 45.0})``.
 TEMPERATURE_KEY = "@temperature"
-
-_PROBE_RE = re.compile(r"^\s*([A-Za-z]+)\s*\((.*)\)\s*$")
 
 
 def _net_col(net: Network, name: str, probe: str) -> int:
@@ -43,39 +41,14 @@ def _net_col(net: Network, name: str, probe: str) -> int:
     return net.net_index[n]
 
 
-def _probe_parts(text: str) -> tuple[str, str, str | None] | None:
-    """(quantity, name, second name or None) of ``q(a)`` / ``q(a,b)``; a
-    name may hold balanced parentheses (an exported net such as
-    ``Net-(R1-Pad2)``)."""
-    m = _PROBE_RE.match(text)
-    if not m:
-        return None
-    names, depth, start, inner = [], 0, 0, m.group(2)
-    for k, ch in enumerate(inner):
-        if ch == "(":
-            depth += 1
-        elif ch == ")":
-            depth -= 1
-            if depth < 0:
-                return None
-        elif ch == "," and depth == 0:
-            names.append(inner[start:k])
-            start = k + 1
-    names.append(inner[start:])
-    names = [n.strip() for n in names]
-    if depth != 0 or len(names) > 2 or not all(n and not any(c.isspace() for c in n)
-                                               for n in names):
-        return None
-    return m.group(1), names[0], names[1] if len(names) == 2 else None
-
-
 def make_probe(net: Network, text: str) -> ProbeRow:
     """Parse a probe name (``v(net)``, ``v(a,b)``, ``i(R1)``, ``ic(Q1)`` ...)."""
-    parts = _probe_parts(text)
+    parts = parse_probe(text)
     if parts is None:
         raise DesignError(f"cannot read probe {text!r}", part=text,
                           hint="write e.g. v(out), v(a,b), i(R1), ic(Q1), gm(U1)")
-    q, a, b = parts[0].lower(), parts[1], parts[2]
+    q, names = parts[0].lower(), parts[1]
+    a, b = names[0], names[1] if len(names) == 2 else None
     nw, nx, nu, npt = net.nw, net.nx, net.nu, net.np_
     z = lambda k: np.zeros(k)  # noqa: E731
     if q == "v":
