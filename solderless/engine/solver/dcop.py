@@ -276,10 +276,33 @@ def report(net: Network, sol: DCSolution, values: dict[str, float]) -> Operating
                 if abs(vo - rv) < RAIL_MARGIN:
                     warnings.append(f"{el.name}: net '{out_net}' sits at {vo:.3f} V, within "
                                     f"{RAIL_MARGIN} V of supply rail '{rn}' ({rv:.3f} V)")
+    note = charge_note(net)
+    if note:
+        warnings.append(note)
     bal = balance(net, sol, values)
     if bal is not None:
         warnings.append(bal)
     return OperatingPoint(nets, devices, warnings, currents, sol.method)
+
+
+def charge_note(net: Network) -> str | None:
+    """What the simulation does with the devices' junction capacitances
+    (CJE, CJC, TF, CJO, TT, CGS, CGD, CGSO, CBD ...), or None when no
+    device has any: taken at the operating point as linear capacitors, so
+    their change with the signal's swing is not simulated; or, with
+    junction charge storage off, left out of renders (the AC analysis has
+    them either way)."""
+    who = [el.name for el, _mod, lay, _po in net.devices if lay.caps]
+    if not who:
+        return None
+    names = ", ".join(who[:8]) + (f" and {len(who) - 8} more" if len(who) > 8 else "")
+    if net.charge:
+        return (f"junction charge storage ({names}): junction capacitances are taken at "
+                "the operating point (linear capacitors in renders and live play, "
+                "recomputed after each edit); their change with signal swing is not "
+                "simulated")
+    return (f"junction charge storage is off ({names}): junction capacitances are left "
+            "out of renders and live play; the AC analysis includes them")
 
 
 #: Step at which the stability of the operating point is judged (seconds);
