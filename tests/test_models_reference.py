@@ -17,6 +17,7 @@ import numpy as np
 import pytest
 
 import spice_ref as S
+from solderless.engine.devices._common import NOISE_ONLY
 from solderless.engine.circuit import Circuit, Element
 from solderless.engine.devices import REGISTRY
 from solderless.engine.formats.spice import parse_netlist
@@ -103,6 +104,9 @@ def test_every_standard_parameter_is_simulated_or_named(kind):
     for n in ign:
         if n == "MFG":
             continue  # a label: read without a word, as LEVEL and TYPE
+        if n in NOISE_ONLY:     # flicker noise: simulated only with noise on
+            assert re.search(rf"\b{n} \(flicker noise\) acts only with noise on", w), n
+            continue
         assert re.search(rf"\b{n} is not simulated and is ignored; it affects", w), n
 
 

@@ -225,6 +225,11 @@ def polarity(el, names: tuple[str, str]) -> float:
                       part=el.name)
 
 
+#: Model parameters that act only when noise is simulated (the noise analysis
+#: and renders or play with noise on), not in a plain render: flicker noise.
+NOISE_ONLY = frozenset({"KF", "AF"})
+
+
 def ignored_note(el, notes: list[tuple[str, str]]) -> list[tuple[str, str]]:
     """Group ignored parameters by what they affect: [(names, effect)]."""
     by: dict[str, list[str]] = {}

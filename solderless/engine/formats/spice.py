@@ -71,6 +71,7 @@ from typing import Any, Callable
 
 from solderless.engine.circuit import GROUND, Circuit, Element, Where, canonical_net
 from solderless.engine.derived import LiveMapping
+from solderless.engine.devices._common import NOISE_ONLY
 from solderless.engine.errors import DesignError, ValueFormatError
 from solderless.engine import limits
 from solderless.engine.values import parse_value
@@ -1428,10 +1429,13 @@ class _Reader:
                 # kept on the element for the noise analysis and live noise
                 # (solderless/engine/solver/noise.py); a plain render ignores it
                 out[key] = v
-                self.warn(f"{where}model {model.name}: {k} is not simulated and is "
-                          f"ignored; it affects the {ign[key]} (the noise analysis, "
-                          "solderless hiss, and renders with --hiss read it for flicker "
-                          "noise)")
+                if key in NOISE_ONLY:
+                    self.warn(f"{where}model {model.name}: {k} ({ign[key]}) acts only "
+                              "with noise on: solderless hiss, or render/play --hiss")
+                else:
+                    self.warn(f"{where}model {model.name}: {k} is not simulated and is "
+                              f"ignored; it affects the {ign[key]}; only noise (solderless "
+                              "hiss, render/play --hiss) reads it, for flicker noise")
             elif key in ign:
                 self.warn(f"{where}model {model.name}: {k} is not simulated and is "
                           f"ignored; it affects the {ign[key]}")

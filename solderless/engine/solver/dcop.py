@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from solderless.engine.circuit import GROUND, canonical_net
-from solderless.engine.devices._common import ignored_note
+from solderless.engine.devices._common import NOISE_ONLY, ignored_note
 from solderless.engine.errors import SolveError
 from solderless.engine.solver.kernel import eval_devices, limit_devices
 from solderless.engine.solver.mna import Network, device_arrays
@@ -266,9 +266,15 @@ def report(net: Network, sol: DCSolution, values: dict[str, float]) -> Operating
         warnings += R.warnings_for(el.name, el.kind, d, d["region"].split(" (")[0],
                                    ratings.get(el.name), off)
         devices[el.name] = d
-        for names, effect in ignored_note(el, lay.ignored):
+        noise_only = [(n, e) for n, e in lay.ignored if n in NOISE_ONLY]
+        for names, effect in ignored_note(el, [ne for ne in lay.ignored
+                                               if ne not in noise_only]):
             warnings.append(f"{el.name}: model parameter{'s' if ',' in names else ''} "
                             f"{names} not simulated (ignored): {effect}")
+        if noise_only:
+            names = ", ".join(dict.fromkeys(n for n, _ in noise_only))
+            warnings.append(f"{el.name}: {names} (flicker noise) act only with noise on: "
+                            "solderless hiss, or render/play --hiss")
         if out_net is not None and canonical_net(out_net) not in rails \
                 and canonical_net(out_net) != GROUND:
             vo = vnet(out_net)
