@@ -135,3 +135,20 @@ def test_the_autosave_message_names_the_files_really_written(tmp_path):
     assert (tmp_path / "auto" / "mine-B.toml").exists()
     assert not (tmp_path / "auto" / "mine.toml").exists()
     h.close()
+
+
+def test_a_typed_value_is_echoed_and_an_unreal_one_is_named(booster_host):
+    # a refused value is quoted as typed; one outside the range of real parts
+    # (solderless/engine/sanity.py VALUE_RANGES, common practice) is kept but
+    # named, as a design file with that value would be
+    h = booster_host
+    said = []
+    con = Console(h, say=said.append)
+    con.handle("pick boost.RC")
+    con.handle("value -1k")
+    assert said[-1].startswith("error:") and said[-1].endswith("not -1k")
+    assert h.part_info("boost.RC").value == pytest.approx(10e3)
+    con.handle("value 1e15")
+    assert said[-1].startswith("warning: part 'boost.RC': resistance 1e+15 ohm is outside")
+    con.handle("value 2k2")
+    assert not said[-1].startswith("warning")

@@ -194,6 +194,10 @@ class Console:
             v = parse_value(rest[0], unit=info.unit or None, part=part)
             h.edit(E.SetValue(part, v)).result(self.timeout)
             self.say(f"{part} = {_fmt(v, info.unit)}")
+            from solderless.engine.sanity import value_warning
+            w = value_warning(part, info.unit, v)
+            if w:
+                self.say(f"warning: {w}")
         elif cmd == "turn":
             part = self._need_pick()
             info = h.part_info(part)

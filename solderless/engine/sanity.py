@@ -57,6 +57,24 @@ def _where(e) -> str:
     return ""
 
 
+#: A part's unit (as the design reports it) -> its element kind in VALUE_RANGES.
+_KIND_OF_UNIT = {"Ω": "R", "ohm": "R", "F": "C", "H": "L"}
+
+
+def value_warning(part: str, unit: str, value: float) -> str | None:
+    """The warning for a part value edited by hand (console, workbench) that
+    lies outside the range of real parts, or None: the same ranges
+    :func:`check_values` holds a file to."""
+    rng = VALUE_RANGES.get(_KIND_OF_UNIT.get(unit or "", ""))
+    if rng is None or not math.isfinite(value):
+        return None
+    what, u, lo, hi = rng
+    if not _out(float(value), lo, hi):
+        return None
+    return (f"part '{part}': {what} {value:g} {u} is outside the range of real parts "
+            f"({lo:g}..{hi:g} {u}); check the value")
+
+
 def check_values(circuit: Circuit) -> list[str]:
     """Warnings for element values and model parameters outside the ranges
     above, each naming the file, line and part."""

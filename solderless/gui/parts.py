@@ -200,7 +200,7 @@ class ValueRow(PartRow):
         for w in (self.series, self.down, self.up, self.snap):
             w.setVisible(positive)
         self.tol.setVisible(positive)
-        self.edit.committed.connect(lambda v: self.guard(self.wb.set_value, self.q, v))
+        self.edit.committed.connect(self._commit_value)
         self.edit.stepped.connect(self.step)
         self.edit.nudged.connect(self.nudge)
         self.down.clicked.connect(lambda: self.step(-1))
@@ -210,6 +210,15 @@ class ValueRow(PartRow):
         self.tol.editingFinished.connect(self.set_tol)
         self.refresh()
 
+    def _commit_value(self, v) -> None:
+        """Set the typed value; a value outside the range of real parts is
+        kept (the user may mean it) but named in the status line."""
+        if self.guard(self.wb.set_value, self.q, v) is None:
+            return
+        from solderless.engine.sanity import value_warning
+        w = value_warning(self.q, self.info().unit, self.info().value)
+        if w:
+            self.message("warning: " + w)
     def step(self, steps: int) -> None:
         v = self.info().value
         if v and v > 0:

@@ -493,7 +493,8 @@ class Design:
                               file=self._file(), hint="change its model in the design file")
         v = _parse_value(value, part=qualname) if isinstance(value, str) else float(value)
         if part.type in POSITIVE_TYPES and not (v > 0 and math.isfinite(v)):
-            raise DesignError(f"a {part.type} value must be positive, not {value!r}",
+            shown = value if isinstance(value, str) else _format_value(v, "")
+            raise DesignError(f"a {part.type} value must be positive, not {shown}",
                               part=qualname, file=self._file())
         part.value = v
         self._record(qualname, "value", _format_value(v, ""))
