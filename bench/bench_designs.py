@@ -20,7 +20,10 @@ reduction) and slope 6 dB above it, the release time after a 50 mV burst
 (63 % recovery, time-constant convention; solderless.app.measure.measure_release), and
 the deepest gain reduction on the phrase's soft and hard single notes.
 
-Run from the repository root:  python bench/bench_designs.py [--repeat N]
+``--charge-cost`` times every design with junction charge storage on and
+off instead (interleaved run by run), and writes bench/results/charge_cost.json.
+
+Run from the repository root:  python bench/bench_designs.py [--repeat N] [--charge-cost]
 """
 from __future__ import annotations
 
@@ -51,16 +54,20 @@ class DesignRun:
     """One design set up for timing: flattened, at its operating point, its
     kernels warmed (compilation excluded from the timing)."""
 
-    def __init__(self, name: str):
+    def __init__(self, name: str, charge: bool | None = None):
         self.name = name
         self.d = d = load_design(name)
         t0 = time.perf_counter()
-        self.sim = Simulator(d.flatten(), fs=FS, oversample=d.oversample, block_max=BLOCK)
+        circ = d.flatten()
+        if charge is not None:
+            circ.junction_charge = charge
+        self.sim = Simulator(circ, fs=FS, oversample=d.oversample, block_max=BLOCK)
         self.op = self.sim.operating_point()
         self.setup_s = time.perf_counter() - t0
         y = np.empty(BLOCK)
         self.sim.process_into(np.zeros(BLOCK), y)          # warm the compiled kernels
         self.walls: list[float] = []
+        self.cpus: list[float] = []
         self.nonconv = 0
         self.out = None
 
@@ -70,10 +77,12 @@ class DesignRun:
         sim.reset()
         out = np.empty_like(x)
         t1 = time.perf_counter()
+        c1 = time.process_time()
         for s in range(0, x.size, BLOCK):
             e = min(s + BLOCK, x.size)
             sim.process_into(x[s:e], out[s:e])
         self.walls.append(time.perf_counter() - t1)
+        self.cpus.append(time.process_time() - c1)
         st = sim.stats
         self.nonconv = max(self.nonconv, st["nonconverged"])
         # solver work per kernel sample (deterministic: the same every run)
@@ -117,6 +126,69 @@ def bench_all(names: list[str], x: np.ndarray, repeat: int) -> list[dict]:
         for r in runs:
             r.time_once(x)
     return [r.row(x) for r in runs]
+
+
+def charge_cost(names: list[str], x: np.ndarray, repeat: int) -> list[dict]:
+    """Real-time factor of every design with junction charge storage on and
+    off (Circuit.junction_charge), the two interleaved run by run so a
+    loaded machine's drift falls on both alike; best of ``repeat`` by wall
+    time and by CPU time (time.process_time)."""
+    pairs = [(DesignRun(n, True), DesignRun(n, False)) for n in names]
+    for _ in range(repeat):
+        for on, off in pairs:
+            on.time_once(x)
+            off.time_once(x)
+    def products(run):
+        # multiply-adds of the kernel's per-sample matrix products (padded)
+        m = run.sim._model
+        return int(m.Pz.size + m.Az.size + m.Ck.size + m.Yz.size)
+
+    rows = []
+    for on, off in pairs:
+        a = x.size / FS
+        rows.append({"design": on.name, "oversample": on.d.oversample,
+                     "states_on": on.sim.n_states, "states_off": off.sim.n_states,
+                     "junction_states": on.sim.n_states - off.sim.n_states,
+                     "rt_on": a / min(on.walls), "rt_off": a / min(off.walls),
+                     "rt_on_cpu": a / min(on.cpus), "rt_off_cpu": a / min(off.cpus),
+                     "cost_cpu": min(on.cpus) / min(off.cpus) - 1.0,
+                     "matrix_products_on": products(on), "matrix_products_off": products(off),
+                     "meets_target_on": a / min(on.walls) >= TARGET_RT,
+                     "iterations_per_sample_on": on.work["iterations_per_sample"],
+                     "iterations_per_sample_off": off.work["iterations_per_sample"]})
+    return rows
+
+
+def main_charge(names: list[str], repeat: int) -> int:
+    """``--charge-cost``: print the table and write bench/results/charge_cost.json."""
+    x = render_phrase("demo", fs=FS)
+    load0 = os.getloadavg() if hasattr(os, "getloadavg") else None
+    rows = charge_cost(names, x, repeat)
+    load = os.getloadavg() if hasattr(os, "getloadavg") else None
+    hdr = (f"{'design':<26}{'os':>3}{'+st':>4}{'x RT on':>9}{'x RT off':>9}"
+           f"{'CPU on':>8}{'CPU off':>8}{'cost':>7}{'it on':>7}{'it off':>7}{'madd on/off':>13}")
+    print(hdr)
+    print("-" * len(hdr))
+    for r in rows:
+        print(f"{r['design']:<26}{r['oversample']:>3}{r['junction_states']:>4}"
+              f"{r['rt_on']:>9.1f}{r['rt_off']:>9.1f}{r['rt_on_cpu']:>8.1f}"
+              f"{r['rt_off_cpu']:>8.1f}{100 * r['cost_cpu']:>6.0f}%"
+              f"{r['iterations_per_sample_on']:>7.2f}{r['iterations_per_sample_off']:>7.2f}"
+              f"{r['matrix_products_on']:>7d}/{r['matrix_products_off']:<5d}")
+    result = {"fs": FS, "phrase_s": x.size / FS, "block": BLOCK, "target_realtime": TARGET_RT,
+              "repeat": repeat, "machine": platform.machine(),
+              "python": platform.python_version(), "cpus": os.cpu_count(),
+              "loadavg_at_start": load0, "loadavg_at_end": load,
+              "note": "on and off runs interleaved; x RT from the best wall time, CPU "
+                      "from the best process time; cost = extra CPU time with charge on; "
+                      "matrix_products = multiply-adds of the kernel's per-sample matrix "
+                      "products (deterministic, padded sizes)",
+              "designs": rows}
+    out = ROOT / "bench" / "results"
+    out.mkdir(parents=True, exist_ok=True)
+    (out / "charge_cost.json").write_text(json.dumps(result, indent=2, default=float))
+    print(f"\nwrote {out / 'charge_cost.json'} (load average {load0} -> {load})")
+    return 0
 
 
 #: Onsets (s) of the demo phrase's soft and hard single notes (solderless.engine.synth).
@@ -165,7 +237,12 @@ def main(argv=None) -> int:
     ap.add_argument("--repeat", type=int, default=5,
                     help="timed runs per design, round-robin over the designs (best kept)")
     ap.add_argument("--designs", nargs="*", default=None, help="names (default: all built-in)")
+    ap.add_argument("--charge-cost", action="store_true",
+                    help="time every design with junction charge storage on and off, "
+                         "interleaved; writes bench/results/charge_cost.json")
     args = ap.parse_args(argv)
+    if args.charge_cost:
+        return main_charge(args.designs or sorted(builtin_designs()), args.repeat)
     x = render_phrase("demo", fs=FS)
     c0 = cpu_times()
     rows = bench_all(args.designs or sorted(builtin_designs()), x, args.repeat)

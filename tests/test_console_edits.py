@@ -48,17 +48,21 @@ def test_taper_command_sets_each_law(booster_host):
     assert said[-1].startswith("error:") and "only a pot has a taper" in said[-1]
 
 
-def test_pots_step_through_e3(booster_host):
+def test_pots_step_through_the_values_pots_are_made_in(booster_host):
+    # 1-2-2.5-5 per decade (docs/references.md, "Building from a simulation"),
+    # the same table the build sheet snaps a pot to
+    from solderless.engine.analysis.build import snap_pot
     h = booster_host
     said = []
     con = Console(h, say=said.append)
     con.handle("pick output.VOLUME")            # 100k
     con.handle("up")
-    assert h.part_info("output.VOLUME").value == pytest.approx(220e3)    # E3: 1, 2.2, 4.7
+    assert h.part_info("output.VOLUME").value == pytest.approx(200e3)
     con.handle("up")
-    assert h.part_info("output.VOLUME").value == pytest.approx(470e3)
+    assert h.part_info("output.VOLUME").value == pytest.approx(250e3)
     con.handle("down 3")
-    assert h.part_info("output.VOLUME").value == pytest.approx(47e3)
+    assert h.part_info("output.VOLUME").value == pytest.approx(50e3)
+    assert snap_pot(h.part_info("output.VOLUME").value) == pytest.approx(50e3)
 
 
 def test_model_override_in_the_design_file(tmp_path):

@@ -693,14 +693,15 @@ def test_labels_side_branches_and_pot_steps(win, qtbot, tmp_path):
     # the probe trace names its probe and unit (the divider declares v(amp.b))
     win.live.probe_pick.setCurrentText("v(amp.b)")
     assert win.live.traces.labels["probe"] == "v(amp.b) (V)"
-    # a pot's track steps through E3 (1, 2.2, 4.7 per decade; IEC 60063)
+    # a pot's track steps through the values pots are made in (1-2-2.5-5 per
+    # decade; docs/references.md, "Building from a simulation")
     win.chain.select("level")
     row = win.parts.rows["level.VOL"]
     row.total.stepped.emit(+1)
-    assert win.wb.design.part("level.VOL").value == pytest.approx(22e3)
+    assert win.wb.design.part("level.VOL").value == pytest.approx(20e3)
     row = win.parts.rows["level.VOL"]
     row.total.stepped.emit(-2)
-    assert win.wb.design.part("level.VOL").value == pytest.approx(4.7e3)
+    assert win.wb.design.part("level.VOL").value == pytest.approx(5e3)
     # the built-in compressor: its detector (no out port) and bias network sit
     # below the signal line, every in-line stage on it
     w = _window(qtbot, tmp_path, "flagship")

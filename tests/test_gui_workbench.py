@@ -422,6 +422,36 @@ def test_edits_and_undo_reach_a_running_host(win):
         win.stop_live()
 
 
+def test_a_structural_edit_crossfades_in_the_running_host(win):
+    # a bypass, a new stage and their undo reach the running host as the
+    # same edits (data) the workbench applied: the host process keeps
+    # running and swaps circuits, as it does for the console's edits
+    win.live.source.setCurrentIndex(win.live.source.findData("tone:1000:0.1"))
+    win.live_driver = "paced"
+    assert win.start_live()
+    assert win.wait_live(300)
+    h = win.host
+    try:
+        win.wb.set_bypass("level", True)
+        name = win.wb.add_stage("output/volume")
+        h.call("flush")
+        host_design = h.call("designs")[0]
+        assert win.host is h and h.proc.is_alive()
+        assert host_design.doc is None            # one TOML document: the workbench's
+        assert host_design.stage("level").bypass
+        assert [s.name for s in host_design.stages] == [s.name for s in win.wb.design.stages]
+        assert name in [s.name for s in host_design.stages]
+        win.wb.undo()
+        win.wb.undo()
+        h.call("flush")
+        host_design = h.call("designs")[0]
+        assert [s.name for s in host_design.stages] == ["amp", "level"]
+        assert not host_design.stage("level").bypass
+        assert h.state()["error"] is None
+    finally:
+        win.stop_live()
+
+
 def test_live_scope_meters_and_traces_show_the_running_host(win, qtbot, artifacts):
     import time
     win.live.source.setCurrentIndex(win.live.source.findData("tone:1000:0.1"))

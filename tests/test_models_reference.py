@@ -17,6 +17,7 @@ import numpy as np
 import pytest
 
 import spice_ref as S
+from solderless.engine.devices._common import NOISE_ONLY
 from solderless.engine.circuit import Circuit, Element
 from solderless.engine.devices import REGISTRY
 from solderless.engine.formats.spice import parse_netlist
@@ -32,7 +33,8 @@ ACTIVE = {
            "IKR": 0.01, "XTB": 1.5, "TNOM": 25, "TYPE": "NPN"}, 60.0),
     "D": ({"IS": 1e-14, "RS": 1, "BV": 20, "NBV": 1.5, "TNOM": 25}, 60.0),
     "J": ({"B": 0.8, "RD": 10, "RS": 10, "TNOM": 25, "TYPE": "NJF"}, 60.0),
-    "M": ({"GAMMA": 0.4, "RD": 10, "RS": 10, "LD": 1e-6, "TYPE": "NMOS"}, 27.0),
+    "M": ({"GAMMA": 0.4, "RD": 10, "RS": 10, "LD": 1e-6, "TYPE": "NMOS",
+           "AD": 1e-9, "AS": 1e-9, "PD": 1e-4, "PS": 1e-4}, 27.0),
 }
 NODES = {"Q": ("c", "b", "e"), "D": ("a", "0"), "J": ("d", "g", "s"), "M": ("d", "g", "s", "b")}
 
@@ -70,8 +72,9 @@ def test_every_standard_parameter_is_simulated_or_named(kind):
     assert set(mod.STANDARD) == set(mod.DEFAULTS) | set(mod.IGNORED)
     for name in sorted(mod.STANDARD):
         if name in mod.DEFAULTS:
-            if kind == "M" and name in ("W", "L", "M"):
+            if kind == "M" and name in ("W", "L", "M", "AD", "AS", "PD", "PS"):
                 continue  # instance parameters, checked by test_mosfet_reference
+                #           (AD ... PD by test_charge_storage)
             assert _changed(kind, name, base, temp), f"{kind} {name} has no effect"
         else:
             params = dict(base, **{name: 1.0})
@@ -101,6 +104,9 @@ def test_every_standard_parameter_is_simulated_or_named(kind):
     for n in ign:
         if n == "MFG":
             continue  # a label: read without a word, as LEVEL and TYPE
+        if n in NOISE_ONLY:     # flicker noise: simulated only with noise on
+            assert re.search(rf"\b{n} \(flicker noise\) acts only with noise on", w), n
+            continue
         assert re.search(rf"\b{n} is not simulated and is ignored; it affects", w), n
 
 

@@ -338,8 +338,15 @@ def cmd_render(args) -> int:
         names = [n for n in names if n not in dangling]
     probes = [d.resolve_probe(p) for p in names]
     circ = _flatten(d)
-    from solderless.engine.solver import Simulator
-    sim = Simulator(circ, fs=fs, oversample=oversample, probes=tuple(probes))
+    from solderless.app.hiss_options import hiss_choice
+    hiss_on, hiss_seed = hiss_choice(args, d)
+    if hiss_on:   # the circuit's noise inside the simulation (solver/livenoise.py)
+        from solderless.engine.solver.livenoise import HissSimulator
+        sim = HissSimulator(circ, fs=fs, oversample=oversample, probes=tuple(probes),
+                            seed=hiss_seed)
+    else:
+        from solderless.engine.solver import Simulator
+        sim = Simulator(circ, fs=fs, oversample=oversample, probes=tuple(probes))
     for w in sim.warnings:
         print(f"warning: {w}", file=sys.stderr)
     n = len(volts)
@@ -376,6 +383,9 @@ def cmd_render(args) -> int:
           f"({peak * args.output_fs_volts:.3g} V)")
     print(f"calibration: input {describe_levels(args.input_fs_volts)}; output "
           f"{describe_levels(args.output_fs_volts)}")
+    if hiss_on:
+        from solderless.app.hiss_options import floor_line, floor_summary
+        print(floor_line(floor_summary(circ, hiss_seed)))
     if st.get("nonconverged", 0):
         print(f"warning: {st['nonconverged']} samples did not converge (held at the last "
               "good solution); try --oversample 2 or more", file=sys.stderr)
@@ -588,6 +598,9 @@ def build_parser(argv=None) -> argparse.ArgumentParser:
                    "the design's own probes ([[probe]] and [meters] control)")
     p.add_argument("--keep-latency", action="store_true",
                    help="do not remove the oversampling filters' fixed delay")
+    if wanted("render"):
+        from solderless.app.hiss_options import add_hiss_options
+        add_hiss_options(p)
     p.set_defaults(func=cmd_render)
 
     p = sub.add_parser("op", help="print the DC operating point")
@@ -628,6 +641,8 @@ _OPTIONAL = (
      "run_montecarlo", "tolerance Monte Carlo: yield, spreads, sensitivity"),
     ("sweep", "solderless.app.build", "add_sweep_arguments", "run_sweep",
      "sweep a part value (and a pot) and tabulate a figure"),
+    ("hiss", "solderless.app.hiss", "add_hiss_arguments", "run_hiss",
+     "output noise: spectral density and the noise floor (unweighted, A-weighted)"),
 )
 
 

@@ -1,8 +1,11 @@
 """Terminal control while playing: one short command per line.
 
-Runs on the terminal's thread; every change goes through the LiveHost's edit
-methods (mailbox to the edit worker), never into the engine directly. A user
-mistake prints one line and the session goes on.
+Runs on the terminal's thread; every change is an edit
+(:mod:`solderless.engine.design.edits`, data) handed to the LiveHost
+(:meth:`~solderless.engine.live.host.LiveHost.edit`, mailbox to the edit
+worker), the same path the workbench's edits take, never into the engine
+directly. A value is read once, here. A user mistake prints one line and the
+session goes on.
 
 Commands (``help`` prints them)::
 
@@ -10,8 +13,8 @@ Commands (``help`` prints them)::
     pick PART             choose the part the next commands act on
     up [N] / down [N]     step the picked part N places through its E-series
     value V               set the picked part's value (4k7, 100n, 2.2u ...)
-    up/down on a pot      steps through E3 (1, 2.2, 4.7 per decade): the values
-                          pots are made in
+    up/down on a pot      steps through the values pots are made in
+                          (1, 2, 2.5, 5 per decade: 10k, 20k, 25k, 50k ...)
     turn R                turn the picked pot to R (0 to 1); 'turn +' / 'turn -'
                           nudges by 0.05
     taper LAW             the picked pot's taper: linear, audio, reverse, or
@@ -39,6 +42,7 @@ from __future__ import annotations
 import math
 from typing import Callable
 
+from solderless.engine.design import edits as E
 from solderless.engine.errors import SolderlessError
 
 EDITS = {"up", "down", "value", "turn", "taper", "model", "bypass"}
@@ -188,7 +192,7 @@ class Console:
             part = self._need_pick()
             info = h.part_info(part)
             v = parse_value(rest[0], unit=info.unit or None, part=part)
-            h.set_value(part, v).result(self.timeout)
+            h.edit(E.SetValue(part, v)).result(self.timeout)
             self.say(f"{part} = {_fmt(v, info.unit)}")
         elif cmd == "turn":
             part = self._need_pick()
@@ -200,7 +204,7 @@ class Console:
             r = min(1.0, max(0.0, r)) if rest[0] in ("+", "-") else r
             if not 0.0 <= r <= 1.0:
                 raise SolderlessError(f"rotation must be from 0 to 1, not {rest[0]}")
-            fut = h.set_rotation(part, r)
+            fut = h.edit(E.SetRotation(part, r))
             if fut.done() and fut.exception() is not None:
                 raise fut.exception()
             # the ramp runs in the background: the console answers at once,
@@ -225,7 +229,7 @@ class Console:
             else:
                 raise SolderlessError(f"unknown taper '{rest[0]}'",
                                       hint="linear, audio, reverse or custom R:F,R:F,...")
-            got = h.set_taper(part, taper).result(self.timeout)
+            got = h.edit(E.SetTaper(part, taper)).result(self.timeout)
             info = h.part_info(part)
             from solderless.engine.design import taper_fraction
             self.say(f"{part} taper {got if isinstance(got, str) else 'custom'}: at rotation "
@@ -243,7 +247,7 @@ class Console:
                 self.say(f"{part} is {info.model}; models of its kind: "
                          + ", ".join(models_of_kind(v.design, kind)))
             else:
-                got = h.set_model(part, rest[0]).result(self.timeout)
+                got = h.edit(E.SetModel(part, rest[0])).result(self.timeout)
                 self.say(f"{part} model {got} (rebuilt)")
         elif cmd == "times":
             from solderless.engine.analysis.timing import attack_release, describe

@@ -77,6 +77,8 @@ def add_play_arguments(p) -> None:
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
     p.add_argument("--no-console", action="store_true",
                    help="do not read commands from the terminal")
+    from solderless.app.hiss_options import add_hiss_options
+    add_hiss_options(p)
 
 
 def add_devices_arguments(p) -> None:
@@ -183,6 +185,9 @@ def _print_summary(s: dict, say) -> None:
         say("the computer could not keep up: try a larger --block (256) or lower --oversample")
     if s["guard"]:
         say(f"output was muted for safety: {s['guard']}")
+    if s.get("hiss"):
+        from solderless.app.hiss_options import floor_line
+        say(floor_line(s["hiss"]))
 
 
 def run_play(args) -> int:
@@ -201,7 +206,14 @@ def run_play(args) -> int:
         raise AudioError(f"input channel {args.input_channel} does not exist",
                          hint="channels count from 1")
     source = parse_source(args.source, args.input_channel - 1)
+    from solderless.app.hiss_options import hiss_choice
+    hiss_on, hiss_seed = hiss_choice(args, design)
+    factory = None
+    if hiss_on:   # both sides play their own noise (solver/livenoise.py)
+        from solderless.engine.solver.livenoise import hiss_simulator_factory
+        factory = hiss_simulator_factory(hiss_seed)
     host = LiveHost(design, variant=variant, fs=args.rate, block=args.block,
+                    simulator_factory=factory,
                     oversample=args.oversample, source=source,
                     in_full_scale_v=parse_full_scale(args.in_full_scale, "input"),
                     out_full_scale_v=parse_full_scale(args.out_full_scale, "output"),
@@ -278,6 +290,9 @@ def run_play(args) -> int:
         host.stop()
         m = host.meters()
         s = _summary(host, m, wall)
+        if hiss_on:
+            from solderless.app.hiss_options import floor_summary
+            s["hiss"] = floor_summary(design.flatten(), hiss_seed)
         host.close()
     written = host.autosaved_paths()        # the files autosave really wrote
     if problem:

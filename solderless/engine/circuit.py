@@ -127,6 +127,10 @@ class Circuit:
     #: with their junctions off
     nodeset: dict[str, float] = field(default_factory=dict)
     ic: dict[str, float] = field(default_factory=dict)
+    #: junction charge storage in the time domain (device capacitances as
+    #: linear capacitors taken at the operating point); False leaves them
+    #: out of renders and live play (the AC analysis always has them)
+    junction_charge: bool = True
 
     def element(self, name: str) -> Element:
         for e in self.elements:

@@ -89,6 +89,14 @@ E_SERIES: dict[str, tuple[float, ...]] = {
     ),
 }
 
+#: The values pots are made in, per decade: 1-2-2.5-5 (1k, 2k, 2k5, 5k, 10k,
+#: 20k, 25k ...; docs/references.md, "Building from a simulation"). Not an
+#: IEC 60063 series, but stepped and snapped the same way under the name "POT".
+POT_DECADE: tuple[float, ...] = (1.0, 2.0, 2.5, 5.0)
+
+#: Every table a value can step through: the E-series and the pots' values.
+_STEP_TABLES: dict[str, tuple[float, ...]] = {**E_SERIES, "POT": POT_DECADE}
+
 #: Tolerance customarily paired with each series (common practice).
 SERIES_TOLERANCE: dict[str, float] = {
     "E3": 0.40, "E6": 0.20, "E12": 0.10, "E24": 0.05,
@@ -440,10 +448,10 @@ def format_reading(x, unit: str = "") -> str:
 
 def _series_key(series) -> str:
     key = f"E{series}" if isinstance(series, int) else str(series).upper()
-    if key not in E_SERIES:
+    if key not in _STEP_TABLES:
         raise ValueFormatError(
             f"unknown preferred-value series {series!r}",
-            hint="use one of " + ", ".join(E_SERIES))
+            hint="use one of " + ", ".join(_STEP_TABLES))
     return key
 
 
@@ -478,7 +486,7 @@ def _floor_index(table, x: float) -> tuple[int, bool]:
 
 def series_values(series="E24", lo: float = 1.0, hi: float = 10.0) -> list[float]:
     """All values of ``series`` in the closed range [lo, hi]."""
-    table = E_SERIES[_series_key(series)]
+    table = _STEP_TABLES[_series_key(series)]
     lo = _check_positive(lo, "series_values")
     g, _ = _floor_index(table, lo)
     if _at(table, g) < lo * (1 - 1e-12):
@@ -493,7 +501,7 @@ def series_values(series="E24", lo: float = 1.0, hi: float = 10.0) -> list[float
 def nearest_preferred(x: float, series="E24") -> float:
     """The IEC 60063 value of ``series`` nearest to ``x`` on a log scale
     (smallest ratio to ``x``), looking across decade boundaries."""
-    table = E_SERIES[_series_key(series)]
+    table = _STEP_TABLES[_series_key(series)]
     x = _check_positive(x, "nearest_preferred")
     g, _ = _floor_index(table, x)
     lo, hi = _at(table, g), _at(table, g + 1)
@@ -505,7 +513,7 @@ def step_preferred(x: float, series="E24", steps: int = +1) -> float:
     in ``series``, across decades. From a value between two series values,
     one step up is the next value above it, one step down the next below;
     ``steps=0`` gives :func:`nearest_preferred`."""
-    table = E_SERIES[_series_key(series)]
+    table = _STEP_TABLES[_series_key(series)]
     x = _check_positive(x, "step_preferred")
     steps = int(steps)
     if steps == 0:
@@ -516,9 +524,10 @@ def step_preferred(x: float, series="E24", steps: int = +1) -> float:
     return _at(table, g + steps + (0 if on else 1))
 
 
-POT_SERIES = "E3"
-"""Pots are made in E3 values (1, 2.2, 4.7 per decade: 10k, 22k, 47k ...;
-common practice, from memory), not in E12/E24 resistor values."""
+POT_SERIES = "POT"
+"""A pot's track steps through the values pots are made in
+(:data:`POT_DECADE`: 10k, 20k, 25k, 50k, 100k ...), the same values the build
+sheet snaps a pot to, not through E12/E24 resistor values."""
 
 
 def stepping_series(part_type: str) -> str:

@@ -114,6 +114,16 @@ def knob_map(design) -> dict[tuple[int, int], str]:
     return out
 
 
+def knob_table(mapping: dict[tuple[int, int], str]) -> dict | None:
+    """``mapping`` as the design file's ``[midi]`` table, plain data (None
+    when empty), for a :class:`solderless.engine.design.edits.SetDocumentTable`
+    edit."""
+    if not mapping:
+        return None
+    return {"knob": [{"pot": pot, "channel": ch, "cc": cc} for (ch, cc), pot in
+                     sorted(mapping.items(), key=lambda kv: (kv[1], kv[0]))]}
+
+
 def set_knob_map(design, mapping: dict[tuple[int, int], str]) -> None:
     """Write ``mapping`` into the design's ``[midi]`` table (kept on save)."""
     import tomlkit

@@ -371,7 +371,7 @@ class PotRow(PartRow):
         self.total.stepped.connect(lambda s: self.guard(
             self.wb.set_value, self.q, step_pot_value(self.info().value, s)))
         self.total.setToolTip("track value; Up/Down steps through the values pots are made "
-                              "in (E3: 10k, 22k, 47k, 100k ...)")
+                              "in (10k, 20k, 25k, 50k, 100k ...)")
         self.taper.activated.connect(self._taper_chosen)
         self.plot.law_edited.connect(lambda pts: self.guard(self.wb.set_taper, self.q, pts))
         self._quiet = False

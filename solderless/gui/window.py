@@ -29,7 +29,7 @@ from solderless.gui import theme
 from solderless.gui.chain import ChainView
 from solderless.gui.inspect import InspectPanel
 from solderless.gui.livepanel import LivePanel
-from solderless.gui.midi import MidiKnobs, knob_map, open_input, set_knob_map
+from solderless.gui.midi import MidiKnobs, knob_map, knob_table, open_input
 from solderless.gui.model import Autosave, Workbench
 from solderless.gui.parts import PartsPanel
 from solderless.gui.preview import Analyser
@@ -110,6 +110,12 @@ class NoticeBar(QFrame):
 
     def texts(self) -> list[str]:
         return [b.text for b in self.notices]
+
+
+def _probe_list(design) -> list[str]:
+    """The probes a live host meters for ``design`` (its control first)."""
+    from solderless.engine.live.host import _probes_for
+    return list(_probes_for(design)[0])
 
 
 def design_location(path) -> str:
@@ -268,8 +274,9 @@ class MainWindow(QMainWindow):
         f.addSeparator()
         self._act(f, "Quit", self.close, "Ctrl+Q")
         e = mb.addMenu("&Edit")
-        self.undo_act = self._act(e, "Undo", self.wb.undo, "Ctrl+Z")
-        self.redo_act = self._act(e, "Redo", self.wb.redo, ["Ctrl+Shift+Z", "Ctrl+Y"])
+        self.undo_act = self._act(e, "Undo", lambda: self._guard(self.wb.undo), "Ctrl+Z")
+        self.redo_act = self._act(e, "Redo", lambda: self._guard(self.wb.redo),
+                                  ["Ctrl+Shift+Z", "Ctrl+Y"])
         s = mb.addMenu("&Stage")
         self.add_menu = QMenu("Add from library", self)
         groups: dict[str, QMenu] = {}
@@ -325,8 +332,8 @@ class MainWindow(QMainWindow):
         tb.addSeparator()
         self.undo_btn = QPushButton("↶ Undo")
         self.redo_btn = QPushButton("↷ Redo")
-        self.undo_btn.clicked.connect(self.wb.undo)
-        self.redo_btn.clicked.connect(self.wb.redo)
+        self.undo_btn.clicked.connect(lambda _c=False: self._guard(self.wb.undo))
+        self.redo_btn.clicked.connect(lambda _c=False: self._guard(self.wb.redo))
         tb.addWidget(self.undo_btn)
         tb.addWidget(self.redo_btn)
 
@@ -341,7 +348,7 @@ class MainWindow(QMainWindow):
         self.chain.stage_selected.connect(self.parts.show_stage)
         self.wb.history_changed.connect(self._history)
         self.wb.values_changed.connect(self._values_changed)
-        self.wb.edited.connect(self._forward)
+        self.wb.applied.connect(self._forward)
         self.wb.structure_changed.connect(self._structure_changed)
         self.wb.design_replaced.connect(self._replaced)
         self.refresh_timer = QTimer(self)
@@ -505,27 +512,31 @@ class MainWindow(QMainWindow):
     def _values_changed(self, changes: dict) -> None:
         self.schedule_refresh()
 
-    def _forward(self, kind: str, q: str, value) -> None:
-        """Pass a part edit to the live host: it re-derives off the audio
-        thread and the new element values land at the next block boundary
-        with the circuit state carried over (pot moves are ramped)."""
+    def _forward(self, edit) -> None:
+        """Send an edit the workbench applied (undo and redo included) to the
+        live host, as data: the host applies the very same edit. New values
+        land at the next block boundary with the circuit state carried over
+        (pot moves are ramped); a structural edit (a stage, a link, a
+        bypass, a switch, a model) builds a new simulator in the host and
+        crossfades to it, as the console's edits do. Only a change of the
+        probe list restarts playback: the meters' layout is fixed while a
+        host runs."""
+        from solderless.engine.design.edits import (AddProbe, RemoveProbe, ReplaceDesign,
+                                                    SetDocumentTable)
         h = self.host
-        if h is None:
+        if h is None or isinstance(edit, SetDocumentTable):
             return
-        name = {"value": "set_value", "rotation": "set_rotation",
-                "taper": "set_taper", "model": "set_model"}.get(kind)
-        from solderless.engine.live.remote import ALLOWED
-        if name == "set_model" and name not in ALLOWED:
-            self._structure_changed()          # this host cannot swap models: restart
-            return
-        if name is not None:
-            h.post_reported(name, q, value)      # answered later; failures in messages
-
-    def _structure_changed(self) -> None:
-        if self.host is not None:
-            self.say("the circuit's structure changed: restarting live playback")
+        probes_changed = isinstance(edit, (AddProbe, RemoveProbe)) or (
+            isinstance(edit, ReplaceDesign) and
+            list(h.info.get("probes", [[]])[0] or []) != _probe_list(self.wb.design))
+        if probes_changed:
+            self.say("the probes changed: restarting live playback")
             self.stop_live()
             self.live.run_btn.setChecked(True)
+            return
+        h.edit(edit, reported=True)          # answered later; failures in messages
+
+    def _structure_changed(self) -> None:
         self.schedule_refresh()
 
     # ------------------------------------------------------------ stage actions
@@ -795,7 +806,9 @@ class MainWindow(QMainWindow):
         if self.factory is not None:
             kw["simulator_factory"] = self.factory
         try:
-            host = HostProcess(self.wb.design.copy(), variant,
+            # the host's copy leaves the TOML document out: the workbench
+            # keeps the one document, the host follows the edits it is sent
+            host = HostProcess(self.wb.design.copy(document=False), variant,
                                source=self.live.source.currentData(),
                                level_db=(-120.0 if self.live.mute_btn.isChecked()
                                          else self.live.level.value() / 10.0),
@@ -906,7 +919,9 @@ class MainWindow(QMainWindow):
             self.wb.set_rotation(pot, rotation)
 
     def _remember_knobs(self, mapping: dict) -> None:
-        self._guard(self.wb._apply, "map MIDI knobs", lambda d: set_knob_map(d, mapping))
+        from solderless.engine.design.edits import SetDocumentTable
+        self._guard(self.wb.apply, SetDocumentTable("midi", knob_table(mapping),
+                                                    "map MIDI knobs"))
 
     def _midi_learned(self) -> None:
         self.live.learn_btn.blockSignals(True)
@@ -997,7 +1012,7 @@ class MainWindow(QMainWindow):
         wb_design = self.wb.design
         self.wb.design = da
         try:
-            ok = self.start_live(variant=db.copy())
+            ok = self.start_live(variant=db.copy(document=False))
         finally:
             self.wb.design = wb_design
         if ok:

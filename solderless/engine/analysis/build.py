@@ -38,7 +38,7 @@ from pathlib import Path
 import numpy as np
 
 from solderless.engine.errors import DesignError, SolderlessError
-from solderless.engine.values import SERIES_TOLERANCE, format_value, nearest_preferred
+from solderless.engine.values import POT_DECADE, SERIES_TOLERANCE, format_value, nearest_preferred
 
 #: Tolerance assumed where a design gives none (common practice for the
 #: parts a builder buys by default).
@@ -57,9 +57,10 @@ VOLTAGE_RATINGS = (6.3, 10.0, 16.0, 25.0, 35.0, 50.0, 63.0, 100.0, 250.0, 400.0)
 VOLTAGE_MARGIN = 2.0 / 3.0
 #: Factor on a semiconductor's needed voltage and current (common practice).
 DEVICE_MARGIN = 1.5
-#: Values potentiometers are commonly made in (common practice).
-POT_VALUES = (100.0, 250.0, 500.0, 1e3, 2e3, 2.5e3, 5e3, 10e3, 20e3, 25e3, 50e3,
-              100e3, 250e3, 500e3, 1e6, 2e6)
+#: Values potentiometers are made in, 100 ohm to 2 Mohm: the one table the
+#: workbench and the console step a pot through (values.POT_DECADE).
+POT_VALUES = tuple(round(m * 10.0 ** d, 6) for d in range(2, 7) for m in POT_DECADE
+                   if m * 10.0 ** d <= 2e6)
 #: 9 V alkaline battery capacity, mAh: 550-600 (from memory; docs/references.md).
 BATTERY_MAH = 575.0
 #: Above this average draw a mains adapter suits better than a 9 V battery

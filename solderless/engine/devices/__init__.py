@@ -9,7 +9,9 @@ of its branch in the compiled kernel's dispatch), ``KIND``, ``NPORTS``,
 (validate parameters; ports, internal nodes, linear stamps, flat parameter
 vector, probes), numba ``evaluate(par, pa, v, po, i, G)`` (port currents and
 Jacobian block), numba ``limit(par, pa, vnew, vold, po)`` (junction
-limiting) and ``region(par, v, i)`` for reports.
+limiting) and ``region(par, v, i)`` for reports; a device with junction
+charge storage also lists ``DeviceLayout.caps`` and provides
+``capacitances(par, v, vc)`` (plain Python, at an operating point).
 
 Adding a device: one module, and one line in ``BUILTIN`` below (see
 DEVELOPERS.md, "How to add a device"). A device with a new law also needs its

@@ -153,6 +153,12 @@ class DeviceLayout:
     quiet_step: float = 0.0
     #: standard model parameters given but not simulated: [(name, what it affects)]
     ignored: list[tuple[str, str]] = field(default_factory=list)
+    #: junction capacitances (charge storage): node names (p, n, cp, cn) per
+    #: entry; the current C*d(v(cp) - v(cn))/dt flows from p through the
+    #: device to n (cp, cn = p, n: a plain capacitor; else a
+    #: transcapacitance).  The module's ``capacitances(par, v, vc)`` gives
+    #: the values at port voltages v and entry voltages vc = v(cp) - v(cn).
+    caps: list[tuple[str, str, str, str]] = field(default_factory=list)
 
 
 def read_params(el, defaults: dict[str, float], *, positive=(), nonneg=(),
@@ -219,6 +225,11 @@ def polarity(el, names: tuple[str, str]) -> float:
                       part=el.name)
 
 
+#: Model parameters that act only when noise is simulated (the noise analysis
+#: and renders or play with noise on), not in a plain render: flicker noise.
+NOISE_ONLY = frozenset({"KF", "AF"})
+
+
 def ignored_note(el, notes: list[tuple[str, str]]) -> list[tuple[str, str]]:
     """Group ignored parameters by what they affect: [(names, effect)]."""
     by: dict[str, list[str]] = {}
@@ -232,3 +243,58 @@ def ignored_note(el, notes: list[tuple[str, str]]) -> list[tuple[str, str]]:
 def temp_factors(temp_k: float, tnom_k: float):
     """(vt at temp, ln(T/TNOM), T/TNOM - 1) for the SPICE temperature laws."""
     return K_BOLTZMANN * temp_k / Q_ELEMENTARY, math.log(temp_k / tnom_k), temp_k / tnom_k - 1.0
+
+
+# ---------------------------------------------------------------------------
+# Junction charge storage (plain Python: evaluated at an operating point,
+# not per sample).  SPICE2's depletion-capacitance law with the forward-bias
+# linearisation above FC*VJ (Nagel 1975; ngspice dioload.c/bjtload.c).
+
+def junction_py(v: float, isat: float, vte: float) -> tuple[float, float]:
+    """:func:`junction` in plain Python (current and conductance), for the
+    capacitance functions, which run once per operating point: calling a
+    compiled function from Python would load it at start-up for nothing."""
+    if v >= -3.0 * vte:
+        x = v / vte
+        if x > EXPLIM:
+            e = math.exp(EXPLIM)
+            return isat * (e * (1.0 + x - EXPLIM) - 1.0), isat * e / vte
+        e = math.exp(x)
+        return isat * (e - 1.0), isat * e / vte
+    a = (3.0 / math.e) * vte / v
+    a = a * a * a
+    return -isat * (1.0 + a), isat * 3.0 * a / v
+
+
+def depletion_cap(v: float, cz: float, pb: float, m: float, fc: float) -> float:
+    """Depletion capacitance of a junction at bias v: cz*(1 - v/pb)**-m below
+    fc*pb, continued linearly above it as SPICE does,
+    cz/(1 - fc)**(1 + m)*(1 - fc*(1 + m) + m*v/pb)."""
+    if cz == 0.0:
+        return 0.0
+    if v < fc * pb:
+        return cz * (1.0 - v / pb) ** (-m)
+    f2 = (1.0 - fc) ** (1.0 + m)
+    return cz / f2 * (1.0 - fc * (1.0 + m) + m * v / pb)
+
+
+def junction_temp(cj: float, vj: float, m: float, temp_k: float,
+                  tnom_k: float) -> tuple[float, float]:
+    """Zero-bias capacitance and built-in potential at temp_k from their
+    values at tnom_k: SPICE's default law (ngspice diotemp.c, jfettemp.c,
+    bjttemp.c with TLEVC = 0): the potential follows the silicon band gap
+    1.16 - 7.02e-4*T**2/(T + 1108) eV, the capacitance
+    1 + m*(4e-4*(T - 300.15) - (pb(T) - pbo)/pbo), with the reference
+    potential pbo taken back from TNOM (ngspice-39's BJT does the same:
+    checked against its AC at 0 and 60 degC in tests/test_charge_storage.py)."""
+    def pbfact(t):
+        eg = 1.16 - 7.02e-4 * t * t / (t + 1108.0)
+        arg = -eg / (2.0 * K_BOLTZMANN * t) + 1.1150877 / (K_BOLTZMANN * 2.0 * TNOM)
+        return -2.0 * K_OVER_Q * t * (1.5 * math.log(t / TNOM) + Q_ELEMENTARY * arg)
+    fact1 = tnom_k / TNOM
+    pbo = (vj - pbfact(tnom_k)) / fact1
+    gmaold = (vj - pbo) / pbo
+    c = cj / (1.0 + m * (4e-4 * (tnom_k - TNOM) - gmaold))
+    pb = temp_k / TNOM * pbo + pbfact(temp_k)
+    gmanew = (pb - pbo) / pbo
+    return c * (1.0 + m * (4e-4 * (temp_k - TNOM) - gmanew)), pb

@@ -22,9 +22,20 @@ with the reverse-bias approximation below -3*N*VT.  Temperature (ngspice's
 default TLEV=0 laws): VT = kT/q at the circuit temperature T,
 IS(T) = IS*exp((T/TNOM - 1)*EG/VT + XTI*ln(T/TNOM)), BF and BR times
 (T/TNOM)**XTB, ISE(T) = ISE*exp(that exponent/NE)/(T/TNOM)**XTB (ISC with
-NC).  PNP: all signs flipped.  Charge storage (CJE, CJC, TF ...) is not
-simulated: those parameters are accepted and named in the operating-point
-warnings.
+NC).  PNP: all signs flipped.
+
+Charge storage (``capacitances``, ngspice bjtload.c's charge section, taken
+at an operating point): depletion capacitances CJE/VJE/MJE (B'-E'),
+CJC/VJC/MJC split by XCJC between the internal base (B'-C') and the
+external base (B-C'), CJS/VJS/MJS from C' to the substrate (ground), each
+linearised above FC*VJ; the forward diffusion capacitance TF*gbe with TF
+modulated by XTF, VTF and ITF,
+
+    TF' = TF*(1 + XTF*(Ibe/(Ibe + ITF))**2*exp(Vbc/(1.44*VTF))),
+
+and a transcapacitance dQbe/dVbc (B'-E' driven by Vb'c'); the reverse
+diffusion capacitance TR*gbc.  CJE, VJE, CJC, VJC follow the default
+temperature law (bjttemp.c, TLEVC = 0).
 """
 from __future__ import annotations
 
@@ -33,7 +44,8 @@ import math
 import numpy as np
 from numba import njit
 
-from solderless.engine.devices._common import (GMIN, VT, DeviceLayout, circuit_temp, junction,
+from solderless.engine.devices._common import (GMIN, DeviceLayout, circuit_temp,
+                                    depletion_cap, junction, junction_py, junction_temp,
                                     limit_two_junctions, model_tnom, polarity, read_params,
                                     temp_factors, vcrit)
 from solderless.engine.analysis import regions
@@ -49,21 +61,15 @@ DEFAULTS = {"IS": 1e-16, "BF": 100.0, "NF": 1.0, "VAF": math.inf, "IKF": math.in
             "ISE": 0.0, "NE": 1.5, "BR": 1.0, "NR": 1.0, "VAR": math.inf,
             "IKR": math.inf, "ISC": 0.0, "NC": 2.0, "RB": 0.0, "IRB": math.inf,
             "RBM": math.nan, "RE": 0.0, "RC": 0.0, "XTB": 0.0, "EG": 1.11,
-            "XTI": 3.0, "TNOM": 27.0}
-_CAP_BE = "base-emitter depletion capacitance (high-frequency roll-off, switching speed)"
-_CAP_BC = "base-collector capacitance (Miller roll-off at high frequencies)"
-_CAP_CS = "collector-substrate capacitance (high-frequency roll-off)"
-_TF = "forward transit time (diffusion capacitance: high-frequency gain, turn-off speed)"
+            "XTI": 3.0, "TNOM": 27.0,
+            # charge storage
+            "CJE": 0.0, "VJE": 0.75, "MJE": 0.33, "TF": 0.0, "XTF": 0.0,
+            "VTF": math.inf, "ITF": 0.0, "CJC": 0.0, "VJC": 0.75, "MJC": 0.33,
+            "XCJC": 1.0, "TR": 0.0, "CJS": 0.0, "VJS": 0.75, "MJS": 0.0, "FC": 0.5}
 _TEMPCO = "temperature coefficient (drift away from TNOM)"
 #: standard parameters that are read but not simulated, and what they affect
 IGNORED = {
-    "CJE": _CAP_BE, "VJE": _CAP_BE, "MJE": _CAP_BE,
-    "CJC": _CAP_BC, "VJC": _CAP_BC, "MJC": _CAP_BC, "XCJC": _CAP_BC,
-    "CJS": _CAP_CS, "VJS": _CAP_CS, "MJS": _CAP_CS,
-    "FC": "forward-bias depletion-capacitance linearisation",
-    "TF": _TF, "XTF": _TF, "VTF": _TF, "ITF": _TF,
     "PTF": "excess phase at high frequencies",
-    "TR": "reverse transit time (storage time when leaving saturation)",
     "KF": "flicker noise", "AF": "flicker noise",
     "NKF": "high-injection roll-off exponent (taken as 0.5)",
     "ISS": "substrate junction current", "NS": "substrate junction current",
@@ -91,8 +97,11 @@ STANDARD = set(DEFAULTS) | set(IGNORED)
 # 9 vcrit_r, 10 1/BF, 11 1/BR, 12 1/vtf, 13 1/vtr (reciprocals: the evaluation
 # multiplies), 14 1/IKF, 15 1/IKR, 16 ISE(T), 17 NE*vt, 18 1/(NE*vt), 19 ISC(T),
 # 20 NC*vt, 21 1/(NC*vt), 22 base-resistance port (1) or none (0), 23 RBM,
-# 24 RB - RBM, 25 IRB (0: none)
-NPAR = 26
+# 24 RB - RBM, 25 IRB (0: none); charge storage (read by ``capacitances``,
+# not by the kernel): 26 CJE(T), 27 VJE(T), 28 MJE, 29 CJC(T), 30 VJC(T),
+# 31 MJC, 32 XCJC, 33 CJS, 34 VJS, 35 MJS, 36 FC, 37 TF, 38 XTF,
+# 39 1/(1.44*VTF) (0: none), 40 ITF, 41 TR, 42 separate external base (1/0)
+NPAR = 43
 
 
 def params(el) -> tuple[dict, list]:
@@ -100,7 +109,9 @@ def params(el) -> tuple[dict, list]:
     notes: list = []
     p = read_params(el, DEFAULTS, positive=("IS", "BF", "BR", "NF", "NR", "VAF", "VAR",
                                             "IKF", "IKR", "NE", "NC", "IRB"),
-                    nonneg=("RB", "RC", "RE", "ISE", "ISC", "XTI"),
+                    nonneg=("RB", "RC", "RE", "ISE", "ISC", "XTI", "CJE", "CJC", "CJS",
+                            "TF", "TR", "XTF", "ITF", "MJE", "MJC", "MJS", "XCJC", "FC",
+                            "VJE", "VJC", "VJS", "VTF"),
                     ignored=IGNORED, aliases=ALIASES, notes=notes)
     return p, notes
 
@@ -142,23 +153,113 @@ def layout(el, temp=None) -> DeviceLayout:
     isc = p["ISC"] * math.exp(factlog / p["NC"]) / bfactor
     vtf, vtr = p["NF"] * vt, p["NR"] * vt
     vte, vtc = p["NE"] * vt, p["NC"] * vt
+    # charge storage: the depletion law's temperature dependence (TLEVC = 0)
+    tk, tnk = circuit_temp(temp), model_tnom(p)
+    cje, vje = junction_temp(p["CJE"], p["VJE"], p["MJE"], tk, tnk)
+    cjc, vjc = junction_temp(p["CJC"], p["VJC"], p["MJC"], tk, tnk)
+    fc = min(p["FC"], 0.9999)
+    ovtf = 1.0 / (1.44 * p["VTF"]) if 0.0 < p["VTF"] < math.inf else 0.0
+    xcjc = min(p["XCJC"], 1.0)
     par = np.array([pol, isat, bf, br, vtf, vtr,
                     1.0 / p["VAF"], 1.0 / p["VAR"],
                     vcrit(vtf, isat), vcrit(vtr, isat),
                     1.0 / bf, 1.0 / br, 1.0 / vtf, 1.0 / vtr,
                     1.0 / p["IKF"], 1.0 / p["IKR"], ise, vte, 1.0 / vte, isc, vtc,
                     1.0 / vtc, 1.0 if nl_rb else 0.0, rbm, p["RB"] - rbm,
-                    p["IRB"] if math.isfinite(p["IRB"]) else 0.0])
+                    p["IRB"] if math.isfinite(p["IRB"]) else 0.0,
+                    cje, vje, p["MJE"], cjc, vjc, p["MJC"], p["XCJC"], p["CJS"], p["VJS"],
+                    p["MJS"], fc, p["TF"], p["XTF"], ovtf, p["ITF"], p["TR"],
+                    1.0 if bi != b else 0.0])
     ports = [(bi, ei), (ci, ei)]
     if nl_rb:
         ports.append((b, bi))
+    caps = []
+    for on, ent in ((cje > 0 or p["TF"] > 0, (bi, ei, bi, ei)),
+                    (cjc * xcjc > 0 or p["TR"] > 0 or (cjc > 0 and bi == b), (bi, ci, bi, ci)),
+                    (cjc * (1.0 - xcjc) > 0 and bi != b, (b, ci, b, ci)),
+                    (p["CJS"] > 0, (ci, "0", ci, "0")),
+                    (p["TF"] > 0, (bi, ei, bi, ci))):
+        if on:
+            caps.append(ent)
     return DeviceLayout(CODE, ports, par, internal, stamps,
                         probes={"ib": ({0: 1.0}, {}), "ic": ({1: 1.0}, {}),
                                 "ie": ({0: -1.0, 1: -1.0}, {}),
                                 "vbe": ({}, {0: 1.0}), "vce": ({}, {1: 1.0})},
                         # Vbe moves by the step, Vbc by at most twice it;
                         # pnjlim acts only on junction steps above 2*vt
-                        quiet_step=min(vtf, vtr), ignored=notes)
+                        quiet_step=min(vtf, vtr), ignored=notes, caps=caps)
+
+
+def capacitances(par, v, vc) -> np.ndarray:
+    """Junction capacitances (farads) at port voltages ``v`` (Vb'e', Vc'e'
+    ...) in the order of the layout's ``caps``: B'-E' (depletion plus
+    TF's diffusion), B'-C' (XCJC of CJC plus TR*gbc), B-C' (the rest of
+    CJC, when there is a base resistance), C'-substrate (CJS), and the
+    transcapacitance dQbe/dVb'c'.  ``vc`` holds each entry's own voltage
+    (the B-C' and C'-substrate biases are not port voltages).  ngspice
+    bjtload.c's charge section (capbe, capbc, capbx, capcs, geqcb)."""
+    pol = par[0]
+    vbe = pol * v[0]
+    vbc = vbe - pol * v[1]
+    cje, vje, mje, cjc, vjc, mjc, xcjc = par[26:33]
+    cjs, vjs, mjs, fc, tf, xtf, ovtf, itf, tr, sep = par[33:43]
+    xcjc = min(xcjc, 1.0)
+    isat = par[1]
+    cbe, gbe = junction_py(vbe, isat, par[4])
+    cbc, gbc = junction_py(vbc, isat, par[5])
+    # base charge qb and its derivatives, as the DC law (Gummel-Poon)
+    q1 = 1.0 - vbc * par[6] - vbe * par[7]
+    q1 = 1.0 / max(q1, 1e-3)
+    oik, oikr = par[14], par[15]
+    if oik == 0.0 and oikr == 0.0:
+        qb = q1
+        dqbdve = q1 * qb * par[7]
+        dqbdvc = q1 * qb * par[6]
+    else:
+        arg = max(0.0, 1.0 + 4.0 * (oik * cbe + oikr * cbc))
+        sq = math.sqrt(arg) if arg != 0.0 else 1.0
+        qb = q1 * (1.0 + sq) / 2.0
+        dqbdve = q1 * (qb * par[7] + oik * gbe / sq)
+        dqbdvc = q1 * (qb * par[6] + oikr * gbc / sq)
+    geqcb = 0.0
+    if tf != 0.0 and vbe > 0.0:
+        argtf = arg2 = arg3 = 0.0
+        if xtf != 0.0:
+            argtf = xtf
+            if ovtf != 0.0:
+                argtf *= math.exp(vbc * ovtf)
+            arg2 = argtf
+            if itf != 0.0:
+                t = cbe / (cbe + itf)
+                argtf *= t * t
+                arg2 = argtf * (3.0 - t - t)
+            arg3 = cbe * argtf * ovtf
+        cbe = cbe * (1.0 + argtf) / qb
+        gbe = (gbe * (1.0 + arg2) - cbe * dqbdve) / qb
+        geqcb = tf * (arg3 - cbe * dqbdvc) / qb
+    capbe = tf * gbe + depletion_cap(vbe, cje, vje, mje, fc)
+    capbc = tr * gbc + depletion_cap(vbc, cjc * xcjc, vjc, mjc, fc)
+    out = []
+    k = 0
+    if cje > 0 or tf > 0:
+        out.append(capbe)
+        k += 1
+    capbx_merged = cjc > 0 and sep == 0.0
+    if cjc * xcjc > 0 or tr > 0 or capbx_merged:
+        if capbx_merged:  # no base resistance: B and B' are one node
+            capbc += depletion_cap(vbc, cjc * (1.0 - xcjc), vjc, mjc, fc)
+        out.append(capbc)
+        k += 1
+    if cjc * (1.0 - xcjc) > 0 and sep != 0.0:
+        out.append(depletion_cap(pol * vc[k], cjc * (1.0 - xcjc), vjc, mjc, fc))
+        k += 1
+    if cjs > 0:
+        # ngspice's Vcs is substrate minus collector: reverse-biased when < 0
+        out.append(depletion_cap(-pol * vc[k], cjs, vjs, mjs, 0.0))
+        k += 1
+    if tf > 0:
+        out.append(geqcb)
+    return np.array(out, dtype=np.float64)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
@@ -290,20 +391,10 @@ def limit(par, pa, vn, vo, po):
 
 
 def region(par, v, i) -> str:
-    """cut-off / active / saturated / reverse from junction biases."""
-    pol = par[0]
-    vbe = pol * v[0]
-    vbc = vbe - pol * v[1]
-    # thresholds scale with the emission coefficients (par 4, 5: N*vt)
-    on_e = vbe > 0.5 * (par[4] / VT) or (i[1] * pol > 1e-9 and vbe > 0.4)
-    on_c = vbc > 0.4 * (par[5] / VT)
-    if on_e and on_c:
-        return "saturated"
-    if on_e:
-        return "active"
-    if on_c:
-        return "reverse"
-    return "cut-off"
+    """The region by the one BJT classifier (solderless.engine.analysis.regions)
+    from the collector current (port 1) and the internal Vce; ``par[0]`` is
+    the polarity, +1 for NPN, -1 for PNP."""
+    return regions.bjt_region(float(par[0]), float(i[1]), float(v[1]))
 
 
 # --------------------------------------------------------------------------
@@ -324,7 +415,8 @@ DEVICE = DeviceKind(
     letter="Q", params=DEFAULTS, aliases=ALIASES, ignored=IGNORED,
     units={"IS": "A", "VAF": "V", "IKF": "A", "ISE": "A", "VAR": "V", "IKR": "A",
            "ISC": "A", "RB": "Ω", "IRB": "A", "RBM": "Ω", "RE": "Ω", "RC": "Ω",
-           "EG": "eV", "TNOM": "°C"},
+           "EG": "eV", "TNOM": "°C", "CJE": "F", "VJE": "V", "TF": "s", "VTF": "V",
+           "ITF": "A", "CJC": "F", "VJC": "V", "TR": "s", "CJS": "F", "VJS": "V"},
     # ranges of real parts (common practice, solderless/engine/sanity.py)
     ranges={"IS": (1e-21, 1e-2), "BF": (1.0, 1e4), "BR": (1e-3, 1e4), "NF": (0.5, 4.0),
             "NR": (0.5, 4.0), "VAF": (1.0, None), "VAR": (0.1, None),

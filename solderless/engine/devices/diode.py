@@ -6,9 +6,10 @@ IS*(exp(v/(N*VT)) - 1), reverse-bias approximation below -3*N*VT, optional
 breakdown at BV (current IBV there, emission coefficient NBV, default N),
 GMIN across the junction.  Temperature (ngspice diotemp.c, default law):
 VT = kT/q at the circuit temperature, IS(T) = IS*exp((T/TNOM - 1)*EG/(N*VT)
-+ XTI/N*ln(T/TNOM)).  Junction capacitance and transit time are not
-simulated: CJO, VJ, M, TT ... are accepted and named in the operating-point
-warnings.
++ XTI/N*ln(T/TNOM)).  Charge storage (``capacitances``, at an operating
+point, as dioload.c): depletion capacitance CJO*(1 - v/VJ)**-M below
+FC*VJ, continued linearly above it, plus the diffusion capacitance TT*gd;
+CJO and VJ follow the default temperature law (diotemp.c, TLEVC = 0).
 """
 from __future__ import annotations
 
@@ -17,8 +18,10 @@ import math
 import numpy as np
 from numba import njit
 
-from solderless.engine.devices._common import (DeviceLayout, GMIN, circuit_temp, junction, lexp,
-                                    model_tnom, pnjlim, read_params, temp_factors, vcrit)
+from solderless.engine.devices._common import (EXPLIM, GMIN, DeviceLayout, circuit_temp,
+                                    depletion_cap, junction, junction_py, junction_temp,
+                                    lexp, model_tnom, pnjlim, read_params, temp_factors,
+                                    vcrit)
 from solderless.engine.analysis import regions
 from solderless.engine.devices.registry import DeviceKind
 
@@ -29,17 +32,15 @@ NPORTS = 1
 TEMPERATURE = True
 #: simulated parameters and their defaults (ngspice manual, diode model table)
 DEFAULTS = {"IS": 1e-14, "N": 1.0, "RS": 0.0, "BV": math.inf, "IBV": 1e-3,
-            "NBV": math.nan, "EG": 1.11, "XTI": 3.0, "TNOM": 27.0}
-_CAP = "junction capacitance (high-frequency roll-off, clipping edges at high frequencies)"
-_TT = "transit time (diffusion capacitance, reverse recovery)"
+            "NBV": math.nan, "EG": 1.11, "XTI": 3.0, "TNOM": 27.0,
+            # charge storage
+            "CJO": 0.0, "VJ": 1.0, "M": 0.5, "FC": 0.5, "TT": 0.0}
 _TEMPCO = "temperature coefficient (drift away from TNOM)"
 #: standard parameters that are read but not simulated, and what they affect
 IGNORED = {
-    "CJO": _CAP, "VJ": _CAP, "M": _CAP, "FC": _CAP,
     "CJP": "sidewall capacitance", "PHP": "sidewall capacitance",
     "MJSW": "sidewall capacitance", "FCS": "sidewall capacitance",
     "JSW": "sidewall saturation current", "NS": "sidewall saturation current",
-    "TT": _TT,
     "IKF": "forward high-injection knee (current at large forward bias)",
     "IKR": "reverse high-injection knee",
     "ISR": "recombination current at low forward bias",
@@ -63,7 +64,8 @@ ALIASES = {"CJ0": "CJO", "CJ": "CJO", "JS": "IS", "CJSW": "CJP"}
 #: every standard parameter of the model card (simulated or not)
 STANDARD = set(DEFAULTS) | set(IGNORED)
 # par: 0 IS(T), 1 vte, 2 vcrit, 3 xbv (inf: no breakdown), 4 1/vte, 5 NBV*vt,
-# 6 1/(NBV*vt)
+# 6 1/(NBV*vt); charge storage (``capacitances``, not the kernel): 7 CJO(T),
+# 8 VJ(T), 9 M, 10 FC, 11 TT
 
 
 def breakdown_knee(bv: float, ibv: float, isat: float, vt: float, nbv: float) -> float:
@@ -86,7 +88,8 @@ def layout(el, temp=None) -> DeviceLayout:
     """Validate the element's model and describe its ports and stamps;
     ``temp`` is the circuit temperature in degrees Celsius (None: 27)."""
     notes: list = []
-    p = read_params(el, DEFAULTS, positive=("IS", "N", "IBV"), nonneg=("RS", "XTI"),
+    p = read_params(el, DEFAULTS, positive=("IS", "N", "IBV", "VJ"),
+                    nonneg=("RS", "XTI", "CJO", "M", "FC", "TT"),
                     ignored=IGNORED, aliases=ALIASES, notes=notes)
     a, k = el.nodes
     # temperature (ngspice diotemp.c, TLEV=0)
@@ -103,11 +106,32 @@ def layout(el, temp=None) -> DeviceLayout:
         ai = f"{el.name}#a"
         internal.append(ai)
         stamps.append(("R", a, ai, p["RS"]))
+    # charge storage (diotemp.c): M limited to 0.9, FC*VJ to 1
+    mj = min(p["M"], 0.9)
+    fc = min(p["FC"], 0.95)
+    cjo, vj = junction_temp(p["CJO"], p["VJ"], mj, circuit_temp(temp), model_tnom(p))
+    if fc * vj > 1.0:
+        vj = 1.0 / fc
     par = np.array([isat, vte, vcrit(vte, isat), xbv, 1.0 / vte, nbv * vt,
-                    1.0 / (nbv * vt)])
+                    1.0 / (nbv * vt), cjo, vj, mj, fc, p["TT"]])
+    caps = [(ai, k, ai, k)] if (p["CJO"] > 0 or p["TT"] > 0) else []
     return DeviceLayout(CODE, [(ai, k)], par, internal, stamps,
                         probes={"id": ({0: 1.0}, {}), "vd": ({}, {0: 1.0})},
-                        quiet_step=2.0 * vte, ignored=notes)
+                        quiet_step=2.0 * vte, ignored=notes, caps=caps)
+
+
+def capacitances(par, v, vc) -> np.ndarray:
+    """Junction capacitance (farads) at port voltage v[0]: depletion (with
+    the FC linearisation) plus TT times the junction's conductance
+    (dioload.c's capd)."""
+    vd = float(v[0])
+    if vd < -par[3]:   # breakdown: the law of ``evaluate``
+        x = -(par[3] + vd) * par[6]
+        gd = par[0] * math.exp(min(x, EXPLIM)) * par[6]
+    else:
+        gd = junction_py(vd, par[0], par[1])[1]
+    return np.array([par[11] * (gd + GMIN) + depletion_cap(vd, par[7], par[8], par[9],
+                                                           par[10])])
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
@@ -161,7 +185,8 @@ DEVICE = DeviceKind(
     kind=KIND, terminals=("a", "k"), title="diode",
     model_types={"D": 1.0}, part_types={"diode": "D"}, part_nodes=("anode", "cathode"),
     letter="D", params=DEFAULTS, aliases=ALIASES, ignored=IGNORED,
-    units={"IS": "A", "RS": "Ω", "BV": "V", "IBV": "A", "EG": "eV", "TNOM": "°C"},
+    units={"IS": "A", "RS": "Ω", "BV": "V", "IBV": "A", "EG": "eV", "TNOM": "°C",
+           "CJO": "F", "VJ": "V", "TT": "s"},
     # ranges of real parts (common practice, solderless/engine/sanity.py)
     ranges={"IS": (1e-21, 1e-2), "N": (0.5, 4.0), "RS": (0.0, 1e6), "BV": (0.1, None)},
     also_read=frozenset({"BVJ", "DSKIP", "EGAP", "GAP1", "GAP2", "IK", "LEVEL", "PDMAX",

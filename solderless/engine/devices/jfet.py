@@ -13,6 +13,10 @@ current.  Channel (normal mode, Vds >= 0, Vgst = Vgs - VTO):
     saturated Vgst <= Vds:       Id = BETA*Vgst**2*(1 + LAMBDA*Vds)
 inverse mode (Vds < 0) by symmetry with Vgd.  Gate-source and gate-drain
 junctions follow the diode law with GMIN.  PJF: all signs flipped.
+Charge storage (``capacitances``, at an operating point, as jfetload.c):
+gate-source CGS and gate-drain CGD depletion capacitances with grading 1/2,
+CGS*(1 - Vgs/PB)**-0.5, linearised above FC*PB (FC limited to 0.95);
+CGS, CGD and PB follow the default temperature law (jfettemp.c).
 Reference: H. Shichman, D. A. Hodges, IEEE JSSC 3(3), 1968.
 """
 from __future__ import annotations
@@ -22,7 +26,8 @@ import math
 import numpy as np
 from numba import njit
 
-from solderless.engine.devices._common import (GMIN, DeviceLayout, circuit_temp, junction,
+from solderless.engine.devices._common import (GMIN, DeviceLayout, circuit_temp,
+                                    depletion_cap, junction, junction_temp,
                                     limit_two_junctions, model_tnom, polarity, read_params,
                                     temp_factors, vcrit)
 from solderless.engine.errors import DesignError
@@ -36,12 +41,12 @@ NPORTS = 2
 TEMPERATURE = True
 #: simulated parameters and their defaults (ngspice manual, JFET level 1)
 DEFAULTS = {"VTO": -2.0, "BETA": 1e-4, "LAMBDA": 0.0, "IS": 1e-14, "N": 1.0,
-            "RD": 0.0, "RS": 0.0, "B": 1.0, "PB": 1.0, "TNOM": 27.0}
-_CAP = "gate junction capacitance (high-frequency roll-off, Miller effect)"
+            "RD": 0.0, "RS": 0.0, "B": 1.0, "PB": 1.0, "TNOM": 27.0,
+            # charge storage
+            "CGS": 0.0, "CGD": 0.0, "FC": 0.5}
 _TEMPCO = "temperature coefficient (drift away from TNOM)"
 #: standard parameters that are read but not simulated, and what they affect
 IGNORED = {
-    "CGS": _CAP, "CGD": _CAP, "FC": _CAP,
     "KF": "flicker noise", "AF": "flicker noise", "NLEV": "noise model",
     "GDSNOI": "channel noise",
     "TCV": _TEMPCO, "VTOTC": _TEMPCO, "BEX": _TEMPCO, "BETATCE": _TEMPCO,
@@ -57,7 +62,8 @@ ALIASES = {"VT0": "VTO"}
 #: every standard parameter of the model card (simulated or not)
 STANDARD = set(DEFAULTS) | set(IGNORED)
 # par: 0 pol, 1 VTO, 2 BETA, 3 LAMBDA, 4 IS(T), 5 vte, 6 vcrit, 7 1/vte, 8 B,
-# 9 (1 - B)/(PB - VTO)
+# 9 (1 - B)/(PB - VTO); charge storage (``capacitances``, not the kernel):
+# 10 CGS(T), 11 CGD(T), 12 PB(T), 13 FC
 
 
 def layout(el, temp=None) -> DeviceLayout:
@@ -65,15 +71,13 @@ def layout(el, temp=None) -> DeviceLayout:
     ``temp`` is the circuit temperature in degrees Celsius (None: 27)."""
     notes: list = []
     p = read_params(el, DEFAULTS, positive=("BETA", "IS", "N"),
-                    nonneg=("LAMBDA", "RD", "RS", "B"),
+                    nonneg=("LAMBDA", "RD", "RS", "B", "CGS", "CGD", "FC"),
                     ignored=IGNORED, aliases=ALIASES, notes=notes)
     if p["PB"] == p["VTO"]:
         w = el.where
         raise DesignError("model parameter PB must differ from VTO (B's doping tail "
                           "divides by PB - VTO)", file=getattr(w, "file", None),
                           line=getattr(w, "line", None), part=el.name)
-    if p["B"] == 1.0 and any(str(k).upper() == "PB" for k in (el.params or {})):
-        notes.append(("PB", _CAP))  # with B = 1 only the capacitances use it
     pol = polarity(el, ("NJF", "PJF"))
     d, g, s = el.nodes
     stamps, internal = [], []
@@ -90,13 +94,37 @@ def layout(el, temp=None) -> DeviceLayout:
     isat = p["IS"] * math.exp(ratio1 * 1.11 / vt)
     vte = p["N"] * vt
     bfac = (1.0 - p["B"]) / (p["PB"] - p["VTO"])
+    cgs, pb = junction_temp(p["CGS"], p["PB"], 0.5, circuit_temp(temp), model_tnom(p))
+    cgd, _ = junction_temp(p["CGD"], p["PB"], 0.5, circuit_temp(temp), model_tnom(p))
+    if not pb > 0:
+        w = el.where
+        raise DesignError(f"model parameter PB={p['PB']:g} must be > 0 (gate junction "
+                          "potential)", file=getattr(w, "file", None),
+                          line=getattr(w, "line", None), part=el.name)
     par = np.array([pol, p["VTO"], p["BETA"], p["LAMBDA"], isat, vte, vcrit(vte, isat),
-                    1.0 / vte, p["B"], bfac])
+                    1.0 / vte, p["B"], bfac, cgs, cgd, pb, min(p["FC"], 0.95)])
+    caps = [ent for on, ent in ((p["CGS"] > 0, (g, s, g, s)), (p["CGD"] > 0, (g, d, g, d)))
+            if on]
     return DeviceLayout(CODE, [(g, s), (d, s)], par, internal, stamps,
                         probes={"ig": ({0: 1.0}, {}), "id": ({1: 1.0}, {}),
                                 "vgs": ({}, {0: 1.0}), "vds": ({}, {1: 1.0})},
                         quiet_step=vte,  # as the BJT: Vgd moves by <= 2 steps
-                        ignored=notes)
+                        ignored=notes, caps=caps)
+
+
+def capacitances(par, v, vc) -> np.ndarray:
+    """Gate-source and gate-drain capacitances (farads) at port voltages
+    (Vgs', Vd's'), for the entries the layout made (CGS, CGD given):
+    jfetload.c's capgs, capgd (grading 1/2, FC linearisation)."""
+    pol = par[0]
+    vgs = pol * v[0]
+    vgd = vgs - pol * v[1]
+    out = []
+    if par[10] > 0:
+        out.append(depletion_cap(vgs, par[10], par[12], 0.5, par[13]))
+    if par[11] > 0:
+        out.append(depletion_cap(vgd, par[11], par[12], 0.5, par[13]))
+    return np.array(out, dtype=np.float64)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
@@ -185,7 +213,7 @@ DEVICE = DeviceKind(
     model_types={"NJF": 1.0, "PJF": -1.0}, part_types={"njfet": "NJF", "pjfet": "PJF"},
     letter="J", params=DEFAULTS, aliases=ALIASES, ignored=IGNORED,
     units={"VTO": "V", "BETA": "A/V²", "LAMBDA": "1/V", "IS": "A", "RD": "Ω", "RS": "Ω",
-           "B": "1/V", "PB": "V", "TNOM": "°C"},
+           "B": "1/V", "PB": "V", "TNOM": "°C", "CGS": "F", "CGD": "F"},
     # ranges of real parts (common practice, solderless/engine/sanity.py)
     ranges={"VTO": (-50.0, 50.0), "BETA": (1e-9, 10.0), "IS": (1e-21, 1e-2),
             "N": (0.5, 4.0), "LAMBDA": (0.0, 10.0), "RS": (0.0, 1e6), "RD": (0.0, 1e6)},

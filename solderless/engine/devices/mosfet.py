@@ -18,6 +18,13 @@ SPICE3 does).  Inverse mode (Vds < 0) by symmetry with Vgd and Vbd.  The
 bulk-drain and bulk-source junctions (the body diode of a discrete part)
 follow the diode law with IS and GMIN.  PMOS: all signs flipped (VTO as
 written, negative for an enhancement PMOS).
+Charge storage (``capacitances``, at an operating point, as ngspice's
+level 1 with no TOX): the overlap capacitances CGSO*W, CGDO*W (gate to
+S', D') and CGBO*(L - 2*LD) (gate to bulk), and the bulk-drain and
+bulk-source junctions, CBD and CBS or else CJ*AD, CJ*AS with the sidewalls
+CJSW*PD, CJSW*PS (grading MJ, MJSW, potential PB, linearised above FC*PB);
+each times the multiplier M.  The intrinsic (Meyer) gate capacitance
+needs TOX, which is not simulated (named in the warnings).
 Reference: H. Shichman, D. A. Hodges, IEEE JSSC 3(3), 1968; the level-1
 equations of SPICE2 (L. W. Nagel, ERL-M520, 1975).
 """
@@ -28,8 +35,8 @@ import math
 import numpy as np
 from numba import njit
 
-from solderless.engine.devices._common import (GMIN, VT, DeviceLayout, junction, pnjlim, polarity,
-                                    read_params, vcrit)
+from solderless.engine.devices._common import (GMIN, VT, DeviceLayout, depletion_cap, junction,
+                                    pnjlim, polarity, read_params, vcrit)
 from solderless.engine.errors import DesignError
 from solderless.engine.analysis import regions
 from solderless.engine.devices.registry import DeviceKind
@@ -40,19 +47,24 @@ NPORTS = 2  # 3 when the bulk is not the source
 #: W and L default to 100 um as ngspice's (DEFW, DEFL).
 DEFAULTS = {"VTO": 0.0, "KP": 2e-5, "LAMBDA": 0.0, "GAMMA": 0.0, "PHI": 0.6,
             "IS": 1e-14, "LD": 0.0, "RD": 0.0, "RS": 0.0, "W": 100e-6, "L": 100e-6,
-            "M": 1.0}
+            "M": 1.0,
+            # charge storage (CBD, CBS: NaN = not given, then CJ*AD, CJ*AS)
+            "CGSO": 0.0, "CGDO": 0.0, "CGBO": 0.0, "CBD": math.nan, "CBS": math.nan,
+            "PB": 0.8, "CJ": 0.0, "MJ": 0.5, "CJSW": 0.0, "MJSW": 0.5, "FC": 0.5,
+            # instance geometry of the drain and source junctions
+            "AD": 0.0, "AS": 0.0, "PD": 0.0, "PS": 0.0}
+#: instance parameters (the element card's, not the model's)
+INSTANCE = ("W", "L", "M", "AD", "AS", "PD", "PS")
 #: the layout takes the circuit temperature (degrees Celsius)
 TEMPERATURE = True
-_CAP = "gate and junction capacitances (high-frequency roll-off, Miller effect)"
+_CAP = "intrinsic gate capacitance (needs the oxide thickness; high-frequency roll-off)"
 _PROC = ("process parameter (ngspice derives KP, VTO, GAMMA or PHI from it when "
          "they are not given: give them directly)")
 #: standard level-1 parameters that are read but not simulated, and what they affect
 IGNORED = {
-    "CBD": _CAP, "CBS": _CAP, "PB": _CAP, "CGSO": _CAP, "CGDO": _CAP, "CGBO": _CAP,
-    "CJ": _CAP, "MJ": _CAP, "CJSW": _CAP, "MJSW": _CAP, "FC": _CAP,
     "RSH": "drain and source sheet resistance (give RD and RS)",
     "JS": "bulk junction current density (give IS)",
-    "TOX": _PROC, "NSUB": _PROC, "NSS": _PROC, "TPG": _PROC, "UO": _PROC,
+    "TOX": _PROC + "; " + _CAP, "NSUB": _PROC, "NSS": _PROC, "TPG": _PROC, "UO": _PROC,
     "NFS": "subthreshold conduction (level 2/3)", "XJ": "level 2/3 geometry",
     "UCRIT": "mobility degradation (level 2)", "UEXP": "mobility degradation (level 2)",
     "UTRA": "mobility degradation (level 2)", "VMAX": "velocity saturation (level 2/3)",
@@ -73,7 +85,11 @@ ALIASES = {"VT0": "VTO", "U0": "UO"}
 #: every standard parameter of the model card (simulated or not)
 STANDARD = set(DEFAULTS) | set(IGNORED)
 # par: 0 pol, 1 pol*VTO, 2 beta, 3 LAMBDA, 4 GAMMA, 5 PHI, 6 sqrt(PHI), 7 IS,
-# 8 VT, 9 vcrit, 10 1/VT, 11 bulk port (1) or bulk = source (0)
+# 8 VT, 9 vcrit, 10 1/VT, 11 bulk port (1) or bulk = source (0); charge
+# storage (``capacitances``, not the kernel): 12 CGSO*W*M, 13 CGDO*W*M,
+# 14 CGBO*Leff*M, 15 bulk-drain bottom, 16 bulk-source bottom, 17 PB, 18 MJ,
+# 19 bulk-drain sidewall, 20 bulk-source sidewall, 21 MJSW, 22 FC, 23 gate-bulk
+# entry (1/0), 24 bulk-source entry (1/0)
 
 
 def layout(el, temp=None) -> DeviceLayout:
@@ -82,7 +98,8 @@ def layout(el, temp=None) -> DeviceLayout:
     temperature ``temp`` other than 27 degC the layout notes that."""
     notes: list = []
     p = read_params(el, DEFAULTS, positive=("KP", "PHI", "IS", "W", "L", "M"),
-                    nonneg=("LAMBDA", "GAMMA", "LD", "RD", "RS"),
+                    nonneg=("LAMBDA", "GAMMA", "LD", "RD", "RS", "CGSO", "CGDO", "CGBO",
+                            "CJ", "MJ", "CJSW", "MJSW", "FC", "AD", "AS", "PD", "PS"),
                     ignored=IGNORED, aliases=ALIASES, notes=notes)
     if temp is not None and float(temp) != 27.0:
         notes.append(("temperature", "circuit temperature (the MOSFET's parameters are "
@@ -110,12 +127,53 @@ def layout(el, temp=None) -> DeviceLayout:
         ports.append((b, s))
     beta = p["KP"] * p["W"] / leff * p["M"]
     isat = p["IS"] * p["M"]
+    m = p["M"]
+    for k in ("CBD", "CBS", "PB"):
+        if not (math.isnan(p[k]) or p[k] >= (0 if k != "PB" else 1e-300)):
+            w = el.where
+            raise DesignError(f"model parameter {k}={p[k]:g} must be "
+                              f"{'>= 0' if k != 'PB' else '> 0'}",
+                              file=getattr(w, "file", None), line=getattr(w, "line", None),
+                              part=el.name)
+    czbd = (p["CBD"] if not math.isnan(p["CBD"]) else p["CJ"] * p["AD"]) * m
+    czbs = (p["CBS"] if not math.isnan(p["CBS"]) else p["CJ"] * p["AS"]) * m
     par = np.array([pol, pol * p["VTO"], beta, p["LAMBDA"], p["GAMMA"], p["PHI"],
                     math.sqrt(p["PHI"]), isat, VT, vcrit(VT, isat), 1.0 / VT,
-                    0.0 if bulk_is_source else 1.0])
+                    0.0 if bulk_is_source else 1.0,
+                    p["CGSO"] * p["W"] * m, p["CGDO"] * p["W"] * m, p["CGBO"] * leff * m,
+                    czbd, czbs, p["PB"], p["MJ"], p["CJSW"] * p["PD"] * m,
+                    p["CJSW"] * p["PS"] * m, p["MJSW"], min(p["FC"], 0.95), 0.0, 0.0])
+    par[23] = 1.0 if par[14] > 0 and g != b else 0.0   # gate-bulk entry
+    par[24] = 1.0 if par[16] + par[20] > 0 and b != s else 0.0  # bulk-source entry
+    caps = [ent for on, ent in ((par[12] > 0, (g, s, g, s)), (par[13] > 0, (g, d, g, d)),
+                                (par[23] > 0, (g, b, g, b)),
+                                (par[15] + par[19] > 0, (b, d, b, d)),
+                                (par[24] > 0, (b, s, b, s)))
+            if on]
     probes = {"id": ({1: 1.0}, {}), "vgs": ({}, {0: 1.0}), "vds": ({}, {1: 1.0})}
     return DeviceLayout(CODE, ports, par, internal, stamps, probes=probes,
-                        quiet_step=VT, ignored=notes)
+                        quiet_step=VT, ignored=notes, caps=caps)
+
+
+def capacitances(par, v, vc) -> np.ndarray:
+    """Overlap and bulk-junction capacitances (farads) for the layout's
+    entries: gate-source, gate-drain, gate-bulk overlaps (constant), and
+    the bulk-drain and bulk-source junctions at their biases ``vc``
+    (mos1load.c's capbd, capbs: bottom and sidewall parts, FC
+    linearisation)."""
+    pol = par[0]
+    pb, mj, mjsw, fc = par[17], par[18], par[21], par[22]
+    out = [par[12]] if par[12] > 0 else []
+    if par[13] > 0:
+        out.append(par[13])
+    if par[23] > 0:
+        out.append(par[14])
+    for bottom, side, on in ((15, 19, par[15] + par[19] > 0), (16, 20, par[24] > 0)):
+        if on:
+            vj = pol * vc[len(out)]
+            out.append(depletion_cap(vj, par[bottom], pb, mj, fc)
+                       + depletion_cap(vj, par[side], pb, mjsw, fc))
+    return np.array(out, dtype=np.float64)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
@@ -241,13 +299,15 @@ DEVICE = DeviceKind(
     part_nodes=("d", "g", "s"), part_optional={"bulk": "s"},
     letter="M", params=DEFAULTS, aliases=ALIASES, ignored=IGNORED,
     units={"VTO": "V", "KP": "A/V²", "LAMBDA": "1/V", "GAMMA": "√V", "PHI": "V",
-           "IS": "A", "LD": "m", "RD": "Ω", "RS": "Ω", "W": "m", "L": "m"},
+           "IS": "A", "LD": "m", "RD": "Ω", "RS": "Ω", "W": "m", "L": "m",
+           "CGSO": "F/m", "CGDO": "F/m", "CGBO": "F/m", "CBD": "F", "CBS": "F", "PB": "V",
+           "CJ": "F/m²", "CJSW": "F/m", "AD": "m²", "AS": "m²", "PD": "m", "PS": "m"},
     # ranges of real parts (common practice, solderless/engine/sanity.py)
     ranges={"VTO": (-50.0, 50.0), "KP": (1e-9, 10.0), "LAMBDA": (0.0, 10.0),
             "W": (1e-8, 1.0), "L": (1e-8, 1.0)},
     also_read=frozenset({"IDMAX", "KSUBTHRES", "LEVEL", "MTRIODE", "PDMAX", "TYPE",
                          "VDSMAX"}),
-    instance=("W", "L", "M"), card_prefix="LEVEL=1", takes_off=False,
+    instance=INSTANCE, card_prefix="LEVEL=1", takes_off=False,
     probes={"id": "A", "vgs": "V", "vds": "V"},
     report=report, report_units={"gm": "S"}, health=regions.fet_health("MOSFET"),
     transistor="fet", steady_region=True, headroom=regions.fet_headroom,

@@ -71,6 +71,7 @@ from typing import Any, Callable
 
 from solderless.engine.circuit import GROUND, Circuit, Element, Where, canonical_net
 from solderless.engine.derived import LiveMapping
+from solderless.engine.devices._common import NOISE_ONLY
 from solderless.engine.errors import DesignError, ValueFormatError
 from solderless.engine import limits
 from solderless.engine.values import parse_value
@@ -313,6 +314,10 @@ class Netlist:
 # --------------------------------------------------------------------------
 # Reading lines
 
+#: Model parameters only the noise analysis and live noise read (flicker
+#: noise; TOX for a MOSFET's): carried on the element, and named in a warning as not simulated
+#: by a plain render.
+_NOISE_ONLY = {"KF", "AF", "TOX"}
 _IGNORED_DOT = {
     ".tran", ".op", ".ac", ".dc", ".noise", ".disto", ".pz", ".sens", ".tf",
     ".four", ".options", ".option", ".opt", ".save", ".probe", ".print",
@@ -1420,6 +1425,17 @@ class _Reader:
                 if key == "LEVEL" and v != 1:
                     self.warn(f"{where}model {model.name}: LEVEL={v:g} is read "
                               "as the basic level-1 model")
+            elif key in _NOISE_ONLY and key in ign:
+                # kept on the element for the noise analysis and live noise
+                # (solderless/engine/solver/noise.py); a plain render ignores it
+                out[key] = v
+                if key in NOISE_ONLY:
+                    self.warn(f"{where}model {model.name}: {k} ({ign[key]}) acts only "
+                              "with noise on: solderless hiss, or render/play --hiss")
+                else:
+                    self.warn(f"{where}model {model.name}: {k} is not simulated and is "
+                              f"ignored; it affects the {ign[key]}; only noise (solderless "
+                              "hiss, render/play --hiss) reads it, for flicker noise")
             elif key in ign:
                 self.warn(f"{where}model {model.name}: {k} is not simulated and is "
                           f"ignored; it affects the {ign[key]}")

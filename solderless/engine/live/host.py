@@ -41,7 +41,7 @@ import threading
 import time
 from concurrent.futures import Future
 from pathlib import Path
-from typing import Any, Callable
+from typing import Callable
 
 import numpy as np
 
@@ -170,76 +170,6 @@ def _measure(sim, fs, block, oversample, probes):
     gain_db = 10 * math.log10(acc_out / acc_in) if acc_out > 0 and acc_in > 0 and \
         math.isfinite(acc_out) else None
     return gain_db, (float(np.mean(ctl)) if ctl else None)
-
-
-def _part_undo(design, part: str):
-    """A function that puts ``part`` of ``design`` back as it is now (its
-    value, rotation and taper, and what the design file records for them),
-    or None if the design cannot say. Cheap: no copy of the design."""
-    try:
-        obj = design.part(part)
-    except Exception:
-        return None
-    fields = {k: getattr(obj, k) for k in ("value", "rotation", "taper")}
-    keys = ("value", "rotation", "taper")
-    saved = []
-    for key in keys:
-        try:        # look, without creating a table the edit may not need
-            loc = design._part_doc(part, key, create=False)
-        except Exception:
-            loc = None
-        if loc is not None:
-            table, k = loc
-            saved.append((table, k, table.get(k, _MISSING)))
-    dirty = getattr(design, "dirty", False)
-
-    def undo():
-        for k, val in fields.items():
-            setattr(obj, k, val)
-        for table, k, val in saved:
-            if val is _MISSING:
-                if k in table:
-                    del table[k]
-            else:
-                table[k] = val
-        for key in keys:            # an override table the failed edit created
-            try:
-                loc = design._part_doc(part, key, create=False)
-            except Exception:
-                loc = None
-            if loc is not None and not any(t is loc[0] for t, _, _ in saved):
-                table, k = loc
-                if k in table and k != key:
-                    del table[k]
-        design.dirty = dirty
-    return undo
-
-
-_MISSING = object()
-
-
-def _part_model_undo(design, part: str):
-    """A function that puts back ``part``'s model (and its record)."""
-    obj = design.part(part)
-    model = obj.model
-    nl = dict(getattr(design, "_netlist_models", {}) or {})
-    loc = design._part_doc(part, "model") if getattr(design, "doc", None) is not None else None
-    saved = None if loc is None else (loc[0], loc[1], loc[0].get(loc[1], _MISSING))
-    dirty = design.dirty
-
-    def undo():
-        obj.model = model
-        if hasattr(design, "_netlist_models"):
-            design._netlist_models = nl
-        if saved is not None:
-            table, k, val = saved
-            if val is _MISSING:
-                if k in table:
-                    del table[k]
-            else:
-                table[k] = val
-        design.dirty = dirty
-    return undo
 
 
 def scope_tail(ring: FrameRing, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -961,40 +891,66 @@ class LiveHost:
         return i, self.voices[i]
 
     # ------------------------------------------------------------ edits (any thread)
-    def _post_part_edit(self, voice, edit, part: str | None = None) -> Future:
-        """Post an edit: ``edit(voice)`` (on the edit worker) changes the
-        voice's design and returns (element changes, result); the changes
-        land at a block boundary with the state carried over. If the
-        simulator refuses the new values (a singular network), the part is
-        put back as it was, the previous values keep playing, and the error
-        names the part."""
+    def edit(self, edit, voice=None) -> Future:
+        """Apply an edit (:mod:`solderless.engine.design.edits`, the same
+        data whichever front end sends it) to the edited (or given) voice's
+        design, on the edit worker. New element values land at a block
+        boundary with the circuit state carried over; a structural edit
+        builds a new simulator and crossfades to it. A pot turn ramps (see
+        :meth:`set_rotation`) and a value edit is coalesced (see
+        :meth:`set_value`). If the running circuit refuses the edit, the
+        inverse edit puts the design back, the previous circuit keeps
+        playing and the error says why. Result: the edit's result."""
+        from solderless.engine.design.edits import RECORD, SetRotation, SetValue
+        if isinstance(edit, SetRotation):
+            return self.set_rotation(edit.part, edit.rotation, voice)
+        if isinstance(edit, SetValue) and edit.entry == RECORD and edit.part != "temperature":
+            return self.set_value(edit.part, edit.value, voice)
         t_post = time.perf_counter()
 
         def job():
             i, v = self._voice(voice)
-            return self._edit_part(i, v, edit, part, t_post)
+            return self._run_edit(i, v, edit, t_post).result
         return self._post(job)
 
-    def _edit_part(self, i: int, v: Voice, edit, part: str | None, t_post) -> Any:
-        """Worker: run one part edit with the revert described above: if the
-        running circuit does not take it, the design (and so a later save)
-        must not keep an edit that was never heard."""
-        undo = _part_undo(v.design, part) if part else None
-        changes, result = edit(v)
-        try:
-            self._apply(v, changes, t_post)
-        except SolderlessError as exc:
-            if undo is not None:
-                undo()
-            raise DesignError(f"this value makes the circuit unsolvable ({exc.message}); "
-                              "the previous value keeps playing", part=part or exc.part,
-                              hint="choose another value") from None
-        except Exception:
-            if undo is not None:
-                undo()
-            raise
+    def _run_edit(self, i: int, v: Voice, edit, t_post: float | None):
+        """Worker: apply ``edit`` to voice ``v``'s design and hand it to the
+        running simulator (new values, or a new simulator swapped in with a
+        crossfade). If the circuit does not take it, the design (and so a
+        later save) must not keep an edit that was never heard: the inverse
+        edit puts it back. Returns the :class:`Applied`."""
+        from solderless.engine.design.edits import apply_edit
+        dirty = getattr(v.design, "dirty", False)
+        applied = apply_edit(v.design, edit)
+
+        def back():
+            apply_edit(v.design, applied.inverse)
+            v.design.dirty = dirty
+        if applied.rebuild:
+            try:
+                sim = v.build()
+            except BaseException:
+                back()
+                raise
+            v.warm(sim)
+            if v.missing:
+                self.messages.put(f"{v.label}: no longer measured after the change: "
+                                  + ", ".join(v.missing))
+            self._swap_in(v, sim)
+        elif applied.changes:
+            try:
+                self._apply(v, applied.changes, t_post)
+            except SolderlessError as exc:
+                back()
+                raise DesignError(f"this value makes the circuit unsolvable ({exc.message}); "
+                                  "the previous value keeps playing",
+                                  part=applied.part or exc.part,
+                                  hint="choose another value") from None
+            except BaseException:
+                back()
+                raise
         self._after_edit(i)
-        return result
+        return applied
 
     def set_value(self, part: str, value: float, voice=None) -> Future:
         """Change a part's value (re-derive, lands at a block boundary).
@@ -1020,9 +976,10 @@ class LiveHost:
                     del self._coalesce[key]
                 val, futs = ent[0], list(ent[1])
             try:
+                from solderless.engine.design.edits import SetValue
                 i, v = self._voice(voice)
-                r = self._edit_part(i, v, lambda v: (v.design.set_value(part, val), val),
-                                    part, t_post)
+                self._run_edit(i, v, SetValue(part, val), t_post)
+                r = val
             except BaseException as exc:
                 for f in futs:
                     if not f.done():
@@ -1040,16 +997,20 @@ class LiveHost:
         """Step a part's value ``steps`` places through an E-series (IEC
         60063; by default the part's own series,
         :func:`solderless.engine.values.stepping_series`). Result: the new value."""
+        from solderless.engine.design.edits import SetValue
         from solderless.engine.values import step_preferred, stepping_series
+        t_post = time.perf_counter()
 
-        def edit(v):
+        def job():
+            i, v = self._voice(voice)
             info = self.part_info(part, voice)
             if info.value is None or not info.value > 0:
                 raise DesignError("this part has no positive value to step", part=part)
             ser = series or stepping_series(info.type)
             new = step_preferred(info.value, ser, steps)
-            return v.design.set_value(part, new), new
-        return self._post_part_edit(voice, edit, part)
+            self._run_edit(i, v, SetValue(part, new), t_post)
+            return new
+        return self._post(job)
 
     def set_rotation(self, pot: str, rotation: float, voice=None,
                      ramp_s: float = 0.030) -> Future:
@@ -1147,28 +1108,17 @@ class LiveHost:
         of (rotation, fraction) points, as :meth:`Design.set_taper` takes);
         the new element values land at a block boundary with the state
         carried over. Result: the taper as stored."""
-        def edit(v):
-            changes = v.design.set_taper(pot, taper)
-            return changes, v.design.part(pot).taper
-        return self._post_part_edit(voice, edit, pot)
+        from solderless.engine.design.edits import SetTaper
+        return self.edit(SetTaper(pot, taper), voice)
 
     def set_bypass(self, stage: str, on: bool, voice=None) -> Future:
         """Bypass a stage (or bring it back): rebuild the simulator and swap it
         in with a short crossfade. Result: the build time in seconds."""
+        from solderless.engine.design.edits import SetBypass
+
         def job():
             i, v = self._voice(voice)
-            v.design.set_bypass(stage, on)
-            try:
-                sim = v.build()
-            except SolderlessError:
-                v.design.set_bypass(stage, not on)
-                raise
-            v.warm(sim)
-            if v.missing:
-                self.messages.put(f"{v.label}: no longer measured after the change: "
-                                  + ", ".join(v.missing))
-            self._swap_in(v, sim)
-            self._after_edit(i)
+            self._run_edit(i, v, SetBypass(stage, on), None)
             return v.build_time_s
         return self._post(job)
 
@@ -1176,19 +1126,12 @@ class LiveHost:
         """Give a device part another library model (swap clipping diodes, a
         transistor ...): rebuild the simulator and crossfade to it, as a
         bypass does. Result: the model name as stored."""
+        from solderless.engine.design.edits import SetModel
+
         def job():
             i, v = self._voice(voice)
             old = v.design.part(part).model
-            undo = _part_model_undo(v.design, part)
-            v.design.set_model(part, model)
-            try:
-                sim = v.build()
-            except SolderlessError:
-                undo()
-                raise
-            v.warm(sim)
-            self._swap_in(v, sim)
-            self._after_edit(i)
+            self._run_edit(i, v, SetModel(part, model), None)
             return v.design.part(part).model if old is not None else model
         return self._post(job)
 

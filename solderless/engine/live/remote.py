@@ -6,11 +6,15 @@ stretch in a GUI thread holds up the PortAudio callback of a host in the same
 process and causes dropouts. :class:`HostProcess` runs a
 :class:`~solderless.engine.live.host.LiveHost` in a child process (``spawn``):
 
-* **Commands in** through a pipe: the host's edit methods, each tagged with
-  a request number. The child calls the method and answers when its Future
-  is done (from the child's edit worker), so the caller never waits for an
-  edit unless it asks to (:meth:`HostProcess.call` waits, :meth:`HostProcess.post`
-  does not).
+* **Edits in** through a pipe, as data: each edit
+  (:mod:`solderless.engine.design.edits`, a small frozen dataclass that
+  pickles) goes to :meth:`LiveHost.edit <solderless.engine.live.host.LiveHost.edit>`,
+  tagged with a request number (:meth:`HostProcess.edit`); the child applies
+  it as it applies an edit from the console, and answers when its Future is
+  done (from the child's edit worker), so the caller never waits for an edit
+  unless it asks to. Other commands (start, select, level ...) are host
+  methods named in an allow-list (:meth:`HostProcess.call` waits,
+  :meth:`HostProcess.post` does not).
 * **Meters and scope out** through shared memory: the child's meter ring and
   scope ring (:meth:`solderless.engine.live.ring.FrameRing.shared`) are attached in this
   process, and :meth:`HostProcess.meters` turns frames into readings here
@@ -36,14 +40,15 @@ from solderless.engine.errors import AudioError, SolderlessError
 
 #: Methods of LiveHost a HostProcess may call; those returning a Future are
 #: answered when the Future is done (edits land through the child's mailbox).
-ALLOWED = {"start", "start_paced", "stop", "set_value", "step_value", "set_rotation",
+ALLOWED = {"start", "start_paced", "stop", "edit", "set_value", "step_value",
+           "set_rotation",
            "set_taper", "set_bypass", "set_model", "save", "select", "set_level_db", "unmute",
            "latency", "part_info", "prepare", "flush"}
 #: Requests served by the child loop itself.
 EXTRA = {"parts", "state", "meter_setup", "set_source", "edit_landings", "host_meters",
          "element_values", "designs", "set_measurement"}
 #: Edits after which the parent re-measures the small-signal gain.
-EDITS = {"set_value", "step_value", "set_rotation", "set_taper", "set_bypass", "set_model"}
+EDITS = {"edit", "set_value", "step_value", "set_rotation", "set_taper", "set_bypass", "set_model"}
 MEASURE_SETTLE_S = 0.2
 """Quiet time after the last edit before the parent re-measures."""
 SWITCH_INTERVAL_S = 0.0002
@@ -233,7 +238,7 @@ class HostProcess:
     Example
     -------
     >>> with HostProcess("booster", source="tone:440:100m", start=True) as hp:  # doctest: +SKIP
-    ...     hp.post("set_value", "boost.R1", 4.7e3)
+    ...     hp.edit(SetValue("boost.R1", 4.7e3))
     ...     level = hp.meters()["input"]["peak_v"]
     """
 
@@ -412,6 +417,12 @@ class HostProcess:
             self._pending.pop(rid, None)
             fut.set_exception(AudioError(f"the live host process cannot be reached ({exc})"))
         return fut
+
+    def edit(self, edit, reported: bool = False) -> Future:
+        """Send an edit (an Edit dataclass) to the host; returns at once with
+        a Future of its result. ``reported``: a failure is also put into
+        :attr:`messages`."""
+        return (self.post_reported if reported else self.post)("edit", edit)
 
     def post_reported(self, name: str, *args, **kw) -> Future:
         """Like :meth:`post`; a failure is also put into :attr:`messages`

@@ -1,8 +1,10 @@
 """Small-signal AC response at the DC operating point.
 
-Devices are replaced by their port conductances dI/dv at the operating point;
-capacitors become admittances sC and inductors impedances sL (exact s, no
-discretisation).  The input is a unit AC voltage at the circuit's input
+Devices are replaced by their port conductances dI/dv at the operating point
+and their junction capacitances there (each device module's
+``capacitances``: depletion, diffusion and transcapacitances as SPICE's AC
+analysis takes them); capacitors become admittances sC and inductors
+impedances sL (exact s, no discretisation).  The input is a unit AC voltage at the circuit's input
 source.
 
 Input impedance: seen at the input jack, looking into the circuit.  If the
@@ -62,17 +64,28 @@ def ac_response(circuit: Circuit | Network, freqs, values: dict | None = None):
         S0 -= net._bn @ dc.G @ net.port_rows()
     Cm = np.zeros((net.nw, net.nw))
     Lm = np.zeros((net.nw, net.nw))
+
+    def cap(a, b, ca, cb, val):
+        for r, sr in ((a, 1.0), (b, -1.0)):
+            if r < 0:
+                continue
+            for c, sc in ((ca, 1.0), (cb, -1.0)):
+                if c >= 0:
+                    Cm[r, c] += sr * sc * val
+
     for s in net.states:
+        if s.junction >= 0:
+            continue  # taken below at this operating point, whatever the setting
         val = s.value if s.value is not None else values[s.name]
         if s.kind == "C":
-            for r, sr in ((s.a, 1.0), (s.b, -1.0)):
-                if r < 0:
-                    continue
-                for c, sc in ((s.a, 1.0), (s.b, -1.0)):
-                    if c >= 0:
-                        Cm[r, c] += sr * sc * val
+            cap(s.a, s.b, *s.ctrl, val)
         else:
             Lm[s.branch, s.branch] -= val
+    # junction charge storage: each device's capacitances at the operating
+    # point (SPICE's small-signal model)
+    if net.junctions:
+        for j, c in zip(net.junctions, net.junction_caps(dc.w, dc.v)):
+            cap(j.a, j.b, j.ca, j.cb, c)
     sj = 2j * np.pi * freqs
     Y = S0[None] + sj[:, None, None] * (Cm + Lm)[None]
     rhs = np.broadcast_to(net._bu[:, net.input_index].astype(complex),

@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from solderless.engine.circuit import GROUND, canonical_net
-from solderless.engine.devices._common import ignored_note
+from solderless.engine.devices._common import NOISE_ONLY, ignored_note
 from solderless.engine.errors import SolveError
 from solderless.engine.solver.kernel import eval_devices, limit_devices
 from solderless.engine.solver.mna import Network, device_arrays
@@ -266,9 +266,15 @@ def report(net: Network, sol: DCSolution, values: dict[str, float]) -> Operating
         warnings += R.warnings_for(el.name, el.kind, d, d["region"].split(" (")[0],
                                    ratings.get(el.name), off)
         devices[el.name] = d
-        for names, effect in ignored_note(el, lay.ignored):
+        noise_only = [(n, e) for n, e in lay.ignored if n in NOISE_ONLY]
+        for names, effect in ignored_note(el, [ne for ne in lay.ignored
+                                               if ne not in noise_only]):
             warnings.append(f"{el.name}: model parameter{'s' if ',' in names else ''} "
                             f"{names} not simulated (ignored): {effect}")
+        if noise_only:
+            names = ", ".join(dict.fromkeys(n for n, _ in noise_only))
+            warnings.append(f"{el.name}: {names} (flicker noise) act only with noise on: "
+                            "solderless hiss, or render/play --hiss")
         if out_net is not None and canonical_net(out_net) not in rails \
                 and canonical_net(out_net) != GROUND:
             vo = vnet(out_net)
@@ -276,10 +282,33 @@ def report(net: Network, sol: DCSolution, values: dict[str, float]) -> Operating
                 if abs(vo - rv) < RAIL_MARGIN:
                     warnings.append(f"{el.name}: net '{out_net}' sits at {vo:.3f} V, within "
                                     f"{RAIL_MARGIN} V of supply rail '{rn}' ({rv:.3f} V)")
+    note = charge_note(net)
+    if note:
+        warnings.append(note)
     bal = balance(net, sol, values)
     if bal is not None:
         warnings.append(bal)
     return OperatingPoint(nets, devices, warnings, currents, sol.method)
+
+
+def charge_note(net: Network) -> str | None:
+    """What the simulation does with the devices' junction capacitances
+    (CJE, CJC, TF, CJO, TT, CGS, CGD, CGSO, CBD ...), or None when no
+    device has any: taken at the operating point as linear capacitors, so
+    their change with the signal's swing is not simulated; or, with
+    junction charge storage off, left out of renders (the AC analysis has
+    them either way)."""
+    who = [el.name for el, _mod, lay, _po in net.devices if lay.caps]
+    if not who:
+        return None
+    names = ", ".join(who[:8]) + (f" and {len(who) - 8} more" if len(who) > 8 else "")
+    if net.charge:
+        return (f"junction charge storage ({names}): junction capacitances are taken at "
+                "the operating point (linear capacitors in renders and live play, "
+                "recomputed after each edit); their change with signal swing is not "
+                "simulated")
+    return (f"junction charge storage is off ({names}): junction capacitances are left "
+            "out of renders and live play; the AC analysis includes them")
 
 
 #: Step at which the stability of the operating point is judged (seconds);

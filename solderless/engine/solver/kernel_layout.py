@@ -59,6 +59,8 @@ WAVE_DC = 0       # constant (folded into the model's offsets)
 WAVE_SIN = 1      # SIN(VO VA FREQ TD THETA PHASE)
 WAVE_PULSE = 2    # PULSE(V1 V2 TD TR TF PW PER)
 WAVE_PWL = 3      # PWL(t0 v0 t1 v1 ...)
+WAVE_NOISE = 4    # live noise: samples fed per block, [dt, k0, s0, s1 ...]
+                  # (solderless/engine/solver/livenoise.py)
 
 # --- rows of the workspace ws ----------------------------------------------
 WS_P = 0          # scratch: p, this sample's linear part of the port voltages

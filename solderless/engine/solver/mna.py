@@ -29,7 +29,8 @@ import numpy as np
 from solderless.engine.circuit import GROUND, KIND_NODES, Circuit, canonical_net
 from solderless.engine.devices import REGISTRY
 from solderless.engine.errors import DesignError
-from solderless.engine.solver.kernel_layout import WAVE_DC, WAVE_PULSE, WAVE_PWL, WAVE_SIN
+from solderless.engine.solver.kernel_layout import (WAVE_DC, WAVE_NOISE, WAVE_PULSE, WAVE_PWL,
+                                                    WAVE_SIN)
 from solderless.engine.unionfind import UnionFind
 
 VALUE_KINDS = {"R", "C", "L", "V", "I", "E", "G", "F", "H"}
@@ -50,6 +51,33 @@ class State:
     branch: int        # inductor branch row in w, else -1
     method: str        # "trap" or "be"
     value: float | None  # fixed value (device stamps) or None (element value)
+    #: nodes whose voltage drives the current (a transcapacitance), or
+    #: None: the state's own nodes a, b
+    ca: int | None = None
+    cb: int | None = None
+    #: index into Network.junctions for a device's junction capacitance
+    junction: int = -1
+
+    @property
+    def ctrl(self) -> tuple[int, int]:
+        """The nodes whose voltage difference the state integrates."""
+        return (self.a if self.ca is None else self.ca, self.b if self.cb is None else self.cb)
+
+
+@dataclass
+class Junction:
+    """One junction capacitance of a device (DeviceLayout.caps): current
+    C*d(v(ca) - v(cb))/dt from node a through the device to node b."""
+    device: int        # index into Network.devices
+    a: int
+    b: int
+    ca: int
+    cb: int
+
+
+#: Integration rule of the junction capacitances in the time domain (see
+#: DEVELOPERS.md, "Junction charge storage").
+JUNCTION_METHOD = "be"
 
 
 class Network:
@@ -60,8 +88,12 @@ class Network:
     sources/inductors, naming the part and where it was written.
     """
 
-    def __init__(self, circuit: Circuit):
+    def __init__(self, circuit: Circuit, charge: bool | None = None):
         self.circuit = circuit
+        #: junction capacitances simulated in the time domain (as linear
+        #: capacitors at the operating point); None: the circuit's setting
+        self.charge = bool(getattr(circuit, "junction_charge", True)
+                           if charge is None else charge)
         els = list(circuit.elements)
         if not els:
             raise DesignError("the circuit has no elements", hint="add parts to the design")
@@ -162,6 +194,20 @@ class Network:
             if st[0] == "C":
                 self.states.append(State(f"{owner}#C{k}", "C", node(st[1]), node(st[2]), -1,
                                          st[4] if len(st) > 4 else "trap", float(st[3])))
+        # junction capacitances of the devices (charge storage)
+        self.junctions: list[Junction] = []
+        for d, (el, _mod, lay, _po) in enumerate(self.devices):
+            for (pa, pb, ca, cb) in lay.caps:
+                self.junctions.append(Junction(d, node(pa), node(pb), node(ca), node(cb)))
+        if self.charge and self.junctions:
+            c0 = self.junction_caps(np.zeros(self.nw), np.zeros(len(self.ports)))
+            for k, j in enumerate(self.junctions):
+                el = self.devices[j.device][0]
+                trans = (j.ca, j.cb) != (j.a, j.b)
+                self.states.append(State(f"{el.name}#Q{k}", "C", j.a, j.b, -1,
+                                         JUNCTION_METHOD, float(c0[k]),
+                                         j.ca if trans else None, j.cb if trans else None,
+                                         k))
         self.state_index = {s.name: k for k, s in enumerate(self.states)}
         # --- sources
         self.sources = [el for el in els if el.kind in ("V", "I")]
@@ -362,7 +408,10 @@ class Network:
             g, _, _ = self.state_g(values, T)
             for k, s in enumerate(self.states):
                 if s.kind == "C":
-                    cond(s.a, s.b, g[k])
+                    if s.ca is None:
+                        cond(s.a, s.b, g[k])
+                    else:  # a transcapacitance
+                        vccs(s.a, s.b, s.ca, s.cb, g[k])
                 else:
                     S[s.branch, s.branch] -= g[k]
         if port_g0:
@@ -378,13 +427,45 @@ class Network:
         R = np.zeros((self.nx, self.nw))
         for k, s in enumerate(self.states):
             if s.kind == "C":
-                if s.a >= 0:
-                    R[k, s.a] = 1.0
-                if s.b >= 0:
-                    R[k, s.b] = -1.0
+                a, b = s.ctrl
+                if a >= 0:
+                    R[k, a] = 1.0
+                if b >= 0:
+                    R[k, b] = -1.0
             else:
                 R[k, s.branch] = 1.0
         return R
+
+    def junction_caps(self, w: np.ndarray, v: np.ndarray) -> np.ndarray:
+        """Every junction capacitance (Network.junctions order, farads) at a
+        solution: MNA vector w and device port voltages v (each device's
+        ``capacitances``)."""
+        out = np.zeros(len(self.junctions))
+        k0 = 0
+        for el, mod, lay, po in self.devices:
+            n = len(lay.caps)
+            if not n:
+                continue
+            vc = np.array([(w[j.ca] if j.ca >= 0 else 0.0) - (w[j.cb] if j.cb >= 0 else 0.0)
+                           for j in self.junctions[k0:k0 + n]])
+            c = mod.capacitances(lay.par, np.asarray(v[po:po + len(lay.ports)], float), vc)
+            if len(c) != n:
+                raise RuntimeError(f"{el.name}: {len(c)} capacitances for {n} entries")
+            out[k0:k0 + n] = c
+            k0 += n
+        return out
+
+    def set_junction_caps(self, caps: np.ndarray) -> None:
+        """Take junction capacitances (from :meth:`junction_caps`) as the
+        values of the time-domain junction states."""
+        for s in self.states:
+            if s.junction >= 0:
+                s.value = float(caps[s.junction])
+
+    @property
+    def junction_states(self) -> bool:
+        """Whether junction capacitances are states of the time-domain model."""
+        return any(s.junction >= 0 for s in self.states)
 
     def port_rows(self) -> np.ndarray:
         """Rows P with port voltages v = P w."""
@@ -412,9 +493,12 @@ class Network:
         return u
 
 
-WAVE_CODES = {"SIN": WAVE_SIN, "PULSE": WAVE_PULSE, "PWL": WAVE_PWL}
+#: NOISE is a live noise source (solderless/engine/solver/livenoise.py): its
+#: samples are fed per block; with its default parameters it reads 0.
+WAVE_CODES = {"SIN": WAVE_SIN, "PULSE": WAVE_PULSE, "PWL": WAVE_PWL, "NOISE": WAVE_NOISE}
 _WAVE_DEFAULTS = {"SIN": [0.0, 0.0, 0.0, 0.0, 0.0, 0.0],
-                  "PULSE": [0.0, 0.0, 0.0, 0.0, 0.0, math.inf, math.inf]}
+                  "PULSE": [0.0, 0.0, 0.0, 0.0, 0.0, math.inf, math.inf],
+                  "NOISE": [0.0, 0.0]}
 
 
 def source_wave(el, step: float | None = None) -> tuple[int, np.ndarray]:

@@ -239,6 +239,10 @@ class Simulator:
         self._sptr = np.zeros(len(spars) + 1, dtype=np.int64)
         self._sptr[1:] = np.cumsum([p.size for p in spars]) if spars else []
         self._spar = np.ascontiguousarray(np.concatenate(spars) if spars else np.zeros(0))
+        self._op: OperatingPoint | None = None
+        self._dc = None
+        self._dc_values = None
+        self._refresh_junctions(self._values)
         self._model: Model = derive(net, self._values, self._T, rows)
         self._next: Model = self._model
         nx, nu, ny = net.nx, net.nu, len(rows)
@@ -265,12 +269,26 @@ class Simulator:
         self._nopb = np.zeros((0, 0))
         self._xin_up = np.zeros(self.block_max * self.oversample)
         self._y_up = np.zeros(self.block_max * self.oversample)
-        self._op: OperatingPoint | None = None
-        self._dc = None
-        self._dc_values = None
         self.reset()
 
     # ------------------------------------------------------------ state
+    def _refresh_junctions(self, values: dict) -> None:
+        """Take the devices' junction capacitances at the operating point of
+        ``values`` (and the current temperature) as the values of the
+        time-domain junction states; the operating point is kept for
+        :meth:`reset`.  A circuit whose operating point cannot be solved
+        keeps the capacitances it had (reset reports the failure)."""
+        net = self.net
+        if not net.junction_states:
+            return
+        from solderless.engine.errors import SolveError
+        try:
+            dc = solve_dc(net, values, v0=None if self._dc is None else self._dc.v)
+        except SolveError:
+            return
+        net.set_junction_caps(net.junction_caps(dc.w, dc.v))
+        self._dc, self._dc_values, self._op = dc, dict(values), None
+
     def reset(self) -> None:
         """Return to the DC operating point of the current values.
 
@@ -346,7 +364,15 @@ class Simulator:
                                       part=name, hint="live changes take element values; "
                                                       "a pot is '<pot>.a' and '<pot>.b'")
                 new[name] = net.check_value(el, val)
-            model = derive(net, new, self._T, self._rows)
+            # junction capacitances follow the operating point of the new values
+            kept = [s.value for s in net.states]
+            self._refresh_junctions(new)
+            try:
+                model = derive(net, new, self._T, self._rows)
+            except Exception:
+                for s, v in zip(net.states, kept):  # a refused edit changes nothing
+                    s.value = v
+                raise
             self._values = new
             self._next = model
 

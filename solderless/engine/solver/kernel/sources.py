@@ -4,7 +4,7 @@ from __future__ import annotations
 import math
 
 from solderless.engine.solver.kernel.params import kernel_jit
-from solderless.engine.solver.kernel_layout import WAVE_PULSE, WAVE_PWL, WAVE_SIN
+from solderless.engine.solver.kernel_layout import WAVE_NOISE, WAVE_PULSE, WAVE_PWL, WAVE_SIN
 
 
 @kernel_jit(inline="always")
@@ -49,6 +49,14 @@ def wave_value(kind, par, t):
                     return v1
                 return v0 + (v1 - v0) * (t - t0) / (t1 - t0)
         return par[2 * n - 1]
+    if kind == WAVE_NOISE:  # live noise (solver/livenoise.py), par = [dt, k0, s0 ...]:
+        # kernel sample round(t/dt) reads s[round(t/dt) - k0]; 0 outside
+        if par[0] <= 0.0:
+            return 0.0
+        j = int(t / par[0] + 0.5) - int(par[1])
+        if j < 0 or j >= par.size - 2:
+            return 0.0
+        return par[2 + j]
     return 0.0
 
 
