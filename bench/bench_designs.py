@@ -1,7 +1,7 @@
 """Speed and operating-point sanity of every built-in design.
 
 For each design in solderless/presets/designs: flatten, solve the DC operating point,
-classify its transistors (solderless.app.measure.transistor_check), then render the
+classify its transistors (solderless.engine.analysis.measure.transistor_check), then render the
 synthetic guitar phrase "demo" (solderless.engine.synth) at the design's suggested
 oversampling, in 4096-sample blocks through ``Simulator.process_into`` as the
 live host does. The kernels are warmed on a short block first, so the timing
@@ -17,7 +17,7 @@ bench/results/designs.json.
 For designs with a gain-cell control meter (the compressors) it also
 measures, outside the timing: the static curve's threshold (1 dB of gain
 reduction) and slope 6 dB above it, the release time after a 50 mV burst
-(63 % recovery, time-constant convention; solderless.app.measure.measure_release), and
+(63 % recovery, time-constant convention; solderless.engine.analysis.measure.measure_release), and
 the deepest gain reduction on the phrase's soft and hard single notes.
 
 ``--charge-cost`` times every design with junction charge storage on and
