@@ -33,7 +33,7 @@ import numpy as np
 
 from solderless.engine.circuit import GROUND, Circuit, canonical_net
 from solderless.engine.errors import DesignError
-from solderless.engine.solver.dcop import solve_dc
+from solderless.engine.solver.ac import small_signal
 from solderless.engine.solver.mna import Network
 from solderless.engine.solver.noise import NoiseSources, noise_sources
 
@@ -123,41 +123,6 @@ def _index(net: Network, name: str) -> int:
     return -1 if n == GROUND else net.net_index[n]
 
 
-def _small_signal(net: Network, values: dict):
-    """(dc, Y0, Ys): the MNA matrix at the operating point is Y0 + s*Ys
-    (devices by their port conductances and, where the network carries
-    junction charge storage, their junction capacitances at the operating
-    point; C as sC, L as sL), as :func:`solderless.engine.solver.ac.ac_response`
-    builds it."""
-    dc = solve_dc(net, values)
-    Y0 = net.build_S(values, None).astype(complex)
-    if net.np_:
-        Y0 -= net._bn @ dc.G @ net.port_rows()
-    Ys = np.zeros((net.nw, net.nw))
-
-    def cap(a, b, ca, cb, val):
-        for r, sr in ((a, 1.0), (b, -1.0)):
-            if r < 0:
-                continue
-            for c, sc in ((ca, 1.0), (cb, -1.0)):
-                if c >= 0:
-                    Ys[r, c] += sr * sc * val
-
-    for s in net.states:
-        if getattr(s, "junction", -1) >= 0:
-            continue  # a junction capacitance: taken below at the operating point
-        val = s.value if s.value is not None else values[s.name]
-        if s.kind == "C":
-            cap(s.a, s.b, *getattr(s, "ctrl", (s.a, s.b)), val)
-        else:
-            Ys[s.branch, s.branch] -= val
-    junctions = getattr(net, "junctions", None)
-    if junctions:
-        for j, c in zip(junctions, net.junction_caps(dc.w, dc.v)):
-            cap(j.a, j.b, j.ca, j.cb, c)
-    return dc, Y0, Ys
-
-
 def noise_spectrum(circuit: Circuit | Network, freqs, values: dict | None = None
                    ) -> NoiseResult:
     """Output (and input-referred) noise at frequencies ``freqs`` (Hz, > 0).
@@ -172,7 +137,7 @@ def noise_spectrum(circuit: Circuit | Network, freqs, values: dict | None = None
     freqs = np.atleast_1d(np.asarray(freqs, dtype=np.float64))
     if freqs.size == 0 or not np.all(freqs > 0) or not np.all(np.isfinite(freqs)):
         raise DesignError("noise frequencies must be positive and finite")
-    dc, Y0, Ys = _small_signal(net, values)
+    dc, Y0, Ys = small_signal(net, values)
     srcs = noise_sources(net, dc, values)
     c = np.zeros(net.nw)
     oa, ob = net.out_nodes

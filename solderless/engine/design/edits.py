@@ -160,6 +160,19 @@ def _file(d: Design) -> str | None:
 
 # ------------------------------------------------------------------ part edits
 
+def _set_part_field(edit, d, field: str, change):
+    """The shared step of a one-field part edit: read the field's old value
+    and what the document said, run ``change()`` (the design's one-change
+    method), and when replaying an inverse put the document's entry back
+    exactly. Returns (old, before, changes) for the inverse edit."""
+    old = getattr(d.part(edit.part), field)
+    before = doc.part_entry(d, edit.part, field)
+    changes = change()
+    if edit.entry != RECORD:
+        doc.put_part_entry(d, edit.part, field, edit.entry)
+    return old, before, changes
+
+
 @dataclass(frozen=True)
 class SetValue(Edit):
     """A part's value (a number, or text such as "4k7", read once here).
@@ -181,11 +194,8 @@ class SetValue(Edit):
     def _apply(self, d):
         if self.part == "temperature":
             return SetTemperature(self.value)._apply(d)
-        old = d.part(self.part).value
-        before = doc.part_entry(d, self.part, "value")
-        changes = d.set_value(self.part, float(self.value))
-        if self.entry != RECORD:
-            doc.put_part_entry(d, self.part, "value", self.entry)
+        old, before, changes = _set_part_field(
+            self, d, "value", lambda: d.set_value(self.part, float(self.value)))
         return Applied(self, SetValue(self.part, old, before), changes,
                        result=d.part(self.part).value, part=self.part)
 
@@ -203,11 +213,8 @@ class SetRotation(Edit):
         return f"turn {self.part}"
 
     def _apply(self, d):
-        old = d.part(self.part).rotation
-        before = doc.part_entry(d, self.part, "rotation")
-        changes = d.set_rotation(self.part, self.rotation)
-        if self.entry != RECORD:
-            doc.put_part_entry(d, self.part, "rotation", self.entry)
+        old, before, changes = _set_part_field(
+            self, d, "rotation", lambda: d.set_rotation(self.part, self.rotation))
         return Applied(self, SetRotation(self.part, old, before), changes,
                        result=d.part(self.part).rotation, part=self.part)
 
@@ -233,12 +240,9 @@ class SetTaper(Edit):
         return f"taper of {self.part}"
 
     def _apply(self, d):
-        old = d.part(self.part).taper
-        before = doc.part_entry(d, self.part, "taper")
         taper = self.taper if isinstance(self.taper, str) else [list(p) for p in self.taper]
-        changes = d.set_taper(self.part, taper)
-        if self.entry != RECORD:
-            doc.put_part_entry(d, self.part, "taper", self.entry)
+        old, before, changes = _set_part_field(
+            self, d, "taper", lambda: d.set_taper(self.part, taper))
         return Applied(self, SetTaper(self.part, old, before), changes,
                        result=d.part(self.part).taper, part=self.part)
 
@@ -257,11 +261,8 @@ class SetTolerance(Edit):
         return f"tolerance of {self.part}"
 
     def _apply(self, d):
-        old = d.part(self.part).tolerance
-        before = doc.part_entry(d, self.part, "tolerance")
-        d.set_tolerance(self.part, self.tolerance)
-        if self.entry != RECORD:
-            doc.put_part_entry(d, self.part, "tolerance", self.entry)
+        old, before, _ = _set_part_field(
+            self, d, "tolerance", lambda: d.set_tolerance(self.part, self.tolerance))
         return Applied(self, SetTolerance(self.part, old, before),
                        result=d.part(self.part).tolerance, part=self.part)
 
@@ -331,11 +332,8 @@ class SetPosition(Edit):
         return f"switch {self.part}"
 
     def _apply(self, d):
-        old = d.part(self.part).position
-        before = doc.part_entry(d, self.part, "position")
-        d.set_position(self.part, self.position)
-        if self.entry != RECORD:
-            doc.put_part_entry(d, self.part, "position", self.entry)
+        old, before, _ = _set_part_field(
+            self, d, "position", lambda: d.set_position(self.part, self.position))
         return Applied(self, SetPosition(self.part, old, before), rebuild=True,
                        result=d.part(self.part).position, part=self.part)
 

@@ -35,6 +35,40 @@ def default_frequencies() -> np.ndarray:
     return np.geomspace(DEFAULT_FMIN_HZ, DEFAULT_FMAX_HZ, DEFAULT_POINTS)
 
 
+def small_signal(net: Network, values: dict):
+    """(dc, Y0, Ys): the MNA matrix linearised at the operating point is
+    Y0 + s*Ys: devices by their port conductances, C as sC, L as sL, and
+    each device's junction capacitances at the operating point (SPICE's
+    small-signal model). The AC response and the noise analysis both solve
+    with it."""
+    dc = solve_dc(net, values)
+    Y0 = net.build_S(values, None).astype(complex)
+    if net.np_:
+        Y0 -= net._bn @ dc.G @ net.port_rows()
+    Ys = np.zeros((net.nw, net.nw))
+
+    def cap(a, b, ca, cb, val):
+        for r, sr in ((a, 1.0), (b, -1.0)):
+            if r < 0:
+                continue
+            for c, sc in ((ca, 1.0), (cb, -1.0)):
+                if c >= 0:
+                    Ys[r, c] += sr * sc * val
+
+    for s in net.states:
+        if s.junction >= 0:
+            continue  # taken below at this operating point, whatever the setting
+        val = s.value if s.value is not None else values[s.name]
+        if s.kind == "C":
+            cap(s.a, s.b, *s.ctrl, val)
+        else:
+            Ys[s.branch, s.branch] -= val
+    if net.junctions:
+        for j, c in zip(net.junctions, net.junction_caps(dc.w, dc.v)):
+            cap(j.a, j.b, j.ca, j.cb, c)
+    return dc, Y0, Ys
+
+
 def ac_response(circuit: Circuit | Network, freqs, values: dict | None = None):
     """Frequency response from the input source to the output, and Zin.
 
@@ -58,36 +92,9 @@ def ac_response(circuit: Circuit | Network, freqs, values: dict | None = None):
         raise DesignError("the circuit has no input source for an AC response",
                           hint="name the V element that the signal drives as input_source")
     freqs = np.atleast_1d(np.asarray(freqs, dtype=np.float64))
-    dc = solve_dc(net, values)
-    S0 = net.build_S(values, None).astype(complex)
-    if net.np_:
-        S0 -= net._bn @ dc.G @ net.port_rows()
-    Cm = np.zeros((net.nw, net.nw))
-    Lm = np.zeros((net.nw, net.nw))
-
-    def cap(a, b, ca, cb, val):
-        for r, sr in ((a, 1.0), (b, -1.0)):
-            if r < 0:
-                continue
-            for c, sc in ((ca, 1.0), (cb, -1.0)):
-                if c >= 0:
-                    Cm[r, c] += sr * sc * val
-
-    for s in net.states:
-        if s.junction >= 0:
-            continue  # taken below at this operating point, whatever the setting
-        val = s.value if s.value is not None else values[s.name]
-        if s.kind == "C":
-            cap(s.a, s.b, *s.ctrl, val)
-        else:
-            Lm[s.branch, s.branch] -= val
-    # junction charge storage: each device's capacitances at the operating
-    # point (SPICE's small-signal model)
-    if net.junctions:
-        for j, c in zip(net.junctions, net.junction_caps(dc.w, dc.v)):
-            cap(j.a, j.b, j.ca, j.cb, c)
+    dc, S0, Ys = small_signal(net, values)
     sj = 2j * np.pi * freqs
-    Y = S0[None] + sj[:, None, None] * (Cm + Lm)[None]
+    Y = S0[None] + sj[:, None, None] * Ys[None]
     rhs = np.broadcast_to(net._bu[:, net.input_index].astype(complex),
                           (freqs.size, net.nw))[..., None]
     w = np.linalg.solve(Y, rhs)[..., 0]
