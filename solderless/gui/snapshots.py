@@ -211,7 +211,7 @@ class SnapshotPanel(QWidget):
         self.export_btn.setEnabled(False)
         wb.snapshots_changed.connect(self.refresh)
         wb.design_replaced.connect(self.refresh_diff)
-        wb.part_changed.connect(lambda _q: self.refresh_diff())
+        wb.part_changed.connect(self._part_changed)
         self.refresh()
 
     # ------------------------------------------------------------ keeping
@@ -260,6 +260,9 @@ class SnapshotPanel(QWidget):
 
     def design_of(self, name: str):
         return self.wb.design if name == CURRENT else self.wb.snapshot(name).design
+
+    def _part_changed(self, _qualname: str) -> None:
+        self.refresh_diff()
 
     def refresh_diff(self) -> None:
         try:

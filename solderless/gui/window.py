@@ -362,8 +362,10 @@ class MainWindow(QMainWindow):
         self.analyser.ac_ready.connect(self._ac_ready)
         self.analyser.ab_ready.connect(self._ab_ready)
         self.analyser.failed.connect(self._failed)
-        self.analyser.busy_changed.connect(
-            lambda b: self.busy.setText("working…" if b else ""))
+        # bound methods, not lambdas, for the signals of objects that may
+        # outlive the window (the analyser's worker, the model): Qt drops a
+        # bound slot's connections and queued calls when the window goes
+        self.analyser.busy_changed.connect(self._busy_changed)
         self.live.preview_requested.connect(self.preview)
         self.live.start_requested.connect(self.start_live)
         self.live.stop_requested.connect(self.stop_live)
@@ -376,12 +378,11 @@ class MainWindow(QMainWindow):
         self.compare.overlay_requested.connect(self.request_overlay)
         self.midi = MidiKnobs(self._knob_turn, self._remember_knobs, self)
         self.midi.message.connect(self.say)
-        self.midi.learned.connect(lambda *_a: self._midi_learned())
+        self.midi.learned.connect(self._midi_learned)
         self.live.midi_connect.connect(self.connect_midi)
         self.live.probe_requested.connect(self.add_probe)
         self.live.midi_learn.connect(self.midi.learn)
-        self.wb.edited.connect(lambda kind, q, _v: self.midi.pot_turned(q)
-                               if kind == "rotation" else None)
+        self.wb.edited.connect(self._edited_for_midi)
         self.analyser.overlay_ready.connect(self._overlay_ready)
         self.analyser.dyn_ready.connect(self._dyn_ready)
         self.compare.can_trial = self._trial_ready
@@ -390,6 +391,13 @@ class MainWindow(QMainWindow):
         # a coarse timer may stretch 30 ms by 5 %; the frame rate is a target
         self.meter_timer.setTimerType(Qt.TimerType.PreciseTimer)
         self.meter_timer.timeout.connect(self._poll_meters)
+
+    def _busy_changed(self, busy: bool) -> None:
+        self.busy.setText("working…" if busy else "")
+
+    def _edited_for_midi(self, kind: str, q: str, _value) -> None:
+        if kind == "rotation":
+            self.midi.pot_turned(q)
 
     # ------------------------------------------------------------ messages
     def say(self, text: str) -> None:
@@ -781,6 +789,7 @@ class MainWindow(QMainWindow):
         for t in (self.refresh_timer, self.autosave_timer, self.meter_timer, self.dyn_timer):
             t.stop()
         self.analyser.shutdown()
+        self.analyser.blockSignals(True)
         self.midi.detach()
         self.autosave.clear(self.wb.design)
         e.accept()
@@ -923,7 +932,7 @@ class MainWindow(QMainWindow):
         self._guard(self.wb.apply, SetDocumentTable("midi", knob_table(mapping),
                                                     "map MIDI knobs"))
 
-    def _midi_learned(self) -> None:
+    def _midi_learned(self, *_learned) -> None:
         self.live.learn_btn.blockSignals(True)
         self.live.learn_btn.setChecked(False)
         self.live.learn_btn.blockSignals(False)
