@@ -24,3 +24,26 @@ def design_file(tmp_path) -> Path:
     p = tmp_path / "divider.toml"
     shutil.copy(Path(__file__).resolve().parent / "gui_divider.toml", p)
     return p
+
+
+# Qt widgets must be destroyed on the GUI thread. Python's cyclic collector
+# runs in whichever thread allocates (the workbench's analyser worker, the
+# live host's reader), so during a test that drives Qt it is switched off and
+# run on the main thread after pytest-qt has closed and deleted the test's
+# widgets, as the workbench itself does (solderless.gui.app.collect_on_gui_thread).
+@pytest.hookimpl(hookwrapper=True)
+def pytest_runtest_setup(item):
+    if "qtbot" in getattr(item, "fixturenames", ()):
+        import gc
+        gc.collect()
+        gc.disable()
+    yield
+
+
+@pytest.hookimpl(hookwrapper=True)
+def pytest_runtest_teardown(item):
+    yield
+    if "qtbot" in getattr(item, "fixturenames", ()):
+        import gc
+        gc.collect()
+        gc.enable()

@@ -83,6 +83,24 @@ def screenshot(win, path: str | os.PathLike, timeout_s: float = 180.0) -> Path:
     return target
 
 
+def collect_on_gui_thread(app, every_ms: int = 500) -> None:
+    """Run Python's cyclic garbage collector on the GUI thread only.
+
+    The collector otherwise runs in whichever thread happens to allocate
+    (the analyser's worker, the live host's reader), and a Qt widget caught
+    in a reference cycle would then be destroyed off the thread that owns
+    it, which can crash the event loop later. So automatic collection is
+    switched off and a timer on the GUI thread collects instead (a common
+    pattern for PyQt programs)."""
+    import gc
+    from PyQt6.QtCore import QTimer
+    gc.disable()
+    timer = QTimer(app)
+    timer.timeout.connect(lambda: gc.collect())
+    timer.start(every_ms)
+    app._solderless_gc_timer = timer
+
+
 def run_gui(args) -> int:
     """Entry point for ``solderless gui``; returns the exit status."""
     from solderless.engine.design import load_design
@@ -91,6 +109,7 @@ def run_gui(args) -> int:
         os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
     app = _app()
     tune_interpreter()
+    collect_on_gui_thread(app)
     name = args.design
     if name is None:
         from solderless.engine.design import builtin_designs
