@@ -23,29 +23,10 @@ from solderless.engine.solver import Simulator
 from solderless.engine.solver.livenoise import (HissSimulator, design_setting, pink_sos,
                                                 white_sigma)
 
-DIVIDER = """divider for the live noise checks
-VIN in 0 DC 0
-R1 in out 10k
-R2 out 0 10k
-.end
-"""
+import noise_circuits as NC  # noqa: E402
 
-CE_STAGE = """common-emitter stage for the live noise checks (our own values)
-VCC vcc 0 9
-VIN src 0 DC 0
-RS src in 600
-CIN in b 10u
-RB1 vcc b 100k
-RB2 b 0 22k
-RC vcc c 4.7k
-RE e 0 1k
-CE e 0 100u
-Q1 c b e QN
-COUT c out 10u
-RL out 0 100k
-.model QN NPN(IS=1e-14 BF=200 VAF=80 RB=100 RE=1 RC=10 KF=2e-15 AF=1)
-.end
-"""
+DIVIDER = NC.DIVIDER + ".end\n"
+CE_STAGE = NC.CE_STAGE + ".end\n"
 
 FS = 48000.0
 

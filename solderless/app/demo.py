@@ -51,6 +51,15 @@ from solderless.engine.analysis.measure import (  # noqa: E402,F401
     simulate, transistor_check, transistor_problems)
 
 
+def _save_png(fig, out: Path, files: dict, key: str, name: str) -> None:
+    """Write one figure as ``out/name`` (atomically) and list it under ``key``."""
+    import matplotlib.pyplot as plt
+    files[key] = name
+    atomic_write(out / name, lambda tmp: fig.savefig(tmp, dpi=90, format="png"),
+                 suffix=".png")
+    plt.close(fig)
+
+
 def _plots(out: Path, fs: float, x: np.ndarray, runs: list[Run], curves, releases) -> dict:
     import matplotlib
     matplotlib.use("Agg")
@@ -69,10 +78,7 @@ def _plots(out: Path, fs: float, x: np.ndarray, runs: list[Run], curves, release
         ax.text(0.01, 0.85, r.title, transform=ax.transAxes, fontsize=8)
     axs[-1].set_xlabel("time (s)")
     fig.tight_layout()
-    files["waveforms"] = "waveforms.png"
-    atomic_write(out / files["waveforms"], lambda tmp: fig.savefig(tmp, dpi=90, format="png"),
-                 suffix=".png")
-    plt.close(fig)
+    _save_png(fig, out, files, "waveforms", "waveforms.png")
 
     fig, (a1, a2) = plt.subplots(2, 1, figsize=(9, 5), sharex=True)
     for r in runs:
@@ -87,10 +93,7 @@ def _plots(out: Path, fs: float, x: np.ndarray, runs: list[Run], curves, release
     a2.set_xlabel("time (s)")
     a1.legend(fontsize=7)
     fig.tight_layout()
-    files["control"] = "control.png"
-    atomic_write(out / files["control"], lambda tmp: fig.savefig(tmp, dpi=90, format="png"),
-                 suffix=".png")
-    plt.close(fig)
+    _save_png(fig, out, files, "control", "control.png")
 
     fig, ax = plt.subplots(figsize=(5.5, 5))
     for r, c in zip(runs, curves):
@@ -105,10 +108,7 @@ def _plots(out: Path, fs: float, x: np.ndarray, runs: list[Run], curves, release
     ax.grid(True, alpha=0.3)
     ax.legend(fontsize=7)
     fig.tight_layout()
-    files["static"] = "static_curve.png"
-    atomic_write(out / files["static"], lambda tmp: fig.savefig(tmp, dpi=90, format="png"),
-                 suffix=".png")
-    plt.close(fig)
+    _save_png(fig, out, files, "static", "static_curve.png")
 
     fig, ax = plt.subplots(figsize=(9, 3.5))
     for r, (rt, tt, gr, t1, _) in zip(runs, releases):
@@ -122,10 +122,7 @@ def _plots(out: Path, fs: float, x: np.ndarray, runs: list[Run], curves, release
     ax.legend(fontsize=7)
     ax.grid(True, alpha=0.3)
     fig.tight_layout()
-    files["release"] = "release.png"
-    atomic_write(out / files["release"], lambda tmp: fig.savefig(tmp, dpi=90, format="png"),
-                 suffix=".png")
-    plt.close(fig)
+    _save_png(fig, out, files, "release", "release.png")
     return files
 
 
