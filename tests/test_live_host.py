@@ -373,3 +373,22 @@ def test_real_ab_pair_is_loudness_matched():
     assert abs(h.loudness_offset_db) > 3.0               # they did differ
     assert integrated_loudness(ya, FS) == pytest.approx(integrated_loudness(yb, FS), abs=0.3)
     h.close()
+
+
+def test_scope_tail_gives_exactly_the_last_n_pairs_while_the_writer_moves_on():
+    # the audio thread may write more frames between reading the count and
+    # reading the frames: the scope still gets exactly n, the newest
+    import numpy as np
+    from solderless.engine.live.host import scope_tail
+
+    class MovingRing:
+        written = 100
+
+        def read_new(self, start):
+            self.written += 64                      # the writer moved on meanwhile
+            frames = np.stack([np.arange(start, self.written, dtype=float)] * 2, axis=1)
+            return frames, self.written, 0
+
+    x, y = scope_tail(MovingRing(), 40)
+    assert len(x) == 40 and x[-1] == 163.0 and x[0] == 124.0
+    assert len(scope_tail(MovingRing(), 0)[0]) == 0

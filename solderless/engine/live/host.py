@@ -174,8 +174,9 @@ def _measure(sim, fs, block, oversample, probes):
 
 def scope_tail(ring: FrameRing, n: int) -> tuple[np.ndarray, np.ndarray]:
     """The last ``n`` pairs of a scope ring as (input, output) arrays."""
-    end = ring.written
-    frames, _, _ = ring.read_new(max(0, end - int(n)))
+    n = int(n)
+    frames, _, _ = ring.read_new(max(0, ring.written - n))
+    frames = frames[-n:] if n > 0 else frames[:0]   # the writer may have moved on
     return frames[:, 0].copy(), frames[:, 1].copy()
 
 
