@@ -48,6 +48,21 @@ def config_dir() -> Path:
     return Path(base) / "solderless"
 
 
+CACHE_ENV = "SOLDERLESS_CACHE_DIR"
+
+
+def cache_dir() -> Path:
+    """The cache folder (things made again when missing, such as the
+    ahead-of-time kernel module), by the same rule as :func:`config_dir`:
+    ``$SOLDERLESS_CACHE_DIR`` if set and not empty, else
+    ``$XDG_CACHE_HOME/solderless``, else ``~/.cache/solderless``."""
+    env = os.environ.get(CACHE_ENV)
+    if env:
+        return Path(env)
+    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
+    return Path(base) / "solderless"
+
+
 class SettingsFile:
     """A small JSON settings file in a config folder.
 

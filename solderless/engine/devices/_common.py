@@ -16,7 +16,7 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from numba import njit
+from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
 from solderless.engine.errors import DesignError
 

@@ -35,7 +35,7 @@ import math
 import re
 
 import numpy as np
-from numba import njit
+from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
 from solderless.engine.devices._common import DeviceLayout
 from solderless.engine.errors import DesignError

@@ -42,7 +42,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
+from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
 from solderless.engine.devices._common import (GMIN, DeviceLayout, circuit_temp,
                                     depletion_cap, junction, junction_py, junction_temp,

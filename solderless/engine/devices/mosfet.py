@@ -33,7 +33,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
+from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
 from solderless.engine.devices._common import (GMIN, VT, DeviceLayout, depletion_cap, junction,
                                     pnjlim, polarity, read_params, vcrit)

@@ -16,7 +16,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
+from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
 from solderless.engine.devices._common import DeviceLayout, lexp, pnjlim, read_params, vcrit
 from solderless.engine.analysis import regions

@@ -18,7 +18,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
+from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
 from solderless.engine.devices._common import (GMIN, VT, DeviceLayout, junction, pnjlim,
                                     read_params, vcrit)

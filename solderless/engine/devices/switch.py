@@ -22,7 +22,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
+from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
 from solderless.engine.devices._common import DeviceLayout, read_params
 from solderless.engine.devices.registry import DeviceKind

@@ -17,7 +17,6 @@ import numpy as np
 from solderless.engine.circuit import GROUND, canonical_net
 from solderless.engine.devices._common import NOISE_ONLY, ignored_note
 from solderless.engine.errors import SolveError
-from solderless.engine.solver.kernel import eval_devices, limit_devices
 from solderless.engine.solver.mna import Network, device_arrays
 from solderless.engine.solver.statespace import solve_mna
 
@@ -42,6 +41,9 @@ def _newton(net, S, Bu, Bn, P, u, arrays, v0, maxit=150, off=None, extra=None):
     hold of .nodeset/.ic nets, whose conductance is already in S)."""
     dcode, dpo, dnp, dpa, par, _ = arrays
     npt = net.np_
+    from solderless.engine.solver.aot import kernels   # compiled ahead of time, or JIT
+    kern = kernels()
+    eval_devices, limit_devices = kern.eval_devices, kern.limit_devices
     v = v0.copy()
     i = np.zeros(npt)
     G = np.zeros((npt, npt))

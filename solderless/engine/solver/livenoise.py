@@ -41,9 +41,9 @@ import math
 from dataclasses import replace
 
 import numpy as np
-from numba import njit
 
 from solderless.engine.circuit import Circuit, Element
+from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 from solderless.engine.solver import kernel_layout as KL
 from solderless.engine.solver.dcop import solve_dc
 from solderless.engine.solver.mna import Network
@@ -151,6 +151,8 @@ class HissSimulator(Simulator):
 
     def __init__(self, circuit: Circuit, *args, seed: int = 0, flicker: bool = True,
                  prune: bool = True, **kwargs):
+        from solderless.engine import lazyjit
+        lazyjit.activate()      # _scatter compiled (a render without noise never gets here)
         base = Network(circuit)
         found = noise_sources(base, solve_dc(base))
         srcs = [s for s in found.sources if flicker or s.kind != FLICKER]

@@ -479,7 +479,8 @@ class Network:
 
     def source_values(self, t: float = 0.0, values: dict | None = None) -> np.ndarray:
         """Independent source values at time t (DC value when no waveform)."""
-        from solderless.engine.solver.kernel import wave_value
+        from solderless.engine.solver.aot import kernels   # compiled ahead of time, or JIT
+        wave_value = kernels().wave_value
         values = self.values if values is None else values
         u = np.zeros(self.nu)
         for k, el in enumerate(self.sources):

@@ -48,9 +48,9 @@ from __future__ import annotations
 from functools import lru_cache
 
 import numpy as np
-import numba
 
 from solderless.engine.errors import DesignError
+from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
 ALLOWED_FACTORS = (1, 2, 4, 8)
 
@@ -138,7 +138,7 @@ def _ceil_to(n: int, m: int) -> int:
     return -(-n // m) * m
 
 
-@numba.njit(nogil=True, cache=True, fastmath=_FM)
+@njit(nogil=True, cache=True, fastmath=_FM, _nrt=False)
 def _up_kernel(x, n, rphases, buf, out):  # pragma: no cover - compiled
     """Polyphase interpolation of ``x[:n]`` into ``out[:n*L]``.
 
@@ -160,7 +160,7 @@ def _up_kernel(x, n, rphases, buf, out):  # pragma: no cover - compiled
         buf[i] = buf[n + i]
 
 
-@numba.njit(nogil=True, cache=True, fastmath=_FM)
+@njit(nogil=True, cache=True, fastmath=_FM, _nrt=False)
 def _down_kernel(y, m, L, hr, buf, out):  # pragma: no cover - compiled
     """Polyphase decimation by ``L`` of ``y[:m*L]`` into ``out[:m]``.
 
@@ -183,6 +183,14 @@ def _down_kernel(y, m, L, hr, buf, out):  # pragma: no cover - compiled
         out[i] = acc
     for i in range(hist):
         buf[i] = buf[total + i]
+
+
+_F8 = np.dtype(np.float64)
+
+
+def _block_fits(x, out) -> bool:
+    """A block's arrays fit the ahead-of-time filters (float64 vectors)."""
+    return x.dtype == _F8 and out.dtype == _F8 and x.ndim == 1 and out.ndim == 1
 
 
 class Resampler:
@@ -249,6 +257,16 @@ class Resampler:
         self._h = np.ascontiguousarray(h_down[::-1], dtype=np.float64)
         self._up_buf = np.zeros(k_up - 1 + self.block_max)
         self._down_buf = np.zeros(n_down - 1 + self.block_max * L)
+        # the filter loops, ahead-of-time compiled or JIT (solver/aot.py);
+        # the module's are called only with float64 blocks (_block_fits)
+        from solderless.engine.solver.aot import jit_kernels, kernels
+        kern = kernels()
+        if not (kern.fits("up_kernel", (self._phases, self._up_buf), 2)
+                and kern.fits("down_kernel", (self._h, self._down_buf), 3)):
+            kern = jit_kernels()
+        self._aot = kern.aot
+        self._up = kern.raw("up_kernel")
+        self._down = kern.raw("down_kernel")
         # Load (or compile) the kernels now, off the audio thread, for the
         # float64 contiguous arrays the audio thread will pass.
         probe = np.zeros(1)
@@ -270,7 +288,10 @@ class Resampler:
         if self.factor == 1:
             out[:n] = x
             return
-        _up_kernel(x, n, self._phases, self._up_buf, out)
+        if self._aot and not _block_fits(x, out):
+            self._jit_up(x, n, self._phases, self._up_buf, out)
+            return
+        self._up(x, n, self._phases, self._up_buf, out)
 
     def down_into(self, y: np.ndarray, out: np.ndarray) -> None:
         """Downsample ``y`` (``len(y)`` a multiple of ``factor``) into ``out[:len(y)//factor]``.
@@ -288,7 +309,20 @@ class Resampler:
             return
         if m == 0:
             return
-        _down_kernel(y, m, L, self._h, self._down_buf, out)
+        if self._aot and not _block_fits(y, out):
+            self._jit_down(y, m, L, self._h, self._down_buf, out)
+            return
+        self._down(y, m, L, self._h, self._down_buf, out)
+
+    @staticmethod
+    def _jit_up(*args):
+        from solderless.engine.solver.aot import jit_kernels
+        jit_kernels().up_kernel(*args)
+
+    @staticmethod
+    def _jit_down(*args):
+        from solderless.engine.solver.aot import jit_kernels
+        jit_kernels().down_kernel(*args)
 
     # ------------------------------------------------------------- offline
     def up(self, x) -> np.ndarray:

@@ -15,7 +15,6 @@ import numpy as np
 from solderless.engine.circuit import Circuit, GROUND, canonical_net
 from solderless.engine.errors import DesignError
 from solderless.engine.probes import parse_probe
-from solderless.engine.solver import kernel as K
 from solderless.engine.solver import kernel_layout as KL
 from solderless.engine.solver.dcop import OperatingPoint, report, solve_dc
 from solderless.engine.solver.mna import VALUE_KINDS, Network, device_arrays, source_wave
@@ -156,6 +155,16 @@ def source_rate_warnings(net: Network, step: float) -> list[str]:
     return out
 
 
+_F8 = np.dtype(np.float64)
+
+
+def _block_fits(x, y, pb) -> bool:
+    """The block's own arrays fit the ahead-of-time runners (float64, any
+    layout)."""
+    return (x.dtype == _F8 and y.dtype == _F8 and pb.dtype == _F8 and x.ndim == 1
+            and y.ndim == 1 and pb.ndim == 2)
+
+
 class Simulator:
     """Real-time simulation of a flat circuit.
 
@@ -197,6 +206,10 @@ class Simulator:
         self.fs = float(fs)
         self.oversample = int(oversample)
         self.block_max = int(block_max)
+        # the compiled entry points: the ahead-of-time module when a fresh
+        # one exists, else the JIT kernel (solver/aot.py)
+        from solderless.engine.solver.aot import kernels
+        self._K = kernels()
         from solderless.engine.solver.oversample import Resampler
         self._rs = Resampler(self.oversample, self.block_max, self.fs)
         self.latency_samples = float(self._rs.latency)
@@ -226,7 +239,12 @@ class Simulator:
         #: circuit temperature, degrees Celsius (None: 27)
         self.temperature = circuit.temperature
         # one or two nonlinear ports: the lean path (same state and counters)
-        self._run = K.run_block_small if 0 < net.np_ <= KL.SMALL_PORTS else K.run_block
+        self._runner = "run_block_small" if 0 < net.np_ <= KL.SMALL_PORTS else "run_block"
+        self._run = self._K.raw(self._runner)
+        #: whether _run is the ahead-of-time module's (it checks no argument:
+        #: _args checks the simulator's arrays, process_into the block's)
+        self._run_aot = self._K.aot
+        self._acache = None
         skind, spars = [], []
         for k, el in enumerate(net.sources):
             kd, par = source_wave(el, self._T)
@@ -405,7 +423,7 @@ class Simulator:
             self._arr = a
         m = self._next
         if m is not self._model:
-            K.convert_states(self._x, self._xp, self._model.g, m.g, m.a, m.b)
+            self._K.convert_states(self._x, self._xp, self._model.g, m.g, m.a, m.b)
             self._model = m
         return m
 
@@ -422,13 +440,16 @@ class Simulator:
         n = x.shape[0]
         pb = self._nopb if probe_buf is None else probe_buf
         pcap = pb.shape[1] if pb.shape[0] else 0
+        args = self._args(m)
         run = self._run
+        if self._run_aot and not _block_fits(x, y, pb):
+            run = getattr(self._jit(), self._runner)
         if self.oversample == 1:
-            return run(x, n, y, pb, probe_start, pcap, self._pdec, *self._args(m))
+            return run(x, n, y, pb, probe_start, pcap, self._pdec, *args)
         L = self.oversample
         xu, yu = self._xin_up, self._y_up
         self._rs.up_into(x, xu)
-        frames = run(xu, n * L, yu, pb, probe_start, pcap, self._pdec, *self._args(m))
+        frames = run(xu, n * L, yu, pb, probe_start, pcap, self._pdec, *args)
         yv = yu[:n * L]
         yv -= self._ydc
         self._rs.down_into(yv, y)
@@ -437,13 +458,29 @@ class Simulator:
 
     def _args(self, m: Model):
         """The block runners' arguments after ``pdec``, in the order of
-        kernel_layout.RUN_BLOCK_ARGS."""
+        kernel_layout.RUN_BLOCK_ARGS.  Made (and, for the ahead-of-time
+        module, checked against its signature) once per model, device
+        arrays and source arrays; a misfit runs the JIT kernel instead."""
+        c = self._acache
+        if (c is not None and c[0] is m and c[1] is self._arr and c[2] is self._spar
+                and c[3] is self._sptr and c[4] is self._skind):
+            return c[5]
         dcode, dpo, dnp, dpa, par, dqs = self._arr
-        return (m.Pz, m.p0, m.Az, m.x0, m.Ck, m.Kk, m.Yz, m.y0, m.Fyk, m.Vyk, m.kc,
-                dcode, dpo, dnp, dpa, par, dqs,
-                m.uvar, self._skind, self._sptr, self._spar, self.net.input_index,
-                self._T, self._z, self._xp, self._v, self._i, self._pprev, self._ws,
-                self._G, self._Gf, self._J, self._Ji, self._yrow, self._state, self._stats)
+        t = (m.Pz, m.p0, m.Az, m.x0, m.Ck, m.Kk, m.Yz, m.y0, m.Fyk, m.Vyk, m.kc,
+             dcode, dpo, dnp, dpa, par, dqs,
+             m.uvar, self._skind, self._sptr, self._spar, self.net.input_index,
+             self._T, self._z, self._xp, self._v, self._i, self._pprev, self._ws,
+             self._G, self._Gf, self._J, self._Ji, self._yrow, self._state, self._stats)
+        if self._run_aot and not self._K.fits(self._runner, t, start=7):
+            self._run = getattr(self._jit(), self._runner)
+            self._run_aot = False
+        self._acache = (m, self._arr, self._spar, self._sptr, self._skind, t)
+        return t
+
+    @staticmethod
+    def _jit():
+        from solderless.engine.solver.aot import jit_kernels
+        return jit_kernels()
 
     def process(self, x, probe_buf: np.ndarray | None = None) -> np.ndarray:
         """Offline convenience: process any length of input; allocates y."""

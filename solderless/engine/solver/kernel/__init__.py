@@ -87,6 +87,12 @@ from solderless.engine.solver.kernel.params import (  # noqa: E402
 from solderless.engine.solver.kernel.sources import load_sources, wave_value  # noqa: E402
 from solderless.engine.solver.kernel_layout import (  # noqa: E402
     ERR_TOL, J_EXTRA_ROWS, PORT_G0, RELTOL, SMALL_PORTS, UPDATE_PORTS)
+from solderless.engine import lazyjit  # noqa: E402
+
+# Importing the kernel package means the JIT kernel is wanted: wrap every
+# kernel and device function with numba now (solderless/engine/lazyjit.py;
+# a render with the ahead-of-time module, solver/aot.py, never imports this).
+lazyjit.activate()
 
 __all__ = [
     "convert_states", "finish_sample", "run_block", "run_block_small", "solve_ports",

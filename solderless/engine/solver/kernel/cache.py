@@ -11,8 +11,9 @@ device modules, wherever numba keeps it, so that all of it compiles again.
 """
 from __future__ import annotations
 
-import hashlib
 from pathlib import Path
+
+from solderless.engine.solver import kernel_sources
 
 KERNEL_DIR = Path(__file__).resolve().parent
 SOLVER_DIR = KERNEL_DIR.parent
@@ -21,18 +22,15 @@ STAMP_NAME = "kernel.sources.sha1"
 
 
 def source_files() -> list[Path]:
-    """Every source file whose contents end up in the compiled kernel."""
-    files = sorted(KERNEL_DIR.glob("*.py")) + [SOLVER_DIR / "kernel_layout.py"]
-    return files + sorted(DEVICES_DIR.glob("*.py"))
+    """Every source file whose contents end up in the compiled kernel (the
+    list lives in solver/kernel_sources.py, shared with the ahead-of-time
+    module's key)."""
+    return kernel_sources.source_files(KERNEL_DIR, SOLVER_DIR, DEVICES_DIR)
 
 
 def sources_hash() -> str:
     """SHA-1 over the names and contents of :func:`source_files`."""
-    h = hashlib.sha1()
-    for f in source_files():
-        h.update(f.name.encode())
-        h.update(f.read_bytes())
-    return h.hexdigest()
+    return kernel_sources.sources_hash(source_files())
 
 
 def cache_dirs(src_dir: Path) -> list[Path]:

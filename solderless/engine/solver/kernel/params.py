@@ -3,7 +3,7 @@ shares.  Constants the Python side needs too (tolerances, PORT_G0, slots)
 live in :mod:`solderless.engine.solver.kernel_layout`."""
 from __future__ import annotations
 
-from numba import njit
+from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
 #: Most iterations of one port solve (chord and Newton together).
 MAXIT = 30
@@ -69,6 +69,7 @@ def kernel_jit(**options):
     """numba's njit with the options every kernel function shares: disk
     cache, GIL released, numpy error model (no exceptions from division),
     no runtime (so no allocation), fast-math FM.  ``options`` adds
-    ``inline=`` where wanted."""
+    ``inline=`` where wanted.  Applied lazily (solderless/engine/lazyjit.py):
+    numba wraps the function when the kernel package is imported."""
     return njit(cache=True, nogil=True, error_model="numpy", _nrt=False, fastmath=FM,
                 **options)
