@@ -21,7 +21,14 @@ a 220 Hz sine, 0.5 of full scale, written here as a 32-bit float WAV at
     * ``python -X importtime``: the slowest imports (cumulative);
     * numba: the time each dispatcher spends loading its cached machine code
       on its first call (``numba.core.caching.Cache.load_overload`` timed),
-      and how many were compiled instead (a cold cache).
+      and how many were compiled instead (a cold cache) -- only when the
+      render runs the JIT kernel; with the ahead-of-time kernel module
+      (solderless/engine/solver/aot.py, built here first if not fresh) numba
+      is never imported, which the child reports.
+
+    The render and the 10 s render are measured twice: with the
+    ahead-of-time module (what a render uses when it is fresh) and with the
+    JIT kernel forced (``SOLDERLESS_JIT=1``, what it uses otherwise).
 
 (b) 10 s at 96 kHz, whole processes: ``python -m solderless.app.cli render`` (no
     oversampling: the same time step as ngspice) against ``ngspice -b`` on
@@ -84,21 +91,25 @@ def _phases(argv: list[str]) -> None:
     circ = d.flatten()
     mark("read design and WAV")
     from solderless.engine.solver import Simulator
-    mark("import solver (numba, kernels module)")
-    # time every cache load (and count compilations) from here on
-    from numba.core import caching
-    orig = caching.Cache.load_overload
+    mark("import solver")
+    from solderless.engine.solver.aot import kernels
+    kern = kernels()
+    mark("load the ahead-of-time module" if kern.aot else "import numba, the JIT kernels")
+    if not kern.aot:
+        # time every cache load (and count compilations) from here on
+        from numba.core import caching
+        orig = caching.Cache.load_overload
 
-    def timed(self, sig, target_context, _orig=orig):
-        t0 = time.perf_counter()
-        r = _orig(self, sig, target_context)
-        f = getattr(self, "_py_func", None)
-        key = f"{f.__module__}.{f.__qualname__}" if f is not None else str(self)
-        loads[key] = loads.get(key, 0.0) + time.perf_counter() - t0
-        if r is None:
-            loads[key + " (compiled: cache miss)"] = 0.0
-        return r
-    caching.Cache.load_overload = timed
+        def timed(self, sig, target_context, _orig=orig):
+            t0 = time.perf_counter()
+            r = _orig(self, sig, target_context)
+            f = getattr(self, "_py_func", None)
+            key = f"{f.__module__}.{f.__qualname__}" if f is not None else str(self)
+            loads[key] = loads.get(key, 0.0) + time.perf_counter() - t0
+            if r is None:
+                loads[key + " (compiled: cache miss)"] = 0.0
+            return r
+        caching.Cache.load_overload = timed
     sim = Simulator(circ, fs=float(fs), oversample=args.oversample or d.oversample)
     mark("build simulator (DC operating point)")
     v = x[:, 0] * args.input_fs_volts
@@ -107,6 +118,8 @@ def _phases(argv: list[str]) -> None:
     mark("first block")
     t_first = time.time() - t_spawn
     print(json.dumps({"marks": marks, "first_sample_s": t_first,
+                      "kernel": "ahead-of-time module" if kern.aot else "JIT",
+                      "numba_imported": "numba" in sys.modules,
                       "cache_loads": sorted(loads.items(), key=lambda kv: -kv[1])}))
 
 
@@ -121,10 +134,17 @@ def _python() -> list[str]:
     return [sys.executable]
 
 
+#: set by main() for the forced-JIT runs
+JIT = False
+
+
 def _env(pyc: bool = False) -> dict:
     env = dict(os.environ)
     if pyc:     # as an installed package runs: bytecode cached in __pycache__
         env.pop("PYTHONDONTWRITEBYTECODE", None)
+    env.pop("SOLDERLESS_JIT", None)
+    if JIT:
+        env["SOLDERLESS_JIT"] = "1"
     env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
     return env
 
@@ -217,10 +237,21 @@ def main() -> int:
     long_cmd = render + [str(long_), str(tmp / "o2.wav"), "--output-fs-volts", "10",
                          "--oversample", "1"]
 
+    global JIT
+    sys.path.insert(0, str(ROOT))
+    from solderless.engine.solver import aot
+    t0 = time.perf_counter()
+    fresh = aot.find() is not None
+    aot.build(quiet=True)
+    build_s = None if fresh else time.perf_counter() - t0
     run_timed(short_cmd)                                  # warm the cache (compile once)
+    JIT = True
+    run_timed(short_cmd)
+    JIT = False
     res = {"machine": platform.platform(), "python": platform.python_version(),
            "cpu_count": os.cpu_count(), "load_avg_at_start": os.getloadavg(),
-           "label": a.label, "netlist": "bench/netlists/clipper2.cir", "fs": FS}
+           "label": a.label, "netlist": "bench/netlists/clipper2.cir", "fs": FS,
+           "kernel_module": aot.module_name(), "kernel_module_build_s": build_s}
     res["python_bare"] = best_of([sys.executable, "-c", "pass"], a.repeat)
     res["import_numpy"] = best_of([sys.executable, "-c", "import numpy"], a.repeat)
     res["startup_render_10ms"] = best_of(short_cmd, a.repeat)
@@ -240,16 +271,24 @@ def main() -> int:
         phases.append(json.loads(out.stdout.strip().splitlines()[-1]))
     best = min(phases, key=lambda p: p["first_sample_s"])
     res["first_sample"] = {"min_s": best["first_sample_s"], "breakdown_of_best": best["marks"],
+                           "kernel": best["kernel"], "numba_imported": best["numba_imported"],
                            "cache_loads_of_best": best["cache_loads"]}
     res["importtime_top"] = importtime(short_cmd)
 
     res["render_10s_solderless"] = best_of(long_cmd, max(2, a.repeat // 2))
+    # the same two with the JIT kernel forced (no fresh module)
+    JIT = True
+    res["startup_render_10ms_pyc_jit"] = best_of(short_cmd, a.repeat, pyc=True)
+    res["render_10s_solderless_jit"] = best_of(long_cmd, max(2, a.repeat // 2))
+    JIT = False
     ng = ngspice_render(a.seconds, tmp)
     res["render_10s_ngspice"] = best_of(ng, max(2, a.repeat // 2), cwd=tmp,
                                         writes=tmp / "out.raw")
     sl, ns = res["render_10s_solderless"], res["render_10s_ngspice"]
     res["ratio_ngspice_over_solderless_wall"] = ns["wall_min_s"] / sl["wall_min_s"]
     res["ratio_ngspice_over_solderless_cpu"] = ns["cpu_min_s"] / sl["cpu_min_s"]
+    res["ratio_ngspice_over_solderless_jit_wall"] = (
+        ns["wall_min_s"] / res["render_10s_solderless_jit"]["wall_min_s"])
     res["seconds"] = a.seconds
 
     print(f"start-up of a one-off render ({FS} Hz, {res['netlist']}); min of "
@@ -258,10 +297,12 @@ def main() -> int:
     for k, name in (("python_bare", "python -c pass"), ("import_numpy", "python -c 'import numpy'"),
                     ("help", "solderless --help"),
                     ("startup_render_10ms", "render 10 ms (whole process)"),
-                    ("startup_render_10ms_pyc", "  the same, bytecode cache allowed")):
+                    ("startup_render_10ms_pyc", "  the same, bytecode cache allowed"),
+                    ("startup_render_10ms_pyc_jit", "  the same, JIT kernel forced")):
         print(f"{name:<44}{res[k]['wall_min_s']:9.3f}{res[k]['cpu_min_s']:9.3f}")
     print(f"{'time to first sample':<44}{res['first_sample']['min_s']:9.3f}")
-    print("breakdown (best run):")
+    print(f"breakdown (best run; kernel: {best['kernel']}, numba imported: "
+          f"{best['numba_imported']}):")
     for name, t in best["marks"]:
         print(f"  {name:<42}{t:9.3f}")
     print("numba cached-code loads (best run):")
@@ -272,9 +313,14 @@ def main() -> int:
         print(f"  {name[:42]:<42}{t:9.3f}")
     print(f"10 s render at {FS} Hz, whole processes:")
     print(f"  {'solderless render':<42}{sl['wall_min_s']:9.3f}{sl['cpu_min_s']:9.3f}")
+    sj = res["render_10s_solderless_jit"]
+    print(f"  {'  the same, JIT kernel forced':<42}{sj['wall_min_s']:9.3f}{sj['cpu_min_s']:9.3f}")
     print(f"  {'ngspice -b (same step)':<42}{ns['wall_min_s']:9.3f}{ns['cpu_min_s']:9.3f}")
     print(f"  ngspice / solderless: {res['ratio_ngspice_over_solderless_wall']:.2f}x wall, "
-          f"{res['ratio_ngspice_over_solderless_cpu']:.2f}x cpu")
+          f"{res['ratio_ngspice_over_solderless_cpu']:.2f}x cpu "
+          f"(JIT forced: {res['ratio_ngspice_over_solderless_jit_wall']:.2f}x wall)")
+    if build_s is not None:
+        print(f"kernel module built first: {build_s:.1f} s")
     if a.baseline:
         b = json.loads(Path(a.baseline).read_text())
         res["baseline"] = b
