@@ -36,6 +36,12 @@ a 220 Hz sine, 0.5 of full scale, written here as a 32-bit float WAV at
     truncation-error control off: the same step; tests/spice_ref.py), its
     source the same sine as a SIN source, writing v(out) to a raw file.
 
+(c) Running speed, module against JIT: the same designs rendered in one
+    process through the ahead-of-time module and through the JIT kernel,
+    interleaved run by run (best CPU time of ``--repeat``), as real-time
+    factors: a module built for a generic CPU would be slower; this one is
+    built for the host.
+
 Prints a table and writes bench/results/startup.json.
 
     python bench/bench_startup.py [--repeat 5] [--seconds 10] [--baseline OLD.json]
@@ -219,6 +225,45 @@ def ngspice_render(seconds: float, tmp: Path) -> list[str]:
     return ["ngspice", "-b", str(deck.name)]
 
 
+SPEED_DESIGNS = ("flagship", "booster", "bench/netlists/clipper2.cir")
+
+
+def running_speed(repeat: int, seconds: float = 4.0) -> dict:
+    """Real-time factors (audio s / CPU s, best of ``repeat``) of a few
+    designs through the module and through the JIT kernel, interleaved."""
+    import numpy as np
+    from solderless.engine.design import load_design
+    from solderless.engine.solver import Simulator, aot
+    from solderless.engine.synth import render_phrase
+    fs = 48000.0
+    x = render_phrase("demo", fs)[: int(seconds * fs)]
+    kinds = {"module": aot.Kernels(aot.load()), "jit": aot.jit_kernels()}
+    out = {}
+    for name in SPEED_DESIGNS:
+        src = str(ROOT / name) if name.endswith(".cir") else name
+        d = load_design(src)
+        sims = {}
+        for k, kern in kinds.items():
+            aot._kernels = kern
+            sims[k] = Simulator(d.flatten(), fs=fs, oversample=d.oversample)
+            sims[k].process(x[:256])
+        aot._kernels = None
+        best = {k: float("inf") for k in sims}
+        ys = {}
+        for _ in range(repeat):
+            for k, sim in sims.items():
+                sim.reset()
+                t0 = time.process_time()
+                ys[k] = sim.process(x)
+                best[k] = min(best[k], time.process_time() - t0)
+        row = {f"{k}_rt": seconds / best[k] for k in sims}
+        row["module_over_jit_time"] = best["module"] / best["jit"]
+        row["max_abs_difference_v"] = float(np.max(np.abs(ys["module"] - ys["jit"])))
+        row["oversample"] = d.oversample
+        out[Path(name).stem] = row
+    return out
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--repeat", type=int, default=5)
@@ -276,6 +321,7 @@ def main() -> int:
     res["importtime_top"] = importtime(short_cmd)
 
     res["render_10s_solderless"] = best_of(long_cmd, max(2, a.repeat // 2))
+    res["render_10s_solderless_pyc"] = best_of(long_cmd, max(2, a.repeat // 2), pyc=True)
     # the same two with the JIT kernel forced (no fresh module)
     JIT = True
     res["startup_render_10ms_pyc_jit"] = best_of(short_cmd, a.repeat, pyc=True)
@@ -289,7 +335,10 @@ def main() -> int:
     res["ratio_ngspice_over_solderless_cpu"] = ns["cpu_min_s"] / sl["cpu_min_s"]
     res["ratio_ngspice_over_solderless_jit_wall"] = (
         ns["wall_min_s"] / res["render_10s_solderless_jit"]["wall_min_s"])
+    res["ratio_ngspice_over_solderless_pyc_wall"] = (
+        ns["wall_min_s"] / res["render_10s_solderless_pyc"]["wall_min_s"])
     res["seconds"] = a.seconds
+    res["running_speed"] = running_speed(a.repeat)
 
     print(f"start-up of a one-off render ({FS} Hz, {res['netlist']}); min of "
           f"{a.repeat} runs, load average at start {res['load_avg_at_start'][0]:.1f}")
@@ -313,6 +362,8 @@ def main() -> int:
         print(f"  {name[:42]:<42}{t:9.3f}")
     print(f"10 s render at {FS} Hz, whole processes:")
     print(f"  {'solderless render':<42}{sl['wall_min_s']:9.3f}{sl['cpu_min_s']:9.3f}")
+    sp = res["render_10s_solderless_pyc"]
+    print(f"  {'  the same, bytecode cache allowed':<42}{sp['wall_min_s']:9.3f}{sp['cpu_min_s']:9.3f}")
     sj = res["render_10s_solderless_jit"]
     print(f"  {'  the same, JIT kernel forced':<42}{sj['wall_min_s']:9.3f}{sj['cpu_min_s']:9.3f}")
     print(f"  {'ngspice -b (same step)':<42}{ns['wall_min_s']:9.3f}{ns['cpu_min_s']:9.3f}")
@@ -321,6 +372,11 @@ def main() -> int:
           f"(JIT forced: {res['ratio_ngspice_over_solderless_jit_wall']:.2f}x wall)")
     if build_s is not None:
         print(f"kernel module built first: {build_s:.1f} s")
+    print("running speed, times real time (CPU time, best of the interleaved runs):")
+    print(f"  {'design':<20}{'oversample':>11}{'module':>9}{'JIT':>9}{'time ratio':>12}")
+    for name, r in res["running_speed"].items():
+        print(f"  {name:<20}{r['oversample']:>11}{r['module_rt']:9.1f}{r['jit_rt']:9.1f}"
+              f"{r['module_over_jit_time']:12.3f}")
     if a.baseline:
         b = json.loads(Path(a.baseline).read_text())
         res["baseline"] = b

@@ -189,8 +189,10 @@ _F8 = np.dtype(np.float64)
 
 
 def _block_fits(x, out) -> bool:
-    """A block's arrays fit the ahead-of-time filters (float64 vectors)."""
-    return x.dtype == _F8 and out.dtype == _F8 and x.ndim == 1 and out.ndim == 1
+    """A block's arrays fit the ahead-of-time filters (C-contiguous float64
+    vectors)."""
+    return (x.dtype == _F8 and out.dtype == _F8 and x.ndim == 1 and out.ndim == 1
+            and x.flags.c_contiguous and out.flags.c_contiguous)
 
 
 class Resampler:

@@ -159,10 +159,11 @@ _F8 = np.dtype(np.float64)
 
 
 def _block_fits(x, y, pb) -> bool:
-    """The block's own arrays fit the ahead-of-time runners (float64, any
-    layout)."""
+    """The block's own arrays fit the ahead-of-time runners (C-contiguous
+    float64)."""
     return (x.dtype == _F8 and y.dtype == _F8 and pb.dtype == _F8 and x.ndim == 1
-            and y.ndim == 1 and pb.ndim == 2)
+            and y.ndim == 1 and pb.ndim == 2 and x.flags.c_contiguous
+            and y.flags.c_contiguous and pb.flags.c_contiguous)
 
 
 class Simulator:
