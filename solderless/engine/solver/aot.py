@@ -330,7 +330,7 @@ def build(dest: Path | None = None, force: bool = False, quiet: bool = False) ->
         shutil.copyfile(built[0], part)
         os.replace(part, target)          # atomic: a loader sees all of it or nothing
     if dest == SOLVER_DIR / "__pycache__":  # one checkout, one module: drop stale ones
-        for old in dest.glob(NAME_PREFIX + "*"):
+        for old in dest.glob(NAME_PREFIX + "*" + importlib.machinery.EXTENSION_SUFFIXES[0]):
             if old.name != target.name:
                 old.unlink(missing_ok=True)
     if not quiet:
