@@ -1,0 +1,217 @@
+"""Live noise switched on and off while playing: the SetHiss edit
+(solderless.engine.design.edits), the live host applying it
+(solderless.engine.live.host), the console's ``hiss`` command and the
+amplitude switch of the noisy simulator (solderless.engine.solver.livenoise).
+
+References (docs/references.md, "Noise"): the small-signal noise analysis,
+itself checked against ngspice-39's noise analysis (tests/test_noise.py), is
+the expectation for the live noise floor, unweighted and A-weighted (IEC
+61672-1:2013 Annex E); the live spectrum is estimated with SciPy's Welch
+method (``scipy.signal.welch``), as in tests/test_live_noise.py.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from solderless.engine.analysis.noise import a_weighting, floor_summary, noise_floor
+from solderless.engine.design import load_design
+from solderless.engine.design.edits import SetHiss, SetValue, apply_edit
+from solderless.engine.errors import DesignError
+from solderless.engine.formats.spice import parse_netlist
+from solderless.engine.live import host as H
+from solderless.engine.live.source import Source
+from solderless.engine.solver import Simulator
+from solderless.engine.solver.livenoise import HissSimulator
+
+import noise_circuits as NC  # noqa: E402
+
+FS = 48000.0
+BLOCK = 256
+
+
+def _band_rms(y, fs, weight=None, band=(20.0, 20e3)):
+    """RMS over 20 Hz-20 kHz from SciPy's Welch estimate (the check of
+    tests/test_live_noise.py)."""
+    from scipy.signal import welch
+    f, p = welch(y - y.mean(), fs=fs, nperseg=8192)
+    m = (f >= band[0]) & (f <= band[1])
+    if weight is not None:
+        p = p * weight(f) ** 2
+    return math.sqrt(np.trapezoid(p[m], f[m]))
+
+
+@pytest.fixture
+def divider(tmp_path):
+    p = tmp_path / "divider.cir"
+    p.write_text(NC.DIVIDER + ".end\n")
+    return p
+
+
+def _host(design, **kw):
+    return H.LiveHost(design, fs=FS, block=BLOCK, source=Source(), autosave=False,
+                      level_db=0.0, **kw)
+
+
+def _blocks(seconds):
+    return int(seconds * FS / BLOCK)
+
+
+def test_host_switches_noise_on_and_off_while_playing(divider):
+    """Silence through a 10k/10k divider, played by the live host: switched
+    on, the output floor is the analysis' within 0.5 dB (unweighted and
+    A-weighted; the output is the sound card's, volts = samples x full
+    scale at 0 dB level); switched off, the output is bit for bit that of
+    a host that never had noise; undo (the inverse edit) brings it back;
+    the output limiter and the start ramp stay in the path."""
+    d = load_design(str(divider))
+    assert (d.hiss, d.hiss_seed) == (False, 0)
+    ref = _host(load_design(str(divider)))
+    h = _host(d)
+    try:
+        quiet_ref = ref.run_offline(_blocks(1.0))
+        quiet = h.run_offline(_blocks(1.0))
+        np.testing.assert_array_equal(quiet, quiet_ref)
+        assert h.hiss_state()["sources"] == 0        # off: the plain simulator plays
+        # on: the noisy simulator is built and crossfaded in
+        assert h.set_hiss(True, 4).result(60) == (True, 4)
+        assert h.hiss_state() == {"on": True, "seed": 4, "sources": 2}
+        h.run_offline(_blocks(0.5))
+        y = h.run_offline(_blocks(4.0)) * h.out_fs_v
+        fl = noise_floor(d.flatten())
+        assert abs(20 * math.log10(_band_rms(y, FS) / fl.v_rms)) < 0.5
+        assert abs(20 * math.log10(_band_rms(y, FS, a_weighting) / fl.v_rms_a)) < 0.5
+        assert np.max(np.abs(y)) < 1e-3       # microvolts of hiss, no click
+        # off: the sources stay in the kernel at zero amplitude
+        inverse = apply_edit(load_design(str(divider)), SetHiss(True, 4)).inverse
+        assert h.edit(SetHiss(False)).result(60) == (False, 4)
+        h.run_offline(1)                       # the block that was running
+        off = h.run_offline(_blocks(0.5))
+        on_ref = ref.run_offline(_blocks(1.5 + 0.5) + 1)[-off.size:]
+        np.testing.assert_array_equal(off, on_ref)
+        assert h.hiss_state()["sources"] == 2
+        # undo of the switch-on (its inverse edit) and redo
+        assert h.edit(inverse).result(60) == (False, 0)
+        assert h.edit(SetHiss(True)).result(60) == (True, 0)
+        y2 = h.run_offline(_blocks(3.0)) * h.out_fs_v
+        assert abs(20 * math.log10(_band_rms(y2[BLOCK:], FS) / fl.v_rms)) < 0.5
+        assert h.meters()["guard"] == ""
+    finally:
+        h.close()
+        ref.close()
+
+
+def test_a_structural_edit_keeps_the_noise_setting(divider):
+    """A rebuild (a value edit here does not rebuild; a temperature change
+    does not either) keeps the noise; a fresh build follows the design's
+    setting: noisy when on, plain when off."""
+    d = load_design(str(divider))
+    d.hiss = True
+    h = _host(d)
+    try:
+        h.prepare()
+        assert h.hiss_state()["sources"] == 2
+        h.edit(SetValue("R1", 40e3)).result(60)
+        v = h.voices[0]
+        assert isinstance(v.build(), HissSimulator)
+        h.edit(SetHiss(False)).result(60)
+        assert type(v.build()) is Simulator
+    finally:
+        h.close()
+
+
+def test_amplitude_switch_keeps_the_sequence_and_a_new_seed_restarts_it():
+    """Off then on again: the noise carries on where an uninterrupted run
+    of the same seed is (the draws go on while off); a new seed plays that
+    seed's sequence from its beginning; off plays the plain circuit (a
+    divider has no states, so exactly)."""
+    circ = parse_netlist(NC.DIVIDER + ".end\n", in_source="VIN", out_node="out").circuit
+    x = np.zeros(4800)
+    a = HissSimulator(circ, fs=FS, seed=3, block_max=1200)
+    b = HissSimulator(circ, fs=FS, seed=3, block_max=1200)
+    first = a.process(x)
+    np.testing.assert_array_equal(first, b.process(x))
+    a.set_hiss(False)
+    np.testing.assert_array_equal(a.process(x), Simulator(circ, fs=FS).process(x))
+    b.process(x)
+    a.set_hiss(True)
+    np.testing.assert_array_equal(a.process(x), b.process(x))
+    a.set_hiss(True, 9)
+    np.testing.assert_array_equal(a.process(x),
+                                  HissSimulator(circ, fs=FS, seed=9).process(x))
+
+
+def test_set_hiss_edit_keeps_the_document_and_undoes_exactly(tmp_path):
+    """The edit changes the model and the design file's [design] table;
+    its inverse puts the file's text back exactly; a saved and re-read
+    design plays with its noise."""
+    import shutil
+    from solderless.engine.design import builtin_designs
+    path = tmp_path / "b.toml"
+    shutil.copy(builtin_designs()["booster"], path)
+    d = load_design(str(path))
+    text0 = d.to_toml()
+    a = apply_edit(d, SetHiss(True, 12))
+    assert (d.hiss, d.hiss_seed) == (True, 12) and a.result == (True, 12)
+    assert not a.rebuild and not a.changes
+    assert "hiss = true" in d.to_toml() and "hiss_seed = 12" in d.to_toml()
+    d.save()
+    again = load_design(str(path))
+    assert (again.hiss, again.hiss_seed) == (True, 12)
+    b = apply_edit(d, SetHiss(False))
+    assert (d.hiss, d.hiss_seed) == (False, 12)
+    apply_edit(d, b.inverse)
+    apply_edit(d, a.inverse)
+    assert d.to_toml() == text0 and (d.hiss, d.hiss_seed) == (False, 0)
+
+
+def test_set_hiss_refusals_are_one_line():
+    """A seed that is not a whole number from 0, or a switch that is not
+    true/false, is refused when the edit is made; a design-shaped object
+    that is not a design refuses the edit; each a one-line DesignError."""
+    for bad in (-1, 2 ** 63, 1.5, "7"):
+        with pytest.raises(DesignError, match="hiss_seed must be a whole number") as e:
+            SetHiss(True, bad)
+        assert "\n" not in str(e.value)
+    with pytest.raises(DesignError, match="on or off"):
+        SetHiss("yes")
+
+    class Shaped:
+        def parts(self):
+            return []
+    with pytest.raises(DesignError, match="cannot take a SetHiss edit") as e:
+        apply_edit(Shaped(), SetHiss(True))
+    assert "\n" not in str(e.value)
+
+
+def test_console_hiss_command(divider):
+    """``hiss on [SEED]``, ``hiss off`` and ``hiss``: the same SetHiss edit
+    through the host; the floor line is the analysis' (the line render and
+    play print); a bad argument is one error line and changes nothing."""
+    from solderless.app.console import HELP, Console
+    from solderless.engine.analysis.noise import floor_line
+    d = load_design(str(divider))
+    h = _host(d)
+    try:
+        h.prepare()
+        said = []
+        con = Console(h, say=said.append)
+        con.handle("hiss on 7")
+        assert (d.hiss, d.hiss_seed) == (True, 7)
+        assert said[-1] == floor_line(floor_summary(d.flatten(), 7))
+        assert "dBV" in said[-1] and "A-weighted" in said[-1]
+        con.handle("hiss off")
+        assert (d.hiss, d.hiss_seed) == (False, 7)
+        assert said[-1].startswith("hiss off (seed 7)")
+        n = len(said)
+        for bad in ("hiss loud", "hiss on x", "hiss off 3", "hiss on 1 2", "hiss on 99999999999999999999"):
+            con.handle(bad)
+            assert len(said) == n + 1 and said[-1].startswith("error: "), bad
+            assert "\n" not in said[-1]
+            n += 1
+        assert (d.hiss, d.hiss_seed) == (False, 7)
+        assert "hiss on [SEED] / off" in HELP
+    finally:
+        h.close()
