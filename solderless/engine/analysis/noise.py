@@ -242,6 +242,13 @@ def floor_figures(s: dict) -> str:
             f"({s['dbv_a']:.1f} dBV, {s['dbu_a']:.1f} dBu) A-weighted")
 
 
+def floor_brief(s: dict) -> str:
+    """The floor from :func:`floor_summary` in a few words for a readout:
+    dBV unweighted, then A-weighted (the same figures as
+    :func:`floor_figures`)."""
+    return f"{s['dbv']:.1f} dBV, {s['dbv_a']:.1f} dBV(A)"
+
+
 def floor_line(s: dict) -> str:
     """One summary line from :func:`floor_summary` (render, play, console)."""
     return (f"hiss on (seed {s['seed']}, {s['sources']} noise sources): noise floor at the "
