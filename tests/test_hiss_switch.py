@@ -196,7 +196,9 @@ def test_console_hiss_command(divider):
     h = _host(d)
     try:
         h.prepare()
-        said = []
+        said, sent = [], []
+        host_edit = h.edit
+        h.edit = lambda e, voice=None: (sent.append(e), host_edit(e, voice))[1]
         con = Console(h, say=said.append)
         con.handle("hiss on 7")
         assert (d.hiss, d.hiss_seed) == (True, 7)
@@ -212,6 +214,8 @@ def test_console_hiss_command(divider):
             assert "\n" not in said[-1]
             n += 1
         assert (d.hiss, d.hiss_seed) == (False, 7)
+        # the edits the workbench's switch makes too (tests/test_gui_hiss.py)
+        assert sent == [SetHiss(True, 7), SetHiss(False)]
         assert "hiss on [SEED] / off" in HELP
     finally:
         h.close()
