@@ -891,6 +891,8 @@ class MainWindow(QMainWindow):
         from solderless.engine.design.edits import SetHiss
         self._guard(self.wb.apply, SetHiss(bool(on)))
         self._history()
+        if self.host is None:
+            self.schedule_refresh()      # the offline preview plays it too
 
     def _floor_ready(self, g, s) -> None:
         self.last_floor = s
