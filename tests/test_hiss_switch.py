@@ -245,3 +245,45 @@ def test_noise_off_in_a_stage_with_memory(tmp_path):
         assert h.meters()["guard"] == ""
     finally:
         h.close()
+
+
+@pytest.mark.audio
+def test_play_console_switches_noise_while_playing(tmp_path):
+    """``solderless play booster --source silence`` through real PortAudio
+    on ALSA's null device (DESIGN.md), driven through its console: the
+    output meter reads the plain circuit's silence, then the hiss after
+    'hiss on 3' (more than 40 dB up), then silence again after 'hiss off'
+    (more than 40 dB down); the session goes on throughout and the saved
+    file carries the setting."""
+    import json
+    import os
+    import re
+    import subprocess
+    import sys
+    from pathlib import Path
+    root = Path(__file__).resolve().parent.parent
+    home = tmp_path / "home"
+    home.mkdir()
+    (home / ".asoundrc").write_text("pcm.!default {\n    type null\n}\n")
+    env = dict(os.environ, HOME=str(home), XDG_CONFIG_HOME=str(home / ".config"),
+               PYTHONPATH=str(root))
+    env.pop("AUDIODEV", None)
+    saved = tmp_path / "noisy.toml"
+    script = ["wait 1", "meters", "hiss on 3", "wait 1", "meters", "hiss off", "wait 1",
+              "meters", "hiss on", f"save {saved}", "quit"]
+    r = subprocess.run([sys.executable, "-m", "solderless.app.cli", "play", "booster",
+                        "--source", "silence", "--json", "--seconds", "300"],
+                       input="\n".join(script) + "\n", cwd=root, env=env,
+                       capture_output=True, text=True, timeout=600)
+    assert r.returncode == 0, r.stderr[-3000:]
+    rms = [(-math.inf if v == "-inf" else float(v)) for v in
+           re.findall(r"out\s+\S+ pk\s+(-?[\d.]+|-inf) rms dBFS", r.stderr)]
+    assert len(rms) == 3, r.stderr[-3000:]
+    print("out rms dBFS (off, on, off):", rms)
+    assert rms[1] > max(rms[0], -150.0) + 40.0 and rms[2] < rms[1] - 40.0, rms
+    assert "hiss on (seed 3" in r.stderr and "hiss off (seed 3)" in r.stderr
+    assert "error" not in r.stderr.lower()
+    s = json.loads(r.stdout)
+    assert s["hiss"]["seed"] == 3          # on at the end of the session
+    back = load_design(str(saved))
+    assert (back.hiss, back.hiss_seed) == (True, 3)
