@@ -287,3 +287,18 @@ def test_play_console_switches_noise_while_playing(tmp_path):
     assert s["hiss"]["seed"] == 3          # on at the end of the session
     back = load_design(str(saved))
     assert (back.hiss, back.hiss_seed) == (True, 3)
+
+
+def test_a_netlist_design_keeps_its_noise_setting(divider, tmp_path):
+    """A design made from a whole netlist takes the edit and keeps it in
+    the small design file it is saved as (docs/design-format.md)."""
+    d = load_design(str(divider))
+    apply_edit(d, SetHiss(True, 5))
+    target = tmp_path / "divider-noisy.toml"
+    d.save(target)
+    back = load_design(str(target))
+    assert back.netlist is not None and (back.hiss, back.hiss_seed) == (True, 5)
+    target.write_text(target.read_text().replace("hiss_seed = 5", "hiss_seed = -5"))
+    with pytest.raises(DesignError, match="hiss_seed must be a whole number") as e:
+        load_design(str(target))
+    assert str(target) in str(e.value) and "\n" not in str(e.value)
