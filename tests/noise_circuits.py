@@ -1,6 +1,24 @@
 """Netlists of our own (typical values) shared by the noise analysis checks
-(tests/test_noise.py) and the live noise checks (tests/test_live_noise.py).
+(tests/test_noise.py) and the live noise checks (tests/test_live_noise.py,
+tests/test_hiss_switch.py), and the one measurement of a live noise floor
+they compare with the analysis (:func:`band_rms`).
 Without ``.end``: a test adds it, or further cards first."""
+import math
+
+import numpy as np
+
+
+def band_rms(y, fs, band=(20.0, 20e3), weight=None):
+    """RMS of ``y`` over a band from SciPy's Welch estimate of its PSD
+    (``scipy.signal.welch``, mean removed), optionally weighted by an
+    amplitude factor ``weight(f)`` (e.g. the A-weighting)."""
+    from scipy.signal import welch
+    f, p = welch(y - y.mean(), fs=fs, nperseg=8192)
+    m = (f >= band[0]) & (f <= band[1])
+    if weight is not None:
+        p = p * weight(f) ** 2
+    return math.sqrt(np.trapezoid(p[m], f[m]))
+
 
 DIVIDER = """divider for the noise checks (our own values)
 VIN in 0 DC 0 AC 1

@@ -27,6 +27,11 @@ Commands (``help`` prints them)::
     bypass STAGE          toggle bypass of a stage (rebuild + crossfade): a series
                           stage passes in to out; a side branch (a detector) hears
                           no signal, so the gain cell sits at its resting gain
+    hiss on [SEED] / off  the circuit's own noise (thermal, shot, flicker) inside
+                          the simulation, switched while playing; SEED (a whole
+                          number) picks its random sequence. 'hiss' alone says
+                          whether it plays and prints the noise floor at the
+                          output (20 Hz-20 kHz, unweighted and A-weighted)
     a / b                 hear (and edit) the baseline or the variant
     level DB              output level in dB
     wait S                let S seconds of audio play (and a pending attack/release
@@ -270,6 +275,8 @@ class Console:
             if hasattr(v.design, "dangling_probes"):
                 for w in v.design.dangling_probes():
                     self.say(f"warning: {w}")
+        elif cmd == "hiss":
+            self._hiss(rest)
         elif cmd in ("a", "b"):
             h.select(cmd.upper())
             self.say(f"hearing {cmd.upper()} (loudness offset {h.loudness_offset_db:+.1f} LU)")
@@ -306,6 +313,32 @@ class Console:
         else:
             self.say(f"unknown command '{cmd}'; type 'help'")
         return True
+
+
+    def _hiss(self, rest: list[str]) -> None:
+        """``hiss``, ``hiss on [SEED]``, ``hiss off``: the SetHiss edit."""
+        from solderless.engine.analysis.noise import floor_line, floor_summary
+        from solderless.engine.live.host import hiss_of
+        h = self.host
+        if len(rest) > 2 or (rest and rest[0].lower() not in ("on", "off")) or \
+                (len(rest) == 2 and rest[0].lower() == "off"):
+            raise SolderlessError(f"hiss {' '.join(rest)[:40]}: say 'hiss on', 'hiss on SEED' "
+                                  "or 'hiss off'", hint="SEED is a whole number, e.g. hiss on 7")
+        if rest:
+            seed = None
+            if len(rest) == 2:
+                if not rest[1].isdigit():
+                    raise SolderlessError(f"hiss on {rest[1][:40]}: the seed is a whole "
+                                          "number from 0, e.g. hiss on 7")
+                seed = int(rest[1])
+            h.edit(E.SetHiss(rest[0].lower() == "on", seed)).result(self.timeout)
+        _, v = h._voice(None)
+        on, seed = hiss_of(v.design)
+        if on:
+            self.say(floor_line(floor_summary(v.design.flatten(), seed)))
+        else:
+            self.say(f"hiss off (seed {seed}): the simulation plays no noise; 'hiss on' "
+                     "switches it on")
 
 
 def _refresh_times_job(console, design, gen, fs):

@@ -32,20 +32,18 @@ def hiss_choice(args, design) -> tuple[bool, int]:
     return on, seed
 
 
+# the noise-floor figures and their line live with the analysis, so the
+# console and the workbench show the same readout
+# (solderless/engine/analysis/noise.py); imported when used, so a render's
+# parser stays light (tests/test_cli_startup.py)
+
 def floor_summary(circuit, seed: int) -> dict:
-    """The noise floor at the output (analysis, 20 Hz-20 kHz) for a render
-    or play summary."""
-    from solderless.engine.analysis.noise import dbu, dbv, noise_floor
-    fl = noise_floor(circuit)
-    return {"seed": seed, "band_hz": list(fl.band), "v_rms": fl.v_rms,
-            "v_rms_a": fl.v_rms_a, "dbv": dbv(fl.v_rms), "dbu": dbu(fl.v_rms),
-            "dbv_a": dbv(fl.v_rms_a), "dbu_a": dbu(fl.v_rms_a),
-            "sources": len(fl.result.sources.sources)}
+    """:func:`solderless.engine.analysis.noise.floor_summary`."""
+    from solderless.engine.analysis.noise import floor_summary as summary
+    return summary(circuit, seed)
 
 
 def floor_line(s: dict) -> str:
-    """One summary line from :func:`floor_summary`."""
-    return (f"hiss on (seed {s['seed']}, {s['sources']} noise sources): noise floor at the "
-            f"output, 20 Hz-20 kHz: {s['v_rms'] * 1e6:.3g} uV rms ({s['dbv']:.1f} dBV, "
-            f"{s['dbu']:.1f} dBu) unweighted, {s['v_rms_a'] * 1e6:.3g} uV rms "
-            f"({s['dbv_a']:.1f} dBV, {s['dbu_a']:.1f} dBu) A-weighted")
+    """:func:`solderless.engine.analysis.noise.floor_line`."""
+    from solderless.engine.analysis.noise import floor_line as line
+    return line(s)

@@ -208,12 +208,13 @@ def run_play(args) -> int:
     source = parse_source(args.source, args.input_channel - 1)
     from solderless.app.hiss_options import hiss_choice
     hiss_on, hiss_seed = hiss_choice(args, design)
-    factory = None
-    if hiss_on:   # both sides play their own noise (solver/livenoise.py)
-        from solderless.engine.solver.livenoise import hiss_simulator_factory
-        factory = hiss_simulator_factory(hiss_seed)
+    for d in (design, variant):
+        # both sides play their own noise (solver/livenoise.py); the
+        # console's 'hiss' switches it while playing.  Set in the model only:
+        # a command-line choice is not written into the design file
+        if d is not None:
+            d.hiss, d.hiss_seed = hiss_on, hiss_seed
     host = LiveHost(design, variant=variant, fs=args.rate, block=args.block,
-                    simulator_factory=factory,
                     oversample=args.oversample, source=source,
                     in_full_scale_v=parse_full_scale(args.in_full_scale, "input"),
                     out_full_scale_v=parse_full_scale(args.out_full_scale, "output"),
@@ -290,9 +291,11 @@ def run_play(args) -> int:
         host.stop()
         m = host.meters()
         s = _summary(host, m, wall)
-        if hiss_on:
+        from solderless.engine.live.host import hiss_of
+        on_end, seed_end = hiss_of(host.voices[0].design)
+        if on_end:      # the noise plays at the end of the session
             from solderless.app.hiss_options import floor_summary
-            s["hiss"] = floor_summary(design.flatten(), hiss_seed)
+            s["hiss"] = floor_summary(host.voices[0].design.flatten(), seed_end)
         host.close()
     written = host.autosaved_paths()        # the files autosave really wrote
     if problem:

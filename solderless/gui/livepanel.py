@@ -48,6 +48,12 @@ METER_HELP = {
 }
 
 
+FLOOR_HELP = ("noise floor at the output jack, 20 Hz-20 kHz, from the noise analysis at the "
+              "operating point (the figures 'solderless hiss' prints), unweighted and "
+              "A-weighted (IEC 61672-1); recomputed after each edit. dBV: re 1 V rms; "
+              "dBu: re 0.775 V rms")
+
+
 def probe_label(name: str, unit: str) -> str:
     """A probe trace's label: its name and unit, e.g. ``v(out) (V)``."""
     return f"{name} ({unit})" if unit else name
@@ -67,7 +73,7 @@ class BarMeter(QWidget):
         self.hold: float | None = None
         self.blank = "—"                 # text shown when there is no value
         self.invalid = False
-        self.setMinimumSize(70, 180)
+        self.setMinimumSize(70, 150)   # room for the noise row in a 940 px window
         self.setSizePolicy(QSizePolicy.Policy.Preferred, QSizePolicy.Policy.Expanding)
 
     def _readout(self) -> str:
@@ -297,6 +303,7 @@ class LivePanel(QWidget):
     midi_connect = pyqtSignal()
     probe_requested = pyqtSignal(str)
     midi_learn = pyqtSignal(bool)
+    hiss_toggled = pyqtSignal(bool)
 
     def __init__(self, parent=None):
         super().__init__(parent)
@@ -353,6 +360,21 @@ class LivePanel(QWidget):
         g.addWidget(self.midi_btn, 4, 0, 1, 2)
         g.addWidget(self.learn_btn, 4, 2)
         g.addWidget(self.midi_lab, 4, 3)
+        # the circuit's own noise, switched while playing (an edit: undo
+        # takes it back), and the floor the analysis gives at the output
+        self.hiss_btn = QPushButton("Circuit noise")
+        self.hiss_btn.setCheckable(True)
+        self.hiss_btn.setToolTip(
+            "play the circuit's own noise inside the simulation: thermal noise of every "
+            "resistor, shot noise of junction currents, flicker noise where a model card "
+            "gives KF (switches while playing, without a click; the design's 'hiss' "
+            "setting)")
+        self.floor_lab = QLabel("floor —")
+        self.floor_lab.setProperty("role", "read")
+        self.floor_lab.setToolTip(FLOOR_HELP)
+        g.addWidget(self.hiss_btn, 5, 0, 1, 2)
+        g.addWidget(self.floor_lab, 5, 2, 1, 2)
+        self.hiss_btn.toggled.connect(self.hiss_toggled)
         self.midi_btn.clicked.connect(self.midi_connect)
         self.learn_btn.toggled.connect(self.midi_learn)
         self.preview_btn.clicked.connect(self.preview_requested)
@@ -683,6 +705,28 @@ class LivePanel(QWidget):
         self.traces.set_visible_rows(
             ["gain reduction", "control current", "probe"] if self.has_control else ["probe"])
         self._legend()
+
+    def set_hiss(self, on: bool) -> None:
+        """Show whether the design's noise plays (without asking to switch it)."""
+        self.hiss_btn.blockSignals(True)
+        self.hiss_btn.setChecked(bool(on))
+        self.hiss_btn.blockSignals(False)
+        self.hiss_btn.setText("Circuit noise: on" if on else "Circuit noise: off")
+
+    def show_floor(self, s: dict | None) -> None:
+        """The noise-floor readout: a
+        :func:`solderless.engine.analysis.noise.floor_summary`, in the
+        words of the command line (:func:`~solderless.engine.analysis.noise.floor_figures`),
+        or None when there is none; the full line of the command line is
+        its tooltip."""
+        if s is None:
+            self.floor_lab.setText("floor —")
+            self.floor_lab.setToolTip(FLOOR_HELP)
+            return
+        from solderless.engine.analysis.noise import floor_brief, floor_figures
+        self.floor_lab.setText("floor " + floor_brief(s))
+        self.floor_lab.setToolTip(f"{FLOOR_HELP}\n\nnoise floor at the output, 20 Hz-20 kHz: "
+                                  + floor_figures(s))
 
     def show_dynamics(self, r) -> None:
         """Attack and release readouts (a

@@ -18,6 +18,13 @@ from solderless.engine.analysis.preview import (PREVIEW_SECONDS, dynamics, frequ
 from solderless.engine.errors import SolderlessError
 
 
+def noise_floor_of(design) -> dict:
+    """The noise floor at the design's output (the analysis' summary, as
+    render and play print it) with the design's seed."""
+    from solderless.engine.analysis.noise import floor_summary
+    return floor_summary(design.flatten(), int(getattr(design, "hiss_seed", 0) or 0))
+
+
 class Analyser(QObject):
     """Runs previews and analyses on one worker thread; drops stale results.
 
@@ -29,6 +36,7 @@ class Analyser(QObject):
     ac_ready = pyqtSignal(int, object)
     ab_ready = pyqtSignal(int, object)
     dyn_ready = pyqtSignal(int, object)
+    floor_ready = pyqtSignal(int, object)
     overlay_ready = pyqtSignal(int, object)
     failed = pyqtSignal(str, str)
     busy_changed = pyqtSignal(bool)
@@ -110,6 +118,8 @@ class Analyser(QObject):
             if ac and g == self.generation:
                 self._run("frequency response", lambda: frequency_response(d),
                           self.ac_ready, g)
+            if ac and g == self.generation:
+                self._run("noise floor", lambda: noise_floor_of(d), self.floor_ready, g)
             if preview and g == self.generation:
                 self._run("preview", lambda: run_preview(d, source, seconds,
                                                          factory=self.factory),

@@ -385,6 +385,8 @@ class MainWindow(QMainWindow):
         self.wb.edited.connect(self._edited_for_midi)
         self.analyser.overlay_ready.connect(self._overlay_ready)
         self.analyser.dyn_ready.connect(self._dyn_ready)
+        self.analyser.floor_ready.connect(self._floor_ready)
+        self.live.hiss_toggled.connect(self.set_hiss)
         self.compare.can_trial = self._trial_ready
         self.compare.trial_changed.connect(self._set_blind)
         self.meter_timer = QTimer(self)
@@ -461,6 +463,7 @@ class MainWindow(QMainWindow):
             self.midi.set_mapping(knob_map(d))
         except SolderlessError:
             pass
+        self.live.set_hiss(bool(getattr(d, "hiss", False)))   # undo and redo too
         self.title.setText(d.name + ("  •" if self.wb.dirty else ""))
         self.setWindowTitle(f"{d.name}{' *' if self.wb.dirty else ''} — Solderless workbench")
 
@@ -880,6 +883,20 @@ class MainWindow(QMainWindow):
     def _overlay_ready(self, g, result) -> None:
         self.last_overlay = result
         self.compare.show_overlay(result)
+
+    def set_hiss(self, on: bool) -> None:
+        """Switch the design's noise on or off: the SetHiss edit, as the
+        console's 'hiss' makes it (undoable; sent to the live host, which
+        switches it while playing)."""
+        from solderless.engine.design.edits import SetHiss
+        self._guard(self.wb.apply, SetHiss(bool(on)))
+        self._history()
+        if self.host is None:
+            self.schedule_refresh()      # the offline preview plays it too
+
+    def _floor_ready(self, g, s) -> None:
+        self.last_floor = s
+        self.live.show_floor(s)
 
     def _dyn_ready(self, g, r) -> None:
         self.last_dyn = r

@@ -275,7 +275,8 @@ class TrialRunner:
                 continue
             params = dict(self.base_params[el.name])
             params.update(ch)
-            new = mod.layout(Element(el.name, el.kind, el.nodes, el.value, params, el.where))
+            new = self.net.layout_of(mod, Element(el.name, el.kind, el.nodes, el.value, params,
+                                                      el.where))
             if new.par.shape != lay.par.shape or len(new.stamps) != len(lay.stamps):
                 raise DesignError(f"a spread of {sorted(ch)} changes the structure of "
                                   f"device {el.name}", part=el.name,

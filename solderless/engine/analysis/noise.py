@@ -218,3 +218,38 @@ def noise_floor(circuit: Circuit | Network, band=BAND_HZ, values: dict | None = 
     r = noise_spectrum(circuit, f, values)
     return NoiseFloor((float(band[0]), float(band[1])), integrate(f, r.out_psd),
                       integrate(f, r.out_psd, "A"), r)
+
+
+# ------------------------------------------------------------------ readouts
+
+def floor_summary(circuit, seed: int) -> dict:
+    """The noise floor at the output (analysis, 20 Hz-20 kHz) for a render
+    or play summary and the workbench's readout: rms volts, dBV and dBu,
+    unweighted and A-weighted (IEC 61672-1), the seed and the number of
+    noise sources."""
+    fl = noise_floor(circuit)
+    return {"seed": seed, "band_hz": list(fl.band), "v_rms": fl.v_rms,
+            "v_rms_a": fl.v_rms_a, "dbv": dbv(fl.v_rms), "dbu": dbu(fl.v_rms),
+            "dbv_a": dbv(fl.v_rms_a), "dbu_a": dbu(fl.v_rms_a),
+            "sources": len(fl.result.sources.sources)}
+
+
+def floor_figures(s: dict) -> str:
+    """The floor's figures from :func:`floor_summary`, unweighted and
+    A-weighted: the words every readout of it uses."""
+    return (f"{s['v_rms'] * 1e6:.3g} uV rms ({s['dbv']:.1f} dBV, "
+            f"{s['dbu']:.1f} dBu) unweighted, {s['v_rms_a'] * 1e6:.3g} uV rms "
+            f"({s['dbv_a']:.1f} dBV, {s['dbu_a']:.1f} dBu) A-weighted")
+
+
+def floor_brief(s: dict) -> str:
+    """The floor from :func:`floor_summary` in a few words for a readout:
+    dBV unweighted, then A-weighted (the same figures as
+    :func:`floor_figures`)."""
+    return f"{s['dbv']:.1f} dBV, {s['dbv_a']:.1f} dBV(A)"
+
+
+def floor_line(s: dict) -> str:
+    """One summary line from :func:`floor_summary` (render, play, console)."""
+    return (f"hiss on (seed {s['seed']}, {s['sources']} noise sources): noise floor at the "
+            f"output, 20 Hz-20 kHz: " + floor_figures(s))

@@ -125,7 +125,8 @@ def taper_text(taper: Any) -> str:
 
 def change_lines(base: Design, d: Design) -> list[str]:
     """What ``d`` changes from ``base``, part by part, in a builder's words:
-    values, pot rotations and tapers, device models, bypassed stages."""
+    values, pot rotations and tapers, device models, bypassed stages, the
+    circuit's noise switched on or off."""
     out = []
     mine = {p.qualname: p for p in d.parts()}
     for p in base.parts():
@@ -149,6 +150,11 @@ def change_lines(base: Design, d: Design) -> list[str]:
             continue
         if b != s.bypass:
             out.append(f"stage {s.name} {'bypassed' if s.bypass else 'back in'}")
+    was = (bool(getattr(base, "hiss", False)), int(getattr(base, "hiss_seed", 0) or 0))
+    now = (bool(getattr(d, "hiss", False)), int(getattr(d, "hiss_seed", 0) or 0))
+    if was != now:      # live noise (the design's hiss setting)
+        out.append(f"circuit noise {'on' if now[0] else 'off'}"
+                   + (f" (seed {now[1]})" if now[0] else ""))
     return out
 
 

@@ -3,7 +3,7 @@
 Every change a front end makes to a design is a small frozen dataclass:
 :class:`SetValue`, :class:`SetRotation`, :class:`SetTaper`,
 :class:`SetTolerance`, :class:`SetModel`, :class:`SetPosition`,
-:class:`SetTemperature`, :class:`SetBypass`, :class:`AddStage`,
+:class:`SetTemperature`, :class:`SetHiss`, :class:`SetBypass`, :class:`AddStage`,
 :class:`InsertStage`, :class:`DuplicateStage`, :class:`ImportStage`,
 :class:`RemoveStage`, :class:`MoveStage`, :class:`RenameStage`,
 :class:`AddLink`, :class:`RemoveLink`, :class:`AddProbe`,
@@ -363,6 +363,52 @@ class SetTemperature(Edit):
         if self.entry != RECORD:
             doc.put_key_entry(doc.design_head(d, create=False), "temperature", self.entry)
         return Applied(self, SetTemperature(old, before), changes, result=d.temperature)
+
+
+@dataclass(frozen=True)
+class SetHiss(Edit):
+    """Live noise on or off (the design's ``hiss`` setting), and optionally
+    its seed (``hiss_seed``; None keeps the present one). No rebuild: a
+    live host switches the noise sources' amplitude, or builds the noisy
+    simulator the first time (:meth:`solderless.engine.live.host.LiveHost.edit`).
+    The result is ``(on, seed)``."""
+    on: bool
+    seed: int | None = None
+    entry: Any = RECORD     # or (hiss entry, hiss_seed entry) as the document had them
+
+    def __post_init__(self):
+        from solderless.engine.design.model import check_hiss_seed
+        if not isinstance(self.on, bool):
+            raise DesignError(f"noise is switched on or off (true or false), not {self.on!r}",
+                              part="design.hiss", hint="hiss on, hiss off")
+        if self.seed is not None:
+            object.__setattr__(self, "seed", check_hiss_seed(self.seed))
+
+    @property
+    def label(self) -> str:
+        return "noise " + ("on" if self.on else "off")
+
+    def _apply(self, d):
+        old = (bool(d.hiss), int(d.hiss_seed))
+        head = doc.design_head(d, create=False)
+        if head is not None:
+            before = (doc.key_entry(head, "hiss"), doc.key_entry(head, "hiss_seed"))
+        else:   # no [design] table yet: undo leaves both keys out
+            before = ((False, None, True),) * 2 if d.doc is not None else None
+        d.hiss = self.on
+        if self.seed is not None:
+            d.hiss_seed = self.seed
+        head = doc.design_head(d, create=True)
+        if self.entry == RECORD:
+            if head is not None:
+                head["hiss"] = self.on
+                if self.seed is not None:
+                    head["hiss_seed"] = self.seed
+        elif self.entry is not None:
+            doc.put_key_entry(head, "hiss", self.entry[0])
+            doc.put_key_entry(head, "hiss_seed", self.entry[1])
+        d.dirty = True
+        return Applied(self, SetHiss(old[0], old[1], before), result=(d.hiss, d.hiss_seed))
 
 
 # ------------------------------------------------------------------ structure
@@ -820,6 +866,6 @@ def set_tolerance(d: Design, qualname: str, tol: float | None) -> None:
 
 __all__ = ["Applied", "Edit", "apply_edit", "SetValue", "SetRotation", "SetTaper",
            "SetTolerance", "SetModel", "RestoreModel", "SetPosition", "SetTemperature",
-           "SetBypass", "InsertStage", "AddStage", "DuplicateStage", "ImportStage",
+           "SetHiss", "SetBypass", "InsertStage", "AddStage", "DuplicateStage", "ImportStage",
            "RemoveStage", "MoveStage", "RenameStage", "AddLink", "RemoveLink", "AddProbe",
            "RemoveProbe", "ReplaceDesign", "SetDocumentTable", "unique_stage_name", "RECORD"]

@@ -262,6 +262,33 @@ def _temperature(value, file, where) -> float:
     return t
 
 
+HISS_SEED_MAX = 2 ** 63
+"""Seeds of the live noise are whole numbers 0 <= seed < 2**63 (PCG64)."""
+
+
+def hiss_setting(head, file=None, where=None) -> tuple[bool, int]:
+    """``(hiss, hiss_seed)`` from a design file's ``[design]`` table: live
+    noise on or off (default off) and its seed (default 0), as
+    :mod:`solderless.engine.solver.livenoise` plays them. A wrong type is a
+    one-line DesignError naming the file and key."""
+    on = head.get("hiss", False)
+    seed = head.get("hiss_seed", 0)
+    line = getattr(where, "line", None)
+    if not isinstance(on, bool):
+        raise DesignError(f"hiss must be true or false, not {on!r}", file=file, line=line,
+                          part="design.hiss", hint="hiss = true")
+    return on, check_hiss_seed(seed, file, line)
+
+
+def check_hiss_seed(seed, file=None, line=None) -> int:
+    """A live-noise seed: a whole number from 0 to 2**63 - 1."""
+    if isinstance(seed, bool) or not isinstance(seed, int) or not 0 <= seed < HISS_SEED_MAX:
+        raise DesignError(f"hiss_seed must be a whole number from 0 to 2**63 - 1, not "
+                          f"{seed!r}", file=file, line=line, part="design.hiss_seed",
+                          hint="hiss_seed = 7")
+    return int(seed)
+
+
 # ----------------------------------------------------------------- the design
 
 class Design:
@@ -280,6 +307,9 @@ class Design:
         self.load = 1e6
         #: circuit temperature, degrees Celsius (None: 27, the SPICE default)
         self.temperature: float | None = None
+        #: live noise on (solderless.engine.solver.livenoise) and its seed
+        self.hiss = False
+        self.hiss_seed = 0
         self.global_nets: list[str] = []
         self.parts_global: list[Part] = []
         self.stages: list[Stage] = []

@@ -88,6 +88,8 @@ def _design_from_netlist_toml(path: Path, data: dict, doc) -> Design:
     head = _table(data, "design", w)
     d.name = str(head.get("name", d.name))
     d.notes = str(head.get("notes", ""))
+    from solderless.engine.design.model import hiss_setting
+    d.hiss, d.hiss_seed = hiss_setting(head, str(path))
     st = d.stages[0]
     for pname, val in _table(table, "values", w).items():
         try:

@@ -17,7 +17,7 @@ from solderless.engine.circuit import Where, canonical_net
 from solderless.engine.design.model import (DEVICE_TYPES, PART_TYPES, POSITIVE_TYPES, VALUE_TYPES,
                                             Design, Link, Part, Probe, Stage, _check_taper, _cut,
                                             _expect, _optional_nodes, _parse_value, _table,
-                                            _tables, _temperature)
+                                            _tables, _temperature, hiss_setting)
 from solderless.engine.errors import DesignError, SolderlessError
 
 # -------------------------------------------------------------- file reading
@@ -251,6 +251,7 @@ def _design_from_toml(path: Path) -> Design:
         d.load = _parse_value(head["load"], file=file, part="design.load")
     if "temperature" in head:
         d.temperature = _temperature(head["temperature"], file, Where(file))
+    d.hiss, d.hiss_seed = hiss_setting(head, file)
     gn = head.get("global_nets", [])
     _expect(isinstance(gn, list), "global_nets must be a list of net names", Where(file))
     d.global_nets = [canonical_net(str(n)) for n in gn]

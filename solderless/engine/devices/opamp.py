@@ -3,10 +3,26 @@
 Nodes (inp, inn, out, vcc, vee).  An internal node ``<name>#p`` carries the
 open-loop voltage: a transconductance A0/RP from (inp, inn) into RP || CP to
 ground sets DC gain A0 and the dominant pole GBW/A0; the output is that
-voltage behind ROUT.  Two exponential clamps (ports 0 = (p, vcc) and
-1 = (vee, p)) hold the internal voltage within VHR of the rails with a knee of
-width VSOFT, so the output swing is limited softly to [vee+VHR, vcc-VHR] and
-the integrator does not wind up.  RIN is the differential input resistance.
+voltage behind ROUT.  Two exponential clamps hold the internal voltage within
+VHR of the rails with a knee of width VSOFT, so the output swing is limited
+softly to [vee+VHR, vcc-VHR] and the integrator does not wind up.  RIN is the
+differential input resistance.
+
+The clamps take one port or two.  When both rails sit at fixed potentials
+(ground, or a DC supply to ground: mna.fixed_potentials), as in every
+battery-powered design, one port (p, ground) carries both: its current is
+I0*exp((v - Vcc + VHR)/VSOFT) - I0*exp((Vee - v + VHR)/VSOFT) with the rail
+potentials held in the parameters (a supply edit re-lays the device).  The
+node voltages are those of the two-port form exactly; only the clamp
+current returns through ground instead of the rail's source.  Otherwise
+(a rail behind a resistor, a rail with ripple) ports 0 = (p, vcc) and
+1 = (vee, p) carry one clamp each.  Port count sets the size of every matrix
+in the per-sample solve, so the one-port form makes an op-amp design's
+samples cheaper (bench/bench_designs.py).
+
+A clamp more than CLAMP_OFF knee widths from its threshold reads zero
+current and conductance without an exponential (I0*exp(-40) is about 1e-25
+A, below the solver's GMIN currents by 13 decades).
 The dominant-pole capacitor is integrated with backward Euler (L-stable), so
 the fast closed-loop pole does not ring at the Nyquist frequency as it would
 with the trapezoidal rule.
@@ -18,20 +34,28 @@ import math
 import numpy as np
 from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
+from solderless.engine.circuit import GROUND, canonical_net
 from solderless.engine.devices._common import DeviceLayout, lexp, pnjlim, read_params, vcrit
 from solderless.engine.analysis import regions
 from solderless.engine.devices.registry import DeviceKind
 
 KIND = "OPAMP"
 CODE = 5
-NPORTS = 2
+NPORTS = 2  # 1 when both rails sit at fixed potentials
+#: layout() takes the network's fixed net potentials (mna.Network.layout_of)
+RAILS = True
+#: a clamp this many VSOFT below its knee reads exactly zero (no exp call)
+CLAMP_OFF = 40.0
 DEFAULTS = {"A0": 2e5, "GBW": 1e6, "ROUT": 50.0, "RIN": 1e12, "VHR": 1.5,
             "VSOFT": 0.05, "RP": 1e9}
-# par: 0 I0, 1 VHR, 2 VSOFT, 3 vcrit (shifted variable), 4 1/VSOFT
+# par: 0 I0, 1 VHR, 2 VSOFT, 3 vcrit (shifted variable), 4 1/VSOFT,
+#      5 one clamp port (1.0) or two (0.0), 6 Vcc, 7 Vee (one port only)
 
 
-def layout(el) -> DeviceLayout:
-    """Validate the model and describe internal node, stamps and clamp ports."""
+def layout(el, fixed: dict[str, float] | None = None) -> DeviceLayout:
+    """Validate the model and describe internal node, stamps and clamp
+    ports: one port when both rails are in ``fixed`` (net -> volts), else
+    two."""
     p = read_params(el, DEFAULTS, positive=("A0", "GBW", "ROUT", "RIN", "VSOFT", "RP"),
                     nonneg=("VHR",))
     inp, inn, out, vcc, vee = el.nodes
@@ -44,28 +68,64 @@ def layout(el) -> DeviceLayout:
     if math.isfinite(p["RIN"]):
         stamps.append(("R", inp, inn, p["RIN"]))
     i0 = gm1 * 1e-4
-    par = np.array([i0, p["VHR"], p["VSOFT"], vcrit(p["VSOFT"], i0), 1.0 / p["VSOFT"]])
-    return DeviceLayout(CODE, [(node, vcc), (vee, node)], par, [node], stamps,
-                        probes={"iclip": ({0: 1.0, 1: -1.0}, {})},
+    rails = [(fixed or {}).get(canonical_net(n)) for n in (vcc, vee)]
+    one = rails[0] is not None and rails[1] is not None
+    par = np.array([i0, p["VHR"], p["VSOFT"], vcrit(p["VSOFT"], i0), 1.0 / p["VSOFT"],
+                    1.0 if one else 0.0, rails[0] if one else 0.0, rails[1] if one else 0.0])
+    if one:
+        ports, iclip = [(node, GROUND)], {0: 1.0}
+    else:
+        ports, iclip = [(node, vcc), (vee, node)], {0: 1.0, 1: -1.0}
+    return DeviceLayout(CODE, ports, par, [node], stamps, probes={"iclip": (iclip, {})},
                         quiet_step=2.0 * p["VSOFT"])
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def clamp(x, par, pa):
+    """One clamp's current and conductance over I0 at its shifted voltage x
+    (volts past the threshold less VHR): exp(x/VSOFT) and its slope, or
+    exactly zero more than CLAMP_OFF knee widths below."""
+    a = x * par[pa + 4]
+    if a < -CLAMP_OFF:
+        return 0.0, 0.0
+    e, de = lexp(a)
+    return e, de * par[pa + 4]
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def evaluate(par, pa, v, po, i, G):
-    """Clamp currents I0*exp((v + VHR)/VSOFT) and conductances."""
+    """Clamp currents I0*exp((v + VHR)/VSOFT) and conductances (one port:
+    both clamps on (p, ground), v - Vcc and Vee - v for v)."""
+    i0 = par[pa + 0]
+    h = par[pa + 1]
+    if par[pa + 5] != 0.0:
+        x = v[po]
+        eu, gu = clamp(x - par[pa + 6] + h, par, pa)
+        el, gl = clamp(par[pa + 7] - x + h, par, pa)
+        i[po] = i0 * (eu - el)
+        G[po, po] = i0 * (gu + gl)
+        return
     for k in range(2):
-        e, de = lexp((v[po + k] + par[pa + 1]) * par[pa + 4])
-        i[po + k] = par[pa + 0] * e
-        G[po + k, po + k] = par[pa + 0] * de * par[pa + 4]
+        e, g = clamp(v[po + k] + h, par, pa)
+        i[po + k] = i0 * e
+        G[po + k, po + k] = i0 * g
     G[po, po + 1] = 0.0
     G[po + 1, po] = 0.0
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def limit(par, pa, vn, vo, po):
-    """pnjlim on the shifted clamp voltages."""
+    """pnjlim on the shifted clamp voltages (one port: on the upper clamp's,
+    then on the lower one's)."""
+    h = par[pa + 1]
+    if par[pa + 5] != 0.0:
+        vcc = par[pa + 6]
+        vee = par[pa + 7]
+        x = pnjlim(vn[po] - vcc + h, vo[po] - vcc + h, par[pa + 2], par[pa + 3]) - h + vcc
+        vn[po] = vee - (pnjlim(vee - x + h, vee - vo[po] + h, par[pa + 2], par[pa + 3]) - h)
+        return
     for k in range(2):
-        vn[po + k] = pnjlim(vn[po + k] + par[pa + 1], vo[po + k] + par[pa + 1], par[pa + 2], par[pa + 3]) - par[pa + 1]
+        vn[po + k] = pnjlim(vn[po + k] + h, vo[po + k] + h, par[pa + 2], par[pa + 3]) - h
 
 
 def region(par, v, i) -> str:
@@ -73,7 +133,7 @@ def region(par, v, i) -> str:
     lim = 10.0 * par[0]
     if i[0] > lim:
         return "clipping high"
-    if i[1] > lim:
+    if (i[0] if par[5] != 0.0 else -i[1]) < -lim:
         return "clipping low"
     return "linear"
 

@@ -87,6 +87,12 @@ def default_simulator_factory(circuit, fs, oversample, probes):
                      probe_decimate=1)
 
 
+def hiss_of(design) -> tuple[bool, int]:
+    """(on, seed) of a design's live noise (its ``hiss`` setting)."""
+    from solderless.engine.solver.livenoise import design_setting
+    return design_setting(design)
+
+
 def _stem(design) -> str:
     """A file-name stem for a design: its file's stem, else its name."""
     p = getattr(design, "path", None)
@@ -221,9 +227,14 @@ class Voice:
         circuit = self.design.flatten()
         keep = list(self.probes)
         missing = []
+        on, seed = hiss_of(self.design)
+        factory = self.factory
+        if on:      # the design's noise plays (solver/livenoise.py)
+            from solderless.engine.solver.livenoise import hiss_simulator_factory
+            factory = hiss_simulator_factory(seed)
         while True:
             try:
-                sim = self.factory(circuit, self.fs, self.oversample, keep)
+                sim = factory(circuit, self.fs, self.oversample, keep)
                 break
             except SolderlessError as exc:
                 bad = exc.part if exc.part in keep else next(
@@ -938,6 +949,16 @@ class LiveHost:
                 self.messages.put(f"{v.label}: no longer measured after the change: "
                                   + ", ".join(v.missing))
             self._swap_in(v, sim)
+        elif self._hiss_needs_build(v):
+            # noise switched on where the running simulator has no noise
+            # sources: build the noisy one and crossfade, as for a bypass
+            try:
+                sim = v.build()
+            except BaseException:
+                back()
+                raise
+            v.warm(sim)
+            self._swap_in(v, sim)
         elif applied.changes:
             try:
                 self._apply(v, applied.changes, t_post)
@@ -950,8 +971,47 @@ class LiveHost:
             except BaseException:
                 back()
                 raise
+        if not applied.rebuild:
+            self._switch_hiss(v, t_post)
         self._after_edit(i)
         return applied
+
+    def _hiss_needs_build(self, v: Voice) -> bool:
+        """Worker: the design wants its noise on and the voice's simulator
+        (the incoming one, during a crossfade) has no noise sources."""
+        sim = v.incoming if v.incoming is not None else v.sim
+        return sim is not None and hiss_of(v.design)[0] and not hasattr(sim, "set_hiss")
+
+    def _switch_hiss(self, v: Voice, t_post: float | None) -> None:
+        """Worker: make the running simulators' noise follow the design's
+        ``hiss`` setting (any edit may change it: SetHiss, an undo, a
+        recalled snapshot). A simulator with noise sources switches their
+        amplitude (zero when off, kept in the kernel; lands at the next
+        block boundary); one without them stays as it is while the noise is
+        off (it is switched on by a build, :meth:`_run_edit`)."""
+        on, seed = hiss_of(v.design)
+        for sim in (v.sim, v.incoming):
+            if sim is not None and hasattr(sim, "set_hiss") and (sim.on, sim.seed) != (on, seed):
+                sim.set_hiss(on, seed)
+                if t_post is not None:
+                    self._edit_pending_t = t_post
+
+    def set_hiss(self, on: bool, seed: int | None = None, voice=None) -> Future:
+        """Turn the design's live noise on or off while playing (the
+        :class:`solderless.engine.design.edits.SetHiss` edit). Result:
+        ``(on, seed)``."""
+        from solderless.engine.design.edits import SetHiss
+        return self.edit(SetHiss(on, seed), voice)
+
+    def hiss_state(self, voice=None) -> dict:
+        """The edited (or given) voice's noise: ``on``, ``seed``, and whether
+        its simulator (the incoming one during a crossfade) carries noise
+        sources (``sources``: their number, 0 for a noiseless simulator)."""
+        _, v = self._voice(voice)
+        on, seed = hiss_of(v.design)
+        sim = v.incoming if v.incoming is not None else v.sim
+        return {"on": on, "seed": seed,
+                "sources": len(getattr(sim, "sources", ())) if hasattr(sim, "set_hiss") else 0}
 
     def set_value(self, part: str, value: float, voice=None) -> Future:
         """Change a part's value (re-derive, lands at a block boundary).

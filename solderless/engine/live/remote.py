@@ -43,12 +43,13 @@ from solderless.engine.errors import AudioError, SolderlessError
 ALLOWED = {"start", "start_paced", "stop", "edit", "set_value", "step_value",
            "set_rotation",
            "set_taper", "set_bypass", "set_model", "save", "select", "set_level_db", "unmute",
-           "latency", "part_info", "prepare", "flush"}
+           "latency", "part_info", "prepare", "flush", "set_hiss", "hiss_state"}
 #: Requests served by the child loop itself.
 EXTRA = {"parts", "state", "meter_setup", "set_source", "edit_landings", "host_meters",
          "element_values", "designs", "set_measurement"}
 #: Edits after which the parent re-measures the small-signal gain.
-EDITS = {"edit", "set_value", "step_value", "set_rotation", "set_taper", "set_bypass", "set_model"}
+EDITS = {"edit", "set_value", "step_value", "set_rotation", "set_taper", "set_bypass", "set_model",
+         "set_hiss"}
 MEASURE_SETTLE_S = 0.2
 """Quiet time after the last edit before the parent re-measures."""
 SWITCH_INTERVAL_S = 0.0002

@@ -27,6 +27,16 @@ samples in a fixed order (sample by sample, every source in turn, so the
 block size does not matter), and a render with the same seed and rate
 repeats exactly; :meth:`HissSimulator.reset` starts the sequence again.
 
+Switchable while playing: :meth:`HissSimulator.set_hiss` turns the noise
+off and on again without a rebuild.  The sources stay in the kernel and
+only their amplitude changes (the scale array is swapped whole at the next
+block), so off plays exactly zero current from every source and the output
+is the noiseless circuit's, with the circuit state carried through.  The
+generator keeps drawing while the noise is off, so switching does not shift
+or restart the sequence: after switching back on, kernel sample k plays what
+an uninterrupted noisy run of the same simulator plays at k.  A new seed
+restarts the sequence from that seed's beginning at the next block.
+
 The samples reach the compiled kernel through the source waveform kind
 NOISE (4): each noise source's waveform parameters are a buffer
 ``[dt, k0, s0, s1, ...]`` refilled before every block (``k0`` the kernel
@@ -187,8 +197,25 @@ class HissSimulator(Simulator):
         self._sos = pink_sos(self._fsk) if self._flick.any() else np.zeros((0, 6))
         self._zi = np.zeros((len(srcs), self._sos.shape[0], 2))
         self.sigmas = self._amplitudes(self._values)
+        #: the noise plays (False: every source plays zero, see set_hiss)
+        self.on = True
+        self._silent = np.zeros(len(srcs))
+        self._play = self.sigmas
         self._draw = np.zeros((nbuf, len(srcs)))
         self._rng = np.random.Generator(np.random.PCG64(self.seed))
+
+    def set_hiss(self, on: bool, seed: int | None = None) -> None:
+        """Turn the noise on or off while playing (any thread; lands at the
+        next block boundary, circuit state carried over): off scales every
+        source by zero, so the kernel sees exactly zero noise current.  The
+        draws go on while off (the sequence is not shifted).  ``seed``, if
+        it differs from the present one, restarts the sequence from that
+        seed (the generator is made here and swapped in whole)."""
+        if seed is not None and int(seed) != self.seed:
+            self.seed = int(seed)
+            self._rng = np.random.Generator(np.random.PCG64(self.seed))
+        self.on = bool(on)
+        self._play = self.sigmas if self.on else self._silent
 
     def _amplitudes(self, values) -> np.ndarray:
         """Per-sample scale of each noise source at the current values."""
@@ -214,6 +241,7 @@ class HissSimulator(Simulator):
         # thermal noise follows a resistor's value, shot noise the new
         # operating point (the new scale array is swapped in whole)
         self.sigmas = self._amplitudes(self._values)
+        self._play = self.sigmas if self.on else self._silent
 
     def _set_temperature(self, temp_c) -> None:
         super()._set_temperature(temp_c)
@@ -226,7 +254,7 @@ class HissSimulator(Simulator):
         draw = self._draw[:n]
         self._rng.standard_normal(out=draw)
         _scatter(draw, n, self._spar, self._offs, float(self._state[KL.STATE_INDEX]),
-                 self.sigmas, self._flick, math.sqrt(self._fsk / 2.0), self._sos, self._zi)
+                 self._play, self._flick, math.sqrt(self._fsk / 2.0), self._sos, self._zi)
 
     def process_into(self, x, y, probe_buf=None, probe_start: int = 0) -> int:
         self._fill(x.shape[0] * self.oversample)
@@ -249,21 +277,11 @@ DESIGN_SEED_KEY = "hiss_seed"
 
 
 def design_setting(design) -> tuple[bool, int]:
-    """(on, seed) from a design file's ``[design]`` table: ``hiss = true``
-    plays the design with its noise by default, ``hiss_seed`` (an integer,
-    default 0) picks the random sequence.  A netlist design has neither
-    (off, 0).  A wrong type is a :class:`DesignError` naming the file."""
-    from solderless.engine.errors import DesignError
-    doc = getattr(design, "doc", None)
-    head = doc.get("design", {}) if doc is not None else {}
-    file = str(design.path) if getattr(design, "path", None) else None
-    on = head.get(DESIGN_KEY, False)
-    seed = head.get(DESIGN_SEED_KEY, 0)
-    if not isinstance(on, bool):
-        raise DesignError(f"{DESIGN_KEY} must be true or false, not {on!r}", file=file,
-                          part=f"design.{DESIGN_KEY}", hint=f"{DESIGN_KEY} = true")
-    if isinstance(seed, bool) or not isinstance(seed, int) or not 0 <= seed < 2 ** 63:
-        raise DesignError(f"{DESIGN_SEED_KEY} must be a whole number from 0, not {seed!r}",
-                          file=file, part=f"design.{DESIGN_SEED_KEY}",
-                          hint=f"{DESIGN_SEED_KEY} = 7")
-    return bool(on), int(seed)
+    """(on, seed) of a design: its ``hiss`` and ``hiss_seed`` as read from
+    the design file's ``[design]`` table (``hiss = true`` plays the design
+    with its noise by default, ``hiss_seed``, default 0, picks the random
+    sequence; :func:`solderless.engine.design.model.hiss_setting` checks
+    them when the file is read) and as the
+    :class:`solderless.engine.design.edits.SetHiss` edit changes
+    them.  An object without them (a stand-in) is (off, 0)."""
+    return bool(getattr(design, "hiss", False)), int(getattr(design, "hiss_seed", 0) or 0)

@@ -145,13 +145,13 @@ class Network:
         self.devices = []  # (element, module, layout, port offset)
         self.ports: list[tuple[int, int]] = []
         self.dev_stamps = []  # (owner, stamp tuple)
+        self.temperature = circuit.temperature
+        self.input_source = circuit.input_source
+        self.fixed = fixed_potentials(els, circuit.input_source)
         for el in els:
             if el.kind in REGISTRY:
                 mod = REGISTRY[el.kind]
-                if getattr(mod, "TEMPERATURE", False):
-                    lay = mod.layout(el, temp=circuit.temperature)
-                else:
-                    lay = mod.layout(el)
+                lay = self.layout_of(mod, el)
                 for n in lay.internal:
                     node(n)
                 self.devices.append((el, mod, lay, len(self.ports)))
@@ -227,6 +227,41 @@ class Network:
         self.out_nodes = tuple(self.net_index.get(canonical_net(n), -1) for n in circuit.output)
         self._check_dc_paths()
         self._bx, self._bu, self._bn = self._constant_b()
+
+    def layout_of(self, mod, el, temp: float | None = None):
+        """A device's layout in this network: at the circuit temperature (or
+        ``temp``) for devices with a temperature law, and with the fixed net
+        potentials (:func:`fixed_potentials`) for devices that read them
+        (``RAILS``: the op-amp's output clamps)."""
+        kw = {}
+        if getattr(mod, "TEMPERATURE", False):
+            kw["temp"] = self.temperature if temp is None else temp
+        if getattr(mod, "RAILS", False):
+            kw["fixed"] = self.fixed
+        return mod.layout(el, **kw)
+
+    def refresh_rails(self, values: dict[str, float]) -> bool:
+        """After a change of source values: recompute the fixed net
+        potentials and re-lay the devices that read them.  Returns whether
+        any device's parameters changed (the kernel's arrays must then be
+        rebuilt).  Ports never move: a value edit keeps the topology, so a
+        fixed net stays fixed."""
+        if not any(getattr(mod, "RAILS", False) for _, mod, _, _ in self.devices):
+            return False
+        fixed = fixed_potentials(self.elements.values(), self.input_source, values)
+        if fixed == self.fixed:
+            return False
+        self.fixed = fixed
+        devs = []
+        for el, mod, lay, po in self.devices:
+            if getattr(mod, "RAILS", False):
+                new = self.layout_of(mod, el)
+                if new.ports != lay.ports or new.par.size != lay.par.size:
+                    raise DesignError("a supply change moved a device's ports", part=el.name)
+                lay = new
+            devs.append((el, mod, lay, po))
+        self.devices = devs
+        return True
 
     # ------------------------------------------------------------------ checks
     def check_value(self, el, value) -> float:
@@ -492,6 +527,38 @@ class Network:
             else:
                 u[k] = wave_value(kind, par, t)
         return u
+
+
+def fixed_potentials(els, input_source: str | None = None,
+                     values: dict[str, float] | None = None) -> dict[str, float]:
+    """Nets held at a constant potential: ground, and every net tied to a
+    net of known potential by an independent DC voltage source (no
+    waveform; not the input), through chains of them.  Canonical net name
+    -> volts.  ``values`` overrides element values (live edits).  Devices
+    that read these (the op-amp's output clamps) can then refer their
+    thresholds to ground and need fewer ports."""
+    fixed = {GROUND: 0.0}
+    links = []
+    for el in els:
+        if el.kind != "V" or el.name == input_source or (el.params or {}).get("wave"):
+            continue
+        try:
+            val = float(values[el.name] if values and el.name in values else el.value)
+        except (TypeError, ValueError):
+            continue
+        if math.isfinite(val):
+            links.append((canonical_net(el.nodes[0]), canonical_net(el.nodes[1]), val))
+    grew = True
+    while grew:
+        grew = False
+        for a, b, val in links:
+            if b in fixed and a not in fixed:
+                fixed[a] = fixed[b] + val
+                grew = True
+            elif a in fixed and b not in fixed:
+                fixed[b] = fixed[a] - val
+                grew = True
+    return fixed
 
 
 #: NOISE is a live noise source (solderless/engine/solver/livenoise.py): its

@@ -383,17 +383,25 @@ class Simulator:
                                       part=name, hint="live changes take element values; "
                                                       "a pot is '<pot>.a' and '<pot>.b'")
                 new[name] = net.check_value(el, val)
+            # a supply edit moves the op-amps' clamp thresholds (their
+            # parameters hold the fixed rail potentials)
+            rails = any(net.elements[n].kind == "V" for n in changes) and net.refresh_rails(new)
             # junction capacitances follow the operating point of the new values
             kept = [s.value for s in net.states]
-            self._refresh_junctions(new)
             try:
+                self._refresh_junctions(new)
                 model = derive(net, new, self._T, self._rows)
             except Exception:
                 for s, v in zip(net.states, kept):  # a refused edit changes nothing
                     s.value = v
+                if rails:
+                    net.refresh_rails(self._values)
                 raise
             self._values = new
             self._next = model
+            if rails:
+                self._arr_next = device_arrays(net)
+                self._dc_values = None
 
     def _set_temperature(self, temp_c) -> None:
         """Re-derive every device's parameters at a new circuit temperature
@@ -406,13 +414,14 @@ class Simulator:
         devs = []
         for el, mod, lay, po in net.devices:
             if getattr(mod, "TEMPERATURE", False):
-                new = mod.layout(el, temp=t)
+                new = net.layout_of(mod, el, temp=t)
                 if new.ports != lay.ports or new.par.size != lay.par.size:
                     raise DesignError("a temperature change moved a device's ports",
                                       part=el.name)
                 lay = new
             devs.append((el, mod, lay, po))
         net.devices = devs
+        net.temperature = t
         self.temperature = t
         self._arr_next = device_arrays(net)
         self._dc_values = None  # the operating point moved
