@@ -59,7 +59,7 @@ two-port runner, through a numba inline cost model), and the Jacobian
 inverse (update_jacobian) and the refactoring Newton phase
 (newton_refactoring; both on a few per cent of samples) are real calls.
 The padded matrix-vector product is inlined at the four products made once
-per sample (gemv_inl) and a real call inside Newton's loops (gemv_add).
+per sample (gemv_inl), also inside the chord loop; gemv_add is the real call.
 numba's builtin max() is an out-of-line call per use, so the per-sample
 path compares explicitly.
 

@@ -8,7 +8,7 @@ from solderless.engine.devices._common import VT
 from solderless.engine.solver.kernel.dispatch import (
     correct_currents, eval_ports, eval_ports_outlined, limit_moved)
 from solderless.engine.solver.kernel.jacobian import jacobian_drift, update_jacobian
-from solderless.engine.solver.kernel.linalg import gemv_add
+from solderless.engine.solver.kernel.linalg import gemv_add, gemv_inl
 from solderless.engine.solver.kernel.params import (
     CHORD_MAX, DRIFT_MAX, HARD_FACTORS, MAXIT, PIVOT_TINY, RES_SANE, REUSE_STEP, STEP_FLOOR,
     THETA_MAX, THETA_MIN, THETA_REFRESH, kernel_jit)
@@ -21,7 +21,7 @@ def residual(p, v, K, i, F, n):
     """F = p - v + K i (the residual at v); returns max |F|."""
     for r in range(n):
         F[r] = p[r] - v[r]
-    gemv_add(K, i, F, n, n)
+    gemv_inl(K, i, F, n, n)
     res = 0.0
     for r in range(n):
         a = abs(F[r])
@@ -39,7 +39,7 @@ def take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs, tol, rtol, commit
     (one pass instead of a second loop; w is infinite if F is not finite)."""
     for r in range(n):
         vn[r] = v[r]
-    gemv_add(Ji, F, vn, n, n)
+    gemv_inl(Ji, F, vn, n, n)
     limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
     big = 0.0
     w = 0.0
