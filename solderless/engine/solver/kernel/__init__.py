@@ -59,7 +59,7 @@ two-port runner, through a numba inline cost model), and the Jacobian
 inverse (update_jacobian) and the refactoring Newton phase
 (newton_refactoring; both on a few per cent of samples) are real calls.
 The padded matrix-vector product is inlined at the four products made once
-per sample (gemv_inl), also inside the chord loop; gemv_add is the real call.
+per sample and inside the chord loop (gemv_inl); gemv_add is the same as a real call.
 numba's builtin max() is an out-of-line call per use, so the per-sample
 path compares explicitly.
 

@@ -19,8 +19,8 @@ def gemv_inl(A, x, y, nr, nc):
     stack, which costs more than these products at the designs' sizes
     (inlining the chord loop's two: 5-10 % less time per sample on
     octave-up, the flagship and feedforward, by the CPU's cycle counter,
-    best of three on a quiet machine).  newton_refactoring's products call
-    :func:`gemv_add`."""
+    best of three on a quiet machine).  :func:`gemv_add` is the same
+    product as a real call."""
     r = 0
     while r + 4 <= nr:
         s0 = 0.0

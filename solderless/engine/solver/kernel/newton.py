@@ -8,7 +8,7 @@ from solderless.engine.devices._common import VT
 from solderless.engine.solver.kernel.dispatch import (
     correct_currents, eval_ports, eval_ports_outlined, limit_moved)
 from solderless.engine.solver.kernel.jacobian import jacobian_drift, update_jacobian
-from solderless.engine.solver.kernel.linalg import gemv_add, gemv_inl
+from solderless.engine.solver.kernel.linalg import gemv_inl
 from solderless.engine.solver.kernel.params import (
     CHORD_MAX, DRIFT_MAX, HARD_FACTORS, MAXIT, PIVOT_TINY, RES_SANE, REUSE_STEP, STEP_FLOOR,
     THETA_MAX, THETA_MIN, THETA_REFRESH, kernel_jit)
