@@ -375,6 +375,24 @@ def _compile(out_dir: str, name: str) -> None:
             self.fastmath = cpu.FastMathOptions(FM)
 
     pycc_compiler.Flags = _Flags
+    # Optimise as the JIT does: pycc compiles position-independent code and
+    # hides the module's internal functions only after optimising, so LLVM
+    # treats every kernel function as interposable and neither inlines nor
+    # specialises across the kernel's real calls (octave-up ran 20-25 %
+    # slower through the module than through the JIT).  Hidden before the
+    # optimiser runs, they are local to the module as in the JIT; only the
+    # module's entry (PyInit_*) stays visible.
+    from llvmlite.binding import Linkage
+    optimise = codegen.AOTCodeLibrary._optimize_final_module
+
+    def _optimize_hidden(self):
+        for fn in self._final_module.functions:
+            if (not fn.is_declaration and fn.linkage == Linkage.external
+                    and not fn.name.startswith("PyInit_")):
+                fn.visibility = "hidden"
+        optimise(self)
+
+    codegen.AOTCodeLibrary._optimize_final_module = _optimize_hidden
     # the host CPU's own feature flags, as the JIT takes them (pycc would
     # take the CPU model's defaults, which a virtual machine may not offer)
     codegen.AOTCPUCodegen._customize_tm_features = codegen.JITCPUCodegen._customize_tm_features
