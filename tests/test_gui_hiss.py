@@ -12,25 +12,15 @@ import pytest
 pytest.importorskip("solderless.engine.solver.simulator")
 
 from solderless.engine.analysis.noise import floor_brief, floor_figures, floor_summary
-from solderless.engine.design import load_design
 from solderless.engine.design.edits import SetHiss
-from solderless.gui.app import make_window
+from gui_window import open_window
 
 HERE = Path(__file__).resolve().parent
 
 
 @pytest.fixture
 def win(qtbot, tmp_path):
-    w = make_window(load_design(HERE / "gui_divider.toml"), config=tmp_path / "cfg",
-                    recover="no", source="tone:1000:0.1", seconds=1.5)
-    w.ask = lambda _q: "discard"
-    qtbot.addWidget(w)
-    w.resize(1480, 940)
-    w.show()
-    assert w.wait_idle(180)
-    yield w
-    w.ask = lambda _q: "discard"
-    w.close()
+    yield from open_window(qtbot, tmp_path, HERE / "gui_divider.toml")
 
 
 def _floor_text(design):

@@ -19,6 +19,7 @@ from PyQt6.QtCore import Qt
 pytest.importorskip("solderless.engine.solver.simulator")
 
 from solderless.engine.design import load_design
+from gui_window import open_window
 from solderless.gui.app import make_window, screenshot
 from solderless.gui.model import Autosave, Difference, differences
 from solderless.engine.analysis.trial import BlindTrial
@@ -29,16 +30,7 @@ DIVIDER = HERE / "gui_divider.toml"
 
 @pytest.fixture
 def win(qtbot, tmp_path, design_file):
-    w = make_window(load_design(design_file), config=tmp_path / "cfg", recover="no",
-                    source="tone:1000:0.1", seconds=1.5)
-    w.ask = lambda _q: "discard"
-    qtbot.addWidget(w)
-    w.resize(1480, 940)
-    w.show()
-    assert w.wait_idle(180)
-    yield w
-    w.ask = lambda _q: "discard"
-    w.close()
+    yield from open_window(qtbot, tmp_path, design_file)
 
 
 def _divider(vs, r_top, r_bottom):

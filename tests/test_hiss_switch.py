@@ -256,18 +256,11 @@ def test_play_console_switches_noise_while_playing(tmp_path):
     (more than 40 dB down); the session goes on throughout and the saved
     file carries the setting."""
     import json
-    import os
     import re
     import subprocess
     import sys
-    from pathlib import Path
-    root = Path(__file__).resolve().parent.parent
-    home = tmp_path / "home"
-    home.mkdir()
-    (home / ".asoundrc").write_text("pcm.!default {\n    type null\n}\n")
-    env = dict(os.environ, HOME=str(home), XDG_CONFIG_HOME=str(home / ".config"),
-               PYTHONPATH=str(root))
-    env.pop("AUDIODEV", None)
+    from nullaudio import ROOT as root, null_audio_env
+    env = null_audio_env(tmp_path)
     saved = tmp_path / "noisy.toml"
     script = ["wait 1", "meters", "hiss on 3", "wait 1", "meters", "hiss off", "wait 1",
               "meters", "hiss on", f"save {saved}", "quit"]

@@ -202,18 +202,11 @@ def test_play_with_hiss_reports_the_floor(tmp_path):
     device (DESIGN.md): the summary carries the noise floor of the design,
     as the analysis gives it."""
     import json
-    import os
     import subprocess
     import sys
-    from pathlib import Path
     from solderless.engine.design import load_design
-    root = Path(__file__).resolve().parent.parent
-    home = tmp_path / "home"
-    home.mkdir()
-    (home / ".asoundrc").write_text("pcm.!default {\n    type null\n}\n")
-    env = dict(os.environ, HOME=str(home), XDG_CONFIG_HOME=str(home / ".config"),
-               PYTHONPATH=str(root))
-    env.pop("AUDIODEV", None)
+    from nullaudio import ROOT as root, null_audio_env
+    env = null_audio_env(tmp_path)
     r = subprocess.run([sys.executable, "-m", "solderless.app.cli", "play", "booster",
                         "--source", "tone:1000:0.01", "--seconds", "1", "--json",
                         "--no-console", "--hiss", "--hiss-seed", "4"],

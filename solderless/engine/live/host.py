@@ -938,26 +938,19 @@ class LiveHost:
         def back():
             apply_edit(v.design, applied.inverse)
             v.design.dirty = dirty
-        if applied.rebuild:
+        # a structural edit, or noise switched on where the running
+        # simulator has no noise sources: build anew and crossfade, as for
+        # a bypass
+        if applied.rebuild or self._hiss_needs_build(v):
             try:
                 sim = v.build()
             except BaseException:
                 back()
                 raise
             v.warm(sim)
-            if v.missing:
+            if applied.rebuild and v.missing:
                 self.messages.put(f"{v.label}: no longer measured after the change: "
                                   + ", ".join(v.missing))
-            self._swap_in(v, sim)
-        elif self._hiss_needs_build(v):
-            # noise switched on where the running simulator has no noise
-            # sources: build the noisy one and crossfade, as for a bypass
-            try:
-                sim = v.build()
-            except BaseException:
-                back()
-                raise
-            v.warm(sim)
             self._swap_in(v, sim)
         elif applied.changes:
             try:

@@ -52,10 +52,11 @@ than a 2-port Newton step itself.  The per-sample path (solve_ports,
 newton, the device loops and the chord step) is therefore inlined into
 run_block (numba ``inline="always"``).  numba's IR-level inlining is slow to
 compile, so it is used sparingly: newton has a single call site (the
-fallback's continuation sub-steps reuse it), each device type's
-evaluate/limit is compiled once into one dispatch function (eval_one,
-limit_one: one real call per device; eval_one is inlined only into the lean
-two-port runner, through a numba inline cost model), and the Jacobian
+fallback's continuation sub-steps reuse it), the common devices' laws
+are inlined into the per-sample device loops (eval_common, limit_common)
+and the rarer ones are one real call (eval_rare, limit_rare; eval_one and
+limit_one are the whole dispatch as one call, eval_one inlined only into
+the lean two-port runner, through a numba inline cost model), and the Jacobian
 inverse (update_jacobian) and the refactoring Newton phase
 (newton_refactoring; both on a few per cent of samples) are real calls.
 The padded matrix-vector product is inlined at the four products made once

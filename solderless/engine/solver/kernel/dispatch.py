@@ -3,11 +3,12 @@
 Devices live in one flat parameter array and are told apart by the integer
 ``CODE`` of their module (solderless/engine/devices/*.py), so one compiled
 kernel serves every circuit.  numba needs each device's call site spelled
-out: a new device adds one branch to :func:`eval_one` (and to
-:func:`limit_one` if it limits its steps), comparing against its module's
-``CODE`` (numba folds the module attribute into a constant).  The
-per-sample paths call :func:`eval_common` and :func:`limit_common`, which
-inline the common devices' laws and hand the rest to those two.
+out: a new device adds one branch to :func:`eval_rare` (and to
+:func:`limit_rare` if it limits its steps), comparing against its module's
+``CODE`` (numba folds the module attribute into a constant); a common
+device with a small law goes to :func:`eval_common` (:func:`limit_common`)
+instead, inlined into the per-sample paths.  :func:`eval_one` and
+:func:`limit_one` are the same dispatch as one call.
 """
 from __future__ import annotations
 
@@ -23,21 +24,12 @@ def _inline_in_small(expr, caller_ir, callee_ir):
     return caller_ir.func_id.func_name == "run_block_small"
 
 
-@kernel_jit(inline=_inline_in_small)
-def eval_one(c, par, pa, v, po, i, G):
-    """Evaluate one device by type code: port currents into i[po:], its
-    Jacobian block into G[po:, po:]."""
-    if c == bjt.CODE:
-        bjt.evaluate(par, pa, v, po, i, G)
-    elif c == diode.CODE:
-        diode.evaluate(par, pa, v, po, i, G)
-    elif c == jfet.CODE:
-        jfet.evaluate(par, pa, v, po, i, G)
-    elif c == ota.CODE:
-        ota.evaluate(par, pa, v, po, i, G)
-    elif c == opamp.CODE:
-        opamp.evaluate(par, pa, v, po, i, G)
-    elif c == mosfet.CODE:
+@kernel_jit()
+def eval_rare(c, par, pa, v, po, i, G):
+    """The rarer devices' laws (MOSFET, behavioural source, switch), one
+    real call: kept out of line so the compiled per-sample code stays
+    small."""
+    if c == mosfet.CODE:
         mosfet.evaluate(par, pa, v, po, i, G)
     elif c == behav.CODE:
         behav.evaluate(par, pa, v, po, i, G)
@@ -45,34 +37,15 @@ def eval_one(c, par, pa, v, po, i, G):
         switch.evaluate(par, pa, v, po, i, G)
 
 
-@kernel_jit()
-def limit_one(c, par, pa, vn, vo, po):
-    """Junction limiting of one device's step vo -> vn by type code (in
-    place on vn; devices without a limit take the step as it is)."""
-    if c == bjt.CODE:
-        bjt.limit(par, pa, vn, vo, po)
-    elif c == diode.CODE:
-        diode.limit(par, pa, vn, vo, po)
-    elif c == jfet.CODE:
-        jfet.limit(par, pa, vn, vo, po)
-    elif c == ota.CODE:
-        ota.limit(par, pa, vn, vo, po)
-    elif c == opamp.CODE:
-        opamp.limit(par, pa, vn, vo, po)
-    elif c == mosfet.CODE:
-        mosfet.limit(par, pa, vn, vo, po)
-
-
 @kernel_jit(inline="always")
 def eval_common(c, par, pa, v, po, i, G):
-    """:func:`eval_one` with the common devices' laws inlined at the call
-    site (the per-sample paths: :func:`eval_ports`).  A real call passes
-    each array as about seven machine words: at the designs' sizes that
-    cost 50-70 cycles per device call, as much as a junction's law itself
-    (measured with the CPU's cycle counter around each call: an op-amp
-    clamp 100 -> 30 cycles, a diode 80 -> 35, a BJT 130 -> 80).  Rarer
-    devices (MOSFET, behavioural source, switch) still go through
-    :func:`eval_one`, which keeps the compiled code small."""
+    """Evaluate one device by type code, the common devices' laws (BJT,
+    diode, op-amp, OTA, JFET) inlined at the call site, the rest through
+    :func:`eval_rare`.  The per-sample paths (:func:`eval_ports`) call it
+    directly: a real call passes each array as about seven machine words,
+    at the designs' sizes 50-70 cycles per device call, as much as a
+    junction's law itself (the CPU's cycle counter around each call: an
+    op-amp clamp 100 -> 30 cycles, a diode 80 -> 35, a BJT 130 -> 80)."""
     if c == bjt.CODE:
         bjt.evaluate(par, pa, v, po, i, G)
     elif c == diode.CODE:
@@ -84,13 +57,33 @@ def eval_common(c, par, pa, v, po, i, G):
     elif c == jfet.CODE:
         jfet.evaluate(par, pa, v, po, i, G)
     else:
-        eval_one(c, par, pa, v, po, i, G)
+        eval_rare(c, par, pa, v, po, i, G)
+
+
+@kernel_jit(inline=_inline_in_small)
+def eval_one(c, par, pa, v, po, i, G):
+    """Evaluate one device by type code: port currents into i[po:], its
+    Jacobian block into G[po:, po:] (:func:`eval_common` as one call,
+    except in the lean kernel, where it is inlined)."""
+    eval_common(c, par, pa, v, po, i, G)
+
+
+@kernel_jit()
+def limit_rare(c, par, pa, vn, vo, po):
+    """The limits of the devices :func:`limit_common` does not inline."""
+    if c == jfet.CODE:
+        jfet.limit(par, pa, vn, vo, po)
+    elif c == ota.CODE:
+        ota.limit(par, pa, vn, vo, po)
+    elif c == mosfet.CODE:
+        mosfet.limit(par, pa, vn, vo, po)
 
 
 @kernel_jit(inline="always")
 def limit_common(c, par, pa, vn, vo, po):
-    """:func:`limit_one` with the common devices' limits inlined (see
-    :func:`eval_common`)."""
+    """Junction limiting of one device's step vo -> vn by type code (in
+    place on vn; devices without a limit take the step as it is), the
+    common limits inlined (see :func:`eval_common`)."""
     if c == bjt.CODE:
         bjt.limit(par, pa, vn, vo, po)
     elif c == diode.CODE:
@@ -98,7 +91,13 @@ def limit_common(c, par, pa, vn, vo, po):
     elif c == opamp.CODE:
         opamp.limit(par, pa, vn, vo, po)
     else:
-        limit_one(c, par, pa, vn, vo, po)
+        limit_rare(c, par, pa, vn, vo, po)
+
+
+@kernel_jit()
+def limit_one(c, par, pa, vn, vo, po):
+    """:func:`limit_common` as one call (the operating point's solver)."""
+    limit_common(c, par, pa, vn, vo, po)
 
 
 @kernel_jit()
