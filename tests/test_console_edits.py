@@ -23,10 +23,15 @@ def booster_host():
     h.close()
 
 
+def _console(h):
+    """A console on host h and the list of what it says."""
+    said = []
+    return Console(h, say=said.append), said
+
+
 def test_taper_command_sets_each_law(booster_host):
     h = booster_host
-    said = []
-    con = Console(h, say=said.append)
+    con, said = _console(h)
     con.handle("pick output.VOLUME")
     con.handle("turn 0.5")
     h.flush()               # the pot ramps in the background; let it arrive
@@ -53,8 +58,7 @@ def test_pots_step_through_the_values_pots_are_made_in(booster_host):
     # the same table the build sheet snaps a pot to
     from solderless.engine.analysis.build import snap_pot
     h = booster_host
-    said = []
-    con = Console(h, say=said.append)
+    con, said = _console(h)
     con.handle("pick output.VOLUME")            # 100k
     con.handle("up")
     assert h.part_info("output.VOLUME").value == pytest.approx(200e3)
@@ -142,8 +146,7 @@ def test_a_typed_value_is_echoed_and_an_unreal_one_is_named(booster_host):
     # (solderless/engine/sanity.py VALUE_RANGES, common practice) is kept but
     # named, as a design file with that value would be
     h = booster_host
-    said = []
-    con = Console(h, say=said.append)
+    con, said = _console(h)
     con.handle("pick boost.RC")
     con.handle("value -1k")
     assert said[-1].startswith("error:") and said[-1].endswith("not -1k")

@@ -384,14 +384,20 @@ def test_import_netlist_as_stage(win, tmp_path):
     assert 'netlist = "sub/rc.cir"' in target.read_text()
 
 
-def test_edits_and_undo_reach_a_running_host(win):
-    # the live host runs in its own process, paced by a clock instead of a
-    # sound card; its simulator's element values are read back from there
+def _play_paced(win):
+    """Start the workbench's live host on a 1 kHz tone, paced by a clock
+    instead of a sound card; returns the host (stop it with stop_live)."""
     win.live.source.setCurrentIndex(win.live.source.findData("tone:1000:0.1"))
     win.live_driver = "paced"
     assert win.start_live()
     assert win.wait_live(300)
-    h = win.host
+    return win.host
+
+
+def test_edits_and_undo_reach_a_running_host(win):
+    # the live host runs in its own process, paced by a clock instead of a
+    # sound card; its simulator's element values are read back from there
+    h = _play_paced(win)
     try:
         win.wb.set_value("amp.R2", 100e3)
         win.wb.set_rotation("level.VOL", 0.2)
@@ -418,11 +424,7 @@ def test_a_structural_edit_crossfades_in_the_running_host(win):
     # a bypass, a new stage and their undo reach the running host as the
     # same edits (data) the workbench applied: the host process keeps
     # running and swaps circuits, as it does for the console's edits
-    win.live.source.setCurrentIndex(win.live.source.findData("tone:1000:0.1"))
-    win.live_driver = "paced"
-    assert win.start_live()
-    assert win.wait_live(300)
-    h = win.host
+    h = _play_paced(win)
     try:
         win.wb.set_bypass("level", True)
         name = win.wb.add_stage("output/volume")

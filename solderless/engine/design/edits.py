@@ -63,10 +63,13 @@ class Edit:
     :meth:`apply` is :func:`apply_edit`."""
     #: a part edit: the design's state saved before it is one part's fields
     PART_FIELDS: tuple[str, ...] = ()
+    #: the undo menu's words, the edit's fields filled in ("turn {part}");
+    #: else the class name
+    LABEL: str = ""
 
     @property
     def label(self) -> str:
-        return type(self).__name__
+        return self.LABEL.format(**vars(self)) if self.LABEL else type(self).__name__
 
     def apply(self, d: Design) -> Applied:
         return apply_edit(d, self)
@@ -173,6 +176,18 @@ def _set_part_field(edit, d, field: str, change):
     return old, before, changes
 
 
+def _one_field(edit, d, change, heard: bool = True, rebuild: bool = False) -> Applied:
+    """Apply a one-field part edit (its field: ``PART_FIELDS[0]``) through
+    ``change()``; the inverse is the same edit with the old value and the
+    document's old entry. ``heard``: the element values it changes reach
+    the running simulator; ``rebuild``: it changes the circuit's
+    structure."""
+    field = edit.PART_FIELDS[0]
+    old, before, changes = _set_part_field(edit, d, field, change)
+    return Applied(edit, type(edit)(edit.part, old, before), changes if heard else {},
+                   rebuild=rebuild, result=getattr(d.part(edit.part), field), part=edit.part)
+
+
 @dataclass(frozen=True)
 class SetValue(Edit):
     """A part's value (a number, or text such as "4k7", read once here).
@@ -187,17 +202,12 @@ class SetValue(Edit):
             object.__setattr__(self, "value",
                                _parse_value(self.value, part=self.part))
 
-    @property
-    def label(self) -> str:
-        return f"value of {self.part}"
+    LABEL = "value of {part}"
 
     def _apply(self, d):
         if self.part == "temperature":
             return SetTemperature(self.value)._apply(d)
-        old, before, changes = _set_part_field(
-            self, d, "value", lambda: d.set_value(self.part, float(self.value)))
-        return Applied(self, SetValue(self.part, old, before), changes,
-                       result=d.part(self.part).value, part=self.part)
+        return _one_field(self, d, lambda: d.set_value(self.part, float(self.value)))
 
 
 @dataclass(frozen=True)
@@ -208,15 +218,10 @@ class SetRotation(Edit):
     entry: Any = RECORD
     PART_FIELDS = ("rotation",)
 
-    @property
-    def label(self) -> str:
-        return f"turn {self.part}"
+    LABEL = "turn {part}"
 
     def _apply(self, d):
-        old, before, changes = _set_part_field(
-            self, d, "rotation", lambda: d.set_rotation(self.part, self.rotation))
-        return Applied(self, SetRotation(self.part, old, before), changes,
-                       result=d.part(self.part).rotation, part=self.part)
+        return _one_field(self, d, lambda: d.set_rotation(self.part, self.rotation))
 
 
 @dataclass(frozen=True)
@@ -235,16 +240,11 @@ class SetTaper(Edit):
             except TypeError:
                 pass                             # refused when applied
 
-    @property
-    def label(self) -> str:
-        return f"taper of {self.part}"
+    LABEL = "taper of {part}"
 
     def _apply(self, d):
         taper = self.taper if isinstance(self.taper, str) else [list(p) for p in self.taper]
-        old, before, changes = _set_part_field(
-            self, d, "taper", lambda: d.set_taper(self.part, taper))
-        return Applied(self, SetTaper(self.part, old, before), changes,
-                       result=d.part(self.part).taper, part=self.part)
+        return _one_field(self, d, lambda: d.set_taper(self.part, taper))
 
 
 @dataclass(frozen=True)
@@ -256,15 +256,11 @@ class SetTolerance(Edit):
     entry: Any = RECORD
     PART_FIELDS = ("tolerance",)
 
-    @property
-    def label(self) -> str:
-        return f"tolerance of {self.part}"
+    LABEL = "tolerance of {part}"
 
     def _apply(self, d):
-        old, before, _ = _set_part_field(
-            self, d, "tolerance", lambda: d.set_tolerance(self.part, self.tolerance))
-        return Applied(self, SetTolerance(self.part, old, before),
-                       result=d.part(self.part).tolerance, part=self.part)
+        return _one_field(self, d, lambda: d.set_tolerance(self.part, self.tolerance),
+                          heard=False)
 
 
 @dataclass(frozen=True)
@@ -274,9 +270,7 @@ class SetModel(Edit):
     model: str
     PART_FIELDS = ("model",)
 
-    @property
-    def label(self) -> str:
-        return f"model of {self.part}"
+    LABEL = "model of {part}"
 
     def _apply(self, d):
         obj = d.part(self.part)
@@ -297,9 +291,7 @@ class RestoreModel(Edit):
     entry: Any = None
     PART_FIELDS = ("model",)
 
-    @property
-    def label(self) -> str:
-        return f"model of {self.part}"
+    LABEL = "model of {part}"
 
     def _apply(self, d):
         obj = d.part(self.part)
@@ -327,15 +319,11 @@ class SetPosition(Edit):
     entry: Any = RECORD
     PART_FIELDS = ("position",)
 
-    @property
-    def label(self) -> str:
-        return f"switch {self.part}"
+    LABEL = "switch {part}"
 
     def _apply(self, d):
-        old, before, _ = _set_part_field(
-            self, d, "position", lambda: d.set_position(self.part, self.position))
-        return Applied(self, SetPosition(self.part, old, before), rebuild=True,
-                       result=d.part(self.part).position, part=self.part)
+        return _one_field(self, d, lambda: d.set_position(self.part, self.position),
+                          heard=False, rebuild=True)
 
 
 @dataclass(frozen=True)
@@ -345,9 +333,7 @@ class SetTemperature(Edit):
     degrees: float | None
     entry: Any = RECORD
 
-    @property
-    def label(self) -> str:
-        return "temperature"
+    LABEL = "temperature"
 
     def _apply(self, d):
         from solderless.engine.solver.simulator import TEMPERATURE_KEY
@@ -515,9 +501,7 @@ class AddStage(Edit):
     index: int | None = None
     name: str | None = None
 
-    @property
-    def label(self) -> str:
-        return f"add {self.template}"
+    LABEL = "add {template}"
 
     def _apply(self, d):
         from solderless.engine.design.library import load_stage_template
@@ -534,9 +518,7 @@ class DuplicateStage(Edit):
     """Insert a copy of a stage right after it (named ``stage-2`` ...)."""
     stage: str
 
-    @property
-    def label(self) -> str:
-        return f"duplicate {self.stage}"
+    LABEL = "duplicate {stage}"
 
     def _apply(self, d):
         _no_netlist(d, f"duplicate stage '{self.stage}'")
@@ -585,9 +567,7 @@ class RemoveStage(Edit):
     """Remove a stage and every link that touches it."""
     stage: str
 
-    @property
-    def label(self) -> str:
-        return f"remove {self.stage}"
+    LABEL = "remove {stage}"
 
     def _apply(self, d):
         _no_netlist(d, f"remove stage '{self.stage}'")
@@ -614,9 +594,7 @@ class MoveStage(Edit):
     stage: str
     delta: int
 
-    @property
-    def label(self) -> str:
-        return f"move {self.stage}"
+    LABEL = "move {stage}"
 
     def _apply(self, d):
         st = d.stage(self.stage)
@@ -638,9 +616,7 @@ class RenameStage(Edit):
     stage: str
     name: str
 
-    @property
-    def label(self) -> str:
-        return f"rename {self.stage}"
+    LABEL = "rename {stage}"
 
     def _apply(self, d):
         _no_netlist(d, f"rename stage '{self.stage}'")
@@ -670,9 +646,7 @@ class AddLink(Edit):
     b: tuple
     index: int | None = None
 
-    @property
-    def label(self) -> str:
-        return "link ports"
+    LABEL = "link ports"
 
     def _apply(self, d):
         a, b = tuple(self.a), tuple(self.b)
@@ -703,9 +677,7 @@ class RemoveLink(Edit):
     """Remove the link at ``index`` of ``Design.links``."""
     index: int
 
-    @property
-    def label(self) -> str:
-        return "remove link"
+    LABEL = "remove link"
 
     def _apply(self, d):
         if not 0 <= self.index < len(d.links):
@@ -752,9 +724,7 @@ class RemoveProbe(Edit):
     """Remove the probe named ``name``."""
     name: str
 
-    @property
-    def label(self) -> str:
-        return f"remove probe {self.name}"
+    LABEL = "remove probe {name}"
 
     def _apply(self, d):
         for k, p in enumerate(d.probes):
