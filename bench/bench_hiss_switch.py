@@ -38,18 +38,14 @@ from solderless.engine.design.edits import SetHiss  # noqa: E402
 from solderless.engine.solver import Simulator  # noqa: E402
 from solderless.engine.solver.livenoise import HissSimulator  # noqa: E402
 from solderless.engine.synth import render_phrase  # noqa: E402
+from bench_hiss import render_time  # noqa: E402  (bench/ is the script's folder)
 
 FS = 48000.0
 BLOCK = 128
 
 
 def _render(sim, x):
-    y = np.empty_like(x)
-    t0 = time.process_time()
-    for s in range(0, x.size, BLOCK):
-        e = min(s + BLOCK, x.size)
-        sim.process_into(x[s:e], y[s:e])
-    return time.process_time() - t0
+    return render_time(sim, x, BLOCK, reset=False)
 
 
 def cpu_table(names, seconds, repeat):
