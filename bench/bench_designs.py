@@ -22,6 +22,8 @@ the deepest gain reduction on the phrase's soft and hard single notes.
 
 ``--charge-cost`` times every design with junction charge storage on and
 off instead (interleaved run by run), and writes bench/results/charge_cost.json.
+``--lanes`` times every design with dormant ports (solver/dormant.py) on and
+off, interleaved, and writes bench/results/lanes.json.
 
 Run from the repository root:  python bench/bench_designs.py [--repeat N] [--charge-cost]
 """
@@ -54,14 +56,15 @@ class DesignRun:
     """One design set up for timing: flattened, at its operating point, its
     kernels warmed (compilation excluded from the timing)."""
 
-    def __init__(self, name: str, charge: bool | None = None):
+    def __init__(self, name: str, charge: bool | None = None, dormant_ports: bool = True):
         self.name = name
         self.d = d = load_design(name)
         t0 = time.perf_counter()
         circ = d.flatten()
         if charge is not None:
             circ.junction_charge = charge
-        self.sim = Simulator(circ, fs=FS, oversample=d.oversample, block_max=BLOCK)
+        self.sim = Simulator(circ, fs=FS, oversample=d.oversample, block_max=BLOCK,
+                             dormant_ports=dormant_ports)
         self.op = self.sim.operating_point()
         self.setup_s = time.perf_counter() - t0
         y = np.empty(BLOCK)
@@ -89,7 +92,9 @@ class DesignRun:
         n = max(1, st["samples"])
         self.work = {"iterations_per_sample": st["mean_iterations"],
                      "factorizations_per_sample": st["factorizations"] / n,
-                     "jacobian_updates_per_sample": st["jacobian_updates"] / n}
+                     "jacobian_updates_per_sample": st["jacobian_updates"] / n,
+                     "reduced_share": st["reduced_samples"] / n,
+                     "handovers": st["handovers"]}
         self.out = out
 
     def row(self, x: np.ndarray) -> dict:
@@ -128,16 +133,73 @@ def bench_all(names: list[str], x: np.ndarray, repeat: int) -> list[dict]:
     return [r.row(x) for r in runs]
 
 
+def interleave(pairs, x: np.ndarray, repeat: int):
+    """Time each (on, off) pair of DesignRuns ``repeat`` times, the two
+    alternating run by run, so a loaded machine's drift falls on both
+    alike; returns the pairs."""
+    for _ in range(repeat):
+        for on, off in pairs:
+            on.time_once(x)
+            off.time_once(x)
+    return pairs
+
+
+def lanes(names: list[str], repeat: int) -> int:
+    """``--lanes``: every design with dormant ports on (the reduced lane
+    while the op-amps are off their rails) and off (always the full port
+    solve), interleaved; prints the table and writes bench/results/lanes.json."""
+    x = render_phrase("demo", fs=FS)
+    load0 = os.getloadavg() if hasattr(os, "getloadavg") else None
+    pairs = interleave([(DesignRun(n), DesignRun(n, dormant_ports=False)) for n in names],
+                       x, repeat)
+    load = os.getloadavg() if hasattr(os, "getloadavg") else None
+    a = x.size / FS
+    rows = []
+    for on, off in pairs:
+        pl = on.sim._plan
+        rows.append({"design": on.name, "oversample": on.d.oversample,
+                     "ports": on.sim.n_ports,
+                     "reduced_ports": int(pl.active.size) if pl is not None else None,
+                     "rt_on": a / min(on.walls), "rt_off": a / min(off.walls),
+                     "rt_on_cpu": a / min(on.cpus), "rt_off_cpu": a / min(off.cpus),
+                     "reduced_share": on.work["reduced_share"],
+                     "handovers": on.work["handovers"],
+                     "max_abs_difference_v": float(np.max(np.abs(on.out - off.out))),
+                     "peak_v": float(np.max(np.abs(off.out - np.mean(off.out))))})
+    hdr = (f"{'design':<26}{'os':>3}{'ports':>7}{'x RT on':>9}{'x RT off':>9}"
+           f"{'CPU on':>8}{'CPU off':>8}{'reduced':>9}{'hand':>6}{'diff/peak':>11}")
+    print(hdr)
+    print("-" * len(hdr))
+    for r in rows:
+        ports = f"{r['ports']}" + (f">{r['reduced_ports']}" if r["reduced_ports"] is not None
+                                   else "")
+        print(f"{r['design']:<26}{r['oversample']:>3}{ports:>7}{r['rt_on']:>9.1f}"
+              f"{r['rt_off']:>9.1f}{r['rt_on_cpu']:>8.1f}{r['rt_off_cpu']:>8.1f}"
+              f"{100 * r['reduced_share']:>8.0f}%{r['handovers']:>6d}"
+              f"{r['max_abs_difference_v'] / max(r['peak_v'], 1e-30):>11.1e}")
+    result = {"fs": FS, "phrase_s": a, "block": BLOCK, "target_realtime": TARGET_RT,
+              "repeat": repeat, "machine": platform.machine(),
+              "python": platform.python_version(), "cpus": os.cpu_count(),
+              "loadavg_at_start": load0, "loadavg_at_end": load,
+              "note": "dormant ports on and off interleaved; x RT from the best wall time, "
+                      "CPU from the best process time; reduced = share of kernel samples on "
+                      "the reduced lane; diff/peak = largest output difference between the "
+                      "two over the output's peak",
+              "designs": rows}
+    out = ROOT / "bench" / "results"
+    out.mkdir(parents=True, exist_ok=True)
+    (out / "lanes.json").write_text(json.dumps(result, indent=2, default=float))
+    print(f"\nwrote {out / 'lanes.json'} (load average {load0} -> {load})")
+    return 0
+
+
 def charge_cost(names: list[str], x: np.ndarray, repeat: int) -> list[dict]:
     """Real-time factor of every design with junction charge storage on and
     off (Circuit.junction_charge), the two interleaved run by run so a
     loaded machine's drift falls on both alike; best of ``repeat`` by wall
     time and by CPU time (time.process_time)."""
-    pairs = [(DesignRun(n, True), DesignRun(n, False)) for n in names]
-    for _ in range(repeat):
-        for on, off in pairs:
-            on.time_once(x)
-            off.time_once(x)
+    pairs = interleave([(DesignRun(n, True), DesignRun(n, False)) for n in names], x, repeat)
+
     def products(run):
         # multiply-adds of the kernel's per-sample matrix products (padded)
         m = run.sim._model
@@ -240,9 +302,14 @@ def main(argv=None) -> int:
     ap.add_argument("--charge-cost", action="store_true",
                     help="time every design with junction charge storage on and off, "
                          "interleaved; writes bench/results/charge_cost.json")
+    ap.add_argument("--lanes", action="store_true",
+                    help="time every design with dormant ports on and off, interleaved; "
+                         "writes bench/results/lanes.json")
     args = ap.parse_args(argv)
     if args.charge_cost:
         return main_charge(args.designs or sorted(builtin_designs()), args.repeat)
+    if args.lanes:
+        return lanes(args.designs or sorted(builtin_designs()), args.repeat)
     x = render_phrase("demo", fs=FS)
     c0 = cpu_times()
     rows = bench_all(args.designs or sorted(builtin_designs()), x, args.repeat)

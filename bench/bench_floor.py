@@ -119,7 +119,7 @@ def measure(name: str, make, x: np.ndarray, repeat: int) -> dict:
     stats = sim.stats
     n = x.size
     row = {"name": name, "ports": sim.n_ports, "padded_ports": sim._v.size,
-           "states": sim.n_states, "devices": int(sim._arr[0].size),
+           "states": sim.n_states, "devices": int(sim._arr[0][0].size),
            "full_ns_per_sample": full / n * 1e9, "floor_ns_per_sample": None,
            "full_over_floor": None, "mean_iterations": stats["mean_iterations"],
            "factorizations_per_sample": stats["factorizations"] / max(1, stats["samples"]),
@@ -129,7 +129,7 @@ def measure(name: str, make, x: np.ndarray, repeat: int) -> dict:
     sim = make()
     V, Z = trajectory(sim, x)
     m = sim._model
-    dcode, dpo, dnp, dpa, par, dqs = sim._arr
+    dcode, dpo, dnp, dpa, par, dqs = sim._arr[0]
     npt = sim._v.size
     work = [np.zeros(npt) for _ in range(4)] + [np.zeros(m.x0.size)]
     args = (V, Z, m.Pz, m.p0, m.Az, m.x0, m.Ck, m.Kk, m.Yz, m.y0, m.Fyk, m.Vyk,
@@ -163,7 +163,7 @@ def main(argv=None) -> int:
     for name in S.audio_netlists():
         circ = S.engine_circuit(name)
         _, x = S.engine_input(name, FS, a.seconds)
-        row = measure(name, lambda c=circ: Simulator(c, FS), np.ascontiguousarray(x), a.repeat)
+        row = measure(name, lambda c=circ: Simulator(c, FS, dormant_ports=False), np.ascontiguousarray(x), a.repeat)
         if name in ng:
             row["ngspice_ns_per_step"] = ng[name]
             row["budget_ns_per_sample"] = ng[name] / TARGET_X
@@ -171,7 +171,7 @@ def main(argv=None) -> int:
     phrase = render_phrase("demo", FS)[: int(a.seconds * FS)]
     for name, path in sorted(builtin_designs().items()):
         circ = load_design(path).flatten()
-        rows.append(measure(name, lambda c=circ: Simulator(c, FS), phrase, a.repeat))
+        rows.append(measure(name, lambda c=circ: Simulator(c, FS, dormant_ports=False), phrase, a.repeat))
     hdr = (f"{'circuit':26s} {'ports':>5s} {'dev':>3s} {'full ns':>8s} {'floor ns':>8s} "
            f"{'full/floor':>10s} {'it/sample':>9s} {'budget ns':>9s}")
     print(f"ns per sample at {FS:g} Hz, oversampling 1, best of {a.repeat}")

@@ -201,6 +201,7 @@ class TrialRunner:
         self.kinds = {el.name: el.kind for el, _, _, _ in self.net.devices}
         self.base_params = {el.name: dict(el.params) for el, _, _, _ in self.net.devices}
         self.base_par = [lay.par.copy() for _, _, lay, _ in self.net.devices]
+        self.base_dead = [lay.dead for _, _, lay, _ in self.net.devices]
         if spec.device_spread:
             lib = load_library()
             for el, _, _, _ in self.net.devices:
@@ -267,11 +268,11 @@ class TrialRunner:
 
     def _set_devices(self, devparams: dict[str, dict]) -> None:
         from solderless.engine.circuit import Element
-        from solderless.engine.solver.mna import device_arrays
         for k, (el, mod, lay, _) in enumerate(self.net.devices):
             ch = devparams.get(el.name)
             if not ch:
                 lay.par[:] = self.base_par[k]
+                lay.dead = self.base_dead[k]
                 continue
             params = dict(self.base_params[el.name])
             params.update(ch)
@@ -282,8 +283,9 @@ class TrialRunner:
                                   f"device {el.name}", part=el.name,
                                   hint="spread only parameters of the device law")
             lay.par[:] = new.par
+            lay.dead = new.dead       # an op-amp's dead zone follows VHR, VSOFT
         # the kernel reads the concatenated parameter vector
-        self.sim._arr = device_arrays(self.net)
+        self.sim.refresh_devices()
 
     # ------------------------------------------------------------ measure
     def measure(self, values: dict[str, float], devparams: dict[str, dict]) -> dict:

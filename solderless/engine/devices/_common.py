@@ -159,6 +159,12 @@ class DeviceLayout:
     #: transcapacitance).  The module's ``capacitances(par, v, vc)`` gives
     #: the values at port voltages v and entry voltages vc = v(cp) - v(cn).
     caps: list[tuple[str, str, str, str]] = field(default_factory=list)
+    #: per port, the open interval (lo, hi) of port voltage inside which the
+    #: device draws exactly no current and has exactly zero conductance
+    #: while every other port of the device is inside its own (None: no
+    #: such zone).  The port solve then drops the device's ports while
+    #: they stay there (solver/dormant.py).
+    dead: list[tuple[float, float]] | None = None
 
 
 def read_params(el, defaults: dict[str, float], *, positive=(), nonneg=(),

@@ -20,9 +20,15 @@ current returns through ground instead of the rail's source.  Otherwise
 in the per-sample solve, so the one-port form makes an op-amp design's
 samples cheaper (bench/bench_designs.py).
 
-A clamp more than CLAMP_OFF knee widths from its threshold reads zero
-current and conductance without an exponential (I0*exp(-40) is about 1e-25
-A, below the solver's GMIN currents by 13 decades).
+A clamp more than CLAMP_OFF (20) knee widths from its threshold reads
+exactly zero current and conductance without an exponential.  The current
+cut off there is I0*exp(-20) = 2e-13*A0/RP: into the internal node, whose
+own leak is 1/RP, that is worth 2e-13 V at the inputs, far below the
+solver's 1 uV tolerance.  Between the two cut-offs the device draws
+nothing at all, so the layout declares that window as its dead zone
+(DeviceLayout.dead) and the port solve drops the clamp port while the
+internal node stays inside it (solver/dormant.py): at a guitar signal's
+levels an op-amp design's port solve shrinks by one port per op-amp.
 The dominant-pole capacitor is integrated with backward Euler (L-stable), so
 the fast closed-loop pole does not ring at the Nyquist frequency as it would
 with the trapezoidal rule.
@@ -45,7 +51,10 @@ NPORTS = 2  # 1 when both rails sit at fixed potentials
 #: layout() takes the network's fixed net potentials (mna.Network.layout_of)
 RAILS = True
 #: a clamp this many VSOFT below its knee reads exactly zero (no exp call)
-CLAMP_OFF = 40.0
+CLAMP_OFF = 20.0
+#: the dead zone stops this far (volts) short of the exact cut-off, so a
+#: port voltage rounded the other way in the kernel is never taken as dead
+DEAD_MARGIN = 1e-9
 DEFAULTS = {"A0": 2e5, "GBW": 1e6, "ROUT": 50.0, "RIN": 1e12, "VHR": 1.5,
             "VSOFT": 0.05, "RP": 1e9}
 # par: 0 I0, 1 VHR, 2 VSOFT, 3 vcrit (shifted variable), 4 1/VSOFT,
@@ -72,12 +81,22 @@ def layout(el, fixed: dict[str, float] | None = None) -> DeviceLayout:
     one = rails[0] is not None and rails[1] is not None
     par = np.array([i0, p["VHR"], p["VSOFT"], vcrit(p["VSOFT"], i0), 1.0 / p["VSOFT"],
                     1.0 if one else 0.0, rails[0] if one else 0.0, rails[1] if one else 0.0])
+    # each clamp is exactly zero more than CLAMP_OFF knee widths below its
+    # threshold (clamp()): the upper one below Vcc - VHR - edge, the lower
+    # one above Vee + VHR + edge
+    edge = CLAMP_OFF * p["VSOFT"] + DEAD_MARGIN
     if one:
         ports, iclip = [(node, GROUND)], {0: 1.0}
+        dead = [(rails[1] + p["VHR"] + edge, rails[0] - p["VHR"] - edge)]
     else:
+        # port 0 is v(p) - v(vcc), port 1 is v(vee) - v(p): each clamp's
+        # shifted voltage is its port voltage plus VHR
         ports, iclip = [(node, vcc), (vee, node)], {0: 1.0, 1: -1.0}
+        dead = [(-math.inf, -p["VHR"] - edge)] * 2
+    if not dead[0][0] < dead[0][1]:
+        dead = None       # rails too close together: the clamps never rest
     return DeviceLayout(CODE, ports, par, [node], stamps, probes={"iclip": (iclip, {})},
-                        quiet_step=2.0 * p["VSOFT"])
+                        quiet_step=2.0 * p["VSOFT"], dead=dead)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")

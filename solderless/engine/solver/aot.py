@@ -80,7 +80,8 @@ INT, FLOAT = "i8", "f8"
 
 _RUN = {"xin": F1, "nin": INT, "yout": F1, "pbuf": F2, "pstart": INT, "pcap": INT,
         "pdec": INT, "Pz": F2, "p0": F1, "Az": F2, "x0": F1, "C": F2, "K": F2, "Yz": F2,
-        "y0": F1, "Fy": F2, "Vy": F2, "kc": F1, "dcode": I1, "dpo": I1, "dnp": I1,
+        "y0": F1, "Fy": F2, "Vy": F2, "kc": F1, "Wz": F2, "w0": F1, "Wk": F2, "wlim": F2,
+        "dcode": I1, "dpo": I1, "dnp": I1,
         "dpa": I1, "par": F1, "dqs": F1, "uvar": I1, "skind": I1, "sptr": I1, "spar": F1,
         "inp": INT, "dt": FLOAT, "z": F1, "xp": F1, "v": F1, "i": F1, "pprev": F1,
         "ws": F2, "G": F2, "Gf": F2, "J": F2, "Ji": F2, "yrow": F1, "state": I1,

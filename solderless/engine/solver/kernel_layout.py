@@ -74,7 +74,8 @@ WS_LPREV = 7      # persists: the predictor's last linear step
 WS_VEVAL = 8      # persists: bypass memory, v at each port's last evaluation
 WS_IEVAL = 9      # persists: bypass memory, i at that evaluation
 WS_MEM = 10       # persists: the scalars MEM_* below
-N_WS_ROWS = 11
+WS_WATCH = 11     # out: the watched ports' voltages at the last solved sample
+N_WS_ROWS = 12
 WS_MIN_COLS = 4   # row WS_MEM needs its MEM_* slots whatever the port count
 
 # --- slots of the workspace row ws[WS_MEM] (float) --------------------------
@@ -90,7 +91,25 @@ STATE_JI_OK = 2   # 1: the kept inverse Jacobian Ji is valid
 STATE_HARD = 3    # fresh Jacobians the last sample's port solve needed
 STATE_CHAIN = 4   # low-rank updates since the last factorisation
 STATE_PLIST = 5   # UPDATE_PORTS slots: the devices of the last low-rank update
-N_STATE = STATE_PLIST + UPDATE_PORTS
+# the dormant-port lanes (solver/dormant.py): which lane runs, and when to
+# hand over to the other one
+STATE_WATCH = STATE_PLIST + UPDATE_PORTS  # WATCH_* below: what the runner watches
+STATE_QUIET = STATE_WATCH + 1  # full lane: samples in a row with every watched port dead
+STATE_DONE = STATE_WATCH + 2   # samples the last runner call committed
+STATE_HANDOVER = STATE_WATCH + 3  # 1: the runner stopped to hand over to the other lane
+N_STATE = STATE_WATCH + 4
+
+# --- values of state[STATE_WATCH] -------------------------------------------
+WATCH_NONE = 0    # no dormant ports: run the whole block
+WATCH_REDUCED = 1  # the reduced lane: stop before committing a sample at which
+#                    a watched (removed) port's voltage left its dead zone
+WATCH_FULL = 2    # the full lane: stop after WATCH_HOLD samples in a row with
+#                   every watched port inside its dead zone
+#: Samples in a row with every dormant-capable port dead before the full
+#: lane hands over to the reduced one (each handover costs a fresh
+#: Jacobian and a sample without the predictor, so a signal hovering at the
+#: edge of a dead zone hands over at most twice per this many samples).
+WATCH_HOLD = 256
 
 # --- slots of the run statistics (int64) ------------------------------------
 STAT_SAMPLES = 0   # kernel samples run
@@ -100,7 +119,9 @@ STAT_MAXIT = 3     # most iterations a direct solve took
 STAT_ITERS = 4     # iterations, all samples
 STAT_FACTOR = 5    # Jacobian factorisations (lean path: fresh 2 x 2 inverses)
 STAT_UPDATE = 6    # low-rank updates of the inverse Jacobian
-N_STATS = 7
+STAT_REDUCED = 7   # samples run on the reduced lane (dormant ports removed)
+STAT_HANDOVER = 8  # handovers between the full and the reduced lane
+N_STATS = 9
 
 #: The block runners' positional arguments (run_block and run_block_small
 #: take the same), in order; Simulator._args passes those after ``pdec``.
@@ -111,6 +132,9 @@ RUN_BLOCK_ARGS = (
     # the model (statespace.Model): p = p0 + Pz z, y = y0 + Yz z + Fy i + Vy v,
     # x' = x0 + Az z + C i, v = p + K i(v); kc: column scales of K
     "Pz", "p0", "Az", "x0", "C", "K", "Yz", "y0", "Fy", "Vy", "kc",
+    # the watched dormant-capable ports (solver/dormant.py): their voltages
+    # w = w0 + Wz z + Wk i, dead while wlim[r, 0] < w[r] < wlim[r, 1]
+    "Wz", "w0", "Wk", "wlim",
     # the devices (mna.device_arrays)
     "dcode", "dpo", "dnp", "dpa", "par", "dqs",
     # the varying sources and the step

@@ -15,6 +15,7 @@ import numpy as np
 from solderless.engine.circuit import Circuit, GROUND, canonical_net
 from solderless.engine.errors import DesignError
 from solderless.engine.probes import parse_probe
+from solderless.engine.solver import dormant
 from solderless.engine.solver import kernel_layout as KL
 from solderless.engine.solver.dcop import OperatingPoint, report, solve_dc
 from solderless.engine.solver.mna import VALUE_KINDS, Network, device_arrays, source_wave
@@ -184,6 +185,10 @@ class Simulator:
         sample; default the kernel's ERR_TOL (1 uV, SPICE's VNTOL).  The
         relative tolerance (kernel RELTOL, 1e-6 of the port voltage) scales
         with it.
+    dormant_ports : solve without the ports of devices that draw nothing while
+        they draw nothing (an op-amp's clamps away from the rails), where
+        that makes the solve smaller (solver/dormant.py); False: always the
+        full port solve (the same answers within the tolerance).
 
     The simulation starts at the DC operating point (no thump), solved with
     every source at its t = 0 value (the input source at its DC value), as
@@ -193,7 +198,7 @@ class Simulator:
 
     def __init__(self, circuit: Circuit, fs: float = 48000.0, oversample: int = 1,
                  probes=(), probe_decimate: int = 1, block_max: int = 4096,
-                 tolerance: float | None = None):
+                 tolerance: float | None = None, dormant_ports: bool = True):
         if not float(fs) > 0:
             raise DesignError(f"sample rate {fs!r} must be positive", part="simulator")
         if int(probe_decimate) < 1:
@@ -235,17 +240,24 @@ class Simulator:
         self._pdec = int(probe_decimate) * self.oversample
         self._lock = threading.Lock()
         self._values = dict(net.values)
-        self._arr = device_arrays(net)
+        #: the dormant-port plan (None: one lane, the full port solve)
+        self._plan = dormant.plan(net) if dormant_ports else None
+        self._arr = self._devices()
         self._arr_next = self._arr
         #: circuit temperature, degrees Celsius (None: 27)
         self.temperature = circuit.temperature
-        # one or two nonlinear ports: the lean path (same state and counters)
-        self._runner = "run_block_small" if 0 < net.np_ <= KL.SMALL_PORTS else "run_block"
-        self._run = self._K.raw(self._runner)
-        #: whether _run is the ahead-of-time module's (it checks no argument:
-        #: _args checks the simulator's arrays, process_into the block's)
-        self._run_aot = self._K.aot
-        self._acache = None
+        # one or two nonlinear ports: the lean path (same state and counters);
+        # lane 0 is the full port solve, lane 1 the reduced one (dormant.py)
+        nred = self._plan.active.size if self._plan is not None else net.np_
+        self._runner = ["run_block_small" if 0 < n <= KL.SMALL_PORTS else "run_block"
+                        for n in (net.np_, nred)]
+        self._run = [self._K.raw(r) for r in self._runner]
+        #: whether _run[lane] is the ahead-of-time module's (it checks no
+        #: argument: _args checks the simulator's arrays, process_into the
+        #: block's)
+        self._run_aot = [self._K.aot, self._K.aot]
+        self._acache = [None, None]
+        self._lane = 0
         skind, spars = [], []
         for k, el in enumerate(net.sources):
             kd, par = source_wave(el, self._T)
@@ -262,7 +274,7 @@ class Simulator:
         self._dc = None
         self._dc_values = None
         self._refresh_junctions(self._values)
-        self._model: Model = derive(net, self._values, self._T, rows)
+        self._model: Model = self._derive(self._values)
         self._next: Model = self._model
         nx, nu, ny = net.nx, net.nu, len(rows)
         # kernel vector z = [x; varying sources; padding]; self._x is a view
@@ -272,16 +284,17 @@ class Simulator:
         self._x = self._z[:nx]
         self._xp = np.zeros(nx)
         npt = padded(net.np_)
-        self._v = np.zeros(npt)
-        self._i = np.zeros(npt)
-        self._pprev = np.zeros(npt)
         self._u = np.zeros(nu)
-        self._ws = np.zeros((KL.N_WS_ROWS, max(npt, padded(nx), KL.WS_MIN_COLS)))
-        self._G = np.zeros((npt, npt))
-        # [J | I], a pivot row, and the low-rank update's workspace
-        self._J = np.zeros((npt + 1 + KL.J_EXTRA_ROWS, 2 * npt))
-        self._Gf = np.zeros((npt, npt))
-        self._Ji = np.zeros((npt, npt))
+        # each lane's port vectors and solver workspace: (v, i, pprev, ws,
+        # G, Gf, J, Ji); the full lane's are also self._v, self._i ...
+        self._work = [self._lane_work(npt, nx)]
+        if self._plan is not None:
+            # its row WS_WATCH takes the watched ports' voltages
+            self._work.append(self._lane_work(padded(nred), max(nx, net.np_)))
+        (self._v, self._i, self._pprev, self._ws, self._G, self._Gf, self._J,
+         self._Ji) = self._work[0]
+        self._nowatch = (np.zeros((0, self._z.size)), np.zeros(0), np.zeros((0, npt)),
+                         np.zeros((0, 2)))
         self._yrow = np.zeros(ny)
         self._state = np.zeros(KL.N_STATE, dtype=np.int64)
         self._stats = np.zeros(KL.N_STATS, dtype=np.int64)
@@ -289,6 +302,41 @@ class Simulator:
         self._xin_up = np.zeros(self.block_max * self.oversample)
         self._y_up = np.zeros(self.block_max * self.oversample)
         self.reset()
+
+    @staticmethod
+    def _lane_work(npt: int, nx: int):
+        """One lane's port vectors and solver workspace for ``npt`` padded
+        ports and ``nx`` states (the workspace is at least that wide):
+        (v, i, pprev, ws, G, Gf, J, Ji)."""
+        ws = np.zeros((KL.N_WS_ROWS, max(npt, padded(nx), KL.WS_MIN_COLS)))
+        # J: [J | I], a pivot row, and the low-rank update's workspace
+        return (np.zeros(npt), np.zeros(npt), np.zeros(npt), ws, np.zeros((npt, npt)),
+                np.zeros((npt, npt)), np.zeros((npt + 1 + KL.J_EXTRA_ROWS, 2 * npt)),
+                np.zeros((npt, npt)))
+
+    def _derive(self, values: dict) -> Model:
+        """The model for ``values``, with its two lanes when ports can go
+        dormant (``model.lanes``: full, reduced; dormant.py)."""
+        m = derive(self.net, values, self._T, self._rows)
+        if self._plan is not None:
+            m.lanes = (dormant.full_lane(m, self._plan), dormant.reduce(m, self._plan))
+        return m
+
+    def _devices(self):
+        """The kernel's device arrays (mna.device_arrays) of the full lane,
+        the reduced lane's (None without one) and the watched ports' dead
+        zones."""
+        arr = device_arrays(self.net)
+        if self._plan is None:
+            return arr, None, None
+        return (arr, dormant.reduce_devices(arr, self._plan),
+                dormant.limits(self.net, self._plan))
+
+    def refresh_devices(self) -> None:
+        """Take the devices' parameters again from the network's layouts
+        (after a caller changed them in place, as a Monte Carlo trial does);
+        not while another thread is inside :meth:`process_into`."""
+        self._arr = self._arr_next = self._devices()
 
     # ------------------------------------------------------------ state
     def _refresh_junctions(self, values: dict) -> None:
@@ -331,15 +379,14 @@ class Simulator:
         self._v[:n] = dc.v
         self._i[:n] = dc.i - KL.PORT_G0 * dc.v
         self._pprev[:n] = m.Dv @ self._x + m.Ev @ m.udc
-        ws = self._ws
-        ws[KL.WS_V2, :net.np_] = dc.v
-        ws[KL.WS_LPREV, :] = 0.0
-        ws[KL.WS_VEVAL, :] = 1e300  # bypass memory: force a first evaluation
-        ws[KL.WS_IEVAL, :] = 0.0
-        ws[KL.WS_MEM, :] = 0.0
-        ws[KL.WS_MEM, KL.MEM_ATOL] = self.tolerance
-        ws[KL.WS_MEM, KL.MEM_RTOL] = KL.RELTOL * self.tolerance / KL.ERR_TOL
+        for w in self._work:
+            ws = w[3]
+            ws[:] = 0.0
+            ws[KL.WS_MEM, KL.MEM_ATOL] = self.tolerance
+            ws[KL.WS_MEM, KL.MEM_RTOL] = KL.RELTOL * self.tolerance / KL.ERR_TOL
+        self._fresh_lane(0)
         self._state[:] = 0
+        self._lane = 0        # a reset starts on the full lane (dormant.py)
         self._state[KL.STATE_PHASE] = (self._pdec - self._probe_phase) % self._pdec
         self._stats[:] = 0
         self._model = m
@@ -347,6 +394,52 @@ class Simulator:
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i[:n]
                           + m.Vy[0] @ dc.v)
         self._rs.reset()
+
+    def _fresh_lane(self, lane: int) -> None:
+        """The lane's solver memory starts over from its port voltages v: no
+        kept Jacobian, no predictor history, no bypass memory."""
+        v, ws = self._work[lane][0], self._work[lane][3]
+        ws[KL.WS_V2, :v.size] = v
+        ws[KL.WS_LPREV, :] = 0.0
+        ws[KL.WS_VEVAL, :] = 1e300  # bypass memory: force a first evaluation
+        ws[KL.WS_IEVAL, :] = 0.0
+        ws[KL.WS_MEM, KL.MEM_THETA] = 0.0
+        ws[KL.WS_MEM, KL.MEM_REFACTOR] = 0.0
+        st = self._state
+        st[KL.STATE_JI_OK] = 0
+        st[KL.STATE_HARD] = 0
+        st[KL.STATE_CHAIN] = 0
+        st[KL.STATE_QUIET] = 0
+
+    def _handover(self) -> None:
+        """Switch lanes at the sample the runner stopped at (dormant.py):
+        the lane taking over starts from the other's port solution (the
+        dormant ports' voltages from the watch, their device currents
+        zero) with fresh solver memory."""
+        pl = self._plan
+        A, D = pl.active, pl.dormant
+        na = A.size
+        fv, fi, fpp = self._work[0][:3]
+        rv, ri, rpp, rws = self._work[1][:4]
+        if self._lane == 1:
+            # reduced -> full, at the sample the watch refused: its reduced
+            # solution and the dormant ports' voltages are the warm start
+            fv[A] = rv[:na]
+            fi[A] = ri[:na]
+            w = rws[KL.WS_WATCH, :D.size]
+            fv[D] = w
+            fi[D] = -KL.PORT_G0 * w
+            m = self._model
+            fpp[:] = m.p0 + m.Pz @ self._z   # used only by a first-sample fallback
+            self._lane = 0
+        else:
+            # full -> reduced after a committed sample
+            rv[:na] = fv[A]
+            ri[:na] = fi[A]
+            rpp[:na] = fpp[A] - self._model.lanes[1].Rp @ fpp[D]
+            self._lane = 1
+        self._fresh_lane(self._lane)
+        self._stats[KL.STAT_HANDOVER] += 1
 
     def operating_point(self) -> OperatingPoint:
         """DC operating point report for the current part values (any thread;
@@ -390,7 +483,7 @@ class Simulator:
             kept = [s.value for s in net.states]
             try:
                 self._refresh_junctions(new)
-                model = derive(net, new, self._T, self._rows)
+                model = self._derive(new)
             except Exception:
                 for s, v in zip(net.states, kept):  # a refused edit changes nothing
                     s.value = v
@@ -400,7 +493,7 @@ class Simulator:
             self._values = new
             self._next = model
             if rails:
-                self._arr_next = device_arrays(net)
+                self._arr_next = self._devices()
                 self._dc_values = None
 
     def _set_temperature(self, temp_c) -> None:
@@ -423,7 +516,7 @@ class Simulator:
         net.devices = devs
         net.temperature = t
         self.temperature = t
-        self._arr_next = device_arrays(net)
+        self._arr_next = self._devices()
         self._dc_values = None  # the operating point moved
 
     # ------------------------------------------------------------ audio thread
@@ -450,41 +543,79 @@ class Simulator:
         n = x.shape[0]
         pb = self._nopb if probe_buf is None else probe_buf
         pcap = pb.shape[1] if pb.shape[0] else 0
-        args = self._args(m)
-        run = self._run
-        if self._run_aot and not _block_fits(x, y, pb):
-            run = getattr(self._jit(), self._runner)
+        fits = _block_fits(x, y, pb)
         if self.oversample == 1:
-            return run(x, n, y, pb, probe_start, pcap, self._pdec, *args)
+            return self._run_lanes(m, x, n, y, pb, probe_start, pcap, fits)
         L = self.oversample
         xu, yu = self._xin_up, self._y_up
         self._rs.up_into(x, xu)
-        frames = run(xu, n * L, yu, pb, probe_start, pcap, self._pdec, *args)
+        frames = self._run_lanes(m, xu, n * L, yu, pb, probe_start, pcap, fits)
         yv = yu[:n * L]
         yv -= self._ydc
         self._rs.down_into(yv, y)
         y[:n] += self._ydc
         return frames
 
-    def _args(self, m: Model):
-        """The block runners' arguments after ``pdec``, in the order of
+    def _run_lanes(self, m: Model, xin, nin: int, yout, pb, pstart: int, pcap: int,
+                   fits: bool) -> int:
+        """Run nin kernel samples, on the lane the watch asks for from
+        sample to sample (one call when there is one lane); returns the
+        probe frames written."""
+        if self._plan is None:
+            run, args = self._call(m, 0, fits)
+            return run(xin, nin, yout, pb, pstart, pcap, self._pdec, *args)
+        st = self._state
+        done = frames = 0
+        while True:
+            lane = self._lane
+            st[KL.STATE_WATCH] = KL.WATCH_REDUCED if lane else KL.WATCH_FULL
+            run, args = self._call(m, lane, fits)
+            if done:
+                xin, yout = xin[done:], yout[done:]
+            frames += run(xin, nin, yout, pb, pstart + frames, pcap, self._pdec, *args)
+            k = int(st[KL.STATE_DONE])
+            nin -= k
+            done = k
+            if st[KL.STATE_HANDOVER]:
+                self._handover()
+            if nin <= 0:
+                return frames
+
+    def _call(self, m: Model, lane: int, fits: bool):
+        """The runner and its arguments after ``pdec`` for a lane; the JIT
+        runner where the block's arrays do not fit the ahead-of-time one."""
+        args = self._args(m, lane)
+        run = self._run[lane]
+        if self._run_aot[lane] and not fits:
+            run = getattr(self._jit(), self._runner[lane])
+        return run, args
+
+    def _args(self, m: Model, lane: int = 0):
+        """A lane's runner arguments after ``pdec``, in the order of
         kernel_layout.RUN_BLOCK_ARGS.  Made (and, for the ahead-of-time
         module, checked against its signature) once per model, device
         arrays and source arrays; a misfit runs the JIT kernel instead."""
-        c = self._acache
+        c = self._acache[lane]
         if (c is not None and c[0] is m and c[1] is self._arr and c[2] is self._spar
                 and c[3] is self._sptr and c[4] is self._skind):
             return c[5]
-        dcode, dpo, dnp, dpa, par, dqs = self._arr
-        t = (m.Pz, m.p0, m.Az, m.x0, m.Ck, m.Kk, m.Yz, m.y0, m.Fyk, m.Vyk, m.kc,
-             dcode, dpo, dnp, dpa, par, dqs,
-             m.uvar, self._skind, self._sptr, self._spar, self.net.input_index,
-             self._T, self._z, self._xp, self._v, self._i, self._pprev, self._ws,
-             self._G, self._Gf, self._J, self._Ji, self._yrow, self._state, self._stats)
-        if self._run_aot and not self._K.fits(self._runner, t, start=7):
-            self._run = getattr(self._jit(), self._runner)
-            self._run_aot = False
-        self._acache = (m, self._arr, self._spar, self._sptr, self._skind, t)
+        arr, rarr, wlim = self._arr
+        if self._plan is None:
+            dev = arr
+            L = dormant.Lane(m.Pz, m.p0, m.Az, m.x0, m.Ck, m.Kk, m.Yz, m.y0, m.Fyk, m.Vyk,
+                             m.kc, *self._nowatch[:3])
+        else:
+            L = m.lanes[lane]
+            dev = rarr if lane else arr
+        watch = (L.Wz, L.w0, L.Wk, self._nowatch[3] if wlim is None else wlim)
+        t = (L.Pz, L.p0, L.Az, L.x0, L.Ck, L.Kk, L.Yz, L.y0, L.Fyk, L.Vyk, L.kc, *watch,
+             *dev, m.uvar, self._skind, self._sptr, self._spar, self.net.input_index,
+             self._T, self._z, self._xp, *self._work[lane], self._yrow, self._state,
+             self._stats)
+        if self._run_aot[lane] and not self._K.fits(self._runner[lane], t, start=7):
+            self._run[lane] = getattr(self._jit(), self._runner[lane])
+            self._run_aot[lane] = False
+        self._acache[lane] = (m, self._arr, self._spar, self._sptr, self._skind, t)
         return t
 
     @staticmethod
@@ -528,7 +659,9 @@ class Simulator:
                 "fallbacks": int(c[KL.STAT_FALLBACK]), "max_iterations": int(c[KL.STAT_MAXIT]),
                 "mean_iterations": float(c[KL.STAT_ITERS]) / s if s else 0.0,
                 "factorizations": int(c[KL.STAT_FACTOR]),
-                "jacobian_updates": int(c[KL.STAT_UPDATE])}
+                "jacobian_updates": int(c[KL.STAT_UPDATE]),
+                "reduced_samples": int(c[KL.STAT_REDUCED]),
+                "handovers": int(c[KL.STAT_HANDOVER])}
 
     @property
     def n_ports(self) -> int:

@@ -68,6 +68,7 @@ class Model:
     Fyk: np.ndarray = None
     Vyk: np.ndarray = None
     kc: np.ndarray = None   # column scales max |K[:, c]| (padded)
+    lanes: tuple = None     # (full, reduced) dormant.Lane, where ports can go dormant
 
 
 #: The kernel's port and z dimensions are zero-padded to multiples of this,

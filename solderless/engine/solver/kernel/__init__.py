@@ -31,7 +31,10 @@ the previous port solution is kept and counted.  Output is never NaN.
 Loops are compiled with reassociation allowed (dot products on several
 accumulators).  Circuits with one or two nonlinear ports run the lean
 runner run_block_small instead: the same predictor and fallback around
-plain Newton with a closed-form 2 x 2 inverse at every iteration.
+plain Newton with a closed-form 2 x 2 inverse at every iteration.  Both
+runners watch dormant-capable ports (op-amp clamps away from the rails) and
+stop early where the simulator must switch between the full port solve and
+the reduced one without them (solver/dormant.py).
 
 Modules, one responsibility each:
 

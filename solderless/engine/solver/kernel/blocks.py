@@ -13,8 +13,10 @@ from solderless.engine.solver.kernel.params import MAXIT, kernel_jit
 from solderless.engine.solver.kernel.sources import load_sources
 from solderless.engine.solver.kernel_layout import (
     MEM_REFACTOR, MEM_THETA, STAT_FACTOR, STAT_FALLBACK, STAT_ITERS, STAT_MAXIT, STAT_NONCONV,
-    STAT_SAMPLES, STAT_UPDATE, STATE_HARD, STATE_INDEX, STATE_JI_OK, STATE_PHASE, WS_IEVAL,
-    WS_LPREV, WS_MEM, WS_P, WS_PTMP, WS_STEP, WS_V2, WS_VEVAL, WS_VNEW, WS_VPREV, WS_XT)
+    STAT_REDUCED, STAT_SAMPLES, STAT_UPDATE, STATE_DONE, STATE_HANDOVER, STATE_HARD,
+    STATE_INDEX, STATE_JI_OK, STATE_PHASE, STATE_QUIET, STATE_WATCH, WATCH_FULL, WATCH_HOLD,
+    WATCH_NONE, WATCH_REDUCED, WS_IEVAL, WS_LPREV, WS_MEM, WS_P, WS_PTMP, WS_STEP, WS_V2,
+    WS_VEVAL, WS_VNEW, WS_VPREV, WS_WATCH, WS_XT)
 
 
 @kernel_jit(inline="always")
@@ -166,9 +168,66 @@ def finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
     return frames
 
 
+@kernel_jit(inline="always")
+def watched_dead(Wz, w0, Wk, wlim, z, i, wout):
+    """Whether every watched port's voltage w = w0 + Wz z + Wk i (into
+    wout) lies strictly inside its dead zone wlim[r, 0] < w[r] < wlim[r, 1],
+    where its device draws exactly no current (solver/dormant.py; a
+    non-finite w is not dead)."""
+    nz = z.size
+    nk = Wk.shape[1]
+    dead = True
+    for r in range(w0.size):
+        s = w0[r]
+        for c in range(nz):
+            s += Wz[r, c] * z[c]
+        for c in range(nk):
+            s += Wk[r, c] * i[c]
+        wout[r] = s
+        if not (wlim[r, 0] < s and s < wlim[r, 1]):
+            dead = False
+    return dead
+
+
+@kernel_jit(inline="always")
+def watch_stop(wmode, k, Wz, w0, Wk, wlim, z, i, wout, state, stats):
+    """The lanes' watch after sample k's port solve (solver/dormant.py).
+    On the reduced lane, a watched port outside its dead zone stops the
+    runner before sample k is committed (returns True, state[STATE_DONE]
+    = k): the full lane takes over at sample k.  On the full lane, count
+    the samples in a row with every watched port dead (state[STATE_QUIET];
+    :func:`watch_after` stops once there are WATCH_HOLD of them)."""
+    if wmode == WATCH_NONE:
+        return False
+    dead = watched_dead(Wz, w0, Wk, wlim, z, i, wout)
+    if wmode == WATCH_REDUCED:
+        if not dead:
+            state[STATE_DONE] = k
+            state[STATE_HANDOVER] = 1
+            return True
+        stats[STAT_REDUCED] += 1
+    elif dead:
+        state[STATE_QUIET] += 1
+    else:
+        state[STATE_QUIET] = 0
+    return False
+
+
+@kernel_jit(inline="always")
+def watch_after(wmode, k, state):
+    """After sample k is committed on the full lane: stop (True,
+    state[STATE_DONE] = k + 1) once WATCH_HOLD samples in a row had every
+    watched port dead, so the reduced lane takes over."""
+    if wmode == WATCH_FULL and state[STATE_QUIET] >= WATCH_HOLD:
+        state[STATE_DONE] = k + 1
+        state[STATE_HANDOVER] = 1
+        return True
+    return False
+
+
 @kernel_jit()
 def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
-              Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy, kc,
+              Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy, kc, Wz, w0, Wk, wlim,
               dcode, dpo, dnp, dpa, par, dqs,
               uvar, skind, sptr, spar, inp, dt,
               z, xp, v, i, pprev, ws, G, Gf, J, Ji, yrow, state, stats):
@@ -188,6 +247,13 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     (the model's column scales of K, for :func:`jacobian_drift`).  ws, state
     and stats: see :mod:`solderless.engine.solver.kernel_layout`.  Returns
     the number of probe frames written.
+
+    Wz, w0, Wk, wlim: the watched dormant-capable ports (solver/dormant.py;
+    no rows when the circuit has none).  With state[STATE_WATCH] set, the
+    runner may stop early to hand over to the other lane (:func:`watch_stop`,
+    :func:`watch_after`): state[STATE_DONE] is then the number of samples
+    committed and state[STATE_HANDOVER] is 1; the caller runs the rest on
+    the other lane.
     """
     nz = z.size      # states, varying sources, zero padding
     nx = xp.size
@@ -203,6 +269,8 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     veval = ws[WS_VEVAL, :npt]
     ieval = ws[WS_IEVAL, :npt]
     frames = pstart
+    wmode = state[STATE_WATCH]
+    state[STATE_HANDOVER] = 0
     for k in range(nin):
         load_sources(z, nx, uvar, inp, xin[k], skind, sptr, spar, state[STATE_INDEX] * dt)
         if npt > 0:
@@ -212,16 +280,21 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
             solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
                         ptmp, state, stats, v2, veval, ieval, Ji, Gf, ws[WS_MEM], kc,
                         ws[WS_LPREV, :npt])
-            for r in range(npt):
-                pprev[r] = p[r]
+        if watch_stop(wmode, k, Wz, w0, Wk, wlim, z, i, ws[WS_WATCH], state, stats):
+            return frames - pstart
+        for r in range(npt):
+            pprev[r] = p[r]
         frames = finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
                                z, xp, v, i, xt, yrow, state, stats)
+        if watch_after(wmode, k, state):
+            return frames - pstart
+    state[STATE_DONE] = nin
     return frames - pstart
 
 
 @kernel_jit()
 def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
-                    Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy, kc,
+                    Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy, kc, Wz, w0, Wk, wlim,
                     dcode, dpo, dnp, dpa, par, dqs,
                     uvar, skind, sptr, spar, inp, dt,
                     z, xp, v, i, pprev, ws, G, Gf, J, Ji, yrow, state, stats):
@@ -250,6 +323,8 @@ def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
     mem = ws[WS_MEM]
     stol = newton_tol(mem)   # the tolerance is fixed for the block: one sqrt
     frames = pstart
+    wmode = state[STATE_WATCH]
+    state[STATE_HANDOVER] = 0
     for k in range(nin):
         load_sources(z, nx, uvar, inp, xin[k], skind, sptr, spar, state[STATE_INDEX] * dt)
         for r in range(2):
@@ -307,10 +382,15 @@ def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
             for r in range(2):
                 v[r] = vprev[r]
                 ptmp[r] = pprev[r] + (p[r] - pprev[r]) / nsub
+        if watch_stop(wmode, k, Wz, w0, Wk, wlim, z, i, ws[WS_WATCH], state, stats):
+            return frames - pstart
         pprev[0] = p[0]
         pprev[1] = p[1]
         frames = finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
                                z, xp, v, i, xt, yrow, state, stats)
+        if watch_after(wmode, k, state):
+            return frames - pstart
+    state[STATE_DONE] = nin
     return frames - pstart
 
 
