@@ -2,7 +2,8 @@
 
 The per-sample kernel (solderless/engine/solver/kernel/) inverts the port Jacobian
 J = I - K G by Gauss-Jordan elimination with partial pivoting
-(factor_jacobian), or updates the last inverse by the Sherman-Morrison-
+(factor_jacobian; at four padded ports by cofactors, linalg.inverse4,
+unless J is near-singular), or updates the last inverse by the Sherman-Morrison-
 Woodbury formula when a few devices' blocks of G changed (update_jacobian).
 Reference: numpy.linalg.inv (LAPACK getrf/getri); the matrices are random
 with the kernel's structure: G block diagonal by device, one- to three-port
@@ -45,6 +46,42 @@ def test_inverse_matches_lapack(n, seed):
     ref_inv = np.linalg.inv(J_true)
     assert np.allclose(Ji, ref_inv, rtol=1e-9, atol=1e-12 * np.abs(ref_inv).max())
     assert np.array_equal(Gf, G)
+
+
+@pytest.mark.parametrize("seed", range(10, 20))
+def test_four_port_cofactor_inverse_matches_lapack(seed):
+    Km, G, dcode, dpo, dnp = _system(4, seed)
+    J = np.zeros((5, 8))
+    J[:4, :4] = np.eye(4) - Km @ G
+    Ji = np.zeros((4, 4))
+    assert K.inverse4(J, Ji) == 1
+    ref_inv = np.linalg.inv(J[:4, :4])
+    assert np.allclose(Ji, ref_inv, rtol=1e-9, atol=1e-12 * np.abs(ref_inv).max())
+
+
+def test_a_near_singular_four_port_jacobian_is_pivoted():
+    # J with two rows equal to 1e-12: cofactors decline it (determinant far
+    # below the rows' scale) and Gauss-Jordan with pivoting inverts it
+    n = 4
+    rng = np.random.default_rng(3)
+    Jt = rng.standard_normal((n, n))
+    Jt[3] = Jt[2] + 1e-12 * rng.standard_normal(n)
+    scratch = np.zeros((5, 8))
+    scratch[:4, :4] = Jt
+    assert K.inverse4(scratch, np.zeros((4, 4))) == -1
+    # through factor_jacobian: K = I - Jt with G = I gives J = Jt
+    dpo = np.arange(n, dtype=np.int64)
+    dnp = np.ones(n, dtype=np.int64)
+    state, stats = np.zeros(L.N_STATE, dtype=np.int64), np.zeros(L.N_STATS, dtype=np.int64)
+    Ji = np.zeros((n, n))
+    assert K.factor_jacobian(np.eye(n) - Jt, np.eye(n), np.zeros((n, n)),
+                             np.zeros((n + 1, 2 * n)), Ji, np.ones(n, dtype=np.int64), dpo,
+                             dnp, state, stats)
+    # as good as LAPACK's inverse of the matrix the kernel formed (J = I - K G
+    # in floating point; its condition number is about 1e12)
+    Jf = np.eye(n) - (np.eye(n) - Jt)
+    lapack = np.abs(np.linalg.inv(Jf) @ Jf - np.eye(n)).max()
+    assert np.abs(Ji @ Jf - np.eye(n)).max() <= 10.0 * lapack + 1e-12
 
 
 def test_singular_jacobian_is_refused():

@@ -114,10 +114,12 @@ def plan(net) -> Plan | None:
 
 def limits(net, pl: Plan) -> np.ndarray:
     """(dormant ports x 2) array of the dead zones' open bounds, in the
-    order of pl.dormant (they follow the device parameters: a supply edit
-    moves an op-amp's)."""
+    order of pl.dormant, its rows padded to a multiple of PAD with infinite
+    zones (the kernel's watch rows are padded likewise), and the bounds
+    follow the device parameters (a supply edit moves an op-amp's)."""
     z = {p: (lo, hi) for p, lo, hi in dead_zones(net)}
-    out = np.empty((pl.dormant.size, 2))
+    out = np.empty((padded(pl.dormant.size), 2))
+    out[:, 0], out[:, 1] = -np.inf, np.inf
     for r, p in enumerate(pl.dormant.tolist()):
         out[r] = z.get(p, (0.0, 0.0))   # a zone that vanished: never dead
     return out
@@ -145,8 +147,9 @@ def full_lane(m: Model, pl: Plan) -> Lane:
     (the full model's port rows of the dormant-capable ports)."""
     D = pl.dormant
     npp = m.Kk.shape[1]
+    nw = padded(D.size)
     return Lane(m.Pz, m.p0, m.Az, m.x0, m.Ck, m.Kk, m.Yz, m.y0, m.Fyk, m.Vyk, m.kc,
-                Wz=_c(m.Pz[D]), w0=_c(m.p0[D]), Wk=_pad(m.K[D], None, npp))
+                Wz=_pad(m.Pz[D], nw, None), w0=_pad(m.p0[D], nw), Wk=_pad(m.K[D], nw, npp))
 
 
 def reduce(m: Model, pl: Plan) -> Lane:
@@ -168,6 +171,7 @@ def reduce(m: Model, pl: Plan) -> Lane:
     na = A.size
     npp = padded(na)
     nzp = m.Pz.shape[1]
+    nw = padded(D.size)        # watch rows padded for the kernel's products
     return Lane(
         Pz=_pad(Pz[A] - KAD @ T @ PD, npp, nzp), p0=_pad(p0[A] - KAD @ T @ pD, npp),
         Az=_c(m.Az - C[:, D] @ T @ PD), x0=_c(m.x0 - C[:, D] @ T @ pD),
@@ -176,4 +180,5 @@ def reduce(m: Model, pl: Plan) -> Lane:
         Yz=_c(m.Yz + Q @ PD), y0=_c(m.y0 + Q @ pD),
         Fyk=_pad(Fy[:, A] + Q @ KDA, None, npp), Vyk=_pad(Vy[:, A], None, npp),
         kc=_pad(np.abs(Kr).max(axis=0) if Kr.size else np.zeros(0), npp),
-        Wz=_c(W @ PD), w0=_c(W @ pD), Wk=_pad(W @ KDA, None, npp), Rp=_c(KAD @ T))
+        Wz=_pad(W @ PD, nw, None), w0=_pad(W @ pD, nw), Wk=_pad(W @ KDA, nw, npp),
+        Rp=_c(KAD @ T))

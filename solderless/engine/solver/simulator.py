@@ -290,7 +290,7 @@ class Simulator:
         self._work = [self._lane_work(npt, nx)]
         if self._plan is not None:
             # its row WS_WATCH takes the watched ports' voltages
-            self._work.append(self._lane_work(padded(nred), max(nx, net.np_)))
+            self._work.append(self._lane_work(padded(nred), max(nx, padded(net.np_))))
         (self._v, self._i, self._pprev, self._ws, self._G, self._Gf, self._J,
          self._Ji) = self._work[0]
         self._nowatch = (np.zeros((0, self._z.size)), np.zeros(0), np.zeros((0, npt)),

@@ -82,7 +82,8 @@ from solderless.engine.solver.kernel.dispatch import (  # noqa: E402
     eval_devices, eval_one, eval_ports, limit_devices, limit_one)
 from solderless.engine.solver.kernel.jacobian import (  # noqa: E402
     factor_jacobian, jacobian_drift, update_jacobian)
-from solderless.engine.solver.kernel.linalg import gemv_add, gemv_inl, gj_inverse  # noqa: E402
+from solderless.engine.solver.kernel.linalg import (  # noqa: E402
+    gemv_add, gemv_inl, gj_inverse, inverse4)
 from solderless.engine.solver.kernel.newton import newton, newton2, newton_tol  # noqa: E402
 from solderless.engine.solver.kernel.params import (  # noqa: E402
     BYPASS_RATIO, CHORD_MAX, DRIFT_MAX, DRIFT_UPDATE, FM, HARD_FACTORS, MAXIT, PIVOT_TINY,
@@ -102,7 +103,7 @@ __all__ = [
     "convert_states", "finish_sample", "run_block", "run_block_small", "solve_ports",
     "eval_devices", "eval_one", "eval_ports", "limit_devices", "limit_one",
     "factor_jacobian", "jacobian_drift", "update_jacobian",
-    "gemv_add", "gemv_inl", "gj_inverse", "newton", "newton2", "newton_tol",
+    "gemv_add", "gemv_inl", "gj_inverse", "inverse4", "newton", "newton2", "newton_tol",
     "load_sources", "wave_value",
     "BYPASS_RATIO", "CHORD_MAX", "DRIFT_MAX", "DRIFT_UPDATE", "FM", "HARD_FACTORS", "MAXIT",
     "PIVOT_TINY", "RES_SANE", "REUSE_STEP", "STEP_FLOOR", "THETA_MAX", "THETA_MIN",

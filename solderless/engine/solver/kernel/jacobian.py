@@ -2,7 +2,7 @@
 update, and how far the Jacobian has drifted since."""
 from __future__ import annotations
 
-from solderless.engine.solver.kernel.linalg import absmax, gemv_inl, gj_inverse
+from solderless.engine.solver.kernel.linalg import absmax, gemv_inl, gj_inverse, inverse4
 from solderless.engine.solver.kernel.params import DRIFT_UPDATE, UPDATE_CHAIN, kernel_jit
 from solderless.engine.solver.kernel_layout import (
     STAT_FACTOR, STAT_UPDATE, STATE_CHAIN, STATE_JI_OK, STATE_PLIST, UPDATE_PORTS)
@@ -35,6 +35,12 @@ def factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, state, stats):
                     for r in range(n):
                         J[r, po + b] -= K[r, po + a] * g
     stats[STAT_FACTOR] += 1
+    if n == 4:
+        # four padded ports: cofactors, unless J is too near singular
+        ok = inverse4(J, Ji)
+        if ok >= 0:
+            state[STATE_JI_OK] = ok
+            return ok == 1
     if gj_inverse(J, Ji, n):
         state[STATE_JI_OK] = 1
         return True
@@ -94,7 +100,9 @@ def update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, state, stats):
     K[:, P] D; the updated devices in state[STATE_PLIST:].
     """
     n = Ji.shape[0]
-    if state[STATE_JI_OK] != 1 or state[STATE_CHAIN] >= UPDATE_CHAIN:
+    # at four padded ports a cofactor inverse (factor_jacobian) costs less
+    # than the low-rank update's bookkeeping
+    if state[STATE_JI_OK] != 1 or state[STATE_CHAIN] >= UPDATE_CHAIN or n == 4:
         state[STATE_CHAIN] = 0
         return factor_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, state, stats)
     # at most half the ports: beyond that Gauss-Jordan is as cheap
