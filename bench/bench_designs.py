@@ -177,19 +177,26 @@ def lanes(names: list[str], repeat: int) -> int:
               f"{r['rt_off']:>9.1f}{r['rt_on_cpu']:>8.1f}{r['rt_off_cpu']:>8.1f}"
               f"{100 * r['reduced_share']:>8.0f}%{r['handovers']:>6d}"
               f"{r['max_abs_difference_v'] / max(r['peak_v'], 1e-30):>11.1e}")
-    result = {"fs": FS, "phrase_s": a, "block": BLOCK, "target_realtime": TARGET_RT,
+    return save_paired("lanes.json", a, repeat, load0, load, rows,
+                       "dormant ports on and off interleaved; x RT from the best wall time, "
+                       "CPU from the best process time; reduced = share of kernel samples on "
+                       "the reduced lane; diff/peak = largest output difference between the "
+                       "two over the output's peak")
+
+
+def save_paired(name: str, audio_s: float, repeat: int, load0, load, rows: list[dict],
+                note: str) -> int:
+    """Write an interleaved comparison's rows to bench/results/NAME with the
+    machine and load it ran on."""
+    result = {"fs": FS, "phrase_s": audio_s, "block": BLOCK, "target_realtime": TARGET_RT,
               "repeat": repeat, "machine": platform.machine(),
               "python": platform.python_version(), "cpus": os.cpu_count(),
-              "loadavg_at_start": load0, "loadavg_at_end": load,
-              "note": "dormant ports on and off interleaved; x RT from the best wall time, "
-                      "CPU from the best process time; reduced = share of kernel samples on "
-                      "the reduced lane; diff/peak = largest output difference between the "
-                      "two over the output's peak",
+              "loadavg_at_start": load0, "loadavg_at_end": load, "note": note,
               "designs": rows}
     out = ROOT / "bench" / "results"
     out.mkdir(parents=True, exist_ok=True)
-    (out / "lanes.json").write_text(json.dumps(result, indent=2, default=float))
-    print(f"\nwrote {out / 'lanes.json'} (load average {load0} -> {load})")
+    (out / name).write_text(json.dumps(result, indent=2, default=float))
+    print(f"\nwrote {out / name} (load average {load0} -> {load})")
     return 0
 
 
@@ -237,20 +244,11 @@ def main_charge(names: list[str], repeat: int) -> int:
               f"{r['rt_off_cpu']:>8.1f}{100 * r['cost_cpu']:>6.0f}%"
               f"{r['iterations_per_sample_on']:>7.2f}{r['iterations_per_sample_off']:>7.2f}"
               f"{r['matrix_products_on']:>7d}/{r['matrix_products_off']:<5d}")
-    result = {"fs": FS, "phrase_s": x.size / FS, "block": BLOCK, "target_realtime": TARGET_RT,
-              "repeat": repeat, "machine": platform.machine(),
-              "python": platform.python_version(), "cpus": os.cpu_count(),
-              "loadavg_at_start": load0, "loadavg_at_end": load,
-              "note": "on and off runs interleaved; x RT from the best wall time, CPU "
-                      "from the best process time; cost = extra CPU time with charge on; "
-                      "matrix_products = multiply-adds of the kernel's per-sample matrix "
-                      "products (deterministic, padded sizes)",
-              "designs": rows}
-    out = ROOT / "bench" / "results"
-    out.mkdir(parents=True, exist_ok=True)
-    (out / "charge_cost.json").write_text(json.dumps(result, indent=2, default=float))
-    print(f"\nwrote {out / 'charge_cost.json'} (load average {load0} -> {load})")
-    return 0
+    return save_paired("charge_cost.json", x.size / FS, repeat, load0, load, rows,
+                       "on and off runs interleaved; x RT from the best wall time, CPU "
+                       "from the best process time; cost = extra CPU time with charge on; "
+                       "matrix_products = multiply-adds of the kernel's per-sample matrix "
+                       "products (deterministic, padded sizes)")
 
 
 #: Onsets (s) of the demo phrase's soft and hard single notes (solderless.engine.synth).
