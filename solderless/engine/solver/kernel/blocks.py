@@ -189,18 +189,22 @@ def watched_dead(Wz, w0, Wk, wlim, z, i, wout):
     return dead
 
 
-@kernel_jit(inline="always")
-def watch_stop(wmode, k, Wz, w0, Wk, wlim, z, i, wout, state, stats):
-    """The lanes' watch after sample k's port solve (solver/dormant.py).
-    On the reduced lane, a watched port outside its dead zone stops the
-    runner before sample k is committed (returns True, state[STATE_DONE]
-    = k): the full lane takes over at sample k.  On the full lane, count
-    the samples in a row with every watched port dead (state[STATE_QUIET];
-    :func:`watch_after` stops once there are WATCH_HOLD of them)."""
-    if wmode == WATCH_NONE:
-        return False
+@kernel_jit()
+def watch_stop(k, Wz, w0, Wk, wlim, z, i, wout, state, stats):
+    """The lanes' watch after sample k's port solve (solver/dormant.py;
+    the runners call it only with state[STATE_WATCH] set).  On the reduced
+    lane, a watched port outside its dead zone stops the runner before
+    sample k is committed (returns True, state[STATE_DONE] = k): the full
+    lane takes over at sample k.  On the full lane, count the samples in a
+    row with every watched port dead (state[STATE_QUIET]; :func:`watch_after`
+    stops once there are WATCH_HOLD of them).
+
+    A real call: inlined into the runners (with the mode read once before
+    the loop), it made the ahead-of-time module's per-sample loop 5-11 %
+    slower on circuits that never watch (the flagship, overdrive and
+    feedforward, the same arrays through both builds in one process)."""
     dead = watched_dead(Wz, w0, Wk, wlim, z, i, wout)
-    if wmode == WATCH_REDUCED:
+    if state[STATE_WATCH] == WATCH_REDUCED:
         if not dead:
             state[STATE_DONE] = k
             state[STATE_HANDOVER] = 1
@@ -214,11 +218,11 @@ def watch_stop(wmode, k, Wz, w0, Wk, wlim, z, i, wout, state, stats):
 
 
 @kernel_jit(inline="always")
-def watch_after(wmode, k, state):
+def watch_after(k, state):
     """After sample k is committed on the full lane: stop (True,
     state[STATE_DONE] = k + 1) once WATCH_HOLD samples in a row had every
     watched port dead, so the reduced lane takes over."""
-    if wmode == WATCH_FULL and state[STATE_QUIET] >= WATCH_HOLD:
+    if state[STATE_WATCH] == WATCH_FULL and state[STATE_QUIET] >= WATCH_HOLD:
         state[STATE_DONE] = k + 1
         state[STATE_HANDOVER] = 1
         return True
@@ -269,7 +273,6 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     veval = ws[WS_VEVAL, :npt]
     ieval = ws[WS_IEVAL, :npt]
     frames = pstart
-    wmode = state[STATE_WATCH]
     state[STATE_HANDOVER] = 0
     for k in range(nin):
         load_sources(z, nx, uvar, inp, xin[k], skind, sptr, spar, state[STATE_INDEX] * dt)
@@ -280,13 +283,14 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
             solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
                         ptmp, state, stats, v2, veval, ieval, Ji, Gf, ws[WS_MEM], kc,
                         ws[WS_LPREV, :npt])
-        if watch_stop(wmode, k, Wz, w0, Wk, wlim, z, i, ws[WS_WATCH], state, stats):
+        if (state[STATE_WATCH] != WATCH_NONE
+                and watch_stop(k, Wz, w0, Wk, wlim, z, i, ws[WS_WATCH], state, stats)):
             return frames - pstart
         for r in range(npt):
             pprev[r] = p[r]
         frames = finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
                                z, xp, v, i, xt, yrow, state, stats)
-        if watch_after(wmode, k, state):
+        if watch_after(k, state):
             return frames - pstart
     state[STATE_DONE] = nin
     return frames - pstart
@@ -323,7 +327,6 @@ def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
     mem = ws[WS_MEM]
     stol = newton_tol(mem)   # the tolerance is fixed for the block: one sqrt
     frames = pstart
-    wmode = state[STATE_WATCH]
     state[STATE_HANDOVER] = 0
     for k in range(nin):
         load_sources(z, nx, uvar, inp, xin[k], skind, sptr, spar, state[STATE_INDEX] * dt)
@@ -382,13 +385,14 @@ def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
             for r in range(2):
                 v[r] = vprev[r]
                 ptmp[r] = pprev[r] + (p[r] - pprev[r]) / nsub
-        if watch_stop(wmode, k, Wz, w0, Wk, wlim, z, i, ws[WS_WATCH], state, stats):
+        if (state[STATE_WATCH] != WATCH_NONE
+                and watch_stop(k, Wz, w0, Wk, wlim, z, i, ws[WS_WATCH], state, stats)):
             return frames - pstart
         pprev[0] = p[0]
         pprev[1] = p[1]
         frames = finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
                                z, xp, v, i, xt, yrow, state, stats)
-        if watch_after(wmode, k, state):
+        if watch_after(k, state):
             return frames - pstart
     state[STATE_DONE] = nin
     return frames - pstart
