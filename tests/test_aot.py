@@ -52,11 +52,11 @@ def _render(source, kern, monkeypatch, x=None, seconds=0.25, fs=48000.0):
     return sim, y
 
 
-# a many-port design, the start-up bench's clipper (four ports), a one-port
-# diode clipper (run_block_small), a two-port JFET stage (run_block_small)
-# a design that oversamples (the filters are in the module too) and one
-# that runs on the reduced lane with its op-amp clamps dormant
-# (solver/dormant.py: both runners, handovers between them)
+# a many-port design, the start-up bench's clipper (four ports: the lean
+# runner's four-port loop), a one-port diode clipper and a two-port JFET
+# stage (its two-port loop), a design that oversamples (the filters are in
+# the module too) and one that runs on the reduced lane with its op-amp
+# clamps dormant (solver/dormant.py: both runners, handovers between them)
 CASES = [
     ("flagship", "flagship"),
     ("clipper2", ROOT / "bench" / "netlists" / "clipper2.cir"),
@@ -74,8 +74,10 @@ def test_module_renders_what_the_jit_renders(module, monkeypatch, name, source):
     assert all(sim_a._run_aot), "the render fell back to the JIT kernel"
     assert all(r is getattr(module, n) for r, n in zip(sim_a._run, sim_a._runner))
     assert not any(sim_j._run_aot)
-    if name in ("diode_clipper", "njfet_follower"):
+    if name in ("diode_clipper", "njfet_follower", "clipper2"):
         assert sim_a._runner[0] == "run_block_small"
+    if name == "clipper2":
+        assert sim_a.n_ports == 4
     if name == "octave-up":
         assert sim_a.stats["reduced_samples"] > 0
     if name == "flagship":

@@ -1,8 +1,9 @@
 """The kernel's two paths and its tolerance, against ngspice and each other.
 
-Circuits with one or two nonlinear ports run the lean path
-(kernel.run_block_small: Newton with a fresh 2 x 2 Jacobian every
-iteration); larger ones the generic path (kernel.run_block: chord iterations
+Circuits with at most four nonlinear ports run the lean path
+(kernel.run_block_small: Newton with a fresh Jacobian every iteration,
+inverted in closed form, 2 x 2 or by cofactors at four); larger ones the
+generic path (kernel.run_block: chord iterations
 with an earlier Jacobian's inverse, stopped on an error estimate).  Forced
 onto the same circuit, at a tight tolerance both must reach the same
 solution of the same discrete equations, and each must stay within the
@@ -19,13 +20,16 @@ from solderless.engine.solver import kernel as K
 
 FS = 48000.0
 TWO_PORT = ["diode_clipper", "npn_ce", "pnp_ce", "njfet_cs", "njfet_follower"]
+# three or four ports: a stage with base and emitter resistance (three), a
+# JFET stage into a diode clipper (four)
+FOUR_PORT = ["gp_ce40", "jfet_clip"]
 
 
 def _run(name, path, tolerance=None, seconds=0.25):
     circ = S.engine_circuit(name)
     _, x = S.engine_input(name, FS, seconds)
     sim = Simulator(circ, FS, tolerance=tolerance)
-    assert sim._runner[0] == "run_block_small"    # one or two ports: the lean path
+    assert sim._runner[0] == "run_block_small"    # at most four ports: the lean path
     if path == "generic":
         # the same kernel (ahead-of-time module or JIT, solver/aot.py), generic runner
         sim._runner[0] = "run_block"
@@ -34,7 +38,7 @@ def _run(name, path, tolerance=None, seconds=0.25):
     return y, sim.stats
 
 
-@pytest.mark.parametrize("name", TWO_PORT)
+@pytest.mark.parametrize("name", TWO_PORT + FOUR_PORT)
 def test_lean_and_generic_paths_agree(name):
     # same model, same discrete equations: at 1e-11 V both converge to the
     # same solution (differences are the tolerance, not the method)

@@ -32,7 +32,7 @@ dormant-capable port inside its window.  On either handover the lane taking
 over starts from the other's solution with a fresh Jacobian.
 
 The lanes are used only where they pay: when the reduced port count pads
-to fewer kernel ports, or fits the lean two-port runner
+to fewer kernel ports, or fits the lean runner (kernel_layout.SMALL_PORTS)
 (:func:`plan`).
 """
 from __future__ import annotations

@@ -43,7 +43,7 @@ RELTOL = 1e-6
 
 #: Circuits with at most this many nonlinear ports run the lean block runner
 #: (:func:`solderless.engine.solver.kernel.run_block_small`).
-SMALL_PORTS = 2
+SMALL_PORTS = 4
 
 #: Largest number of ports whose Jacobian blocks a low-rank update of the
 #: inverse takes on (and at most half the padded ports); more, and the
@@ -117,7 +117,7 @@ STAT_NONCONV = 1   # samples whose port solve failed (previous solution kept)
 STAT_FALLBACK = 2  # samples that needed the continuation fallback
 STAT_MAXIT = 3     # most iterations a direct solve took
 STAT_ITERS = 4     # iterations, all samples
-STAT_FACTOR = 5    # Jacobian factorisations (lean path: fresh 2 x 2 inverses)
+STAT_FACTOR = 5    # Jacobian factorisations (lean path: fresh closed-form inverses)
 STAT_UPDATE = 6    # low-rank updates of the inverse Jacobian
 STAT_REDUCED = 7   # samples run on the reduced lane (dormant ports removed)
 STAT_HANDOVER = 8  # handovers between the full and the reduced lane

@@ -246,7 +246,7 @@ class Simulator:
         self._arr_next = self._arr
         #: circuit temperature, degrees Celsius (None: 27)
         self.temperature = circuit.temperature
-        # one or two nonlinear ports: the lean path (same state and counters);
+        # at most SMALL_PORTS nonlinear ports: the lean path (same state and counters);
         # lane 0 is the full port solve, lane 1 the reduced one (dormant.py)
         nred = self._plan.active.size if self._plan is not None else net.np_
         self._runner = ["run_block_small" if 0 < n <= KL.SMALL_PORTS else "run_block"

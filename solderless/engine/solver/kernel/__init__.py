@@ -29,9 +29,10 @@ re-evaluated (SPICE's bypass).  Newton failures fall back to continuation
 in p from the previous sample in sub-steps (4, then 16); if that fails too
 the previous port solution is kept and counted.  Output is never NaN.
 Loops are compiled with reassociation allowed (dot products on several
-accumulators).  Circuits with one or two nonlinear ports run the lean
+accumulators).  Circuits with at most four nonlinear ports run the lean
 runner run_block_small instead: the same predictor and fallback around
-plain Newton with a closed-form 2 x 2 inverse at every iteration.  Both
+plain Newton with a fresh Jacobian inverted in closed form at every
+iteration (2 x 2 for one or two ports, cofactors for three or four).  Both
 runners watch dormant-capable ports (op-amp clamps away from the rails) and
 stop early where the simulator must switch between the full port solve and
 the reduced one without them (solver/dormant.py).
@@ -43,7 +44,7 @@ Modules, one responsibility each:
     dispatch   device evaluation and limiting by type code, bypass
     linalg     padded matrix-vector product, Gauss-Jordan inverse
     jacobian   factorisation, low-rank update and drift of the inverse Jacobian
-    newton     chord iterations, Newton with refactoring, two-port Newton
+    newton     chord iterations, Newton with refactoring, lean Newton (2 or 4 ports)
     blocks     the block runners, the per-sample port solve, output and state
     cache      disk-cache check over every module compiled into the kernel
 
@@ -58,8 +59,8 @@ compile, so it is used sparingly: newton has a single call site (the
 fallback's continuation sub-steps reuse it), the common devices' laws
 are inlined into the per-sample device loops (eval_common, limit_common)
 and the rarer ones are one real call (eval_rare, limit_rare; eval_one and
-limit_one are the whole dispatch as one call, eval_one inlined only into
-the lean two-port runner, through a numba inline cost model), and the Jacobian
+limit_one are the whole dispatch as one call, for the operating point),
+and the Jacobian
 inverse (update_jacobian) and the refactoring Newton phase
 (newton_refactoring; both on a few per cent of samples) are real calls.
 The padded matrix-vector product is inlined at the four products made once

@@ -8,7 +8,7 @@ import math
 from solderless.engine.solver.kernel.dispatch import eval_ports_outlined, limit_moved
 from solderless.engine.solver.kernel.jacobian import update_jacobian
 from solderless.engine.solver.kernel.linalg import gemv_inl
-from solderless.engine.solver.kernel.newton import newton, newton2, newton_tol
+from solderless.engine.solver.kernel.newton import newton, newton2, newton4, newton_tol
 from solderless.engine.solver.kernel.params import MAXIT, kernel_jit
 from solderless.engine.solver.kernel.sources import load_sources
 from solderless.engine.solver.kernel_layout import (
@@ -296,32 +296,25 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     return frames - pstart
 
 
-@kernel_jit()
-def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
-                    Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy, kc, Wz, w0, Wk, wlim,
-                    dcode, dpo, dnp, dpa, par, dqs,
-                    uvar, skind, sptr, spar, inp, dt,
-                    z, xp, v, i, pprev, ws, G, Gf, J, Ji, yrow, state, stats):
-    """:func:`run_block` for circuits with one or two nonlinear ports
-    (kernel_layout.SMALL_PORTS; same arguments, workspace layout, state and
-    statistics; Simulator picks one of the two at construction).
-
-    At this size the generic path's bookkeeping (padded loops, chord
-    rates, drift checks, real calls) costs more than the arithmetic, so
-    each sample here runs the same predictor as :func:`solve_ports` and
-    then plain Newton-Raphson with a closed-form 2 x 2 inverse
-    (:func:`newton2`), with the same bounded fallback: continuation in p
-    in 4, then 16 sub-steps, else the previous solution is kept and
-    counted.  Output and state update are those of run_block."""
+@kernel_jit(inline="always")
+def small_loop(m, io, model, watch, dev, src, work):
+    """The sample loop of :func:`run_block_small` for m = 2 or 4 ports
+    (a constant at each of its two call sites); its arguments grouped."""
+    xin, nin, yout, pbuf, pstart, pcap, pdec = io
+    Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy = model
+    Wz, w0, Wk, wlim = watch
+    dcode, dpo, dnp, dpa, par, dqs = dev
+    uvar, skind, sptr, spar, inp, dt = src
+    z, xp, v, i, pprev, ws, G, J, Ji, yrow, state, stats = work
     nz = z.size
     nx = xp.size
-    p = ws[WS_P, :2]
-    vprev = ws[WS_VPREV, :2]
-    vn = ws[WS_VNEW, :2]
-    ptmp = ws[WS_PTMP, :2]
+    p = ws[WS_P, :m]
+    vprev = ws[WS_VPREV, :m]
+    vn = ws[WS_VNEW, :m]
+    ptmp = ws[WS_PTMP, :m]
     xt = ws[WS_XT, :x0.size]
-    v2 = ws[WS_V2, :2]
-    lprev = ws[WS_LPREV, :2]
+    v2 = ws[WS_V2, :m]
+    lprev = ws[WS_LPREV, :m]
     veval = ws[WS_VEVAL, :]
     ieval = ws[WS_IEVAL, :]
     mem = ws[WS_MEM]
@@ -330,42 +323,46 @@ def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
     state[STATE_HANDOVER] = 0
     for k in range(nin):
         load_sources(z, nx, uvar, inp, xin[k], skind, sptr, spar, state[STATE_INDEX] * dt)
-        for r in range(2):
+        for r in range(m):
             acc = p0[r]
             for c in range(nz):
                 acc += Pz[r, c] * z[c]
             p[r] = acc
             vprev[r] = v[r]
         if state[STATE_JI_OK] == 1:
-            e0 = p[0] - pprev[0]
-            e1 = p[1] - pprev[1]
-            for r in range(2):
-                lin = Ji[r, 0] * e0 + Ji[r, 1] * e1
+            for r in range(m):
+                lin = 0.0
+                for c in range(m):
+                    lin += Ji[r, c] * (p[c] - pprev[c])
                 vn[r] = v[r] + lin + (v[r] - v2[r] - lprev[r])
                 lprev[r] = lin
             limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
-            v[0] = vn[0]
-            v[1] = vn[1]
-        v2[0] = vprev[0]
-        v2[1] = vprev[1]
-        ptmp[0] = p[0]
-        ptmp[1] = p[1]
+            for r in range(m):
+                v[r] = vn[r]
+        for r in range(m):
+            v2[r] = vprev[r]
+            ptmp[r] = p[r]
         nsub = 1
         s = 1
         while True:
-            it = newton2(ptmp, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, Ji, vn, veval,
-                         ieval, mem, stol, stats)
+            if m == 2:
+                it = newton2(ptmp, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, Ji, vn, veval,
+                             ieval, mem, stol, stats)
+            else:
+                it = newton4(ptmp, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, Ji, vn,
+                             veval, ieval, mem, stol, stats)
             good = it > 0
             if good and nsub > 1 and s < nsub:
                 stats[STAT_ITERS] += it
                 s += 1
                 f = s / nsub
-                for r in range(2):
+                for r in range(m):
                     ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
                 continue
             if good:
-                good = (math.isfinite(v[0]) and math.isfinite(v[1])
-                        and math.isfinite(i[0]) and math.isfinite(i[1]))
+                for r in range(m):
+                    if not (math.isfinite(v[r]) and math.isfinite(i[r])):
+                        good = False
             if good:
                 state[STATE_JI_OK] = 1
                 if nsub == 1 and it > stats[STAT_MAXIT]:
@@ -374,28 +371,65 @@ def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
                 break
             if nsub == 16:
                 stats[STAT_NONCONV] += 1
-                v[0] = vprev[0]
-                v[1] = vprev[1]
+                for r in range(m):
+                    v[r] = vprev[r]
                 eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
                 break
             if nsub == 1:
                 stats[STAT_FALLBACK] += 1
             nsub = 4 if nsub == 1 else 16
             s = 1
-            for r in range(2):
+            for r in range(m):
                 v[r] = vprev[r]
                 ptmp[r] = pprev[r] + (p[r] - pprev[r]) / nsub
         if (state[STATE_WATCH] != WATCH_NONE
                 and watch_stop(k, Wz, w0, Wk, wlim, z, i, ws[WS_WATCH], state, stats)):
             return frames - pstart
-        pprev[0] = p[0]
-        pprev[1] = p[1]
+        for r in range(m):
+            pprev[r] = p[r]
         frames = finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
                                z, xp, v, i, xt, yrow, state, stats)
         if watch_after(k, state):
             return frames - pstart
     state[STATE_DONE] = nin
     return frames - pstart
+
+
+@kernel_jit()
+def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
+                    Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy, kc, Wz, w0, Wk, wlim,
+                    dcode, dpo, dnp, dpa, par, dqs,
+                    uvar, skind, sptr, spar, inp, dt,
+                    z, xp, v, i, pprev, ws, G, Gf, J, Ji, yrow, state, stats):
+    """:func:`run_block` for circuits with at most four nonlinear ports
+    (kernel_layout.SMALL_PORTS; same arguments, workspace layout, state and
+    statistics; Simulator picks one of the two at construction).
+
+    At this size the generic path's bookkeeping (padded loops, chord
+    rates, drift checks, real calls) costs more than the arithmetic, so
+    each sample here runs the same predictor as :func:`solve_ports` and
+    then plain Newton-Raphson with a fresh Jacobian at every iteration,
+    inverted in closed form: 2 x 2 for one or two ports (:func:`newton2`),
+    cofactors for three or four (:func:`newton4`), with the same bounded
+    fallback: continuation in p in 4, then 16 sub-steps, else the previous
+    solution is kept and counted.  Output and state update are those of
+    run_block."""
+    # ports in use (the device blocks'): the sample loop is compiled twice,
+    # for two ports and for four, each with its sizes as constants
+    m = 0
+    for d in range(dnp.size):
+        m += dnp[d]
+    # (grouped in tuples: a call with over 30 arguments compiles as f(*args),
+    # which numba cannot inline)
+    io = (xin, nin, yout, pbuf, pstart, pcap, pdec)
+    model = (Pz, p0, Az, x0, C, K, Yz, y0, Fy, Vy)
+    watch = (Wz, w0, Wk, wlim)
+    dev = (dcode, dpo, dnp, dpa, par, dqs)
+    src = (uvar, skind, sptr, spar, inp, dt)
+    work = (z, xp, v, i, pprev, ws, G, J, Ji, yrow, state, stats)
+    if m <= 2:
+        return small_loop(2, io, model, watch, dev, src, work)
+    return small_loop(4, io, model, watch, dev, src, work)
 
 
 @kernel_jit()

@@ -17,13 +17,6 @@ from solderless.engine.solver.kernel.params import BYPASS_RATIO, kernel_jit
 from solderless.engine.solver.kernel_layout import MEM_ATOL, PORT_G0
 
 
-def _inline_in_small(expr, caller_ir, callee_ir):
-    """numba inline cost model: inline at the IR level only into the lean
-    two-port kernel (one or two devices: the call's argument passing costs
-    more than a device's arithmetic there); a real call everywhere else."""
-    return caller_ir.func_id.func_name == "run_block_small"
-
-
 @kernel_jit()
 def eval_rare(c, par, pa, v, po, i, G):
     """The rarer devices' laws (MOSFET, behavioural source, switch), one
@@ -60,11 +53,11 @@ def eval_common(c, par, pa, v, po, i, G):
         eval_rare(c, par, pa, v, po, i, G)
 
 
-@kernel_jit(inline=_inline_in_small)
+@kernel_jit()
 def eval_one(c, par, pa, v, po, i, G):
     """Evaluate one device by type code: port currents into i[po:], its
-    Jacobian block into G[po:, po:] (:func:`eval_common` as one call,
-    except in the lean kernel, where it is inlined)."""
+    Jacobian block into G[po:, po:] (:func:`eval_common` as one call: the
+    operating point's solver)."""
     eval_common(c, par, pa, v, po, i, G)
 
 

@@ -1,5 +1,6 @@
 """The port solve v = p + K i(v): chord iterations with a kept inverse
-Jacobian, Newton-Raphson with refactoring, and the lean two-port Newton."""
+Jacobian, Newton-Raphson with refactoring, and the lean runner's Newton
+(two ports, four ports)."""
 from __future__ import annotations
 
 import math
@@ -8,7 +9,7 @@ from solderless.engine.devices._common import VT
 from solderless.engine.solver.kernel.dispatch import (
     correct_currents, eval_ports, eval_ports_outlined, limit_moved)
 from solderless.engine.solver.kernel.jacobian import jacobian_drift, update_jacobian
-from solderless.engine.solver.kernel.linalg import gemv_inl
+from solderless.engine.solver.kernel.linalg import gemv_inl, gj_inverse, inverse4
 from solderless.engine.solver.kernel.params import (
     CHORD_MAX, DRIFT_MAX, HARD_FACTORS, MAXIT, PIVOT_TINY, RES_SANE, REUSE_STEP, STEP_FLOOR,
     THETA_MAX, THETA_MIN, THETA_REFRESH, kernel_jit)
@@ -239,6 +240,62 @@ def newton2(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, Ji, vn, veval, ieval,
                 and abs(d1) <= stol + rtol * abs(v[1])):
             i[0] = i0 + g00 * d0 + g01 * d1
             i[1] = i1 + g10 * d0 + g11 * d1
+            stats[STAT_FACTOR] += it + 1
+            return it + 1
+    stats[STAT_FACTOR] += MAXIT
+    return -1
+
+
+@kernel_jit(inline="always")
+def newton4(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, Ji, vn, veval, ieval, mem,
+            stol, stats):
+    """:func:`newton2` for three or four ports (padded to four): Newton-
+    Raphson with a fresh Jacobian I - K G at every iteration, inverted by
+    cofactors (:func:`inverse4`; Gauss-Jordan with pivoting in the scratch
+    J when it is too near singular for them), the same limiting, bypass
+    and stopping rule.  At this size a fresh inverse (about 50 cycles, and
+    64 multiply-adds for K G) costs less than the chord loop's bookkeeping
+    (drift scores, contraction rates, refactoring decisions) that would
+    decide to keep an old one.  G is zero off its device blocks, so the
+    dense product K G is the Jacobian's.  Returns the number of
+    iterations, or -1."""
+    rtol = mem[MEM_RTOL]
+    for it in range(MAXIT):
+        eval_ports(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
+        for r in range(4):
+            f = p[r] - v[r]
+            for c in range(4):
+                f += K[r, c] * i[c]
+                a = 1.0 if r == c else 0.0
+                for b in range(4):
+                    a -= K[r, b] * G[b, c]
+                J[r, c] = a
+            vn[r] = f       # the residual, for now
+        ok = inverse4(J, Ji)
+        if ok < 0:
+            for r in range(4):
+                for c in range(4):
+                    J[r, 4 + c] = 1.0 if r == c else 0.0
+            ok = 1 if gj_inverse(J, Ji, 4) else 0
+        if ok == 0:
+            return -1
+        f0, f1, f2, f3 = vn[0], vn[1], vn[2], vn[3]
+        for r in range(4):
+            vn[r] = v[r] + Ji[r, 0] * f0 + Ji[r, 1] * f1 + Ji[r, 2] * f2 + Ji[r, 3] * f3
+        limit_moved(dcode, dpo, dnp, dpa, par, dqs, vn, v)
+        d0 = vn[0] - v[0]
+        d1 = vn[1] - v[1]
+        d2 = vn[2] - v[2]
+        d3 = vn[3] - v[3]
+        v[0] = vn[0]
+        v[1] = vn[1]
+        v[2] = vn[2]
+        v[3] = vn[3]
+        if (abs(d0) <= stol + rtol * abs(v[0]) and abs(d1) <= stol + rtol * abs(v[1])
+                and abs(d2) <= stol + rtol * abs(v[2])
+                and abs(d3) <= stol + rtol * abs(v[3])):
+            for r in range(4):
+                i[r] += G[r, 0] * d0 + G[r, 1] * d1 + G[r, 2] * d2 + G[r, 3] * d3
             stats[STAT_FACTOR] += it + 1
             return it + 1
     stats[STAT_FACTOR] += MAXIT
