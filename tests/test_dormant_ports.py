@@ -28,7 +28,8 @@ def stage(diodes: bool, vcc: float = 9.0) -> Circuit:
     """An inverting amplifier, gain -10 about a 4.5 V reference on a single
     supply; with ``diodes`` a pair of silicon diodes from its output to the
     reference through 10 kohm (a clipper after the gain: three ports, two
-    left on the reduced lane, which then runs the lean two-port runner;
+    left on the reduced lane, which then runs the lean runner's two-port
+    loop instead of its four-port one;
     without, the reduced lane has no port at all)."""
     els = [E("VCC", "V", ("vcc", "0"), vcc), E("VREF", "V", ("ref", "0"), 4.5),
            E("Vin", "V", ("in", "ref"), 0.0), E("R1", "R", ("in", "n"), 10e3),

@@ -31,9 +31,9 @@ hands back after kernel_layout.WATCH_HOLD samples in a row with every
 dormant-capable port inside its window.  On either handover the lane taking
 over starts from the other's solution with a fresh Jacobian.
 
-The lanes are used only where they pay: when the reduced port count pads
-to fewer kernel ports, or fits the lean runner (kernel_layout.SMALL_PORTS)
-(:func:`plan`).
+The lanes are used only where they pay: when the reduced solve is of a
+smaller size class for the kernel (:func:`solve_size`: fewer padded ports,
+or a smaller loop of the lean runner; :func:`plan`).
 """
 from __future__ import annotations
 
@@ -42,7 +42,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from solderless.engine.solver import kernel_layout as KL
-from solderless.engine.solver.statespace import Model, _c, _pad, _stack_transpose, padded
+from solderless.engine.solver.statespace import PAD, Model, _c, _pad, _stack_transpose, padded
 
 
 @dataclass
@@ -91,11 +91,23 @@ def dead_zones(net) -> list[tuple[int, float, float]]:
     return out
 
 
+def solve_size(n: int) -> int:
+    """The size class of the kernel's port solve for n ports, in order of
+    cost: none, the lean runner's two-port loop, its four-port loop
+    (kernel_layout.SMALL_PORTS), then the generic runner by padded size."""
+    if n == 0:
+        return 0
+    if n <= 2:
+        return 1
+    if n <= KL.SMALL_PORTS:
+        return 2
+    return 2 + padded(n) // PAD
+
+
 def plan(net) -> Plan | None:
     """The dormant-port plan of a network, or None where a reduced lane
-    would not pay: no dormant-capable device, or the reduced solve is no
-    smaller for the kernel (the same padded port count, and too many ports
-    for the lean runner)."""
+    would not pay: no dormant-capable device, or the reduced solve is of
+    the same size class for the kernel (:func:`solve_size`)."""
     zones = dead_zones(net)
     n = net.np_
     if not zones:
@@ -104,7 +116,7 @@ def plan(net) -> Plan | None:
     active = np.array([p for p in range(n) if p not in set(dormant.tolist())],
                       dtype=np.int64)
     na = active.size
-    if not (padded(na) < padded(n) or 0 < na <= KL.SMALL_PORTS < n):
+    if not solve_size(na) < solve_size(n):
         return None
     dset = set(dormant.tolist())
     keep = np.array([d for d, (el, mod, lay, po) in enumerate(net.devices)
