@@ -121,7 +121,8 @@ STAT_FACTOR = 5    # Jacobian factorisations (lean path: fresh closed-form inver
 STAT_UPDATE = 6    # low-rank updates of the inverse Jacobian
 STAT_REDUCED = 7   # samples run on the reduced lane (dormant ports removed)
 STAT_HANDOVER = 8  # handovers between the full and the reduced lane
-N_STATS = 9
+STAT_PSEUDO = 9    # samples solved by pseudo-transient continuation (last resort)
+N_STATS = 10
 
 #: The block runners' positional arguments (run_block and run_block_small
 #: take the same), in order; Simulator._args passes those after ``pdec``.

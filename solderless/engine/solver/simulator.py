@@ -652,7 +652,9 @@ class Simulator:
         """Counters since the last reset: samples (kernel rate), nonconverged,
         fallbacks, max_iterations, mean_iterations, factorizations (Jacobian
         inversions; chord iterations reuse the last one), jacobian_updates
-        (low-rank updates of the inverse instead of a factorisation)."""
+        (low-rank updates of the inverse instead of a factorisation),
+        reduced_samples and handovers (dormant ports), pseudo_transient
+        (samples solved by the last-resort pseudo-transient continuation)."""
         c = self._stats
         s = int(c[KL.STAT_SAMPLES])
         return {"samples": s, "nonconverged": int(c[KL.STAT_NONCONV]),
@@ -661,7 +663,8 @@ class Simulator:
                 "factorizations": int(c[KL.STAT_FACTOR]),
                 "jacobian_updates": int(c[KL.STAT_UPDATE]),
                 "reduced_samples": int(c[KL.STAT_REDUCED]),
-                "handovers": int(c[KL.STAT_HANDOVER])}
+                "handovers": int(c[KL.STAT_HANDOVER]),
+                "pseudo_transient": int(c[KL.STAT_PSEUDO])}
 
     @property
     def n_ports(self) -> int:

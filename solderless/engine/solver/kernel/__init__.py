@@ -62,7 +62,9 @@ and the rarer ones are one real call (eval_rare, limit_rare; eval_one and
 limit_one are the whole dispatch as one call, for the operating point),
 and the Jacobian
 inverse (update_jacobian) and the refactoring Newton phase
-(newton_refactoring; both on a few per cent of samples) are real calls.
+(newton_refactoring; both on a few per cent of samples) are real calls, as
+is the last-resort pseudo-transient continuation (pseudo_transient; a few
+samples per switching edge of a circuit with hysteresis, at most).
 The padded matrix-vector product is inlined at the four products made once
 per sample and inside the chord loop (gemv_inl); gemv_add is the same as a real call.
 numba's builtin max() is an out-of-line call per use, so the per-sample
@@ -85,7 +87,8 @@ from solderless.engine.solver.kernel.jacobian import (  # noqa: E402
     factor_jacobian, jacobian_drift, update_jacobian)
 from solderless.engine.solver.kernel.linalg import (  # noqa: E402
     gemv_add, gemv_inl, gj_inverse, inverse4)
-from solderless.engine.solver.kernel.newton import newton, newton2, newton_tol  # noqa: E402
+from solderless.engine.solver.kernel.newton import (  # noqa: E402
+    newton, newton2, newton4, newton_tol, pseudo_transient)
 from solderless.engine.solver.kernel.params import (  # noqa: E402
     BYPASS_RATIO, CHORD_MAX, DRIFT_MAX, DRIFT_UPDATE, FM, HARD_FACTORS, MAXIT, PIVOT_TINY,
     RES_SANE, REUSE_STEP, STEP_FLOOR, THETA_MAX, THETA_MIN, THETA_REFRESH, UPDATE_CHAIN,
@@ -104,7 +107,8 @@ __all__ = [
     "convert_states", "finish_sample", "run_block", "run_block_small", "solve_ports",
     "eval_devices", "eval_one", "eval_ports", "limit_devices", "limit_one",
     "factor_jacobian", "jacobian_drift", "update_jacobian",
-    "gemv_add", "gemv_inl", "gj_inverse", "inverse4", "newton", "newton2", "newton_tol",
+    "gemv_add", "gemv_inl", "gj_inverse", "inverse4", "newton", "newton2", "newton4", "newton_tol",
+    "pseudo_transient",
     "load_sources", "wave_value",
     "BYPASS_RATIO", "CHORD_MAX", "DRIFT_MAX", "DRIFT_UPDATE", "FM", "HARD_FACTORS", "MAXIT",
     "PIVOT_TINY", "RES_SANE", "REUSE_STEP", "STEP_FLOOR", "THETA_MAX", "THETA_MIN",

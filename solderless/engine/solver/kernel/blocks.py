@@ -8,15 +8,25 @@ import math
 from solderless.engine.solver.kernel.dispatch import eval_ports_outlined, limit_moved
 from solderless.engine.solver.kernel.jacobian import update_jacobian
 from solderless.engine.solver.kernel.linalg import gemv_inl
-from solderless.engine.solver.kernel.newton import newton, newton2, newton4, newton_tol
+from solderless.engine.solver.kernel.newton import (
+    newton, newton2, newton4, newton_tol, pseudo_transient)
 from solderless.engine.solver.kernel.params import MAXIT, kernel_jit
 from solderless.engine.solver.kernel.sources import load_sources
 from solderless.engine.solver.kernel_layout import (
     MEM_REFACTOR, MEM_THETA, STAT_FACTOR, STAT_FALLBACK, STAT_ITERS, STAT_MAXIT, STAT_NONCONV,
-    STAT_REDUCED, STAT_SAMPLES, STAT_UPDATE, STATE_DONE, STATE_HANDOVER, STATE_HARD,
+    STAT_PSEUDO, STAT_REDUCED, STAT_SAMPLES, STAT_UPDATE, STATE_DONE, STATE_HANDOVER, STATE_HARD,
     STATE_INDEX, STATE_JI_OK, STATE_PHASE, STATE_QUIET, STATE_WATCH, WATCH_FULL, WATCH_HOLD,
     WATCH_NONE, WATCH_REDUCED, WS_IEVAL, WS_LPREV, WS_MEM, WS_P, WS_PTMP, WS_STEP, WS_V2,
     WS_VEVAL, WS_VNEW, WS_VPREV, WS_WATCH, WS_XT)
+
+
+@kernel_jit(inline="always")
+def solution_finite(v, i, n):
+    """Whether the first n port voltages and currents are all finite."""
+    for r in range(n):
+        if not (math.isfinite(v[r]) and math.isfinite(i[r])):
+            return False
+    return True
 
 
 @kernel_jit(inline="always")
@@ -35,7 +45,10 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
     answer.  v2 keeps the solution two samples back.
 
     Fallback: continuation in p from the previous sample, in 4 then 16
-    sub-steps; if that fails too the previous solution is kept and counted.
+    sub-steps; then pseudo-transient continuation from the previous
+    solution (:func:`pseudo_transient`: a switching edge whose old branch
+    ends in a fold); if that fails too the previous solution is kept and
+    counted.
     """
     n = p.size
     if state[STATE_JI_OK] == 1:
@@ -89,9 +102,7 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
                     ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
                 continue
         if good:
-            for r in range(n):
-                if not (math.isfinite(v[r]) and math.isfinite(i[r])):
-                    good = False
+            good = solution_finite(v, i, n)
         if good:
             state[STATE_HARD] = stats[STAT_FACTOR] + stats[STAT_UPDATE] - f0
             if nsub == 1:
@@ -109,8 +120,19 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
         for r in range(n):
             v[r] = vprev[r]
             ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
-    stats[STAT_NONCONV] += 1
+    # last resort, from the previous solution; its inverses are not the
+    # kept factors' (Gf), so the next sample refactors
+    for r in range(n):
+        v[r] = vprev[r]
+    it = pseudo_transient(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, Ji, F, vn, veval,
+                          ieval, mem)
+    state[STATE_JI_OK] = 0
     state[STATE_HARD] = stats[STAT_FACTOR] + stats[STAT_UPDATE] - f0
+    if it > 0 and solution_finite(v, i, n):
+        stats[STAT_PSEUDO] += 1
+        stats[STAT_ITERS] += it
+        return True
+    stats[STAT_NONCONV] += 1
     for r in range(n):
         v[r] = vprev[r]
     eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
@@ -360,9 +382,7 @@ def small_loop(m, io, model, watch, dev, src, work):
                     ptmp[r] = pprev[r] + (p[r] - pprev[r]) * f
                 continue
             if good:
-                for r in range(m):
-                    if not (math.isfinite(v[r]) and math.isfinite(i[r])):
-                        good = False
+                good = solution_finite(v, i, m)
             if good:
                 state[STATE_JI_OK] = 1
                 if nsub == 1 and it > stats[STAT_MAXIT]:
@@ -370,6 +390,17 @@ def small_loop(m, io, model, watch, dev, src, work):
                 stats[STAT_ITERS] += it
                 break
             if nsub == 16:
+                # last resort (as solve_ports): pseudo-transient continuation
+                for r in range(m):
+                    v[r] = vprev[r]
+                it = pseudo_transient(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, Ji,
+                                      ws[WS_STEP, :m], vn, veval, ieval, mem)
+                if it > 0 and solution_finite(v, i, m):
+                    # its last step was Newton's: Ji inverts a Jacobian
+                    state[STATE_JI_OK] = 1
+                    stats[STAT_PSEUDO] += 1
+                    stats[STAT_ITERS] += it
+                    break
                 stats[STAT_NONCONV] += 1
                 for r in range(m):
                     v[r] = vprev[r]
@@ -411,9 +442,9 @@ def run_block_small(xin, nin, yout, pbuf, pstart, pcap, pdec,
     then plain Newton-Raphson with a fresh Jacobian at every iteration,
     inverted in closed form: 2 x 2 for one or two ports (:func:`newton2`),
     cofactors for three or four (:func:`newton4`), with the same bounded
-    fallback: continuation in p in 4, then 16 sub-steps, else the previous
-    solution is kept and counted.  Output and state update are those of
-    run_block."""
+    fallback: continuation in p in 4, then 16 sub-steps, then pseudo-
+    transient continuation, else the previous solution is kept and
+    counted.  Output and state update are those of run_block."""
     # ports in use (the device blocks'): the sample loop is compiled twice,
     # for two ports and for four, each with its sizes as constants
     m = 0

@@ -11,8 +11,8 @@ from solderless.engine.solver.kernel.dispatch import (
 from solderless.engine.solver.kernel.jacobian import jacobian_drift, update_jacobian
 from solderless.engine.solver.kernel.linalg import gemv_inl, gj_inverse, inverse4
 from solderless.engine.solver.kernel.params import (
-    CHORD_MAX, DRIFT_MAX, HARD_FACTORS, MAXIT, PIVOT_TINY, RES_SANE, REUSE_STEP, STEP_FLOOR,
-    THETA_MAX, THETA_MIN, THETA_REFRESH, kernel_jit)
+    CHORD_MAX, DRIFT_MAX, HARD_FACTORS, MAXIT, PIVOT_TINY, PTC_MAXIT, PTC_S0, PTC_SEND,
+    RES_SANE, REUSE_STEP, STEP_FLOOR, THETA_MAX, THETA_MIN, THETA_REFRESH, kernel_jit)
 from solderless.engine.solver.kernel_layout import (
     MEM_ATOL, MEM_REFACTOR, MEM_RTOL, MEM_THETA, STAT_FACTOR, STATE_HARD, STATE_JI_OK)
 
@@ -194,6 +194,61 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
         if fresh:
             fresh = big > REUSE_STEP
         prev = big
+    return -1
+
+
+@kernel_jit()
+def pseudo_transient(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, Ji, F, vn, veval,
+                     ieval, mem):
+    """The port solve's last resort: pseudo-transient continuation from v
+    (in place).  Returns the iterations taken, or -1.
+
+    Where the solution the sample asks for is not on the branch of the last
+    one (a Schmitt trigger at its switching threshold, where that branch
+    ends in a fold) Newton's steps circle the fold, where the residual
+    has a minimum that is not a zero, and continuation in p cannot pass
+    the fold either.  Pseudo-transient continuation follows the flow
+    dv/dtau = F(v) = p - v + K i(v), which keeps moving where F is not zero
+    and so crosses the fold to the other branch: each step solves
+    (I - K G + s I) dv = F, with the shift s = 1/dtau updated by switched
+    evolution relaxation, s <- s |F|/|F_prev| (Mulder & van Leer 1985;
+    convergence: Kelley & Keyes, SIAM J. Numer. Anal. 35 (1998) 508-523),
+    so the steps grow into Newton's as the residual falls.  Below PTC_SEND
+    the shift is dropped and the iteration is Newton's, which stops on
+    :func:`newton_tol` as Newton's other loops do.  Junction-limited
+    (pnjlim) like every step here.  Dense and unhurried (the Jacobian
+    rebuilt from K and G, Gauss-Jordan at every step): it runs on a
+    handful of samples per switching edge at most.  J: the (n + 1) x 2n
+    scratch of gj_inverse; Ji is overwritten (the caller's kept factors
+    are no longer valid); on success i, G are the devices' at v."""
+    n = p.size
+    tol = newton_tol(mem)
+    rtol = mem[MEM_RTOL]
+    s = PTC_S0
+    fprev = 0.0
+    for it in range(PTC_MAXIT):
+        eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
+        fn = residual(p, v, K, i, F, n)
+        if not fn < math.inf:
+            return -1
+        if it > 0 and s > 0.0:
+            s = s * fn / fprev if fprev > 0.0 else 0.0
+            if s < PTC_SEND:
+                s = 0.0
+        fprev = fn
+        for r in range(n):
+            for c in range(n):
+                a = 1.0 + s if r == c else 0.0
+                for b in range(n):
+                    a -= K[r, b] * G[b, c]
+                J[r, c] = a
+                J[r, n + c] = 1.0 if r == c else 0.0
+        if not gj_inverse(J, Ji, n):
+            return -1
+        big, w = take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs, tol, rtol, True)
+        if s == 0.0 and w <= 1.0:
+            eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
+            return it + 1
     return -1
 
 

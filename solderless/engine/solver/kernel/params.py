@@ -45,6 +45,15 @@ REUSE_STEP = 1e-2
 #: factors rarely converge, and the first chord step's error estimate, which
 #: has no measured rate after a fresh Newton step, is least trustworthy there.
 HARD_FACTORS = 3
+#: Pseudo-transient continuation (the port solve's last resort, after
+#: Newton and continuation in p have failed): its first pseudo-time
+#: shift s (the matrix solved is I - K G + s I, dimensionless), below
+#: which s is dropped and the iteration is Newton's, and most iterations.
+#: s = 0.1 rescued every failing sample of the Schmitt trigger netlist in
+#: 16-34 iterations (0.03-0.3 all did in at most 50; 0.003 and 10 did not).
+PTC_S0 = 0.1
+PTC_SEND = 1e-3
+PTC_MAXIT = 100
 #: Steps below this (volts) are rounding noise: converged, and no rate is
 #: measured from them.
 STEP_FLOOR = 1e-11
