@@ -4,7 +4,9 @@ The per-sample kernel (solderless/engine/solver/kernel/) inverts the port Jacobi
 J = I - K G by Gauss-Jordan elimination with partial pivoting
 (factor_jacobian; at four padded ports by cofactors, linalg.inverse4,
 unless J is near-singular), or updates the last inverse by the Sherman-Morrison-
-Woodbury formula when a few devices' blocks of G changed (update_jacobian).
+Woodbury formula when a few devices' blocks of G changed (update_jacobian;
+in its partial form, for the chord refresh, only the devices that moved
+most, the inverse then being exact for the blocks it kept).
 Reference: numpy.linalg.inv (LAPACK getrf/getri); the matrices are random
 with the kernel's structure: G block diagonal by device, one- to three-port
 blocks.
@@ -129,7 +131,8 @@ def test_low_rank_update_matches_lapack(n, seed):
     rng = np.random.default_rng(seed)
     d = int(np.argmax(dnp))
     G2 = _move(G, dpo, dnp, [d], rng)
-    assert K.update_jacobian(Ks, G2, Gf, scratch, Ji, dcode, dpo, dnp, kc, state, stats)
+    assert K.update_jacobian(Ks, G2, Gf, scratch, Ji, dcode, dpo, dnp, kc, state, stats,
+                                   False)
     assert stats[L.STAT_UPDATE] == 1 and stats[L.STAT_FACTOR] == 1
     ref_inv = np.linalg.inv(np.eye(n) - Km @ G2)
     assert np.allclose(Ji, ref_inv, rtol=1e-9, atol=1e-10 * np.abs(ref_inv).max())
@@ -142,7 +145,8 @@ def test_many_moved_ports_refactor():
     Km, G, dcode, dpo, dnp = _system(n, 8)
     Ks, Gf, scratch, Ji, state, stats, kc = _factored(Km, G, dcode, dpo, dnp)
     G2 = _move(G, dpo, dnp, range(len(dpo)), np.random.default_rng(8))
-    assert K.update_jacobian(Ks, G2, Gf, scratch, Ji, dcode, dpo, dnp, kc, state, stats)
+    assert K.update_jacobian(Ks, G2, Gf, scratch, Ji, dcode, dpo, dnp, kc, state, stats,
+                                   False)
     assert stats[L.STAT_UPDATE] == 0 and stats[L.STAT_FACTOR] == 2
     ref_inv = np.linalg.inv(np.eye(n) - Km @ G2)
     assert np.allclose(Ji, ref_inv, rtol=1e-9, atol=1e-12 * np.abs(ref_inv).max())
@@ -156,8 +160,57 @@ def test_chained_updates_stay_exact():
     rng = np.random.default_rng(9)
     for step in range(3 * K.UPDATE_CHAIN):
         G = _move(G, dpo, dnp, [int(rng.integers(len(dpo)))], rng)
-        assert K.update_jacobian(Ks, G, Gf, scratch, Ji, dcode, dpo, dnp, kc, state, stats)
+        assert K.update_jacobian(Ks, G, Gf, scratch, Ji, dcode, dpo, dnp, kc, state, stats,
+                                   False)
         ref_inv = np.linalg.inv(np.eye(n) - Km @ G)
         assert np.allclose(Ji, ref_inv, rtol=1e-8, atol=1e-10 * np.abs(ref_inv).max()), step
     assert stats[L.STAT_UPDATE] > 2 * K.UPDATE_CHAIN
     assert stats[L.STAT_FACTOR] >= 3       # the first, then one every UPDATE_CHAIN
+
+
+def test_partial_update_takes_the_most_moved_devices_and_stays_exact():
+    # more ports moved than an update takes: the partial form (the chord
+    # refresh's) updates the devices that moved most, keeps the others' old
+    # blocks, and its inverse is exactly LAPACK's for that mixed G
+    n = 16
+    Km, G, dcode, dpo, dnp = _system(n, 11)
+    Ks, Gf, scratch, Ji, state, stats, kc = _factored(Km, G, dcode, dpo, dnp)
+    G0 = G.copy()
+    rng = np.random.default_rng(11)
+    # every device moves, by a growing factor (device e by 0.01 * 2**e)
+    G2 = G.copy()
+    nd = len(dpo)
+    for e in range(nd):
+        po, m = dpo[e], dnp[e]
+        G2[po:po + m, po:po + m] *= 1.0 + 0.01 * 2.0 ** e * rng.choice([-1.0, 1.0], (m, m))
+    # each device's score as jacobian_drift defines it (docstring formula)
+    def score(e):
+        po, m = dpo[e], dnp[e]
+        w = kc[po:po + m, None]
+        g, f = G2[po:po + m, po:po + m], G0[po:po + m, po:po + m]
+        return (w * np.abs(g - f)).sum() / (1.0 + (w * np.maximum(np.abs(g), np.abs(f))).sum())
+    kmax = min(L.UPDATE_PORTS, n // 2)
+    expect = []
+    k = 0
+    for e in sorted(range(nd), key=score, reverse=True):
+        if k + dnp[e] <= kmax:
+            expect.append(e)
+            k += dnp[e]
+    assert sum(dnp) > kmax and expect
+    assert K.update_jacobian(Ks, G2, Gf, scratch, Ji, dcode, dpo, dnp, kc, state, stats,
+                             True)
+    assert stats[L.STAT_UPDATE] == 1 and stats[L.STAT_FACTOR] == 1
+    mixed = G0.copy()
+    for e in expect:
+        po, m = dpo[e], dnp[e]
+        mixed[po:po + m, po:po + m] = G2[po:po + m, po:po + m]
+    assert np.array_equal(Gf, mixed)
+    ref_inv = np.linalg.inv(np.eye(n) - Km @ mixed)
+    assert np.allclose(Ji, ref_inv, rtol=1e-9, atol=1e-10 * np.abs(ref_inv).max())
+    # the same change through Newton's (exact) form is a factorisation
+    Ks, Gf, scratch, Ji, state, stats, kc = _factored(Km, G0, dcode, dpo, dnp)
+    assert K.update_jacobian(Ks, G2, Gf, scratch, Ji, dcode, dpo, dnp, kc, state, stats,
+                             False)
+    assert stats[L.STAT_UPDATE] == 0 and stats[L.STAT_FACTOR] == 2
+    assert np.allclose(Ji, np.linalg.inv(np.eye(n) - Km @ G2), rtol=1e-9,
+                       atol=1e-10 * np.abs(Ji).max())

@@ -70,12 +70,13 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
             ptmp[r] = p[r]
         limit_moved(dcode, dpo, dnp, dpa, par, dqs, v, vprev)
         if mem[MEM_REFACTOR] != 0.0:
-            # the last sample's chord iterations contracted slowly: refactor
-            # at this sample's predicted point (closer to its solution than
-            # the last one's; the chord loop's first evaluation is then a
-            # bypass)
+            # the last sample's chord iterations contracted slowly: refresh
+            # the inverse at this sample's predicted point (closer to its
+            # solution than the last one's; the chord loop's first
+            # evaluation is then a bypass), by an update of the devices
+            # that moved most where more moved than an update takes
             eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
-            update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, state, stats)
+            update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, state, stats, True)
             mem[MEM_THETA] = 0.0
     else:
         for r in range(n):

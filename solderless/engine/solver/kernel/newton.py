@@ -165,7 +165,8 @@ def newton_refactoring(p, v, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn, 
         eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
         res = residual(p, v, K, i, F, n)
         if fresh:
-            if not update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, state, stats):
+            if not update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, state, stats,
+                                   False):
                 return -1
         big, w = take_step(Ji, F, v, vn, n, dcode, dpo, dnp, dpa, par, dqs,
                            newton_tol(mem) if fresh else mem[MEM_ATOL], mem[MEM_RTOL], False)
