@@ -21,7 +21,9 @@ reduction) and slope 6 dB above it, the release time after a 50 mV burst
 the deepest gain reduction on the phrase's soft and hard single notes.
 
 ``--charge-cost`` times every design with junction charge storage on and
-off instead (interleaved run by run), and writes bench/results/charge_cost.json.
+off instead (interleaved run by run), and writes bench/results/charge_cost.json
+("+st": the junction capacitances left as linear states, "nlq": the devices
+whose port charges the kernel integrates nonlinearly).
 ``--lanes`` times every design with dormant ports (solver/dormant.py) on and
 off, interleaved, and writes bench/results/lanes.json.
 
@@ -218,6 +220,9 @@ def charge_cost(names: list[str], x: np.ndarray, repeat: int) -> list[dict]:
         rows.append({"design": on.name, "oversample": on.d.oversample,
                      "states_on": on.sim.n_states, "states_off": off.sim.n_states,
                      "junction_states": on.sim.n_states - off.sim.n_states,
+                     "nonlinear_charge_devices": sum(
+                         1 for _el, _m, lay, _po in on.sim.net.devices
+                         if any(lay.kernel_caps)),
                      "rt_on": a / min(on.walls), "rt_off": a / min(off.walls),
                      "rt_on_cpu": a / min(on.cpus), "rt_off_cpu": a / min(off.cpus),
                      "cost_cpu": min(on.cpus) / min(off.cpus) - 1.0,
@@ -234,13 +239,14 @@ def main_charge(names: list[str], repeat: int) -> int:
     load0 = os.getloadavg() if hasattr(os, "getloadavg") else None
     rows = charge_cost(names, x, repeat)
     load = os.getloadavg() if hasattr(os, "getloadavg") else None
-    hdr = (f"{'design':<26}{'os':>3}{'+st':>4}{'x RT on':>9}{'x RT off':>9}"
+    hdr = (f"{'design':<26}{'os':>3}{'+st':>4}{'nlq':>4}{'x RT on':>9}{'x RT off':>9}"
            f"{'CPU on':>8}{'CPU off':>8}{'cost':>7}{'it on':>7}{'it off':>7}{'madd on/off':>13}")
     print(hdr)
     print("-" * len(hdr))
     for r in rows:
         print(f"{r['design']:<26}{r['oversample']:>3}{r['junction_states']:>4}"
-              f"{r['rt_on']:>9.1f}{r['rt_off']:>9.1f}{r['rt_on_cpu']:>8.1f}"
+              f"{r['nonlinear_charge_devices']:>4}{r['rt_on']:>9.1f}{r['rt_off']:>9.1f}"
+              f"{r['rt_on_cpu']:>8.1f}"
               f"{r['rt_off_cpu']:>8.1f}{100 * r['cost_cpu']:>6.0f}%"
               f"{r['iterations_per_sample_on']:>7.2f}{r['iterations_per_sample_off']:>7.2f}"
               f"{r['matrix_products_on']:>7d}/{r['matrix_products_off']:<5d}")

@@ -33,8 +33,12 @@ def layout(el) -> DeviceLayout:
     a, k = el.nodes
     vte, isat = p["VSLOPE"], p["ISAT"]
     # the diode module's parameter vector: IS, vte, vcrit, xbv (inf: no
-    # breakdown), 1/vte, and the (unused) breakdown slope
-    par = np.array([isat, vte, vcrit(vte, isat), math.inf, 1.0 / vte, vte, 1.0 / vte])
+    # breakdown), 1/vte, the (unused) breakdown slope; no charge storage
+    # (CJO 0, VJ 1, M 0.5, FC 0.5, TT 0, the kernel's 1/T slot 0, the
+    # depletion constants and the charge kept for the kernel's history)
+    par = np.array([isat, vte, vcrit(vte, isat), math.inf, 1.0 / vte, vte, 1.0 / vte,
+                    0.0, 1.0, 0.5, 0.5, 0.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0])
+    assert par.size == diode.NPAR
     return DeviceLayout(CODE, [(a, k)], par,
                         probes={"ij": ({0: 1.0}, {}), "vj": ({}, {0: 1.0})},
                         quiet_step=2.0 * vte)

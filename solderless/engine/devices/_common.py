@@ -159,6 +159,12 @@ class DeviceLayout:
     #: transcapacitance).  The module's ``capacitances(par, v, vc)`` gives
     #: the values at port voltages v and entry voltages vc = v(cp) - v(cn).
     caps: list[tuple[str, str, str, str]] = field(default_factory=list)
+    #: per entry of ``caps``, whether the kernel integrates it as a
+    #: nonlinear charge across the device's own ports (the module's
+    #: ``evaluate`` and ``charges`` with the step in par[CHARGE_SLOT]; see
+    #: "Junction charge storage" in DEVELOPERS.md); the others are linear
+    #: capacitors taken at the operating point (empty: all of them)
+    kernel_caps: list[bool] = field(default_factory=list)
     #: per port, the open interval (lo, hi) of port voltage inside which the
     #: device draws exactly no current and has exactly zero conductance
     #: while every other port of the device is inside its own (None: no
@@ -282,6 +288,69 @@ def depletion_cap(v: float, cz: float, pb: float, m: float, fc: float) -> float:
         return cz * (1.0 - v / pb) ** (-m)
     f2 = (1.0 - fc) ** (1.0 + m)
     return cz / f2 * (1.0 - fc * (1.0 + m) + m * v / pb)
+
+
+def depletion_consts(pb: float, m: float, fc: float) -> tuple[float, float]:
+    """F1 and 1/F2 of SPICE's depletion charge above FC*VJ (ngspice
+    diotemp.c/bjttemp.c): F1 = VJ*(1 - (1 - FC)**(1 - M))/(1 - M),
+    F2 = (1 - FC)**(1 + M)."""
+    om = max(1.0 - m, 1e-9)
+    return pb * (1.0 - (1.0 - fc) ** om) / om, 1.0 / (1.0 - fc) ** (1.0 + m)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def depletion_charge(v, cz, pb, m, fc, f1, rf2):
+    """Depletion charge and capacitance of a junction at bias v, as ngspice
+    dioload.c and bjtload.c integrate it: below FC*VJ
+    q = VJ*CJ*(1 - (1 - v/VJ)**(1 - M))/(1 - M), C = CJ*(1 - v/VJ)**-M;
+    above, the charge of the linearised capacitance,
+    q = CJ*F1 + CJ/F2*(F3*(v - FC*VJ) + M/(2 VJ)*(v**2 - (FC*VJ)**2)),
+    C = CJ/F2*(F3 + M*v/VJ), F3 = 1 - FC*(1 + M) (f1 = F1, rf2 = 1/F2 from
+    :func:`depletion_consts`)."""
+    if cz == 0.0:
+        return 0.0, 0.0
+    fcp = fc * pb
+    if v < fcp:
+        arg = 1.0 - v / pb
+        if m == 0.5:     # the common grading (diode default, JFET): one root
+            sq = math.sqrt(arg)
+            return 2.0 * pb * cz * (1.0 - sq), cz / sq
+        sarg = math.exp(-m * math.log(arg))
+        om = 1.0 - m
+        if om < 1e-9:
+            om = 1e-9
+        return pb * cz * (1.0 - arg * sarg) / om, cz * sarg
+    czf2 = cz * rf2
+    f3 = 1.0 - fc * (1.0 + m)
+    return (cz * f1 + czf2 * (f3 * (v - fcp) + m / (pb + pb) * (v * v - fcp * fcp)),
+            czf2 * (f3 + m * v / pb))
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def keep_charge(par, k, v0, v1, q0, q1, c00, c01, c10, c11):
+    """A two-port device's charge law at its last evaluation, kept in
+    par[k:k + 8] for :func:`charge_history`: the port voltages, q/T per
+    port and the charges' Jacobian over T."""
+    par[k] = v0
+    par[k + 1] = v1
+    par[k + 2] = q0
+    par[k + 3] = q1
+    par[k + 4] = c00
+    par[k + 5] = c01
+    par[k + 6] = c10
+    par[k + 7] = c11
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def charge_history(par, k, v, po, q):
+    """-q(v)/T per port of a two-port device into q[po], q[po + 1], from
+    the law kept by :func:`keep_charge`, continued to v to first order
+    (the solver's own linearisation of the port currents there; the
+    second-order rest is below the solver's tolerance times C/T)."""
+    d0 = v[po] - par[k]
+    d1 = v[po + 1] - par[k + 1]
+    q[po] = -(par[k + 2] + par[k + 4] * d0 + par[k + 5] * d1)
+    q[po + 1] = -(par[k + 3] + par[k + 6] * d0 + par[k + 7] * d1)
 
 
 def junction_temp(cj: float, vj: float, m: float, temp_k: float,

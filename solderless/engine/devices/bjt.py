@@ -24,8 +24,11 @@ IS(T) = IS*exp((T/TNOM - 1)*EG/VT + XTI*ln(T/TNOM)), BF and BR times
 (T/TNOM)**XTB, ISE(T) = ISE*exp(that exponent/NE)/(T/TNOM)**XTB (ISC with
 NC).  PNP: all signs flipped.
 
-Charge storage (``capacitances``, ngspice bjtload.c's charge section, taken
-at an operating point): depletion capacitances CJE/VJE/MJE (B'-E'),
+Charge storage (ngspice bjtload.c's charge section: ``capacitances`` at an
+operating point for the AC analysis; in the time domain ``evaluate``
+integrates the charges across the ports, Qbe and Qbc, by backward Euler,
+and the external B-C' and substrate shares stay linear at the operating
+point): depletion capacitances CJE/VJE/MJE (B'-E'),
 CJC/VJC/MJC split by XCJC between the internal base (B'-C') and the
 external base (B-C'), CJS/VJS/MJS from C' to the substrate (ground), each
 linearised above FC*VJ; the forward diffusion capacitance TF*gbe with TF
@@ -45,7 +48,9 @@ import numpy as np
 from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
 from solderless.engine.devices._common import (GMIN, DeviceLayout, circuit_temp,
-                                    depletion_cap, junction, junction_py, junction_temp,
+                                    charge_history, depletion_cap, depletion_charge,
+                                    depletion_consts, keep_charge,
+                                    junction, junction_py, junction_temp,
                                     limit_two_junctions, model_tnom, polarity, read_params,
                                     temp_factors, vcrit)
 from solderless.engine.analysis import regions
@@ -97,11 +102,20 @@ STANDARD = set(DEFAULTS) | set(IGNORED)
 # 9 vcrit_r, 10 1/BF, 11 1/BR, 12 1/vtf, 13 1/vtr (reciprocals: the evaluation
 # multiplies), 14 1/IKF, 15 1/IKR, 16 ISE(T), 17 NE*vt, 18 1/(NE*vt), 19 ISC(T),
 # 20 NC*vt, 21 1/(NC*vt), 22 base-resistance port (1) or none (0), 23 RBM,
-# 24 RB - RBM, 25 IRB (0: none); charge storage (read by ``capacitances``,
-# not by the kernel): 26 CJE(T), 27 VJE(T), 28 MJE, 29 CJC(T), 30 VJC(T),
+# 24 RB - RBM, 25 IRB (0: none); charge storage (``capacitances`` at an
+# operating point; the kernel's nonlinear charge across the ports with slot
+# 43 set): 26 CJE(T), 27 VJE(T), 28 MJE, 29 CJC(T), 30 VJC(T),
 # 31 MJC, 32 XCJC, 33 CJS, 34 VJS, 35 MJS, 36 FC, 37 TF, 38 XTF,
-# 39 1/(1.44*VTF) (0: none), 40 ITF, 41 TR, 42 separate external base (1/0)
-NPAR = 43
+# 39 1/(1.44*VTF) (0: none), 40 ITF, 41 TR, 42 separate external base (1/0),
+# 43 1/T (the kernel's step; 0: no charge in ``evaluate``), 44 F1 and 45 1/F2
+# of B'-E', 46 F1 and 47 1/F2 of B'-C' (depletion_consts), 48 the B'-C'
+# depletion capacitance across the ports (CJC*XCJC, all of CJC without a
+# separate external base); written by ``evaluate`` for ``history``: 49, 50
+# the port voltages, 51, 52 q/T per port, 53-56 the charges' 2 x 2
+# Jacobian over T there
+NPAR = 57
+#: par slot of the kernel's 1/T (charge storage in ``evaluate``)
+CHARGE_SLOT = 43
 
 
 def params(el) -> tuple[dict, list]:
@@ -169,25 +183,33 @@ def layout(el, temp=None) -> DeviceLayout:
                     p["IRB"] if math.isfinite(p["IRB"]) else 0.0,
                     cje, vje, p["MJE"], cjc, vjc, p["MJC"], p["XCJC"], p["CJS"], p["VJS"],
                     p["MJS"], fc, p["TF"], p["XTF"], ovtf, p["ITF"], p["TR"],
-                    1.0 if bi != b else 0.0])
+                    1.0 if bi != b else 0.0, 0.0,
+                    *depletion_consts(vje, p["MJE"], fc), *depletion_consts(vjc, p["MJC"], fc),
+                    cjc * xcjc if bi != b else cjc, *([0.0] * 8)])
     ports = [(bi, ei), (ci, ei)]
     if nl_rb:
         ports.append((b, bi))
-    caps = []
-    for on, ent in ((cje > 0 or p["TF"] > 0, (bi, ei, bi, ei)),
-                    (cjc * xcjc > 0 or p["TR"] > 0 or (cjc > 0 and bi == b), (bi, ci, bi, ci)),
-                    (cjc * (1.0 - xcjc) > 0 and bi != b, (b, ci, b, ci)),
-                    (p["CJS"] > 0, (ci, "0", ci, "0")),
-                    (p["TF"] > 0, (bi, ei, bi, ci))):
+    caps, kcaps = [], []
+    # the kernel integrates the charges across the ports (B'-E', B'-C' and
+    # the transcapacitance); B-C' and C'-substrate stay linear at the
+    # operating point
+    for on, ent, kern in ((cje > 0 or p["TF"] > 0, (bi, ei, bi, ei), True),
+                          (cjc * xcjc > 0 or p["TR"] > 0 or (cjc > 0 and bi == b),
+                           (bi, ci, bi, ci), True),
+                          (cjc * (1.0 - xcjc) > 0 and bi != b, (b, ci, b, ci), False),
+                          (p["CJS"] > 0, (ci, "0", ci, "0"), False),
+                          (p["TF"] > 0, (bi, ei, bi, ci), True)):
         if on:
             caps.append(ent)
+            kcaps.append(kern)
     return DeviceLayout(CODE, ports, par, internal, stamps,
                         probes={"ib": ({0: 1.0}, {}), "ic": ({1: 1.0}, {}),
                                 "ie": ({0: -1.0, 1: -1.0}, {}),
                                 "vbe": ({}, {0: 1.0}), "vce": ({}, {1: 1.0})},
                         # Vbe moves by the step, Vbc by at most twice it;
                         # pnjlim acts only on junction steps above 2*vt
-                        quiet_step=min(vtf, vtr), ignored=notes, caps=caps)
+                        quiet_step=min(vtf, vtr), ignored=notes, caps=caps,
+                        kernel_caps=kcaps)
 
 
 def capacitances(par, v, vc) -> np.ndarray:
@@ -299,6 +321,94 @@ def _gummel_poon(par, pa, vbe, vbc, cbe, gbe, cbc, gbc):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def _charge(par, pa, vbe, vbc, cbe, gbe, cbc, gbc, qb, dqbdve, dqbdvc):
+    """The charges across the ports and their derivatives, as ngspice
+    bjtload.c's charge section: (qbe, qbc, capbe = dqbe/dVbe,
+    capbc = dqbc/dVbc, geqcb = dqbe/dVbc).  Qbe is TF's diffusion charge
+    TF*Ibe*(1 + XTF*(Ibe/(Ibe + ITF))**2*exp(Vbc/(1.44 VTF)))/qb (forward
+    bias only) plus CJE's depletion charge, Qbc is TR*Ibc plus the B'-C'
+    depletion charge (par[48])."""
+    tf = par[pa + 37]
+    geqcb = 0.0
+    if tf != 0.0 and vbe > 0.0:
+        argtf = 0.0
+        arg2 = 0.0
+        arg3 = 0.0
+        xtf = par[pa + 38]
+        if xtf != 0.0:
+            ovtf = par[pa + 39]
+            argtf = xtf
+            if ovtf != 0.0:
+                argtf *= math.exp(vbc * ovtf)
+            arg2 = argtf
+            itf = par[pa + 40]
+            if itf != 0.0:
+                t = cbe / (cbe + itf)
+                argtf *= t * t
+                arg2 = argtf * (3.0 - t - t)
+            arg3 = cbe * argtf * ovtf
+        rqb = 1.0 / qb
+        cbe = cbe * (1.0 + argtf) * rqb
+        gbe = (gbe * (1.0 + arg2) - cbe * dqbdve) * rqb
+        geqcb = tf * (arg3 - cbe * dqbdvc) * rqb
+    qe, ce = depletion_charge(vbe, par[pa + 26], par[pa + 27], par[pa + 28], par[pa + 36],
+                              par[pa + 44], par[pa + 45])
+    qc, cc = depletion_charge(vbc, par[pa + 48], par[pa + 30], par[pa + 31], par[pa + 36],
+                              par[pa + 46], par[pa + 47])
+    tr = par[pa + 41]
+    return tf * cbe + qe, tr * cbc + qc, tf * gbe + ce, tr * gbc + cc, geqcb
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def history(par, pa, v, po, q):
+    """-q(v)/T per port into q from the charges ``evaluate`` last computed,
+    continued to v with their Jacobian (``_common.charge_history``)."""
+    if par[pa + 43] != 0.0:
+        charge_history(par, pa + 49, v, po, q)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def charges(par, pa, v, po, q):
+    """-q/T per port into q[po], q[po + 1] (Qbe + Qbc into B', -Qbc into
+    C': :func:`_charge` at port voltages v), with which the next sample's
+    backward-Euler charge currents start; nothing when par[pa + 43] (1/T)
+    is 0."""
+    it = par[pa + 43]
+    if it == 0.0:
+        return
+    pol = par[pa + 0]
+    vbe = pol * v[po]
+    vbc = vbe - pol * v[po + 1]
+    isat = par[pa + 1]
+    cbe, gbe = junction(vbe, isat, par[pa + 4], par[pa + 12])
+    cbc, gbc = junction(vbc, isat, par[pa + 5], par[pa + 13])
+    qb, dqbdve, dqbdvc = _base_charge(par, pa, vbe, vbc, cbe, gbe, cbc, gbc)
+    qbe, qbc, capbe, capbc, geqcb = _charge(par, pa, vbe, vbc, cbe, gbe, cbc, gbc,
+                                            qb, dqbdve, dqbdvc)
+    q[po] = -it * pol * (qbe + qbc)
+    q[po + 1] = it * pol * qbc
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def _base_charge(par, pa, vbe, vbc, cbe, gbe, cbc, gbc):
+    """qb and its derivatives w.r.t. Vbe and Vbc (Gummel-Poon, as
+    :func:`_gummel_poon`)."""
+    q1i = 1.0 - vbc * par[pa + 6] - vbe * par[pa + 7]
+    if q1i < 1e-3:
+        q1i = 1e-3
+    q1 = 1.0 / q1i
+    oik = par[pa + 14]
+    oikr = par[pa + 15]
+    arg = 1.0 + 4.0 * (oik * cbe + oikr * cbc)
+    if arg < 0.0:
+        arg = 0.0
+    sq = math.sqrt(arg) if arg != 0.0 else 1.0
+    qb = q1 * (1.0 + sq) * 0.5
+    return (qb, q1 * (qb * par[pa + 7] + oik * gbe / sq),
+            q1 * (qb * par[pa + 6] + oikr * gbc / sq))
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def evaluate(par, pa, v, po, i, G):
     """Ib, Ic (and the base-resistance current) and their Jacobian w.r.t.
     (Vbe, Vce[, Vbb']) at the ports."""
@@ -351,6 +461,28 @@ def evaluate(par, pa, v, po, i, G):
     G[po, po + 1] = -dib_dvbc
     G[po + 1, po] = dic_dvbe + dic_dvbc
     G[po + 1, po + 1] = -dic_dvbc
+    it = par[pa + 43]
+    if it != 0.0:
+        # charge storage: backward Euler's (q(v) - q_prev)/T per port (the
+        # kernel takes -q_prev/T into p, see ``charges``); Qbe + Qbc flow
+        # into B', -Qbc into C'
+        if not hi:
+            qb, dqbdve, dqbdvc = _base_charge(par, pa, vbe, vbc, cbe, gbe, cbc, gbc)
+        qbe, qbc, capbe, capbc, geqcb = _charge(par, pa, vbe, vbc, cbe, gbe, cbc, gbc,
+                                                qb, dqbdve, dqbdvc)
+        q0 = pol * it * (qbe + qbc)
+        q1 = -pol * it * qbc
+        c00 = it * (capbe + geqcb + capbc)
+        c01 = -it * (geqcb + capbc)
+        c10 = -it * capbc
+        c11 = it * capbc
+        i[po] += q0
+        i[po + 1] += q1
+        G[po, po] += c00
+        G[po, po + 1] += c01
+        G[po + 1, po] += c10
+        G[po + 1, po + 1] += c11
+        keep_charge(par, pa + 49, v[po], v[po + 1], q0, q1, c00, c01, c10, c11)
     if par[pa + 22] > 0.0:
         # current-dependent base resistance between B and B'
         vbb = pol * v[po + 2]

@@ -6,10 +6,12 @@ IS*(exp(v/(N*VT)) - 1), reverse-bias approximation below -3*N*VT, optional
 breakdown at BV (current IBV there, emission coefficient NBV, default N),
 GMIN across the junction.  Temperature (ngspice diotemp.c, default law):
 VT = kT/q at the circuit temperature, IS(T) = IS*exp((T/TNOM - 1)*EG/(N*VT)
-+ XTI/N*ln(T/TNOM)).  Charge storage (``capacitances``, at an operating
-point, as dioload.c): depletion capacitance CJO*(1 - v/VJ)**-M below
-FC*VJ, continued linearly above it, plus the diffusion capacitance TT*gd;
-CJO and VJ follow the default temperature law (diotemp.c, TLEVC = 0).
++ XTI/N*ln(T/TNOM)).  Charge storage (as dioload.c; ``capacitances`` at an
+operating point for the AC analysis, the charge itself by backward Euler in
+the time domain, see ``evaluate`` and ``charges``): depletion capacitance
+CJO*(1 - v/VJ)**-M below FC*VJ, continued linearly above it, plus the
+diffusion charge TT*Id; CJO and VJ follow the default temperature law
+(diotemp.c, TLEVC = 0).
 """
 from __future__ import annotations
 
@@ -19,7 +21,8 @@ import numpy as np
 from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
 from solderless.engine.devices._common import (EXPLIM, GMIN, DeviceLayout, circuit_temp,
-                                    depletion_cap, junction, junction_py, junction_temp,
+                                    depletion_cap, depletion_charge, depletion_consts,
+                                    junction, junction_py, junction_temp,
                                     lexp, model_tnom, pnjlim, read_params, temp_factors,
                                     vcrit)
 from solderless.engine.analysis import regions
@@ -28,6 +31,8 @@ from solderless.engine.devices.registry import DeviceKind
 KIND = "D"
 CODE = 1
 NPORTS = 1
+#: par slot of the kernel's 1/T (charge storage in ``evaluate``)
+CHARGE_SLOT = 12
 #: the layout takes the circuit temperature (degrees Celsius)
 TEMPERATURE = True
 #: simulated parameters and their defaults (ngspice manual, diode model table)
@@ -64,8 +69,12 @@ ALIASES = {"CJ0": "CJO", "CJ": "CJO", "JS": "IS", "CJSW": "CJP"}
 #: every standard parameter of the model card (simulated or not)
 STANDARD = set(DEFAULTS) | set(IGNORED)
 # par: 0 IS(T), 1 vte, 2 vcrit, 3 xbv (inf: no breakdown), 4 1/vte, 5 NBV*vt,
-# 6 1/(NBV*vt); charge storage (``capacitances``, not the kernel): 7 CJO(T),
-# 8 VJ(T), 9 M, 10 FC, 11 TT
+# 6 1/(NBV*vt); charge storage (``capacitances`` at an operating point; the
+# kernel's nonlinear charge with slot 12 set): 7 CJO(T), 8 VJ(T), 9 M, 10 FC,
+# 11 TT, 12 1/T (the kernel's step; 0: no charge in ``evaluate``, as in the
+# operating point's solver), 13 F1, 14 1/F2 (depletion_consts); written by
+# ``evaluate`` for ``history``: 15 the port voltage, 16 q/T and 17 C/T there
+NPAR = 18
 
 
 def breakdown_knee(bv: float, ibv: float, isat: float, vt: float, nbv: float) -> float:
@@ -113,11 +122,13 @@ def layout(el, temp=None) -> DeviceLayout:
     if fc * vj > 1.0:
         vj = 1.0 / fc
     par = np.array([isat, vte, vcrit(vte, isat), xbv, 1.0 / vte, nbv * vt,
-                    1.0 / (nbv * vt), cjo, vj, mj, fc, p["TT"]])
+                    1.0 / (nbv * vt), cjo, vj, mj, fc, p["TT"], 0.0,
+                    *depletion_consts(vj, mj, fc), 0.0, 0.0, 0.0])
     caps = [(ai, k, ai, k)] if (p["CJO"] > 0 or p["TT"] > 0) else []
     return DeviceLayout(CODE, [(ai, k)], par, internal, stamps,
                         probes={"id": ({0: 1.0}, {}), "vd": ({}, {0: 1.0})},
-                        quiet_step=2.0 * vte, ignored=notes, caps=caps)
+                        quiet_step=2.0 * vte, ignored=notes, caps=caps,
+                        kernel_caps=[True] * len(caps))
 
 
 def capacitances(par, v, vc) -> np.ndarray:
@@ -149,8 +160,55 @@ def evaluate(par, pa, v, po, i, G):
         g = isat * de * rvb
     else:
         c, g = junction(vd, isat, vte, rvte)
-    i[po] = c + GMIN * vd
-    G[po, po] = g + GMIN
+    c += GMIN * vd
+    g += GMIN
+    it = par[pa + 12]
+    if it != 0.0:
+        # charge storage: backward Euler's i = (q(v) - q_prev)/T; the kernel
+        # takes -q_prev/T into p (see ``charges``)
+        qd, cd = depletion_charge(vd, par[pa + 7], par[pa + 8], par[pa + 9], par[pa + 10],
+                                  par[pa + 13], par[pa + 14])
+        tt = par[pa + 11]
+        qt = it * (qd + tt * c)
+        ct = it * (cd + tt * g)
+        par[pa + 15] = vd
+        par[pa + 16] = qt
+        par[pa + 17] = ct
+        c += qt
+        g += ct
+    i[po] = c
+    G[po, po] = g
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def history(par, pa, v, po, q):
+    """-q(v)/T into q[po] from the charge ``evaluate`` last computed,
+    continued to v with its capacitance (the solver's own linearisation
+    of the port current there): the kernel's per-sample form of
+    :func:`charges`, without a second evaluation."""
+    if par[pa + 12] != 0.0:
+        q[po] = -(par[pa + 16] + par[pa + 17] * (v[po] - par[pa + 15]))
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def charges(par, pa, v, po, q):
+    """-q(v)/T into q[po]: the junction's charge (depletion plus TT times
+    its current, dioload.c) over the kernel's step, with which the next
+    sample's backward-Euler charge current starts; nothing when par[pa + 12]
+    (1/T) is 0."""
+    it = par[pa + 12]
+    if it == 0.0:
+        return
+    vd = v[po]
+    xbv = par[pa + 3]
+    if vd < -xbv:
+        e, de = lexp(-(xbv + vd) * par[pa + 6])
+        c = -par[pa + 0] * e
+    else:
+        c, g = junction(vd, par[pa + 0], par[pa + 1], par[pa + 4])
+    qd, cd = depletion_charge(vd, par[pa + 7], par[pa + 8], par[pa + 9], par[pa + 10],
+                              par[pa + 13], par[pa + 14])
+    q[po] = -it * (qd + par[pa + 11] * (c + GMIN * vd))
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")

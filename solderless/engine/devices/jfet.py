@@ -13,7 +13,8 @@ current.  Channel (normal mode, Vds >= 0, Vgst = Vgs - VTO):
     saturated Vgst <= Vds:       Id = BETA*Vgst**2*(1 + LAMBDA*Vds)
 inverse mode (Vds < 0) by symmetry with Vgd.  Gate-source and gate-drain
 junctions follow the diode law with GMIN.  PJF: all signs flipped.
-Charge storage (``capacitances``, at an operating point, as jfetload.c):
+Charge storage (as jfetload.c; ``capacitances`` at an operating point for
+the AC analysis, the gate charges by backward Euler in the time domain):
 gate-source CGS and gate-drain CGD depletion capacitances with grading 1/2,
 CGS*(1 - Vgs/PB)**-0.5, linearised above FC*PB (FC limited to 0.95);
 CGS, CGD and PB follow the default temperature law (jfettemp.c).
@@ -27,7 +28,9 @@ import numpy as np
 from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
 from solderless.engine.devices._common import (GMIN, DeviceLayout, circuit_temp,
-                                    depletion_cap, junction, junction_temp,
+                                    charge_history, depletion_cap, depletion_charge,
+                                    depletion_consts, keep_charge as _keep_charge,
+                                    junction, junction_temp,
                                     limit_two_junctions, model_tnom, polarity, read_params,
                                     temp_factors, vcrit)
 from solderless.engine.errors import DesignError
@@ -62,8 +65,14 @@ ALIASES = {"VT0": "VTO"}
 #: every standard parameter of the model card (simulated or not)
 STANDARD = set(DEFAULTS) | set(IGNORED)
 # par: 0 pol, 1 VTO, 2 BETA, 3 LAMBDA, 4 IS(T), 5 vte, 6 vcrit, 7 1/vte, 8 B,
-# 9 (1 - B)/(PB - VTO); charge storage (``capacitances``, not the kernel):
-# 10 CGS(T), 11 CGD(T), 12 PB(T), 13 FC
+# 9 (1 - B)/(PB - VTO); charge storage (``capacitances`` at an operating
+# point; the kernel's nonlinear charge with slot 14 set): 10 CGS(T),
+# 11 CGD(T), 12 PB(T), 13 FC, 14 1/T (the kernel's step; 0: no charge in
+# ``evaluate``), 15 F1, 16 1/F2 (depletion_consts, grading 1/2); written by
+# ``evaluate`` for ``history``: 17, 18 the port voltages, 19, 20 q/T per
+# port and 21-24 the charges' 2 x 2 Jacobian over T there
+#: par slot of the kernel's 1/T (charge storage in ``evaluate``)
+CHARGE_SLOT = 14
 
 
 def layout(el, temp=None) -> DeviceLayout:
@@ -102,14 +111,15 @@ def layout(el, temp=None) -> DeviceLayout:
                           "potential)", file=getattr(w, "file", None),
                           line=getattr(w, "line", None), part=el.name)
     par = np.array([pol, p["VTO"], p["BETA"], p["LAMBDA"], isat, vte, vcrit(vte, isat),
-                    1.0 / vte, p["B"], bfac, cgs, cgd, pb, min(p["FC"], 0.95)])
+                    1.0 / vte, p["B"], bfac, cgs, cgd, pb, min(p["FC"], 0.95), 0.0,
+                    *depletion_consts(pb, 0.5, min(p["FC"], 0.95)), *([0.0] * 8)])
     caps = [ent for on, ent in ((p["CGS"] > 0, (g, s, g, s)), (p["CGD"] > 0, (g, d, g, d)))
             if on]
     return DeviceLayout(CODE, [(g, s), (d, s)], par, internal, stamps,
                         probes={"ig": ({0: 1.0}, {}), "id": ({1: 1.0}, {}),
                                 "vgs": ({}, {0: 1.0}), "vds": ({}, {1: 1.0})},
                         quiet_step=vte,  # as the BJT: Vgd moves by <= 2 steps
-                        ignored=notes, caps=caps)
+                        ignored=notes, caps=caps, kernel_caps=[True] * len(caps))
 
 
 def capacitances(par, v, vc) -> np.ndarray:
@@ -147,6 +157,41 @@ def _channel(vgs, vds, vto, beta, lam, b, bfac):
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def _gate_charges(par, pa, vgs, vgd):
+    """Gate-source and gate-drain depletion charges and capacitances
+    (jfetload.c: grading 1/2, the FC linearisation)."""
+    qgs, cgs = depletion_charge(vgs, par[pa + 10], par[pa + 12], 0.5, par[pa + 13],
+                                par[pa + 15], par[pa + 16])
+    qgd, cgd = depletion_charge(vgd, par[pa + 11], par[pa + 12], 0.5, par[pa + 13],
+                                par[pa + 15], par[pa + 16])
+    return qgs, cgs, qgd, cgd
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def history(par, pa, v, po, q):
+    """-q(v)/T per port into q from the charges ``evaluate`` last computed,
+    continued to v with their Jacobian (``_common.charge_history``)."""
+    if par[pa + 14] != 0.0:
+        charge_history(par, pa + 17, v, po, q)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def charges(par, pa, v, po, q):
+    """-q/T per port into q[po], q[po + 1] (Qgs + Qgd into the gate, -Qgd
+    into the drain), with which the next sample's backward-Euler charge
+    currents start; nothing when par[pa + 14] (1/T) is 0."""
+    it = par[pa + 14]
+    if it == 0.0:
+        return
+    pol = par[pa + 0]
+    vgs = pol * v[po]
+    vgd = vgs - pol * v[po + 1]
+    qgs, cgs, qgd, cgd = _gate_charges(par, pa, vgs, vgd)
+    q[po] = -it * pol * (qgs + qgd)
+    q[po + 1] = it * pol * qgd
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def evaluate(par, pa, v, po, i, G):
     """Gate and drain currents and their 2x2 Jacobian w.r.t. (Vgs, Vds)."""
     pol = par[pa + 0]
@@ -159,6 +204,18 @@ def evaluate(par, pa, v, po, i, G):
     ggs += GMIN
     igd += GMIN * vgd
     ggd += GMIN
+    it = par[pa + 14]
+    if it != 0.0:
+        # gate charge storage: backward Euler's (q(v) - q_prev)/T, as the
+        # gate junctions' currents (the kernel takes -q_prev/T into p, see
+        # ``charges``)
+        qgs, cgs, qgd, cgd = _gate_charges(par, pa, vgs, vgd)
+        igs += it * qgs
+        ggs += it * cgs
+        igd += it * qgd
+        ggd += it * cgd
+        _keep_charge(par, pa + 17, v[po], v[po + 1], it * pol * (qgs + qgd), -it * pol * qgd,
+                     it * (cgs + cgd), -it * cgd, -it * cgd, it * cgd)
     if vds >= 0.0:
         idc, gm, gds = _channel(vgs, vds, par[pa + 1], par[pa + 2], par[pa + 3],
                                  par[pa + 8], par[pa + 9])

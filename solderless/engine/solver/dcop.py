@@ -296,21 +296,35 @@ def report(net: Network, sol: DCSolution, values: dict[str, float]) -> Operating
 def charge_note(net: Network) -> str | None:
     """What the simulation does with the devices' junction capacitances
     (CJE, CJC, TF, CJO, TT, CGS, CGD, CGSO, CBD ...), or None when no
-    device has any: taken at the operating point as linear capacitors, so
-    their change with the signal's swing is not simulated; or, with
-    junction charge storage off, left out of renders (the AC analysis has
-    them either way)."""
+    device has any: the charges across a diode's, a BJT's or a JFET's
+    ports are integrated nonlinearly, as SPICE does; the others (a BJT's
+    external base and substrate junctions, a MOSFET's capacitances) are
+    taken at the operating point as linear capacitors, so their change
+    with the signal's swing is not simulated; or, with junction charge
+    storage off, all are left out of renders (the AC analysis has them
+    either way)."""
     who = [el.name for el, _mod, lay, _po in net.devices if lay.caps]
     if not who:
         return None
-    names = ", ".join(who[:8]) + (f" and {len(who) - 8} more" if len(who) > 8 else "")
-    if net.charge:
-        return (f"junction charge storage ({names}): junction capacitances are taken at "
-                "the operating point (linear capacitors in renders and live play, "
-                "recomputed after each edit); their change with signal swing is not "
-                "simulated")
-    return (f"junction charge storage is off ({names}): junction capacitances are left "
-            "out of renders and live play; the AC analysis includes them")
+
+    def listed(names):
+        return ", ".join(names[:8]) + (f" and {len(names) - 8} more" if len(names) > 8 else "")
+    if not net.charge:
+        return (f"junction charge storage is off ({listed(who)}): junction capacitances are "
+                "left out of renders and live play; the AC analysis includes them")
+    nonlin = [el.name for el, _mod, lay, _po in net.devices if any(lay.kernel_caps)]
+    linear = [el.name for el, _mod, lay, _po in net.devices
+              if lay.caps and not all(lay.kernel_caps or [False])]
+    parts = []
+    if nonlin:
+        parts.append(f"the charges across the junctions of {listed(nonlin)} follow the "
+                     "signal (nonlinear, as SPICE integrates them)")
+    if linear:
+        parts.append(f"the other junction capacitances of {listed(linear)} are taken at the "
+                     "operating point (linear capacitors in renders and live play, "
+                     "recomputed after each edit); their change with signal swing is not "
+                     "simulated")
+    return "junction charge storage: " + "; ".join(parts)
 
 
 #: Step at which the stability of the operating point is judged (seconds);

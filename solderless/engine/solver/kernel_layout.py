@@ -13,7 +13,7 @@ order):
 
 ``ws``     float64 workspace, ``N_WS_ROWS`` x max(padded ports, padded
            states, ``WS_MIN_COLS``).  Rows ``WS_P`` ... ``WS_XT`` are
-           per-sample scratch; rows ``WS_V2`` ... ``WS_MEM`` persist from
+           per-sample scratch; rows ``WS_V2`` ... ``WS_MEM`` and ``WS_QN`` persist from
            sample to sample (Simulator.reset sets them).
 ``state``  int64 solver state, ``N_STATE`` slots ``STATE_*``: what the next
            sample needs (sample index, probe phase, whether the kept inverse
@@ -75,14 +75,24 @@ WS_VEVAL = 8      # persists: bypass memory, v at each port's last evaluation
 WS_IEVAL = 9      # persists: bypass memory, i at that evaluation
 WS_MEM = 10       # persists: the scalars MEM_* below
 WS_WATCH = 11     # out: the watched ports' voltages at the last solved sample
-N_WS_ROWS = 12
-WS_MIN_COLS = 4   # row WS_MEM needs its MEM_* slots whatever the port count
+WS_QN = 12        # persists: -q/T per port, the device charges at the last
+                  # sample's solution over the step (with MEM_CHARGE set:
+                  # the charge currents' history, taken into p; computed
+                  # afresh after a reset or a device edit, see MEM_CHARGE;
+                  # Simulator maps it across a lane handover)
+N_WS_ROWS = 13
+WS_MIN_COLS = 5   # row WS_MEM needs its MEM_* slots whatever the port count
 
 # --- slots of the workspace row ws[WS_MEM] (float) --------------------------
 MEM_THETA = 0     # last measured chord contraction rate
 MEM_REFACTOR = 1  # 1.0: refactor the Jacobian before the next sample
 MEM_ATOL = 2      # absolute error tolerance, volts (Simulator's tolerance)
 MEM_RTOL = 3      # relative error tolerance (RELTOL scaled with MEM_ATOL)
+MEM_CHARGE = 4    # CHARGE_ON: devices integrate junction charges (row WS_QN
+                  # in use); CHARGE_AFRESH: and the runner computes WS_QN
+                  # afresh from v before its first sample (then CHARGE_ON)
+CHARGE_ON = 1.0
+CHARGE_AFRESH = 2.0
 
 # --- slots of the solver state (int64) --------------------------------------
 STATE_INDEX = 0   # kernel samples since reset (a waveform's time is INDEX*dt)

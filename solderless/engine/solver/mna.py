@@ -73,6 +73,9 @@ class Junction:
     b: int
     ca: int
     cb: int
+    #: integrated by the kernel as the device's nonlinear charge across its
+    #: ports (DeviceLayout.kernel_caps), not a linear state
+    kernel: bool = False
 
 
 #: Integration rule of the junction capacitances in the time domain (see
@@ -90,7 +93,8 @@ class Network:
 
     def __init__(self, circuit: Circuit, charge: bool | None = None):
         self.circuit = circuit
-        #: junction capacitances simulated in the time domain (as linear
+        #: junction charge storage simulated in the time domain (the charges
+        #: across device ports nonlinear in the kernel, the rest as linear
         #: capacitors at the operating point); None: the circuit's setting
         self.charge = bool(getattr(circuit, "junction_charge", True)
                            if charge is None else charge)
@@ -197,11 +201,14 @@ class Network:
         # junction capacitances of the devices (charge storage)
         self.junctions: list[Junction] = []
         for d, (el, _mod, lay, _po) in enumerate(self.devices):
-            for (pa, pb, ca, cb) in lay.caps:
-                self.junctions.append(Junction(d, node(pa), node(pb), node(ca), node(cb)))
+            kern = lay.kernel_caps or [False] * len(lay.caps)
+            for (pa, pb, ca, cb), kc in zip(lay.caps, kern):
+                self.junctions.append(Junction(d, node(pa), node(pb), node(ca), node(cb), kc))
         if self.charge and self.junctions:
             c0 = self.junction_caps(np.zeros(self.nw), np.zeros(len(self.ports)))
             for k, j in enumerate(self.junctions):
+                if j.kernel:
+                    continue   # the device's own law integrates it
                 el = self.devices[j.device][0]
                 trans = (j.ca, j.cb) != (j.a, j.b)
                 self.states.append(State(f"{el.name}#Q{k}", "C", j.a, j.b, -1,
@@ -498,6 +505,12 @@ class Network:
                 s.value = float(caps[s.junction])
 
     @property
+    def kernel_charge(self) -> bool:
+        """Whether the kernel integrates nonlinear junction charges (junction
+        charge storage on and some device has charges across its ports)."""
+        return self.charge and any(j.kernel for j in self.junctions)
+
+    @property
     def junction_states(self) -> bool:
         """Whether junction capacitances are states of the time-domain model."""
         return any(s.junction >= 0 for s in self.states)
@@ -604,11 +617,15 @@ def source_wave(el, step: float | None = None) -> tuple[int, np.ndarray]:
     return WAVE_CODES[kind], np.array(vals, dtype=np.float64)
 
 
-def device_arrays(net: Network):
+def device_arrays(net: Network, step: float | None = None):
     """Flat arrays describing the devices for the compiled kernel:
     (dcode, dpo, dnp, dpa, par, dqs) = type codes, port offsets, port counts,
     parameter offsets (n+1), the concatenated parameter vector and each
-    device's quiet step (see DeviceLayout.quiet_step)."""
+    device's quiet step (see DeviceLayout.quiet_step).  With the kernel's
+    time ``step`` (seconds) and junction charge storage on, the devices
+    with charges across their ports get 1/step in their CHARGE_SLOT (their
+    ``evaluate`` then includes the charge current); without, the laws are
+    the DC ones (the operating point's solver)."""
     dcode = np.array([lay.code for _, _, lay, _ in net.devices], dtype=np.int64)
     dpo = np.array([po for _, _, _, po in net.devices], dtype=np.int64)
     dnp = np.array([len(lay.ports) for _, _, lay, _ in net.devices], dtype=np.int64)
@@ -617,4 +634,8 @@ def device_arrays(net: Network):
     dpa[1:] = np.cumsum(sizes)
     par = np.concatenate([lay.par for _, _, lay, _ in net.devices]) if sizes else np.zeros(0)
     dqs = np.array([lay.quiet_step for _, _, lay, _ in net.devices], dtype=np.float64)
+    if step is not None and net.charge:
+        for d, (_el, mod, lay, _po) in enumerate(net.devices):
+            if any(lay.kernel_caps):
+                par[dpa[d] + mod.CHARGE_SLOT] = 1.0 / step
     return dcode, dpo, dnp, dpa, np.ascontiguousarray(par, dtype=np.float64), dqs

@@ -326,7 +326,7 @@ class Simulator:
         """The kernel's device arrays (mna.device_arrays) of the full lane,
         the reduced lane's (None without one) and the watched ports' dead
         zones."""
-        arr = device_arrays(self.net)
+        arr = device_arrays(self.net, self._T)
         if self._plan is None:
             return arr, None, None
         return (arr, dormant.reduce_devices(arr, self._plan),
@@ -337,6 +337,7 @@ class Simulator:
         (after a caller changed them in place, as a Monte Carlo trial does);
         not while another thread is inside :meth:`process_into`."""
         self._arr = self._arr_next = self._devices()
+        self._charge_history(self._lane)
 
     # ------------------------------------------------------------ state
     def _refresh_junctions(self, values: dict) -> None:
@@ -384,6 +385,7 @@ class Simulator:
             ws[:] = 0.0
             ws[KL.WS_MEM, KL.MEM_ATOL] = self.tolerance
             ws[KL.WS_MEM, KL.MEM_RTOL] = KL.RELTOL * self.tolerance / KL.ERR_TOL
+            ws[KL.WS_MEM, KL.MEM_CHARGE] = KL.CHARGE_ON if net.kernel_charge else 0.0
         self._fresh_lane(0)
         self._state[:] = 0
         self._lane = 0        # a reset starts on the full lane (dormant.py)
@@ -391,9 +393,21 @@ class Simulator:
         self._stats[:] = 0
         self._model = m
         self._arr = self._arr_next
+        self._charge_history(0)
         self._ydc = float(m.Dy[0] @ self._x + m.Ey[0] @ m.udc + m.Fy[0] @ self._i[:n]
                           + m.Vy[0] @ dc.v)
         self._rs.reset()
+
+    def _charge_history(self, lane: int) -> None:
+        """Have the lane's runner compute its charge history afresh at the
+        start of its next block (workspace row WS_QN: -q/T of each
+        charge-storing device at the lane's port voltages, with the device
+        parameters of that block; kernel_layout.MEM_CHARGE), where the
+        solver has no evaluation to continue: after a reset and after new
+        device parameters.  Compiled, on the audio thread, at no cost to
+        the thread that edits."""
+        if self.net.kernel_charge:
+            self._work[lane][3][KL.WS_MEM, KL.MEM_CHARGE] = KL.CHARGE_AFRESH
 
     def _fresh_lane(self, lane: int) -> None:
         """The lane's solver memory starts over from its port voltages v: no
@@ -431,12 +445,16 @@ class Simulator:
             fi[D] = -KL.PORT_G0 * w
             m = self._model
             fpp[:] = m.p0 + m.Pz @ self._z   # used only by a first-sample fallback
+            fq, rq = self._work[0][3][KL.WS_QN], rws[KL.WS_QN]
+            fq[A] = rq[:na]   # the charge history (dormant-capable ports have none)
+            fq[D] = 0.0
             self._lane = 0
         else:
             # full -> reduced after a committed sample
             rv[:na] = fv[A]
             ri[:na] = fi[A]
             rpp[:na] = fpp[A] - self._model.lanes[1].Rp @ fpp[D]
+            rws[KL.WS_QN, :na] = self._work[0][3][KL.WS_QN][A]
             self._lane = 1
         self._fresh_lane(self._lane)
         self._stats[KL.STAT_HANDOVER] += 1
@@ -524,6 +542,10 @@ class Simulator:
         a = self._arr_next
         if a is not self._arr:
             self._arr = a
+            # new device parameters (a temperature or supply edit): the
+            # charge history at the same voltages with the new laws, so the
+            # edit itself drives no charge current
+            self._charge_history(self._lane)
         m = self._next
         if m is not self._model:
             self._K.convert_states(self._x, self._xp, self._model.g, m.g, m.a, m.b)

@@ -5,7 +5,8 @@ from __future__ import annotations
 
 import math
 
-from solderless.engine.solver.kernel.dispatch import eval_ports_outlined, limit_moved
+from solderless.engine.solver.kernel.dispatch import (
+    charge_history, charge_ports, eval_ports_outlined, limit_moved)
 from solderless.engine.solver.kernel.jacobian import update_jacobian
 from solderless.engine.solver.kernel.linalg import gemv_inl
 from solderless.engine.solver.kernel.newton import (
@@ -13,11 +14,12 @@ from solderless.engine.solver.kernel.newton import (
 from solderless.engine.solver.kernel.params import MAXIT, kernel_jit
 from solderless.engine.solver.kernel.sources import load_sources
 from solderless.engine.solver.kernel_layout import (
-    MEM_REFACTOR, MEM_THETA, STAT_FACTOR, STAT_FALLBACK, STAT_ITERS, STAT_MAXIT, STAT_NONCONV,
-    STAT_PSEUDO, STAT_REDUCED, STAT_SAMPLES, STAT_UPDATE, STATE_DONE, STATE_HANDOVER, STATE_HARD,
-    STATE_INDEX, STATE_JI_OK, STATE_PHASE, STATE_QUIET, STATE_WATCH, WATCH_FULL, WATCH_HOLD,
-    WATCH_NONE, WATCH_REDUCED, WS_IEVAL, WS_LPREV, WS_MEM, WS_P, WS_PTMP, WS_STEP, WS_V2,
-    WS_VEVAL, WS_VNEW, WS_VPREV, WS_WATCH, WS_XT)
+    CHARGE_AFRESH, CHARGE_ON, MEM_CHARGE, MEM_REFACTOR, MEM_THETA, STAT_FACTOR,
+    STAT_FALLBACK, STAT_ITERS, STAT_MAXIT, STAT_NONCONV, STAT_PSEUDO, STAT_REDUCED,
+    STAT_SAMPLES, STAT_UPDATE, STATE_DONE, STATE_HANDOVER, STATE_HARD, STATE_INDEX,
+    STATE_JI_OK, STATE_PHASE, STATE_QUIET, STATE_WATCH, WATCH_FULL, WATCH_HOLD, WATCH_NONE,
+    WATCH_REDUCED, WS_IEVAL, WS_LPREV, WS_MEM, WS_P, WS_PTMP, WS_QN, WS_STEP, WS_V2, WS_VEVAL,
+    WS_VNEW, WS_VPREV, WS_WATCH, WS_XT)
 
 
 @kernel_jit(inline="always")
@@ -138,6 +140,15 @@ def solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, 
         v[r] = vprev[r]
     eval_ports_outlined(dcode, dpo, dnp, dpa, par, v, i, G, veval, ieval, mem)
     return False
+
+
+@kernel_jit(inline="always")
+def add_history(i, qn, n, sign):
+    """i[:n] += sign*qn[:n]: the devices' port currents to the circuit's
+    (with the charge currents' history, for the output and the state
+    update) and back."""
+    for r in range(n):
+        i[r] += sign * qn[r]
 
 
 @kernel_jit(inline="always")
@@ -295,6 +306,11 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     v2 = ws[WS_V2, :npt]
     veval = ws[WS_VEVAL, :npt]
     ieval = ws[WS_IEVAL, :npt]
+    qn = ws[WS_QN, :npt]
+    charged = ws[WS_MEM, MEM_CHARGE] != 0.0
+    if ws[WS_MEM, MEM_CHARGE] == CHARGE_AFRESH:
+        charge_ports(dcode, dpo, dpa, par, v, qn)
+        ws[WS_MEM, MEM_CHARGE] = CHARGE_ON
     frames = pstart
     state[STATE_HANDOVER] = 0
     for k in range(nin):
@@ -303,9 +319,16 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
             for r in range(npt):
                 p[r] = p0[r]
             gemv_inl(Pz, z, p, npt, nz)
+            if charged:
+                # backward Euler's charge current (q(v) - q_prev)/T: the
+                # devices' laws carry q(v)/T, the history -q_prev/T enters
+                # as a known current, v = (p + K qn) + K i(v)
+                gemv_inl(K, qn, p, npt, npt)
             solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
                         ptmp, state, stats, v2, veval, ieval, Ji, Gf, ws[WS_MEM], kc,
                         ws[WS_LPREV, :npt])
+            if charged:
+                add_history(i, qn, npt, 1.0)
         if (state[STATE_WATCH] != WATCH_NONE
                 and watch_stop(k, Wz, w0, Wk, wlim, z, i, ws[WS_WATCH], state, stats)):
             return frames - pstart
@@ -313,6 +336,9 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
             pprev[r] = p[r]
         frames = finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
                                z, xp, v, i, xt, yrow, state, stats)
+        if charged and npt > 0:
+            add_history(i, qn, npt, -1.0)
+            charge_history(dcode, dpo, dpa, par, v, qn)
         if watch_after(k, state):
             return frames - pstart
     state[STATE_DONE] = nin
@@ -342,6 +368,11 @@ def small_loop(m, io, model, watch, dev, src, work):
     ieval = ws[WS_IEVAL, :]
     mem = ws[WS_MEM]
     stol = newton_tol(mem)   # the tolerance is fixed for the block: one sqrt
+    qn = ws[WS_QN, :m]
+    charged = mem[MEM_CHARGE] != 0.0
+    if mem[MEM_CHARGE] == CHARGE_AFRESH:   # as run_block
+        charge_ports(dcode, dpo, dpa, par, v, qn)
+        mem[MEM_CHARGE] = CHARGE_ON
     frames = pstart
     state[STATE_HANDOVER] = 0
     for k in range(nin):
@@ -350,6 +381,9 @@ def small_loop(m, io, model, watch, dev, src, work):
             acc = p0[r]
             for c in range(nz):
                 acc += Pz[r, c] * z[c]
+            if charged:   # the charge currents' history (as run_block)
+                for c in range(m):
+                    acc += K[r, c] * qn[c]
             p[r] = acc
             vprev[r] = v[r]
         if state[STATE_JI_OK] == 1:
@@ -414,6 +448,8 @@ def small_loop(m, io, model, watch, dev, src, work):
             for r in range(m):
                 v[r] = vprev[r]
                 ptmp[r] = pprev[r] + (p[r] - pprev[r]) / nsub
+        if charged:
+            add_history(i, qn, m, 1.0)
         if (state[STATE_WATCH] != WATCH_NONE
                 and watch_stop(k, Wz, w0, Wk, wlim, z, i, ws[WS_WATCH], state, stats)):
             return frames - pstart
@@ -421,6 +457,9 @@ def small_loop(m, io, model, watch, dev, src, work):
             pprev[r] = p[r]
         frames = finish_sample(k, yout, pbuf, frames, pcap, pdec, Az, x0, C, Yz, y0, Fy, Vy,
                                z, xp, v, i, xt, yrow, state, stats)
+        if charged:
+            add_history(i, qn, m, -1.0)
+            charge_history(dcode, dpo, dpa, par, v, qn)
         if watch_after(k, state):
             return frames - pstart
     state[STATE_DONE] = nin
