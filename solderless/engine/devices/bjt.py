@@ -299,20 +299,7 @@ def _rbb_irb(ib, rbm, rbpi, irb):
 def _gummel_poon(par, pa, vbe, vbc, cbe, gbe, cbc, gbc):
     """Collector transport current (Ibe - Ibc)/qb, its derivatives w.r.t.
     Vbe and Vbc, qb and qb's derivatives (high injection IKF/IKR)."""
-    q1i = 1.0 - vbc * par[pa + 6] - vbe * par[pa + 7]
-    if q1i < 1e-3:
-        q1i = 1e-3
-    q1 = 1.0 / q1i
-    oik = par[pa + 14]
-    oikr = par[pa + 15]
-    q2 = oik * cbe + oikr * cbc
-    arg = 1.0 + 4.0 * q2
-    if arg < 0.0:
-        arg = 0.0
-    sq = math.sqrt(arg) if arg != 0.0 else 1.0
-    qb = q1 * (1.0 + sq) * 0.5
-    dqbdve = q1 * (qb * par[pa + 7] + oik * gbe / sq)
-    dqbdvc = q1 * (qb * par[pa + 6] + oikr * gbc / sq)
+    qb, dqbdve, dqbdvc = _base_charge(par, pa, vbe, vbc, cbe, gbe, cbc, gbc)
     rqb = 1.0 / qb
     d = cbe - cbc
     ict = d * rqb

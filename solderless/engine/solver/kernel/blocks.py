@@ -6,7 +6,7 @@ from __future__ import annotations
 import math
 
 from solderless.engine.solver.kernel.dispatch import (
-    charge_history, charge_ports, eval_ports_outlined, limit_moved)
+    charge_history, eval_ports_outlined, limit_moved)
 from solderless.engine.solver.kernel.jacobian import update_jacobian
 from solderless.engine.solver.kernel.linalg import gemv_inl
 from solderless.engine.solver.kernel.newton import (
@@ -309,7 +309,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     qn = ws[WS_QN, :npt]
     charged = ws[WS_MEM, MEM_CHARGE] != 0.0
     if ws[WS_MEM, MEM_CHARGE] == CHARGE_AFRESH:
-        charge_ports(dcode, dpo, dpa, par, v, qn)
+        charge_history(dcode, dpo, dpa, par, v, qn, True)
         ws[WS_MEM, MEM_CHARGE] = CHARGE_ON
     frames = pstart
     state[STATE_HANDOVER] = 0
@@ -338,7 +338,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
                                z, xp, v, i, xt, yrow, state, stats)
         if charged and npt > 0:
             add_history(i, qn, npt, -1.0)
-            charge_history(dcode, dpo, dpa, par, v, qn)
+            charge_history(dcode, dpo, dpa, par, v, qn, False)
         if watch_after(k, state):
             return frames - pstart
     state[STATE_DONE] = nin
@@ -371,7 +371,7 @@ def small_loop(m, io, model, watch, dev, src, work):
     qn = ws[WS_QN, :m]
     charged = mem[MEM_CHARGE] != 0.0
     if mem[MEM_CHARGE] == CHARGE_AFRESH:   # as run_block
-        charge_ports(dcode, dpo, dpa, par, v, qn)
+        charge_history(dcode, dpo, dpa, par, v, qn, True)
         mem[MEM_CHARGE] = CHARGE_ON
     frames = pstart
     state[STATE_HANDOVER] = 0
@@ -459,7 +459,7 @@ def small_loop(m, io, model, watch, dev, src, work):
                                z, xp, v, i, xt, yrow, state, stats)
         if charged:
             add_history(i, qn, m, -1.0)
-            charge_history(dcode, dpo, dpa, par, v, qn)
+            charge_history(dcode, dpo, dpa, par, v, qn, False)
         if watch_after(k, state):
             return frames - pstart
     state[STATE_DONE] = nin

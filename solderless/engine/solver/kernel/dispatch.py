@@ -94,40 +94,35 @@ def limit_one(c, par, pa, vn, vo, po):
 
 
 @kernel_jit()
-def charge_ports(dcode, dpo, dpa, par, v, q):
-    """Each charge-storing device's -q(v)/T per port into q, computed
-    afresh by its law (``charges``) at port voltages v: the runners' first
-    sample after a reset or new device parameters
-    (kernel_layout.CHARGE_AFRESH).  Ports of other devices are set to 0."""
-    for r in range(q.size):
-        q[r] = 0.0
-    for d in range(dcode.size):
-        c = dcode[d]
-        if c == bjt.CODE:
-            bjt.charges(par, dpa[d], v, dpo[d], q)
-        elif c == diode.CODE:
-            diode.charges(par, dpa[d], v, dpo[d], q)
-        elif c == jfet.CODE:
-            jfet.charges(par, dpa[d], v, dpo[d], q)
-
-
-@kernel_jit()
-def charge_history(dcode, dpo, dpa, par, v, q):
+def charge_history(dcode, dpo, dpa, par, v, q, afresh):
     """Each charge-storing device's -q(v)/T per port into q, at the
-    sample's solution v (its ``history``: the charge its last evaluation
-    computed, continued to v); the next sample takes them into p as the
-    charge currents' history.  Ports of other devices are left as they are
-    (zero).  Simulator computes the same afresh with each module's
-    ``charges`` where the solver has no evaluation to continue (reset,
-    lane handover, new device parameters)."""
+    sample's solution v; the next sample takes them into p as the charge
+    currents' history.  Per sample (afresh False) by its ``history``: the
+    charge its last evaluation computed, continued to v, so no second
+    evaluation.  Afresh (the runners' first sample after a reset or new
+    device parameters, kernel_layout.CHARGE_AFRESH: the solver has no
+    evaluation to continue) by its law, ``charges``, with every port of
+    other devices set to 0; otherwise those are left as they are (zero)."""
+    if afresh:
+        for r in range(q.size):
+            q[r] = 0.0
     for d in range(dcode.size):
         c = dcode[d]
         if c == bjt.CODE:
-            bjt.history(par, dpa[d], v, dpo[d], q)
+            if afresh:
+                bjt.charges(par, dpa[d], v, dpo[d], q)
+            else:
+                bjt.history(par, dpa[d], v, dpo[d], q)
         elif c == diode.CODE:
-            diode.history(par, dpa[d], v, dpo[d], q)
+            if afresh:
+                diode.charges(par, dpa[d], v, dpo[d], q)
+            else:
+                diode.history(par, dpa[d], v, dpo[d], q)
         elif c == jfet.CODE:
-            jfet.history(par, dpa[d], v, dpo[d], q)
+            if afresh:
+                jfet.charges(par, dpa[d], v, dpo[d], q)
+            else:
+                jfet.history(par, dpa[d], v, dpo[d], q)
 
 
 @kernel_jit()
