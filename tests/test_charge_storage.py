@@ -129,17 +129,21 @@ def test_mosfet_junction_geometry_is_simulated():
 
 def test_the_report_says_what_is_simulated():
     """The operating-point report says truthfully what happens to the
-    junction capacitances: the charges across the ports follow the signal,
-    the others are taken at the operating point (their change with signal
-    swing not simulated), or all are left out of renders when the circuit's
-    junction charge storage is off."""
+    junction capacitances: the charges follow the signal (every junction of
+    the 40 dB stage's BJT, the MOSFETs' bulk junctions), the constant gate
+    overlaps are linear capacitors, and with junction charge storage off
+    all are left out of renders."""
     from solderless.engine.solver.dcop import operating_point
     circ = S.engine_circuit("gp_ce40")
     circ.junction_charge = True
     on = [w for w in operating_point(circ).warnings if "junction" in w]
     assert len(on) == 1 and "Q1" in on[0]
-    assert "follow the signal" in on[0]        # B'-E', B'-C': the kernel's charges
-    assert "taken at the operating point" in on[0] and "not simulated" in on[0]  # B-C', C'-S
+    assert "follow the signal" in on[0] and "operating-point" not in on[0]
+    mos = [w for w in operating_point(S.engine_circuit("mosfet_stages")).warnings
+           if "junction" in w]
+    assert len(mos) == 1 and "follow the signal" in mos[0]
+    assert "linear capacitors at their operating-point values" in mos[0]
+    assert "overlaps" in mos[0]
     circ.junction_charge = False
     off = [w for w in operating_point(circ).warnings if "junction" in w]
     assert len(off) == 1 and "left out of renders" in off[0]
@@ -165,15 +169,17 @@ def _render(name, fs, duration, charge=True, cards=None):
                                      ("mosfet_stages", FS), ("ge_stage", FS),
                                      ("gp_fuzz", FS), ("gp_fuzz", 4 * FS)])
 def test_transient_with_charge_storage_matches_ngspice(name, fs, version):
-    """Renders with junction charge storage (the charges across diode and
-    BJT ports nonlinear, the other capacitances linear at the operating
-    point) within 1 % NRMSE of ngspice's transient at the same step
-    (ngspice integrates the nonlinear charges); and closer than the same
+    """Renders with junction charge storage (the junction charges
+    nonlinear, by BDF2; a MOSFET's constant overlaps linear) within 1 %
+    NRMSE of ngspice's transient at the same step (ngspice integrates the
+    nonlinear charges by the trapezoidal rule); and closer than the same
     render without them, so they are simulated.  Measured (48 kHz): 40 dB
-    stage 0.008 % (0.12 % without), JFET 0.10 % (0.52 %), MOSFET 0.04 %
-    (0.61 %), germanium 0.04 % (0.53 %); the clipping fuzz 0.44 % (0.47 %)
-    at 48 kHz and 0.07 % (0.35 %) at 192 kHz, where its swing in and out
-    of saturation is better resolved."""
+    stage 0.003 % (0.12 % without), JFET 0.10 % (0.52 %), MOSFET 0.04 %
+    (0.61 %), germanium 0.01 % (0.53 %); the clipping fuzz 0.07 % (0.34 %)
+    at 192 kHz.  At 48 kHz the fuzz's nanosecond charges are below what
+    the step resolves: against ngspice's error-controlled transient, ours
+    0.34 %, ngspice's own run at that step 0.37 %, no charge storage 0.27 %
+    (measured), so there only the 1 % bound is asserted."""
     cards = _cards(name)
     ref = S.run_tran(cards, 1.0 / fs, DURATION, fixed_step=True, nodes=("out",)).v["out"]
     on, lag = S.nrmse(ref, _render(name, fs, DURATION, True))
@@ -181,7 +187,8 @@ def test_transient_with_charge_storage_matches_ngspice(name, fs, version):
     print(f"{name} at {fs:g} Hz: NRMSE {on * 100:.3f} % with charge storage, "
           f"{off * 100:.3f} % without [{version}]")
     assert on < 0.01 and abs(lag) <= 1
-    assert on < off
+    if (name, fs) != ("gp_fuzz", FS):
+        assert on < off
 
 
 def _top_band_db(y, fs, lo=0.45):
@@ -198,8 +205,10 @@ def test_no_nyquist_ringing_from_stiff_junctions(version):
     the trapezoidal rule such a mode sits at z = -0.9996 and rings at
     Nyquist after every clipping edge (measured on the fuzz at 48 kHz:
     -43.8 dB of the output's energy above 0.45 fs against ngspice's
-    -48.7 dB); the junction states use backward Euler (mna.JUNCTION_METHOD)
-    and stay below ngspice there (measured -56.4 dB)."""
+    -48.7 dB); the junction charges integrate by BDF2 and the linear
+    junction states by backward Euler (mna.JUNCTION_METHOD), both of which
+    damp such a mode, and stay below ngspice there (measured -54.0 dB;
+    -56.3 dB with backward Euler for the charges too)."""
     dur = 0.05
     ref = S.run_tran(_cards("gp_fuzz"), 1.0 / FS, dur, fixed_step=True, nodes=("out",))
     ours = _top_band_db(_render("gp_fuzz", FS, dur), FS)
@@ -209,30 +218,29 @@ def test_no_nyquist_ringing_from_stiff_junctions(version):
 
 
 def test_live_edit_recomputes_the_junction_capacitances():
-    """The charges across the BJT's ports (B'-E', B'-C' and TF's
-    transcapacitance) are its own law's, not states; the two junctions off
-    its ports (B-C' with XCJC < 1 and a base resistance, C'-substrate) are
-    linear states, and after a value edit they take the capacitances at
-    the new operating point (as a simulator built with that value); with
-    junction charge storage off there are no junction states at all."""
+    """Every junction of the 40 dB stage's BJT (B'-E', B'-C', the external
+    B-C' share, C'-substrate and TF's transcapacitance) is its own law's
+    charge, not a state; the MOSFETs' constant gate overlaps are linear
+    states, and after a value edit they keep their values (the bulk
+    junctions are the law's); with junction charge storage off there are
+    no junction states at all."""
     from solderless.engine.solver import Simulator
-    circ = S.engine_circuit("gp_ce40")
-    sim = Simulator(circ, FS)
+    sim = Simulator(S.engine_circuit("gp_ce40"), FS)
     assert sim.net.kernel_charge
-    assert [j.kernel for j in sim.net.junctions] == [True, True, False, False, True]
-    js = [s for s in sim.net.states if s.junction >= 0]
-    assert [s.junction for s in js] == [2, 3]
+    assert [j.kernel for j in sim.net.junctions] == [True] * 5
+    assert not [s for s in sim.net.states if s.junction >= 0]
+    mos = Simulator(S.engine_circuit("mosfet_stages"), FS)
+    assert [j.kernel for j in mos.net.junctions] == [False, False, False, True,
+                                                     False, False, True, True]
+    js = [s for s in mos.net.states if s.junction >= 0]
     before = [s.value for s in js]
-    sim.set_values({"R2": 12e3})
-    after = [s.value for s in js]
-    fresh = S.engine_circuit("gp_ce40")
-    fresh.element("R2").value = 12e3
-    ref = [s.value for s in Simulator(fresh, FS).net.states if s.junction >= 0]
-    assert after == pytest.approx(ref, rel=1e-9)
-    assert abs(after[0] - before[0]) > 1e-4 * before[0]   # the bias moved CJC's share
-    off = S.engine_circuit("gp_ce40")
+    assert before == pytest.approx([200e-6 * 5e-8, 200e-6 * 1.5e-8, 2e-6 * 1e-9,
+                                    400e-6 * 3e-8, 400e-6 * 1e-8])  # W*CGSO ... (card)
+    mos.set_values({"RG2": 820e3})
+    assert [s.value for s in js] == before
+    off = S.engine_circuit("mosfet_stages")
     off.junction_charge = False
-    assert Simulator(off, FS).n_states == sim.n_states - 2
+    assert Simulator(off, FS).n_states == mos.n_states - len(js)
 
 
 @pytest.mark.parametrize("name", ["gp_ce40", "jfet_clip", "stored_charge/bjt_storage"])
@@ -290,6 +298,60 @@ def test_stored_charge_follows_the_signal_as_ngspice(name, version):
     assert on < 0.01 and abs(lag) <= 1
     assert on < theirs
     assert 5 * on < off
+
+
+#: DC-coupled stages whose collector and drains swing volts across large
+#: depletion capacitances (a BJT's external B-C' share and CJS with RB and
+#: RBM; MOSFET bulk junctions, bulk on the source and on ground), so that
+#: the charges' change with the swing shows
+SWING = ("stored_charge/bjt_outer_charge", "stored_charge/mosfet_bulk_charge")
+
+
+def _swing_nrmse(ref, y, fs):
+    """NRMSE of the swing about the operating point (the outputs are DC
+    coupled), after ngspice's first 0.5 ms (its first steps are shorter
+    than ours, whatever the step options)."""
+    return S.nrmse(ref - ref[0], y - ref[0], skip=int(0.0005 * fs))
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("name", SWING)
+def test_depletion_charges_follow_the_swing_as_ngspice(name, version, monkeypatch):
+    """The depletion charges of the junctions off a BJT's B'-E'/B'-C' ports
+    and of a MOSFET's bulk junctions are the device law's, integrated as
+    ngspice integrates them: against ngspice-39 with the same integration
+    rule and step (``method=gear maxord=2``: BDF2 at a fixed step) the
+    render agrees to within 0.05 % NRMSE of the swing, where the same
+    capacitances taken linear at the operating point (the previous method)
+    are ten times further off; against ngspice's error-controlled
+    transient (trapezoidal, maximum step 1/64 of ours) within 1 %.
+    Measured at 192 kHz: BJT 0.0009 % (linear, by backward Euler, 1.2 %),
+    0.018 %; MOSFET 0.007 % (3.4 %), 0.76 % (the charges by backward Euler,
+    the rule before BDF2, 3.4 %)."""
+    from solderless.engine.devices import bjt, mosfet
+    fs, dur = 192000.0, 0.003
+    cards = S.load_netlist(name)
+    acc = S.run_tran(cards, 1.0 / fs, dur, fixed_step=False, refine=64, nodes=("out",)).v["out"]
+    with monkeypatch.context() as m:
+        m.setattr(S, "OPTIONS", S.OPTIONS.replace("method=trap", "method=gear maxord=2"))
+        bdf2 = S.run_tran(cards, 1.0 / fs, dur, fixed_step=True, nodes=("out",)).v["out"]
+    y = _render(name, fs, dur, True, cards=cards)
+    for mod in (bjt, mosfet):
+        def linear(el, *a, _orig=mod.layout, **k):
+            lay = _orig(el, *a, **k)
+            lay.kernel_caps = [False] * len(lay.caps)
+            return lay
+        monkeypatch.setattr(mod, "layout", linear)
+    lin = _render(name, fs, dur, True, cards=cards)
+    same, lag = _swing_nrmse(bdf2, y, fs)
+    same_lin, _ = _swing_nrmse(bdf2, lin, fs)
+    exact, _ = _swing_nrmse(acc, y, fs)
+    print(f"{name}: NRMSE of the swing {same * 100:.4f} % against ngspice's BDF2 at the "
+          f"same step (linear at the operating point {same_lin * 100:.3f} %), "
+          f"{exact * 100:.3f} % against its error-controlled run [{version}]")
+    assert same < 5e-4 and lag == 0
+    assert same_lin > 10 * same
+    assert exact < 0.01
 
 
 @pytest.mark.ngspice

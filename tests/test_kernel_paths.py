@@ -20,9 +20,9 @@ from solderless.engine.solver import kernel as K
 
 FS = 48000.0
 TWO_PORT = ["diode_clipper", "npn_ce", "pnp_ce", "njfet_cs", "njfet_follower"]
-# three or four ports: a stage with base and emitter resistance (three), a
-# JFET stage into a diode clipper (four)
-FOUR_PORT = ["gp_ce40", "jfet_clip"]
+# four ports: an emitter-coupled Schmitt trigger (two BJTs), a JFET stage
+# into a diode clipper
+FOUR_PORT = ["schmitt_off", "jfet_clip"]
 
 
 def _run(name, path, tolerance=None, seconds=0.25):

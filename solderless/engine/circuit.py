@@ -127,8 +127,9 @@ class Circuit:
     #: with their junctions off
     nodeset: dict[str, float] = field(default_factory=dict)
     ic: dict[str, float] = field(default_factory=dict)
-    #: junction charge storage in the time domain (device capacitances as
-    #: linear capacitors taken at the operating point); False leaves them
+    #: junction charge storage in the time domain (the devices' junction
+    #: charges integrated as SPICE does, constant capacitances as linear
+    #: capacitors; DEVELOPERS.md, "Junction charge storage"); False leaves them
     #: out of renders and live play (the AC analysis always has them)
     junction_charge: bool = True
 

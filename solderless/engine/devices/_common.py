@@ -329,8 +329,8 @@ def depletion_charge(v, cz, pb, m, fc, f1, rf2):
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def keep_charge(par, k, v0, v1, q0, q1, c00, c01, c10, c11):
     """A two-port device's charge law at its last evaluation, kept in
-    par[k:k + 8] for :func:`charge_history`: the port voltages, q/T per
-    port and the charges' Jacobian over T."""
+    par[k:k + 8] for :func:`charge_history`: the port voltages, a0*q/T per
+    port and the charges' Jacobian times a0/T (a0 = kernel_layout.CHARGE_A0)."""
     par[k] = v0
     par[k + 1] = v1
     par[k + 2] = q0
@@ -343,10 +343,10 @@ def keep_charge(par, k, v0, v1, q0, q1, c00, c01, c10, c11):
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def charge_history(par, k, v, po, q):
-    """-q(v)/T per port of a two-port device into q[po], q[po + 1], from
+    """-a0*q(v)/T per port of a two-port device into q[po], q[po + 1], from
     the law kept by :func:`keep_charge`, continued to v to first order
     (the solver's own linearisation of the port currents there; the
-    second-order rest is below the solver's tolerance times C/T)."""
+    second-order rest is below the solver's tolerance times a0*C/T)."""
     d0 = v[po] - par[k]
     d1 = v[po + 1] - par[k + 1]
     q[po] = -(par[k + 2] + par[k + 4] * d0 + par[k + 5] * d1)

@@ -5,6 +5,9 @@ equations follow ngspice's bjtload.c/bjttemp.c).
 Ports: 0 = (B', E'), current = base current Ib; 1 = (C', E'), current =
 collector current Ic; with a current-dependent base resistance (RBM < RB or
 IRB given) a third port 2 = (B, B') carries the base current through it.
+Two more ports carry only charge when the card has it (no current at DC):
+(B, C') for the external share of CJC (XCJC < 1 with a base resistance)
+and (C', ground) for CJS.
 RC and RE, and a constant RB, are linear series resistors to internal nodes
 (as ngspice's internal collector, base and emitter nodes).
 
@@ -26,12 +29,12 @@ NC).  PNP: all signs flipped.
 
 Charge storage (ngspice bjtload.c's charge section: ``capacitances`` at an
 operating point for the AC analysis; in the time domain ``evaluate``
-integrates the charges across the ports, Qbe and Qbc, by backward Euler,
-and the external B-C' and substrate shares stay linear at the operating
-point): depletion capacitances CJE/VJE/MJE (B'-E'),
+integrates the charges across the ports, Qbe, Qbc, Qbx and Qcs, by
+BDF2, kernel_layout.CHARGE_A0): depletion capacitances CJE/VJE/MJE (B'-E'),
 CJC/VJC/MJC split by XCJC between the internal base (B'-C') and the
-external base (B-C'), CJS/VJS/MJS from C' to the substrate (ground), each
-linearised above FC*VJ; the forward diffusion capacitance TF*gbe with TF
+external base (B-C'), each linearised above FC*VJ, CJS/VJS/MJS from C'
+to the substrate (ground; ngspice's vertical geometry, linearised above
+0 V); the forward diffusion capacitance TF*gbe with TF
 modulated by XTF, VTF and ITF,
 
     TF' = TF*(1 + XTF*(Ibe/(Ibe + ITF))**2*exp(Vbc/(1.44*VTF))),
@@ -107,15 +110,21 @@ STANDARD = set(DEFAULTS) | set(IGNORED)
 # 43 set): 26 CJE(T), 27 VJE(T), 28 MJE, 29 CJC(T), 30 VJC(T),
 # 31 MJC, 32 XCJC, 33 CJS, 34 VJS, 35 MJS, 36 FC, 37 TF, 38 XTF,
 # 39 1/(1.44*VTF) (0: none), 40 ITF, 41 TR, 42 separate external base (1/0),
-# 43 1/T (the kernel's step; 0: no charge in ``evaluate``), 44 F1 and 45 1/F2
+# 43 a0/T (the kernel's step and rule, kernel_layout.CHARGE_A0; 0: no charge
+# in ``evaluate``), 44 F1 and 45 1/F2
 # of B'-E', 46 F1 and 47 1/F2 of B'-C' (depletion_consts), 48 the B'-C'
 # depletion capacitance across the ports (CJC*XCJC, all of CJC without a
 # separate external base); written by ``evaluate`` for ``history``: 49, 50
-# the port voltages, 51, 52 q/T per port, 53-56 the charges' 2 x 2
-# Jacobian over T there
-NPAR = 57
-#: par slot of the kernel's 1/T (charge storage in ``evaluate``)
+# the port voltages, 51, 52 a0*q/T per port, 53-56 the charges' 2 x 2
+# Jacobian over T there; the charge-only ports: 57, 58 the offsets from
+# port 0 of (B, C') and (C', ground) (0: no such port), 59 the external
+# share of CJC, CJC*(1 - XCJC); written by ``evaluate``: 60-62 (B, C')'s
+# voltage, a0*q/T and a0*C/T, 63-65 (C', ground)'s
+NPAR = 66
+#: par slot of the kernel's a0/T (charge storage in ``evaluate``)
 CHARGE_SLOT = 43
+#: par slot that is 1 when port 2 is the current-dependent base resistance
+RB_PORT = 22
 
 
 def params(el) -> tuple[dict, list]:
@@ -185,23 +194,27 @@ def layout(el, temp=None) -> DeviceLayout:
                     p["MJS"], fc, p["TF"], p["XTF"], ovtf, p["ITF"], p["TR"],
                     1.0 if bi != b else 0.0, 0.0,
                     *depletion_consts(vje, p["MJE"], fc), *depletion_consts(vjc, p["MJC"], fc),
-                    cjc * xcjc if bi != b else cjc, *([0.0] * 8)])
+                    cjc * xcjc if bi != b else cjc, *([0.0] * 8),
+                    0.0, 0.0, cjc * (1.0 - xcjc), *([0.0] * 6)])
+    assert par.size == NPAR
     ports = [(bi, ei), (ci, ei)]
     if nl_rb:
         ports.append((b, bi))
-    caps, kcaps = [], []
-    # the kernel integrates the charges across the ports (B'-E', B'-C' and
-    # the transcapacitance); B-C' and C'-substrate stay linear at the
-    # operating point
-    for on, ent, kern in ((cje > 0 or p["TF"] > 0, (bi, ei, bi, ei), True),
-                          (cjc * xcjc > 0 or p["TR"] > 0 or (cjc > 0 and bi == b),
-                           (bi, ci, bi, ci), True),
-                          (cjc * (1.0 - xcjc) > 0 and bi != b, (b, ci, b, ci), False),
-                          (p["CJS"] > 0, (ci, "0", ci, "0"), False),
-                          (p["TF"] > 0, (bi, ei, bi, ci), True)):
-        if on:
-            caps.append(ent)
-            kcaps.append(kern)
+    # the external B-C' share and CJS on ports of their own, which carry
+    # only their charges (none when the junction is shorted)
+    bx = cjc * (1.0 - xcjc) > 0 and bi != b and b != ci
+    cs = p["CJS"] > 0 and ci != "0"
+    if bx:
+        par[57] = len(ports)
+        ports.append((b, ci))
+    if cs:
+        par[58] = len(ports)
+        ports.append((ci, "0"))
+    caps = [ent for on, ent in ((cje > 0 or p["TF"] > 0, (bi, ei, bi, ei)),
+                                (cjc * xcjc > 0 or p["TR"] > 0 or (cjc > 0 and bi == b),
+                                 (bi, ci, bi, ci)),
+                                (bx, (b, ci, b, ci)), (cs, (ci, "0", ci, "0")),
+                                (p["TF"] > 0, (bi, ei, bi, ci))) if on]
     return DeviceLayout(CODE, ports, par, internal, stamps,
                         probes={"ib": ({0: 1.0}, {}), "ic": ({1: 1.0}, {}),
                                 "ie": ({0: -1.0, 1: -1.0}, {}),
@@ -209,7 +222,7 @@ def layout(el, temp=None) -> DeviceLayout:
                         # Vbe moves by the step, Vbc by at most twice it;
                         # pnjlim acts only on junction steps above 2*vt
                         quiet_step=min(vtf, vtr), ignored=notes, caps=caps,
-                        kernel_caps=kcaps)
+                        kernel_caps=[True] * len(caps))
 
 
 def capacitances(par, v, vc) -> np.ndarray:
@@ -272,10 +285,10 @@ def capacitances(par, v, vc) -> np.ndarray:
             capbc += depletion_cap(vbc, cjc * (1.0 - xcjc), vjc, mjc, fc)
         out.append(capbc)
         k += 1
-    if cjc * (1.0 - xcjc) > 0 and sep != 0.0:
+    if par[57] > 0:
         out.append(depletion_cap(pol * vc[k], cjc * (1.0 - xcjc), vjc, mjc, fc))
         k += 1
-    if cjs > 0:
+    if par[58] > 0:
         # ngspice's Vcs is substrate minus collector: reverse-biased when < 0
         out.append(depletion_cap(-pol * vc[k], cjs, vjs, mjs, 0.0))
         k += 1
@@ -348,17 +361,22 @@ def _charge(par, pa, vbe, vbc, cbe, gbe, cbc, gbc, qb, dqbdve, dqbdvc):
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def history(par, pa, v, po, q):
-    """-q(v)/T per port into q from the charges ``evaluate`` last computed,
+    """-a0*q(v)/T per port into q from the charges ``evaluate`` last computed,
     continued to v with their Jacobian (``_common.charge_history``)."""
     if par[pa + 43] != 0.0:
         charge_history(par, pa + 49, v, po, q)
+        for k in range(2):
+            off = int(par[pa + 57 + k])
+            if off > 0:
+                s = pa + 60 + 3 * k
+                q[po + off] = -(par[s + 1] + par[s + 2] * (v[po + off] - par[s]))
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def charges(par, pa, v, po, q):
-    """-q/T per port into q[po], q[po + 1] (Qbe + Qbc into B', -Qbc into
+    """-a0*q/T per port into q[po], q[po + 1] (Qbe + Qbc into B', -Qbc into
     C': :func:`_charge` at port voltages v), with which the next sample's
-    backward-Euler charge currents start; nothing when par[pa + 43] (1/T)
+    charge currents start; nothing when par[pa + 43] (a0/T)
     is 0."""
     it = par[pa + 43]
     if it == 0.0:
@@ -374,6 +392,25 @@ def charges(par, pa, v, po, q):
                                             qb, dqbdve, dqbdvc)
     q[po] = -it * pol * (qbe + qbc)
     q[po + 1] = it * pol * qbc
+    for k in range(2):
+        off = int(par[pa + 57 + k])
+        if off > 0:
+            qx, cx = _outer_charge(par, pa, k, pol * v[po + off])
+            q[po + off] = -it * pol * qx
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def _outer_charge(par, pa, k, vx):
+    """The charge and capacitance of a charge-only port at its folded
+    voltage vx (bjtload.c): k = 0 the external share of CJC across (B, C')
+    (qbx, capbx: CJC's grading and FC linearisation), k = 1 CJS across
+    (C', ground) (qsub, capsub: the substrate voltage is the negative of
+    the port's, linearised above 0 V, so F1 = 0 and F2 = 1)."""
+    if k == 0:
+        return depletion_charge(vx, par[pa + 59], par[pa + 30], par[pa + 31], par[pa + 36],
+                                par[pa + 46], par[pa + 47])
+    qs, cs = depletion_charge(-vx, par[pa + 33], par[pa + 34], par[pa + 35], 0.0, 0.0, 1.0)
+    return -qs, cs
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
@@ -450,26 +487,52 @@ def evaluate(par, pa, v, po, i, G):
     G[po + 1, po + 1] = -dic_dvbc
     it = par[pa + 43]
     if it != 0.0:
-        # charge storage: backward Euler's (q(v) - q_prev)/T per port (the
-        # kernel takes -q_prev/T into p, see ``charges``); Qbe + Qbc flow
+        # charge storage: a0*q(v)/T per port plus the history of earlier
+        # samples' charges, which the kernel takes into p (BDF2, see
+        # ``charges``); Qbe + Qbc flow
         # into B', -Qbc into C'
         if not hi:
             qb, dqbdve, dqbdvc = _base_charge(par, pa, vbe, vbc, cbe, gbe, cbc, gbc)
         qbe, qbc, capbe, capbc, geqcb = _charge(par, pa, vbe, vbc, cbe, gbe, cbc, gbc,
                                                 qb, dqbdve, dqbdvc)
-        q0 = pol * it * (qbe + qbc)
-        q1 = -pol * it * qbc
+        qn0 = pol * it * (qbe + qbc)
+        qn1 = -pol * it * qbc
         c00 = it * (capbe + geqcb + capbc)
         c01 = -it * (geqcb + capbc)
         c10 = -it * capbc
         c11 = it * capbc
-        i[po] += q0
-        i[po + 1] += q1
+        i[po] += qn0
+        i[po + 1] += qn1
         G[po, po] += c00
         G[po, po + 1] += c01
         G[po + 1, po] += c10
         G[po + 1, po + 1] += c11
-        keep_charge(par, pa + 49, v[po], v[po + 1], q0, q1, c00, c01, c10, c11)
+        keep_charge(par, pa + 49, v[po], v[po + 1], qn0, qn1, c00, c01, c10, c11)
+        for j in range(2):
+            off = int(par[pa + 57 + j])
+            if off > 0:
+                # a charge-only port: its charge current and nothing else
+                n = po + off
+                for r in range(n - po):
+                    G[n, po + r] = 0.0
+                    G[po + r, n] = 0.0
+                qx, cx = _outer_charge(par, pa, j, pol * v[n])
+                s = pa + 60 + 3 * j
+                par[s] = v[n]
+                par[s + 1] = pol * it * qx
+                par[s + 2] = it * cx
+                i[n] = par[s + 1]
+                G[n, n] = par[s + 2]
+    else:
+        for j in range(2):
+            off = int(par[pa + 57 + j])
+            if off > 0:
+                # no charge at DC: the port carries nothing
+                n = po + off
+                for r in range(n - po + 1):
+                    G[n, po + r] = 0.0
+                    G[po + r, n] = 0.0
+                i[n] = 0.0
     if par[pa + 22] > 0.0:
         # current-dependent base resistance between B and B'
         vbb = pol * v[po + 2]

@@ -7,7 +7,7 @@ breakdown at BV (current IBV there, emission coefficient NBV, default N),
 GMIN across the junction.  Temperature (ngspice diotemp.c, default law):
 VT = kT/q at the circuit temperature, IS(T) = IS*exp((T/TNOM - 1)*EG/(N*VT)
 + XTI/N*ln(T/TNOM)).  Charge storage (as dioload.c; ``capacitances`` at an
-operating point for the AC analysis, the charge itself by backward Euler in
+operating point for the AC analysis, the charge itself by BDF2 in
 the time domain, see ``evaluate`` and ``charges``): depletion capacitance
 CJO*(1 - v/VJ)**-M below FC*VJ, continued linearly above it, plus the
 diffusion charge TT*Id; CJO and VJ follow the default temperature law
@@ -31,7 +31,7 @@ from solderless.engine.devices.registry import DeviceKind
 KIND = "D"
 CODE = 1
 NPORTS = 1
-#: par slot of the kernel's 1/T (charge storage in ``evaluate``)
+#: par slot of the kernel's a0/T (charge storage in ``evaluate``)
 CHARGE_SLOT = 12
 #: the layout takes the circuit temperature (degrees Celsius)
 TEMPERATURE = True
@@ -71,9 +71,10 @@ STANDARD = set(DEFAULTS) | set(IGNORED)
 # par: 0 IS(T), 1 vte, 2 vcrit, 3 xbv (inf: no breakdown), 4 1/vte, 5 NBV*vt,
 # 6 1/(NBV*vt); charge storage (``capacitances`` at an operating point; the
 # kernel's nonlinear charge with slot 12 set): 7 CJO(T), 8 VJ(T), 9 M, 10 FC,
-# 11 TT, 12 1/T (the kernel's step; 0: no charge in ``evaluate``, as in the
+# 11 TT, 12 a0/T (the kernel's step and rule, kernel_layout.CHARGE_A0; 0: no
+# charge in ``evaluate``, as in the
 # operating point's solver), 13 F1, 14 1/F2 (depletion_consts); written by
-# ``evaluate`` for ``history``: 15 the port voltage, 16 q/T and 17 C/T there
+# ``evaluate`` for ``history``: 15 the port voltage, 16 a0*q/T and 17 a0*C/T there
 NPAR = 18
 
 
@@ -164,8 +165,8 @@ def evaluate(par, pa, v, po, i, G):
     g += GMIN
     it = par[pa + 12]
     if it != 0.0:
-        # charge storage: backward Euler's i = (q(v) - q_prev)/T; the kernel
-        # takes -q_prev/T into p (see ``charges``)
+        # charge storage: a0*q(v)/T; the history of earlier samples'
+        # charges (BDF2) the kernel takes into p (see ``charges``)
         qd, cd = depletion_charge(vd, par[pa + 7], par[pa + 8], par[pa + 9], par[pa + 10],
                                   par[pa + 13], par[pa + 14])
         tt = par[pa + 11]
@@ -182,7 +183,7 @@ def evaluate(par, pa, v, po, i, G):
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def history(par, pa, v, po, q):
-    """-q(v)/T into q[po] from the charge ``evaluate`` last computed,
+    """-a0*q(v)/T into q[po] from the charge ``evaluate`` last computed,
     continued to v with its capacitance (the solver's own linearisation
     of the port current there): the kernel's per-sample form of
     :func:`charges`, without a second evaluation."""
@@ -192,10 +193,9 @@ def history(par, pa, v, po, q):
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def charges(par, pa, v, po, q):
-    """-q(v)/T into q[po]: the junction's charge (depletion plus TT times
-    its current, dioload.c) over the kernel's step, with which the next
-    sample's backward-Euler charge current starts; nothing when par[pa + 12]
-    (1/T) is 0."""
+    """-a0*q(v)/T into q[po]: the junction's charge (depletion plus TT
+    times its current, dioload.c) over the kernel's step, from which the next
+    sample's charge current starts; nothing when par[pa + 12] (a0/T) is 0."""
     it = par[pa + 12]
     if it == 0.0:
         return

@@ -14,7 +14,7 @@ current.  Channel (normal mode, Vds >= 0, Vgst = Vgs - VTO):
 inverse mode (Vds < 0) by symmetry with Vgd.  Gate-source and gate-drain
 junctions follow the diode law with GMIN.  PJF: all signs flipped.
 Charge storage (as jfetload.c; ``capacitances`` at an operating point for
-the AC analysis, the gate charges by backward Euler in the time domain):
+the AC analysis, the gate charges by BDF2 in the time domain):
 gate-source CGS and gate-drain CGD depletion capacitances with grading 1/2,
 CGS*(1 - Vgs/PB)**-0.5, linearised above FC*PB (FC limited to 0.95);
 CGS, CGD and PB follow the default temperature law (jfettemp.c).
@@ -67,11 +67,11 @@ STANDARD = set(DEFAULTS) | set(IGNORED)
 # par: 0 pol, 1 VTO, 2 BETA, 3 LAMBDA, 4 IS(T), 5 vte, 6 vcrit, 7 1/vte, 8 B,
 # 9 (1 - B)/(PB - VTO); charge storage (``capacitances`` at an operating
 # point; the kernel's nonlinear charge with slot 14 set): 10 CGS(T),
-# 11 CGD(T), 12 PB(T), 13 FC, 14 1/T (the kernel's step; 0: no charge in
+# 11 CGD(T), 12 PB(T), 13 FC, 14 a0/T (the kernel's step and rule, kernel_layout.CHARGE_A0; 0: no charge in
 # ``evaluate``), 15 F1, 16 1/F2 (depletion_consts, grading 1/2); written by
-# ``evaluate`` for ``history``: 17, 18 the port voltages, 19, 20 q/T per
+# ``evaluate`` for ``history``: 17, 18 the port voltages, 19, 20 a0*q/T per
 # port and 21-24 the charges' 2 x 2 Jacobian over T there
-#: par slot of the kernel's 1/T (charge storage in ``evaluate``)
+#: par slot of the kernel's a0/T (charge storage in ``evaluate``)
 CHARGE_SLOT = 14
 
 
@@ -169,7 +169,7 @@ def _gate_charges(par, pa, vgs, vgd):
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
 def history(par, pa, v, po, q):
-    """-q(v)/T per port into q from the charges ``evaluate`` last computed,
+    """-a0*q(v)/T per port into q from the charges ``evaluate`` last computed,
     continued to v with their Jacobian (``_common.charge_history``)."""
     if par[pa + 14] != 0.0:
         charge_history(par, pa + 17, v, po, q)
@@ -177,9 +177,9 @@ def history(par, pa, v, po, q):
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def charges(par, pa, v, po, q):
-    """-q/T per port into q[po], q[po + 1] (Qgs + Qgd into the gate, -Qgd
-    into the drain), with which the next sample's backward-Euler charge
-    currents start; nothing when par[pa + 14] (1/T) is 0."""
+    """-a0*q/T per port into q[po], q[po + 1] (Qgs + Qgd into the gate,
+    -Qgd into the drain), from which the next sample's charge currents
+    start; nothing when par[pa + 14] (a0/T) is 0."""
     it = par[pa + 14]
     if it == 0.0:
         return
@@ -206,9 +206,9 @@ def evaluate(par, pa, v, po, i, G):
     ggd += GMIN
     it = par[pa + 14]
     if it != 0.0:
-        # gate charge storage: backward Euler's (q(v) - q_prev)/T, as the
-        # gate junctions' currents (the kernel takes -q_prev/T into p, see
-        # ``charges``)
+        # gate charge storage: a0*q(v)/T as the gate junctions' currents;
+        # the history of earlier samples' charges (BDF2) the kernel takes
+        # into p (see ``charges``)
         qgs, cgs, qgd, cgd = _gate_charges(par, pa, vgs, vgd)
         igs += it * qgs
         ggs += it * cgs

@@ -3,7 +3,7 @@
 level 1.
 
 Element nodes (d, g, s, b).  Ports: 0 = (G, S'), no current (the gate draws
-none at DC; its capacitances are not simulated); 1 = (D', S'), current = drain
+none at DC; its overlap capacitances are linear capacitors); 1 = (D', S'), current = drain
 current; 2 = (B, S'), current = bulk current, only when the bulk is not the
 source (a discrete part's bulk is its source: then two ports).  Channel
 (normal mode, Vds >= 0), beta = KP*W/(L - 2*LD):
@@ -18,13 +18,18 @@ SPICE3 does).  Inverse mode (Vds < 0) by symmetry with Vgd and Vbd.  The
 bulk-drain and bulk-source junctions (the body diode of a discrete part)
 follow the diode law with IS and GMIN.  PMOS: all signs flipped (VTO as
 written, negative for an enhancement PMOS).
-Charge storage (``capacitances``, at an operating point, as ngspice's
-level 1 with no TOX): the overlap capacitances CGSO*W, CGDO*W (gate to
-S', D') and CGBO*(L - 2*LD) (gate to bulk), and the bulk-drain and
-bulk-source junctions, CBD and CBS or else CJ*AD, CJ*AS with the sidewalls
-CJSW*PD, CJSW*PS (grading MJ, MJSW, potential PB, linearised above FC*PB);
-each times the multiplier M.  The intrinsic (Meyer) gate capacitance
-needs TOX, which is not simulated (named in the warnings).
+Charge storage, as ngspice's level 1 with no TOX (mos1load.c,
+mos1temp.c): the overlap capacitances CGSO*W, CGDO*W (gate to S', D') and
+CGBO*(L - 2*LD) (gate to bulk) are constant, so linear capacitors carry
+them exactly; the bulk-drain and bulk-source junctions, CBD and CBS or
+else CJ*AD, CJ*AS with the sidewalls CJSW*PD, CJSW*PS (grading MJ, MJSW,
+potential PB, linearised above FC*PB), each times the multiplier M, are
+charges across the ports that ``evaluate`` integrates by BDF2
+(``capacitances`` gives their values at an operating point for the AC
+analysis).  With the bulk on the source, the bulk-source junction is
+shorted and the bulk-drain junction lies across (D', S').  The intrinsic
+(Meyer) gate capacitance needs TOX, which is not simulated (named in the
+warnings).
 Reference: H. Shichman, D. A. Hodges, IEEE JSSC 3(3), 1968; the level-1
 equations of SPICE2 (L. W. Nagel, ERL-M520, 1975).
 """
@@ -35,8 +40,10 @@ import math
 import numpy as np
 from solderless.engine.lazyjit import njit  # numba on first need (lazyjit)
 
-from solderless.engine.devices._common import (GMIN, VT, DeviceLayout, depletion_cap, junction,
-                                    pnjlim, polarity, read_params, vcrit)
+from solderless.engine.devices._common import (GMIN, VT, DeviceLayout, charge_history,
+                                    depletion_cap, depletion_charge, depletion_consts,
+                                    junction, keep_charge, pnjlim, polarity, read_params,
+                                    vcrit)
 from solderless.engine.errors import DesignError
 from solderless.engine.analysis import regions
 from solderless.engine.devices.registry import DeviceKind
@@ -86,10 +93,20 @@ ALIASES = {"VT0": "VTO", "U0": "UO"}
 STANDARD = set(DEFAULTS) | set(IGNORED)
 # par: 0 pol, 1 pol*VTO, 2 beta, 3 LAMBDA, 4 GAMMA, 5 PHI, 6 sqrt(PHI), 7 IS,
 # 8 VT, 9 vcrit, 10 1/VT, 11 bulk port (1) or bulk = source (0); charge
-# storage (``capacitances``, not the kernel): 12 CGSO*W*M, 13 CGDO*W*M,
-# 14 CGBO*Leff*M, 15 bulk-drain bottom, 16 bulk-source bottom, 17 PB, 18 MJ,
+# storage: 12 CGSO*W*M, 13 CGDO*W*M, 14 CGBO*Leff*M (constant, linear
+# capacitors), 15 bulk-drain bottom, 16 bulk-source bottom, 17 PB, 18 MJ,
 # 19 bulk-drain sidewall, 20 bulk-source sidewall, 21 MJSW, 22 FC, 23 gate-bulk
-# entry (1/0), 24 bulk-source entry (1/0)
+# entry (1/0), 24 bulk-source entry (1/0); the kernel's bulk charges with
+# slot 25 set: 25 a0/T (the kernel's step and rule, kernel_layout.CHARGE_A0;
+# 0: no charge in ``evaluate``),
+# 26, 27 F1, 1/F2 of the bottom grading MJ, 28, 29 of the sidewall grading
+# MJSW (depletion_consts); written by ``evaluate`` for ``history``: 30-37
+# the two charge ports' voltages, a0*q/T and 2 x 2 Jacobian times a0/T (ports
+# (G, S'), (D', S') with the bulk on the source, else (D', S'), (B, S'))
+#: par slot of the kernel's a0/T (charge storage in ``evaluate``)
+CHARGE_SLOT = 25
+#: length of the parameter vector
+NPAR = 38
 
 
 def layout(el, temp=None) -> DeviceLayout:
@@ -142,17 +159,24 @@ def layout(el, temp=None) -> DeviceLayout:
                     0.0 if bulk_is_source else 1.0,
                     p["CGSO"] * p["W"] * m, p["CGDO"] * p["W"] * m, p["CGBO"] * leff * m,
                     czbd, czbs, p["PB"], p["MJ"], p["CJSW"] * p["PD"] * m,
-                    p["CJSW"] * p["PS"] * m, p["MJSW"], min(p["FC"], 0.95), 0.0, 0.0])
+                    p["CJSW"] * p["PS"] * m, p["MJSW"], min(p["FC"], 0.95), 0.0, 0.0, 0.0,
+                    *depletion_consts(p["PB"], p["MJ"], min(p["FC"], 0.95)),
+                    *depletion_consts(p["PB"], p["MJSW"], min(p["FC"], 0.95)),
+                    *([0.0] * 8)])
+    assert par.size == NPAR
     par[23] = 1.0 if par[14] > 0 and g != b else 0.0   # gate-bulk entry
     par[24] = 1.0 if par[16] + par[20] > 0 and b != s else 0.0  # bulk-source entry
-    caps = [ent for on, ent in ((par[12] > 0, (g, s, g, s)), (par[13] > 0, (g, d, g, d)),
-                                (par[23] > 0, (g, b, g, b)),
-                                (par[15] + par[19] > 0, (b, d, b, d)),
-                                (par[24] > 0, (b, s, b, s)))
-            if on]
+    # the constant overlaps are linear capacitors, the bulk junctions the
+    # kernel's charges across the ports
+    entries = [(on, ent, kern) for on, ent, kern in (
+        (par[12] > 0, (g, s, g, s), False), (par[13] > 0, (g, d, g, d), False),
+        (par[23] > 0, (g, b, g, b), False),
+        (par[15] + par[19] > 0, (b, d, b, d), True),
+        (par[24] > 0, (b, s, b, s), True)) if on]
     probes = {"id": ({1: 1.0}, {}), "vgs": ({}, {0: 1.0}), "vds": ({}, {1: 1.0})}
     return DeviceLayout(CODE, ports, par, internal, stamps, probes=probes,
-                        quiet_step=VT, ignored=notes, caps=caps)
+                        quiet_step=VT, ignored=notes, caps=[e[1] for e in entries],
+                        kernel_caps=[e[2] for e in entries])
 
 
 def capacitances(par, v, vc) -> np.ndarray:
@@ -249,6 +273,72 @@ def evaluate(par, pa, v, po, i, G):
         G[po + 2, po] = 0.0
         G[po + 2, po + 1] = -gbd
         G[po + 2, po + 2] = gbd + gbs
+    it = par[pa + 25]
+    if it != 0.0:
+        # bulk junction charges: a0*q(v)/T per port; the history of earlier
+        # samples' charges (BDF2) the kernel takes into p (see ``charges``);
+        # Qbd flows
+        # from the bulk into the drain, Qbs from the bulk into the source
+        qbd, capbd, qbs, capbs = _bulk_charges(par, pa, vbs, vbd, three)
+        qd = -pol * it * qbd
+        cbdt = it * capbd
+        i[po + 1] += qd
+        G[po + 1, po + 1] += cbdt
+        if three:
+            qb = pol * it * (qbd + qbs)
+            cbst = it * capbs
+            i[po + 2] += qb
+            G[po + 1, po + 2] -= cbdt
+            G[po + 2, po + 1] -= cbdt
+            G[po + 2, po + 2] += cbdt + cbst
+            keep_charge(par, pa + 30, v[po + 1], v[po + 2], qd, qb, cbdt, -cbdt, -cbdt,
+                        cbdt + cbst)
+        else:
+            keep_charge(par, pa + 30, v[po], v[po + 1], 0.0, qd, 0.0, 0.0, 0.0, cbdt)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def _bulk_charges(par, pa, vbs, vbd, three):
+    """Bulk-drain and bulk-source depletion charges and capacitances,
+    bottom plus sidewall (mos1load.c's qbd, capbd, qbs, capbs: the FC
+    linearisation with mos1temp.c's f2, f3, f4, which is the diode's
+    form); the bulk-source pair is 0 with the bulk on the source."""
+    pb, fc = par[pa + 17], par[pa + 22]
+    mj, mjsw = par[pa + 18], par[pa + 21]
+    q1, c1 = depletion_charge(vbd, par[pa + 15], pb, mj, fc, par[pa + 26], par[pa + 27])
+    q2, c2 = depletion_charge(vbd, par[pa + 19], pb, mjsw, fc, par[pa + 28], par[pa + 29])
+    if not three:
+        return q1 + q2, c1 + c2, 0.0, 0.0
+    q3, c3 = depletion_charge(vbs, par[pa + 16], pb, mj, fc, par[pa + 26], par[pa + 27])
+    q4, c4 = depletion_charge(vbs, par[pa + 20], pb, mjsw, fc, par[pa + 28], par[pa + 29])
+    return q1 + q2, c1 + c2, q3 + q4, c3 + c4
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")
+def history(par, pa, v, po, q):
+    """-a0*q(v)/T per port into q from the bulk charges ``evaluate`` last
+    computed, continued to v with their Jacobian
+    (``_common.charge_history``)."""
+    if par[pa + 25] != 0.0:
+        charge_history(par, pa + 30, v, po + 1 if par[pa + 11] > 0.0 else po, q)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def charges(par, pa, v, po, q):
+    """-a0*q/T per port into q (-Qbd into D', Qbd + Qbs into the bulk) at
+    port voltages v, from which the next sample's charge currents start;
+    nothing when par[pa + 25] (a0/T) is 0."""
+    it = par[pa + 25]
+    if it == 0.0:
+        return
+    pol = par[pa + 0]
+    three = par[pa + 11] > 0.0
+    vds = pol * v[po + 1]
+    vbs = pol * v[po + 2] if three else 0.0
+    qbd, capbd, qbs, capbs = _bulk_charges(par, pa, vbs, vbs - vds, three)
+    q[po + 1] = it * pol * qbd
+    if three:
+        q[po + 2] = -it * pol * (qbd + qbs)
 
 
 @njit(cache=True, nogil=True, error_model="numpy", _nrt=False, inline="always")

@@ -296,13 +296,13 @@ def report(net: Network, sol: DCSolution, values: dict[str, float]) -> Operating
 def charge_note(net: Network) -> str | None:
     """What the simulation does with the devices' junction capacitances
     (CJE, CJC, TF, CJO, TT, CGS, CGD, CGSO, CBD ...), or None when no
-    device has any: the charges across a diode's, a BJT's or a JFET's
-    ports are integrated nonlinearly, as SPICE does; the others (a BJT's
-    external base and substrate junctions, a MOSFET's capacitances) are
-    taken at the operating point as linear capacitors, so their change
-    with the signal's swing is not simulated; or, with junction charge
-    storage off, all are left out of renders (the AC analysis has them
-    either way)."""
+    device has any: the charges across a diode's, a BJT's, a JFET's ports
+    and a MOSFET's bulk junctions are integrated nonlinearly, as SPICE
+    does; the others (DeviceLayout.kernel_caps False: a MOSFET's constant
+    gate overlaps, or a device that gives only ``capacitances``) are
+    linear capacitors at their operating-point values; or, with junction
+    charge storage off, all are left out of renders (the AC analysis has
+    them either way)."""
     who = [el.name for el, _mod, lay, _po in net.devices if lay.caps]
     if not who:
         return None
@@ -320,10 +320,11 @@ def charge_note(net: Network) -> str | None:
         parts.append(f"the charges across the junctions of {listed(nonlin)} follow the "
                      "signal (nonlinear, as SPICE integrates them)")
     if linear:
-        parts.append(f"the other junction capacitances of {listed(linear)} are taken at the "
-                     "operating point (linear capacitors in renders and live play, "
-                     "recomputed after each edit); their change with signal swing is not "
-                     "simulated")
+        parts.append(f"the other capacitances of {listed(linear)} are linear capacitors at "
+                     "their operating-point values in renders and live play (recomputed "
+                     "after each edit): exact where they do not depend on the bias, as a "
+                     "MOSFET's gate overlaps; otherwise their change with signal swing is "
+                     "not simulated")
     return "junction charge storage: " + "; ".join(parts)
 
 

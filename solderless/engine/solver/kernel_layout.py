@@ -75,12 +75,15 @@ WS_VEVAL = 8      # persists: bypass memory, v at each port's last evaluation
 WS_IEVAL = 9      # persists: bypass memory, i at that evaluation
 WS_MEM = 10       # persists: the scalars MEM_* below
 WS_WATCH = 11     # out: the watched ports' voltages at the last solved sample
-WS_QN = 12        # persists: -q/T per port, the device charges at the last
-                  # sample's solution over the step (with MEM_CHARGE set:
-                  # the charge currents' history, taken into p; computed
-                  # afresh after a reset or a device edit, see MEM_CHARGE;
-                  # Simulator maps it across a lane handover)
-N_WS_ROWS = 13
+WS_QN = 12        # persists: the charge currents' history per port (with
+                  # MEM_CHARGE set), taken into p: BDF2's
+                  # -(4*q[n] - q[n-1])/(2T) from the device charges at the
+                  # last two samples' solutions (computed afresh after a
+                  # reset or a device edit, see MEM_CHARGE; Simulator maps
+                  # it across a lane handover)
+WS_QR = 13        # persists: -CHARGE_A0*q[n]/T per port at the last sample,
+                  # the older term of the next sample's history (as WS_QN)
+N_WS_ROWS = 14
 WS_MIN_COLS = 5   # row WS_MEM needs its MEM_* slots whatever the port count
 
 # --- slots of the workspace row ws[WS_MEM] (float) --------------------------
@@ -93,6 +96,11 @@ MEM_CHARGE = 4    # CHARGE_ON: devices integrate junction charges (row WS_QN
                   # afresh from v before its first sample (then CHARGE_ON)
 CHARGE_ON = 1.0
 CHARGE_AFRESH = 2.0
+#: the devices' charge laws integrate by BDF2 (the second-order backward
+#: differentiation formula, ngspice's ``method=gear maxord=2`` at a fixed
+#: step): i = (3 q[n] - 4 q[n-1] + q[n-2])/(2T); their CHARGE_SLOT holds
+#: CHARGE_A0/T, the coefficient of q[n]
+CHARGE_A0 = 1.5
 
 # --- slots of the solver state (int64) --------------------------------------
 STATE_INDEX = 0   # kernel samples since reset (a waveform's time is INDEX*dt)

@@ -29,8 +29,8 @@ import numpy as np
 from solderless.engine.circuit import GROUND, KIND_NODES, Circuit, canonical_net
 from solderless.engine.devices import REGISTRY
 from solderless.engine.errors import DesignError
-from solderless.engine.solver.kernel_layout import (WAVE_DC, WAVE_NOISE, WAVE_PULSE, WAVE_PWL,
-                                                    WAVE_SIN)
+from solderless.engine.solver.kernel_layout import (CHARGE_A0, WAVE_DC, WAVE_NOISE, WAVE_PULSE,
+                                                    WAVE_PWL, WAVE_SIN)
 from solderless.engine.unionfind import UnionFind
 
 VALUE_KINDS = {"R", "C", "L", "V", "I", "E", "G", "F", "H"}
@@ -623,7 +623,7 @@ def device_arrays(net: Network, step: float | None = None):
     parameter offsets (n+1), the concatenated parameter vector and each
     device's quiet step (see DeviceLayout.quiet_step).  With the kernel's
     time ``step`` (seconds) and junction charge storage on, the devices
-    with charges across their ports get 1/step in their CHARGE_SLOT (their
+    with junction charges get CHARGE_A0/step in their CHARGE_SLOT (their
     ``evaluate`` then includes the charge current); without, the laws are
     the DC ones (the operating point's solver)."""
     dcode = np.array([lay.code for _, _, lay, _ in net.devices], dtype=np.int64)
@@ -637,5 +637,5 @@ def device_arrays(net: Network, step: float | None = None):
     if step is not None and net.charge:
         for d, (_el, mod, lay, _po) in enumerate(net.devices):
             if any(lay.kernel_caps):
-                par[dpa[d] + mod.CHARGE_SLOT] = 1.0 / step
+                par[dpa[d] + mod.CHARGE_SLOT] = CHARGE_A0 / step
     return dcode, dpo, dnp, dpa, np.ascontiguousarray(par, dtype=np.float64), dqs

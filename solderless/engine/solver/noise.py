@@ -133,7 +133,7 @@ def noise_sources(net, dc, values: dict | None = None) -> NoiseSources:
             (bi, ei), (ci, _) = ports[0], ports[1]
             out.append(NoiseSource(f"{el.name}.ib", el.name, SHOT, bi, ei, white=shot_psd(i[0])))
             out.append(NoiseSource(f"{el.name}.ic", el.name, SHOT, ci, ei, white=shot_psd(i[1])))
-            if len(ports) > 2:  # current-dependent base resistance: rbb = v/i
+            if lay.par[mod.RB_PORT] > 0:  # current-dependent base resistance: rbb = v/i
                 rbb = v[2] / i[2] if i[2] != 0 else 0.0
                 if not rbb > 0:
                     rbb = _param(el, "RB", 0.0)

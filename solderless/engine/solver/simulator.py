@@ -400,9 +400,10 @@ class Simulator:
 
     def _charge_history(self, lane: int) -> None:
         """Have the lane's runner compute its charge history afresh at the
-        start of its next block (workspace row WS_QN: -q/T of each
-        charge-storing device at the lane's port voltages, with the device
-        parameters of that block; kernel_layout.MEM_CHARGE), where the
+        start of its next block (workspace rows WS_QN, WS_QR: the charge
+        history of each charge-storing device, taken at rest at the lane's
+        port voltages, with the device parameters of that block;
+        kernel_layout.MEM_CHARGE), where the
         solver has no evaluation to continue: after a reset and after new
         device parameters.  Compiled, on the audio thread, at no cost to
         the thread that edits."""
@@ -445,16 +446,18 @@ class Simulator:
             fi[D] = -KL.PORT_G0 * w
             m = self._model
             fpp[:] = m.p0 + m.Pz @ self._z   # used only by a first-sample fallback
-            fq, rq = self._work[0][3][KL.WS_QN], rws[KL.WS_QN]
-            fq[A] = rq[:na]   # the charge history (dormant-capable ports have none)
-            fq[D] = 0.0
+            for row in (KL.WS_QN, KL.WS_QR):   # the charge history (dormant-capable
+                fq, rq = self._work[0][3][row], rws[row]   # ports have none)
+                fq[A] = rq[:na]
+                fq[D] = 0.0
             self._lane = 0
         else:
             # full -> reduced after a committed sample
             rv[:na] = fv[A]
             ri[:na] = fi[A]
             rpp[:na] = fpp[A] - self._model.lanes[1].Rp @ fpp[D]
-            rws[KL.WS_QN, :na] = self._work[0][3][KL.WS_QN][A]
+            for row in (KL.WS_QN, KL.WS_QR):
+                rws[row, :na] = self._work[0][3][row][A]
             self._lane = 1
         self._fresh_lane(self._lane)
         self._stats[KL.STAT_HANDOVER] += 1

@@ -18,8 +18,8 @@ from solderless.engine.solver.kernel_layout import (
     STAT_FALLBACK, STAT_ITERS, STAT_MAXIT, STAT_NONCONV, STAT_PSEUDO, STAT_REDUCED,
     STAT_SAMPLES, STAT_UPDATE, STATE_DONE, STATE_HANDOVER, STATE_HARD, STATE_INDEX,
     STATE_JI_OK, STATE_PHASE, STATE_QUIET, STATE_WATCH, WATCH_FULL, WATCH_HOLD, WATCH_NONE,
-    WATCH_REDUCED, WS_IEVAL, WS_LPREV, WS_MEM, WS_P, WS_PTMP, WS_QN, WS_STEP, WS_V2, WS_VEVAL,
-    WS_VNEW, WS_VPREV, WS_WATCH, WS_XT)
+    WATCH_REDUCED, WS_IEVAL, WS_LPREV, WS_MEM, WS_P, WS_PTMP, WS_QN, WS_QR, WS_STEP, WS_V2,
+    WS_VEVAL, WS_VNEW, WS_VPREV, WS_WATCH, WS_XT)
 
 
 @kernel_jit(inline="always")
@@ -307,9 +307,10 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
     veval = ws[WS_VEVAL, :npt]
     ieval = ws[WS_IEVAL, :npt]
     qn = ws[WS_QN, :npt]
+    qr = ws[WS_QR, :npt]
     charged = ws[WS_MEM, MEM_CHARGE] != 0.0
     if ws[WS_MEM, MEM_CHARGE] == CHARGE_AFRESH:
-        charge_history(dcode, dpo, dpa, par, v, qn, True)
+        charge_history(dcode, dpo, dpa, par, v, qn, qr, True)
         ws[WS_MEM, MEM_CHARGE] = CHARGE_ON
     frames = pstart
     state[STATE_HANDOVER] = 0
@@ -320,9 +321,9 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
                 p[r] = p0[r]
             gemv_inl(Pz, z, p, npt, nz)
             if charged:
-                # backward Euler's charge current (q(v) - q_prev)/T: the
-                # devices' laws carry q(v)/T, the history -q_prev/T enters
-                # as a known current, v = (p + K qn) + K i(v)
+                # BDF2's charge current (3 q(v) - 4 q[n-1] + q[n-2])/(2T):
+                # the devices' laws carry 3 q(v)/(2T), the history enters
+                # as a known current qn, v = (p + K qn) + K i(v)
                 gemv_inl(K, qn, p, npt, npt)
             solve_ports(p, pprev, v, vprev, K, dcode, dpo, dnp, dpa, par, dqs, i, G, J, F, vn,
                         ptmp, state, stats, v2, veval, ieval, Ji, Gf, ws[WS_MEM], kc,
@@ -338,7 +339,7 @@ def run_block(xin, nin, yout, pbuf, pstart, pcap, pdec,
                                z, xp, v, i, xt, yrow, state, stats)
         if charged and npt > 0:
             add_history(i, qn, npt, -1.0)
-            charge_history(dcode, dpo, dpa, par, v, qn, False)
+            charge_history(dcode, dpo, dpa, par, v, qn, qr, False)
         if watch_after(k, state):
             return frames - pstart
     state[STATE_DONE] = nin
@@ -369,9 +370,10 @@ def small_loop(m, io, model, watch, dev, src, work):
     mem = ws[WS_MEM]
     stol = newton_tol(mem)   # the tolerance is fixed for the block: one sqrt
     qn = ws[WS_QN, :m]
+    qr = ws[WS_QR, :m]
     charged = mem[MEM_CHARGE] != 0.0
     if mem[MEM_CHARGE] == CHARGE_AFRESH:   # as run_block
-        charge_history(dcode, dpo, dpa, par, v, qn, True)
+        charge_history(dcode, dpo, dpa, par, v, qn, qr, True)
         mem[MEM_CHARGE] = CHARGE_ON
     frames = pstart
     state[STATE_HANDOVER] = 0
@@ -459,7 +461,7 @@ def small_loop(m, io, model, watch, dev, src, work):
                                z, xp, v, i, xt, yrow, state, stats)
         if charged:
             add_history(i, qn, m, -1.0)
-            charge_history(dcode, dpo, dpa, par, v, qn, False)
+            charge_history(dcode, dpo, dpa, par, v, qn, qr, False)
         if watch_after(k, state):
             return frames - pstart
     state[STATE_DONE] = nin

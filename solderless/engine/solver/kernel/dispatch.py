@@ -94,7 +94,7 @@ def limit_one(c, par, pa, vn, vo, po):
 
 
 @kernel_jit()
-def charge_history(dcode, dpo, dpa, par, v, q, afresh):
+def charge_history(dcode, dpo, dpa, par, v, q, qr, afresh):
     """Each charge-storing device's -q(v)/T per port into q, at the
     sample's solution v; the next sample takes them into p as the charge
     currents' history.  Per sample (afresh False) by its ``history``: the
@@ -123,6 +123,19 @@ def charge_history(dcode, dpo, dpa, par, v, q, afresh):
                 jfet.charges(par, dpa[d], v, dpo[d], q)
             else:
                 jfet.history(par, dpa[d], v, dpo[d], q)
+        elif c == mosfet.CODE:
+            if afresh:
+                mosfet.charges(par, dpa[d], v, dpo[d], q)
+            else:
+                mosfet.history(par, dpa[d], v, dpo[d], q)
+    # BDF2's history from the two last samples' r = -a0*q/T (qr: the older;
+    # afresh, the circuit is taken at rest, so both are the same)
+    for r in range(q.size):
+        rn = q[r]
+        if afresh:
+            qr[r] = rn
+        q[r] = (4.0 * rn - qr[r]) * (1.0 / 3.0)
+        qr[r] = rn
 
 
 @kernel_jit()
