@@ -168,35 +168,37 @@ def test_chained_updates_stay_exact():
     assert stats[L.STAT_FACTOR] >= 3       # the first, then one every UPDATE_CHAIN
 
 
-def test_partial_update_takes_the_most_moved_devices_and_stays_exact():
-    # more ports moved than an update takes: the partial form (the chord
-    # refresh's) updates the devices that moved most, keeps the others' old
-    # blocks, and its inverse is exactly LAPACK's for that mixed G
+def _partial_case(seed, movers):
+    """A factored 16-port system whose ``movers(dnp)`` devices then move by
+    growing factors (the e-th of them by 0.01 * 2**e); returns what the
+    partial update needs and the moved devices' scores as
+    :func:`jacobian_drift`'s docstring defines them."""
     n = 16
-    Km, G, dcode, dpo, dnp = _system(n, 11)
+    Km, G, dcode, dpo, dnp = _system(n, seed)
     Ks, Gf, scratch, Ji, state, stats, kc = _factored(Km, G, dcode, dpo, dnp)
     G0 = G.copy()
-    rng = np.random.default_rng(11)
-    # every device moves, by a growing factor (device e by 0.01 * 2**e)
+    rng = np.random.default_rng(seed)
     G2 = G.copy()
-    nd = len(dpo)
-    for e in range(nd):
-        po, m = dpo[e], dnp[e]
+    moved = movers(dnp)
+    for e, d in enumerate(moved):
+        po, m = dpo[d], dnp[d]
         G2[po:po + m, po:po + m] *= 1.0 + 0.01 * 2.0 ** e * rng.choice([-1.0, 1.0], (m, m))
-    # each device's score as jacobian_drift defines it (docstring formula)
-    def score(e):
-        po, m = dpo[e], dnp[e]
+
+    def score(d):
+        po, m = dpo[d], dnp[d]
         w = kc[po:po + m, None]
         g, f = G2[po:po + m, po:po + m], G0[po:po + m, po:po + m]
         return (w * np.abs(g - f)).sum() / (1.0 + (w * np.maximum(np.abs(g), np.abs(f))).sum())
-    kmax = min(L.UPDATE_PORTS, n // 2)
-    expect = []
-    k = 0
-    for e in sorted(range(nd), key=score, reverse=True):
-        if k + dnp[e] <= kmax:
-            expect.append(e)
-            k += dnp[e]
-    assert sum(dnp) > kmax and expect
+    return (Km, G0, G2, dcode, dpo, dnp, Ks, Gf, scratch, Ji, state, stats, kc,
+            {d: score(d) for d in moved})
+
+
+def _check_partial(case, expect):
+    """The partial update of ``case`` updates exactly the devices
+    ``expect`` (one low-rank update, no factorisation) and its inverse is
+    LAPACK's for that mixed G."""
+    Km, G0, G2, dcode, dpo, dnp, Ks, Gf, scratch, Ji, state, stats, kc, _ = case
+    n = G0.shape[0]
     assert K.update_jacobian(Ks, G2, Gf, scratch, Ji, dcode, dpo, dnp, kc, state, stats,
                              True)
     assert stats[L.STAT_UPDATE] == 1 and stats[L.STAT_FACTOR] == 1
@@ -207,10 +209,34 @@ def test_partial_update_takes_the_most_moved_devices_and_stays_exact():
     assert np.array_equal(Gf, mixed)
     ref_inv = np.linalg.inv(np.eye(n) - Km @ mixed)
     assert np.allclose(Ji, ref_inv, rtol=1e-9, atol=1e-10 * np.abs(ref_inv).max())
-    # the same change through Newton's (exact) form is a factorisation
-    Ks, Gf, scratch, Ji, state, stats, kc = _factored(Km, G0, dcode, dpo, dnp)
-    assert K.update_jacobian(Ks, G2, Gf, scratch, Ji, dcode, dpo, dnp, kc, state, stats,
-                             False)
-    assert stats[L.STAT_UPDATE] == 0 and stats[L.STAT_FACTOR] == 2
-    assert np.allclose(Ji, np.linalg.inv(np.eye(n) - Km @ G2), rtol=1e-9,
-                       atol=1e-10 * np.abs(Ji).max())
+
+
+def test_partial_update_of_multi_port_devices_takes_the_most_moved():
+    # only devices of two or more ports move, more ports than an update
+    # takes: the partial form (the chord refresh's) updates the devices
+    # that moved most, keeps the others' old blocks, and its inverse is
+    # exactly LAPACK's for that mixed G
+    case = _partial_case(11, lambda dnp: [d for d in range(dnp.size) if dnp[d] > 1])
+    dnp, scores = case[5], case[-1]
+    kmax = min(L.UPDATE_PORTS, 16 // 2)
+    expect = []
+    k = 0
+    for e in sorted(scores, key=scores.get, reverse=True):
+        if k + dnp[e] <= kmax:
+            expect.append(e)
+            k += dnp[e]
+    assert sum(dnp[d] for d in scores) > kmax and len(expect) >= 2
+    _check_partial(case, expect)
+
+
+def test_partial_update_with_a_moved_one_port_device_takes_only_it():
+    # every device moves: where a one-port device (a switching diode, an
+    # op-amp clamp) moved, the refresh is the rank-one update of the one
+    # that moved most, even where a multi-port device scores higher
+    # (one-port devices first in the list, so the multi-port ones move most)
+    case = _partial_case(11, lambda dnp: sorted(range(dnp.size), key=lambda d: dnp[d]))
+    dnp, scores = case[5], case[-1]
+    ones = [d for d in scores if dnp[d] == 1]
+    assert len(ones) >= 2 and max(scores, key=scores.get) not in ones
+    _check_partial(case, [max(ones, key=scores.get)])
+

@@ -93,18 +93,29 @@ def update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, state, stats, partial)
     UPDATE_CHAIN updates, when more ports moved, or when the small system
     is near-singular, J is refactored instead (:func:`factor_jacobian`).
 
-    ``partial``: when more ports moved, take the devices that moved most
-    (by their scores, largest first) up to the update's size and keep the
-    others' old blocks instead of refactoring.  Ji is then the exact
-    inverse of I - K Gf for the mixed Gf, and the drift and contraction
-    checks measure against that, so this serves the chord iterations'
-    refresh at a sample's start (solve_ports), not Newton's steps, whose
-    stopping rule needs the exact Jacobian.  On feedforward, where two
-    transistors, the OTA and a detector diode move with the signal, that
-    refresh was a full factorisation on 0.24 of all samples; with this it
-    is an update, with the same iterations per sample (1.84) and 7-9 % less
-    time per sample (the demo phrase through both kernels, the runs
-    interleaved).
+    ``partial``: the chord iterations' refresh at a sample's start
+    (solve_ports), not Newton's steps, whose stopping rule needs the exact
+    Jacobian.  It updates some of the moved devices and keeps the others'
+    old blocks instead of refactoring; Ji is then the exact inverse of
+    I - K Gf for the mixed Gf, and the drift and contraction checks measure
+    against that.  Which devices: when one-port devices moved (junction
+    diodes, op-amp output clamps: the parts that switch, whose one
+    conductance changes by orders of magnitude where a transistor's blocks
+    in its active region change by a fraction), only the one that moved
+    most, a rank-one update (Sherman-Morrison: about 2 n^2 multiply-adds,
+    one chord step's linear algebra); otherwise the devices that moved most
+    (by their scores, largest first) up to the update's size.
+    Measured on the demo phrase against taking every moved device up to
+    the update's size (the two kernels' runs interleaved, best of each):
+    feedforward (two transistors, the OTA and three detector diodes move
+    with the signal) the same iterations per sample (1.86 against 1.83)
+    in 7-20 % less CPU time, the flagship 5-15 % less, overdrive about
+    5 %; circuits where only transistors move (the fuzz, MOSFET and
+    discrete amplifier netlists) take the same path as before.  Refreshing the
+    transistors too on feedforward cost more than it saved (their blocks,
+    taken at a predicted point, made no fewer iterations); before partial
+    refreshes existed this refresh was a full factorisation on 0.24 of
+    feedforward's samples.
 
     K has K^T stacked below it (rows n ... 2n-1, statespace.derive), so a
     column of K is read as a contiguous row.  Workspace: rows n+1 ... of J
@@ -125,11 +136,20 @@ def update_jacobian(K, G, Gf, J, Ji, dcode, dpo, dnp, kc, state, stats, partial)
     if partial:
         # scores of the moved devices (-1: not moved) in the free second
         # half of the scratch's last row (devices <= ports); then the
-        # largest that still fit, one at a time
+        # largest that still fit, one at a time (one port in all when a
+        # one-port device moved)
         sc = J[n + 1 + 2 * UPDATE_PORTS, n:]
+        ones = False
         for d in range(dcode.size):
             num, den = drift_terms(G, Gf, dpo[d], dnp[d], kc)
-            sc[d] = num / den if num > DRIFT_UPDATE * den else -1.0
+            if num > DRIFT_UPDATE * den:
+                sc[d] = num / den
+                if dnp[d] == 1:
+                    ones = True
+            else:
+                sc[d] = -1.0
+        if ones:
+            kmax = 1     # the one-port device that moved most, alone
         while True:
             best = -1
             top = 0.0
