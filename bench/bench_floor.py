@@ -14,6 +14,11 @@ built-in design, at 48 kHz, oversampling 1:
   test, no refactorisation.  The devices are evaluated on the full run's own
   solution, recorded sample by sample, so the exponentials see the voltages
   they see in the full run; the numbers this loop computes are not used.
+* silent: the full solver on a silent input of the same length (best of
+  ``--repeat``): one chord iteration per sample with every device bypassed,
+  so what is left is the solver's own fixed cost per sample (predictor,
+  products, bypass and limit checks, convergence test, state update, charge
+  history), without the device evaluations the floor has.
 * budget: for the ngspice netlists, ngspice's time per step (from
   bench/results/vs_ngspice.json, same step) divided by the 25x target, i.e.
   what one sample may cost for the target to hold.
@@ -118,9 +123,17 @@ def measure(name: str, make, x: np.ndarray, repeat: int) -> dict:
         full = min(full, time.perf_counter() - t0)
     stats = sim.stats
     n = x.size
+    silent = np.inf
+    quiet = np.zeros_like(x)
+    for _ in range(repeat):
+        sim_q = make()
+        t0 = time.perf_counter()
+        sim_q.process(quiet)
+        silent = min(silent, time.perf_counter() - t0)
     row = {"name": name, "ports": sim.n_ports, "padded_ports": sim._v.size,
            "states": sim.n_states, "devices": int(sim._arr[0][0].size),
-           "full_ns_per_sample": full / n * 1e9, "floor_ns_per_sample": None,
+           "full_ns_per_sample": full / n * 1e9, "silent_ns_per_sample": silent / n * 1e9,
+           "silent_iterations": sim_q.stats["mean_iterations"], "floor_ns_per_sample": None,
            "full_over_floor": None, "mean_iterations": stats["mean_iterations"],
            "factorizations_per_sample": stats["factorizations"] / max(1, stats["samples"]),
            "updates_per_sample": stats["jacobian_updates"] / max(1, stats["samples"])}
@@ -172,7 +185,8 @@ def main(argv=None) -> int:
     for name, path in sorted(builtin_designs().items()):
         circ = load_design(path).flatten()
         rows.append(measure(name, lambda c=circ: Simulator(c, FS, dormant_ports=False), phrase, a.repeat))
-    hdr = (f"{'circuit':26s} {'ports':>5s} {'dev':>3s} {'full ns':>8s} {'floor ns':>8s} "
+    hdr = (f"{'circuit':26s} {'ports':>5s} {'dev':>3s} {'full ns':>8s} {'silent ns':>9s} "
+           f"{'floor ns':>8s} "
            f"{'full/floor':>10s} {'it/sample':>9s} {'budget ns':>9s}")
     print(f"ns per sample at {FS:g} Hz, oversampling 1, best of {a.repeat}")
     print(hdr)
@@ -183,10 +197,12 @@ def main(argv=None) -> int:
         floor_cols = (f"{fl:8.0f} {r['full_over_floor']:10.2f}" if fl is not None
                       else f"{'lean' if r['ports'] else 'linear':>8s} {'':>10s}")
         print(f"{r['name']:26s} {r['ports']:5d} {r['devices']:3d} "
-              f"{r['full_ns_per_sample']:8.0f} {floor_cols} {r['mean_iterations']:9.3f} "
+              f"{r['full_ns_per_sample']:8.0f} {r['silent_ns_per_sample']:9.0f} {floor_cols} "
+              f"{r['mean_iterations']:9.3f} "
               f"{'' if b is None else f'{b:9.0f}'}")
     print("floor: the general kernel's own pieces, one device evaluation and the "
-          "products per sample, nothing else;\n'lean': a circuit of at most "
+          "products per sample, nothing else;\nsilent: the full solver on silence "
+          "(every device bypassed, one iteration per sample);\n'lean': a circuit of at most "
           f"{K.SMALL_PORTS} ports runs the inlined two-port path, not these pieces; "
           "'linear': no nonlinear ports; "
           f"budget: ngspice's ns per step / {TARGET_X:g}")
